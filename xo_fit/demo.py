@@ -1,0 +1,293 @@
+"""The invented demo scenario: a two-way stand-mount, synthesised from published driver models.
+
+Scenario (invented; no real product): the "Wren" stand-mount, a 19 cm wide
+sealed cabinet with a 6.5-inch class woofer and a 1-inch class dome tweeter,
+crossed near 2.2 kHz. The measurement files are made here from models, the
+way a designer's own in-cabinet measurements would look:
+
+* woofer impedance: Thiele-Small (R. H. Small, JAES 1972) at the in-box
+  resonance, with a lossy voice-coil inductance Z = K (j w)^n (W. M. Leach,
+  JAES 50(6), 2002);
+* woofer response: the sealed-box 2nd-order high-pass, the baffle-step shelf
+  (midpoint 115 / W Hz after H. F. Olson; a first-order shelf, references.md),
+  the current roll-off of the voice-coil inductance, a cone breakup peak and
+  the cone's own low-pass;
+* tweeter: its own 2nd-order roll-off at resonance, a dome peak, and a top-end
+  roll-off; the woofer's acoustic centre sits 18 mm behind the tweeter's;
+* a little measurement ripple (+-0.25 dB) on both responses.
+
+All phases are minimum phase of the model (time of flight removed, as after
+gating); the offset between the drivers is in the job. Everything is
+deterministic.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .job import ThieleSmall
+from .results import write_text
+
+#: Baffle width of the demo cabinet, m.
+BAFFLE_WIDTH = 0.19
+
+WOOFER = ThieleSmall(re=5.4, le=0.6e-3, fs=58.0, qms=3.4, qes=0.62, le_exponent=0.72)
+TWEETER = ThieleSmall(re=4.7, le=0.06e-3, fs=780.0, qms=1.6, qes=1.3, le_exponent=0.85)
+
+
+def _hp2(s: np.ndarray, f0: float, q: float) -> np.ndarray:
+    w0 = 2 * np.pi * f0
+    return s**2 / (s**2 + s * w0 / q + w0**2)
+
+
+def _lp2(s: np.ndarray, f0: float, q: float) -> np.ndarray:
+    w0 = 2 * np.pi * f0
+    return w0**2 / (s**2 + s * w0 / q + w0**2)
+
+
+def _peak(s: np.ndarray, f0: float, q: float, gain_db: float) -> np.ndarray:
+    """A minimum-phase resonant peak (biquad bell) of gain_db at f0."""
+    w0 = 2 * np.pi * f0
+    a = 10 ** (gain_db / 40.0)
+    return (s**2 + s * w0 * a / q + w0**2) / (s**2 + s * w0 / (a * q) + w0**2)
+
+
+def _shelf(s: np.ndarray, width: float) -> np.ndarray:
+    """Baffle step: -6.02 dB below, 0 dB above, -3.01 dB at f3 = 115 / width (references.md)."""
+    w3 = 2 * np.pi * 115.0 / width
+    return (s + w3 / np.sqrt(2)) / (s + np.sqrt(2) * w3)
+
+
+def _ripple(f: np.ndarray, depth_db: float, period_oct: float, phase: float) -> np.ndarray:
+    return 10 ** (depth_db * np.sin(2 * np.pi * np.log2(f) / period_oct + phase) / 20.0)
+
+
+def woofer_response(f: np.ndarray) -> np.ndarray:
+    """Complex pressure (Pa at 2.83 V, 1 m) of the demo woofer in its cabinet."""
+    s = 2j * np.pi * f
+    inductive = WOOFER.re / (WOOFER.re + _le(WOOFER, f))  # current roll-off of the voice coil
+    h = (_hp2(s, 62.0, 0.78) * _shelf(s, BAFFLE_WIDTH) * inductive * _peak(s, 5400.0, 4.5, 9.0)
+         * _lp2(s, 4300.0, 0.62))
+    level = 20e-6 * 10 ** (88.0 / 20)
+    return level * h * _ripple(f, 0.25, 1.7, 0.3)
+
+
+def _le(ts: ThieleSmall, f: np.ndarray) -> np.ndarray:
+    s = 2j * np.pi * f
+    w_ref = 2 * np.pi * 1000.0
+    return ts.le * s**ts.le_exponent * w_ref ** (1 - ts.le_exponent)
+
+
+def tweeter_response(f: np.ndarray) -> np.ndarray:
+    """Complex pressure (Pa at 2.83 V, 1 m) of the demo tweeter."""
+    s = 2j * np.pi * f
+    h = _hp2(s, 820.0, 0.9) * _peak(s, 13500.0, 2.0, 2.5) * _lp2(s, 27000.0, 0.7)
+    level = 20e-6 * 10 ** (91.0 / 20)
+    return level * h * _ripple(f, 0.25, 1.3, 1.1)
+
+
+def _curve_text(f: np.ndarray, z: np.ndarray, kind: str, title: str) -> str:
+    lines = [f"* {title}", f"* invented demo data synthesised by xo_fit.demo; frequency Hz, "
+             f"{'SPL dB' if kind == 'response' else 'impedance ohm'}, phase deg"]
+    if kind == "response":
+        mag = 20 * np.log10(np.abs(z) / 20e-6)
+    else:
+        mag = np.abs(z)
+    ph = np.rad2deg(np.angle(z))
+    lines += [f"{fi:.4f}\t{m:.4f}\t{p:.3f}" for fi, m, p in zip(f, mag, ph)]
+    return "\n".join(lines) + "\n"
+
+
+JOB_TEXT = """\
+# The "Wren" stand-mount (invented demo scenario): 6.5-inch class woofer and
+# 1-inch class dome tweeter in a 19 cm wide sealed cabinet, crossed at 2.2 kHz.
+# The start values are the textbook third-order Butterworth ladders into the
+# drivers' nominal 6 ohm (references.md coefficients), a Zobel from Re and Le,
+# a notch on the breakup and a 3 dB L-pad: the kind of hand design the fit
+# then improves.
+name = "wren-2way"
+
+[grid]
+f_min = 40
+f_max = 20000
+points = 300
+
+[source]
+voltage = 2.83
+resistance = 0.05
+
+[driver.woofer]
+response = "data/woofer-response.txt"
+impedance = "data/woofer-impedance.txt"
+reference_voltage = 2.83
+offset = "18mm"
+
+[driver.tweeter]
+response = "data/tweeter-response.txt"
+impedance = "data/tweeter-impedance.txt"
+reference_voltage = 2.83
+
+# woofer low-pass: L1, C1, L2 (Butterworth 3 at 2.2 kHz into 6 ohm)
+[[part]]
+name = "L1"
+type = "L"
+nodes = ["in", "w1"]
+value = "0.65mH"
+min = "0.1mH"
+max = "3mH"
+dcr = "18awg"
+
+[[part]]
+name = "C1"
+type = "C"
+nodes = ["w1", "0"]
+value = "16uF"
+min = "1uF"
+max = "60uF"
+
+[[part]]
+name = "L2"
+type = "L"
+nodes = ["w1", "w2"]
+value = "0.22mH"
+min = "0.05mH"
+max = "2mH"
+dcr = "18awg"
+
+[[part]]
+name = "WOOFER"
+type = "driver"
+driver = "woofer"
+nodes = ["w2", "0"]
+
+# Zobel across the woofer: Rz = 1.25 Re, Cz = Le / Re^2
+[[part]]
+name = "RZ"
+type = "R"
+nodes = ["w2", "z1"]
+value = "6.8"
+min = "3"
+max = "15"
+
+[[part]]
+name = "CZ"
+type = "C"
+nodes = ["z1", "0"]
+value = "22uF"
+min = "2uF"
+max = "60uF"
+
+# notch on the cone breakup near 5.4 kHz
+[[part]]
+name = "RN"
+type = "R"
+nodes = ["w2", "n1"]
+value = "3.3"
+min = "0.5"
+max = "20"
+
+[[part]]
+name = "LN"
+type = "L"
+nodes = ["n1", "n2"]
+value = "0.25mH"
+min = "0.05mH"
+max = "1.5mH"
+dcr = "20awg"
+
+[[part]]
+name = "CN"
+type = "C"
+nodes = ["n2", "0"]
+value = "3.3uF"
+min = "0.5uF"
+max = "15uF"
+
+# tweeter high-pass: C3, L3, C4 (Butterworth 3 at 2.2 kHz into 6 ohm), then a 3 dB L-pad
+[[part]]
+name = "C3"
+type = "C"
+nodes = ["in", "t1"]
+value = "8.2uF"
+min = "1uF"
+max = "30uF"
+
+[[part]]
+name = "L3"
+type = "L"
+nodes = ["t1", "0"]
+value = "0.33mH"
+min = "0.05mH"
+max = "2mH"
+dcr = "20awg"
+
+[[part]]
+name = "C4"
+type = "C"
+nodes = ["t1", "t2"]
+value = "24uF"
+min = "2uF"
+max = "60uF"
+
+[[part]]
+name = "R1"
+type = "R"
+nodes = ["t2", "t3"]
+value = "1.8"
+min = "0.1"
+max = "10"
+
+[[part]]
+name = "R2"
+type = "R"
+nodes = ["t3", "0"]
+value = "15"
+min = "2"
+max = "50"
+
+[[part]]
+name = "TWEETER"
+type = "driver"
+driver = "tweeter"
+nodes = ["t3", "0"]
+
+[target]
+band = [150, 16000]
+level = "auto"
+curve = "flat"
+
+[target.way.woofer]
+type = "lowpass"
+alignment = "LR"
+order = 4
+fc = 2200
+
+[target.way.tweeter]
+type = "highpass"
+alignment = "LR"
+order = 4
+fc = 2200
+
+[cost]
+impedance_min = 3.2
+"""
+
+
+def write_scenario(folder: str | Path) -> Path:
+    """Write the demo's measurement files and job into ``folder``; return the job's path."""
+    folder = Path(folder)
+    data = folder / "data"
+    f = np.geomspace(10.0, 40000.0, 545)  # 1/48 octave
+    write_text(data / "woofer-response.txt", _curve_text(f, woofer_response(f), "response",
+                                                          "Wren woofer, in cabinet, 2.83 V, 1 m, gated"))
+    write_text(data / "woofer-impedance.txt", _curve_text(f, WOOFER.impedance(f), "impedance",
+                                                           "Wren woofer, in cabinet"))
+    write_text(data / "tweeter-response.txt", _curve_text(f, tweeter_response(f), "response",
+                                                           "Wren tweeter, in cabinet, 2.83 V, 1 m, gated"))
+    write_text(data / "tweeter-impedance.txt", _curve_text(f, TWEETER.impedance(f), "impedance",
+                                                            "Wren tweeter, in cabinet"))
+    job = folder / "job.toml"
+    write_text(job, JOB_TEXT)
+    return job

@@ -1,0 +1,841 @@
+"""Job files: TOML in, a frozen and validated :class:`Job` out.
+
+The format is specified in ``shared/design/job-format.md`` (version 1). Every
+default lives in :data:`DEFAULTS` below and nowhere else. Validation is strict:
+an unknown key, a value of the wrong kind or unit, or a part that cannot exist
+is a :class:`~xo_fit.errors.JobError` that names the file, the line (found in
+the file's text where it can be), the key and what was expected.
+
+Values in the file are SI numbers or engineering-notation strings
+(:mod:`xo_fit.units`); inside the :class:`Job` they are floats in SI units.
+Relative paths are taken from the job file's folder.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any, Mapping
+
+import numpy as np
+
+from .errors import JobError, NetworkError
+from .network import check_topology
+from .units import UnitsError, parse_percent, parse_value, parse_wire
+
+#: Every default of the job format, by table and key.
+DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
+    "grid": {"f_min": 20.0, "f_max": 20000.0, "points": 320},
+    "source": {"voltage": 2.83, "resistance": 0.0},
+    "acoustics": {"speed_of_sound": 343.0},
+    "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
+               "impedance_phase": "measured"},
+    "thiele_small": {"le": 0.0, "le_exponent": 1.0},
+    "part": {"fixed": False, "dcr": 0.0, "esr": 0.0},
+    "target": {"level": "auto", "curve": "flat"},
+    "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
+    "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0},
+    "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
+    "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1},
+    "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False,
+               "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
+})
+
+PART_TYPES = ("R", "L", "C", "driver")
+#: Base unit of the value of each valued part type.
+PART_UNIT = {"R": "ohm", "L": "H", "C": "F"}
+SOURCE_NODE = "in"
+GROUND_NODE = "0"
+_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
+_NODE = re.compile(r"^[A-Za-z0-9_\-+.]+$")
+
+
+# ----------------------------------------------------------------------------- the job object
+
+
+@dataclass(frozen=True)
+class Grid:
+    """The log-spaced frequency axis every curve is put on (Hz)."""
+
+    f_min: float
+    f_max: float
+    points: int
+
+    @property
+    def frequencies(self) -> np.ndarray:
+        """Frequencies in Hz, shape (F,), strictly rising, log-spaced, read-only."""
+        f = np.geomspace(self.f_min, self.f_max, self.points)
+        f.setflags(write=False)
+        return f
+
+
+@dataclass(frozen=True)
+class FileCurve:
+    """A curve read from a measurement file."""
+
+    path: Path
+
+
+@dataclass(frozen=True)
+class FlatResponse:
+    """An ideal driver response: ``level_db`` dB SPL at every frequency, zero phase."""
+
+    level_db: float
+
+
+@dataclass(frozen=True)
+class Resistive:
+    """An ideal driver impedance: ``resistance`` ohm, zero phase."""
+
+    resistance: float
+
+
+@dataclass(frozen=True)
+class ThieleSmall:
+    """A driver impedance from its small-signal parameters (R. H. Small, JAES 20(5), 1972).
+
+    Z = Re + Z_Le + Res / (1 + Qms (s/ws + ws/s)), Res = Re Qms / Qes, where
+    the voice-coil inductance is Z_Le = le * (j w)^n * w_ref^(1-n) with
+    w_ref = 2 pi 1 kHz (W. M. Leach, JAES 50(6), 2002): n = 1 is an ideal
+    inductor, n < 1 a lossy one whose |Z_Le| at 1 kHz is still w_ref * le.
+    """
+
+    re: float
+    le: float
+    fs: float
+    qms: float
+    qes: float
+    le_exponent: float = 1.0
+
+    def impedance(self, f: np.ndarray) -> np.ndarray:
+        """Complex impedance in ohm at frequencies ``f`` (Hz), shape of ``f``."""
+        w = 2 * np.pi * np.asarray(f, dtype=float)
+        s = 1j * w
+        ws = 2 * np.pi * self.fs
+        w_ref = 2 * np.pi * 1000.0
+        z_le = self.le * s**self.le_exponent * w_ref ** (1.0 - self.le_exponent)
+        res = self.re * self.qms / self.qes
+        return self.re + z_le + res / (1 + self.qms * (s / ws + ws / s))
+
+
+@dataclass(frozen=True)
+class DriverSpec:
+    """One measured driver: where its response and impedance come from, and how to place it."""
+
+    name: str
+    response: FileCurve | FlatResponse
+    impedance: FileCurve | Resistive | ThieleSmall
+    reference_voltage: float
+    offset: float
+    phase: str
+    impedance_phase: str
+
+
+@dataclass(frozen=True)
+class PartSpec:
+    """One part of the netlist.
+
+    ``value``, ``min`` and ``max`` are SI (ohm, H, F) or None. A part is free
+    when it has a range and is not ``fixed``; otherwise it holds ``value``.
+    ``dcr`` is a coil's series resistance: a float in ohm, or the bare wire
+    diameter in m when ``dcr_wire`` is True (see :mod:`xo_fit.coils`).
+    """
+
+    name: str
+    type: str
+    nodes: tuple[str, str]
+    value: float | None = None
+    min: float | None = None
+    max: float | None = None
+    fixed: bool = False
+    dcr: float = 0.0
+    dcr_wire: bool = False
+    esr: float = 0.0
+    tolerance: float | None = None
+    driver: str | None = None
+    series: str | None = None
+
+    @property
+    def free(self) -> bool:
+        """True when the search may move this part's value."""
+        return self.type != "driver" and not self.fixed and self.min is not None
+
+    @property
+    def unit(self) -> str:
+        return PART_UNIT.get(self.type, "")
+
+
+@dataclass(frozen=True)
+class WayTarget:
+    """The acoustic target of one way (one driver)."""
+
+    driver: str
+    type: str
+    alignment: str
+    order: int
+    fc: float | None = None
+    fc_low: float | None = None
+    fc_high: float | None = None
+    polarity: str = "auto"
+
+
+@dataclass(frozen=True)
+class TargetSpec:
+    band: tuple[float, float] | None = None
+    level: float | str = "auto"
+    curve: str = "flat"
+    ways: tuple[WayTarget, ...] = ()
+
+
+@dataclass(frozen=True)
+class CostSpec:
+    way: float = 1.0
+    sum: float = 1.0
+    phase: float = 0.5
+    impedance: float = 1.0
+    impedance_min: float = 0.0
+
+
+@dataclass(frozen=True)
+class SearchSpec:
+    optimizer: str = "auto"
+    budget: int = 20000
+    seed: int = 1
+    time_limit: float | None = None
+    polish: bool = True
+    robust_samples: int = 0
+
+
+@dataclass(frozen=True)
+class SnapSpec:
+    series: Mapping[str, str] = field(default_factory=dict)
+    inventory: Path | None = None
+    combine: int = 1
+
+
+@dataclass(frozen=True)
+class SpreadSpec:
+    samples: int = 2000
+    seed: int = 1
+    distribution: str = "uniform"
+    band_db: float = 1.0
+    qmc: bool = False
+    tolerance: Mapping[str, float] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Job:
+    """A validated job. Every value is SI; every path is absolute."""
+
+    name: str
+    path: Path
+    grid: Grid
+    source_voltage: float
+    source_resistance: float
+    speed_of_sound: float
+    drivers: tuple[DriverSpec, ...]
+    parts: tuple[PartSpec, ...]
+    target: TargetSpec
+    cost: CostSpec
+    search: SearchSpec
+    snap: SnapSpec
+    spread: SpreadSpec
+
+    def driver(self, name: str) -> DriverSpec:
+        for d in self.drivers:
+            if d.name == name:
+                return d
+        raise KeyError(name)
+
+    def part(self, name: str) -> PartSpec:
+        for p in self.parts:
+            if p.name == name:
+                return p
+        raise KeyError(name)
+
+    @property
+    def valued_parts(self) -> tuple[PartSpec, ...]:
+        """The R, L and C parts, in file order: the columns of a values array (B, P)."""
+        return tuple(p for p in self.parts if p.type != "driver")
+
+    @property
+    def free_parts(self) -> tuple[PartSpec, ...]:
+        return tuple(p for p in self.parts if p.free)
+
+
+# ----------------------------------------------------------------------------- reading
+
+
+class _Lines:
+    """Finds the line of a table or key in the TOML text, for error messages."""
+
+    _HEADER = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?")
+    _KEY = re.compile(r"^\s*([A-Za-z0-9_\-]+|\"[^\"]*\")\s*=")
+
+    def __init__(self, text: str) -> None:
+        self.index: dict[tuple, int] = {}
+        table: tuple = ()
+        counts: dict[str, int] = {}
+        for number, raw in enumerate(text.splitlines(), start=1):
+            m = self._HEADER.match(raw)
+            if m:
+                name = tuple(part.strip().strip('"') for part in m[2].split("."))
+                if m[1] == "[[":
+                    i = counts.get(m[2], 0)
+                    counts[m[2]] = i + 1
+                    name = name + (i,)
+                table = name
+                self.index.setdefault(table, number)
+                continue
+            k = self._KEY.match(raw)
+            if k:
+                key = k[1].strip('"')
+                self.index.setdefault(table + (key,), number)
+                # dotted keys at top level such as `grid.points = 3`
+                if "." in key:
+                    self.index.setdefault(table + tuple(key.split(".")), number)
+
+    def find(self, table: tuple, key: str | None = None) -> int | None:
+        if key is not None:
+            for probe in (table + (key,), table[:-1] + (key,) if table else (key,)):
+                if probe in self.index:
+                    return self.index[probe]
+        while table:
+            if table in self.index:
+                return self.index[table]
+            table = table[:-1]
+        return None
+
+
+class _Reader:
+    """Reads one table of the job: typed getters, then ``done()`` refuses unknown keys."""
+
+    def __init__(self, data: Any, table: tuple, label: str, ctx: "_Context") -> None:
+        self.ctx = ctx
+        self.table = table
+        self.label = label
+        if not isinstance(data, dict):
+            raise ctx.error(table, None, f"{label} must be a table, got {_kind(data)}")
+        self.data = data
+        self.used: set[str] = set()
+
+    def error(self, key: str | None, message: str) -> JobError:
+        where = f"{self.label} {key}" if key else self.label
+        return self.ctx.error(self.table, key, message, where)
+
+    def has(self, key: str) -> bool:
+        return key in self.data
+
+    def raw(self, key: str, default: Any = None) -> Any:
+        self.used.add(key)
+        return self.data.get(key, default)
+
+    def value(self, key: str, unit: str, default: Any = None, *, required: bool = False,
+              positive: bool = True, allow_zero: bool = False) -> float | None:
+        self.used.add(key)
+        if key not in self.data:
+            if required:
+                raise self.error(key, f"missing; expected {_unit_text(unit)}")
+            return default
+        try:
+            return parse_value(self.data[key], unit, positive=positive, allow_zero=allow_zero)
+        except UnitsError as e:
+            raise self.error(key, e.message) from None
+
+    def number(self, key: str, default: Any, *, integer: bool = False, minimum: float | None = None,
+               maximum: float | None = None) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            return default
+        v = self.data[key]
+        ok = isinstance(v, int) if integer else isinstance(v, (int, float))
+        if isinstance(v, bool) or not ok:
+            raise self.error(key, f"expected {'a whole number' if integer else 'a number'}, got {v!r}")
+        if minimum is not None and v < minimum:
+            raise self.error(key, f"must be at least {minimum:g}, got {v!r}")
+        if maximum is not None and v > maximum:
+            raise self.error(key, f"must be at most {maximum:g}, got {v!r}")
+        return int(v) if integer else float(v)
+
+    def choice(self, key: str, options: tuple[str, ...], default: Any) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            return default
+        v = self.data[key]
+        if not isinstance(v, str) or v not in options:
+            raise self.error(key, f"expected one of {', '.join(repr(o) for o in options)}, got {v!r}")
+        return v
+
+    def text(self, key: str, default: Any = None, *, required: bool = False) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            if required:
+                raise self.error(key, "missing; expected a text")
+            return default
+        v = self.data[key]
+        if not isinstance(v, str) or not v.strip():
+            raise self.error(key, f"expected a non-empty text, got {v!r}")
+        return v
+
+    def boolean(self, key: str, default: bool) -> bool:
+        self.used.add(key)
+        v = self.data.get(key, default)
+        if not isinstance(v, bool):
+            raise self.error(key, f"expected true or false, got {v!r}")
+        return v
+
+    def path(self, key: str) -> Path:
+        v = self.text(key, required=True)
+        p = Path(v)
+        return p if p.is_absolute() else (self.ctx.folder / p)
+
+    def sub(self, key: str, label: str | None = None) -> "_Reader":
+        self.used.add(key)
+        return _Reader(self.data.get(key, {}), self.table + (key,), label or f"[{'.'.join(map(str, self.table + (key,)))}]", self.ctx)
+
+    def done(self, allowed_extra: tuple[str, ...] = ()) -> None:
+        unknown = [k for k in self.data if k not in self.used and k not in allowed_extra]
+        if unknown:
+            key = unknown[0]
+            known = sorted(self.used | set(allowed_extra))
+            hint = _close_match(key, known)
+            raise self.ctx.error(
+                self.table, key,
+                f"unknown key '{key}'" + (f" (did you mean '{hint}'?)" if hint else "")
+                + f"; expected one of: {', '.join(known)}",
+                self.label)
+
+
+@dataclass
+class _Context:
+    path: Path
+    folder: Path
+    lines: _Lines
+
+    def error(self, table: tuple, key: str | None, message: str, where: str | None = None) -> JobError:
+        return JobError(message, path=self.path, line=self.lines.find(table, key), key=where)
+
+
+def _kind(v: Any) -> str:
+    return {dict: "a table", list: "a list", str: "a text", bool: "a boolean",
+            int: "a number", float: "a number"}.get(type(v), type(v).__name__)
+
+
+def _unit_text(unit: str) -> str:
+    from .units import UNIT_SYMBOL
+    return f"a value in {UNIT_SYMBOL.get(unit, unit)}" if unit else "a number"
+
+
+def _close_match(key: str, known: list[str]) -> str | None:
+    import difflib
+    m = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
+    return m[0] if m else None
+
+
+def load_job(path: str | Path) -> Job:
+    """Read and validate a job file.
+
+    Raises
+    ------
+    JobError
+        For anything wrong with the file, naming the file, line and key.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise JobError("job file not found", path=path) from None
+    except (OSError, UnicodeDecodeError) as e:
+        raise JobError(f"cannot read the job file: {e}", path=path) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
+        msg = str(e)
+        m = re.search(r"\(at line (\d+), column \d+\)", msg)
+        line = int(m[1]) if m else None
+        msg = re.sub(r"\s*\(at line \d+, column \d+\)", "", msg)
+        raise JobError(f"invalid TOML: {msg}", path=path, line=line) from None
+    ctx = _Context(path=path.resolve(), folder=path.resolve().parent, lines=_Lines(text))
+    return _build(data, ctx)
+
+
+def _build(data: dict, ctx: _Context) -> Job:
+    top = _Reader(data, (), "job", ctx)
+    name = top.text("name", ctx.path.stem)
+
+    grid = _grid(top.sub("grid", "[grid]"))
+    src = top.sub("source", "[source]")
+    voltage = src.value("voltage", "V", DEFAULTS["source"]["voltage"])
+    resistance = src.value("resistance", "ohm", DEFAULTS["source"]["resistance"], allow_zero=True)
+    src.done()
+    ac = top.sub("acoustics", "[acoustics]")
+    c = ac.value("speed_of_sound", "m/s", DEFAULTS["acoustics"]["speed_of_sound"])
+    ac.done()
+
+    drv_table = top.sub("driver", "[driver]")
+    drivers = []
+    for dname in drv_table.data:
+        drv_table.used.add(dname)
+        drivers.append(_driver(dname, drv_table.sub(dname, f"[driver.{dname}]"), voltage))
+    if not drivers:
+        raise ctx.error((), None, "no drivers: add at least one [driver.NAME] table", "job")
+
+    top.used.add("part")
+    raw_parts = data.get("part", [])
+    if not isinstance(raw_parts, list) or not raw_parts:
+        raise ctx.error((), "part", "no parts: the network needs [[part]] tables", "job")
+    driver_names = {d.name for d in drivers}
+    parts = tuple(_part(_Reader(p, ("part", i), f"[[part]] #{i + 1}", ctx), driver_names)
+                  for i, p in enumerate(raw_parts))
+    _check_parts(parts, drivers, ctx)
+
+    target = _target(top.sub("target", "[target]"), driver_names)
+    cost = _cost(top.sub("cost", "[cost]"))
+    search = _search(top.sub("search", "[search]"))
+    snap = _snap(top.sub("snap", "[snap]"))
+    spread = _spread(top.sub("spread", "[spread]"))
+    top.done()
+    return Job(name=name, path=ctx.path, grid=grid, source_voltage=voltage, source_resistance=resistance,
+               speed_of_sound=c, drivers=tuple(drivers), parts=parts, target=target, cost=cost,
+               search=search, snap=snap, spread=spread)
+
+
+def _grid(r: _Reader) -> Grid:
+    d = DEFAULTS["grid"]
+    f_min = r.value("f_min", "Hz", d["f_min"])
+    f_max = r.value("f_max", "Hz", d["f_max"])
+    if f_max <= f_min:
+        raise r.error("f_max", f"must be above f_min ({f_min:g} Hz), got {f_max:g} Hz")
+    if r.has("points") and r.has("per_octave"):
+        raise r.error("per_octave", "give either points or per_octave, not both")
+    if r.has("per_octave"):
+        per_octave = r.number("per_octave", None, integer=True, minimum=1, maximum=1000)
+        points = int(np.ceil(np.log2(f_max / f_min) * per_octave - 1e-9)) + 1
+    else:
+        points = r.number("points", d["points"], integer=True, minimum=2, maximum=100000)
+    r.done()
+    return Grid(f_min=f_min, f_max=f_max, points=points)
+
+
+def _phase_choice(r: _Reader, key: str) -> str:
+    return r.choice(key, ("measured", "minimum"), DEFAULTS["driver"][key])
+
+
+def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
+    if not _NAME.match(name):
+        raise r.error(None, "a driver name must start with a letter and hold only letters, digits, _ and -")
+    d = DEFAULTS["driver"]
+    if not r.has("response"):
+        raise r.error("response", "missing; expected a measurement file path, or a level in dB SPL for an ideal flat driver")
+    if not r.has("impedance"):
+        raise r.error("impedance", "missing; expected a measurement file path, a resistance in ohm, "
+                      "or a Thiele-Small table {re, le, fs, qms, qes}")
+    resp = r.raw("response")
+    if isinstance(resp, (int, float)) and not isinstance(resp, bool):
+        response: FileCurve | FlatResponse = FlatResponse(float(resp))
+    else:
+        response = FileCurve(r.path("response"))
+    imp = r.raw("impedance")
+    impedance: FileCurve | Resistive | ThieleSmall
+    if isinstance(imp, dict):
+        t = r.sub("impedance", f"[driver.{name}.impedance]")
+        impedance = ThieleSmall(
+            re=t.value("re", "ohm", required=True),
+            le=t.value("le", "H", DEFAULTS["thiele_small"]["le"], allow_zero=True),
+            fs=t.value("fs", "Hz", required=True),
+            qms=t.number("qms", None, minimum=1e-3) or _missing(t, "qms"),
+            qes=t.number("qes", None, minimum=1e-3) or _missing(t, "qes"),
+            le_exponent=t.number("le_exponent", DEFAULTS["thiele_small"]["le_exponent"], minimum=0.0, maximum=1.0),
+        )
+        t.done()
+    elif isinstance(imp, str) and _looks_numeric(imp):
+        impedance = Resistive(r.value("impedance", "ohm"))
+    elif isinstance(imp, (int, float)) and not isinstance(imp, bool):
+        impedance = Resistive(r.value("impedance", "ohm"))
+    else:
+        impedance = FileCurve(r.path("impedance"))
+    spec = DriverSpec(
+        name=name,
+        response=response,
+        impedance=impedance,
+        reference_voltage=r.value("reference_voltage", "V", d["reference_voltage"]),
+        offset=r.value("offset", "m", d["offset"], positive=False),
+        phase=_phase_choice(r, "phase"),
+        impedance_phase=_phase_choice(r, "impedance_phase"),
+    )
+    r.done()
+    return spec
+
+
+def _missing(r: _Reader, key: str):
+    raise r.error(key, "missing; expected a number")
+
+
+def _looks_numeric(text: str) -> bool:
+    try:
+        parse_value(text, "ohm")
+        return True
+    except UnitsError:
+        return False
+
+
+def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
+    name = r.text("name", required=True)
+    if not _NAME.match(name):
+        raise r.error("name", f"'{name}' is not a valid part name: start with a letter, then letters, digits, _ or -")
+    r.label = f"part {name}"
+    ptype = r.choice("type", PART_TYPES, None)
+    if ptype is None:
+        raise r.error("type", f"missing; expected one of {', '.join(PART_TYPES)}")
+    nodes = r.raw("nodes")
+    if (not isinstance(nodes, list) or len(nodes) != 2
+            or not all(isinstance(n, (str, int)) and not isinstance(n, bool) for n in nodes)):
+        raise r.error("nodes", f"expected two node names such as [\"in\", \"w1\"], got {nodes!r}")
+    nodes_t = (str(nodes[0]).strip(), str(nodes[1]).strip())
+    for n in nodes_t:
+        if not _NODE.match(n):
+            raise r.error("nodes", f"'{n}' is not a valid node name (letters, digits, _ - + .)")
+    if nodes_t[0] == nodes_t[1]:
+        raise r.error("nodes", f"both ends on node '{nodes_t[0]}': the part is shorted onto one node")
+
+    if ptype == "driver":
+        drv = r.text("driver", required=True)
+        if drv not in driver_names:
+            raise r.error("driver", f"unknown driver '{drv}'; defined drivers: {', '.join(sorted(driver_names))}")
+        for key in ("value", "min", "max", "dcr", "esr", "tolerance", "series", "fixed"):
+            if r.has(key):
+                raise r.error(key, "a driver part takes only name, type, nodes and driver")
+        r.done()
+        return PartSpec(name=name, type=ptype, nodes=nodes_t, driver=drv)
+
+    unit = PART_UNIT[ptype]
+    value = r.value("value", unit)
+    lo = r.value("min", unit)
+    hi = r.value("max", unit)
+    fixed = r.boolean("fixed", DEFAULTS["part"]["fixed"])
+    if (lo is None) != (hi is None):
+        raise r.error("min" if lo is None else "max", "give both min and max for a search range, or neither")
+    if lo is not None and hi is not None:
+        if hi <= lo:
+            raise r.error("max", "must be above min")
+        if value is not None and not lo <= value <= hi:
+            raise r.error("value", "the start value lies outside min..max")
+    if value is None and (lo is None or fixed):
+        raise r.error("value", "missing; a fixed part needs a value (or give min and max to let the search set it)")
+    dcr, dcr_wire = 0.0, False
+    if r.has("dcr"):
+        if ptype != "L":
+            raise r.error("dcr", "only a coil (type L) has dcr; a capacitor has esr")
+        raw = r.raw("dcr")
+        wire = parse_wire(raw) if isinstance(raw, str) else None
+        if wire is not None:
+            dcr, dcr_wire = wire, True
+        elif isinstance(raw, str) and _is_length(raw):
+            dcr, dcr_wire = r.value("dcr", "m"), True
+        else:
+            dcr = r.value("dcr", "ohm", allow_zero=True)
+    esr = 0.0
+    if r.has("esr"):
+        if ptype != "C":
+            raise r.error("esr", "only a capacitor (type C) has esr; a coil has dcr")
+        esr = r.value("esr", "ohm", allow_zero=True)
+    tol = None
+    if r.has("tolerance"):
+        try:
+            tol = parse_percent(r.raw("tolerance"))
+        except UnitsError as e:
+            raise r.error("tolerance", e.message) from None
+    series = r.text("series")
+    if r.has("driver"):
+        raise r.error("driver", "only a part of type driver names a driver")
+    r.done()
+    return PartSpec(name=name, type=ptype, nodes=nodes_t, value=value, min=lo, max=hi, fixed=fixed,
+                    dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series)
+
+
+def _is_length(text: str) -> bool:
+    try:
+        parse_value(text, "m")
+    except UnitsError:
+        return False
+    return text.strip().endswith("m") and not text.strip().endswith("ohm")
+
+
+def _check_parts(parts: tuple[PartSpec, ...], drivers: list[DriverSpec], ctx: _Context) -> None:
+    seen: dict[str, int] = {}
+    used: dict[str, str] = {}
+    for i, p in enumerate(parts):
+        if p.name in seen:
+            raise ctx.error(("part", i), "name", f"duplicate part name '{p.name}' (also part #{seen[p.name] + 1})",
+                            f"part {p.name}")
+        seen[p.name] = i
+        if p.driver is not None:
+            if p.driver in used:
+                raise ctx.error(("part", i), "driver",
+                                f"driver '{p.driver}' is already wired in by part {used[p.driver]}", f"part {p.name}")
+            used[p.driver] = p.name
+    try:
+        check_topology([(p.name, p.nodes[0], p.nodes[1]) for p in parts])
+    except NetworkError as e:
+        name = e.key[len("part "):] if e.key and e.key.startswith("part ") else None
+        i = next((k for k, p in enumerate(parts) if p.name == name), None)
+        table = ("part", i) if i is not None else ()
+        raise ctx.error(table, "nodes" if i is not None else None, e.message, e.key or "netlist") from None
+    for d in drivers:
+        if d.name not in used:
+            raise ctx.error(("driver", d.name), None,
+                            f"driver '{d.name}' is defined but no [[part]] of type driver wires it in",
+                            f"[driver.{d.name}]")
+
+
+def _target(r: _Reader, driver_names: set[str]) -> TargetSpec:
+    d = DEFAULTS["target"]
+    band = None
+    if r.has("band"):
+        raw = r.raw("band")
+        if not isinstance(raw, list) or len(raw) != 2:
+            raise r.error("band", f"expected [low, high] in Hz, got {raw!r}")
+        try:
+            lo, hi = (parse_value(v, "Hz") for v in raw)
+        except UnitsError as e:
+            raise r.error("band", e.message) from None
+        if hi <= lo:
+            raise r.error("band", "the high end must be above the low end")
+        band = (lo, hi)
+    level: float | str = d["level"]
+    if r.has("level"):
+        raw = r.raw("level")
+        if raw == "auto":
+            level = "auto"
+        elif isinstance(raw, (int, float)) and not isinstance(raw, bool):
+            level = float(raw)
+        else:
+            raise r.error("level", f"expected \"auto\" or a level in dB SPL, got {raw!r}")
+    curve = r.text("curve", d["curve"])
+    ways = []
+    w_table = r.sub("way", "[target.way]")
+    for wname in w_table.data:
+        w_table.used.add(wname)
+        if wname not in driver_names:
+            raise w_table.error(wname, f"no driver named '{wname}'; defined drivers: {', '.join(sorted(driver_names))}")
+        ways.append(_way(wname, w_table.sub(wname, f"[target.way.{wname}]")))
+    r.done()
+    return TargetSpec(band=band, level=level, curve=curve, ways=tuple(ways))
+
+
+def _way(name: str, r: _Reader) -> WayTarget:
+    d = DEFAULTS["way"]
+    wtype = r.choice("type", ("lowpass", "highpass", "bandpass", "fullrange"), None)
+    if wtype is None:
+        raise r.error("type", "missing; expected lowpass, highpass or bandpass")
+    alignment = r.choice("alignment", ("LR", "BW", "Bessel"), d["alignment"])
+    order = r.number("order", d["order"], integer=True, minimum=1, maximum=8)
+    if alignment == "LR" and order % 2:
+        raise r.error("order", f"a Linkwitz-Riley alignment has an even order (2, 4, 6, 8), got {order}")
+    fc = fc_low = fc_high = None
+    if wtype == "bandpass":
+        fc_low = r.value("fc_low", "Hz", required=True)
+        fc_high = r.value("fc_high", "Hz", required=True)
+        if fc_high <= fc_low:
+            raise r.error("fc_high", "must be above fc_low")
+        if r.has("fc"):
+            raise r.error("fc", "a bandpass takes fc_low and fc_high, not fc")
+    elif wtype != "fullrange":
+        fc = r.value("fc", "Hz", required=True)
+    polarity = r.choice("polarity", ("auto", "normal", "inverted"), d["polarity"])
+    r.done()
+    return WayTarget(driver=name, type=wtype, alignment=alignment, order=order, fc=fc, fc_low=fc_low,
+                     fc_high=fc_high, polarity=polarity)
+
+
+def _cost(r: _Reader) -> CostSpec:
+    d = DEFAULTS["cost"]
+    spec = CostSpec(
+        way=r.number("way", d["way"], minimum=0.0),
+        sum=r.number("sum", d["sum"], minimum=0.0),
+        phase=r.number("phase", d["phase"], minimum=0.0),
+        impedance=r.number("impedance", d["impedance"], minimum=0.0),
+        impedance_min=r.value("impedance_min", "ohm", d["impedance_min"], allow_zero=True),
+    )
+    r.done()
+    return spec
+
+
+def _search(r: _Reader) -> SearchSpec:
+    d = DEFAULTS["search"]
+    robust = 0
+    if r.has("robust"):
+        rr = r.sub("robust", "[search.robust]")
+        robust = rr.number("samples", 0, integer=True, minimum=1, maximum=100000)
+        rr.done()
+    spec = SearchSpec(
+        optimizer=r.text("optimizer", d["optimizer"]),
+        budget=r.number("budget", d["budget"], integer=True, minimum=1),
+        seed=r.number("seed", d["seed"], integer=True, minimum=0),
+        time_limit=r.value("time_limit", "s", d["time_limit"]),
+        polish=r.boolean("polish", d["polish"]),
+        robust_samples=robust,
+    )
+    r.done()
+    return spec
+
+
+def _snap(r: _Reader) -> SnapSpec:
+    d = DEFAULTS["snap"]
+    series = dict(d["series"])
+    if r.has("series"):
+        raw = r.raw("series")
+        if isinstance(raw, str):
+            series = {k: raw for k in series}
+        elif isinstance(raw, dict):
+            for k, v in raw.items():
+                if k not in series:
+                    raise r.error("series", f"unknown part kind '{k}'; expected L, C or R")
+                if not isinstance(v, str):
+                    raise r.error("series", f"expected a series name such as \"E12\" for {k}, got {v!r}")
+                series[k] = v
+        else:
+            raise r.error("series", f"expected a series name or a table {{L = \"E12\", ...}}, got {raw!r}")
+    inventory = r.path("inventory") if r.has("inventory") else None
+    combine = r.number("combine", d["combine"], integer=True, minimum=1, maximum=2)
+    r.done()
+    return SnapSpec(series=MappingProxyType(series), inventory=inventory, combine=combine)
+
+
+def _spread(r: _Reader) -> SpreadSpec:
+    d = DEFAULTS["spread"]
+    tol = dict(d["tolerance"])
+    if r.has("tolerance"):
+        raw = r.raw("tolerance")
+        if not isinstance(raw, dict):
+            raise r.error("tolerance", f"expected a table such as {{R = \"5%\", L = \"5%\", C = \"5%\"}}, got {raw!r}")
+        for k, v in raw.items():
+            if k not in tol:
+                raise r.error("tolerance", f"unknown part kind '{k}'; expected R, L or C")
+            try:
+                tol[k] = parse_percent(v)
+            except UnitsError as e:
+                raise r.error("tolerance", f"{k}: {e.message}") from None
+    spec = SpreadSpec(
+        samples=r.number("samples", d["samples"], integer=True, minimum=1),
+        seed=r.number("seed", d["seed"], integer=True, minimum=0),
+        distribution=r.choice("distribution", ("uniform", "normal"), d["distribution"]),
+        band_db=r.number("band_db", d["band_db"], minimum=0.0),
+        qmc=r.boolean("qmc", d["qmc"]),
+        tolerance=MappingProxyType(tol),
+    )
+    r.done()
+    return spec
+
+
+def check_values(job: Job) -> None:
+    """Raise if a part has no value to simulate with (a free part with only a range)."""
+    for p in job.valued_parts:
+        if p.value is None:
+            raise JobError(f"part {p.name} has only a range; give it a value (or simulate a fit with --from RESULT)",
+                           path=job.path, key=f"part {p.name}")
+
+

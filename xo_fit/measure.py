@@ -1,0 +1,303 @@
+"""Measurement files in, complex curves on the job's grid out; minimum phase from magnitude.
+
+File format (``shared/design/job-format.md``): plain text, one point a line:
+frequency in Hz, magnitude (dB SPL for a response, ohm for an impedance), and
+optionally phase in degrees. Columns are separated by spaces, tabs, commas or
+semicolons; a decimal comma is read where commas do not separate the columns.
+Lines whose first field is not a number (headers, comments) are skipped.
+Frequencies must rise strictly. Any breach is a :class:`~xo_fit.errors.DataError`
+naming the file, the line and what was wrong.
+
+On the grid, magnitude is interpolated in dB and unwrapped phase in radians,
+both linearly over log-frequency. A grid reaching beyond a file's range is an
+error, never an extrapolation.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from scipy.special import spence
+
+from .errors import DataError
+
+#: Reference pressure of dB SPL, Pa.
+P_REF = 20e-6
+#: Relative slack allowed when checking that the grid lies inside a file's range.
+RANGE_SLACK = 1e-9
+#: Width of the band at each end of a curve whose log-log slope extends it (octaves).
+EDGE_OCTAVES = 1.0 / 3.0
+#: Resolution at which magnitude is resampled for the minimum-phase integral (points per octave).
+MINPHASE_PER_OCTAVE = 96
+#: A step of measured phase between adjacent points above this (deg) is warned about.
+PHASE_STEP_WARN_DEG = 120.0
+
+_FIRST_NUMBER = re.compile(r"^\s*[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?(?=$|[\s,;])")
+
+
+@dataclass(frozen=True)
+class Curve:
+    """A curve as read from a file.
+
+    Attributes
+    ----------
+    path: the file.
+    frequency: Hz, shape (N,), strictly rising.
+    magnitude: shape (N,), dB SPL (response) or ohm (impedance).
+    phase_deg: shape (N,) or None when the file has no phase column.
+    lines: the 1-based line number of each point, shape (N,).
+    """
+
+    path: Path
+    frequency: np.ndarray
+    magnitude: np.ndarray
+    phase_deg: np.ndarray | None
+    lines: np.ndarray
+
+    @property
+    def f_range(self) -> tuple[float, float]:
+        return float(self.frequency[0]), float(self.frequency[-1])
+
+
+def _decode(raw: bytes) -> str:
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return raw.decode("utf-16")
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        return raw.decode("latin-1")
+
+
+def _comma_separates(lines: list[str]) -> bool:
+    """True when splitting every data line on commas gives 2+ numeric fields."""
+    for text in lines:
+        fields = [f.strip() for f in text.split(",")]
+        if fields and fields[-1] == "":
+            fields = fields[:-1]
+        if len(fields) < 2:
+            return False
+        for f in fields:
+            try:
+                float(f)
+            except ValueError:
+                return False
+    return True
+
+
+def read_curve(path: str | Path, kind: str) -> Curve:
+    """Read a measurement file.
+
+    Parameters
+    ----------
+    path: the file (any name or extension).
+    kind: ``"response"`` (magnitude in dB SPL) or ``"impedance"`` (magnitude in ohm).
+
+    Raises
+    ------
+    DataError
+        File missing or unreadable, a malformed line, frequencies not rising,
+        a non-positive frequency or impedance, fewer than two points.
+    """
+    path = Path(path)
+    try:
+        text = _decode(path.read_bytes())
+    except FileNotFoundError:
+        raise DataError(f"{kind} file not found", path=path) from None
+    except OSError as e:
+        raise DataError(f"cannot read the {kind} file: {e.strerror}", path=path) from None
+
+    data: list[tuple[int, str]] = []
+    for number, line in enumerate(text.splitlines(), start=1):
+        if _FIRST_NUMBER.match(line):
+            data.append((number, line.strip()))
+    if not data:
+        raise DataError(f"no data lines: expected lines of frequency, {_mag_name(kind)} [, phase]", path=path)
+
+    raw_lines = [t for _, t in data]
+    if any(";" in t for t in raw_lines):
+        def split(t: str) -> list[str]:
+            return [f.strip().replace(",", ".") for f in t.split(";") if f.strip()]
+    elif any("," in t for t in raw_lines) and _comma_separates(raw_lines):
+        def split(t: str) -> list[str]:
+            return [f.strip() for f in t.split(",") if f.strip()]
+    else:
+        def split(t: str) -> list[str]:
+            return [f.replace(",", ".") for f in t.split()]
+
+    rows = []
+    ncol = None
+    for number, t in data:
+        fields = split(t)
+        if len(fields) not in (2, 3):
+            raise DataError(f"expected 2 or 3 columns (frequency, {_mag_name(kind)} [, phase deg]), "
+                            f"found {len(fields)}: '{t}'", path=path, line=number)
+        if ncol is None:
+            ncol = len(fields)
+        elif len(fields) != ncol:
+            raise DataError(f"found {len(fields)} columns where the lines above have {ncol}",
+                            path=path, line=number)
+        try:
+            vals = [float(x) for x in fields]
+        except ValueError:
+            bad = next(x for x in fields if not _is_float(x))
+            raise DataError(f"'{bad}' is not a number", path=path, line=number) from None
+        if not all(np.isfinite(vals)):
+            raise DataError("not a finite number", path=path, line=number)
+        rows.append(vals)
+    arr = np.asarray(rows, dtype=float)
+    lines = np.asarray([n for n, _ in data])
+    f = arr[:, 0]
+    if f[0] <= 0:
+        raise DataError(f"frequency must be above 0 Hz, got {f[0]:g}", path=path, line=int(lines[0]))
+    step = np.diff(f)
+    if np.any(step <= 0):
+        i = int(np.argmax(step <= 0)) + 1
+        raise DataError(f"frequencies must rise strictly: {f[i]:g} Hz follows {f[i - 1]:g} Hz",
+                        path=path, line=int(lines[i]))
+    if len(f) < 2:
+        raise DataError("need at least two points", path=path, line=int(lines[0]))
+    mag = arr[:, 1]
+    if kind == "impedance" and np.any(mag <= 0):
+        i = int(np.argmax(mag <= 0))
+        raise DataError(f"impedance magnitude must be above 0 ohm, got {mag[i]:g}", path=path, line=int(lines[i]))
+    phase = arr[:, 2] if ncol == 3 else None
+    for a in (f, mag) + ((phase,) if phase is not None else ()):
+        a.setflags(write=False)
+    return Curve(path=path, frequency=f, magnitude=mag, phase_deg=phase, lines=lines)
+
+
+def _is_float(x: str) -> bool:
+    try:
+        float(x)
+        return True
+    except ValueError:
+        return False
+
+
+def _mag_name(kind: str) -> str:
+    return "dB SPL" if kind == "response" else "ohm"
+
+
+def check_coverage(curve: Curve, grid: np.ndarray, kind: str) -> None:
+    """Raise if ``grid`` (Hz) reaches beyond the file's frequency range."""
+    lo, hi = curve.f_range
+    if grid[0] < lo * (1 - RANGE_SLACK) or grid[-1] > hi * (1 + RANGE_SLACK):
+        raise DataError(
+            f"{kind} covers {lo:g}-{hi:g} Hz but the job's grid spans {grid[0]:g}-{grid[-1]:g} Hz; "
+            "narrow [grid] f_min/f_max or measure wider", path=curve.path)
+
+
+def magnitude_db(curve: Curve, kind: str) -> np.ndarray:
+    """The curve's magnitude in dB: dB SPL for a response, 20 log10(|Z| / 1 ohm) for an impedance."""
+    return curve.magnitude if kind == "response" else 20.0 * np.log10(curve.magnitude)
+
+
+def on_grid(curve: Curve, grid: np.ndarray, kind: str, phase: str = "measured") -> tuple[np.ndarray, list[str]]:
+    """Put a curve on the grid as a complex array.
+
+    Parameters
+    ----------
+    curve: as read by :func:`read_curve`.
+    grid: frequencies in Hz, shape (F,), inside the curve's range.
+    kind: ``"response"`` or ``"impedance"``.
+    phase: ``"measured"`` (the file's phase column) or ``"minimum"`` (derived from the magnitude).
+
+    Returns
+    -------
+    values:
+        complex (F,): sound pressure in Pa (response; |p| = 20 uPa 10^(dB/20)) or impedance in ohm.
+    warnings:
+        Human-readable remarks about the data (e.g. phase that steps too fast to interpolate).
+    """
+    check_coverage(curve, grid, kind)
+    warnings: list[str] = []
+    logf = np.log(curve.frequency)
+    logg = np.log(grid)
+    db = magnitude_db(curve, kind)
+    grid_db = np.interp(logg, logf, db)
+    if phase == "minimum":
+        ph = minimum_phase(curve.frequency, db, grid)
+    else:
+        if curve.phase_deg is None:
+            raise DataError(f"{kind} file has no phase column; add one, or set "
+                            f"{'phase' if kind == 'response' else 'impedance_phase'} = \"minimum\" "
+                            "to derive it from the magnitude", path=curve.path)
+        unwrapped = np.unwrap(np.deg2rad(curve.phase_deg))
+        steps = np.abs(np.diff(unwrapped))
+        if steps.size and np.max(steps) > np.deg2rad(PHASE_STEP_WARN_DEG):
+            i = int(np.argmax(steps))
+            warnings.append(f"{curve.path}:{int(curve.lines[i + 1])}: phase steps {np.rad2deg(steps[i]):.0f} deg "
+                            "between adjacent points, too fast to interpolate reliably; remove the time-of-flight "
+                            "delay from the file (and set offset), or use phase = \"minimum\"")
+        ph = np.interp(logg, logf, unwrapped)
+    mag = 10.0 ** (grid_db / 20.0)
+    if kind == "response":
+        mag = mag * P_REF
+    return mag * np.exp(1j * ph), warnings
+
+
+def _edge_slope(u: np.ndarray, a: np.ndarray, at_start: bool) -> float:
+    """Least-squares slope of a(u) over the outer EDGE_OCTAVES of the data at one end."""
+    width = EDGE_OCTAVES * np.log(2.0)
+    sel = (u <= u[0] + width) if at_start else (u >= u[-1] - width)
+    if np.count_nonzero(sel) < 2:
+        sel = slice(0, 2) if at_start else slice(-2, None)
+    us, as_ = u[sel], a[sel]
+    du = us - us.mean()
+    den = float(np.dot(du, du))
+    return float(np.dot(du, as_ - as_.mean()) / den) if den > 0 else 0.0
+
+
+def _bode_kernel(u: np.ndarray) -> np.ndarray:
+    """K(u) = integral from 0 to u of ln coth(|t|/2) dt, an odd function with K(+-inf) = +-pi^2/4.
+
+    K(u) = sign(u) (pi^2/4 - 2 chi_2(e^-|u|)) with Legendre's chi
+    chi_2(x) = (Li2(x) - Li2(-x)) / 2, and Li2(z) = spence(1 - z) in scipy.
+    """
+    x = np.exp(-np.abs(u))
+    chi2 = 0.5 * (spence(1.0 - x) - spence(1.0 + x))
+    return np.sign(u) * (np.pi**2 / 4.0 - 2.0 * chi2)
+
+
+def minimum_phase(frequency: np.ndarray, magnitude_db_: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """Minimum phase in radians at frequencies ``at`` of a magnitude known at ``frequency``.
+
+    Bode's gain-phase relation (H. W. Bode, Network Analysis and Feedback
+    Amplifier Design, 1945, ch. 14): with A = ln|H| and u = ln(w / w0),
+
+        phi(w0) = (1/pi) * integral of (dA/du) ln coth(|u|/2) du,
+
+    i.e. minus the Hilbert transform of ln|H|. The magnitude is resampled at
+    MINPHASE_PER_OCTAVE points per octave, taken as piecewise linear in u, and
+    extended beyond both ends by its own edge slopes (fitted over the outer
+    EDGE_OCTAVES); for that piecewise-linear A the integral is evaluated exactly
+    through the antiderivative of the kernel, so the only error is the
+    interpolation of the data and the slope extension.
+
+    Parameters
+    ----------
+    frequency: Hz, shape (N,), strictly rising.
+    magnitude_db_: dB, shape (N,).
+    at: Hz, shape (M,).
+
+    Returns
+    -------
+    phase: radians, shape (M,). A rising magnitude slope of 6.02 dB/octave
+    everywhere gives +pi/2.
+    """
+    logf = np.log(np.asarray(frequency, dtype=float))
+    n = max(int(np.ceil((logf[-1] - logf[0]) / np.log(2.0) * MINPHASE_PER_OCTAVE)) + 1, 2)
+    u_nodes = np.linspace(logf[0], logf[-1], n)
+    a = np.interp(u_nodes, logf, np.asarray(magnitude_db_, dtype=float)) * (np.log(10.0) / 20.0)  # nepers
+    s_lo = _edge_slope(u_nodes, a, True)
+    s_hi = _edge_slope(u_nodes, a, False)
+    slopes = np.diff(a) / np.diff(u_nodes)
+    # slope change at each node: s_{j-1} - s_j, with s_lo before the first and s_hi after the last
+    before = np.concatenate(([s_lo], slopes))
+    after = np.concatenate((slopes, [s_hi]))
+    jump = before - after
+    u = u_nodes[None, :] - np.log(np.asarray(at, dtype=float))[:, None]
+    return ((s_lo + s_hi) * np.pi**2 / 4.0 + _bode_kernel(u) @ jump) / np.pi

@@ -1,0 +1,134 @@
+"""Result files: result.json and response.csv, written atomically; result.json read back.
+
+Formats are specified in ``shared/design/job-format.md``. Every file is first
+written under a temporary name in its own folder, then renamed over the
+target, so a crash or Ctrl-C never leaves a half-written result in place of a
+finished one.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any, Iterator
+
+import numpy as np
+
+from . import acoustics
+from .errors import DataError, XoFitError
+from .units import format_value
+
+RESULT_VERSION = 1
+
+
+@contextmanager
+def atomic_path(path: str | Path, suffix: str = "") -> Iterator[Path]:
+    """Yield a temporary path beside ``path``; on success rename it over ``path``, else remove it."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=suffix or path.suffix)
+    os.close(fd)
+    tmp_path = Path(tmp)
+    try:
+        yield tmp_path
+        os.replace(tmp_path, path)
+    finally:
+        if tmp_path.exists():
+            tmp_path.unlink()
+
+
+def write_text(path: str | Path, text: str) -> None:
+    """Write ``text`` to ``path`` atomically (UTF-8)."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+
+
+def _clean(x: Any) -> Any:
+    """JSON-safe copy: numpy scalars to Python, non-finite floats to None."""
+    if isinstance(x, dict):
+        return {str(k): _clean(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_clean(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return _clean(x.tolist())
+    if isinstance(x, (np.floating, float)):
+        f = float(x)
+        return f if math.isfinite(f) else None
+    if isinstance(x, np.integer):
+        return int(x)
+    if isinstance(x, np.bool_):
+        return bool(x)
+    return x
+
+
+def write_json(path: str | Path, data: dict) -> None:
+    write_text(path, json.dumps(_clean(data), indent=2, ensure_ascii=False) + "\n")
+
+
+def part_entries(names: tuple[str, ...], units: tuple[str, ...], values: np.ndarray) -> dict:
+    """The ``parts`` section: value in SI, its unit and engineering text, per part."""
+    return {n: {"value": float(v), "unit": u, "text": format_value(float(v), u)}
+            for n, u, v in zip(names, units, values)}
+
+
+def response_table(frequencies: np.ndarray, driver_names: tuple[str, ...], pressure: np.ndarray,
+                   total: np.ndarray, impedance: np.ndarray, target_db: np.ndarray | None = None):
+    """response.csv as a pandas DataFrame, columns per the contract.
+
+    pressure: complex Pa (D, F); total: complex Pa (F,); impedance: complex ohm (F,);
+    target_db: dB SPL (F,) or None (the column is then empty).
+    """
+    import pandas as pd
+
+    cols: dict[str, np.ndarray] = {"frequency_hz": frequencies}
+    for name, p in zip(driver_names, pressure):
+        cols[f"{name}_db"] = acoustics.spl_db(p)
+        cols[f"{name}_deg"] = acoustics.phase_deg(p)
+    cols["sum_db"] = acoustics.spl_db(total)
+    cols["sum_deg"] = acoustics.phase_deg(total)
+    cols["target_db"] = target_db if target_db is not None else np.full(frequencies.size, np.nan)
+    cols["impedance_ohm"] = np.abs(impedance)
+    cols["impedance_deg"] = acoustics.phase_deg(impedance)
+    return pd.DataFrame(cols)
+
+
+def write_csv(path: str | Path, frame) -> None:
+    with atomic_path(path) as tmp:
+        frame.to_csv(tmp, index=False, float_format="%.6g")
+
+
+def read_result(path: str | Path) -> dict:
+    """Read a result.json; raise DataError naming the file for anything malformed."""
+    path = Path(path)
+    if path.is_dir():
+        path = path / "result.json"
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise DataError("result file not found", path=path) from None
+    except json.JSONDecodeError as e:
+        raise DataError(f"not valid JSON: {e.msg}", path=path, line=e.lineno) from None
+    except OSError as e:
+        raise DataError(f"cannot read: {e.strerror}", path=path) from None
+    if not isinstance(data, dict) or not isinstance(data.get("parts"), dict):
+        raise DataError("not an xo_fit result: expected an object with a \"parts\" table", path=path)
+    for name, entry in data["parts"].items():
+        if not isinstance(entry, dict) or not isinstance(entry.get("value"), (int, float)) \
+                or isinstance(entry.get("value"), bool) or not entry["value"] > 0:
+            raise DataError(f"part {name}: expected {{\"value\": <number above 0 in SI units>, ...}}", path=path,
+                            key="parts")
+    return data
+
+
+def result_values(data: dict, part_names: tuple[str, ...], path: str | Path) -> dict[str, float]:
+    """Values by part name from a result, checked against the job's parts."""
+    known = set(part_names)
+    unknown = [n for n in data["parts"] if n not in known]
+    if unknown:
+        raise XoFitError(f"the result names part {unknown[0]}, which the job does not have "
+                         f"(job parts: {', '.join(part_names)})", path=path, key="parts")
+    return {n: float(e["value"]) for n, e in data["parts"].items()}

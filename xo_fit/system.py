@@ -1,0 +1,170 @@
+"""A job with its data loaded: the grid, every driver on it, the compiled network.
+
+:func:`load_system` is the one place that turns a validated :class:`~xo_fit.job.Job`
+into arrays: it reads the measurement files, puts them on the grid (deriving
+minimum phase where asked), builds the netlist and compiles its solver. The
+resulting :class:`System` is what every later stage (simulate, fit, snap,
+spread, batch) works on; it is picklable, so a batch worker or a cluster node
+gets the job and its data without a shared disk.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import acoustics
+from .coils import DCR_EXPONENT, dcr_coefficient
+from .errors import JobError
+from .job import FileCurve, FlatResponse, Job, Resistive, ThieleSmall
+from .measure import P_REF, Curve, on_grid, read_curve
+from .network import Branch, Network, Solution, compile_network
+
+
+@dataclass(frozen=True, eq=False)
+class DriverData:
+    """One driver on the grid.
+
+    response: complex Pa at the driver's reference voltage, (F,).
+    impedance: complex ohm, (F,).
+    response_phase / impedance_phase: where the phase came from: "measured",
+    "minimum" (derived from the magnitude) or "ideal" (a flat or resistive stand-in,
+    or a Thiele-Small model).
+    response_curve / impedance_curve: the file as read, or None.
+    """
+
+    name: str
+    response: np.ndarray
+    impedance: np.ndarray
+    response_phase: str
+    impedance_phase: str
+    response_curve: Curve | None = None
+    impedance_curve: Curve | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class Simulation:
+    """Acoustic and electrical result of a batch of designs.
+
+    voltages: complex V, (B, D, F); impedance: complex ohm, (B, F);
+    pressure: complex Pa per driver, (B, D, F); total: complex Pa, (B, F).
+    """
+
+    voltages: np.ndarray
+    impedance: np.ndarray
+    pressure: np.ndarray
+    total: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class System:
+    job: Job
+    frequencies: np.ndarray
+    drivers: tuple[DriverData, ...]
+    network: Network
+    factors: np.ndarray  # Pa per V at each driver's terminals, offset delay included, (D, F)
+    warnings: tuple[str, ...] = field(default=())
+
+    @property
+    def part_names(self) -> tuple[str, ...]:
+        """Names of the valued parts: the columns of a values array (B, P)."""
+        return tuple(p.name for p in self.job.valued_parts)
+
+    def values(self, overrides: dict[str, float] | None = None) -> np.ndarray:
+        """The job's own part values (SI, shape (P,)), with ``overrides`` by part name taken first.
+
+        Raises JobError for a part that has neither a value nor an override.
+        """
+        overrides = overrides or {}
+        out = []
+        for p in self.job.valued_parts:
+            if p.name in overrides:
+                out.append(float(overrides[p.name]))
+            elif p.value is not None:
+                out.append(p.value)
+            else:
+                raise JobError(f"part {p.name} has only a range (min..max); give it a value to simulate, "
+                               "or simulate a fit's values with --from RESULT",
+                               path=self.job.path, key=f"part {p.name}")
+        return np.array(out, dtype=float)
+
+    def solve(self, values: np.ndarray) -> Solution:
+        return self.network.solve(values)
+
+    def simulate(self, values: np.ndarray) -> Simulation:
+        """Driver voltages, input impedance, per-driver and summed pressure for values (B, P) or (P,)."""
+        sol = self.network.solve(values)
+        p = acoustics.pressures(sol.voltages, self.factors)
+        return Simulation(voltages=sol.voltages, impedance=sol.impedance, pressure=p, total=acoustics.total(p))
+
+
+def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
+    resp_curve = imp_curve = None
+    if isinstance(spec.response, FlatResponse):
+        response = np.full(grid.size, P_REF * 10 ** (spec.response.level_db / 20.0), dtype=complex)
+        rphase = "ideal"
+    else:
+        assert isinstance(spec.response, FileCurve)
+        resp_curve = read_curve(spec.response.path, "response")
+        response, w = on_grid(resp_curve, grid, "response", spec.phase)
+        warnings += w
+        rphase = spec.phase
+    if isinstance(spec.impedance, Resistive):
+        impedance = np.full(grid.size, spec.impedance.resistance, dtype=complex)
+        iphase = "ideal"
+    elif isinstance(spec.impedance, ThieleSmall):
+        impedance = spec.impedance.impedance(grid)
+        iphase = "ideal"
+    else:
+        imp_curve = read_curve(spec.impedance.path, "impedance")
+        impedance, w = on_grid(imp_curve, grid, "impedance", spec.impedance_phase)
+        warnings += w
+        iphase = spec.impedance_phase
+        if np.any(impedance.real <= 0):
+            f_bad = grid[np.argmax(impedance.real <= 0)]
+            warnings.append(f"{imp_curve.path}: the impedance has a real part at or below 0 near {f_bad:.0f} Hz "
+                            "(phase beyond +-90 deg), which no passive driver has; check the phase column")
+    for arr in (response, impedance):
+        arr.setflags(write=False)
+    return DriverData(name=spec.name, response=response, impedance=impedance, response_phase=rphase,
+                      impedance_phase=iphase, response_curve=resp_curve, impedance_curve=imp_curve)
+
+
+def branches_for(job: Job) -> list[Branch]:
+    """The job's parts as solver branches (valued ones in job order)."""
+    index = {d.name: i for i, d in enumerate(job.drivers)}
+    out = []
+    for p in job.parts:
+        if p.type == "driver":
+            out.append(Branch(p.name, "D", p.nodes[0], p.nodes[1], driver=index[p.driver]))
+        elif p.type == "L" and p.dcr_wire:
+            out.append(Branch(p.name, "L", p.nodes[0], p.nodes[1], r_coef=dcr_coefficient(p.dcr), r_exp=DCR_EXPONENT))
+        elif p.type == "L":
+            out.append(Branch(p.name, "L", p.nodes[0], p.nodes[1], r_coef=p.dcr))
+        elif p.type == "C":
+            out.append(Branch(p.name, "C", p.nodes[0], p.nodes[1], r_coef=p.esr))
+        else:
+            out.append(Branch(p.name, "R", p.nodes[0], p.nodes[1]))
+    return out
+
+
+def load_system(job: Job) -> System:
+    """Read every driver's data onto the grid and compile the network.
+
+    Raises DataError (a measurement file) or NetworkError (the netlist) with the file named.
+    """
+    grid = job.grid.frequencies
+    warnings: list[str] = []
+    drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
+    zd = np.stack([d.impedance for d in drivers])
+    network = compile_network(branches_for(job), [d.name for d in job.drivers], grid, zd,
+                              job.source_voltage, job.source_resistance, context=str(job.path))
+    factors = acoustics.driver_factors(
+        np.stack([d.response for d in drivers]),
+        np.array([d.reference_voltage for d in job.drivers]),
+        np.array([d.offset for d in job.drivers]),
+        grid, job.speed_of_sound)
+    factors.setflags(write=False)
+    return System(job=job, frequencies=grid, drivers=drivers, network=network, factors=factors,
+                  warnings=tuple(warnings))

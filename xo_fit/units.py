@@ -1,0 +1,187 @@
+"""Engineering notation in and out: the only place values are parsed or printed.
+
+Accepted forms (everything else is an error naming the text):
+
+* a plain number in the base unit: ``4.7``, ``1e-3``;
+* SI prefix and optional unit (read by quantiphy): ``"1.2mH"``, ``"1.5 mH"``,
+  ``"6.8uF"``, ``"2.2µF"``, ``"470n"``, ``"12mm"``, ``"10 ohm"``, ``"10Ω"``;
+* the IEC 60062 letter code printed on parts, where the prefix letter stands
+  for the decimal point: ``"6u8"`` (6.8 u), ``"2k2"`` (2.2 k), ``"4K7"``,
+  ``"1m5"``; for resistances also ``R`` as the point: ``"3R3"``, ``"0R22"``,
+  ``"R47"``, ``"10R"``.
+
+A bare prefix letter is a scale, not a unit: ``"1m"`` is 0.001 of the base
+unit, so write lengths as ``"1000mm"`` or as the number ``1.0``. The unit, when
+written, must be the one the key expects (``"6.8uF"`` where a value in henry is
+expected is an error): common engineering-notation libraries accept the letter
+code silently wrong (``"2k2"`` read as 2) or take a bare ``u`` as an atomic mass
+unit, hence the pre-pass and the whitelist here.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+from quantiphy import Quantity
+
+from .errors import XoFitError
+
+#: Unit spellings accepted for each base unit. An empty unit is always accepted.
+UNIT_SPELLINGS: dict[str, frozenset[str]] = {
+    "ohm": frozenset({"ohm", "ohms", "Ohm", "Ohms", "Ω", "Ω"}),  # U+03A9 and U+2126
+    "H": frozenset({"H"}),
+    "F": frozenset({"F"}),
+    "Hz": frozenset({"Hz"}),
+    "m": frozenset({"m"}),
+    "V": frozenset({"V"}),
+    "s": frozenset({"s"}),
+    "W": frozenset({"W"}),
+    "m/s": frozenset({"m/s"}),
+    "": frozenset(),
+}
+
+#: How each base unit is printed.
+UNIT_SYMBOL = {"ohm": "Ω", "H": "H", "F": "F", "Hz": "Hz", "m": "m", "V": "V", "s": "s", "W": "W",
+               "m/s": "m/s", "": ""}
+
+_PREFIX = {"p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "μ": 1e-6, "m": 1e-3,
+           "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
+
+# IEC 60062 letter code: digits, a prefix letter (or R) in place of the decimal
+# point, optional digits, then an optional unit.
+_LETTER_CODE = re.compile(
+    r"^(?P<sign>[+-]?)(?P<int>\d*)(?P<mark>[pnuµμmkKMGR])(?P<frac>\d*)\s*(?P<unit>[A-Za-zΩΩ/]*)$"
+)
+_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+
+
+class UnitsError(XoFitError):
+    """A value that cannot be read in the expected unit."""
+
+
+def _describe(unit: str) -> str:
+    return f"a value in {UNIT_SYMBOL.get(unit, unit)}" if unit else "a plain number"
+
+
+def _letter_code(text: str, unit: str) -> float | None:
+    """Read the IEC 60062 letter-code form, or return None if ``text`` is not one."""
+    m = _LETTER_CODE.match(text)
+    if not m or (not m["int"] and not m["frac"]):
+        return None
+    mark = m["mark"]
+    if not m["frac"] and mark != "R":
+        return None  # "4.7k", "470n": ordinary prefix notation, quantiphy's job
+    if not m["int"] and mark != "R":
+        return None
+    if mark == "R" and unit != "ohm":
+        raise UnitsError(f"'{text}': the letter code with R as the decimal point is for resistances; "
+                         f"expected {_describe(unit)}")
+    scale = 1.0 if mark == "R" else _PREFIX[mark]
+    _check_unit(text, m["unit"], unit)
+    number = float(f"{m['int'] or '0'}.{m['frac'] or '0'}")
+    return (-1.0 if m["sign"] == "-" else 1.0) * number * scale
+
+
+def _check_unit(text: str, written: str, unit: str) -> None:
+    if written and written not in UNIT_SPELLINGS.get(unit, frozenset()):
+        raise UnitsError(f"'{text}' is in '{written}', expected {_describe(unit)}")
+
+
+def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: bool = False) -> float:
+    """Read a number or an engineering-notation string as a float in SI units.
+
+    Parameters
+    ----------
+    value:
+        A TOML number (int or float, already in the base unit) or a string.
+    unit:
+        The base unit expected: one of the keys of :data:`UNIT_SPELLINGS`.
+    positive:
+        Require a value above zero (``allow_zero`` admits zero too).
+
+    Returns
+    -------
+    float
+        The value in the base SI unit.
+
+    Raises
+    ------
+    UnitsError
+        With a message that quotes the text and names the expected unit.
+    """
+    if isinstance(value, bool):
+        raise UnitsError(f"expected {_describe(unit)}, got {value!r}")
+    if isinstance(value, (int, float)):
+        result = float(value)
+        text = repr(value)
+    elif isinstance(value, str):
+        text = value.strip()
+        if not text:
+            raise UnitsError(f"empty text, expected {_describe(unit)}")
+        result = _letter_code(text, unit)
+        if result is None:
+            if _NUMBER.match(text):
+                result = float(text)
+            else:
+                try:
+                    q = Quantity(text)
+                except Exception:
+                    raise UnitsError(f"cannot read '{text}' as {_describe(unit)}") from None
+                _check_unit(text, q.units, unit)
+                result = float(q)
+    else:
+        raise UnitsError(f"expected {_describe(unit)}, got {type(value).__name__} {value!r}")
+    if not math.isfinite(result):
+        raise UnitsError(f"'{text}' is not a finite number")
+    if positive and (result < 0 or (result == 0 and not allow_zero)):
+        bound = "zero or more" if allow_zero else "above zero"
+        raise UnitsError(f"'{text}' must be {bound}")
+    return result
+
+
+def parse_percent(value: object) -> float:
+    """Read ``"5%"`` (or a plain fraction such as 0.05) as a fraction: 0.05.
+
+    A bare number above 1 is refused as ambiguous; write ``"5%"``.
+    """
+    if isinstance(value, bool):
+        raise UnitsError(f"expected a percentage such as \"5%\", got {value!r}")
+    if isinstance(value, (int, float)):
+        if not 0 <= value <= 1:
+            raise UnitsError(f"{value!r}: write a percentage as a string such as \"5%\", or a fraction 0..1")
+        return float(value)
+    if isinstance(value, str):
+        text = value.strip()
+        m = re.fullmatch(r"([+]?(\d+\.?\d*|\.\d+))\s*%", text)
+        if m:
+            return float(m[1]) / 100.0
+        raise UnitsError(f"cannot read '{text}' as a percentage; expected a form such as \"5%\"")
+    raise UnitsError(f"expected a percentage such as \"5%\", got {value!r}")
+
+
+def format_value(value: float, unit: str, prec: int = 3) -> str:
+    """Print ``value`` (SI) in engineering notation: ``format_value(0.00147, "H") == "1.47 mH"``."""
+    if not math.isfinite(value):
+        return f"{value} {UNIT_SYMBOL.get(unit, unit)}".strip()
+    text = Quantity(value, UNIT_SYMBOL.get(unit, unit)).render(prec=prec)
+    return re.sub(r"(\d) ?u(?=[A-Za-zΩ]|$)", r"\1 µ", text)
+
+
+def awg_diameter(gauge: int) -> float:
+    """Bare diameter in m of American Wire Gauge ``gauge`` (ASTM B258: d = 0.127 mm x 92^((36-n)/39))."""
+    return 0.127e-3 * 92.0 ** ((36 - gauge) / 39.0)
+
+
+_WIRE = re.compile(r"^\s*(?:awg\s*(\d+)|(\d+)\s*awg)\s*$", re.IGNORECASE)
+
+
+def parse_wire(value: str) -> float | None:
+    """Read a wire gauge such as ``"18awg"`` or ``"AWG 16"``; return its bare diameter in m, or None."""
+    m = _WIRE.match(value)
+    if not m:
+        return None
+    gauge = int(m[1] or m[2])
+    if not 0 <= gauge <= 40:
+        raise UnitsError(f"'{value}': wire gauge must be between 0 and 40 AWG")
+    return awg_diameter(gauge)
