@@ -636,7 +636,11 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         elif isinstance(raw, str) and _is_length(raw):
             dcr, dcr_wire = r.value("dcr", "m"), True
         else:
-            dcr = r.value("dcr", "ohm", allow_zero=True)
+            try:
+                dcr = parse_value(raw, "ohm", allow_zero=True)
+            except UnitsError as e:
+                raise r.error("dcr", f"{e.message.rstrip('.')}; expected ohms or a wire such as \"18awg\" "
+                              "(or a bare copper diameter such as \"1.2mm\")") from None
     esr = 0.0
     if r.has("esr"):
         if ptype != "C":

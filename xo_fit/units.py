@@ -85,7 +85,7 @@ def _letter_code(text: str, unit: str) -> float | None:
 
 def _check_unit(text: str, written: str, unit: str) -> None:
     if written and written not in UNIT_SPELLINGS.get(unit, frozenset()):
-        raise UnitsError(f"'{text}' is in '{written}', expected {_describe(unit)}")
+        raise UnitsError(f"'{text}' is not {_describe(unit)}")
 
 
 def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: bool = False) -> float:

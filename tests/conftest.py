@@ -1,0 +1,81 @@
+"""Shared helpers for the tests.
+
+Reference values are quoted beside each check with their source; the facts
+come from ../shared/design/references.md unless a test says otherwise.
+"""
+
+from __future__ import annotations
+
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from xo_fit.cli import main
+from xo_fit.network import Branch, compile_network
+
+
+def net_of(parts: list[tuple], loads: list[np.ndarray | float], f: np.ndarray, *, rs: float = 0.0,
+           vs: float = 1.0):
+    """Compile a network from compact tuples (name, kind, a, b[, r_coef[, r_exp]]) or (name, "D", a, b, driver).
+
+    loads: driver impedances, each a number (resistive) or an array (F,).
+    """
+    branches = []
+    for p in parts:
+        name, kind, a, b = p[:4]
+        if kind == "D":
+            branches.append(Branch(name, "D", a, b, driver=p[4]))
+        else:
+            branches.append(Branch(name, kind, a, b, r_coef=p[4] if len(p) > 4 else 0.0,
+                                   r_exp=p[5] if len(p) > 5 else 0.0))
+    zd = np.stack([np.full(f.size, z, dtype=complex) if np.isscalar(z) else np.asarray(z, dtype=complex)
+                   for z in loads])
+    return compile_network(branches, [f"d{i}" for i in range(len(loads))], f, zd, vs, rs)
+
+
+def ts_impedance(f, re=6.0, le=0.5e-3, fs=45.0, qms=3.0, qes=0.4):
+    """Thiele-Small driver impedance (R. H. Small, JAES 1972), ideal voice-coil inductance."""
+    s = 2j * np.pi * np.asarray(f)
+    ws = 2 * np.pi * fs
+    res = re * qms / qes
+    return re + s * le + res / (1 + qms * (s / ws + ws / s))
+
+
+@pytest.fixture
+def write_job(tmp_path):
+    """Write a job file (and optional data files) into tmp_path; return its path."""
+
+    def _write(text: str, files: dict[str, str] | None = None, name: str = "job.toml") -> Path:
+        for rel, content in (files or {}).items():
+            p = tmp_path / rel
+            p.parent.mkdir(parents=True, exist_ok=True)
+            p.write_text(content)
+        path = tmp_path / name
+        path.write_text(textwrap.dedent(text))
+        return path
+
+    return _write
+
+
+@pytest.fixture
+def cli(capsys):
+    """Run the command line in-process; return (exit code, stdout, stderr)."""
+
+    def _run(*args: str):
+        code = main([str(a) for a in args])
+        out = capsys.readouterr()
+        return code, out.out, out.err
+
+    return _run
+
+
+def flat_curve(f_lo=10.0, f_hi=40000.0, n=200, level=90.0, phase=0.0) -> str:
+    f = np.geomspace(f_lo, f_hi, n)
+    return "\n".join(f"{x:.6f} {level:.4f} {phase:.4f}" for x in f) + "\n"
+
+
+def resistive_curve(r=8.0, f_lo=10.0, f_hi=40000.0, n=200) -> str:
+    f = np.geomspace(f_lo, f_hi, n)
+    return "\n".join(f"{x:.6f} {r:.6f} 0.0" for x in f) + "\n"
