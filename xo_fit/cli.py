@@ -112,7 +112,7 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
         say(f"  {p.name:<10} {p.type:<6} {nodes:<14} {value:<11} {rng:<24} {', '.join(notes)}")
     free = [p.name for p in j.free_parts]
     say(f"free     {len(free)}: {', '.join(free) if free else '(none: every value is fixed)'}")
-    nodes = sorted({n for p in j.parts for n in p.nodes}, key=lambda n: (n not in ("in", "0"), n))
+    nodes = sorted({n for p in j.parts for n in p.nodes}, key=lambda n: ({"in": 0, "0": 1}.get(n, 2), n))
     say(f"nodes    {len(nodes)}: {', '.join(nodes)}")
     say("ok")
 
@@ -200,24 +200,12 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code (0 done, 1 failure, 2 bad input)."""
     try:
-        app(args=argv, standalone_mode=False)
+        app(args=argv, prog_name="xo-fit")
     except XoFitError as e:
         typer.echo(f"xo-fit: error: {e}", err=True)
         return 2
-    except KeyboardInterrupt:
-        typer.echo("xo-fit: interrupted", err=True)
-        return 130
-    except SystemExit as e:  # typer/click exits (e.g. --help)
-        return int(e.code or 0) if isinstance(e.code, int) or e.code is None else 1
-    except Exception as e:  # click's usage errors carry their own exit code
-        import click
-
-        if isinstance(e, click.exceptions.ClickException):
-            e.show()
-            return e.exit_code
-        if isinstance(e, click.exceptions.Abort):
-            typer.echo("xo-fit: aborted", err=True)
-            return 130
-        raise
+    except SystemExit as e:  # typer's own exits: --help (0), usage errors (2)
+        if e.code is None:
+            return 0
+        return e.code if isinstance(e.code, int) else 1
     return 0
-
