@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 
@@ -158,3 +159,17 @@ def test_demo_end_to_end(tmp_path):
     t = pd.read_csv(tmp_path / "demo" / "hand-design" / "response.csv")
     band = (t.frequency_hz > 150) & (t.frequency_hz < 16000)
     assert t.sum_db[band].max() - t.sum_db[band].min() > 4.0
+
+
+from test_measure import test_malformed_lines as _cases  # noqa: E402
+
+MALFORMED = [m.args for m in _cases.pytestmark if m.name == "parametrize"][0][1]
+
+
+@pytest.mark.parametrize("text, line, message", MALFORMED)
+def test_malformed_measurement_files_through_the_cli(write_job, cli, tmp_path, text, line, message):
+    code, out, err = cli("check", write_job(JOB, dict(FILES, **{"w.txt": text})))
+    assert code == 2, (out, err)
+    assert len(err.strip().splitlines()) == 1, err
+    assert err.startswith(f"xo-fit: error: {tmp_path / 'w.txt'}:{line}: "), err
+    assert re.search(message, err), err
