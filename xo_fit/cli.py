@@ -134,51 +134,126 @@ def _describe_ideal(src) -> str:
 # ----------------------------------------------------------------------------- simulate
 
 
+def _print_score(s, start_cost: float | None = None) -> None:
+    m = s.metrics
+    if s.cost is not None:
+        terms = ", ".join(f"{k} {v:.4g}" for k, v in s.terms.items())
+        before = f" (start {start_cost:.4g})" if start_cost is not None else ""
+        say(f"  cost {s.cost:.4g}{before}: {terms}")
+        say(f"  sum vs target: rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB; "
+            f"phase mismatch at crossover {m['phase_mismatch_deg']:.1f} deg; level {s.level_db:.1f} dB SPL")
+    say(f"  impedance minimum {m['impedance_min_ohm']:.2f} ohm at {m['impedance_min_hz']:.0f} Hz")
+
+
+def _cautions(system, s) -> None:
+    from .cautions import load_cautions
+
+    for c in load_cautions(s.metrics["impedance_min_ohm"], system.job.cost.impedance_min):
+        say(f"  caution: {c}")
+
+
 @app.command()
 def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
              out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
              from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (or its folder) whose values to use."),
              ) -> None:
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
-    from .cost import simulation_metrics
-    from .report import plot_simulation
-    from .results import part_entries, read_result, response_table, result_values, write_csv, write_json
-    from .cautions import load_cautions
+    from .fit import score, write_outputs
+    from .results import read_result, result_values
 
     t0 = time.perf_counter()
     system = _load(job)
     j = system.job
     overrides = None
     if from_ is not None:
-        data = read_result(from_)
-        overrides = result_values(data, system.part_names, from_)
-    values = system.values(overrides)
-    sim = system.simulate(values)
-    metrics = simulation_metrics(system, sim)
-    units = tuple(p.unit for p in j.valued_parts)
-    result = {
-        "job": j.name,
-        "stage": "simulate",
-        "parts": part_entries(system.part_names, units, values),
-        "cost": None,
-        "cost_terms": {},
-        "metrics": metrics,
-        "source": {"job": str(j.path), "from": str(from_) if from_ else None},
-    }
-    out.mkdir(parents=True, exist_ok=True)
-    write_json(out / "result.json", result)
-    names = tuple(d.name for d in j.drivers)
-    write_csv(out / "response.csv", response_table(system.frequencies, names, sim.pressure[0], sim.total[0],
-                                                   sim.impedance[0]))
-    plot_simulation(out / "response.png", system.frequencies, names, sim.pressure[0], sim.total[0],
-                    sim.impedance[0], title=f"{j.name}: simulated", impedance_floor=j.cost.impedance_min,
-                    band=j.target.band)
-    say(f"simulated {j.name}: {len(values)} part values, {system.frequencies.size} points "
+        overrides = result_values(read_result(from_), system.part_names, from_)
+    s = score(system, system.values(overrides))
+    files = write_outputs(system, out, "simulate", s,
+                          {"source": {"job": str(j.path), "from": str(from_) if from_ else None}},
+                          title=f"{j.name}: simulated")
+    say(f"simulated {j.name}: {len(s.values)} part values, {system.frequencies.size} points "
         f"in {time.perf_counter() - t0:.2f} s")
-    say(f"  impedance minimum {metrics['impedance_min_ohm']:.2f} ohm at {metrics['impedance_min_hz']:.0f} Hz")
-    for c in load_cautions(metrics["impedance_min_ohm"], j.cost.impedance_min):
-        say(f"  caution: {c}")
-    say(f"wrote {out / 'result.json'}, {out / 'response.csv'}, {out / 'response.png'}")
+    _print_score(s)
+    _cautions(system, s)
+    say("wrote " + ", ".join(str(p) for p in files))
+
+
+# ----------------------------------------------------------------------------- fit
+
+
+class _Progress:
+    """A one-line progress display on stderr, when it is a terminal and the run lasts more than a moment."""
+
+    def __init__(self, label: str) -> None:
+        self.label = label
+        self.enabled = sys.stderr.isatty() and not OUT.quiet
+        self.t0 = time.monotonic()
+        self.last = 0.0
+        self.shown = False
+
+    def __call__(self, done: int, total: int, best: float) -> None:
+        now = time.monotonic()
+        if not self.enabled or now - self.t0 < 0.8 or now - self.last < 0.1:
+            return
+        self.last = now
+        width = 30
+        k = int(width * min(done / max(total, 1), 1.0))
+        sys.stderr.write(f"\r{self.label} [{'#' * k}{'.' * (width - k)}] {done}/{total} evaluations, "
+                         f"best cost {best:.4g} ")
+        sys.stderr.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+
+
+@app.command()
+def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
+        out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
+        budget: Optional[int] = typer.Option(None, "--budget", min=1, help="Cost evaluations (default: [search] budget)."),
+        seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed (default: [search] seed)."),
+        optimizer: Optional[str] = typer.Option(None, "--optimizer",
+                                                help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
+        time_limit: Optional[float] = typer.Option(None, "--time-limit", min=0.0,
+                                                   help="Stop after this many seconds and keep the best so far."),
+        no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
+        ) -> None:
+    """Search the free part values that best meet the job's acoustic target, then polish locally."""
+    from .fit import run_fit, write_outputs
+
+    t0 = time.perf_counter()
+    system = _load(job)
+    j = system.job
+    progress = _Progress(f"fit {j.name}")
+    try:
+        outcome = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
+                          progress=progress)
+    finally:
+        progress.close()
+    r = outcome.search
+    extra = {"search": {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
+                        "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by},
+             "source": {"job": str(j.path)}}
+    files = write_outputs(system, out, "fit", outcome.scored, extra, title=f"{j.name}: fit",
+                          plots=not no_plots)
+    state = "" if r.complete else f" - INCOMPLETE ({r.stopped_by}): the best design so far"
+    say(f"fit {j.name}: {r.evaluations} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
+        f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
+    _print_score(outcome.scored, outcome.start_cost)
+    if OUT.verbose or not OUT.quiet:
+        from .units import format_value
+
+        parts = j.valued_parts
+        for p, v in zip(parts, outcome.scored.values):
+            if p.free:
+                start = f" (start {format_value(p.value, p.unit)})" if p.value is not None else ""
+                say(f"    {p.name:<8} {format_value(float(v), p.unit)}{start}")
+    _cautions(system, outcome.scored)
+    say("wrote " + ", ".join(str(p) for p in files))
+    if not r.complete and r.stopped_by == "interrupted":
+        raise typer.Exit(130)
 
 
 # ----------------------------------------------------------------------------- demo
@@ -186,12 +261,15 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
 
 @app.command()
 def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scenario and its results.")) -> None:
-    """The invented two-way scenario: write its measurement files and job, then simulate its hand design."""
+    """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design, fit."""
     from .demo import write_scenario
 
     job = write_scenario(out / "scenario")
     say(f"wrote the demo scenario: {job} and its measurement files in {job.parent / 'data'}")
+    say("hand design (textbook starting values):")
     simulate(job=job, out=out / "hand-design", from_=None)
+    say("fit:")
+    fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, no_plots=False)
 
 
 # ----------------------------------------------------------------------------- entry point

@@ -1,16 +1,66 @@
-"""Figures of merit of a simulated design (the fit's cost terms join them in cost.py's later sections).
+"""The cost a fit minimises, and the metrics a designer reads, for batches of designs.
 
-Metrics, in the words a designer uses:
+All errors are taken over the target band, one point of the log-spaced grid at
+a time, so every octave weighs the same. Levels are dB SPL; the level of the
+targets ``L`` is the job's ``[target] level`` or, with ``"auto"``, the level
+that minimises the ``sum`` term: in closed form, the mean over the band of the
+summed response's dB minus the system target's shape in dB (per design).
 
-* ``impedance_min_ohm`` / ``impedance_min_hz``: the lowest magnitude of the
-  load the amplifier sees (the network's input impedance, not counting the
-  source's own resistance) within the target band (the whole grid when the job
-  has no band), and the frequency where it occurs.
+Terms (each a mean of squares, in dB^2; the cost is their weighted sum with
+the weights of ``[cost]``):
+
+``way``
+    each driver's level against its way target ``L + T_d``. Deep in a way's
+    stop band (where the way target lies more than STOP_BAND_DB below the
+    level) only output above ``L - BREAKUP_FLOOR_DB`` counts: a breakup peak
+    that rises toward the passband is punished, harmless depth is not (common
+    practice: breakup 20 dB under the average level is inaudible).
+``sum``
+    the complex sum of all drivers against the system target ``L + S``.
+``phase``
+    through each crossover region (points where two adjacent way targets lie
+    within XO_REGION_DB of each other) the phase difference of the two drivers
+    against the phase difference of their targets, in units of
+    PHASE_DEG_PER_DB degrees (10 deg of mismatch costs like 1 dB of error).
+    Way targets carry the textbook polarity (:mod:`xo_fit.targets`), so a
+    tweeter wired inverted on an LR2 pair is matched.
+``impedance``
+    shortfall of |Z| below ``impedance_min`` in dB, 20 log10(Zmin / |Z|):
+    the mean of its square plus the square of the worst point, so that even a
+    narrow dip costs.
+
+Metrics (result.json), in a designer's words:
+
+``rms_error_db``
+    how far, on average (root mean square over the band), the summed response
+    strays from the target.
+``max_error_db``
+    the worst deviation of the summed response from the target in the band.
+``phase_mismatch_deg``
+    the worst phase misalignment between adjacent ways through their crossover
+    regions, relative to the alignment's own phase relation.
+``impedance_min_ohm`` / ``impedance_min_hz``
+    the lowest impedance the amplifier sees within the band (not counting the
+    source's own resistance) and where it occurs.
 """
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
+
+from .acoustics import SPL_FLOOR_DB, spl_db
+
+#: Where a way target lies this far below the level, only excess output counts (dB).
+STOP_BAND_DB = 30.0
+#: Output this far below the level is harmless in a stop band (dB; common practice).
+BREAKUP_FLOOR_DB = 20.0
+#: Adjacent way targets within this many dB of each other mark a crossover region.
+XO_REGION_DB = 6.0
+#: Degrees of phase mismatch that cost like one dB of level error.
+PHASE_DEG_PER_DB = 10.0
+TERMS = ("way", "sum", "phase", "impedance")
 
 
 def band_mask(frequencies: np.ndarray, band: tuple[float, float] | None) -> np.ndarray:
@@ -19,7 +69,6 @@ def band_mask(frequencies: np.ndarray, band: tuple[float, float] | None) -> np.n
         return np.ones(frequencies.shape, dtype=bool)
     mask = (frequencies >= band[0]) & (frequencies <= band[1])
     if not mask.any():
-        # a band narrower than the grid spacing: take the nearest point
         mask[np.argmin(np.abs(np.log(frequencies / np.sqrt(band[0] * band[1]))))] = True
     return mask
 
@@ -33,7 +82,134 @@ def impedance_minimum(frequencies: np.ndarray, impedance: np.ndarray,
     return np.take_along_axis(mag, i[..., None], axis=-1)[..., 0], frequencies[mask][i]
 
 
+def wrap_deg(x: np.ndarray) -> np.ndarray:
+    """Degrees wrapped to (-180, 180]."""
+    return 180.0 - np.mod(180.0 - x, 360.0)
+
+
+@dataclass(frozen=True, eq=False)
+class Evaluation:
+    """Cost of a batch of designs: total (B,), each term (B,), the level used (B,, dB SPL)."""
+
+    cost: np.ndarray
+    terms: dict
+    level_db: np.ndarray
+
+
+class CostModel:
+    """The cost of a job's designs: built once from the system and its targets, then applied to batches."""
+
+    def __init__(self, system, targets) -> None:
+        self.system = system
+        self.targets = targets
+        spec = system.job.cost
+        self.weights = {"way": spec.way, "sum": spec.sum, "phase": spec.phase, "impedance": spec.impedance}
+        self.impedance_floor = spec.impedance_min
+        band = targets.band
+        self.band = band
+        self.t_sys_db = spl_db_unit(targets.system)[band]
+        t_way = np.where(targets.has_way[:, None], targets.ways, 1.0)
+        self.t_way_db = spl_db_unit(t_way)[:, band]
+        self.has_way = targets.has_way
+        self.stop = self.t_way_db < -STOP_BAND_DB
+        # crossover regions between adjacent ways
+        self.pairs = []
+        order = [i for i in np.argsort([_low_edge_db(self.t_way_db[i]) for i in range(len(self.has_way))])
+                 if self.has_way[i]]
+        for a, b in zip(order, order[1:]):
+            region = np.abs(self.t_way_db[a] - self.t_way_db[b]) <= XO_REGION_DB
+            region &= np.maximum(self.t_way_db[a], self.t_way_db[b]) > -XO_REGION_DB - 6.0
+            if region.any():
+                target_diff = np.rad2deg(np.angle(targets.ways[a, band] / targets.ways[b, band]))
+                self.pairs.append((a, b, region, target_diff))
+
+    # ------------------------------------------------------------------ terms
+
+    def evaluate(self, values: np.ndarray) -> Evaluation:
+        """Cost of designs ``values`` (B, P) (SI part values)."""
+        sim = self.system.simulate(values)
+        return self.evaluate_simulation(sim)
+
+    def evaluate_simulation(self, sim) -> Evaluation:
+        band = self.band
+        p_db = spl_db(sim.pressure[..., band])  # (B, D, Fb)
+        s_db = spl_db(sim.total[..., band])  # (B, Fb)
+        target = self.t_sys_db
+        level = (np.mean(s_db - target, axis=-1) if self.targets.level_db is None
+                 else np.full(s_db.shape[0], self.targets.level_db))
+        terms = {
+            "way": self._way(p_db, level),
+            "sum": np.mean((s_db - level[:, None] - target) ** 2, axis=-1),
+            "phase": self._phase(sim.pressure[..., band]),
+            "impedance": self._impedance(sim.impedance[..., band]),
+        }
+        cost = sum(self.weights[k] * terms[k] for k in TERMS)
+        return Evaluation(cost=cost, terms=terms, level_db=level)
+
+    def _way(self, p_db: np.ndarray, level: np.ndarray) -> np.ndarray:
+        rows = np.nonzero(self.has_way)[0]
+        if rows.size == 0:
+            return np.zeros(p_db.shape[0])
+        lv = level[:, None, None]
+        p = p_db[:, rows]
+        err = p - (lv + self.t_way_db[rows])
+        excess = np.maximum(p - (lv - BREAKUP_FLOOR_DB), 0.0)
+        err = np.where(self.stop[rows], excess, err)
+        return np.mean(err**2, axis=(-2, -1))
+
+    def _phase_errors(self, pressure: np.ndarray) -> list[np.ndarray]:
+        out = []
+        for a, b, region, target_diff in self.pairs:
+            diff = np.rad2deg(np.angle(pressure[:, a, region] / pressure[:, b, region]))
+            out.append(wrap_deg(diff - target_diff[region]))
+        return out
+
+    def _phase(self, pressure: np.ndarray) -> np.ndarray:
+        errs = self._phase_errors(pressure)
+        if not errs:
+            return np.zeros(pressure.shape[0])
+        return np.mean([np.mean((e / PHASE_DEG_PER_DB) ** 2, axis=-1) for e in errs], axis=0)
+
+    def _impedance(self, z: np.ndarray) -> np.ndarray:
+        if self.impedance_floor <= 0:
+            return np.zeros(z.shape[0])
+        short = np.maximum(20 * np.log10(self.impedance_floor / np.maximum(np.abs(z), 1e-300)), 0.0)
+        return np.mean(short**2, axis=-1) + np.max(short, axis=-1) ** 2
+
+    # ------------------------------------------------------------------ metrics
+
+    def metrics(self, values: np.ndarray) -> tuple[dict, Evaluation]:
+        """Metrics and evaluation of one design (P,) or (1, P), as plain floats for result.json."""
+        sim = self.system.simulate(values)
+        ev = self.evaluate_simulation(sim)
+        band = self.band
+        err = spl_db(sim.total[0, band]) - ev.level_db[0] - self.t_sys_db
+        phase = self._phase_errors(sim.pressure[:1, :, band])
+        zmin, fmin = impedance_minimum(self.system.frequencies, sim.impedance[0], self.system.job.target.band)
+        m = {
+            "rms_error_db": float(np.sqrt(np.mean(err**2))),
+            "max_error_db": float(np.max(np.abs(err))),
+            "phase_mismatch_deg": float(max((np.max(np.abs(e)) for e in phase), default=0.0)),
+            "impedance_min_ohm": float(zmin),
+            "impedance_min_hz": float(fmin),
+            "level_db": float(ev.level_db[0]),
+        }
+        return m, ev
+
+
+def spl_db_unit(x: np.ndarray) -> np.ndarray:
+    """20 log10 |x| for unit-level targets, floored at SPL_FLOOR_DB."""
+    with np.errstate(divide="ignore"):
+        return np.maximum(20 * np.log10(np.abs(x)), SPL_FLOOR_DB)
+
+
+def _low_edge_db(t_db: np.ndarray) -> float:
+    """Index of the first point where a way target is within 6 dB of its passband: orders ways by frequency."""
+    above = np.nonzero(t_db > -6.0)[0]
+    return float(above[0]) if above.size else float("inf")
+
+
 def simulation_metrics(system, sim) -> dict:
-    """Metrics of the first design of a Simulation, as plain floats for result.json."""
+    """Metrics that need no targets: the impedance minimum of the first design of a Simulation."""
     zmin, fmin = impedance_minimum(system.frequencies, sim.impedance[0], system.job.target.band)
     return {"impedance_min_ohm": float(zmin), "impedance_min_hz": float(fmin)}

@@ -1,8 +1,10 @@
-"""Plots of a simulated design (matplotlib, imported only when a plot is drawn).
+"""Plots of a design (matplotlib, imported only when a plot is drawn).
 
-The figure shows what a designer checks first: each driver's acoustic output
-in the network and their complex sum (dB SPL), the target where one is given,
-and the impedance the amplifier sees (magnitude and phase) with the floor.
+One figure shows what a designer checks first: each way's acoustic output
+against its way target and the summed response against the system target
+(dB SPL); the phase difference of adjacent ways through each crossover against
+the difference their targets have; and the impedance the amplifier sees
+(magnitude and phase) with the floor.
 """
 
 from __future__ import annotations
@@ -15,53 +17,94 @@ from . import acoustics
 from .results import atomic_path
 
 
-def plot_simulation(path: str | Path, frequencies: np.ndarray, driver_names: tuple[str, ...],
-                    pressure: np.ndarray, total: np.ndarray, impedance: np.ndarray, *, title: str,
-                    target_db: np.ndarray | None = None, impedance_floor: float = 0.0,
-                    band: tuple[float, float] | None = None) -> None:
-    """Write a PNG with SPL (drivers, sum, target) above impedance magnitude and phase.
-
-    pressure: complex Pa (D, F); total: complex Pa (F,); impedance: complex ohm (F,).
-    """
+def plot_design(path: str | Path, system, s, *, title: str) -> None:
+    """Write a PNG for a scored design (xo_fit.fit.Scored)."""
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9, 7.5), sharex=True,
-                                   gridspec_kw={"height_ratios": [3, 2]})
-    for name, p in zip(driver_names, pressure):
-        ax1.semilogx(frequencies, acoustics.spl_db(p), lw=1.2, label=name)
+    f = system.frequencies
+    names = tuple(d.name for d in system.job.drivers)
+    pressure, total, z = s.sim.pressure[0], s.sim.total[0], s.sim.impedance[0]
+    targets = s.targets
+    pairs = _pairs(s)
+    rows = 3 if pairs else 2
+    fig, axes = plt.subplots(rows, 1, figsize=(9, 3.2 * rows + 1.2), sharex=True,
+                             gridspec_kw={"height_ratios": [3] + [1.6] * (rows - 1)})
+    ax = axes[0]
+    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for i, (name, p) in enumerate(zip(names, pressure)):
+        c = colors[i % len(colors)]
+        ax.semilogx(f, acoustics.spl_db(p), lw=1.3, color=c, label=name)
+        if targets is not None and targets.has_way[i]:
+            ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.ways[i])), lw=0.9, ls="--", color=c,
+                        label=f"{name} target")
     sum_db = acoustics.spl_db(total)
-    ax1.semilogx(frequencies, sum_db, color="k", lw=2.0, label="sum")
-    if target_db is not None:
-        ax1.semilogx(frequencies, target_db, color="k", lw=1.0, ls="--", label="target")
+    ax.semilogx(f, sum_db, color="k", lw=2.0, label="sum")
+    if targets is not None:
+        ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.system)), color="k", lw=1.0, ls="--",
+                    label="target")
     top = float(np.nanmax(sum_db))
-    ax1.set_ylim(top - 50, top + 6)
-    ax1.set_ylabel("SPL (dB)")
-    ax1.set_title(title)
-    ax1.grid(True, which="both", alpha=0.3)
-    ax1.legend(loc="lower center", ncol=min(len(driver_names) + 2, 5), fontsize=9)
+    ax.set_ylim(top - 50, top + 6)
+    ax.set_ylabel("SPL (dB)")
+    ax.set_title(title)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(loc="lower center", ncol=4, fontsize=8)
+    band = system.job.target.band
     if band is not None:
-        for f in band:
-            ax1.axvline(f, color="0.6", lw=0.8, ls=":")
-    zmag = np.abs(impedance)
-    ax2.semilogx(frequencies, zmag, color="tab:purple", lw=1.5, label="|Z|")
-    if impedance_floor > 0:
-        ax2.axhline(impedance_floor, color="tab:red", lw=1.0, ls="--", label=f"floor {impedance_floor:g} Ω")
+        for b in band:
+            ax.axvline(b, color="0.6", lw=0.8, ls=":")
+    k = 1
+    if pairs:
+        axp = axes[1]
+        for a, b, region in pairs:
+            diff = np.rad2deg(np.angle(pressure[a] / pressure[b]))
+            want = np.rad2deg(np.angle(targets.ways[a] / targets.ways[b]))
+            err = (diff - want + 180) % 360 - 180
+            axp.semilogx(f[region], err[region], lw=1.5, label=f"{names[a]} - {names[b]}, against target")
+        axp.axhline(0, color="k", lw=0.8)
+        axp.set_ylabel("phase error (deg)")
+        axp.set_ylim(-90, 90)
+        axp.grid(True, which="both", alpha=0.3)
+        axp.legend(loc="upper right", fontsize=8)
+        k = 2
+    ax2 = axes[k]
+    zmag = np.abs(z)
+    floor = system.job.cost.impedance_min
+    ax2.semilogx(f, zmag, color="tab:purple", lw=1.5, label="|Z|")
+    if floor > 0:
+        ax2.axhline(floor, color="tab:red", lw=1.0, ls="--", label=f"floor {floor:g} Ω")
     ax2.set_ylabel("|Z| (Ω)")
-    ax2.set_ylim(0, max(float(np.nanmax(zmag)) * 1.15, impedance_floor * 1.5, 1.0))
+    ax2.set_ylim(0, max(float(np.nanmax(zmag)) * 1.15, floor * 1.5, 1.0))
     ax2.grid(True, which="both", alpha=0.3)
     ax3 = ax2.twinx()
-    ax3.semilogx(frequencies, acoustics.phase_deg(impedance), color="tab:gray", lw=1.0, label="phase")
+    ax3.semilogx(f, acoustics.phase_deg(z), color="tab:gray", lw=1.0, label="phase")
     ax3.set_ylim(-90, 90)
     ax3.set_ylabel("phase (deg)")
-    lines = ax2.get_legend_handles_labels()
-    more = ax3.get_legend_handles_labels()
-    ax2.legend(lines[0] + more[0], lines[1] + more[1], loc="upper right", fontsize=9)
+    h1, l1 = ax2.get_legend_handles_labels()
+    h2, l2 = ax3.get_legend_handles_labels()
+    ax2.legend(h1 + h2, l1 + l2, loc="upper right", fontsize=8)
     ax2.set_xlabel("frequency (Hz)")
-    ax2.set_xlim(frequencies[0], frequencies[-1])
-    fig.tight_layout()
+    ax2.set_xlim(f[0], f[-1])
+    fig.subplots_adjust(left=0.08, right=0.92, top=0.95, bottom=0.07, hspace=0.12)
     with atomic_path(path, suffix=".png") as tmp:
-        fig.savefig(tmp, dpi=110, format="png")
+        fig.savefig(tmp, dpi=100, format="png")
     plt.close(fig)
+
+
+def _pairs(s) -> list:
+    """Crossover regions on the full grid: (way a, way b, mask) for adjacent ways whose targets cross."""
+    t = s.targets
+    if t is None:
+        return []
+    from .cost import XO_REGION_DB, _low_edge_db, spl_db_unit
+
+    db = spl_db_unit(np.where(t.has_way[:, None], t.ways, 1.0))
+    order = [i for i in np.argsort([_low_edge_db(db[i]) for i in range(len(t.has_way))]) if t.has_way[i]]
+    out = []
+    for a, b in zip(order, order[1:]):
+        near = np.abs(db[a] - db[b]) <= 2 * XO_REGION_DB
+        if near.any():
+            out.append((a, b, near))
+    return out

@@ -1,0 +1,129 @@
+"""Fitting a job: targets, cost and search put together; and the scoring shared with simulate.
+
+:func:`run_fit` finds the free values that minimise the job's cost;
+:func:`score` evaluates any design (a hand design, a fit, later a snap) into
+the cost, its terms and the metrics that result.json carries;
+:func:`write_outputs` writes result.json, response.csv and the plot.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .cost import CostModel, simulation_metrics
+from .results import part_entries, response_table, write_csv, write_json
+from .search import SearchResult, make_space, search
+from .targets import Targets, build_targets
+
+
+@dataclass(frozen=True, eq=False)
+class Scored:
+    """One design with everything the outputs need."""
+
+    values: np.ndarray  # (P,) SI
+    sim: object  # Simulation of this one design
+    cost: float | None
+    terms: dict
+    metrics: dict
+    targets: Targets | None
+    level_db: float | None
+
+
+def cost_model(system) -> tuple[CostModel, Targets] | None:
+    """The job's cost model, or None when the job has no way targets (then only metrics that need none)."""
+    if not system.job.target.ways:
+        return None
+    targets = build_targets(system.job, system.frequencies)
+    return CostModel(system, targets), targets
+
+
+def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = None) -> Scored:
+    """Simulate one design (P,) and score it: cost, terms, metrics."""
+    values = np.asarray(values, dtype=float).reshape(-1)
+    model = model if model is not None else cost_model(system)
+    sim = system.simulate(values)
+    if model is None:
+        return Scored(values=values, sim=sim, cost=None, terms={}, metrics=simulation_metrics(system, sim),
+                      targets=None, level_db=None)
+    cm, targets = model
+    metrics, ev = cm.metrics(values)
+    level = metrics.pop("level_db")
+    return Scored(values=values, sim=sim, cost=float(ev.cost[0]), terms={k: float(v[0]) for k, v in ev.terms.items()},
+                  metrics=metrics, targets=targets, level_db=level)
+
+
+@dataclass(frozen=True, eq=False)
+class FitOutcome:
+    scored: Scored
+    search: SearchResult
+    start_cost: float | None
+
+
+def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, seed: int | None = None,
+            time_limit: float | None = None, progress=None) -> FitOutcome:
+    """Global search and polish of the job's free values; arguments override the job's [search]."""
+    job = system.job
+    spec = job.search
+    model = cost_model(system)
+    if model is None:
+        from .errors import JobError
+
+        raise JobError("nothing to fit to: add [target.way.NAME] tables (type, alignment, order, fc) for the drivers",
+                       path=job.path, key="[target]")
+    cm, _ = model
+    space = make_space(job)
+
+    def fn(u: np.ndarray) -> np.ndarray:
+        return cm.evaluate(space.values(u)).cost
+
+    start = float(fn(space.u0[None])[0]) if space.u0 is not None else None
+    result = search(fn, space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,
+                    seed=spec.seed if seed is None else seed,
+                    time_limit=time_limit if time_limit is not None else spec.time_limit,
+                    polish=spec.polish, progress=progress)
+    return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start)
+
+
+def result_document(system, stage: str, s: Scored, extra: dict | None = None) -> dict:
+    """result.json's content for a scored design."""
+    job = system.job
+    doc = {
+        "job": job.name,
+        "stage": stage,
+        "parts": part_entries(system.part_names, tuple(p.unit for p in job.valued_parts), s.values),
+        "cost": s.cost,
+        "cost_terms": s.terms,
+        "metrics": s.metrics,
+    }
+    if s.level_db is not None:
+        doc["level_db"] = s.level_db
+    doc.update(extra or {})
+    return doc
+
+
+def target_db(s: Scored) -> np.ndarray | None:
+    """The system target in dB SPL on the grid at the design's level, or None."""
+    if s.targets is None:
+        return None
+    with np.errstate(divide="ignore"):
+        return s.level_db + 20 * np.log10(np.abs(s.targets.system))
+
+
+def write_outputs(system, out: Path, stage: str, s: Scored, extra: dict | None = None, *, title: str,
+                  plots: bool = True) -> list[Path]:
+    """Write result.json, response.csv and (unless plots=False) response.png into ``out``."""
+    from .report import plot_design
+
+    out.mkdir(parents=True, exist_ok=True)
+    names = tuple(d.name for d in system.job.drivers)
+    write_json(out / "result.json", result_document(system, stage, s, extra))
+    write_csv(out / "response.csv", response_table(system.frequencies, names, s.sim.pressure[0], s.sim.total[0],
+                                                   s.sim.impedance[0], target_db(s)))
+    written = [out / "result.json", out / "response.csv"]
+    if plots:
+        plot_design(out / "response.png", system, s, title=title)
+        written.append(out / "response.png")
+    return written

@@ -1,0 +1,167 @@
+"""Acoustic target curves: per-way slopes (Linkwitz-Riley, Butterworth, Bessel) and the system target.
+
+Every way target is a complex transfer function of unit passband gain built
+from scipy.signal's analog prototypes:
+
+* ``BW`` order N: ``scipy.signal.butter(N, wc, analog=True)`` (-3.01 dB at fc);
+* ``LR`` order N (even): a Butterworth of order N/2 squared (S. Linkwitz,
+  JAES 24(1), 1976; -6.02 dB at fc);
+* ``Bessel`` order N: ``scipy.signal.bessel(N, wc, analog=True, norm="phase")``,
+  the normalisation whose phase response reaches half its asymptote at fc for
+  low orders (the one the handbook Bessel-2 crossover uses); for orders 3 and
+  up scipy's phase at fc differs slightly from the midpoint (references.md).
+
+Types: ``lowpass`` and ``highpass`` at ``fc``; ``bandpass`` is the high-pass
+at ``fc_low`` times the low-pass at ``fc_high``; ``fullrange`` is 1.
+
+Polarity: a way target carries the sign that makes adjacent ways sum as the
+textbook intends. For Butterworth and Linkwitz-Riley pairs the high-pass leads
+the low-pass by N x 90 deg, so the upper way is inverted when N x 90 deg is an
+odd multiple of 180 deg (orders 2, 6): an LR2 or BW2 tweeter is inverted, an
+LR4 one is not; orders 1 and 3 (quadrature) stay normal. The rule is applied
+up the chain of ways sorted by frequency, so in a three-way LR2 the midrange is
+inverted and the tweeter normal. A way's ``polarity = "normal"`` or
+``"inverted"`` overrides the rule.
+
+The system target is the complex sum of the way targets, shaped by a curve
+(frequency, dB: a file in ``targets/`` named by its stem, or a path) and
+placed at the job's level.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import scipy.signal as sig
+
+from .errors import DataError, JobError
+from .job import Job, WayTarget
+from .measure import read_curve
+
+#: Folder of the ready-made system target curves (frequency, dB), referenced by stem.
+TARGETS_DIR = Path(os.environ.get("XO_FIT_TARGETS", Path(__file__).resolve().parents[1] / "targets"))
+
+
+def prototype(alignment: str, order: int, btype: str, fc: float) -> tuple[np.ndarray, np.ndarray]:
+    """Analog transfer function (b, a) in s (rad/s) of one slope: btype "low" or "high" at fc (Hz)."""
+    wc = 2 * np.pi * fc
+    if alignment == "BW":
+        return sig.butter(order, wc, btype, analog=True)
+    if alignment == "LR":
+        if order % 2:
+            raise ValueError("a Linkwitz-Riley alignment has an even order")
+        b, a = sig.butter(order // 2, wc, btype, analog=True)
+        return np.polymul(b, b), np.polymul(a, a)
+    if alignment == "Bessel":
+        return sig.bessel(order, wc, btype, analog=True, norm="phase")
+    raise ValueError(f"unknown alignment {alignment!r}")
+
+
+def _response(b: np.ndarray, a: np.ndarray, f: np.ndarray) -> np.ndarray:
+    return sig.freqs(b, a, 2 * np.pi * np.asarray(f, dtype=float))[1]
+
+
+def way_shape(way: WayTarget, f: np.ndarray) -> np.ndarray:
+    """The way's complex target (unit passband, no polarity) on frequencies f (Hz), shape (F,)."""
+    if way.type == "fullrange":
+        return np.ones(np.shape(f), dtype=complex)
+    if way.type == "lowpass":
+        return _response(*prototype(way.alignment, way.order, "low", way.fc), f)
+    if way.type == "highpass":
+        return _response(*prototype(way.alignment, way.order, "high", way.fc), f)
+    hp = _response(*prototype(way.alignment, way.order, "high", way.fc_low), f)
+    lp = _response(*prototype(way.alignment, way.order, "low", way.fc_high), f)
+    return hp * lp
+
+
+def _low_edge(way: WayTarget) -> float:
+    return {"lowpass": 0.0, "fullrange": 0.0, "highpass": way.fc or 0.0, "bandpass": way.fc_low or 0.0}[way.type]
+
+
+def polarities(ways: tuple[WayTarget, ...]) -> dict[str, float]:
+    """+1 or -1 per way (by driver name): the textbook polarity, or the way's own override."""
+    order = sorted(ways, key=_low_edge)
+    out: dict[str, float] = {}
+    sign = 1.0
+    for i, w in enumerate(order):
+        if i > 0 and w.type in ("highpass", "bandpass"):
+            n = w.order
+            if n % 4 == 2:  # N x 90 deg is an odd multiple of 180 deg
+                sign = -sign
+        auto = sign
+        out[w.driver] = {"normal": 1.0, "inverted": -1.0}.get(w.polarity, auto)
+        sign = out[w.driver]
+    return out
+
+
+def load_curve(name: str, job: Job, f: np.ndarray) -> np.ndarray:
+    """A shaping curve in dB on the grid: a file in targets/ by stem, or a path (relative to the job's folder)."""
+    candidates = []
+    p = Path(name)
+    if p.suffix or os.sep in name or "/" in name:
+        candidates.append(p if p.is_absolute() else job.path.parent / p)
+    else:
+        candidates += sorted(TARGETS_DIR.glob(f"{name}.*"))
+    for c in candidates:
+        if c.exists():
+            curve = read_curve(c, "response")
+            lo, hi = curve.f_range
+            if f[0] < lo * (1 - 1e-9) or f[-1] > hi * (1 + 1e-9):
+                raise DataError(f"target curve covers {lo:g}-{hi:g} Hz but the job's grid spans {f[0]:g}-{f[-1]:g} Hz",
+                                path=c)
+            return np.interp(np.log(f), np.log(curve.frequency), curve.magnitude)
+    known = sorted(x.stem for x in TARGETS_DIR.glob("*.txt")) if TARGETS_DIR.is_dir() else []
+    raise JobError(f"no target curve '{name}': give a file path or one of {', '.join(known) or '(none shipped)'}",
+                   path=job.path, key="[target] curve")
+
+
+@dataclass(frozen=True, eq=False)
+class Targets:
+    """All targets of a job on its grid.
+
+    ways: complex (D, F) way targets including polarity, unit passband, one row per
+        driver in job order (a row of NaN for a driver without a way target);
+    has_way: bool (D,);
+    system: complex (F,) the system target at unit level (sum of ways times the curve);
+    curve_db: (F,) the shaping curve; band: bool (F,) points inside the target band;
+    level_db: the fixed level in dB SPL, or None for "auto".
+    """
+
+    ways: np.ndarray
+    has_way: np.ndarray
+    system: np.ndarray
+    curve_db: np.ndarray
+    band: np.ndarray
+    level_db: float | None
+    polarity: dict
+
+
+def build_targets(job: Job, f: np.ndarray) -> Targets:
+    """Targets of ``job`` on grid ``f`` (Hz). Raises JobError when the job has no way targets."""
+    spec = job.target
+    if not spec.ways:
+        raise JobError("no way targets: add a [target.way.NAME] table for each driver", path=job.path,
+                       key="[target]")
+    pol = polarities(spec.ways)
+    by_name = {w.driver: w for w in spec.ways}
+    ways = np.full((len(job.drivers), f.size), np.nan + 0j)
+    has = np.zeros(len(job.drivers), dtype=bool)
+    for i, d in enumerate(job.drivers):
+        if d.name in by_name:
+            ways[i] = pol[d.name] * way_shape(by_name[d.name], f)
+            has[i] = True
+    curve_db = load_curve(spec.curve, job, f)
+    shape = 10 ** (curve_db / 20.0)
+    system = np.nansum(np.where(has[:, None], ways, 0), axis=0) * shape
+    ways = np.where(has[:, None], ways * shape, ways)
+    from .cost import band_mask
+
+    band = band_mask(f, spec.band)
+    level = None if spec.level == "auto" else float(spec.level)
+    for a in (ways, system, curve_db, band):
+        a.setflags(write=False)
+    return Targets(ways=ways, has_way=has, system=system, curve_db=curve_db, band=band, level_db=level,
+                   polarity=pol)
