@@ -79,3 +79,56 @@ def flat_curve(f_lo=10.0, f_hi=40000.0, n=200, level=90.0, phase=0.0) -> str:
 def resistive_curve(r=8.0, f_lo=10.0, f_hi=40000.0, n=200) -> str:
     f = np.geomspace(f_lo, f_hi, n)
     return "\n".join(f"{x:.6f} {r:.6f} 0.0" for x in f) + "\n"
+
+
+# references.md ladder coefficients, L = kL R / fc, C = kC / (R fc), source side first
+LADDERS = {
+    "LR2": ("LC", [0.31831, 0.07958], "CL", [0.07958, 0.31831]),
+    "BW3": ("LCL", [0.23873, 0.21221, 0.07958], "CLC", [0.10610, 0.11937, 0.31831]),
+    "LR4": ("LCLC", [0.30011, 0.25321, 0.15005, 0.05627], "CLCL", [0.08440, 0.10004, 0.16881, 0.45016]),
+}
+
+
+def ladder_job(name: str, *, r: float = 8.0, fc: float = 2000.0, start: float = 1.0, spread: float | None = None,
+               tweeter_inverted: bool | None = None, impedance_min: float = 0.0, extra: str = "") -> tuple[str, dict]:
+    """A two-way job with ideal resistive drivers and the handbook ladders of `name` (LR2, BW3, LR4).
+
+    start: factor on the handbook values for the start; spread: search range handbook / s .. handbook * s
+    (None: the parts are fixed). Returns (job text, handbook values by part name).
+    """
+    kl, cl, kh, ch = LADDERS[name]
+    alignment, order = ("LR", int(name[2])) if name.startswith("LR") else ("BW", int(name[2]))
+    lines = ['[grid]', 'f_min = 20', 'f_max = 20000', 'points = 241', '[source]', 'voltage = 2.83',
+             '[driver.woofer]', 'response = 90', f'impedance = {r}', '[driver.tweeter]', 'response = 90',
+             f'impedance = {r}']
+    truth = {}
+
+    def ladder(kinds, coefs, prefix, load):
+        node = "in"
+        for i, (kind, k) in enumerate(zip(kinds, coefs)):
+            value = k * r / fc if kind == "L" else k / (r * fc)
+            pname = f"{prefix}{kind}{i}"
+            truth[pname] = value
+            if i % 2 == 0:
+                nxt = f"{prefix}{i}"
+                nodes = (node, nxt)
+                node = nxt
+            else:
+                nodes = (node, "0")
+            lines.extend(['[[part]]', f'name = "{pname}"', f'type = "{kind}"', f'nodes = ["{nodes[0]}", "{nodes[1]}"]',
+                          f'value = {value * start!r}'])
+            if spread:
+                lines.extend([f'min = {value / spread!r}', f'max = {value * spread!r}'])
+        return node
+
+    wn = ladder(kl, cl, "w", "woofer")
+    lines.extend(['[[part]]', 'name = "WOOFER"', 'type = "driver"', 'driver = "woofer"', f'nodes = ["{wn}", "0"]'])
+    tn = ladder(kh, ch, "t", "tweeter")
+    inverted = (order % 4 == 2) if tweeter_inverted is None else tweeter_inverted
+    nodes = f'["0", "{tn}"]' if inverted else f'["{tn}", "0"]'
+    lines.extend(['[[part]]', 'name = "TWEETER"', 'type = "driver"', 'driver = "tweeter"', f'nodes = {nodes}'])
+    lines.extend(['[target]', 'band = [100, 15000]',
+                  '[target.way.woofer]', 'type = "lowpass"', f'alignment = "{alignment}"', f'order = {order}',
+                  f'fc = {fc}', '[target.way.tweeter]', 'type = "highpass"', f'alignment = "{alignment}"',
+                  f'order = {order}', f'fc = {fc}', '[cost]', f'impedance_min = {impedance_min}'])
+    return "\n".join(lines) + "\n" + extra, truth

@@ -159,6 +159,13 @@ def test_demo_end_to_end(tmp_path):
     t = pd.read_csv(tmp_path / "demo" / "hand-design" / "response.csv")
     band = (t.frequency_hz > 150) & (t.frequency_hz < 16000)
     assert t.sum_db[band].max() - t.sum_db[band].min() > 4.0
+    assert result["metrics"]["max_error_db"] > 4.0
+    # ... and the fit brings it within about a dB
+    fit = json.loads((tmp_path / "demo" / "fit" / "result.json").read_text())
+    assert fit["stage"] == "fit" and fit["search"]["complete"]
+    assert fit["metrics"]["rms_error_db"] < 0.6 and fit["metrics"]["max_error_db"] < 1.5
+    assert fit["cost"] < 0.1 * result["cost"]
+    assert fit["metrics"]["impedance_min_ohm"] >= 3.2
 
 
 from test_measure import test_malformed_lines as _cases  # noqa: E402

@@ -254,6 +254,9 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say("wrote " + ", ".join(str(p) for p in files))
     if not r.complete and r.stopped_by == "interrupted":
         raise typer.Exit(130)
+    if not r.complete and r.stopped_by and r.stopped_by.startswith("optimizer failed"):
+        typer.echo(f"xo-fit: {r.stopped_by}; the best design so far is in {out / 'result.json'}", err=True)
+        raise typer.Exit(1)
 
 
 # ----------------------------------------------------------------------------- demo
@@ -273,6 +276,24 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
 
 
 # ----------------------------------------------------------------------------- entry point
+
+
+def run() -> None:
+    """Console entry point: run, then exit even if a library left a non-daemon thread behind.
+
+    (nevergrad's NGOpt, failing under numpy >= 2.4, leaves such a thread, which would keep the
+    process alive after the command has finished.)
+    """
+    import os
+    import threading
+
+    code = main()
+    stray = [t for t in threading.enumerate() if t is not threading.main_thread() and t.is_alive() and not t.daemon]
+    sys.stdout.flush()
+    sys.stderr.flush()
+    if stray:
+        os._exit(code)
+    sys.exit(code)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -27,7 +27,8 @@ of n + 1 designs.
 
 The same seed gives the same result bit for bit (numpy's SeedSequence feeds
 every random draw). A time limit or Ctrl-C stops the search between
-generations and the best design so far is returned, marked incomplete.
+generations (the first population is always evaluated) and the best design so
+far is returned, marked incomplete; so is it when an engine fails.
 """
 
 from __future__ import annotations
@@ -124,7 +125,7 @@ class Objective:
         if self.evaluations >= self.budget:
             self.stopped_by = self.stopped_by or "budget"
             raise _Stop
-        if self.deadline is not None and time.monotonic() > self.deadline:
+        if self.deadline is not None and self.evaluations and time.monotonic() > self.deadline:
             self.stopped_by = "time limit"
             raise _Stop
         take = min(u.shape[0], self.budget - self.evaluations)
@@ -284,11 +285,12 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
     run = engine(optimizer)
     name = DEFAULT_ENGINE if optimizer == "auto" else optimizer
     t0 = time.monotonic()
-    deadline = t0 + time_limit if time_limit else None
+    deadline = t0 + time_limit if time_limit is not None else None
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
     obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress)
     interrupted = False
+    failed = False
     try:
         run(obj, space.dims, space.u0, rng)
     except _Stop:
@@ -296,7 +298,14 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
     except KeyboardInterrupt:
         interrupted = True
         obj.stopped_by = "interrupted"
-    if polish and not interrupted and obj.stopped_by != "time limit":
+    except XoFitError:
+        raise
+    except Exception as e:  # a failing engine (or objective) must not lose the best design found so far
+        if obj.best_u is None:
+            raise
+        failed = True
+        obj.stopped_by = f"optimizer failed: {type(e).__name__}: {e}"
+    if polish and not interrupted and not failed and obj.stopped_by != "time limit":
         obj.budget = budget
         obj.stopped_by = None
         try:
