@@ -77,12 +77,14 @@ def solve_transfer(parts, values, loads=(R,), rs=0.0):
 @pytest.mark.parametrize("name", sorted(LOWPASS))
 @pytest.mark.parametrize("btype", ["low", "high"])
 def test_handbook_ladders_match_scipy_prototypes(name, btype):
+    """(both solve paths: the compiled kernel and the dense reference)"""
     kinds, coefs = (LOWPASS if btype == "low" else HIGHPASS)[name]
     parts, values, last = ladder(kinds, coefs, "x")
     # odd orders end on a series part: the load hangs from the last node; even orders on a shunt part
     parts.append(("LOAD", "D", last, "0", 0))
-    _, sol = solve_transfer(parts, values)
+    net, sol = solve_transfer(parts, values)
     h = sol.voltages[0, 0]
+    np.testing.assert_allclose(net.solve_compiled(np.array(values)).voltages[0, 0], h, rtol=1e-9)
     ref = prototype(name, btype)
     # the table's coefficients carry 5 significant digits: agreement to ~1e-4, asserted at 2e-3 in dB-relative terms
     np.testing.assert_allclose(np.abs(h), np.abs(ref), rtol=2e-3, atol=1e-6)
@@ -210,7 +212,7 @@ def test_fast_path_matches_dense_reference(rs, ideal):
     net = reference_net(rs, ideal)
     rng = np.random.default_rng(1)
     values = REF_VALUES * np.exp(rng.uniform(-1.0, 1.0, (40, REF_VALUES.size)))
-    fast = net.solve(values)
+    fast = net.solve_compiled(values)
     ref = net.solve_reference(values)
     np.testing.assert_allclose(fast.voltages, ref.voltages, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(fast.impedance, ref.impedance, rtol=1e-9)
@@ -238,7 +240,7 @@ def test_ideal_series_resonance_falls_back_to_dense_solve():
     f = np.array([500.0, f0, 8000.0])
     net = net_of([("R", "R", "in", "a"), ("L", "L", "a", "n"), ("C", "C", "n", "0"), ("LOAD", "D", "a", "0", 0)],
                  [R], f)
-    sol = net.solve(np.array([2.0, l, c]))
+    sol = net.solve_compiled(np.array([2.0, l, c]))
     ref = net.solve_reference(np.array([2.0, l, c]))
     np.testing.assert_allclose(sol.voltages, ref.voltages, rtol=1e-9, atol=1e-12)
     assert abs(sol.voltages[0, 0, 1]) < 1e-9  # the trap shorts the load at f0

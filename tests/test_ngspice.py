@@ -86,7 +86,7 @@ def test_against_ngspice(tmp_path, rs):
     branches += [Branch(n, "D", a, b, driver=k) for n, a, b, k in LOADS]
     zd = np.stack([ts_impedance(f, **DRIVERS[k]) for k in range(3)])
     net = compile_network(branches, ["woofer", "tweeter", "mid"], f, zd, vs, rs)
-    sol = net.solve(np.array([p[4] for p in PARTS]))
+    sol = net.solve_compiled(np.array([p[4] for p in PARTS]))
     for i, (_, _, _, k) in enumerate(LOADS):
         np.testing.assert_allclose(sol.voltages[0, k], spice[:, i], rtol=1e-6)
     z_spice = spice[:, -2] / spice[:, -1]

@@ -20,6 +20,26 @@ def way(type_="lowpass", alignment="LR", order=4, polarity="auto", driver="w", *
     return WayTarget(driver=driver, type=type_, alignment=alignment, order=order, polarity=polarity, **kw)
 
 
+@pytest.mark.parametrize("alignment, orders", [("BW", range(1, 9)), ("LR", (2, 4, 6, 8)), ("Bessel", range(1, 9))])
+@pytest.mark.parametrize("btype", ["low", "high"])
+def test_closed_form_prototypes_match_scipy_signal(alignment, orders, btype):
+    """Second code path: the closed-form slopes against scipy.signal's analog prototypes
+    (butter; butter squared for LR; bessel with norm="phase")."""
+    from xo_fit.targets import slope
+
+    for order in orders:
+        wc = 2 * np.pi * FC
+        if alignment == "BW":
+            b, a = sig.butter(order, wc, btype, analog=True)
+        elif alignment == "LR":
+            b, a = sig.butter(order // 2, wc, btype, analog=True)
+            b, a = np.polymul(b, b), np.polymul(a, a)
+        else:
+            b, a = sig.bessel(order, wc, btype, analog=True, norm="phase")
+        ref = sig.freqs(b, a, 2 * np.pi * F)[1]
+        np.testing.assert_allclose(slope(alignment, order, btype, FC, F), ref, rtol=1e-9, atol=1e-12)
+
+
 @pytest.mark.parametrize("order", [2, 4, 6, 8])
 def test_linkwitz_riley_is_squared_butterworth(order):
     """S. Linkwitz, JAES 24(1), 1976: LR of order 2N = Butterworth N squared; closed form |H|^2 = 1/(1+(f/fc)^2N)^2."""

@@ -20,8 +20,11 @@ the weights of ``[cost]``):
 ``phase``
     through each crossover region (points where two adjacent way targets lie
     within XO_REGION_DB of each other) the phase difference of the two drivers
-    against the phase difference of their targets, in units of
-    PHASE_DEG_PER_DB degrees (10 deg of mismatch costs like 1 dB of error).
+    against the phase difference of their targets. Each point's mismatch d is
+    taken as the chord between the two phases on the unit circle,
+    2 (1 - cos d) rad^2 (equal to d^2 for small d, bounded for large), in
+    units of PHASE_DEG_PER_DB degrees (10 deg of mismatch costs like 1 dB of
+    error).
     Way targets carry the textbook polarity (:mod:`xo_fit.targets`), so a
     tweeter wired inverted on an LR2 pair is matched.
 ``impedance``
@@ -168,7 +171,8 @@ class CostModel:
         errs = self._phase_errors(pressure)
         if not errs:
             return np.zeros(pressure.shape[0])
-        return np.mean([np.mean((e / PHASE_DEG_PER_DB) ** 2, axis=-1) for e in errs], axis=0)
+        chord = [np.rad2deg(1.0) ** 2 * 2 * (1 - np.cos(np.deg2rad(e))) for e in errs]
+        return np.mean([np.mean(c, axis=-1) for c in chord], axis=0) / PHASE_DEG_PER_DB**2
 
     def _impedance(self, z: np.ndarray) -> np.ndarray:
         if self.impedance_floor <= 0:

@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from .cost import CostModel, simulation_metrics
+from .fused import FusedCost
 from .results import part_entries, response_table, write_csv, write_json
 from .search import SearchResult, make_space, search
 from .targets import Targets, build_targets
@@ -75,9 +76,10 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
                        path=job.path, key="[target]")
     cm, _ = model
     space = make_space(job)
+    fused = FusedCost(cm)
 
     def fn(u: np.ndarray) -> np.ndarray:
-        return cm.evaluate(space.values(u)).cost
+        return fused(space.values(u))
 
     start = float(fn(space.u0[None])[0]) if space.u0 is not None else None
     result = search(fn, space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,

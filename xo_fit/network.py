@@ -47,6 +47,8 @@ SOURCE_NODE = "in"
 GROUND_NODE = "0"
 #: A pivot smaller than this fraction of the summed |admittance| at its node sends the point to the dense solve.
 PIVOT_TOLERANCE = 1e-3
+#: Up to this many (candidate, frequency) points, solve() uses the dense path: no kernel to load.
+DENSE_POINTS = 1024
 #: Bump when the generated code changes meaning, so stale caches are not reused.
 KERNEL_VERSION = 1
 
@@ -242,6 +244,14 @@ class Network:
         Solution with voltages (B, D, F) complex V and impedance (B, F) complex ohm
         (views into one array).
         """
+        v = self._check_values(values)
+        if v.shape[0] * self.frequencies.size <= DENSE_POINTS:
+            # a design or two: the plain dense solve is as quick as loading the compiled kernel
+            return self.solve_reference(v)
+        return self.solve_compiled(v)
+
+    def solve_compiled(self, values: np.ndarray) -> Solution:
+        """:meth:`solve` through the generated kernel whatever the batch size (flagged points densely)."""
         v = self._check_values(values)
         kernel = self.kernel()
         k = self._kernel_args()
@@ -571,21 +581,27 @@ def kernel_inputs(net: Network) -> np.ndarray:
     return np.ascontiguousarray(np.vstack(rows))
 
 
-def generate_kernel_source(net: Network) -> str:
-    """Python source of a numba kernel that solves ``net`` for a batch of values on its grid.
+@dataclass(frozen=True)
+class SolverCode:
+    """Straight-line code that solves one network at one (candidate b, frequency f) point.
 
-    Signature: ``kernel(vals (B, P), r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2,
-    scratch (2 D + 3, F), out (B, D + 1, F) complex, out_bad (B, F)) -> int``.
-    ``out[:, :D]`` holds the driver voltages, ``out[:, D]`` the input impedance;
-    ``out_bad`` is positive (or NaN) where some pivot fell below sqrt(tau2) of
-    its node's admittance scale or a value over- or underflowed, and the return
-    value counts those points. The solve runs per candidate into the planar
-    ``scratch`` (so that the frequency loop vectorises: LLVM will not vectorise
-    it around interleaved complex stores), then a short loop interleaves it. Node "in" is not an unknown: the network is
-    solved for 1 V there and the source (vs behind rs) applied afterwards.
-    A single input and a single output array keep LLVM's alias checks few enough
-    for the frequency loop to vectorise.
+    prep: lines per candidate (outside the frequency loop), reading ``vals[b, :]``;
+    loads: lines reading the frequency-dependent inputs from ``fin[:, f]``;
+    body: the solve and the pivot check, ending with ``bad`` (positive or NaN: redo densely);
+    volts: (re, im) names of each driver's terminal voltage, by driver index ("0.0" for a zero part);
+    zin: (re, im) names of the input impedance; comment: lines describing the reduced network.
     """
+
+    prep: tuple[str, ...]
+    loads: tuple[str, ...]
+    body: tuple[str, ...]
+    volts: tuple[tuple[str, str], ...]
+    zin: tuple[str, str]
+    comment: tuple[str, ...]
+
+
+def solver_code(net: Network) -> SolverCode:
+    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`)."""
     e = _Emitter()
     edges = reduce_series_chains(net)
     col_of = {}
@@ -819,7 +835,6 @@ def generate_kernel_source(net: Network) -> str:
         raise NetworkError("internal: no current path from the source")
     cm = e.let(" + ".join(f"{p} * {p}" for p in (cr, ci) if p), "cm")
     d = len(net.driver_names)
-    outs = []
     trap_terms = list(traps)
     if net.source_resistance > 0.0:
         sr = e.let(f"1.0 + rs * {cr}" if cr else "1.0", "sd")
@@ -833,18 +848,14 @@ def generate_kernel_source(net: Network) -> str:
         scale = ("vs", None)
     trap_terms = list(traps)
     zin = (e.let(f"{cr} * {inv_c}", "zr") if cr else None, e.let(f"-{ci} * {inv_c}", "zi") if ci else None)
+    volts: dict[int, tuple[str, str]] = {}
     for ed, form in zip(edges, forms):
         if form[0] == "D":
             u = e.sum([(1, volt(ed.a)), (-1, volt(ed.b))], f"u{form[1]}_")
             v = e.mul(u, scale, f"v{form[1]}_")
-            for part, val in zip((0, 1), v):
-                outs.append(f"scratch[{2 * form[1] + part}, f] = {val or '0.0'}")
-                if val:
-                    trap_terms.append(val)
-    for part, val in zip((0, 1), zin):
-        outs.append(f"scratch[{2 * d + part}, f] = {val or '0.0'}")
-        if val:
-            trap_terms.append(val)
+            volts[form[1]] = (v[0] or "0.0", v[1] or "0.0")
+            trap_terms.extend(x for x in v if x)
+    trap_terms.extend(x for x in zin if x)
     body_solve = e.lines
     e.lines = []
 
@@ -861,14 +872,41 @@ def generate_kernel_source(net: Network) -> str:
     else:
         check.append("bad = -1.0")
     check.append(f"bad = bad + 0.0 * ({' + '.join(trap_terms)})")
-    check.append(f"scratch[{2 * d + 2}, f] = bad")
+    return SolverCode(
+        prep=tuple(prep), loads=tuple(loads), body=tuple(body_y + body_solve + check),
+        volts=tuple(volts[i] for i in range(d)), zin=(zin[0] or "0.0", zin[1] or "0.0"),
+        comment=(f"# edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
+                 f"# unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}"))
 
+
+def generate_kernel_source(net: Network) -> str:
+    """Python source of a numba kernel that solves ``net`` for a batch of values on its grid.
+
+    Signature: ``kernel(vals (B, P), r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2,
+    scratch (2 D + 3, F), out (B, D + 1, F) complex, out_bad (B, F)) -> int``.
+    ``out[:, :D]`` holds the driver voltages, ``out[:, D]`` the input impedance;
+    ``out_bad`` is positive (or NaN) where some pivot fell below sqrt(tau2) of
+    its node's admittance scale or a value over- or underflowed, and the return
+    value counts those points. Node "in" is not an unknown: the network is
+    solved for 1 V there and the source (vs behind rs) applied afterwards.
+
+    The solve runs per candidate into the planar ``scratch``, then a short loop
+    interleaves it into the complex output: LLVM vectorises the frequency loop
+    only with few arrays and few written rows (its runtime alias checks are
+    capped), and not around interleaved complex stores.
+    """
+    code = solver_code(net)
+    d = len(net.driver_names)
+    outs = []
+    for i, (vr, vi) in enumerate(code.volts):
+        outs += [f"scratch[{2 * i}, f] = {vr}", f"scratch[{2 * i + 1}, f] = {vi}"]
+    outs += [f"scratch[{2 * d}, f] = {code.zin[0]}", f"scratch[{2 * d + 1}, f] = {code.zin[1]}",
+             f"scratch[{2 * d + 2}, f] = bad"]
     ind1, ind2 = " " * 8, " " * 12
     src = [
         "# generated by xo_fit.network.generate_kernel_source; do not edit",
         f"# kernel version {KERNEL_VERSION}",
-        f"# edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
-        f"# unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}",
+        *code.comment,
         "import numba",
         "",
         "",
@@ -879,9 +917,9 @@ def generate_kernel_source(net: Network) -> str:
         "    nbad = 0",
         "    for b in range(nb):",
     ]
-    src += [ind1 + s for s in prep] or [ind1 + "pass"]
+    src += [ind1 + s for s in code.prep] or [ind1 + "pass"]
     src.append(ind1 + "for f in range(nf):")
-    src += [ind2 + s for s in loads + body_y + body_solve + outs + check]
+    src += [ind2 + s for s in code.loads + code.body + tuple(outs)]
     src.append(ind1 + "for f in range(nf):")
     src += [ind2 + f"out[b, {i}, f] = complex(scratch[{2 * i}, f], scratch[{2 * i + 1}, f])" for i in range(d + 1)]
     src += [ind2 + f"bv = scratch[{2 * d + 2}, f]", ind2 + "out_bad[b, f] = bv", ind2 + "if not bv <= 0.0:",
@@ -933,8 +971,8 @@ def _prefer_wide_vectors() -> None:
         os.environ["NUMBA_CPU_FEATURES"] = features + ",-prefer-256-bit"
 
 
-def load_kernel(source: str):
-    """Write ``source`` to the cache (once, atomically), import it and return its ``kernel``."""
+def load_kernel(source: str, entry: str = "kernel"):
+    """Write ``source`` to the cache (once, atomically), import it and return its function ``entry``."""
     _prefer_wide_vectors()
     import numba
 
@@ -953,5 +991,5 @@ def load_kernel(source: str):
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
     spec.loader.exec_module(module)
-    _LOADED[digest] = module.kernel
-    return module.kernel
+    _LOADED[digest] = getattr(module, entry)
+    return _LOADED[digest]

@@ -46,6 +46,10 @@ from .errors import XoFitError
 POLISH_SHARE = 0.15
 #: Forward-difference step of the polish in u (normalised log) space.
 POLISH_STEP = 1e-6
+#: The polish stops when a step improves the cost by less than this fraction (scipy's ftol) ...
+POLISH_FTOL = 1e-10
+#: ... or the projected gradient (cost per unit of u) falls below this.
+POLISH_GTOL = 1e-8
 
 
 @dataclass(frozen=True)
@@ -163,12 +167,17 @@ def population_size(n: int) -> int:
 # ----------------------------------------------------------------------------- engines
 
 
+def latin_hypercube(npop: int, n: int, rng: np.random.Generator) -> np.ndarray:
+    """npop points in [0, 1)^n, one in each of npop equal slices of every axis (M. D. McKay et al.,
+    Technometrics 21(2), 1979). Written out because importing scipy.stats costs half a second."""
+    perms = np.argsort(rng.random((npop, n)), axis=0)
+    return (perms + rng.random((npop, n))) / npop
+
+
 def _jade(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generator) -> None:
     """Differential evolution, JADE (current-to-pbest/1/bin with archive), vectorised over the population."""
-    from scipy.stats import qmc
-
     npop = population_size(n)
-    pop = qmc.LatinHypercube(d=n, seed=rng).random(npop)
+    pop = latin_hypercube(npop, n, rng)
     if u0 is not None:
         pop[0] = u0
     fit = obj(pop)
@@ -271,7 +280,7 @@ def _polish(obj: Objective, n: int) -> None:
         return cache[key]
 
     minimize(fun, obj.best_u.copy(), jac=True, method="L-BFGS-B", bounds=[(0.0, 1.0)] * n,
-             options={"maxiter": 10_000, "ftol": 1e-15, "gtol": 1e-12})
+             options={"maxiter": 10_000, "ftol": POLISH_FTOL, "gtol": POLISH_GTOL})
 
 
 def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: str = "auto", budget: int = 20000,

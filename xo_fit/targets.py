@@ -1,7 +1,8 @@
 """Acoustic target curves: per-way slopes (Linkwitz-Riley, Butterworth, Bessel) and the system target.
 
-Every way target is a complex transfer function of unit passband gain built
-from scipy.signal's analog prototypes:
+Every way target is a complex transfer function of unit passband gain: the
+analog prototypes of scipy.signal, evaluated here in closed form (and tested
+against scipy.signal):
 
 * ``BW`` order N: ``scipy.signal.butter(N, wc, analog=True)`` (-3.01 dB at fc);
 * ``LR`` order N (even): a Butterworth of order N/2 squared (S. Linkwitz,
@@ -35,7 +36,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import scipy.signal as sig
 
 from .errors import DataError, JobError
 from .job import Job, WayTarget
@@ -45,23 +45,58 @@ from .measure import read_curve
 TARGETS_DIR = Path(os.environ.get("XO_FIT_TARGETS", Path(__file__).resolve().parents[1] / "targets"))
 
 
-def prototype(alignment: str, order: int, btype: str, fc: float) -> tuple[np.ndarray, np.ndarray]:
-    """Analog transfer function (b, a) in s (rad/s) of one slope: btype "low" or "high" at fc (Hz)."""
-    wc = 2 * np.pi * fc
+def _butterworth_lowpass(order: int, x: np.ndarray) -> np.ndarray:
+    """Butterworth low-pass at normalised complex frequency x = s / wc: 1 / prod(x - p_k).
+
+    Poles p_k = exp(j pi (2k + N - 1) / (2N)), k = 1..N, on the unit circle's left half.
+    """
+    k = np.arange(1, order + 1)
+    poles = np.exp(1j * np.pi * (2 * k + order - 1) / (2 * order))
+    out = np.ones_like(x)
+    for p in poles:
+        out = out * (-p) / (x - p)  # prod(-p) = 1: unit gain at DC
+    return out
+
+
+def _bessel_lowpass(order: int, x: np.ndarray) -> np.ndarray:
+    """Bessel low-pass at x = s / wc, normalised as scipy's norm="phase".
+
+    theta_N(s) = sum_k (2N - k)! / (2^(N-k) k! (N-k)!) s^k is the reverse Bessel
+    polynomial; a0 / theta_N(s) has unit group delay at DC. Scaling s by
+    a0^(1/N) gives the same high-frequency asymptote as a Butterworth of cutoff
+    wc, scipy's "phase" normalisation.
+    """
+    from math import factorial
+
+    coef = [factorial(2 * order - k) / (2 ** (order - k) * factorial(k) * factorial(order - k)) for k in range(order + 1)]
+    a0 = coef[0]
+    y = x * a0 ** (1.0 / order)
+    den = np.zeros_like(y)
+    for c in reversed(coef):  # Horner
+        den = den * y + c
+    return a0 / den
+
+
+def slope(alignment: str, order: int, btype: str, fc: float, f: np.ndarray) -> np.ndarray:
+    """Complex response of one slope, "low" or "high" at fc (Hz), on frequencies f (Hz).
+
+    The analog prototypes are evaluated in closed form (Butterworth poles, the
+    Bessel polynomial); tests/test_targets.py holds them to
+    ``scipy.signal.butter`` / ``bessel(norm="phase")`` (importing scipy.signal
+    would cost 0.6 s of every command's start-up). A high-pass is the low-pass
+    at wc / s.
+    """
+    s = 1j * np.asarray(f, dtype=float) / fc
+    x = s if btype == "low" else 1.0 / s
     if alignment == "BW":
-        return sig.butter(order, wc, btype, analog=True)
+        return _butterworth_lowpass(order, x)
     if alignment == "LR":
         if order % 2:
             raise ValueError("a Linkwitz-Riley alignment has an even order")
-        b, a = sig.butter(order // 2, wc, btype, analog=True)
-        return np.polymul(b, b), np.polymul(a, a)
+        return _butterworth_lowpass(order // 2, x) ** 2
     if alignment == "Bessel":
-        return sig.bessel(order, wc, btype, analog=True, norm="phase")
+        return _bessel_lowpass(order, x)
     raise ValueError(f"unknown alignment {alignment!r}")
-
-
-def _response(b: np.ndarray, a: np.ndarray, f: np.ndarray) -> np.ndarray:
-    return sig.freqs(b, a, 2 * np.pi * np.asarray(f, dtype=float))[1]
 
 
 def way_shape(way: WayTarget, f: np.ndarray) -> np.ndarray:
@@ -69,12 +104,10 @@ def way_shape(way: WayTarget, f: np.ndarray) -> np.ndarray:
     if way.type == "fullrange":
         return np.ones(np.shape(f), dtype=complex)
     if way.type == "lowpass":
-        return _response(*prototype(way.alignment, way.order, "low", way.fc), f)
+        return slope(way.alignment, way.order, "low", way.fc, f)
     if way.type == "highpass":
-        return _response(*prototype(way.alignment, way.order, "high", way.fc), f)
-    hp = _response(*prototype(way.alignment, way.order, "high", way.fc_low), f)
-    lp = _response(*prototype(way.alignment, way.order, "low", way.fc_high), f)
-    return hp * lp
+        return slope(way.alignment, way.order, "high", way.fc, f)
+    return slope(way.alignment, way.order, "high", way.fc_low, f) * slope(way.alignment, way.order, "low", way.fc_high, f)
 
 
 def _low_edge(way: WayTarget) -> float:

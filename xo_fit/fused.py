@@ -1,0 +1,202 @@
+"""The fused kernel: solve the network and reduce the cost terms in one compiled pass per candidate.
+
+A fit spends nearly all of its time evaluating the cost of candidate designs.
+Computing dB curves in numpy costs several microseconds per candidate, far
+more than the solve; this kernel instead extends the solver's straight-line
+code (:func:`xo_fit.network.solver_code`) with each driver's pressure, the
+complex sum, their levels in dB (through :func:`xo_fit.vecmath.ln`, which
+vectorises), the phase chords through the crossover regions and the impedance
+shortfall, and reduces them over the band inside the frequency loop. The
+terms are exactly those of :class:`xo_fit.cost.CostModel` (the reference
+implementation, against which tests hold this kernel to 1e-9).
+
+The structure of the cost (which drivers have way targets, which pairs meet
+at a crossover, the band's index range, a fixed or automatic level, the
+weights) is written into the generated code as constants; the curves are
+passed as one array ``tgt``. The kernel is compiled with ``reassoc`` as well
+as ``contract``: LLVM vectorises floating-point sums over the frequency loop
+only when it may reorder them. Candidates with a flagged point (a pivot too
+small, a NaN) are re-scored by the reference path.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .acoustics import SPL_FLOOR_DB
+from .cost import BREAKUP_FLOOR_DB, PHASE_DEG_PER_DB, TERMS
+from .measure import P_REF
+from .network import KERNEL_VERSION, PIVOT_TOLERANCE, load_kernel, solver_code
+
+#: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
+_P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
+_PREF_DB = 20 * math.log10(P_REF)
+
+
+class FusedCost:
+    """Cost of batches of designs through one generated kernel; same numbers as CostModel.evaluate."""
+
+    def __init__(self, cm) -> None:
+        self.cm = cm
+        net = cm.system.network
+        self.net = net
+        f = cm.system.frequencies
+        band_idx = np.nonzero(cm.band)[0]
+        self.lo, self.hi = int(band_idx[0]), int(band_idx[-1]) + 1
+        if self.hi - self.lo != band_idx.size:
+            raise ValueError("the target band must be a contiguous range of the grid")
+        d = len(net.driver_names)
+        rows: list[np.ndarray] = []
+        factors = cm.system.factors
+        for k in range(d):
+            rows += [factors[k].real, factors[k].imag]
+        self.row_tway = len(rows)
+        nf = f.size
+        for k in range(d):
+            r = np.zeros(nf)
+            r[self.lo:self.hi] = cm.t_way_db[k]
+            rows.append(r)
+        self.row_stop = len(rows)
+        for k in range(d):
+            r = np.zeros(nf)
+            r[self.lo:self.hi] = cm.stop[k] & cm.has_way[k]
+            rows.append(r)
+        self.row_tsys = len(rows)
+        r = np.zeros(nf)
+        r[self.lo:self.hi] = cm.t_sys_db
+        rows.append(r)
+        self.row_pairs = len(rows)
+        self.pair_counts = []
+        for a, b, region, target_diff in cm.pairs:
+            reg = np.zeros(nf)
+            reg[self.lo:self.hi] = region
+            w = np.zeros(nf, dtype=complex)
+            w[self.lo:self.hi] = np.exp(-1j * np.deg2rad(target_diff))
+            rows += [reg, w.real, w.imag]
+            self.pair_counts.append(int(region.sum()))
+        self.tgt = np.ascontiguousarray(np.vstack(rows))
+        self._kernel = None
+
+    # ------------------------------------------------------------------ code
+
+    def source(self) -> str:
+        cm, net = self.cm, self.net
+        code = solver_code(net)
+        d = len(net.driver_names)
+        ways = [k for k in range(d) if cm.has_way[k]]
+        nb = self.hi - self.lo
+        floor = cm.impedance_floor
+        level = cm.targets.level_db
+        w = cm.weights
+        lines = list(code.loads) + list(code.body)
+        for k, (vr, vi) in enumerate(code.volts):
+            lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
+                      f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
+                      f"pd{k} = DB10 * ln(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
+                      f"scratch[{k}, f] = pd{k}"]
+        lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}",
+                  "sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                  f"acc_l += sd - tgt[{self.row_tsys}, f]"]
+        for j, (a, b, _, _) in enumerate(cm.pairs):
+            base = self.row_pairs + 3 * j
+            lines += [f"qr{j} = pr{a} * pr{b} + pi{a} * pi{b}", f"qi{j} = pi{a} * pr{b} - pr{a} * pi{b}",
+                      f"cr{j} = qr{j} * tgt[{base + 1}, f] - qi{j} * tgt[{base + 2}, f]",
+                      f"ci{j} = qr{j} * tgt[{base + 2}, f] + qi{j} * tgt[{base + 1}, f]",
+                      f"acc_p{j} += tgt[{base}, f] * (1.0 - cr{j} / sqrt(cr{j} * cr{j} + ci{j} * ci{j} + 1e-300))"]
+        if floor > 0:
+            zr, zi = code.zin
+            lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
+                      f"sh = DB10 * ln(max({floor * floor!r} / max(zz, 1e-300), 1.0))",
+                      "acc_z += sh * sh", f"scratch[{d + 1}, f] = sh"]
+        lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
+
+        second = []
+        for k in ways:
+            second += [f"y{k} = scratch[{k}, f] - level - tgt[{self.row_tway + k}, f]",
+                       f"x{k} = scratch[{k}, f] - level + {BREAKUP_FLOOR_DB!r}",
+                       f"x{k} = x{k} if x{k} > 0.0 else 0.0",
+                       f"e{k} = x{k} if tgt[{self.row_stop + k}, f] > 0.5 else y{k}",
+                       f"acc_w += e{k} * e{k}"]
+        second += [f"s = scratch[{d}, f] - level - tgt[{self.row_tsys}, f]", "acc_s += s * s"]
+
+        phase_expr = " + ".join(f"acc_p{j} / {self.pair_counts[j]}.0" for j in range(len(cm.pairs)))
+        phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
+        i1, i2, i3 = " " * 8, " " * 12, " " * 16
+        src = [
+            "# generated by xo_fit.fused.FusedCost.source; do not edit",
+            f"# kernel version {KERNEL_VERSION}; band [{self.lo}, {self.hi}); ways {ways}; "
+            f"pairs {[(a, b) for a, b, _, _ in cm.pairs]}",
+            *code.comment,
+            "import numba",
+            "from math import sqrt",
+            "from xo_fit.vecmath import ln, DB10",
+            "",
+            f"P2F = {_P2_FLOOR!r}",
+            f"PREF_DB = {_PREF_DB!r}",
+            "",
+            "",
+            '@numba.njit(cache=True, error_model="numpy", fastmath={"contract", "reassoc"}, nogil=True)',
+            "def cost_kernel(vals, r_coef, r_exp, fin, vs, rs, tau2, tgt, scratch, out):",
+            "    nb = vals.shape[0]",
+            "    nbad = 0",
+            "    for b in range(nb):",
+        ]
+        src += [i1 + s for s in code.prep]
+        src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0"]
+        src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
+        src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in lines]
+        src += [i1 + (f"level = acc_l / {nb}.0" if level is None else f"level = {level!r}"),
+                i1 + "acc_w = 0.0", i1 + "acc_s = 0.0"]
+        src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in second]
+        src += [i1 + "mz = 0.0"]
+        if floor > 0:
+            src += [i1 + f"for f in range({self.lo}, {self.hi}):", i2 + f"shv = scratch[{d + 1}, f]",
+                    i2 + "if shv > mz:", i3 + "mz = shv"]
+        src += [
+            i1 + (f"t_way = acc_w / {nb * len(ways)}.0" if ways else "t_way = 0.0"),
+            i1 + f"t_sum = acc_s / {nb}.0",
+            i1 + (f"t_phase = ({phase_expr}) * {phase_scale!r}" if cm.pairs else "t_phase = 0.0"),
+            i1 + (f"t_imp = acc_z / {nb}.0 + mz * mz" if floor > 0 else "t_imp = 0.0"),
+            i1 + f"out[b, 0] = {w['way']!r} * t_way + {w['sum']!r} * t_sum + {w['phase']!r} * t_phase "
+                 f"+ {w['impedance']!r} * t_imp",
+            i1 + "out[b, 1] = t_way", i1 + "out[b, 2] = t_sum", i1 + "out[b, 3] = t_phase", i1 + "out[b, 4] = t_imp",
+            i1 + "out[b, 5] = level", i1 + "out[b, 6] = acc_bad",
+            i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
+            "    return nbad",
+        ]
+        return "\n".join(src) + "\n"
+
+    def kernel(self):
+        if self._kernel is None:
+            self._kernel = load_kernel(self.source(), entry="cost_kernel")
+        return self._kernel
+
+    def __getstate__(self) -> dict:
+        state = self.__dict__.copy()
+        state["_kernel"] = None
+        return state
+
+    # ------------------------------------------------------------------ evaluation
+
+    def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
+        """(B, 7): cost, way, sum, phase, impedance, level, flag for designs (B, P); flagged rows re-scored."""
+        v = self.net._check_values(values)
+        k = self.net._kernel_args()
+        out = np.empty((v.shape[0], 7))
+        scratch = np.empty((len(self.net.driver_names) + 2, self.net.frequencies.size))
+        nbad = self.kernel()(v, k["r_coef"], k["r_exp"], k["fin"], self.net.source_voltage,
+                             self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, scratch, out)
+        if nbad:
+            redo = np.nonzero(~(out[:, 6] <= 0.0))[0]
+            ev = self.cm.evaluate(v[redo])
+            out[redo, 0] = ev.cost
+            for i, t in enumerate(TERMS, start=1):
+                out[redo, i] = ev.terms[t]
+            out[redo, 5] = ev.level_db
+        return out
+
+    def __call__(self, values: np.ndarray) -> np.ndarray:
+        """Cost (B,) of designs (B, P)."""
+        return self.evaluate_raw(values)[:, 0]
