@@ -234,13 +234,21 @@ def _nevergrad(name: str) -> Callable:
             raise XoFitError(f"unknown nevergrad optimizer '{name}'")
         param = ng.p.Array(init=u0 if u0 is not None else np.full(n, 0.5), lower=0.0, upper=1.0)
         param.random_state = np.random.RandomState(int(rng.integers(0, 2**31 - 1)))
+        import warnings
+
         npop = population_size(n)
         opt = ng.optimizers.registry[name](parametrization=param, budget=obj.budget, num_workers=npop)
-        while True:
-            asks = [opt.ask() for _ in range(npop)]
-            cost = obj(np.stack([a.value for a in asks]))
-            for a, c_ in zip(asks, cost):
-                opt.tell(a, float(c_) if np.isfinite(c_) else 1e300)
+        with warnings.catch_warnings():
+            # a design whose solve failed is told as a very large cost; nevergrad warns about each one
+            warnings.simplefilter("ignore", category=ng.errors.LossTooLargeWarning)
+            while True:
+                k = min(npop, obj.budget - obj.evaluations)
+                if k <= 0:
+                    raise _Stop
+                asks = [opt.ask() for _ in range(k)]
+                cost = obj(np.stack([a.value for a in asks]))
+                for a, c_ in zip(asks, cost):
+                    opt.tell(a, float(c_) if np.isfinite(c_) else 1e300)
     return run
 
 
