@@ -164,3 +164,18 @@ def test_a_failing_optimizer_cannot_hang_the_command(write_job, tmp_path):
     assert "optimizer failed: TypeError: boom" in proc.stderr
     r = json.loads((tmp_path / "o" / "result.json").read_text())
     assert r["search"]["complete"] is False
+
+
+def test_workers_run_independent_restarts_and_keep_the_best(write_job, cli, tmp_path):
+    text, truth = ladder_job("LR2", start=2.0, spread=4.0)
+    job = write_job(text)
+    code, out, err = cli("fit", job, "--out", tmp_path / "w", "--workers", "2", "--budget", "2000", "--no-plots")
+    assert code == 0, err
+    r = json.loads((tmp_path / "w" / "result.json").read_text())
+    runs = r["search"]["restarts"]
+    assert len(runs) == 2 and runs[0]["seed"] == 1 and runs[1]["seed"] != 1
+    assert r["cost"] == pytest.approx(min(x["cost"] for x in runs), rel=1e-9, abs=1e-15)
+    # deterministic: the same command gives the same values
+    code, _, _ = cli("fit", job, "--out", tmp_path / "w2", "--workers", "2", "--budget", "2000", "--no-plots")
+    r2 = json.loads((tmp_path / "w2" / "result.json").read_text())
+    assert r2["parts"] == r["parts"]

@@ -245,3 +245,20 @@ def test_wire_dcr_and_letter_codes(write_job):
     job = load_job(write_job(text, DATA))
     l1 = job.part("L1")
     assert l1.dcr_wire and l1.dcr == pytest.approx(1.0237e-3, rel=1e-3) and l1.value == pytest.approx(1.5e-3)
+
+
+def test_job_and_system_pickle(write_job):
+    """A batch worker or cluster node gets the loaded job and its data by pickling."""
+    import pickle
+
+    from xo_fit.system import load_system
+
+    job = load_job(write_job(CONTRACT, DATA))
+    j2 = pickle.loads(pickle.dumps(job))
+    assert j2 == job and dict(j2.snap.series) == dict(job.snap.series)
+    with pytest.raises(TypeError):
+        job.snap.series["L"] = "E6"
+    s = load_system(job)
+    s2 = pickle.loads(pickle.dumps(s))
+    np.testing.assert_array_equal(s2.simulate(s2.values({"C1": 1e-5, "C2": 5e-6, "L2": 1e-3})).total,
+                                  s.simulate(s.values({"C1": 1e-5, "C2": 5e-6, "L2": 1e-3})).total)

@@ -218,30 +218,41 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
                                                 help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
         time_limit: Optional[float] = typer.Option(None, "--time-limit", min=0.0,
                                                    help="Stop after this many seconds and keep the best so far."),
+        workers: int = typer.Option(1, "--workers", min=1, max=64,
+                                    help="Independent searches from derived seeds, one per process; the best wins."),
         no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
         ) -> None:
     """Search the free part values that best meet the job's acoustic target, then polish locally."""
-    from .fit import run_fit, write_outputs
+    from .fit import run_fit, run_fit_restarts, write_outputs
 
     t0 = time.perf_counter()
     system = _load(job)
     j = system.job
-    progress = _Progress(f"fit {j.name}")
-    try:
-        outcome = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
-                          progress=progress)
-    finally:
-        progress.close()
+    runs = None
+    if workers > 1:
+        outcome, runs = run_fit_restarts(system, workers, optimizer=optimizer, budget=budget, seed=seed,
+                                         time_limit=time_limit)
+    else:
+        progress = _Progress(f"fit {j.name}")
+        try:
+            outcome = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
+                              progress=progress)
+        finally:
+            progress.close()
     r = outcome.search
     extra = {"search": {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
                         "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by},
              "source": {"job": str(j.path)}}
+    if runs is not None:
+        extra["search"]["restarts"] = runs
     files = write_outputs(system, out, "fit", outcome.scored, extra, title=f"{j.name}: fit",
                           plots=not no_plots)
     state = "" if r.complete else f" - INCOMPLETE ({r.stopped_by}): the best design so far"
     say(f"fit {j.name}: {r.evaluations} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
         f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
     _print_score(outcome.scored, outcome.start_cost)
+    if runs is not None:
+        say("  restarts: " + ", ".join(f"seed {x['seed']}: {x['cost']:.4g}" for x in runs))
     if OUT.verbose or not OUT.quiet:
         from .units import format_value
 
@@ -272,7 +283,7 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     say("hand design (textbook starting values):")
     simulate(job=job, out=out / "hand-design", from_=None)
     say("fit:")
-    fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, no_plots=False)
+    fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, workers=1, no_plots=False)
 
 
 # ----------------------------------------------------------------------------- entry point

@@ -89,6 +89,45 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
     return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start)
 
 
+def _fit_worker(args):
+    """One restart in a worker process: (system, optimizer, budget, seed, time_limit) -> (seed, cost, u)."""
+    import os
+
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, "1")
+    system, optimizer, budget, seed, time_limit = args
+    out = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit)
+    return seed, out.search, out.scored.values
+
+
+def restart_seeds(seed: int, n: int) -> list[int]:
+    """The seeds of n independent restarts derived from one seed (the first restart uses the seed itself)."""
+    children = np.random.SeedSequence(seed).spawn(max(n - 1, 0))
+    return [seed] + [int(c.generate_state(1)[0]) for c in children]
+
+
+def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budget: int | None = None,
+                     seed: int | None = None, time_limit: float | None = None) -> tuple[FitOutcome, list[dict]]:
+    """``workers`` independent fits from derived seeds in as many processes; the best one wins.
+
+    Whole searches are distributed, never single evaluations (those cost more to ship than to compute).
+    Returns the winner and one summary per restart (seed, cost, evaluations, complete).
+    """
+    from concurrent.futures import ProcessPoolExecutor
+
+    base = system.job.search.seed if seed is None else seed
+    seeds = restart_seeds(base, workers)
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        results = list(pool.map(_fit_worker, [(system, optimizer, budget, s_, time_limit) for s_ in seeds]))
+    runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete}
+            for s_, r, _ in results]
+    best = min(range(len(results)), key=lambda i: (results[i][1].cost, i))
+    _, search_result, values = results[best]
+    start = None
+    model = cost_model(system)
+    return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start), runs
+
+
 def result_document(system, stage: str, s: Scored, extra: dict | None = None) -> dict:
     """result.json's content for a scored design."""
     job = system.job

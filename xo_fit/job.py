@@ -56,6 +56,21 @@ _NODE = re.compile(r"^[A-Za-z0-9_\-+.]+$")
 # ----------------------------------------------------------------------------- the job object
 
 
+class FrozenMap(dict):
+    """A read-only dict that pickles (MappingProxyType does not), for the job's small tables."""
+
+    def _readonly(self, *args, **kwargs):
+        raise TypeError("a job's tables are read-only")
+
+    __setitem__ = __delitem__ = clear = pop = popitem = setdefault = update = _readonly  # type: ignore[assignment]
+
+    def __reduce__(self):
+        return (FrozenMap, (dict(self),))
+
+    def __hash__(self):  # frozen dataclasses holding it stay hashable
+        return hash(tuple(sorted(self.items())))
+
+
 @dataclass(frozen=True)
 class Grid:
     """The log-spaced frequency axis every curve is put on (Hz)."""
@@ -806,7 +821,7 @@ def _snap(r: _Reader) -> SnapSpec:
     inventory = r.path("inventory") if r.has("inventory") else None
     combine = r.number("combine", d["combine"], integer=True, minimum=1, maximum=2)
     r.done()
-    return SnapSpec(series=MappingProxyType(series), inventory=inventory, combine=combine)
+    return SnapSpec(series=FrozenMap(series), inventory=inventory, combine=combine)
 
 
 def _spread(r: _Reader) -> SpreadSpec:
@@ -829,7 +844,7 @@ def _spread(r: _Reader) -> SpreadSpec:
         distribution=r.choice("distribution", ("uniform", "normal"), d["distribution"]),
         band_db=r.number("band_db", d["band_db"], minimum=0.0),
         qmc=r.boolean("qmc", d["qmc"]),
-        tolerance=MappingProxyType(tol),
+        tolerance=FrozenMap(tol),
     )
     r.done()
     return spec
