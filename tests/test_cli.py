@@ -180,3 +180,14 @@ def test_malformed_measurement_files_through_the_cli(write_job, cli, tmp_path, t
     assert len(err.strip().splitlines()) == 1, err
     assert err.startswith(f"xo-fit: error: {tmp_path / 'w.txt'}:{line}: "), err
     assert re.search(message, err), err
+
+
+def test_check_shows_the_targets(write_job, cli):
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2")
+    code, out, err = cli("check", write_job(text))
+    assert code == 0, err
+    assert "target   band 100 Hz to 15 kHz" in out
+    assert "woofer     lowpass LR2 at 2 kHz, normal polarity" in out
+    assert "tweeter    highpass LR2 at 2 kHz, inverted polarity" in out

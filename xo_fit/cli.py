@@ -110,6 +110,20 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
         if p.tolerance is not None:
             notes.append(f"tol {p.tolerance * 100:g}%")
         say(f"  {p.name:<10} {p.type:<6} {nodes:<14} {value:<11} {rng:<24} {', '.join(notes)}")
+    if j.target.ways:
+        from .targets import polarities
+
+        pol = polarities(j.target.ways)
+        band = j.target.band
+        say(f"target   band {format_value(band[0], 'Hz')} to {format_value(band[1], 'Hz')}" if band else
+            "target   band: the whole grid")
+        level = "auto" if j.target.level == "auto" else f"{j.target.level:g} dB SPL"
+        say(f"         level {level}, curve {j.target.curve}")
+        for w in j.target.ways:
+            where = (f"{format_value(w.fc_low, 'Hz')} to {format_value(w.fc_high, 'Hz')}" if w.type == "bandpass"
+                     else (f"at {format_value(w.fc, 'Hz')}" if w.fc else ""))
+            say(f"  {w.driver:<10} {w.type} {w.alignment}{w.order} {where}, "
+                f"{'inverted' if pol[w.driver] < 0 else 'normal'} polarity")
     free = [p.name for p in j.free_parts]
     say(f"free     {len(free)}: {', '.join(free) if free else '(none: every value is fixed)'}")
     nodes = sorted({n for p in j.parts for n in p.nodes}, key=lambda n: ({"in": 0, "0": 1}.get(n, 2), n))
