@@ -42,6 +42,8 @@ import numpy as np
 
 from .errors import XoFitError
 
+#: The population has converged when its costs agree to this relative spread (and its points to 1e-6).
+CONVERGED = 1e-12
 #: Share of the budget the polish may use at most.
 POLISH_SHARE = 0.15
 #: Forward-difference step of the polish in u (normalised log) space.
@@ -214,6 +216,9 @@ def _jade(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generato
             mu_cr = (1 - c) * mu_cr + c * float(np.mean(scr))
         pop = np.where(better[:, None], trial, pop)
         fit = np.where(better, tfit, fit)
+        if np.ptp(fit) <= CONVERGED * (abs(float(fit.min())) + CONVERGED) and np.ptp(pop, axis=0).max() < 1e-6:
+            obj.stopped_by = "converged"
+            raise _Stop
 
 
 def _scipy_de(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generator) -> None:
@@ -324,7 +329,7 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
         obj.stopped_by = f"optimizer failed: {type(e).__name__}: {e}"
     if polish and not interrupted and not failed and obj.stopped_by != "time limit":
         obj.budget = budget
-        obj.stopped_by = None
+        obj.stopped_by = None if obj.stopped_by != "converged" else "converged"
         try:
             _polish(obj, space.dims)
         except _Stop:
@@ -334,7 +339,7 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
             obj.stopped_by = "interrupted"
     if obj.best_u is None:
         raise XoFitError("the search evaluated no design (budget or time limit too small)")
-    complete = obj.stopped_by in (None, "budget")
+    complete = obj.stopped_by in (None, "budget", "converged")
     return SearchResult(u=obj.best_u, cost=obj.best_cost, evaluations=obj.evaluations,
                         seconds=time.monotonic() - t0, optimizer=name, seed=seed, complete=complete,
                         stopped_by=obj.stopped_by)
