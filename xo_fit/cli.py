@@ -284,6 +284,110 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         raise typer.Exit(1)
 
 
+# ----------------------------------------------------------------------------- snap
+
+
+def _series_option(text: str | None) -> dict | None:
+    """--series "E24" (every kind) or "L=E12,C=E24,R=E96"."""
+    if text is None:
+        return None
+    from .series import check_name
+
+    if "=" not in text:
+        name = check_name(text)
+        return {"R": name, "L": name, "C": name}
+    out = {}
+    for item in text.split(","):
+        kind, _, name = item.partition("=")
+        kind = kind.strip().upper()
+        if kind not in ("R", "L", "C") or not name.strip():
+            raise XoFitError(f"--series: expected a series name or KIND=NAME pairs such as L=E12,C=E24, got '{text}'")
+        out[kind] = check_name(name.strip())
+    return out
+
+
+@app.command()
+def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
+         out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv, parts.csv, plots."),
+         from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) whose values to snap."),
+         series: Optional[str] = typer.Option(None, "--series", help='A series for every kind ("E24"), or "L=E12,C=E24".'),
+         inventory: Optional[Path] = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value [, count]."),
+         combine: Optional[int] = typer.Option(None, "--combine", min=1, max=2,
+                                               help="2: allow two parts to make one value."),
+         no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
+         ) -> None:
+    """Move every part value to a purchasable one (a series or parts on hand) and re-score, searching the
+    combinations with the real cost."""
+    from .fit import cost_model, score, write_outputs
+    from .job import PART_UNIT
+    from .results import read_result, result_values, write_rows
+    from .snap import parts_table, read_inventory, run_snap
+    from .units import format_value
+
+    t0 = time.perf_counter()
+    system = _load(job)
+    j = system.job
+    overrides = None
+    if from_ is not None:
+        overrides = result_values(read_result(from_), system.part_names, from_)
+    continuous = system.values(overrides)
+    inv_path = inventory if inventory is not None else j.snap.inventory
+    inv = read_inventory(inv_path) if inv_path is not None else None
+    outcome = run_snap(system, continuous, series_override=_series_option(series), inventory=inv, combine=combine)
+    model = cost_model(system)
+    before = score(system, continuous, model)
+    after = score(system, outcome.values, model)
+    doc_parts_extra = {}
+    for sp in outcome.parts:
+        unit = PART_UNIT[sp.kind]
+        e = {"continuous": sp.continuous, "source": sp.source}
+        if sp.source == "inventory":
+            e["inventory"] = str(inv.path)
+        elif sp.source not in ("continuous", "fixed"):
+            e["series"] = sp.source
+        if sp.choice is not None and sp.choice.connection != "single":
+            e["combination"] = {"connection": sp.choice.connection,
+                                "parts": [{"value": v, "text": format_value(v, unit)} for v in sp.choice.pieces]}
+        doc_parts_extra[sp.name] = e
+    sr = outcome.search
+    extra = {"snap": {"continuous_cost": before.cost, "log_nearest_cost": sr.baseline_cost if sr else before.cost,
+                      "evaluations": sr.evaluations if sr else 0, "exhaustive": sr.exhaustive if sr else True,
+                      "seconds": round(outcome.seconds, 4), "continuous_metrics": before.metrics},
+             "source": {"job": str(j.path), "from": str(from_) if from_ else None,
+                        "inventory": str(inv.path) if inv else None}}
+    files = write_outputs(system, out, "snap", after, extra, title=f"{j.name}: snapped (grey: continuous)",
+                          plots=not no_plots, compare=("continuous", before))
+    # add the snap details to each part of result.json
+    import json
+
+    from .results import write_json
+
+    doc = json.loads((out / "result.json").read_text())
+    for name, e in doc_parts_extra.items():
+        doc["parts"][name].update(e)
+    write_json(out / "result.json", doc)
+    write_rows(out / "parts.csv", parts_table(outcome, j, dict(j.spread.tolerance)))
+    files.append(out / "parts.csv")
+    say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
+        f"{sr.evaluations if sr else 0} designs scored ({'exhaustive' if sr and sr.exhaustive else 'searched'}) "
+        f"in {outcome.seconds:.2f} s, {time.perf_counter() - t0:.2f} s in all")
+    say(f"  {'part':<8} {'continuous':>12} {'snapped':>22} {'change':>8}  source")
+    for sp in outcome.parts:
+        unit = PART_UNIT[sp.kind]
+        shown = sp.choice.describe(unit) if sp.choice is not None else format_value(sp.value, unit)
+        change = (sp.value / sp.continuous - 1) * 100
+        say(f"  {sp.name:<8} {format_value(sp.continuous, unit):>12} {shown:>22} {change:>+7.1f}%  {sp.source}")
+    if before.cost is not None:
+        say(f"  cost: continuous {before.cost:.4g}, log-nearest rounding {extra['snap']['log_nearest_cost']:.4g}, "
+            f"snapped {after.cost:.4g}")
+        for label, sc in (("continuous", before), ("snapped", after)):
+            m = sc.metrics
+            say(f"  {label:<10} rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB, "
+                f"phase {m['phase_mismatch_deg']:.1f} deg, |Z| min {m['impedance_min_ohm']:.2f} ohm")
+    _cautions(system, after)
+    say("wrote " + ", ".join(str(p) for p in files))
+
+
 # ----------------------------------------------------------------------------- demo
 
 

@@ -154,7 +154,7 @@ def target_db(s: Scored) -> np.ndarray | None:
 
 
 def write_outputs(system, out: Path, stage: str, s: Scored, extra: dict | None = None, *, title: str,
-                  plots: bool = True) -> list[Path]:
+                  plots: bool = True, compare: tuple[str, "Scored"] | None = None) -> list[Path]:
     """Write result.json, response.csv and (unless plots=False) response.png into ``out``."""
     from .report import plot_design
 
@@ -165,6 +165,6 @@ def write_outputs(system, out: Path, stage: str, s: Scored, extra: dict | None =
                                                    s.sim.impedance[0], target_db(s)))
     written = [out / "result.json", out / "response.csv"]
     if plots:
-        plot_design(out / "response.png", system, s, title=title)
+        plot_design(out / "response.png", system, s, title=title, compare=compare)
         written.append(out / "response.png")
     return written

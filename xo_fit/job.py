@@ -22,7 +22,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .errors import JobError, NetworkError
+from .errors import JobError, NetworkError, XoFitError
 from .network import check_topology
 from .units import UnitsError, parse_percent, parse_value, parse_wire
 
@@ -668,6 +668,13 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         except UnitsError as e:
             raise r.error("tolerance", e.message) from None
     series = r.text("series")
+    if series is not None:
+        from .series import check_name
+
+        try:
+            series = check_name(series)
+        except XoFitError as e:
+            raise r.error("series", e.message) from None
     if r.has("driver"):
         raise r.error("driver", "only a part of type driver names a driver")
     r.done()
@@ -818,6 +825,13 @@ def _snap(r: _Reader) -> SnapSpec:
                 series[k] = v
         else:
             raise r.error("series", f"expected a series name or a table {{L = \"E12\", ...}}, got {raw!r}")
+        from .series import check_name
+
+        for k, v in series.items():
+            try:
+                series[k] = check_name(v)
+            except XoFitError as e:
+                raise r.error("series", f"{k}: {e.message}") from None
     inventory = r.path("inventory") if r.has("inventory") else None
     combine = r.number("combine", d["combine"], integer=True, minimum=1, maximum=2)
     r.done()

@@ -17,8 +17,9 @@ from . import acoustics
 from .results import atomic_path
 
 
-def plot_design(path: str | Path, system, s, *, title: str) -> None:
-    """Write a PNG for a scored design (xo_fit.fit.Scored)."""
+def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | None = None) -> None:
+    """Write a PNG for a scored design (xo_fit.fit.Scored); ``compare`` = (label, other Scored) overlays
+    another design's sum, phase error and impedance in grey (continuous against snapped)."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -41,6 +42,11 @@ def plot_design(path: str | Path, system, s, *, title: str) -> None:
             ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.ways[i])), lw=0.9, ls="--", color=c,
                         label=f"{name} target")
     sum_db = acoustics.spl_db(total)
+    if compare is not None:
+        other = compare[1].sim
+        for i, p in enumerate(other.pressure[0]):
+            ax.semilogx(f, acoustics.spl_db(p), lw=0.9, color=colors[i % len(colors)], alpha=0.45)
+        ax.semilogx(f, acoustics.spl_db(other.total[0]), color="0.55", lw=1.6, label=f"sum, {compare[0]}")
     ax.semilogx(f, sum_db, color="k", lw=2.0, label="sum")
     if targets is not None:
         ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.system)), color="k", lw=1.0, ls="--",
@@ -72,6 +78,8 @@ def plot_design(path: str | Path, system, s, *, title: str) -> None:
     ax2 = axes[k]
     zmag = np.abs(z)
     floor = system.job.cost.impedance_min
+    if compare is not None:
+        ax2.semilogx(f, np.abs(compare[1].sim.impedance[0]), color="0.6", lw=1.2, label=f"|Z|, {compare[0]}")
     ax2.semilogx(f, zmag, color="tab:purple", lw=1.5, label="|Z|")
     if floor > 0:
         ax2.axhline(floor, color="tab:red", lw=1.0, ls="--", label=f"floor {floor:g} Ω")

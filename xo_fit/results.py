@@ -117,6 +117,16 @@ def write_csv(path: str | Path, table: Table) -> None:
     table.write(path)
 
 
+def write_rows(path: str | Path, rows: list[dict]) -> None:
+    """Write dict rows (the keys of the first row are the columns) as CSV, atomically."""
+    with atomic_path(path) as tmp:
+        with open(tmp, "w", newline="", encoding="utf-8") as fh:
+            w = csv.DictWriter(fh, fieldnames=list(rows[0]) if rows else [])
+            w.writeheader()
+            for row in rows:
+                w.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in row.items()})
+
+
 def read_result(path: str | Path) -> dict:
     """Read a result.json; raise DataError naming the file for anything malformed."""
     path = Path(path)
