@@ -166,6 +166,11 @@ def test_demo_end_to_end(tmp_path):
     assert fit["metrics"]["rms_error_db"] < 0.6 and fit["metrics"]["max_error_db"] < 1.5
     assert fit["cost"] < 0.1 * result["cost"]
     assert fit["metrics"]["impedance_min_ohm"] >= 3.2
+    # ... and the snap to E12/E24 keeps most of the gain
+    snapped = json.loads((tmp_path / "demo" / "snap" / "result.json").read_text())
+    assert snapped["stage"] == "snap" and snapped["cost"] <= snapped["snap"]["log_nearest_cost"]
+    assert snapped["metrics"]["max_error_db"] < 2.0
+    assert {p["series"] for p in snapped["parts"].values()} == {"E12", "E24"}
 
 
 from test_measure import test_malformed_lines as _cases  # noqa: E402

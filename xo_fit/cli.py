@@ -393,7 +393,8 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 
 @app.command()
 def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scenario and its results.")) -> None:
-    """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design, fit."""
+    """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design,
+    fit, and snap the fit to purchasable values."""
     from .demo import write_scenario
 
     job = write_scenario(out / "scenario")
@@ -402,6 +403,8 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     simulate(job=job, out=out / "hand-design", from_=None)
     say("fit:")
     fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, workers=1, no_plots=False)
+    say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
+    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, no_plots=False)
 
 
 # ----------------------------------------------------------------------------- entry point
