@@ -259,6 +259,11 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
              "source": {"job": str(j.path)}}
     if runs is not None:
         extra["search"]["restarts"] = runs
+    if j.search.robust_samples:
+        extra["search"]["robust"] = {"samples": j.search.robust_samples,
+                                     "solves": r.evaluations * j.search.robust_samples,
+                                     "note": "cost = mean over fixed tolerance draws; each evaluation solves "
+                                             "one design per draw"}
     files = write_outputs(system, out, "fit", outcome.scored, extra, title=f"{j.name}: fit",
                           plots=not no_plots)
     state = "" if r.complete else f" - INCOMPLETE ({r.stopped_by}): the best design so far"
@@ -388,6 +393,72 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say("wrote " + ", ".join(str(p) for p in files))
 
 
+# ----------------------------------------------------------------------------- spread
+
+
+@app.command()
+def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
+           out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, spread.csv and plots."),
+           from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
+           samples: Optional[int] = typer.Option(None, "--samples", min=1, help="Tolerance draws (default [spread] samples)."),
+           seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed (default [spread] seed)."),
+           no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
+           ) -> None:
+    """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
+    from .fit import score, write_outputs
+    from .results import Table, read_result, result_values, write_csv
+    from .spread import run_spread
+
+    t0 = time.perf_counter()
+    system = _load(job)
+    j = system.job
+    overrides = None
+    if from_ is not None:
+        overrides = result_values(read_result(from_), system.part_names, from_)
+    nominal = system.values(overrides)
+    r = run_spread(system, nominal, samples=samples, seed=seed)
+    s = score(system, nominal)
+    names = ["sum"] + [d.name for d in j.drivers]
+    cols = {"frequency_hz": system.frequencies}
+    for i, n in enumerate(names):
+        cols[f"{n}_p05_db"] = r.p05[i]
+        cols[f"{n}_p50_db"] = r.p50[i]
+        cols[f"{n}_p95_db"] = r.p95[i]
+    section = {
+        "samples": r.samples, "distribution": j.spread.distribution, "qmc": j.spread.qmc,
+        "seed": j.spread.seed if seed is None else seed,
+        "tolerances_pct": {n: float(t * 100) for n, t in zip(system.part_names, r.tolerances)},
+        "yield": {"within_band": r.yield_band, "meeting_limits": r.yield_limits, **r.limits},
+        "worst_draw": {"deviation_db": r.worst_deviation_db, "at_hz": r.worst_at_hz,
+                       "parts_pct": {n: float((x - 1) * 100) for n, x in zip(system.part_names, r.worst_factors)}},
+        "sensitivity": r.sensitivity,
+        "corners": r.corners,
+        "pair_matching": {"p50_db": r.pair_p50_db, "p95_db": r.pair_p95_db},
+    }
+    files = write_outputs(system, out, "spread", s, {"spread": section, "source": {"job": str(j.path),
+                          "from": str(from_) if from_ else None}}, title=f"{j.name}: tolerance spread", plots=False)
+    write_csv(out / "spread.csv", Table(cols))
+    files.append(out / "spread.csv")
+    if not no_plots:
+        from .report import plot_spread
+
+        plot_spread(out / "spread.png", system, s, r, title=f"{j.name}: p05-p95 over {r.samples} builds")
+        files.append(out / "spread.png")
+    say(f"spread {j.name}: {r.samples} builds ({j.spread.distribution}"
+        f"{', quasi-random' if j.spread.qmc else ''}) in {time.perf_counter() - t0:.2f} s")
+    say(f"  yield: {r.yield_band * 100:.1f} % within +-{r.limits['band_db']:g} dB of the nominal sum; "
+        f"{r.yield_limits * 100:.1f} % meet rms <= {r.limits['rms_error_db']:g} dB"
+        + (f" and |Z| >= {r.limits['impedance_min_ohm']:g} ohm" if r.limits["impedance_min_ohm"] > 0 else ""))
+    say(f"  worst build: {r.worst_deviation_db:.2f} dB off at {r.worst_at_hz:.0f} Hz; worst corner "
+        f"{r.corners['worst_deviation_db']:.2f} dB ({r.corners['method']})")
+    say(f"  left/right matching: largest difference p50 {r.pair_p50_db:.2f} dB, p95 {r.pair_p95_db:.2f} dB")
+    say("  most sensitive parts (dB per +1 %, worst over the band):")
+    for row in r.sensitivity[:5]:
+        say(f"    {row['part']:<8} {row['db_per_pct']:+.3f} dB/% at {row['worst_at_hz']:.0f} Hz "
+            f"(tolerance {row['tolerance_pct']:g} %)")
+    say("wrote " + ", ".join(str(p) for p in files))
+
+
 # ----------------------------------------------------------------------------- demo
 
 
@@ -405,6 +476,8 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, workers=1, no_plots=False)
     say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
     snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, no_plots=False)
+    say("tolerance spread of the snapped design:")
+    spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
 
 
 # ----------------------------------------------------------------------------- entry point

@@ -56,6 +56,21 @@ def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = 
                   metrics=metrics, targets=targets, level_db=level)
 
 
+def robust_factors(job) -> np.ndarray | None:
+    """The fixed tolerance draws (N, P) of a robust fit ([search] robust = { samples = N }), or None.
+
+    Drawn from the [spread] distribution and tolerances with a seed derived from [search] seed, so every
+    candidate is judged on the same builds; a robust fit costs N solves per candidate.
+    """
+    n = job.search.robust_samples
+    if not n:
+        return None
+    from .spread import draw_factors, part_tolerances
+
+    rng = np.random.default_rng(np.random.SeedSequence([job.search.seed, 0x5EED]))
+    return draw_factors(n, part_tolerances(job), job.spread.distribution, rng)
+
+
 @dataclass(frozen=True, eq=False)
 class FitOutcome:
     scored: Scored
@@ -77,9 +92,15 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
     cm, _ = model
     space = make_space(job)
     fused = FusedCost(cm)
+    robust = robust_factors(job)
 
     def fn(u: np.ndarray) -> np.ndarray:
-        return fused(space.values(u))
+        values = space.values(u)
+        if robust is None:
+            return fused(values)
+        # the mean cost over the same tolerance draws for every candidate: one batch of B x N designs
+        b, n = values.shape[0], robust.shape[0]
+        return fused((values[:, None, :] * robust[None, :, :]).reshape(b * n, -1)).reshape(b, n).mean(axis=1)
 
     start = float(fn(space.u0[None])[0]) if space.u0 is not None else None
     result = search(fn, space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,

@@ -40,7 +40,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1},
-    "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False,
+    "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False, "rms_limit_db": 1.0,
                "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
 })
 
@@ -239,6 +239,7 @@ class SpreadSpec:
     band_db: float = 1.0
     qmc: bool = False
     tolerance: Mapping[str, float] = field(default_factory=dict)
+    rms_limit_db: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -858,6 +859,7 @@ def _spread(r: _Reader) -> SpreadSpec:
         distribution=r.choice("distribution", ("uniform", "normal"), d["distribution"]),
         band_db=r.number("band_db", d["band_db"], minimum=0.0),
         qmc=r.boolean("qmc", d["qmc"]),
+        rms_limit_db=r.number("rms_limit_db", d["rms_limit_db"], minimum=0.0),
         tolerance=FrozenMap(tol),
     )
     r.done()

@@ -116,3 +116,32 @@ def _pairs(s) -> list:
         if near.any():
             out.append((a, b, near))
     return out
+
+
+def plot_spread(path: str | Path, system, s, r, *, title: str) -> None:
+    """Nominal summed and driver levels inside their p05-p95 bands over the tolerance draws."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    f = system.frequencies
+    names = ["sum"] + [d.name for d in system.job.drivers]
+    fig, ax = plt.subplots(1, 1, figsize=(9, 5.2))
+    colors = ["k"] + plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    for i, name in enumerate(names):
+        c = colors[i % len(colors)]
+        ax.fill_between(f, r.p05[i], r.p95[i], color=c, alpha=0.18 if i else 0.25, lw=0)
+        ax.semilogx(f, r.nominal_db[i], color=c, lw=2.0 if i == 0 else 1.2, label=f"{name} (nominal, p05-p95)")
+    top = float(np.nanmax(r.nominal_db[0]))
+    ax.set_ylim(top - 40, top + 6)
+    ax.set_xlim(f[0], f[-1])
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("SPL (dB)")
+    ax.set_title(title)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(loc="lower center", fontsize=8, ncol=3)
+    fig.subplots_adjust(left=0.08, right=0.97, top=0.93, bottom=0.1)
+    with atomic_path(path, suffix=".png") as tmp:
+        fig.savefig(tmp, dpi=100, format="png")
+    plt.close(fig)
