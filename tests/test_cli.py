@@ -171,6 +171,10 @@ def test_demo_end_to_end(tmp_path):
     assert snapped["stage"] == "snap" and snapped["cost"] <= snapped["snap"]["log_nearest_cost"]
     assert snapped["metrics"]["max_error_db"] < 2.0
     assert {p["series"] for p in snapped["parts"].values()} == {"E12", "E24"}
+    # ... and with 5 % parts nearly every build stays within a dB of it
+    spread = json.loads((tmp_path / "demo" / "spread" / "result.json").read_text())
+    assert spread["spread"]["yield"]["within_band"] > 0.9
+    assert (tmp_path / "demo" / "spread" / "spread.png").exists()
 
 
 from test_measure import test_malformed_lines as _cases  # noqa: E402
