@@ -237,35 +237,20 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
         ) -> None:
     """Search the free part values that best meet the job's acoustic target, then polish locally."""
-    from .fit import run_fit, run_fit_restarts, write_outputs
+    from .stages import fit_stage
 
     t0 = time.perf_counter()
     system = _load(job)
     j = system.job
-    runs = None
-    if workers > 1:
-        outcome, runs = run_fit_restarts(system, workers, optimizer=optimizer, budget=budget, seed=seed,
-                                         time_limit=time_limit)
-    else:
-        progress = _Progress(f"fit {j.name}")
-        try:
-            outcome = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
-                              progress=progress)
-        finally:
+    progress = _Progress(f"fit {j.name}") if workers == 1 else None
+    try:
+        st = fit_stage(system, out, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
+                       workers=workers, plots=not no_plots, progress=progress)
+    finally:
+        if progress is not None:
             progress.close()
+    outcome, runs, files = st.info["outcome"], st.info["runs"], st.files
     r = outcome.search
-    extra = {"search": {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
-                        "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by},
-             "source": {"job": str(j.path)}}
-    if runs is not None:
-        extra["search"]["restarts"] = runs
-    if j.search.robust_samples:
-        extra["search"]["robust"] = {"samples": j.search.robust_samples,
-                                     "solves": r.evaluations * j.search.robust_samples,
-                                     "note": "cost = mean over fixed tolerance draws; each evaluation solves "
-                                             "one design per draw"}
-    files = write_outputs(system, out, "fit", outcome.scored, extra, title=f"{j.name}: fit",
-                          plots=not no_plots)
     state = "" if r.complete else f" - INCOMPLETE ({r.stopped_by}): the best design so far"
     say(f"fit {j.name}: {r.evaluations} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
         f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
@@ -323,10 +308,10 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          ) -> None:
     """Move every part value to a purchasable one (a series or parts on hand) and re-score, searching the
     combinations with the real cost."""
-    from .fit import cost_model, score, write_outputs
     from .job import PART_UNIT
-    from .results import read_result, result_values, write_rows
-    from .snap import parts_table, read_inventory, run_snap
+    from .results import read_result, result_values
+    from .snap import read_inventory
+    from .stages import snap_stage
     from .units import format_value
 
     t0 = time.perf_counter()
@@ -338,41 +323,11 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     continuous = system.values(overrides)
     inv_path = inventory if inventory is not None else j.snap.inventory
     inv = read_inventory(inv_path) if inv_path is not None else None
-    outcome = run_snap(system, continuous, series_override=_series_option(series), inventory=inv, combine=combine)
-    model = cost_model(system)
-    before = score(system, continuous, model)
-    after = score(system, outcome.values, model)
-    doc_parts_extra = {}
-    for sp in outcome.parts:
-        unit = PART_UNIT[sp.kind]
-        e = {"continuous": sp.continuous, "source": sp.source}
-        if sp.source == "inventory":
-            e["inventory"] = str(inv.path)
-        elif sp.source not in ("continuous", "fixed"):
-            e["series"] = sp.source
-        if sp.choice is not None and sp.choice.connection != "single":
-            e["combination"] = {"connection": sp.choice.connection,
-                                "parts": [{"value": v, "text": format_value(v, unit)} for v in sp.choice.pieces]}
-        doc_parts_extra[sp.name] = e
+    st = snap_stage(system, out, continuous, series_override=_series_option(series), inventory=inv, combine=combine,
+                    plots=not no_plots, source_from=str(from_) if from_ else None)
+    outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
     sr = outcome.search
-    extra = {"snap": {"continuous_cost": before.cost, "log_nearest_cost": sr.baseline_cost if sr else before.cost,
-                      "evaluations": sr.evaluations if sr else 0, "exhaustive": sr.exhaustive if sr else True,
-                      "seconds": round(outcome.seconds, 4), "continuous_metrics": before.metrics},
-             "source": {"job": str(j.path), "from": str(from_) if from_ else None,
-                        "inventory": str(inv.path) if inv else None}}
-    files = write_outputs(system, out, "snap", after, extra, title=f"{j.name}: snapped (grey: continuous)",
-                          plots=not no_plots, compare=("continuous", before))
-    # add the snap details to each part of result.json
-    import json
-
-    from .results import write_json
-
-    doc = json.loads((out / "result.json").read_text())
-    for name, e in doc_parts_extra.items():
-        doc["parts"][name].update(e)
-    write_json(out / "result.json", doc)
-    write_rows(out / "parts.csv", parts_table(outcome, j, dict(j.spread.tolerance)))
-    files.append(out / "parts.csv")
+    extra = {"snap": st.document["snap"]}
     say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
         f"{sr.evaluations if sr else 0} designs scored ({'exhaustive' if sr and sr.exhaustive else 'searched'}) "
         f"in {outcome.seconds:.2f} s, {time.perf_counter() - t0:.2f} s in all")
@@ -405,9 +360,8 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
-    from .fit import score, write_outputs
-    from .results import Table, read_result, result_values, write_csv
-    from .spread import run_spread
+    from .results import read_result, result_values
+    from .stages import spread_stage
 
     t0 = time.perf_counter()
     system = _load(job)
@@ -416,34 +370,9 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     if from_ is not None:
         overrides = result_values(read_result(from_), system.part_names, from_)
     nominal = system.values(overrides)
-    r = run_spread(system, nominal, samples=samples, seed=seed)
-    s = score(system, nominal)
-    names = ["sum"] + [d.name for d in j.drivers]
-    cols = {"frequency_hz": system.frequencies}
-    for i, n in enumerate(names):
-        cols[f"{n}_p05_db"] = r.p05[i]
-        cols[f"{n}_p50_db"] = r.p50[i]
-        cols[f"{n}_p95_db"] = r.p95[i]
-    section = {
-        "samples": r.samples, "distribution": j.spread.distribution, "qmc": j.spread.qmc,
-        "seed": j.spread.seed if seed is None else seed,
-        "tolerances_pct": {n: float(t * 100) for n, t in zip(system.part_names, r.tolerances)},
-        "yield": {"within_band": r.yield_band, "meeting_limits": r.yield_limits, **r.limits},
-        "worst_draw": {"deviation_db": r.worst_deviation_db, "at_hz": r.worst_at_hz,
-                       "parts_pct": {n: float((x - 1) * 100) for n, x in zip(system.part_names, r.worst_factors)}},
-        "sensitivity": r.sensitivity,
-        "corners": r.corners,
-        "pair_matching": {"p50_db": r.pair_p50_db, "p95_db": r.pair_p95_db},
-    }
-    files = write_outputs(system, out, "spread", s, {"spread": section, "source": {"job": str(j.path),
-                          "from": str(from_) if from_ else None}}, title=f"{j.name}: tolerance spread", plots=False)
-    write_csv(out / "spread.csv", Table(cols))
-    files.append(out / "spread.csv")
-    if not no_plots:
-        from .report import plot_spread
-
-        plot_spread(out / "spread.png", system, s, r, title=f"{j.name}: p05-p95 over {r.samples} builds")
-        files.append(out / "spread.png")
+    st = spread_stage(system, out, nominal, samples=samples, seed=seed, plots=not no_plots,
+                      source_from=str(from_) if from_ else None)
+    r, files = st.info["result"], st.files
     say(f"spread {j.name}: {r.samples} builds ({j.spread.distribution}"
         f"{', quasi-random' if j.spread.qmc else ''}) in {time.perf_counter() - t0:.2f} s")
     say(f"  yield: {r.yield_band * 100:.1f} % within +-{r.limits['band_db']:g} dB of the nominal sum; "

@@ -459,6 +459,79 @@ def load_job(path: str | Path) -> Job:
     JobError
         For anything wrong with the file, naming the file, line and key.
     """
+    data, ctx = _read(path)
+    if "sweep" in data:
+        raise JobError("this job has a [sweep] of variants: run it with 'xo-fit batch' (the other commands take "
+                       "one design)", path=ctx.path, line=ctx.lines.find(("sweep",)), key="[sweep]")
+    return _build(data, ctx)
+
+
+def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
+    """A job file as the list of jobs it stands for: itself, or one per variant of its [sweep].
+
+    [sweep] maps dotted paths to lists of values; every combination of the lists
+    is a variant (a cartesian product). A path names a key in the job's tables
+    (``"target.way.woofer.fc"``, ``"search.seed"``) or in a part by its name
+    (``"part.L1.max"``); a key holding several comma-separated paths sets all of
+    them to each value together (``"target.way.woofer.fc, target.way.tweeter.fc"``).
+    Variants are named ``<name>-<key><value>-...`` after the last segment of
+    each path. Returns (job, its resolved document) pairs; the document feeds
+    the batch store's hash.
+    """
+    import copy
+    import itertools
+
+    data, ctx = _read(path)
+    base_name = data.get("name", ctx.path.stem) if isinstance(data.get("name"), str) else ctx.path.stem
+    sweep = data.pop("sweep", None)
+    if sweep is None:
+        return [(_build(data, ctx), data)]
+    if not isinstance(sweep, dict) or not sweep:
+        raise ctx.error(("sweep",), None, "expected a table of dotted paths to lists of values", "[sweep]")
+    axes = []
+    for key, values in sweep.items():
+        if not isinstance(values, list) or not values:
+            raise ctx.error(("sweep",), key, f"expected a non-empty list of values, got {values!r}", f"[sweep] {key}")
+        paths = [p.strip() for p in key.split(",") if p.strip()]
+        axes.append((key, paths, values))
+    out = []
+    for combo in itertools.product(*[a[2] for a in axes]):
+        variant = copy.deepcopy(data)
+        label = []
+        for (key, paths, _), value in zip(axes, combo):
+            for p in paths:
+                _assign(variant, p, value, ctx, key)
+            label.append(f"{paths[0].split('.')[-1]}{value}")
+        variant["name"] = f"{base_name}-" + "-".join(label)
+        out.append((_build(variant, ctx), variant))
+    return out
+
+
+def _assign(data: dict, path: str, value: Any, ctx: "_Context", key: str) -> None:
+    segs = path.split(".")
+    node: Any = data
+    for i, seg in enumerate(segs[:-1]):
+        if seg == "part" and isinstance(node, dict) and isinstance(node.get("part"), list) and i + 1 < len(segs) - 1:
+            parts = node["part"]
+            name = segs[i + 1]
+            match = [p for p in parts if isinstance(p, dict) and p.get("name") == name]
+            if not match:
+                raise ctx.error(("sweep",), key, f"no part named '{name}' for the path '{path}'", f"[sweep] {key}")
+            node = match[0]
+            rest = segs[i + 2:]
+            for r in rest[:-1]:
+                node = node.setdefault(r, {})
+            node[rest[-1]] = value
+            return
+        if not isinstance(node, dict):
+            raise ctx.error(("sweep",), key, f"the path '{path}' runs into a value at '{seg}'", f"[sweep] {key}")
+        node = node.setdefault(seg, {})
+    if not isinstance(node, dict):
+        raise ctx.error(("sweep",), key, f"the path '{path}' runs into a value", f"[sweep] {key}")
+    node[segs[-1]] = value
+
+
+def _read(path: str | Path) -> tuple[dict, "_Context"]:
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
@@ -475,7 +548,7 @@ def load_job(path: str | Path) -> Job:
         msg = re.sub(r"\s*\(at line \d+, column \d+\)", "", msg)
         raise JobError(f"invalid TOML: {msg}", path=path, line=line) from None
     ctx = _Context(path=path.resolve(), folder=path.resolve().parent, lines=_Lines(text))
-    return _build(data, ctx)
+    return data, ctx
 
 
 def _build(data: dict, ctx: _Context) -> Job:
