@@ -388,6 +388,67 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say("wrote " + ", ".join(str(p) for p in files))
 
 
+# ----------------------------------------------------------------------------- batch
+
+
+def _print_summary(rows: list[dict]) -> None:
+    say(f"  {'job':<36} {'status':<8} {'stage':<7} {'cost':>9} {'rms dB':>7} {'worst dB':>8} {'|Z| min':>8}")
+    for r in rows:
+        def num(x, fmt):
+            return format(x, fmt) if isinstance(x, (int, float)) else "-"
+
+        say(f"  {r['job'][:36]:<36} {r['status']:<8} {r['stage'] or '-':<7} {num(r['cost'], '9.4g'):>9} "
+            f"{num(r['rms_error_db'], '7.2f'):>7} {num(r['max_error_db'], '8.2f'):>8} "
+            f"{num(r['impedance_min_ohm'], '8.2f'):>8}" + (f"  {r['error'][:60]}" if r["error"] else ""))
+
+
+@app.command()
+def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or globs (quote globs)."),
+          out: Optional[Path] = typer.Option(None, "--out", "-o", help="Folder for results.sqlite and one folder per job."),
+          stages: str = typer.Option("fit,snap,spread", "--stages", help="Comma-separated: fit, snap, spread."),
+          workers: Optional[int] = typer.Option(None, "--workers", min=1, help="Local worker processes (default: cores)."),
+          scheduler: Optional[str] = typer.Option(None, "--scheduler", help="A running Dask scheduler, tcp://HOST:PORT."),
+          summary: Optional[Path] = typer.Option(None, "--summary", help="Only print (and rewrite) the summary of DIR."),
+          no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNGs."),
+          ) -> None:
+    """Run many jobs unattended and resumably: results.sqlite, one folder per job, summary.csv."""
+    from .batch import run_batch, write_summary
+
+    if summary is not None:
+        if not (summary / "results.sqlite").exists():
+            raise XoFitError("no results.sqlite here: not a batch folder", path=summary)
+        rows = write_summary(summary)
+        say(f"batch {summary}: {len(rows)} jobs, sorted by cost (also in {summary / 'summary.csv'})")
+        _print_summary(rows)
+        return
+    if not jobs or out is None:
+        raise XoFitError("give job files and --out DIR (or --summary DIR)", key="batch")
+    stage_list = [x.strip() for x in stages.split(",") if x.strip()]
+    label = "batch"
+    enabled = sys.stderr.isatty() and not OUT.quiet
+
+    def progress(done: int, failed: int, running: int, total: int, t0: float) -> None:
+        if not enabled:
+            return
+        finished = done + failed
+        elapsed = time.time() - t0
+        eta = elapsed / finished * (total - finished) if finished else float("nan")
+        sys.stderr.write(f"\r{label}: {done} done, {failed} failed, {running} running of {total}"
+                         + (f", about {eta:.0f} s left " if finished else " "))
+        sys.stderr.flush()
+
+    t0 = time.perf_counter()
+    rep = run_batch(jobs, out, stage_list, workers=workers, scheduler=scheduler, plots=not no_plots,
+                    progress=progress)
+    if enabled:
+        sys.stderr.write("\n")
+    say(f"batch {out}: {rep.total} jobs; {rep.skipped} already done, {rep.done} run now, {rep.failed} failed; "
+        f"{time.perf_counter() - t0:.1f} s")
+    _print_summary(rep.summary)
+    if rep.failed:
+        raise typer.Exit(1)
+
+
 # ----------------------------------------------------------------------------- demo
 
 

@@ -1,0 +1,151 @@
+"""Overnight batches: resume after kill -9, reruns of changed jobs, a refused second batch, Dask = local pool."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+from conftest import ladder_job
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def make_jobs(folder: Path, n: int = 4, budget: int = 1500) -> list[Path]:
+    paths = []
+    for i in range(n):
+        text, _ = ladder_job("LR2", start=1.5 + 0.1 * i, spread=4.0)
+        text = f'name = "job{i}"\n' + text + f"\n[search]\nbudget = {budget}\nseed = {i + 1}\n[spread]\nsamples = 300\n"
+        p = folder / f"job{i}.toml"
+        p.write_text(text)
+        paths.append(p)
+    return paths
+
+
+def rows(out: Path) -> dict:
+    with sqlite3.connect(out / "results.sqlite") as db:
+        return {(r[0], r[1]): r[2:] for r in db.execute("SELECT job, stage, status, finished, hash, error FROM runs")}
+
+
+def cli(*args, timeout=300):
+    return subprocess.run([sys.executable, "-m", "xo_fit", *map(str, args)], capture_output=True, text=True,
+                          timeout=timeout)
+
+
+def test_batch_runs_sweeps_and_resumes_without_redoing(tmp_path):
+    make_jobs(tmp_path, 2)
+    text = (tmp_path / "job0.toml").read_text().replace('name = "job0"', 'name = "swept"')
+    (tmp_path / "swept.toml").write_text(text.replace("[search]", '[sweep]\n"search.seed" = [3, 4]\n[search]', 1))
+    out = tmp_path / "out"
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--workers", "2", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    first = rows(out)
+    assert {job for job, _ in first} == {"job0", "job1", "swept-seed3", "swept-seed4"}
+    assert all(v[0] == "done" for v in first.values()) and len(first) == 12
+    mtime = (out / "job0" / "snap" / "result.json").stat().st_mtime_ns
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--no-plots")
+    assert r.returncode == 0 and "4 already done, 0 run now" in r.stdout
+    assert rows(out) == first and (out / "job0" / "snap" / "result.json").stat().st_mtime_ns == mtime
+    summary = (out / "summary.csv").read_text().splitlines()
+    assert summary[0].startswith("job,status,stage,cost") and len(summary) == 5
+
+
+def test_kill_minus_nine_then_resume(tmp_path):
+    """kill -9 in the middle of a batch, run it again: every job done once, none lost, none redone."""
+    make_jobs(tmp_path, 6, budget=4000)
+    out = tmp_path / "out"
+    proc = subprocess.Popen([sys.executable, "-m", "xo_fit", "batch", str(tmp_path / "*.toml"), "--out", str(out),
+                             "--workers", "1", "--stages", "fit", "--no-plots"], start_new_session=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    deadline = time.time() + 120
+    done_before = {}
+    while time.time() < deadline:
+        if (out / "results.sqlite").exists():
+            try:
+                done_before = {k: v for k, v in rows(out).items() if v[0] == "done"}
+            except sqlite3.Error:
+                done_before = {}
+            if len(done_before) >= 2:
+                break
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait()
+    assert 2 <= len(done_before) < 6, done_before
+    mtimes = {job: (out / job / "fit" / "result.json").stat().st_mtime_ns for job, _ in done_before}
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--workers", "1", "--stages", "fit", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    after = rows(out)
+    assert all(v[0] == "done" for v in after.values()) and len(after) == 6
+    for key, v in done_before.items():
+        assert after[key] == v  # same finish time: not redone
+    for job, m in mtimes.items():
+        assert (out / job / "fit" / "result.json").stat().st_mtime_ns == m
+    for i in range(6):
+        assert json.loads((out / f"job{i}" / "fit" / "result.json").read_text())["stage"] == "fit"
+
+
+def test_changed_job_reruns_broken_job_fails_alone_and_a_second_batch_is_refused(tmp_path):
+    make_jobs(tmp_path, 2)
+    (tmp_path / "broken.toml").write_text((tmp_path / "job0.toml").read_text()
+                                           .replace('name = "job0"', 'name = "broken"')
+                                           .replace("response = 90", 'response = "missing.txt"', 1))
+    out = tmp_path / "out"
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--stages", "fit", "--no-plots")
+    assert r.returncode == 1  # one job failed ...
+    first = rows(out)
+    assert first[("broken", "fit")][0] == "failed" and "missing.txt" in first[("broken", "fit")][3]
+    assert first[("job0", "fit")][0] == "done" and first[("job1", "fit")][0] == "done"  # ... alone
+    # change job1: it reruns, job0 does not
+    p = tmp_path / "job1.toml"
+    p.write_text(p.read_text().replace("budget = 1500", "budget = 1600"))
+    (tmp_path / "broken.toml").unlink()
+    r = cli("batch", tmp_path / "job*.toml", "--out", out, "--stages", "fit", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    second = rows(out)
+    assert second[("job0", "fit")] == first[("job0", "fit")]
+    assert second[("job1", "fit")][1] > first[("job1", "fit")][1] and second[("job1", "fit")][2] != first[("job1", "fit")][2]
+    # a second batch while one holds the folder
+    import fcntl
+
+    with open(out / ".lock", "a+") as fh:
+        fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        r = cli("batch", tmp_path / "job*.toml", "--out", out, "--no-plots")
+    assert r.returncode == 2 and "another batch is running on this folder" in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+
+
+def test_unreachable_scheduler_is_bad_input(tmp_path):
+    pytest.importorskip("distributed")
+    make_jobs(tmp_path, 1)
+    r = cli("batch", tmp_path / "job0.toml", "--out", tmp_path / "o", "--scheduler", "tcp://127.0.0.1:9",
+            "--no-plots", timeout=120)
+    assert r.returncode == 2 and "cannot reach the Dask scheduler" in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+
+
+def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
+    distributed = pytest.importorskip("distributed")
+    make_jobs(tmp_path, 3)
+    local = tmp_path / "local"
+    r = cli("batch", tmp_path / "job*.toml", "--out", local, "--workers", "2", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                       dashboard_address=None)
+    try:
+        r = cli("batch", tmp_path / "job*.toml", "--out", tmp_path / "dask", "--scheduler", cluster.scheduler_address,
+                "--no-plots")
+        assert r.returncode == 0, r.stderr
+    finally:
+        cluster.close()
+    for i in range(3):
+        for stage in ("fit", "snap", "spread"):
+            a = json.loads((local / f"job{i}" / stage / "result.json").read_text())
+            b = json.loads((tmp_path / "dask" / f"job{i}" / stage / "result.json").read_text())
+            assert a["parts"] == b["parts"] and a["cost"] == b["cost"], (i, stage)
