@@ -449,6 +449,42 @@ def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or gl
         raise typer.Exit(1)
 
 
+# ----------------------------------------------------------------------------- report and export
+
+
+@app.command()
+def report(results: list[Path] = typer.Argument(..., help="result.json files (or their folders); overlaid."),
+           out: Path = typer.Option(..., "--out", "-o", help="Folder for report.html and its PNGs.")) -> None:
+    """A self-contained HTML page: curves against the targets, phase, group delay, impedance, metrics, part list with
+    stresses, cautions."""
+    from .report import write_report
+
+    t0 = time.perf_counter()
+    page = write_report(list(results), out)
+    say(f"report of {len(results)} result(s) in {time.perf_counter() - t0:.2f} s: {page}")
+
+
+@app.command()
+def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
+           spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
+    """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
+    from .job import load_job
+    from .results import read_result, result_values
+    from .spice import export as write_spice
+    from .system import load_system
+
+    doc = read_result(result)
+    src = (doc.get("source") or {}).get("job")
+    if not src:
+        raise XoFitError("the result does not name its job (source.job)", path=result)
+    system = load_system(load_job(src))
+    values = system.values(result_values(doc, system.part_names, result))
+    path = write_spice(system, values, spice, f"{system.job.name} ({doc.get('stage', 'result')})")
+    measured = [d.name for d in system.job.drivers if d.impedance.__class__.__name__ == "FileCurve"]
+    say(f"wrote {path}" + (f"; measured drivers {', '.join(measured)} are placeholder subcircuits: replace them with "
+                           "models of your own" if measured else ""))
+
+
 # ----------------------------------------------------------------------------- demo
 
 
@@ -468,6 +504,10 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, no_plots=False)
     say("tolerance spread of the snapped design:")
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
+    from .report import write_report
+
+    page = write_report([out / "fit", out / "snap", out / "spread"], out / "report")
+    say(f"report: {page.resolve()}")
 
 
 # ----------------------------------------------------------------------------- entry point

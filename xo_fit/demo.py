@@ -238,6 +238,7 @@ nodes = ["t2", "t3"]
 value = "1.8"
 min = "0.1"
 max = "10"
+rating = "10W"
 
 [[part]]
 name = "R2"
@@ -272,6 +273,10 @@ fc = 2200
 
 [cost]
 impedance_min = 3.2
+
+[stress]
+power = 60                       # W into the rated impedance
+rated_impedance = 4
 """
 
 

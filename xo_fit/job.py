@@ -40,6 +40,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1},
+    "stress": {"power": None, "rated_impedance": None},
     "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False, "rms_limit_db": 1.0,
                "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
 })
@@ -172,6 +173,7 @@ class PartSpec:
     tolerance: float | None = None
     driver: str | None = None
     series: str | None = None
+    rating: float | None = None  # W for R, V for C, A for L (what the bought part is rated for)
 
     @property
     def free(self) -> bool:
@@ -243,6 +245,14 @@ class SpreadSpec:
 
 
 @dataclass(frozen=True)
+class StressSpec:
+    """Drive level for the stress figures: ``power`` W into ``rated_impedance`` ohm (both None: no stresses)."""
+
+    power: float | None = None
+    rated_impedance: float | None = None
+
+
+@dataclass(frozen=True)
 class Job:
     """A validated job. Every value is SI; every path is absolute."""
 
@@ -259,6 +269,7 @@ class Job:
     search: SearchSpec
     snap: SnapSpec
     spread: SpreadSpec
+    stress: StressSpec = StressSpec()
 
     def driver(self, name: str) -> DriverSpec:
         for d in self.drivers:
@@ -586,10 +597,22 @@ def _build(data: dict, ctx: _Context) -> Job:
     search = _search(top.sub("search", "[search]"))
     snap = _snap(top.sub("snap", "[snap]"))
     spread = _spread(top.sub("spread", "[spread]"))
+    stress = _stress(top.sub("stress", "[stress]"))
     top.done()
     return Job(name=name, path=ctx.path, grid=grid, source_voltage=voltage, source_resistance=resistance,
                speed_of_sound=c, drivers=tuple(drivers), parts=parts, target=target, cost=cost,
-               search=search, snap=snap, spread=spread)
+               search=search, snap=snap, spread=spread, stress=stress)
+
+
+def _stress(r: _Reader) -> StressSpec:
+    d = DEFAULTS["stress"]
+    power = r.value("power", "W", d["power"])
+    rated = r.value("rated_impedance", "ohm", d["rated_impedance"])
+    if (power is None) != (rated is None):
+        raise r.error("rated_impedance" if rated is None else "power",
+                      "give both power (W) and rated_impedance (ohm): power is quoted into the rated impedance")
+    r.done()
+    return StressSpec(power=power, rated_impedance=rated)
 
 
 def _grid(r: _Reader) -> Grid:
@@ -694,7 +717,7 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         drv = r.text("driver", required=True)
         if drv not in driver_names:
             raise r.error("driver", f"unknown driver '{drv}'; defined drivers: {', '.join(sorted(driver_names))}")
-        for key in ("value", "min", "max", "dcr", "esr", "tolerance", "series", "fixed"):
+        for key in ("value", "min", "max", "dcr", "esr", "tolerance", "series", "fixed", "rating"):
             if r.has(key):
                 raise r.error(key, "a driver part takes only name, type, nodes and driver")
         r.done()
@@ -741,6 +764,9 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
             tol = parse_percent(r.raw("tolerance"))
         except UnitsError as e:
             raise r.error("tolerance", e.message) from None
+    rating = None
+    if r.has("rating"):
+        rating = r.value("rating", {"R": "W", "C": "V", "L": "A"}[ptype])
     series = r.text("series")
     if series is not None:
         from .series import check_name
@@ -753,7 +779,7 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         raise r.error("driver", "only a part of type driver names a driver")
     r.done()
     return PartSpec(name=name, type=ptype, nodes=nodes_t, value=value, min=lo, max=hi, fixed=fixed,
-                    dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series)
+                    dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series, rating=rating)
 
 
 def _is_length(text: str) -> bool:

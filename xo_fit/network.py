@@ -993,3 +993,47 @@ def load_kernel(source: str, entry: str = "kernel"):
     spec.loader.exec_module(module)
     _LOADED[digest] = getattr(module, entry)
     return _LOADED[digest]
+
+
+def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Voltage across and current through every branch of one design, from the dense solve.
+
+    values: (P,) SI. Returns (voltage, current), complex (len(branches), F), for the source at
+    ``net.source_voltage``; a branch's voltage is V(a) - V(b) and its current flows a -> b through it.
+    """
+    v = net._check_values(values)[:1]
+    f_index = np.arange(net.frequencies.size)
+    vals = np.repeat(v, f_index.size, axis=0)
+    nodes = net.unknown_nodes
+    idx = {n: i for i, n in enumerate(nodes)}
+    y = branch_admittances(net, vals, f_index)  # (F, branches)
+    m, n = f_index.size, len(nodes)
+    mat = np.zeros((m, n, n), dtype=complex)
+    rhs = np.zeros((m, n), dtype=complex)
+    vs = net.source_voltage
+    fixed = {GROUND_NODE: 0.0}
+    if net.source_resistance == 0.0:
+        fixed[SOURCE_NODE] = vs
+    else:
+        mat[:, idx[SOURCE_NODE], idx[SOURCE_NODE]] += 1.0 / net.source_resistance
+        rhs[:, idx[SOURCE_NODE]] += vs / net.source_resistance
+    for j, br in enumerate(net.branches):
+        ia, ib = idx.get(br.a), idx.get(br.b)
+        if ia is not None:
+            mat[:, ia, ia] += y[:, j]
+        if ib is not None:
+            mat[:, ib, ib] += y[:, j]
+        if ia is not None and ib is not None:
+            mat[:, ia, ib] -= y[:, j]
+            mat[:, ib, ia] -= y[:, j]
+        if ia is not None and br.b in fixed:
+            rhs[:, ia] += y[:, j] * fixed[br.b]
+        if ib is not None and br.a in fixed:
+            rhs[:, ib] += y[:, j] * fixed[br.a]
+    x = np.linalg.solve(mat, rhs[..., None])[..., 0] if n else np.zeros((m, 0), dtype=complex)
+
+    def volt(node: str) -> np.ndarray:
+        return np.full(m, fixed[node], dtype=complex) if node in fixed else x[:, idx[node]]
+
+    volts = np.stack([volt(br.a) - volt(br.b) for br in net.branches])
+    return volts, volts * y.T

@@ -145,3 +145,255 @@ def plot_spread(path: str | Path, system, s, r, *, title: str) -> None:
     with atomic_path(path, suffix=".png") as tmp:
         fig.savefig(tmp, dpi=100, format="png")
     plt.close(fig)
+
+
+# ----------------------------------------------------------------------------- the HTML report
+
+
+def _png(fig) -> bytes:
+    import io
+
+    buf = io.BytesIO()
+    fig.savefig(buf, dpi=100, format="png")
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def _load_result(path: Path, systems: dict):
+    """(label, document, system, values, spread curves or None) of one result.json."""
+    import json
+
+    from .errors import DataError
+    from .job import load_job
+    from .results import read_result, result_values
+    from .system import load_system
+
+    doc = read_result(path)
+    folder = path if path.is_dir() else path.parent
+    src = (doc.get("source") or {}).get("job")
+    if not src:
+        raise DataError("the result does not name its job (source.job); make it with xo-fit", path=path)
+    if src not in systems:
+        systems[src] = load_system(load_job(src))
+    system = systems[src]
+    vals = result_values(doc, system.part_names, path)
+    values = system.values(vals)
+    spread = None
+    if doc.get("stage") == "spread" and (folder / "spread.csv").exists():
+        import csv
+
+        with open(folder / "spread.csv", newline="", encoding="utf-8") as fh:
+            rows = list(csv.DictReader(fh))
+        spread = {k: np.array([float(r[k]) for r in rows]) for k in rows[0]}
+    label = f"{doc.get('stage', 'result')} ({folder.name})"
+    return label, doc, system, values, spread
+
+
+def write_report(results: list, out: Path) -> Path:
+    """report.html (self-contained: images inline) and its PNGs for one or more result.json files."""
+    import base64
+    import html
+
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from .cautions import design_cautions, load_cautions
+    from .fit import score
+    from .stress import epdr, stresses
+    from .units import format_value
+
+    systems: dict = {}
+    loaded = [_load_result(Path(p), systems) for p in results]
+    base_system = loaded[0][2]
+    f = base_system.frequencies
+    names = [d.name for d in base_system.job.drivers]
+    scored = [score(sys_, v) for _, _, sys_, v, _ in loaded]
+    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    shades = ["k", "0.45", "tab:brown", "tab:olive"]
+    figs: dict[str, bytes] = {}
+
+    # 1. summed response against the target (with the tolerance band of a spread result)
+    fig, ax = plt.subplots(figsize=(9, 4.2))
+    for k, ((label, doc, _, _, spread), s) in enumerate(zip(loaded, scored)):
+        c = shades[k % len(shades)]
+        if spread is not None:
+            ax.fill_between(f, spread["sum_p05_db"], spread["sum_p95_db"], color=c, alpha=0.18, lw=0,
+                            label=f"p05-p95, {label}")
+        ax.semilogx(f, spl_db_of(s.sim.total[0]), color=c, lw=2.0 if k == 0 else 1.4, label=f"sum, {label}")
+    if scored[0].targets is not None:
+        ax.semilogx(f, scored[0].level_db + 20 * np.log10(np.abs(scored[0].targets.system)), "k--", lw=1.0,
+                    label="target")
+    _finish(ax, "SPL (dB)", "Summed response against the target", f, top=float(np.max(spl_db_of(scored[0].sim.total[0]))))
+    figs["sum"] = _png(fig)
+
+    # 2. each way against its way target
+    fig, ax = plt.subplots(figsize=(9, 4.2))
+    for k, s in enumerate(scored):
+        for i, n in enumerate(names):
+            ax.semilogx(f, spl_db_of(s.sim.pressure[0, i]), color=colors[i % len(colors)], lw=1.4 if k == 0 else 0.9,
+                        alpha=1.0 if k == 0 else 0.5, label=f"{n}, {loaded[k][0]}")
+            if k == 0 and s.targets is not None and s.targets.has_way[i]:
+                ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(s.targets.ways[i])), color=colors[i % len(colors)],
+                            ls="--", lw=0.9, label=f"{n} target")
+    _finish(ax, "SPL (dB)", "Each way against its way target", f, top=float(np.max(spl_db_of(scored[0].sim.total[0]))))
+    figs["ways"] = _png(fig)
+
+    # 3. phase difference through the crossover, and 4. the reverse-polarity null
+    pairs = _pairs(scored[0])
+    if pairs:
+        fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(11, 3.8))
+        for k, s in enumerate(scored):
+            p = s.sim.pressure[0]
+            for a, b, region in pairs:
+                diff = np.rad2deg(np.angle(p[a] / p[b]))
+                want = np.rad2deg(np.angle(s.targets.ways[a] / s.targets.ways[b]))
+                err = (diff - want + 180) % 360 - 180
+                ax1.semilogx(f[region], err[region], color=shades[k % len(shades)], lw=1.5,
+                             label=f"{names[a]}-{names[b]}, {loaded[k][0]}")
+                flipped = p.sum(axis=0) - 2 * p[b]
+                ax2.semilogx(f, spl_db_of(flipped), color=shades[k % len(shades)], lw=1.3,
+                             label=f"{names[b]} reversed, {loaded[k][0]}")
+        ax1.axhline(0, color="k", lw=0.7)
+        ax1.set_ylim(-90, 90)
+        ax1.set_title("Phase error through the crossover (deg)", fontsize=10)
+        ax1.grid(True, which="both", alpha=0.3)
+        ax1.legend(fontsize=7)
+        top = float(np.max(spl_db_of(scored[0].sim.total[0])))
+        ax2.set_ylim(top - 45, top + 6)
+        ax2.set_title("Reverse-polarity null: deep and centred at the crossover", fontsize=10)
+        ax2.grid(True, which="both", alpha=0.3)
+        ax2.legend(fontsize=7)
+        fig.tight_layout()
+        figs["phase"] = _png(fig)
+
+    # 5. group delay of the sum
+    fig, ax = plt.subplots(figsize=(9, 3.2))
+    for k, s in enumerate(scored):
+        ph = np.unwrap(np.angle(s.sim.total[0]))
+        gd = -np.gradient(ph, 2 * np.pi * f) * 1e3
+        ax.semilogx(f, gd, color=shades[k % len(shades)], lw=1.4, label=loaded[k][0])
+    _finish(ax, "group delay (ms)", "Group delay of the summed response", f)
+    figs["delay"] = _png(fig)
+
+    # 6. impedance with the floor and the 80 % line of the rated impedance
+    job = base_system.job
+    rated = job.stress.rated_impedance
+    fig, ax = plt.subplots(figsize=(9, 3.8))
+    ax2 = ax.twinx()
+    for k, s in enumerate(scored):
+        z = s.sim.impedance[0]
+        ax.semilogx(f, np.abs(z), color=shades[k % len(shades)], lw=1.6, label=f"|Z|, {loaded[k][0]}")
+        ax2.semilogx(f, np.rad2deg(np.angle(z)), color=shades[k % len(shades)], lw=0.8, ls=":")
+    if job.cost.impedance_min > 0:
+        ax.axhline(job.cost.impedance_min, color="tab:red", ls="--", lw=1.0, label=f"floor {job.cost.impedance_min:g} Ω")
+    if rated:
+        ax.axhline(0.8 * rated, color="tab:orange", ls="-.", lw=1.0, label=f"80 % of {rated:g} Ω rated")
+    ax.set_ylim(0, float(np.max(np.abs(scored[0].sim.impedance[0]))) * 1.15)
+    ax2.set_ylim(-90, 90)
+    ax2.set_ylabel("phase (deg, dotted)")
+    _finish(ax, "|Z| (Ω)", "Impedance the amplifier sees", f)
+    figs["impedance"] = _png(fig)
+
+    out.mkdir(parents=True, exist_ok=True)
+    for name, data in figs.items():
+        with atomic_path(out / f"{name}.png", suffix=".png") as tmp:
+            tmp.write_bytes(data)
+
+    # tables
+    def esc(x) -> str:
+        return html.escape(str(x))
+
+    metric_rows = []
+    for (label, doc, sys_, values, _), s in zip(loaded, scored):
+        m = s.metrics
+        z = s.sim.impedance[0]
+        e = float(np.min(epdr(z)))
+        metric_rows.append(
+            f"<tr><td>{esc(label)}</td><td>{'' if s.cost is None else f'{s.cost:.4g}'}</td>"
+            f"<td>{m.get('rms_error_db', float('nan')):.2f}</td><td>{m.get('max_error_db', float('nan')):.2f}</td>"
+            f"<td>{m.get('phase_mismatch_deg', float('nan')):.1f}</td><td>{m['impedance_min_ohm']:.2f} at "
+            f"{m['impedance_min_hz']:.0f} Hz</td><td>{e:.2f}</td></tr>")
+    last_label, last_doc, last_sys, last_values, _ = loaded[-1]
+    st = None
+    if last_sys.job.stress.power:
+        st = stresses(last_sys, last_values, last_sys.job.stress.power, last_sys.job.stress.rated_impedance)
+    stress_by = {p.name: p for p in st.parts} if st else {}
+    part_rows = []
+    for p, v in zip(last_sys.job.valued_parts, last_values):
+        entry = last_doc["parts"].get(p.name, {})
+        source = entry.get("series") or entry.get("source") or ("fixed" if not p.free else "continuous")
+        comb = entry.get("combination")
+        comb_text = (f"{comb['connection']}: " + " + ".join(x["text"] for x in comb["parts"])) if comb else ""
+        tol = p.tolerance if p.tolerance is not None else dict(last_sys.job.spread.tolerance).get(p.type)
+        sp = stress_by.get(p.name)
+        stress_text = ""
+        if sp is not None:
+            stress_text = f"{sp.sine_worst:.3g} {sp.unit} {sp.figure} at {sp.at_hz:.0f} Hz"
+            if sp.programme is not None:
+                stress_text += f"; programme {sp.programme:.3g} W"
+            if sp.rating is not None:
+                stress_text += f"; rated {sp.rating:g} {sp.unit}"
+        part_rows.append(f"<tr><td>{esc(p.name)}</td><td>{p.type}</td><td>{esc(format_value(float(v), p.unit))}</td>"
+                         f"<td>{esc(source)}</td><td>{'' if tol is None else f'{tol * 100:g} %'}</td>"
+                         f"<td>{esc(comb_text)}</td><td>{esc(stress_text)}</td></tr>")
+    cautions = load_cautions(scored[-1].metrics["impedance_min_ohm"], job.cost.impedance_min)
+    if st is not None:
+        cautions = design_cautions(st, last_sys.job.stress.rated_impedance)
+    elif not cautions:
+        from .cautions import GENERAL
+
+        cautions = [GENERAL]
+    drive = (f"Stresses at {st.drive_w:g} W into {st.rated_ohm:g} Ω ({st.source_v_rms:.2f} V RMS); programme figures "
+             "assume pink noise over the band." if st else "No [stress] drive level in the job: no stress figures.")
+    imgs = "".join(f'<figure><img alt="{esc(k)}" src="data:image/png;base64,{base64.b64encode(v).decode()}"></figure>'
+                   for k, v in figs.items())
+    page = f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>{esc(job.name)}: crossover report</title>
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<style>
+body {{ font-family: sans-serif; max-width: 1100px; margin: 1.5em auto; padding: 0 1em; color: #222; }}
+h1 {{ font-size: 1.5em; }} h2 {{ font-size: 1.15em; margin-top: 1.6em; border-bottom: 1px solid #ccc; }}
+table {{ border-collapse: collapse; width: 100%; font-size: 0.9em; }}
+th, td {{ border: 1px solid #ccc; padding: 3px 6px; text-align: left; }} th {{ background: #f0f0f0; }}
+figure {{ margin: 0.8em 0; }} img {{ max-width: 100%; height: auto; }}
+.caution {{ background: #fff6e0; border-left: 4px solid #e0a000; padding: 6px 10px; margin: 6px 0; }}
+@media print {{ figure {{ page-break-inside: avoid; }} body {{ max-width: none; }} }}
+</style></head><body>
+<h1>{esc(job.name)}: crossover report</h1>
+<p>Results: {esc(', '.join(x[0] for x in loaded))}. Made by xo_fit from simulations of the measured drivers in the network;
+check the built speaker by measurement.</p>
+<h2>Metrics</h2>
+<table><tr><th>result</th><th>cost</th><th>rms error (dB)</th><th>worst error (dB)</th><th>phase mismatch (deg)</th>
+<th>|Z| minimum (Ω)</th><th>EPDR minimum (Ω)</th></tr>{''.join(metric_rows)}</table>
+<h2>Curves</h2>{imgs}
+<h2>Part list ({esc(last_label)})</h2>
+<p>{esc(drive)}</p>
+<table><tr><th>part</th><th>kind</th><th>value</th><th>source</th><th>tolerance</th><th>made of</th><th>stress</th></tr>
+{''.join(part_rows)}</table>
+<h2>Cautions</h2>{''.join(f'<div class="caution">{esc(c)}</div>' for c in cautions)}
+</body></html>
+"""
+    from .results import write_text
+
+    write_text(out / "report.html", page)
+    return out / "report.html"
+
+
+def spl_db_of(p: np.ndarray) -> np.ndarray:
+    return acoustics.spl_db(p)
+
+
+def _finish(ax, ylabel: str, title: str, f: np.ndarray, top: float | None = None) -> None:
+    if top is not None:
+        ax.set_ylim(top - 50, top + 6)
+    ax.set_xlim(f[0], f[-1])
+    ax.set_ylabel(ylabel)
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_title(title, fontsize=10)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=7, loc="best")
+    ax.figure.tight_layout()

@@ -25,6 +25,8 @@ from .errors import DataError, XoFitError
 from .units import format_value
 
 RESULT_VERSION = 1
+_UMASK = os.umask(0)
+os.umask(_UMASK)
 
 
 @contextmanager
@@ -37,6 +39,7 @@ def atomic_path(path: str | Path, suffix: str = "") -> Iterator[Path]:
     tmp_path = Path(tmp)
     try:
         yield tmp_path
+        os.chmod(tmp_path, 0o666 & ~_UMASK)  # mkstemp makes 0600; a result is an ordinary file
         os.replace(tmp_path, path)
     finally:
         if tmp_path.exists():

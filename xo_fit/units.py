@@ -37,12 +37,13 @@ UNIT_SPELLINGS: dict[str, frozenset[str]] = {
     "V": frozenset({"V"}),
     "s": frozenset({"s"}),
     "W": frozenset({"W"}),
+    "A": frozenset({"A"}),
     "m/s": frozenset({"m/s"}),
     "": frozenset(),
 }
 
 #: How each base unit is printed.
-UNIT_SYMBOL = {"ohm": "Ω", "H": "H", "F": "F", "Hz": "Hz", "m": "m", "V": "V", "s": "s", "W": "W",
+UNIT_SYMBOL = {"ohm": "Ω", "H": "H", "F": "F", "Hz": "Hz", "m": "m", "V": "V", "s": "s", "W": "W", "A": "A",
                "m/s": "m/s", "": ""}
 
 _PREFIX = {"p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "μ": 1e-6, "m": 1e-3,

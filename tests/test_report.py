@@ -1,0 +1,199 @@
+"""The designer's report, stresses, cautions and the SPICE export, against outside references."""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+
+from xo_fit.cautions import design_cautions
+from xo_fit.job import load_job
+from xo_fit.spice import netlist
+from xo_fit.stress import epdr, stresses
+from xo_fit.system import load_system
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+
+LPAD = '''
+name = "lpad"
+[grid]
+f_min = 100
+f_max = 10000
+points = 41
+[source]
+voltage = 2.83
+[driver.t]
+response = 90
+impedance = 8
+[[part]]
+name = "R1"
+type = "R"
+nodes = ["in", "a"]
+value = 3.9905
+rating = "5W"
+[[part]]
+name = "R2"
+type = "R"
+nodes = ["a", "0"]
+value = 8.0381
+[[part]]
+name = "T"
+type = "driver"
+driver = "t"
+nodes = ["a", "0"]
+[target.way.t]
+type = "fullrange"
+[stress]
+power = 100
+rated_impedance = 8
+'''
+
+
+def test_lpad_stresses_follow_ohms_law(write_job):
+    """An L-pad (6 dB into 8 ohm, references.md) on a resistive load: at 100 W into 8 ohm (28.28 V RMS) the input is
+    exactly 8 ohm, so 3.536 A flows in R1 (P = I^2 R1) and the pad's node sits at V/2 (P2 = (V/2)^2 / R2)."""
+    s = load_system(load_job(write_job(LPAD)))
+    st = stresses(s, s.values(), 100.0, 8.0)
+    v = np.sqrt(100 * 8)
+    i = v / 8.0
+    p = {x.name: x for x in st.parts}
+    k = 10 ** (-6 / 20)
+    assert p["R1"].sine_worst == pytest.approx(i**2 * 3.9905, rel=1e-3)
+    assert p["R2"].sine_worst == pytest.approx((v * k) ** 2 / 8.0381, rel=1e-3)
+    assert p["R1"].programme == pytest.approx(p["R1"].sine_worst, rel=1e-9)  # flat network: same at every frequency
+    assert st.epdr_min_ohm == pytest.approx(8.0, rel=1e-6)  # resistive: EPDR = |Z|
+    c = design_cautions(st, 8.0)
+    assert any("R1 dissipates up to 49.88 W" in x and "5 W rating" in x for x in c)  # 3.9905 / 8 x 100 W
+    assert any("wadding" in x for x in c) and any("licensed practice" in x for x in c)
+
+
+def test_epdr_and_the_80_percent_rule():
+    """EPDR (K. Howard 2006, references.md): EPDR/|Z| = 1 at 0 deg and 0.35 at 45 deg.
+    IEC 60268-5: the minimum |Z| should not fall below 80 % of the rated impedance: 4 ohm -> 3.2 ohm."""
+    assert epdr(np.array([8.0 + 0j]))[0] == pytest.approx(8.0)
+    assert epdr(np.array([np.exp(1j * np.pi / 4)]))[0] == pytest.approx(0.35, abs=0.005)
+    assert epdr(np.array([np.exp(-1j * np.pi / 4)]))[0] == pytest.approx(0.3536, abs=1e-4)
+    from xo_fit.cautions import LOW_LOAD_OHM, RATED_FRACTION
+
+    assert RATED_FRACTION * 4 == pytest.approx(3.2) and LOW_LOAD_OHM == pytest.approx(3.2)
+
+
+def test_exported_netlist_runs_in_ngspice(write_job, tmp_path):
+    """The exported deck (Thiele-Small drivers as their RLC equivalents), run through ngspice, gives xo_fit's
+    driver voltages."""
+    ngspice = shutil.which("ngspice")
+    if ngspice is None:
+        if os.environ.get("XO_FIT_REQUIRE_NGSPICE") == "1":
+            raise RuntimeError("ngspice is required (XO_FIT_REQUIRE_NGSPICE=1)")
+        pytest.skip("ngspice not installed")
+    text = '''
+[grid]
+f_min = 20
+f_max = 20000
+points = 61
+[source]
+voltage = 2.83
+resistance = 0.05
+[driver.w]
+response = 88
+impedance = { re = 5.4, le = "0.6mH", fs = 58, qms = 3.4, qes = 0.62 }
+[driver.t]
+response = 91
+impedance = { re = 4.7, le = "0.06mH", fs = 780, qms = 1.6, qes = 1.3 }
+[[part]]
+name = "L1"
+type = "L"
+nodes = ["in", "w1"]
+value = "0.8mH"
+dcr = "18awg"
+[[part]]
+name = "C1"
+type = "C"
+nodes = ["w1", "0"]
+value = "12uF"
+esr = 0.03
+[[part]]
+name = "W"
+type = "driver"
+driver = "w"
+nodes = ["w1", "0"]
+[[part]]
+name = "C2"
+type = "C"
+nodes = ["in", "t1"]
+value = "6.8uF"
+[[part]]
+name = "L2"
+type = "L"
+nodes = ["t1", "0"]
+value = "0.33mH"
+dcr = 0.25
+[[part]]
+name = "T"
+type = "driver"
+driver = "t"
+nodes = ["0", "t1"]
+'''
+    s = load_system(load_job(write_job(text)))
+    deck = netlist(s, s.values(), "test")
+    assert "PLACEHOLDER" not in deck and ".subckt DRV_w" in deck
+    control = ".control\nset wr_vecnames\nset wr_singlescale\noption numdgt=16\nrun\nwrdata out.txt (v(w1)) (0-v(t1))\nquit\n.endc\n"
+    (tmp_path / "x.cir").write_text(deck.replace(".end\n", control + ".end\n"))
+    run = subprocess.run([ngspice, "-b", "x.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stdout + run.stderr
+    data = np.loadtxt(tmp_path / "out.txt", skiprows=1)
+    f = data[:, 0]
+    np.testing.assert_allclose(f, s.frequencies, rtol=1e-9)
+    spice = data[:, 1::2] + 1j * data[:, 2::2]
+    mine = s.network.solve(s.values()).voltages[0]
+    np.testing.assert_allclose(mine[0], spice[:, 0], rtol=1e-6)
+    np.testing.assert_allclose(mine[1], spice[:, 1], rtol=1e-6)
+
+
+def test_measured_drivers_export_as_placeholders(tmp_path, cli):
+    code, _, err = cli("demo", "--out", tmp_path / "d")
+    assert code == 0, err
+    code, out, err = cli("export", tmp_path / "d" / "snap", "--spice", tmp_path / "x.cir")
+    assert code == 0, err
+    deck = (tmp_path / "x.cir").read_text()
+    assert deck.count("PLACEHOLDER") == 2 and "placeholder subcircuits" in out
+    assert re.search(r"^LLN ", deck, re.M) and re.search(r"^RL1_dcr ", deck, re.M)
+
+
+def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
+    code, out, err = cli("demo", "--out", tmp_path / "d")
+    assert code == 0, err
+    assert "report: " in out
+    page = (tmp_path / "d" / "report" / "report.html").read_text()
+    # nothing outside itself: no links, scripts or remote images; every image inline
+    assert not re.search(r"(href|src)\s*=\s*[\"'](?!data:)", page)
+    assert "http://" not in page and "https://" not in page
+    assert page.count('src="data:image/png;base64,') >= 5
+    for text in ("Metrics", "Part list", "Cautions", "EPDR", "Stresses at 60 W into 4 Ω", "R1", "rated 10 W",
+                 "licensed practice"):
+        assert text in page, text
+    if CHROMIUM is None:
+        if os.environ.get("XO_FIT_REQUIRE_CHROMIUM") == "1":
+            raise RuntimeError("chromium is required (XO_FIT_REQUIRE_CHROMIUM=1)")
+        pytest.skip("chromium not installed")
+    shot = tmp_path / "shot.png"
+    run = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                          "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                          f"--user-data-dir={tmp_path / 'profile'}", "--window-size=1200,2400",
+                          f"--screenshot={shot}", (tmp_path / "d" / "report" / "report.html").as_uri()],
+                         capture_output=True, text=True, timeout=120)
+    assert shot.exists(), run.stderr
+    import matplotlib.image as mpimg
+
+    img = mpimg.imread(shot)
+    assert img.shape[0] >= 2000
+    # plots: many distinct colours and a good share of non-white pixels (a blank page is all white)
+    rgb = (img[..., :3] * 255).astype(int)
+    nonwhite = np.mean(np.any(rgb < 235, axis=-1))
+    colours = len(np.unique(rgb.reshape(-1, 3)[::37], axis=0))
+    assert nonwhite > 0.05 and colours > 200, (nonwhite, colours)
