@@ -160,9 +160,23 @@ def _print_score(s, start_cost: float | None = None) -> None:
 
 
 def _cautions(system, s) -> None:
-    from .cautions import load_cautions
+    from .cautions import design_cautions, load_cautions
 
-    for c in load_cautions(s.metrics["impedance_min_ohm"], system.job.cost.impedance_min):
+    spec = system.job.stress
+    if spec.power:
+        from .stress import stresses
+
+        st = stresses(system, s.values, spec.power, spec.rated_impedance)
+        say(f"  stresses at {spec.power:g} W into {spec.rated_impedance:g} ohm ({st.source_v_rms:.2f} V RMS), "
+            "sine worst case over the band:")
+        for p in st.parts:
+            prog = f", programme {p.programme:.3g} W" if p.programme is not None else ""
+            rated = f" (rated {p.rating:g} {p.unit})" if p.rating is not None else ""
+            say(f"    {p.name:<8} {p.sine_worst:8.3g} {p.unit} {p.figure} at {p.at_hz:.0f} Hz{prog}{rated}")
+        notes = design_cautions(st, spec.rated_impedance)
+    else:
+        notes = load_cautions(s.metrics["impedance_min_ohm"], system.job.cost.impedance_min)
+    for c in notes:
         say(f"  caution: {c}")
 
 
