@@ -36,7 +36,7 @@ def test_separators_and_headers(tmp_path, text):
 
 
 def test_phase_is_optional_and_extension_does_not_matter(tmp_path):
-    c = read_curve(write(tmp_path, "10 8\n20 8.5\n", "woofer.zma.frd"), "impedance")
+    c = read_curve(write(tmp_path, "10 8\n20 8.5\n", "woofer impedance.measurement.dat"), "impedance")
     assert c.phase_deg is None
     np.testing.assert_allclose(c.magnitude, [8, 8.5])
 

@@ -366,21 +366,26 @@ def _run_local(workers, payloads, finish, progress, done, failed, n, t0):
         return done, failed
     for var in THREAD_VARS:  # before the pool starts, so that every worker inherits them
         os.environ.setdefault(var, "1")
-    running = len(payloads)
     with ProcessPoolExecutor(max_workers=min(workers, len(payloads)), initializer=_single_threaded) as pool:
         futures = {pool.submit(work, p): (it, need) for it, need, p in payloads}
-        for fut in as_completed(futures):
-            it, need = futures[fut]
-            running -= 1
-            try:
-                res = fut.result()
-            except Exception as e:  # the worker process itself died
-                res = {"stages": [], "error": {"stage": need[0], "message": f"worker failed: {e}"}}
-            ok = finish(it, need, res)
-            done += ok
-            failed += not ok
-            if progress:
-                progress(done, failed, running, n, t0)
+        return _drain(futures, as_completed(futures), "worker failed", finish, progress, done, failed, n, t0)
+
+
+def _drain(futures: dict, completed, failure: str, finish, progress, done, failed, n, t0):
+    """Take finished jobs as they come (local or Dask futures), record them, report progress."""
+    running = len(futures)
+    for fut in completed:
+        it, need = futures[fut]
+        running -= 1
+        try:
+            res = fut.result()
+        except Exception as e:  # the worker process (or cluster task) itself died
+            res = {"stages": [], "error": {"stage": need[0], "message": f"{failure}: {e}"}}
+        ok = finish(it, need, res)
+        done += ok
+        failed += not ok
+        if progress:
+            progress(done, failed, running, n, t0)
     return done, failed
 
 
@@ -399,19 +404,8 @@ def _run_dask(address, payloads, finish, progress, done, failed, n, t0):
             # pure=False: equal arguments must not be merged into one task; the payload is one positional argument
             fut = client.submit(work, p, pure=False)
             futures[fut] = (it, need)
-        running = len(futures)
-        for fut in as_completed(list(futures)):
-            it, need = futures[fut]
-            running -= 1
-            try:
-                res = fut.result()
-            except Exception as e:
-                res = {"stages": [], "error": {"stage": need[0], "message": f"cluster task failed: {e}"}}
-            ok = finish(it, need, res)
-            done += ok
-            failed += not ok
-            if progress:
-                progress(done, failed, running, n, t0)
+        done, failed = _drain(futures, as_completed(list(futures)), "cluster task failed", finish, progress, done,
+                              failed, n, t0)
     finally:
         client.close()
     return done, failed

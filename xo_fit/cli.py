@@ -45,6 +45,17 @@ def _common(quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only 
     OUT.verbose = verbose
 
 
+def _design(job_path: Path, from_: Path | None):
+    """The loaded system and a design (P,): the job's own values, or those of a result (--from)."""
+    from .results import read_result, result_values
+
+    system = _load(job_path)
+    overrides = None
+    if from_ is not None:
+        overrides = result_values(read_result(from_), system.part_names, from_)
+    return system, system.values(overrides)
+
+
 def _load(job_path: Path):
     from .job import load_job
     from .system import load_system
@@ -187,15 +198,11 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
              ) -> None:
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
     from .fit import score, write_outputs
-    from .results import read_result, result_values
 
     t0 = time.perf_counter()
-    system = _load(job)
+    system, values = _design(job, from_)
     j = system.job
-    overrides = None
-    if from_ is not None:
-        overrides = result_values(read_result(from_), system.part_names, from_)
-    s = score(system, system.values(overrides))
+    s = score(system, values)
     files = write_outputs(system, out, "simulate", s,
                           {"source": {"job": str(j.path), "from": str(from_) if from_ else None}},
                           title=f"{j.name}: simulated")
@@ -323,18 +330,13 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     """Move every part value to a purchasable one (a series or parts on hand) and re-score, searching the
     combinations with the real cost."""
     from .job import PART_UNIT
-    from .results import read_result, result_values
     from .snap import read_inventory
     from .stages import snap_stage
     from .units import format_value
 
     t0 = time.perf_counter()
-    system = _load(job)
+    system, continuous = _design(job, from_)
     j = system.job
-    overrides = None
-    if from_ is not None:
-        overrides = result_values(read_result(from_), system.part_names, from_)
-    continuous = system.values(overrides)
     inv_path = inventory if inventory is not None else j.snap.inventory
     inv = read_inventory(inv_path) if inv_path is not None else None
     st = snap_stage(system, out, continuous, series_override=_series_option(series), inventory=inv, combine=combine,
@@ -374,16 +376,11 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
-    from .results import read_result, result_values
     from .stages import spread_stage
 
     t0 = time.perf_counter()
-    system = _load(job)
+    system, nominal = _design(job, from_)
     j = system.job
-    overrides = None
-    if from_ is not None:
-        overrides = result_values(read_result(from_), system.part_names, from_)
-    nominal = system.values(overrides)
     st = spread_stage(system, out, nominal, samples=samples, seed=seed, plots=not no_plots,
                       source_from=str(from_) if from_ else None)
     r, files = st.info["result"], st.files

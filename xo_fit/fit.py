@@ -41,6 +41,17 @@ def cost_model(system) -> tuple[CostModel, Targets] | None:
     return CostModel(system, targets), targets
 
 
+def require_cost_model(system, what: str) -> tuple[CostModel, Targets]:
+    """The job's cost model; a JobError naming what needs it when the job has no way targets."""
+    model = cost_model(system)
+    if model is None:
+        from .errors import JobError
+
+        raise JobError(f"nothing to {what}: add [target.way.NAME] tables (type, alignment, order, fc) for the drivers",
+                       path=system.job.path, key="[target]")
+    return model
+
+
 def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = None) -> Scored:
     """Simulate one design (P,) and score it: cost, terms, metrics."""
     values = np.asarray(values, dtype=float).reshape(-1)
@@ -83,12 +94,7 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
     """Global search and polish of the job's free values; arguments override the job's [search]."""
     job = system.job
     spec = job.search
-    model = cost_model(system)
-    if model is None:
-        from .errors import JobError
-
-        raise JobError("nothing to fit to: add [target.way.NAME] tables (type, alignment, order, fc) for the drivers",
-                       path=job.path, key="[target]")
+    model = require_cost_model(system, "fit to")
     cm, _ = model
     space = make_space(job)
     fused = FusedCost(cm)

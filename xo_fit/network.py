@@ -330,10 +330,10 @@ def branch_admittances(net: Network, values: np.ndarray, f_index: np.ndarray) ->
     return out
 
 
-def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Solution:
-    """Plain nodal analysis with LAPACK's pivoting solve, for M (values row, frequency index) pairs.
+def _dense_nodes(net: Network, values: np.ndarray, f_index: np.ndarray):
+    """Assemble and solve the full nodal system (LAPACK, pivoting) for M (values row, frequency index) pairs.
 
-    Returns voltages (M, D) and impedance (M,) (a Solution with the F axis dropped).
+    Returns (volt, y): volt(node) gives that node's voltage (M,) complex, y the branch admittances (M, branches).
     """
     values = np.asarray(values, dtype=float)
     f_index = np.asarray(f_index)
@@ -371,6 +371,16 @@ def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Soluti
             return np.full(m, fixed[node], dtype=complex)
         return x[:, idx[node]]
 
+    return volt, y
+
+
+def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Solution:
+    """Plain nodal analysis with LAPACK's pivoting solve, for M (values row, frequency index) pairs.
+
+    Returns voltages (M, D) and impedance (M,) (a Solution with the F axis dropped).
+    """
+    volt, y = _dense_nodes(net, values, f_index)
+    m = y.shape[0]
     volts = np.zeros((m, len(net.driver_names)), dtype=complex)
     current = np.zeros(m, dtype=complex)
     for j, br in enumerate(net.branches):
@@ -1003,37 +1013,6 @@ def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndar
     """
     v = net._check_values(values)[:1]
     f_index = np.arange(net.frequencies.size)
-    vals = np.repeat(v, f_index.size, axis=0)
-    nodes = net.unknown_nodes
-    idx = {n: i for i, n in enumerate(nodes)}
-    y = branch_admittances(net, vals, f_index)  # (F, branches)
-    m, n = f_index.size, len(nodes)
-    mat = np.zeros((m, n, n), dtype=complex)
-    rhs = np.zeros((m, n), dtype=complex)
-    vs = net.source_voltage
-    fixed = {GROUND_NODE: 0.0}
-    if net.source_resistance == 0.0:
-        fixed[SOURCE_NODE] = vs
-    else:
-        mat[:, idx[SOURCE_NODE], idx[SOURCE_NODE]] += 1.0 / net.source_resistance
-        rhs[:, idx[SOURCE_NODE]] += vs / net.source_resistance
-    for j, br in enumerate(net.branches):
-        ia, ib = idx.get(br.a), idx.get(br.b)
-        if ia is not None:
-            mat[:, ia, ia] += y[:, j]
-        if ib is not None:
-            mat[:, ib, ib] += y[:, j]
-        if ia is not None and ib is not None:
-            mat[:, ia, ib] -= y[:, j]
-            mat[:, ib, ia] -= y[:, j]
-        if ia is not None and br.b in fixed:
-            rhs[:, ia] += y[:, j] * fixed[br.b]
-        if ib is not None and br.a in fixed:
-            rhs[:, ib] += y[:, j] * fixed[br.a]
-    x = np.linalg.solve(mat, rhs[..., None])[..., 0] if n else np.zeros((m, 0), dtype=complex)
-
-    def volt(node: str) -> np.ndarray:
-        return np.full(m, fixed[node], dtype=complex) if node in fixed else x[:, idx[node]]
-
+    volt, y = _dense_nodes(net, np.repeat(v, f_index.size, axis=0), f_index)
     volts = np.stack([volt(br.a) - volt(br.b) for br in net.branches])
     return volts, volts * y.T

@@ -393,7 +393,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     """Snap design ``continuous`` (P,) of ``system`` to purchasable values with the job's cost."""
     import time
 
-    from .fit import cost_model
+    from .fit import require_cost_model
     from .fused import FusedCost
     from .search import Space, search
 
@@ -401,11 +401,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     job = system.job
     combine = job.snap.combine if combine is None else combine
     seed = job.search.seed if seed is None else seed
-    model = cost_model(system)
-    if model is None:
-        raise XoFitError("nothing to score the snap with: add [target.way.NAME] tables for the drivers",
-                         path=job.path, key="[target]")
-    cm, _ = model
+    cm, _ = require_cost_model(system, "score the snap with")
     cost_fn = FusedCost(cm)
     sources = part_sources(job, series_override, inventory)
     parts = job.valued_parts
