@@ -200,3 +200,14 @@ def test_check_shows_the_targets(write_job, cli):
     assert "target   band 100 Hz to 15 kHz" in out
     assert "woofer     lowpass LR2 at 2 kHz, normal polarity" in out
     assert "tweeter    highpass LR2 at 2 kHz, inverted polarity" in out
+
+
+def test_verbose_shows_loading_and_convergence(write_job, cli, tmp_path):
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2", start=2.0, spread=4.0)
+    code, out, err = cli("-v", "fit", write_job(text), "--out", tmp_path / "o", "--budget", "2000", "--no-plots")
+    assert code == 0, err
+    assert "compiled kernels are cached in" in out and "convergence (evaluations: best cost):" in out
+    code, out, _ = cli("-q", "fit", write_job(text), "--out", tmp_path / "q", "--budget", "2000", "--no-plots")
+    assert code == 0 and out == ""

@@ -60,10 +60,17 @@ def _load(job_path: Path):
     from .job import load_job
     from .system import load_system
 
+    t0 = time.perf_counter()
     job = load_job(job_path)
     system = load_system(job)
     for w in system.warnings:
         warn(w)
+    if OUT.verbose:
+        from .network import cache_dir
+
+        say(f"  loaded {job.path} and its data in {time.perf_counter() - t0:.3f} s "
+            f"({len(job.valued_parts)} parts, {len(job.drivers)} drivers, {system.frequencies.size} points); "
+            f"compiled kernels are cached in {cache_dir()}")
     return system
 
 
@@ -278,7 +285,11 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     _print_score(outcome.scored, outcome.start_cost)
     if runs is not None:
         say("  restarts: " + ", ".join(f"seed {x['seed']}: {x['cost']:.4g}" for x in runs))
-    if OUT.verbose or not OUT.quiet:
+    if OUT.verbose and r.history:
+        marks = sorted({int(round(x)) for x in np.linspace(0, len(r.history) - 1, 8)})
+        say("  convergence (evaluations: best cost): "
+            + ", ".join(f"{r.history[i][0]}: {r.history[i][1]:.4g}" for i in marks))
+    if not OUT.quiet:
         from .units import format_value
 
         parts = j.valued_parts

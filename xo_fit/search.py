@@ -159,6 +159,7 @@ class SearchResult:
     seed: int
     complete: bool
     stopped_by: str | None
+    history: tuple = ()  # (evaluations, best cost so far) after each batch
 
 
 def population_size(n: int) -> int:
@@ -342,4 +343,4 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
     complete = obj.stopped_by in (None, "budget", "converged")
     return SearchResult(u=obj.best_u, cost=obj.best_cost, evaluations=obj.evaluations,
                         seconds=time.monotonic() - t0, optimizer=name, seed=seed, complete=complete,
-                        stopped_by=obj.stopped_by)
+                        stopped_by=obj.stopped_by, history=tuple(obj.history))
