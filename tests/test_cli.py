@@ -211,3 +211,18 @@ def test_verbose_shows_loading_and_convergence(write_job, cli, tmp_path):
     assert "compiled kernels are cached in" in out and "convergence (evaluations: best cost):" in out
     code, out, _ = cli("-q", "fit", write_job(text), "--out", tmp_path / "q", "--budget", "2000", "--no-plots")
     assert code == 0 and out == ""
+
+
+def test_check_validates_every_sweep_variant(write_job, cli):
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2", start=2.0, spread=4.0)
+    good = write_job(text + '\n[sweep]\n"target.way.woofer.fc, target.way.tweeter.fc" = [1800, 2400]\n', name="s.toml")
+    code, out, err = cli("check", good)
+    assert code == 0, err
+    assert "2 variants, all valid" in out and "s-fc1800" in out and "s-fc2400" in out
+    bad = write_job(text + '\n[sweep]\n"target.way.woofer.fcc" = [1800]\n', name="b.toml")
+    code, _, err = cli("check", bad)
+    assert code == 2 and "unknown key 'fcc'" in err
+    code, _, err = cli("fit", good, "--out", "x")
+    assert code == 2 and "[sweep] of variants" in err

@@ -80,8 +80,25 @@ def _load(job_path: Path):
 @app.command()
 def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
     """Read and validate a job and its data; show the grid, drivers, parts, free values and nodes."""
+    import tomllib
+
     from .units import format_value
 
+    try:
+        swept = "sweep" in tomllib.loads(job.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        swept = False  # load_job reports it properly below
+    if swept:
+        from .job import expand_job
+        from .system import load_system
+
+        variants = expand_job(job)
+        for v, _ in variants:
+            load_system(v)  # every variant's data must load too
+        say(f"job      {job} has a [sweep] of {len(variants)} variants, all valid: "
+            + ", ".join(v.name for v, _ in variants))
+        say("ok (run them with xo-fit batch)")
+        return
     system = _load(job)
     j = system.job
     f = system.frequencies
