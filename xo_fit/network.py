@@ -47,7 +47,7 @@ SOURCE_NODE = "in"
 GROUND_NODE = "0"
 #: A pivot smaller than this fraction of the summed |admittance| at its node sends the point to the dense solve.
 PIVOT_TOLERANCE = 1e-3
-#: Up to this many (candidate, frequency) points, solve() uses the dense path: no kernel to load.
+#: Up to this many (candidate, frequency) points, solve() uses the dense path while no kernel is loaded yet.
 DENSE_POINTS = 1024
 #: Bump when the generated code changes meaning, so stale caches are not reused.
 KERNEL_VERSION = 1
@@ -245,8 +245,8 @@ class Network:
         (views into one array).
         """
         v = self._check_values(values)
-        if v.shape[0] * self.frequencies.size <= DENSE_POINTS:
-            # a design or two: the plain dense solve is as quick as loading the compiled kernel
+        if self._kernel is None and v.shape[0] * self.frequencies.size <= DENSE_POINTS:
+            # a design or two and no kernel loaded yet: the dense solve costs less than loading the kernel
             return self.solve_reference(v)
         return self.solve_compiled(v)
 
