@@ -183,8 +183,9 @@ class CostModel:
     # ------------------------------------------------------------------ metrics
 
     def metrics(self, values: np.ndarray) -> tuple[dict, Evaluation]:
-        """Metrics and evaluation of one design (P,) or (1, P), as plain floats for result.json."""
-        sim = self.system.simulate(values)
+        """Metrics and evaluation of one design (P,) or (1, P), as plain floats for result.json
+        (solved on the dense reference path: one reported design needs no compiled kernel)."""
+        sim = self.system.simulate(values, dense=True)
         ev = self.evaluate_simulation(sim)
         band = self.band
         err = spl_db(sim.total[0, band]) - ev.level_db[0] - self.t_sys_db

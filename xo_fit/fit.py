@@ -56,7 +56,7 @@ def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = 
     """Simulate one design (P,) and score it: cost, terms, metrics."""
     values = np.asarray(values, dtype=float).reshape(-1)
     model = model if model is not None else cost_model(system)
-    sim = system.simulate(values)
+    sim = system.simulate(values, dense=True)
     if model is None:
         return Scored(values=values, sim=sim, cost=None, terms={}, metrics=simulation_metrics(system, sim),
                       targets=None, level_db=None)

@@ -47,8 +47,6 @@ SOURCE_NODE = "in"
 GROUND_NODE = "0"
 #: A pivot smaller than this fraction of the summed |admittance| at its node sends the point to the dense solve.
 PIVOT_TOLERANCE = 1e-3
-#: Up to this many (candidate, frequency) points, solve() uses the dense path while no kernel is loaded yet.
-DENSE_POINTS = 1024
 #: Bump when the generated code changes meaning, so stale caches are not reused.
 KERNEL_VERSION = 1
 
@@ -244,11 +242,7 @@ class Network:
         Solution with voltages (B, D, F) complex V and impedance (B, F) complex ohm
         (views into one array).
         """
-        v = self._check_values(values)
-        if self._kernel is None and v.shape[0] * self.frequencies.size <= DENSE_POINTS:
-            # a design or two and no kernel loaded yet: the dense solve costs less than loading the kernel
-            return self.solve_reference(v)
-        return self.solve_compiled(v)
+        return self.solve_compiled(values)
 
     def solve_compiled(self, values: np.ndarray) -> Solution:
         """:meth:`solve` through the generated kernel whatever the batch size (flagged points densely)."""

@@ -92,9 +92,13 @@ class System:
     def solve(self, values: np.ndarray) -> Solution:
         return self.network.solve(values)
 
-    def simulate(self, values: np.ndarray) -> Simulation:
-        """Driver voltages, input impedance, per-driver and summed pressure for values (B, P) or (P,)."""
-        sol = self.network.solve(values)
+    def simulate(self, values: np.ndarray, *, dense: bool = False) -> Simulation:
+        """Driver voltages, input impedance, per-driver and summed pressure for values (B, P) or (P,).
+
+        dense: solve with the dense reference path instead of the compiled kernel (for one design that
+        is reported, not searched: it needs no kernel loaded; the two agree to 1e-9).
+        """
+        sol = self.network.solve_reference(values) if dense else self.network.solve(values)
         p = acoustics.pressures(sol.voltages, self.factors)
         return Simulation(voltages=sol.voltages, impedance=sol.impedance, pressure=p, total=acoustics.total(p))
 
