@@ -243,8 +243,10 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
 class _Progress:
     """A one-line progress display on stderr, when it is a terminal and the run lasts more than a moment."""
 
-    def __init__(self, label: str) -> None:
+    def __init__(self, label: str, units: str = "evaluations", figure: str = "best cost") -> None:
         self.label = label
+        self.units = units
+        self.figure = figure
         self.enabled = sys.stderr.isatty() and not OUT.quiet
         self.t0 = time.monotonic()
         self.last = 0.0
@@ -257,8 +259,8 @@ class _Progress:
         self.last = now
         width = 30
         k = int(width * min(done / max(total, 1), 1.0))
-        sys.stderr.write(f"\r{self.label} [{'#' * k}{'.' * (width - k)}] {done}/{total} evaluations, "
-                         f"best cost {best:.4g} ")
+        sys.stderr.write(f"\r{self.label} [{'#' * k}{'.' * (width - k)}] {done}/{total} {self.units}, "
+                         f"{self.figure} {best:.4g} ")
         sys.stderr.flush()
         self.shown = True
 
@@ -409,8 +411,16 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     t0 = time.perf_counter()
     system, nominal = _design(job, from_)
     j = system.job
-    st = spread_stage(system, out, nominal, samples=samples, seed=seed, plots=not no_plots,
-                      source_from=str(from_) if from_ else None)
+    bar = _Progress(f"spread {j.name}", units="builds", figure="share within the band so far")
+
+    def progress(done: int, total: int, share: float) -> None:
+        bar(done, total, share)
+
+    try:
+        st = spread_stage(system, out, nominal, samples=samples, seed=seed, plots=not no_plots,
+                          source_from=str(from_) if from_ else None, progress=progress)
+    finally:
+        bar.close()
     r, files = st.info["result"], st.files
     say(f"spread {j.name}: {r.samples} builds ({j.spread.distribution}"
         f"{', quasi-random' if j.spread.qmc else ''}) in {time.perf_counter() - t0:.2f} s")

@@ -161,7 +161,7 @@ def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray
 
 def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed: int | None = None,
                distribution: str | None = None, qmc: bool | None = None, rms_limit_db: float | None = None,
-               crossovers: list[float] | None = None) -> SpreadResult:
+               crossovers: list[float] | None = None, progress=None) -> SpreadResult:
     """Monte Carlo, sensitivity and worst cases of design ``nominal`` (P,) of ``system``."""
     from .cost import band_mask
 
@@ -215,6 +215,8 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
             carry, sums = sums[-1:], sums[:-1]
         if sums.shape[0]:
             pair_diffs.append(np.abs(sums[0::2] - sums[1::2]).max(axis=1))
+        if progress is not None:
+            progress(min(lo + CHUNK, samples), samples, within / min(lo + CHUNK, samples))
     pairs = np.concatenate(pair_diffs) if pair_diffs else np.zeros(1)
     sens = sensitivities(system, nominal, band, tol)
     names = system.part_names

@@ -104,11 +104,11 @@ def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=Non
 
 
 def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=None, plots: bool = True,
-                 source_from: str | None = None) -> StageOutput:
+                 source_from: str | None = None, progress=None) -> StageOutput:
     from .spread import run_spread
 
     j = system.job
-    r = run_spread(system, nominal, samples=samples, seed=seed)
+    r = run_spread(system, nominal, samples=samples, seed=seed, progress=progress)
     s = score(system, nominal)
     names = ["sum"] + [d.name for d in j.drivers]
     cols = {"frequency_hz": system.frequencies}
