@@ -137,7 +137,7 @@ def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
     r = cli("batch", tmp_path / "job*.toml", "--out", local, "--workers", "2", "--no-plots")
     assert r.returncode == 0, r.stderr
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                       dashboard_address=None)
+                                       dashboard_address="127.0.0.1:0")  # loopback only, any free port
     try:
         r = cli("batch", tmp_path / "job*.toml", "--out", tmp_path / "dask", "--scheduler", cluster.scheduler_address,
                 "--no-plots")

@@ -80,3 +80,14 @@ class DataError(XoFitError):
 
 class NetworkError(XoFitError):
     """The netlist cannot be built: duplicate names, islands, shorted parts."""
+
+
+def read_user_text(path: str | Path, what: str, error: type = DataError, encoding: str = "utf-8-sig") -> str:
+    """The text of a file the user named; a missing or unreadable one raises ``error`` naming it and ``what`` it is."""
+    path = Path(path)
+    try:
+        return path.read_text(encoding=encoding)
+    except FileNotFoundError:
+        raise error(f"{what} not found", path=path) from None
+    except (OSError, UnicodeDecodeError) as e:
+        raise error(f"cannot read the {what}: {e}", path=path) from None

@@ -22,7 +22,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .errors import JobError, NetworkError, XoFitError
+from .errors import JobError, NetworkError, XoFitError, read_user_text
 from .network import check_topology
 from .units import UnitsError, parse_percent, parse_value, parse_wire
 
@@ -544,12 +544,7 @@ def _assign(data: dict, path: str, value: Any, ctx: "_Context", key: str) -> Non
 
 def _read(path: str | Path) -> tuple[dict, "_Context"]:
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise JobError("job file not found", path=path) from None
-    except (OSError, UnicodeDecodeError) as e:
-        raise JobError(f"cannot read the job file: {e}", path=path) from None
+    text = read_user_text(path, "job file", JobError)
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:

@@ -21,7 +21,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from . import acoustics
-from .errors import DataError, XoFitError
+from .errors import DataError, XoFitError, read_user_text
 from .units import format_value
 
 RESULT_VERSION = 1
@@ -135,14 +135,11 @@ def read_result(path: str | Path) -> dict:
     path = Path(path)
     if path.is_dir():
         path = path / "result.json"
+    text = read_user_text(path, "result file")
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise DataError("result file not found", path=path) from None
+        data = json.loads(text)
     except json.JSONDecodeError as e:
         raise DataError(f"not valid JSON: {e.msg}", path=path, line=e.lineno) from None
-    except OSError as e:
-        raise DataError(f"cannot read: {e.strerror}", path=path) from None
     if not isinstance(data, dict) or not isinstance(data.get("parts"), dict):
         raise DataError("not an xo_fit result: expected an object with a \"parts\" table", path=path)
     for name, entry in data["parts"].items():

@@ -32,7 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import DataError, XoFitError
+from .errors import DataError, XoFitError, read_user_text
 from .series import check_name, nearest, neighbours
 from .units import UnitsError, format_value, parse_value
 
@@ -71,12 +71,7 @@ def read_inventory(path: str | Path) -> Inventory:
     anything else that is malformed is a DataError naming the file and line.
     """
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except FileNotFoundError:
-        raise DataError("inventory file not found", path=path) from None
-    except (OSError, UnicodeDecodeError) as e:
-        raise DataError(f"cannot read the inventory: {e}", path=path) from None
+    text = read_user_text(path, "inventory file")
     units = {"R": "ohm", "L": "H", "C": "F"}
     counts: dict[str, dict[float, int]] = {"R": {}, "L": {}, "C": {}}
     delim = ";" if text.count(";") > text.count(",") else ","
