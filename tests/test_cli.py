@@ -226,3 +226,10 @@ def test_check_validates_every_sweep_variant(write_job, cli):
     assert code == 2 and "unknown key 'fcc'" in err
     code, _, err = cli("fit", good, "--out", "x")
     assert code == 2 and "[sweep] of variants" in err
+
+
+def test_version(cli):
+    from xo_fit import __version__
+
+    code, out, _ = cli("--version")
+    assert code == 0 and out.strip() == f"xo-fit {__version__}"

@@ -38,9 +38,19 @@ def warn(text: str) -> None:
     typer.echo(f"warning: {text}", err=True)
 
 
+def _version(value: bool) -> None:
+    if value:
+        from . import __version__
+
+        typer.echo(f"xo-fit {__version__}")
+        raise typer.Exit(0)
+
+
 @app.callback()
 def _common(quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors and warnings."),
-            verbose: bool = typer.Option(False, "--verbose", "-v", help="Print more detail.")) -> None:
+            verbose: bool = typer.Option(False, "--verbose", "-v", help="Print more detail."),
+            version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+                                         help="Print the version and exit.")) -> None:
     OUT.quiet = quiet
     OUT.verbose = verbose
 
