@@ -169,7 +169,7 @@ def run(system, repeats: int) -> None:
 
         def run_kernel():
             kernel(v, k["r_coef"], k["r_exp"], k["fin"], net.source_voltage, net.source_resistance,
-                   PIVOT_TOLERANCE**2, scratch, res, bad)
+                   PIVOT_TOLERANCE**2, scratch, res.view(np.float64), bad)
 
         rk = median_rate(run_kernel, b, args.repeats)
         rs = median_rate(lambda: net.solve(v), b, args.repeats)
