@@ -197,3 +197,16 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
     nonwhite = np.mean(np.any(rgb < 235, axis=-1))
     colours = len(np.unique(rgb.reshape(-1, 3)[::37], axis=0))
     assert nonwhite > 0.05 and colours > 200, (nonwhite, colours)
+
+
+def test_report_refuses_to_overlay_different_grids(write_job, cli, tmp_path):
+    from conftest import ladder_job
+
+    a, _ = ladder_job("LR2")
+    b = a.replace("points = 241", "points = 120")
+    assert cli("simulate", write_job(a, name="a.toml"), "--out", tmp_path / "ra", )[0] == 0
+    assert cli("simulate", write_job(b, name="b.toml"), "--out", tmp_path / "rb")[0] == 0
+    code, _, err = cli("report", tmp_path / "ra", tmp_path / "rb", "--out", tmp_path / "rep")
+    assert code == 2 and "need the same grid and drivers" in err and len(err.strip().splitlines()) == 1
+    code, out, err = cli("report", tmp_path / "ra", "--out", tmp_path / "rep1")
+    assert code == 0 and (tmp_path / "rep1" / "report.html").exists(), err

@@ -210,6 +210,13 @@ def write_report(results: list, out: Path) -> Path:
     loaded = [_load_result(Path(p), systems) for p in results]
     base_system = loaded[0][2]
     f = base_system.frequencies
+    for p, (_, _, sys_, _, _) in zip(results, loaded):
+        if sys_.frequencies.shape != f.shape or not np.allclose(sys_.frequencies, f) or \
+                [d.name for d in sys_.job.drivers] != [d.name for d in base_system.job.drivers]:
+            from .errors import XoFitError
+
+            raise XoFitError("results overlaid in one report need the same grid and drivers; this one's job differs "
+                             f"from {results[0]}'s (report them separately)", path=p)
     names = [d.name for d in base_system.job.drivers]
     scored = [score(sys_, v) for _, _, sys_, v, _ in loaded]
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
