@@ -54,21 +54,6 @@ class XoFitError(Exception):
         # one line, always
         return (where + key + self.message).replace("\n", " ")
 
-    def located(
-        self,
-        *,
-        path: str | Path | None = None,
-        line: int | None = None,
-        key: str | None = None,
-    ) -> "XoFitError":
-        """Return a copy of this error with missing location parts filled in."""
-        return type(self)(
-            self.message,
-            path=self.path if self.path is not None else path,
-            line=self.line if self.line is not None else line,
-            key=self.key if self.key is not None else key,
-        )
-
 
 class JobError(XoFitError):
     """The job file is malformed: TOML syntax, an unknown key, a bad value."""

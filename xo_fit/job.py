@@ -958,13 +958,3 @@ def _spread(r: _Reader) -> SpreadSpec:
     )
     r.done()
     return spec
-
-
-def check_values(job: Job) -> None:
-    """Raise if a part has no value to simulate with (a free part with only a range)."""
-    for p in job.valued_parts:
-        if p.value is None:
-            raise JobError(f"part {p.name} has only a range; give it a value (or simulate a fit with --from RESULT)",
-                           path=job.path, key=f"part {p.name}")
-
-

@@ -447,21 +447,6 @@ class _Emitter:
         im = ([(1, acc[1])] if acc[1] else []) + im
         return self._pair(re, im, stem)
 
-    def recip(self, x: tuple, stem: str = "p") -> tuple[tuple, str]:
-        """1 / x; also returns the name of |x|^2."""
-        xr, xi = x
-        if xr and xi:
-            mag = self.let(f"{xr} * {xr} + {xi} * {xi}", stem + "m")
-            inv = self.let(f"1.0 / {mag}", stem + "n")
-            return (self.let(f"{xr} * {inv}", stem + "r"), self.let(f"-{xi} * {inv}", stem + "i")), mag
-        if xr:
-            mag = self.let(f"{xr} * {xr}", stem + "m")
-            return (self.let(f"1.0 / {xr}", stem + "r"), None), mag
-        if xi:
-            mag = self.let(f"{xi} * {xi}", stem + "m")
-            return (None, self.let(f"-1.0 / {xi}", stem + "i")), mag
-        raise NetworkError("internal: a structurally zero pivot")
-
 
 def _order(nodes: list[str], adj: dict[str, set[str]], rhs: set[str], dissipative: set[str]) -> list[str]:
     """Greedy minimum-degree elimination order with fill-in; ties: no RHS first, dissipative first, by name."""
@@ -568,12 +553,6 @@ def _batch_reciprocal(e: "_Emitter", dens: list[str], traps: list[str], stem: st
                 down.append(parent)
         invs = down
     return invs
-
-
-def kernel_layout(net: Network) -> dict:
-    """Rows of the kernel's input array ``fin`` (K, F) and of its ``scratch`` (2 D + 3, F)."""
-    d = len(net.driver_names)
-    return {"fin_rows": 2 + 2 * d, "scratch_rows": 2 * d + 3}
 
 
 def kernel_inputs(net: Network) -> np.ndarray:

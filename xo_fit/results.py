@@ -24,7 +24,6 @@ from . import acoustics
 from .errors import DataError, XoFitError, read_user_text
 from .units import format_value
 
-RESULT_VERSION = 1
 _UMASK = os.umask(0)
 os.umask(_UMASK)
 

@@ -82,11 +82,6 @@ class Space:
         out[:, self.columns] = np.exp(self.lo + np.clip(u, 0.0, 1.0) * (self.hi - self.lo))
         return out
 
-    def point(self, values: np.ndarray) -> np.ndarray:
-        """The cube point (n,) of a values vector (P,)."""
-        v = np.asarray(values, dtype=float)[self.columns]
-        return np.clip((np.log(v) - self.lo) / (self.hi - self.lo), 0.0, 1.0)
-
 
 def make_space(job) -> Space:
     """The search space of a job: its free parts with their ranges and start values."""

@@ -19,9 +19,6 @@ from .job import PART_UNIT
 from .results import Table, write_csv, write_json, write_rows
 from .units import format_value
 
-STAGES = ("fit", "snap", "spread")
-
-
 @dataclass
 class StageOutput:
     """What a stage produced: its result document, the files it wrote, and objects for the console."""
@@ -137,24 +134,3 @@ def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=N
         plot_spread(out / "spread.png", system, s, r, title=f"{j.name}: p05-p95 over {r.samples} builds")
         files.append(out / "spread.png")
     return StageOutput("spread", _read_doc(out), files, {"result": r})
-
-
-def run_job_stages(system, stages: list[str], out: Path, inventory=None, plots: bool = True) -> list[StageOutput]:
-    """Run ``stages`` in order for one job into ``out/<stage>``; each stage starts from the previous design."""
-    outputs = []
-    values = None
-    for st in stages:
-        folder = out / st
-        if st == "fit":
-            o = fit_stage(system, folder, plots=plots)
-        elif st == "snap":
-            start = values if values is not None else system.values()
-            o = snap_stage(system, folder, start, inventory=inventory, plots=plots)
-        elif st == "spread":
-            start = values if values is not None else system.values()
-            o = spread_stage(system, folder, start, plots=plots)
-        else:
-            raise ValueError(f"unknown stage {st!r}")
-        values = np.array([o.document["parts"][n]["value"] for n in system.part_names])
-        outputs.append(o)
-    return outputs
