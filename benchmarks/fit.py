@@ -18,7 +18,6 @@ Run: python benchmarks/fit.py [--seeds 5] [--quick]
 from __future__ import annotations
 
 import argparse
-import re
 import sys
 import tempfile
 import time

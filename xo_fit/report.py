@@ -163,7 +163,6 @@ def _png(fig) -> bytes:
 
 def _load_result(path: Path, systems: dict):
     """(label, document, system, values, spread curves or None) of one result.json."""
-    import json
 
     from .errors import DataError
     from .job import load_job

@@ -33,7 +33,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import DataError, XoFitError, read_user_text
-from .series import check_name, nearest, neighbours
+from .series import check_name, neighbours
 from .units import UnitsError, format_value, parse_value
 
 #: Purchasable values on each side of the nearest one that a part may take.
