@@ -383,7 +383,6 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
                     plots=not no_plots, source_from=str(from_) if from_ else None)
     outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
     sr = outcome.search
-    extra = {"snap": st.document["snap"]}
     say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
         f"{sr.evaluations if sr else 0} designs scored ({'exhaustive' if sr and sr.exhaustive else 'searched'}) "
         f"in {outcome.seconds:.2f} s, {time.perf_counter() - t0:.2f} s in all")
@@ -394,7 +393,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
         change = (sp.value / sp.continuous - 1) * 100
         say(f"  {sp.name:<8} {format_value(sp.continuous, unit):>12} {shown:>22} {change:>+7.1f}%  {sp.source}")
     if before.cost is not None:
-        say(f"  cost: continuous {before.cost:.4g}, log-nearest rounding {extra['snap']['log_nearest_cost']:.4g}, "
+        say(f"  cost: continuous {before.cost:.4g}, log-nearest rounding {st.document['snap']['log_nearest_cost']:.4g}, "
             f"snapped {after.cost:.4g}")
         for label, sc in (("continuous", before), ("snapped", after)):
             m = sc.metrics

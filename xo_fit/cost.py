@@ -117,9 +117,7 @@ class CostModel:
         self.stop = self.t_way_db < -STOP_BAND_DB
         # crossover regions between adjacent ways
         self.pairs = []
-        order = [i for i in np.argsort([_low_edge_db(self.t_way_db[i]) for i in range(len(self.has_way))])
-                 if self.has_way[i]]
-        for a, b in zip(order, order[1:]):
+        for a, b in adjacent_ways(self.t_way_db, self.has_way):
             region = np.abs(self.t_way_db[a] - self.t_way_db[b]) <= XO_REGION_DB
             region &= np.maximum(self.t_way_db[a], self.t_way_db[b]) > -XO_REGION_DB - 6.0
             if region.any():
@@ -206,6 +204,13 @@ def spl_db_unit(x: np.ndarray) -> np.ndarray:
     """20 log10 |x| for unit-level targets, floored at SPL_FLOOR_DB."""
     with np.errstate(divide="ignore"):
         return np.maximum(20 * np.log10(np.abs(x)), SPL_FLOOR_DB)
+
+
+def adjacent_ways(way_db: np.ndarray, has_way: np.ndarray) -> list[tuple[int, int]]:
+    """Pairs of ways that meet at a crossover: the ways with targets, ordered by where their passband
+    begins, taken neighbour by neighbour. way_db: (D, F) way targets in dB; has_way: bool (D,)."""
+    order = [i for i in np.argsort([_low_edge_db(way_db[i]) for i in range(len(has_way))]) if has_way[i]]
+    return list(zip(order, order[1:]))
 
 
 def _low_edge_db(t_db: np.ndarray) -> float:

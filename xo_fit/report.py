@@ -106,13 +106,12 @@ def _pairs(s) -> list:
     t = s.targets
     if t is None:
         return []
-    from .cost import XO_REGION_DB, _low_edge_db, spl_db_unit
+    from .cost import XO_REGION_DB, adjacent_ways, spl_db_unit
 
     db = spl_db_unit(np.where(t.has_way[:, None], t.ways, 1.0))
-    order = [i for i in np.argsort([_low_edge_db(db[i]) for i in range(len(t.has_way))]) if t.has_way[i]]
     out = []
-    for a, b in zip(order, order[1:]):
-        near = np.abs(db[a] - db[b]) <= 2 * XO_REGION_DB
+    for a, b in adjacent_ways(db, t.has_way):
+        near = np.abs(db[a] - db[b]) <= 2 * XO_REGION_DB  # wider than the cost's region: the plot shows the run-up
         if near.any():
             out.append((a, b, near))
     return out
