@@ -32,8 +32,8 @@ from conftest import ladder_job  # noqa: E402  (the test helper that writes hand
 
 from xo_fit.demo import write_scenario  # noqa: E402
 from xo_fit.fit import cost_model  # noqa: E402
-from xo_fit.fused import FusedCost  # noqa: E402
-from xo_fit.job import load_job  # noqa: E402
+from xo_fit.solver.fused import FusedCost  # noqa: E402
+from xo_fit.io.job import load_job  # noqa: E402
 from xo_fit.search import make_space, search  # noqa: E402
 from xo_fit.system import load_system  # noqa: E402
 

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from xo_fit.cli import main
-from xo_fit.network import Branch, compile_network
+from xo_fit.solver.network import Branch, compile_network
 
 
 def net_of(parts: list[tuple], loads: list[np.ndarray | float], f: np.ndarray, *, rs: float = 0.0,

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from xo_fit import acoustics
-from xo_fit.job import load_job
+from xo_fit.io.job import load_job
 from xo_fit.system import load_system
 
 JOB = '''\

@@ -7,7 +7,7 @@ import pytest
 
 from xo_fit.cost import BREAKUP_FLOOR_DB, CostModel
 from xo_fit.fit import score
-from xo_fit.job import load_job
+from xo_fit.io.job import load_job
 from xo_fit.system import load_system
 from xo_fit.targets import build_targets
 

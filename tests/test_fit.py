@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from xo_fit.fit import run_fit
-from xo_fit.job import load_job
+from xo_fit.io.job import load_job
 from xo_fit.search import make_space, search
 from xo_fit.system import load_system
 

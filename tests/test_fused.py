@@ -8,8 +8,8 @@ import pytest
 from xo_fit.cost import TERMS
 from xo_fit.demo import write_scenario
 from xo_fit.fit import cost_model
-from xo_fit.fused import FusedCost
-from xo_fit.job import load_job
+from xo_fit.solver.fused import FusedCost
+from xo_fit.io.job import load_job
 from xo_fit.search import make_space
 from xo_fit.system import load_system
 
@@ -65,7 +65,7 @@ value = {c!r}
     c = float(1 / ((2 * np.pi * f0) ** 2 * 1e-3))
     s = load_system(load_job(write_job(text.replace("[target]", trap.format(c=c) + "\n[target]", 1))))
     check(s, n=8)
-    import xo_fit.fused as fused_module
+    import xo_fit.solver.fused as fused_module
 
     cm, _ = cost_model(s)
     fused = FusedCost(cm)

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from xo_fit.errors import JobError
-from xo_fit.job import DEFAULTS, load_job
+from xo_fit.io.job import DEFAULTS, load_job
 
 from conftest import flat_curve, resistive_curve
 

@@ -7,7 +7,7 @@ import pytest
 import scipy.signal as sig
 
 from xo_fit.errors import DataError
-from xo_fit.measure import minimum_phase, on_grid, read_curve
+from xo_fit.io.measure import minimum_phase, on_grid, read_curve
 
 
 def write(tmp_path, text, name="m.txt"):

@@ -14,7 +14,7 @@ import scipy.signal as sig
 from hypothesis import given, settings, strategies as st
 
 from xo_fit.errors import NetworkError
-from xo_fit.network import reduce_series_chains
+from xo_fit.solver.netlist import reduce_series_chains
 
 from conftest import net_of, ts_impedance
 

@@ -13,7 +13,7 @@ import subprocess
 import numpy as np
 import pytest
 
-from xo_fit.network import Branch, compile_network
+from xo_fit.solver.network import Branch, compile_network
 
 from conftest import ts_impedance
 

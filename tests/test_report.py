@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 
 from xo_fit.cautions import design_cautions
-from xo_fit.job import load_job
-from xo_fit.spice import netlist
+from xo_fit.io.job import load_job
+from xo_fit.io.spice import netlist
 from xo_fit.stress import epdr, stresses
 from xo_fit.system import load_system
 

@@ -7,7 +7,7 @@ import math
 import numba
 import numpy as np
 
-from xo_fit.vecmath import ln
+from xo_fit.solver.vecmath import ln
 
 
 @numba.njit

@@ -16,10 +16,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .measure import P_REF
-
-#: Pressure below which a level is reported as this floor in dB SPL (avoids log of zero).
-SPL_FLOOR_DB = -200.0
+from .constants import P_REF, SPL_FLOOR_DB
 
 
 def driver_factors(response: np.ndarray, reference_voltage: np.ndarray, offset: np.ndarray,

@@ -41,7 +41,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .errors import XoFitError
-from .results import atomic_path
+from .io.results import atomic_path
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (
@@ -79,7 +79,7 @@ def _folder_name(name: str) -> str:
 
 def _data_files(job) -> list[Path]:
     files = []
-    from .job import FileCurve
+    from .io.job import FileCurve
 
     for d in job.drivers:
         for src in (d.response, d.impedance):
@@ -90,7 +90,7 @@ def _data_files(job) -> list[Path]:
     curve = job.target.curve
     if curve and ("/" in curve or "." in curve):
         p = Path(curve)
-        files.append(p if p.is_absolute() else job.path.parent / p)
+        files.append(p if p.is_absolute() else job.folder / p)
     return files
 
 
@@ -108,7 +108,7 @@ def job_hash(job, document: dict) -> str:
 
 def collect(patterns: list[str]) -> list[Item]:
     """The jobs of a batch: files or globs, each expanded into its [sweep] variants; names must be unique."""
-    from .job import expand_job
+    from .io.job import expand_job
 
     paths: list[Path] = []
     for pat in patterns:
@@ -274,7 +274,7 @@ def _start_values(out: Path, item: Item, previous: str | None, part_names) -> li
 def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int | None = None,
               scheduler: str | None = None, plots: bool = True, progress=None) -> BatchReport:
     """Run (or resume) a batch; returns counts and the summary rows (also written to summary.csv)."""
-    from .snap import read_inventory
+    from .io.inventory import read_inventory
     from .system import load_system
 
     for st in stages:

@@ -57,7 +57,7 @@ def _common(quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only 
 
 def _design(job_path: Path, from_: Path | None):
     """The loaded system and a design (P,): the job's own values, or those of a result (--from)."""
-    from .results import read_result, result_values
+    from .io.results import read_result, result_values
 
     system = _load(job_path)
     overrides = None
@@ -67,7 +67,7 @@ def _design(job_path: Path, from_: Path | None):
 
 
 def _load(job_path: Path):
-    from .job import load_job
+    from .io.job import load_job
     from .system import load_system
 
     t0 = time.perf_counter()
@@ -76,7 +76,7 @@ def _load(job_path: Path):
     for w in system.warnings:
         warn(w)
     if OUT.verbose:
-        from .network import cache_dir
+        from .solver.kernels import cache_dir
 
         say(f"  loaded {job.path} and its data in {time.perf_counter() - t0:.3f} s "
             f"({len(job.valued_parts)} parts, {len(job.drivers)} drivers, {system.frequencies.size} points); "
@@ -99,7 +99,7 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
     except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
         swept = False  # load_job reports it properly below
     if swept:
-        from .job import expand_job
+        from .io.job import expand_job
         from .system import load_system
 
         variants = expand_job(job)
@@ -177,7 +177,7 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
 
 
 def _describe_ideal(src) -> str:
-    from .job import FlatResponse, Resistive, ThieleSmall
+    from .io.job import FlatResponse, Resistive, ThieleSmall
     from .units import format_value
 
     if isinstance(src, FlatResponse):
@@ -369,8 +369,8 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          ) -> None:
     """Move every part value to a purchasable one (a series or parts on hand) and re-score, searching the
     combinations with the real cost."""
-    from .job import PART_UNIT
-    from .snap import read_inventory
+    from .io.job import PART_UNIT
+    from .io.inventory import read_inventory
     from .stages import snap_stage
     from .units import format_value
 
@@ -526,9 +526,9 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
 def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
            spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
     """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
-    from .job import load_job
-    from .results import read_result, result_values
-    from .spice import export as write_spice
+    from .io.job import load_job
+    from .io.results import read_result, result_values
+    from .io.spice import export as write_spice
     from .system import load_system
 
     doc = read_result(result)

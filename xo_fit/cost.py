@@ -53,7 +53,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .acoustics import SPL_FLOOR_DB, spl_db
+from .acoustics import spl_db
+from .constants import SPL_FLOOR_DB
+from .grid import band_mask
 
 #: Where a way target lies this far below the level, only excess output counts (dB).
 STOP_BAND_DB = 30.0
@@ -64,16 +66,6 @@ XO_REGION_DB = 6.0
 #: Degrees of phase mismatch that cost like one dB of level error.
 PHASE_DEG_PER_DB = 10.0
 TERMS = ("way", "sum", "phase", "impedance")
-
-
-def band_mask(frequencies: np.ndarray, band: tuple[float, float] | None) -> np.ndarray:
-    """Boolean mask (F,) of the grid points inside ``band`` (Hz, inclusive); all points when band is None."""
-    if band is None:
-        return np.ones(frequencies.shape, dtype=bool)
-    mask = (frequencies >= band[0]) & (frequencies <= band[1])
-    if not mask.any():
-        mask[np.argmin(np.abs(np.log(frequencies / np.sqrt(band[0] * band[1]))))] = True
-    return mask
 
 
 def impedance_minimum(frequencies: np.ndarray, impedance: np.ndarray,

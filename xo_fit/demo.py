@@ -27,8 +27,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .job import ThieleSmall
-from .results import write_text
+from .io.job import ThieleSmall
+from .io.results import write_text
 
 #: Baffle width of the demo cabinet, m.
 BAFFLE_WIDTH = 0.19

@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 
 from .cost import CostModel, simulation_metrics
-from .fused import FusedCost
-from .results import part_entries, response_table, write_csv, write_json
+from .solver.fused import FusedCost
+from .io.results import part_entries, response_table, write_csv, write_json
 from .search import SearchResult, make_space, search
 from .targets import Targets, build_targets
 

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from . import acoustics
-from .results import atomic_path
+from .io.results import atomic_path
 
 
 def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | None = None) -> None:
@@ -164,8 +164,8 @@ def _load_result(path: Path, systems: dict):
     """(label, document, system, values, spread curves or None) of one result.json."""
 
     from .errors import DataError
-    from .job import load_job
-    from .results import read_result, result_values
+    from .io.job import load_job
+    from .io.results import read_result, result_values
     from .system import load_system
 
     doc = read_result(path)
@@ -382,7 +382,7 @@ check the built speaker by measurement.</p>
 <h2>Cautions</h2>{''.join(f'<div class="caution">{esc(c)}</div>' for c in cautions)}
 </body></html>
 """
-    from .results import write_text
+    from .io.results import write_text
 
     write_text(out / "report.html", page)
     return out / "report.html"

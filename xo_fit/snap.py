@@ -25,16 +25,15 @@ or series ``none``. A part with a range keeps to it where the series allows.
 
 from __future__ import annotations
 
-import csv
 import itertools
 from dataclasses import dataclass, field
-from pathlib import Path
 
 import numpy as np
 
-from .errors import DataError, XoFitError, read_user_text
+from .errors import XoFitError
+from .io.inventory import Inventory
 from .series import check_name, neighbours
-from .units import UnitsError, format_value, parse_value
+from .units import format_value
 
 #: Purchasable values on each side of the nearest one that a part may take.
 NEIGHBOURS = 2
@@ -47,64 +46,6 @@ RESTARTS = 4
 PAIRS_PER_PART = 4
 #: Designs per batch of the cost evaluation.
 CHUNK = 2048
-
-
-# ----------------------------------------------------------------------------- inventory
-
-
-@dataclass(frozen=True)
-class Inventory:
-    """Parts on hand: for each kind (R, L, C) a tuple of (value SI, count)."""
-
-    path: Path
-    parts: dict
-
-    def values(self, kind: str) -> list[tuple[float, int]]:
-        return list(self.parts.get(kind, ()))
-
-
-def read_inventory(path: str | Path) -> Inventory:
-    """Read a CSV of kind, value [, count] (one drawer entry a line; count defaults to 1).
-
-    Values are in engineering notation ("4.7uF", "2R2"). Repeated values add up.
-    Lines whose first field is not R, L or C (a header, a comment) are skipped;
-    anything else that is malformed is a DataError naming the file and line.
-    """
-    path = Path(path)
-    text = read_user_text(path, "inventory file")
-    units = {"R": "ohm", "L": "H", "C": "F"}
-    counts: dict[str, dict[float, int]] = {"R": {}, "L": {}, "C": {}}
-    delim = ";" if text.count(";") > text.count(",") else ","
-    for number, row in enumerate(csv.reader(text.splitlines(), delimiter=delim), start=1):
-        fields = [f.strip() for f in row]
-        if not fields or not fields[0] or fields[0].startswith("#"):
-            continue
-        kind = fields[0].upper()
-        if kind not in units:
-            if number == 1 or not any(ch.isdigit() for ch in "".join(fields)):
-                continue  # a header line
-            raise DataError(f"expected a part kind R, L or C in the first column, got '{fields[0]}'",
-                            path=path, line=number)
-        if len(fields) < 2 or len(fields) > 3:
-            raise DataError("expected kind, value [, count]", path=path, line=number)
-        try:
-            value = parse_value(fields[1], units[kind])
-        except UnitsError as e:
-            raise DataError(e.message, path=path, line=number) from None
-        count = 1
-        if len(fields) == 3 and fields[2]:
-            try:
-                count = int(fields[2])
-            except ValueError:
-                raise DataError(f"count '{fields[2]}' is not a whole number", path=path, line=number) from None
-            if count < 1:
-                raise DataError(f"count must be at least 1, got {count}", path=path, line=number)
-        key = float(f"{value:.6g}")
-        counts[kind][key] = counts[kind].get(key, 0) + count
-    parts = {k: tuple(sorted(v.items())) for k, v in counts.items() if v}
-    if not parts:
-        raise DataError("no parts in the inventory: expected lines of kind, value [, count]", path=path)
-    return Inventory(path=path, parts=parts)
 
 
 # ----------------------------------------------------------------------------- choices
@@ -389,7 +330,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     import time
 
     from .fit import require_cost_model
-    from .fused import FusedCost
+    from .solver.fused import FusedCost
     from .search import Space, search
 
     t0 = time.monotonic()
@@ -479,7 +420,7 @@ def _feasible_partial(ev: _Evaluator, row: np.ndarray) -> bool:
 
 def parts_table(outcome: SnapOutcome, job, tolerance_defaults: dict) -> list[dict]:
     """Rows of parts.csv: name, kind, value, text, source, tolerance, combination."""
-    from .job import PART_UNIT
+    from .constants import PART_UNIT
 
     rows = []
     for sp, p in zip(outcome.parts, job.valued_parts):

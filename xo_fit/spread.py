@@ -163,7 +163,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
                distribution: str | None = None, qmc: bool | None = None, rms_limit_db: float | None = None,
                crossovers: list[float] | None = None, progress=None) -> SpreadResult:
     """Monte Carlo, sensitivity and worst cases of design ``nominal`` (P,) of ``system``."""
-    from .cost import band_mask
+    from .grid import band_mask
 
     job = system.job
     spec = job.spread

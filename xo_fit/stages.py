@@ -15,8 +15,8 @@ from pathlib import Path
 import numpy as np
 
 from .fit import cost_model, run_fit, run_fit_restarts, score, write_outputs
-from .job import PART_UNIT
-from .results import Table, write_csv, write_json, write_rows
+from .constants import PART_UNIT
+from .io.results import Table, write_csv, write_json, write_rows
 from .units import format_value
 
 @dataclass

@@ -25,8 +25,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .cost import band_mask
-from .network import branch_states
+from .grid import band_mask
+from .solver.dense import branch_states
 
 
 def epdr(z: np.ndarray) -> np.ndarray:

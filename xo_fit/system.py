@@ -16,10 +16,12 @@ import numpy as np
 
 from . import acoustics
 from .coils import DCR_EXPONENT, dcr_coefficient
-from .errors import JobError
-from .job import FileCurve, FlatResponse, Job, Resistive, ThieleSmall
-from .measure import P_REF, Curve, on_grid, read_curve
-from .network import Branch, Network, Solution, compile_network
+from .errors import JobError, NetworkError
+from .io.job import FileCurve, FlatResponse, Job, Resistive, ThieleSmall
+from .constants import P_REF
+from .io.measure import Curve, on_grid, read_curve
+from .solver.netlist import check_topology
+from .solver.network import Branch, Network, Solution, compile_network
 
 
 @dataclass(frozen=True, eq=False)
@@ -153,17 +155,28 @@ def branches_for(job: Job) -> list[Branch]:
     return out
 
 
+def check_netlist(job: Job) -> None:
+    """The job's netlist checked as a graph (no data read); a NetworkError becomes a JobError at the part's line."""
+    try:
+        check_topology([(p.name, p.nodes[0], p.nodes[1]) for p in job.parts])
+    except NetworkError as e:
+        name = e.key[len("part "):] if e.key and e.key.startswith("part ") else None
+        line = job.part_lines.get(name) if name else None
+        raise JobError(e.message, path=job.path, line=line, key=e.key or "netlist") from None
+
+
 def load_system(job: Job) -> System:
     """Read every driver's data onto the grid and compile the network.
 
     Raises DataError (a measurement file) or NetworkError (the netlist) with the file named.
     """
+    check_netlist(job)
     grid = job.grid.frequencies
     warnings: list[str] = []
     drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
     zd = np.stack([d.impedance for d in drivers])
     network = compile_network(branches_for(job), [d.name for d in job.drivers], grid, zd,
-                              job.source_voltage, job.source_resistance, context=str(job.path))
+                              job.source_voltage, job.source_resistance, context=str(job.path) if job.path else None)
     factors = acoustics.driver_factors(
         np.stack([d.response for d in drivers]),
         np.array([d.reference_voltage for d in job.drivers]),

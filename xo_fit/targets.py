@@ -31,6 +31,7 @@ placed at the job's level.
 
 from __future__ import annotations
 
+import importlib.resources
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -38,11 +39,15 @@ from pathlib import Path
 import numpy as np
 
 from .errors import DataError, JobError
-from .job import Job, WayTarget
-from .measure import read_curve
+from .io.job import Job, WayTarget
+from .io.measure import read_curve
 
-#: Folder of the ready-made system target curves (frequency, dB), referenced by stem.
-TARGETS_DIR = Path(os.environ.get("XO_FIT_TARGETS", Path(__file__).resolve().parents[1] / "targets"))
+
+
+def shipped_curves() -> dict[str, "importlib.resources.abc.Traversable"]:
+    """The ready-made system target curves (frequency, dB) shipped as package data, by stem."""
+    folder = importlib.resources.files("xo_fit").joinpath("data", "targets")
+    return {Path(x.name).stem: x for x in folder.iterdir() if x.name.endswith(".txt")}
 
 
 def _butterworth_lowpass(order: int, x: np.ndarray) -> np.ndarray:
@@ -131,24 +136,28 @@ def polarities(ways: tuple[WayTarget, ...]) -> dict[str, float]:
 
 
 def load_curve(name: str, job: Job, f: np.ndarray) -> np.ndarray:
-    """A shaping curve in dB on the grid: a file in targets/ by stem, or a path (relative to the job's folder)."""
-    candidates = []
+    """A shaping curve in dB on the grid: a shipped curve by stem, or a path (relative to the job's folder)."""
     p = Path(name)
+    shipped = shipped_curves()
     if p.suffix or os.sep in name or "/" in name:
-        candidates.append(p if p.is_absolute() else job.path.parent / p)
-    else:
-        candidates += sorted(TARGETS_DIR.glob(f"{name}.*"))
-    for c in candidates:
-        if c.exists():
-            curve = read_curve(c, "response")
-            lo, hi = curve.f_range
-            if f[0] < lo * (1 - 1e-9) or f[-1] > hi * (1 + 1e-9):
-                raise DataError(f"target curve covers {lo:g}-{hi:g} Hz but the job's grid spans {f[0]:g}-{f[-1]:g} Hz",
-                                path=c)
-            return np.interp(np.log(f), np.log(curve.frequency), curve.magnitude)
-    known = sorted(x.stem for x in TARGETS_DIR.glob("*.txt")) if TARGETS_DIR.is_dir() else []
-    raise JobError(f"no target curve '{name}': give a file path or one of {', '.join(known) or '(none shipped)'}",
+        path = p if p.is_absolute() else job.folder / p
+        if not path.exists():
+            raise JobError(f"target curve file {path} not found", path=job.path, key="[target] curve")
+        return _curve_on_grid(path, f)
+    if name in shipped:
+        with importlib.resources.as_file(shipped[name]) as path:
+            return _curve_on_grid(path, f)
+    raise JobError(f"no target curve '{name}': give a file path or one of {', '.join(sorted(shipped)) or '(none shipped)'}",
                    path=job.path, key="[target] curve")
+
+
+def _curve_on_grid(path: Path, f: np.ndarray) -> np.ndarray:
+    curve = read_curve(path, "response")
+    lo, hi = curve.f_range
+    if f[0] < lo * (1 - 1e-9) or f[-1] > hi * (1 + 1e-9):
+        raise DataError(f"target curve covers {lo:g}-{hi:g} Hz but the job's grid spans {f[0]:g}-{f[-1]:g} Hz",
+                        path=path)
+    return np.interp(np.log(f), np.log(curve.frequency), curve.magnitude)
 
 
 @dataclass(frozen=True, eq=False)
@@ -190,7 +199,7 @@ def build_targets(job: Job, f: np.ndarray) -> Targets:
     shape = 10 ** (curve_db / 20.0)
     system = np.nansum(np.where(has[:, None], ways, 0), axis=0) * shape
     ways = np.where(has[:, None], ways * shape, ways)
-    from .cost import band_mask
+    from .grid import band_mask
 
     band = band_mask(f, spec.band)
     level = None if spec.level == "auto" else float(spec.level)

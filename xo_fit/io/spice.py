@@ -83,7 +83,7 @@ def _driver_subckt(spec, data, system) -> list[str]:
     elif isinstance(imp, Resistive):
         out += ["* resistive stand-in", f"RD pos neg {_n(imp.resistance)}"]
     else:
-        from .cost import band_mask
+        from ..grid import band_mask
 
         band = band_mask(system.frequencies, system.job.target.band)
         zmin = float(np.min(np.abs(data.impedance[band])))

@@ -3,8 +3,8 @@
 A fit spends nearly all of its time evaluating the cost of candidate designs.
 Computing dB curves in numpy costs several microseconds per candidate, far
 more than the solve; this kernel instead extends the solver's straight-line
-code (:func:`xo_fit.network.solver_code`) with each driver's pressure, the
-complex sum, their levels in dB (through :func:`xo_fit.vecmath.ln`, which
+code (:func:`xo_fit.solver.codegen.solver_code`) with each driver's pressure, the
+complex sum, their levels in dB (through :func:`xo_fit.solver.vecmath.ln`, which
 vectorises), the phase chords through the crossover regions and the impedance
 shortfall, and reduces them over the band inside the frequency loop. The
 terms are exactly those of :class:`xo_fit.cost.CostModel` (the reference
@@ -25,10 +25,10 @@ import math
 
 import numpy as np
 
-from .acoustics import SPL_FLOOR_DB
-from .cost import BREAKUP_FLOOR_DB, PHASE_DEG_PER_DB, TERMS
-from .measure import P_REF
-from .network import KERNEL_VERSION, PIVOT_TOLERANCE, load_kernel, solver_code
+from ..constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB
+from ..cost import BREAKUP_FLOOR_DB, PHASE_DEG_PER_DB, TERMS
+from .codegen import solver_code
+from .kernels import KERNEL_VERSION, load_kernel
 
 #: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
 _P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
@@ -131,7 +131,7 @@ class FusedCost:
             *code.comment,
             "import numba",
             "from math import sqrt",
-            "from xo_fit.vecmath import ln, DB10",
+            "from xo_fit.solver.vecmath import ln, DB10",
             "",
             f"P2F = {_P2_FLOOR!r}",
             f"PREF_DB = {_PREF_DB!r}",

@@ -21,10 +21,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import DataError
+from ..constants import P_REF
+from ..errors import DataError
 
-#: Reference pressure of dB SPL, Pa.
-P_REF = 20e-6
 #: Relative slack allowed when checking that the grid lies inside a file's range.
 RANGE_SLACK = 1e-9
 #: Width of the band at each end of a curve whose log-log slope extends it (octaves).

@@ -20,9 +20,9 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from . import acoustics
-from .errors import DataError, XoFitError, read_user_text
-from .units import format_value
+from .. import acoustics
+from ..errors import DataError, XoFitError, read_user_text
+from ..units import format_value
 
 _UMASK = os.umask(0)
 os.umask(_UMASK)

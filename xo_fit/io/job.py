@@ -13,6 +13,7 @@ Relative paths are taken from the job file's folder.
 
 from __future__ import annotations
 
+import json
 import re
 import tomllib
 from dataclasses import dataclass, field
@@ -22,9 +23,10 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .errors import JobError, NetworkError, XoFitError, read_user_text
-from .network import check_topology
-from .units import UnitsError, parse_percent, parse_value, parse_wire
+from ..constants import PART_TYPES, PART_UNIT, RATING_UNIT
+from ..errors import JobError, XoFitError, read_user_text
+from ..grid import Grid
+from ..units import UnitsError, parse_percent, parse_value, parse_wire
 
 #: Every default of the job format, by table and key.
 DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
@@ -45,11 +47,6 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
                "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
 })
 
-PART_TYPES = ("R", "L", "C", "driver")
-#: Base unit of the value of each valued part type.
-PART_UNIT = {"R": "ohm", "L": "H", "C": "F"}
-SOURCE_NODE = "in"
-GROUND_NODE = "0"
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 _NODE = re.compile(r"^[A-Za-z0-9_\-+.]+$")
 
@@ -70,22 +67,6 @@ class FrozenMap(dict):
 
     def __hash__(self):  # frozen dataclasses holding it stay hashable
         return hash(tuple(sorted(self.items())))
-
-
-@dataclass(frozen=True)
-class Grid:
-    """The log-spaced frequency axis every curve is put on (Hz)."""
-
-    f_min: float
-    f_max: float
-    points: int
-
-    @property
-    def frequencies(self) -> np.ndarray:
-        """Frequencies in Hz, shape (F,), strictly rising, log-spaced, read-only."""
-        f = np.geomspace(self.f_min, self.f_max, self.points)
-        f.setflags(write=False)
-        return f
 
 
 @dataclass(frozen=True)
@@ -254,10 +235,17 @@ class StressSpec:
 
 @dataclass(frozen=True)
 class Job:
-    """A validated job. Every value is SI; every path is absolute."""
+    """A validated job. Every value is SI; every path is absolute.
+
+    ``path`` is the job file (None for a job built from a mapping), ``folder``
+    the folder its relative paths were resolved against, ``document`` the
+    resolved job document (after [sweep] expansion) as JSON text, from which
+    :func:`load_job` rebuilds the same job, and ``part_lines`` the line of each
+    part's table in the file (for error messages found later).
+    """
 
     name: str
-    path: Path
+    path: Path | None
     grid: Grid
     source_voltage: float
     source_resistance: float
@@ -270,6 +258,14 @@ class Job:
     snap: SnapSpec
     spread: SpreadSpec
     stress: StressSpec = StressSpec()
+    folder: Path = Path(".")
+    document: str = "{}"
+    part_lines: Mapping[str, int] = field(default_factory=lambda: FrozenMap())  # line of each part's nodes
+
+    @property
+    def data(self) -> dict:
+        """The resolved job document (a fresh dict with the TOML's structure)."""
+        return json.loads(self.document)
 
     def driver(self, name: str) -> DriverSpec:
         for d in self.drivers:
@@ -438,9 +434,10 @@ class _Reader:
 
 @dataclass
 class _Context:
-    path: Path
+    path: Path | None
     folder: Path
     lines: _Lines
+    stem: str = "job"
 
     def error(self, table: tuple, key: str | None, message: str, where: str | None = None) -> JobError:
         return JobError(message, path=self.path, line=self.lines.find(table, key), key=where)
@@ -452,7 +449,7 @@ def _kind(v: Any) -> str:
 
 
 def _unit_text(unit: str) -> str:
-    from .units import UNIT_SYMBOL
+    from ..units import UNIT_SYMBOL
     return f"a value in {UNIT_SYMBOL.get(unit, unit)}" if unit else "a number"
 
 
@@ -462,15 +459,18 @@ def _close_match(key: str, known: list[str]) -> str | None:
     return m[0] if m else None
 
 
-def load_job(path: str | Path) -> Job:
-    """Read and validate a job file.
+def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
+    """Read and validate a job: a TOML file, or a mapping with the TOML's structure.
+
+    ``base`` is the folder relative data paths are taken from: by default the
+    job file's folder (for a mapping, the current folder).
 
     Raises
     ------
     JobError
-        For anything wrong with the file, naming the file, line and key.
+        For anything wrong with the job, naming the file, line and key.
     """
-    data, ctx = _read(path)
+    data, ctx = _read(source, base)
     if "sweep" in data:
         raise JobError("this job has a [sweep] of variants: run it with 'xo-fit batch' (the other commands take "
                        "one design)", path=ctx.path, line=ctx.lines.find(("sweep",)), key="[sweep]")
@@ -493,7 +493,7 @@ def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
     import itertools
 
     data, ctx = _read(path)
-    base_name = data.get("name", ctx.path.stem) if isinstance(data.get("name"), str) else ctx.path.stem
+    base_name = data.get("name") if isinstance(data.get("name"), str) else ctx.stem
     sweep = data.pop("sweep", None)
     if sweep is None:
         return [(_build(data, ctx), data)]
@@ -542,8 +542,14 @@ def _assign(data: dict, path: str, value: Any, ctx: "_Context", key: str) -> Non
     node[segs[-1]] = value
 
 
-def _read(path: str | Path) -> tuple[dict, "_Context"]:
-    path = Path(path)
+def _read(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> tuple[dict, "_Context"]:
+    if isinstance(source, Mapping):
+        import copy
+
+        data = copy.deepcopy(dict(source))
+        folder = Path(base if base is not None else ".").resolve()
+        return data, _Context(path=None, folder=folder, lines=_Lines(""), stem="job")
+    path = Path(source)
     text = read_user_text(path, "job file", JobError)
     try:
         data = tomllib.loads(text)
@@ -553,13 +559,14 @@ def _read(path: str | Path) -> tuple[dict, "_Context"]:
         line = int(m[1]) if m else None
         msg = re.sub(r"\s*\(at line \d+, column \d+\)", "", msg)
         raise JobError(f"invalid TOML: {msg}", path=path, line=line) from None
-    ctx = _Context(path=path.resolve(), folder=path.resolve().parent, lines=_Lines(text))
+    folder = Path(base).resolve() if base is not None else path.resolve().parent
+    ctx = _Context(path=path.resolve(), folder=folder, lines=_Lines(text), stem=path.stem)
     return data, ctx
 
 
 def _build(data: dict, ctx: _Context) -> Job:
     top = _Reader(data, (), "job", ctx)
-    name = top.text("name", ctx.path.stem)
+    name = top.text("name", ctx.stem)
 
     grid = _grid(top.sub("grid", "[grid]"))
     src = top.sub("source", "[source]")
@@ -594,9 +601,14 @@ def _build(data: dict, ctx: _Context) -> Job:
     spread = _spread(top.sub("spread", "[spread]"))
     stress = _stress(top.sub("stress", "[stress]"))
     top.done()
+    document = dict(data)
+    document["name"] = name
+    lines = {p.name: ctx.lines.find(("part", i), "nodes") for i, p in enumerate(parts)}
     return Job(name=name, path=ctx.path, grid=grid, source_voltage=voltage, source_resistance=resistance,
                speed_of_sound=c, drivers=tuple(drivers), parts=parts, target=target, cost=cost,
-               search=search, snap=snap, spread=spread, stress=stress)
+               search=search, snap=snap, spread=spread, stress=stress, folder=ctx.folder,
+               document=json.dumps(document, default=str, sort_keys=True),
+               part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}))
 
 
 def _stress(r: _Reader) -> StressSpec:
@@ -761,10 +773,10 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
             raise r.error("tolerance", e.message) from None
     rating = None
     if r.has("rating"):
-        rating = r.value("rating", {"R": "W", "C": "V", "L": "A"}[ptype])
+        rating = r.value("rating", RATING_UNIT[ptype])
     series = r.text("series")
     if series is not None:
-        from .series import check_name
+        from ..series import check_name
 
         try:
             series = check_name(series)
@@ -798,13 +810,6 @@ def _check_parts(parts: tuple[PartSpec, ...], drivers: list[DriverSpec], ctx: _C
                 raise ctx.error(("part", i), "driver",
                                 f"driver '{p.driver}' is already wired in by part {used[p.driver]}", f"part {p.name}")
             used[p.driver] = p.name
-    try:
-        check_topology([(p.name, p.nodes[0], p.nodes[1]) for p in parts])
-    except NetworkError as e:
-        name = e.key[len("part "):] if e.key and e.key.startswith("part ") else None
-        i = next((k for k, p in enumerate(parts) if p.name == name), None)
-        table = ("part", i) if i is not None else ()
-        raise ctx.error(table, "nodes" if i is not None else None, e.message, e.key or "netlist") from None
     for d in drivers:
         if d.name not in used:
             raise ctx.error(("driver", d.name), None,
@@ -920,7 +925,7 @@ def _snap(r: _Reader) -> SnapSpec:
                 series[k] = v
         else:
             raise r.error("series", f"expected a series name or a table {{L = \"E12\", ...}}, got {raw!r}")
-        from .series import check_name
+        from ..series import check_name
 
         for k, v in series.items():
             try:

@@ -1,0 +1,31 @@
+"""Constants shared across the package: one home, so no two modules can disagree.
+
+Node names of the netlist, the pressure reference of dB SPL, the floors that
+stand in for the logarithm of zero, the solver's pivot tolerance, and the SI
+unit of each valued part type.
+"""
+
+from __future__ import annotations
+
+#: The source's positive terminal.
+SOURCE_NODE = "in"
+#: The source's return (ground).
+GROUND_NODE = "0"
+
+#: Reference sound pressure of dB SPL, Pa (20 uPa, ISO 1683).
+P_REF = 20e-6
+#: Levels below this read as this floor in dB SPL (avoids the log of zero).
+SPL_FLOOR_DB = -200.0
+
+#: A pivot smaller than this fraction of the summed |admittance| at its node sends the point to the dense solve.
+PIVOT_TOLERANCE = 1e-3
+
+#: Part types of a netlist.
+PART_TYPES = ("R", "L", "C", "driver")
+#: Base unit of the value of each valued part type.
+PART_UNIT = {"R": "ohm", "L": "H", "C": "F"}
+#: Unit of a part's rating, by type: W for a resistor, V for a capacitor, A for a coil.
+RATING_UNIT = {"R": "W", "C": "V", "L": "A"}
+
+#: Version of the result.json layout written by this package.
+RESULT_FORMAT = 2

@@ -1,0 +1,496 @@
+"""Code generation: straight-line elimination code for one topology, as the source of a numba kernel.
+
+Series chains are merged (:func:`~xo_fit.solver.netlist.reduce_series_chains`),
+the symmetric nodal matrix is assembled from per-candidate branch constants,
+eliminated symbolically in a minimum-degree order with fill-in tracked, and
+the outputs (driver voltages, input impedance, the pivot check) are written
+for each (candidate, frequency) point. Real and imaginary parts are kept apart
+so the frequency loop (innermost) vectorises.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..constants import GROUND_NODE, SOURCE_NODE
+from .kernels import KERNEL_VERSION
+from .netlist import reduce_series_chains
+from ..errors import NetworkError
+
+if TYPE_CHECKING:
+    from .network import Network
+
+
+def _render(terms: list[tuple[int, str]]) -> str:
+    """Render signed terms [(+1, "a"), (-1, "b * c")] as "a - b * c"."""
+    expr = ""
+    for sign, term in terms:
+        if not expr:
+            expr = term if sign > 0 else f"-{term}"
+        else:
+            expr += f" + {term}" if sign > 0 else f" - {term}"
+    return expr
+
+
+class _Emitter:
+    """Emits straight-line real arithmetic for complex values kept as (re, im) names; None is a zero part."""
+
+    def __init__(self) -> None:
+        self.lines: list[str] = []
+        self.count = 0
+
+    def let(self, expr: str, stem: str = "t") -> str:
+        self.count += 1
+        name = f"{stem}{self.count}"
+        self.lines.append(f"{name} = {expr}")
+        return name
+
+    def _pair(self, re_terms: list, im_terms: list, stem: str) -> tuple:
+        return (self.let(_render(re_terms), stem + "r") if re_terms else None,
+                self.let(_render(im_terms), stem + "i") if im_terms else None)
+
+    def sum(self, terms: list[tuple[int, tuple]], stem: str = "a") -> tuple:
+        """Sum of sign * value over terms; returns a complex pair (names or None)."""
+        return self._pair([(s, v[0]) for s, v in terms if v[0]], [(s, v[1]) for s, v in terms if v[1]], stem)
+
+    @staticmethod
+    def _products(x: tuple, y: tuple, sign: int) -> tuple[list, list]:
+        """Signed terms of sign * x * y, real and imaginary."""
+        xr, xi = x
+        yr, yi = y
+        re = [(sign, f"{xr} * {yr}")] if xr and yr else []
+        re += [(-sign, f"{xi} * {yi}")] if xi and yi else []
+        im = [(sign, f"{xr} * {yi}")] if xr and yi else []
+        im += [(sign, f"{xi} * {yr}")] if xi and yr else []
+        return re, im
+
+    def mul(self, x: tuple, y: tuple, stem: str = "m") -> tuple:
+        return self._pair(*self._products(x, y, 1), stem)
+
+    def fms(self, acc: tuple, x: tuple, y: tuple, stem: str = "a") -> tuple:
+        """acc - x * y, one expression per part (so the compiler can contract it to fused multiply-adds)."""
+        re, im = self._products(x, y, -1)
+        if not re and not im:
+            return acc
+        re = ([(1, acc[0])] if acc[0] else []) + re
+        im = ([(1, acc[1])] if acc[1] else []) + im
+        return self._pair(re, im, stem)
+
+
+def _order(nodes: list[str], adj: dict[str, set[str]], rhs: set[str], dissipative: set[str]) -> list[str]:
+    """Greedy minimum-degree elimination order with fill-in; ties: no RHS first, dissipative first, by name."""
+    adj = {n: set(a) for n, a in adj.items()}
+    left = list(nodes)
+    order = []
+    while left:
+        best = min(left, key=lambda n: (len(adj[n]), n in rhs, n not in dissipative, n))
+        nb = adj[best]
+        for i in nb:
+            adj[i] |= nb - {i}
+            adj[i].discard(best)
+        if best in rhs:
+            rhs |= nb
+        left.remove(best)
+        order.append(best)
+    return order
+
+
+def _batch_reciprocal(e: "_Emitter", dens: list[str], traps: list[str], stem: str) -> list[str]:
+    """Reciprocals of several independent reals with one division (Montgomery's trick, tree-shaped).
+
+    The values are multiplied pairwise up a balanced tree, the root is
+    inverted once, and the inverse is pushed back down (1/(ab) * b = 1/a), so
+    n reciprocals cost one division and about 3n multiplications with a
+    dependency depth of only 2 log2(n) multiplications: the kernel is bound
+    by latency, not by arithmetic. ``traps`` receives a name that is NaN when
+    the product over- or underflowed, so that the point is solved again by
+    the dense path instead of silently returning zeros.
+    """
+    if len(dens) == 1:
+        inv = e.let(f"1.0 / {dens[0]}", stem)
+        traps.append(e.let(f"{dens[0]} * {inv}", stem + "t"))
+        return [inv]
+    # build the tree bottom-up: levels[0] = leaves
+    levels = [list(dens)]
+    while len(levels[-1]) > 1:
+        prev = levels[-1]
+        nxt = [e.let(f"{prev[i]} * {prev[i + 1]}", stem + "c") if i + 1 < len(prev) else prev[i]
+               for i in range(0, len(prev), 2)]
+        levels.append(nxt)
+    root = levels[-1][0]
+    inv = e.let(f"1.0 / {root}", stem + "n")
+    traps.append(e.let(f"{root} * {inv}", stem + "t"))
+    invs = [inv]
+    for depth in range(len(levels) - 2, -1, -1):
+        prev = levels[depth]
+        down = []
+        for i in range(0, len(prev), 2):
+            parent = invs[i // 2]
+            if i + 1 < len(prev):
+                down.append(e.let(f"{parent} * {prev[i + 1]}", stem + "r"))
+                down.append(e.let(f"{parent} * {prev[i]}", stem + "r"))
+            else:
+                down.append(parent)
+        invs = down
+    return invs
+
+
+def kernel_inputs(net: Network) -> np.ndarray:
+    """The frequency-dependent kernel input ``fin``: rows w, 1/w, then Re and Im of each driver's admittance."""
+    y = 1.0 / net.driver_impedance
+    rows = [net.omega, 1.0 / net.omega]
+    for k in range(y.shape[0]):
+        rows += [y[k].real, y[k].imag]
+    return np.ascontiguousarray(np.vstack(rows))
+
+
+@dataclass(frozen=True)
+class SolverCode:
+    """Straight-line code that solves one network at one (candidate b, frequency f) point.
+
+    prep: lines per candidate (outside the frequency loop), reading ``vals[b, :]``;
+    loads: lines reading the frequency-dependent inputs from ``fin[:, f]``;
+    body: the solve and the pivot check, ending with ``bad`` (positive or NaN: redo densely);
+    volts: (re, im) names of each driver's terminal voltage, by driver index ("0.0" for a zero part);
+    zin: (re, im) names of the input impedance; comment: lines describing the reduced network.
+    """
+
+    prep: tuple[str, ...]
+    loads: tuple[str, ...]
+    body: tuple[str, ...]
+    volts: tuple[tuple[str, str], ...]
+    zin: tuple[str, str]
+    comment: tuple[str, ...]
+
+
+def solver_code(net: Network) -> SolverCode:
+    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`)."""
+    e = _Emitter()
+    edges = reduce_series_chains(net)
+    col_of = {}
+    col = 0
+    for j, br in enumerate(net.branches):
+        if br.kind != "D":
+            col_of[j] = col
+            col += 1
+
+    # ---- per candidate: the constants of every edge
+    prep: list[str] = []
+    for j, br in enumerate(net.branches):
+        if br.kind == "D":
+            continue
+        c = col_of[j]
+        prep.append(f"x_{j} = vals[b, {c}]")
+        if br.kind in ("L", "C") and br.r_coef != 0.0:
+            prep.append(f"r_{j} = r_coef[{c}] * x_{j} ** r_exp[{c}]" if br.r_exp else f"r_{j} = r_coef[{c}]")
+    forms = []  # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss)
+    for ei, edge in enumerate(edges):
+        brs = [net.branches[j] for j in edge.members]
+        if len(brs) == 1 and brs[0].kind == "D":
+            forms.append(("D", brs[0].driver))
+            continue
+        if len(brs) == 1 and not brs[0].lossy:
+            j = edge.members[0]
+            kind = brs[0].kind
+            if kind == "R":
+                prep.append(f"g_{j} = 1.0 / x_{j}")
+                forms.append(("G", f"g_{j}"))
+            elif kind == "C":
+                forms.append(("jwC", f"x_{j}"))
+            else:
+                prep.append(f"il_{j} = 1.0 / x_{j}")
+                forms.append(("L0", f"il_{j}"))
+            continue
+        zr, ls, ss = [], [], []
+        for j, br in zip(edge.members, brs):
+            if br.kind == "R":
+                zr.append(f"x_{j}")
+            elif br.kind == "L":
+                ls.append(f"x_{j}")
+                if br.r_coef:
+                    zr.append(f"r_{j}")
+            else:
+                ss.append(f"1.0 / x_{j}")
+                if br.r_coef:
+                    zr.append(f"r_{j}")
+        names = []
+        for tag, terms in (("zr", zr), ("ls", ls), ("ss", ss)):
+            if terms:
+                prep.append(f"{tag}_{ei} = {' + '.join(terms)}")
+                prep.append(f"{tag}2_{ei} = {tag}_{ei} * {tag}_{ei}") if tag == "zr" else None
+                names.append(f"{tag}_{ei}")
+            else:
+                names.append(None)
+        forms.append(("Z", *names, ei))
+
+    # ---- per frequency: edge admittances, with every division batched into one
+    traps: list[str] = []
+    loads = ["w = fin[0, f]", "iw = fin[1, f]"]
+    ys: list[tuple] = []
+    pending = []  # (edge index, zr, zi name) needing 1/|z|^2
+    for ei, form in enumerate(forms):
+        if form[0] == "D":
+            dd = form[1]
+            loads += [f"yd{dd}r = fin[{2 + 2 * dd}, f]", f"yd{dd}i = fin[{3 + 2 * dd}, f]"]
+            ys.append((f"yd{dd}r", f"yd{dd}i"))
+        elif form[0] == "G":
+            ys.append((form[1], None))
+        elif form[0] == "jwC":
+            ys.append((None, e.let(f"w * {form[1]}", "y")))
+        elif form[0] == "L0":
+            ys.append((None, e.let(f"-iw * {form[1]}", "y")))
+        else:
+            _, zr, ls, ss, k = form
+            parts = ([f"w * {ls}"] if ls else []) + ([f"- iw * {ss}"] if ss else [])
+            zi = e.let(" ".join(parts).lstrip("+ ").replace("- ", "-", 1) if parts[0].startswith("-") else " ".join(parts), "zi") if parts else None
+            if zr and zi:
+                den = e.let(f"zr2_{k} + {zi} * {zi}", "zd")
+            elif zr:
+                den = f"zr2_{k}"
+            else:
+                den = e.let(f"{zi} * {zi}", "zd")
+            pending.append((ei, zr, zi, den))
+            ys.append(None)
+    if pending:
+        invs = _batch_reciprocal(e, [p[3] for p in pending], traps, "iz")
+        for (ei, zr, zi, _), inv in zip(pending, invs):
+            ys[ei] = (e.let(f"{zr} * {inv}", "yr") if zr else None, e.let(f"-{zi} * {inv}", "yi") if zi else None)
+    body_y = e.lines
+    e.lines = []
+
+    # ---- assembly of the symmetric nodal matrix (upper triangle) and the right-hand side,
+    #      for 1 V at "in" (the source resistance is applied afterwards, Thevenin-wise)
+    nodes = sorted({n for ed in edges for n in (ed.a, ed.b)} - {GROUND_NODE, SOURCE_NODE})
+    idx = {n: i for i, n in enumerate(nodes)}
+    entries: dict[tuple[int, int], list] = {}
+    rhs_terms: dict[int, list] = {}
+    scale_terms: dict[int, list[str]] = {i: [] for i in range(len(nodes))}
+    dissipative = set()
+    for ei, ed in enumerate(edges):
+        ia, ib = idx.get(ed.a), idx.get(ed.b)
+        if ia is not None or ib is not None:
+            # |Re y| + |Im y| of the edge, using the signs known from its form (Re y >= 0 always,
+            # Im y > 0 for an ideal C, < 0 for an ideal L)
+            yr_, yi_ = ys[ei]
+            kind = forms[ei][0]
+            if kind == "G":
+                mag_e = yr_
+            elif kind == "jwC":
+                mag_e = yi_
+            elif kind == "L0":
+                mag_e = e.let(f"-{yi_}", "ye")
+            else:
+                mag_e = e.let(" + ".join(([yr_] if yr_ else []) + ([f"abs({yi_})"] if yi_ else [])), "ye")
+        for i in (ia, ib):
+            if i is not None:
+                entries.setdefault((i, i), []).append((1, ys[ei]))
+                scale_terms[i].append(mag_e)
+                if forms[ei][0] in ("D", "G", "Z"):
+                    dissipative.add(nodes[i])
+        if ia is not None and ib is not None:
+            entries.setdefault((min(ia, ib), max(ia, ib)), []).append((-1, ys[ei]))
+        if ia is not None and ed.b == SOURCE_NODE:
+            rhs_terms.setdefault(ia, []).append(ys[ei])
+        if ib is not None and ed.a == SOURCE_NODE:
+            rhs_terms.setdefault(ib, []).append(ys[ei])
+    a: dict[tuple[int, int], tuple] = {}
+    for key in sorted(entries):
+        a[key] = e.sum(entries[key], f"a{key[0]}_{key[1]}_")
+    rhs: dict[int, tuple] = {}
+    for i, terms in sorted(rhs_terms.items()):
+        rhs[i] = e.sum([(1, t) for t in terms], f"b{i}_")
+
+    adj = {n: set() for n in nodes}
+    for (i, k) in a:
+        if i != k:
+            adj[nodes[i]].add(nodes[k])
+            adj[nodes[k]].add(nodes[i])
+    order = [idx[n] for n in _order(nodes, adj, {nodes[i] for i in rhs}, dissipative)]
+
+    def get(i: int, k: int) -> tuple:
+        return a.get((min(i, k), max(i, k)), (None, None))
+
+    # ---- elimination: symbolic, with fill-in; pivots of one elimination-tree level share one division
+    struct = {k: set() for k in range(len(nodes))}
+    for (i, k) in a:
+        if i != k:
+            struct[i].add(k)
+            struct[k].add(i)
+    level: dict[int, int] = {}
+    nbrs_at: dict[int, list[int]] = {}
+    left = set(range(len(nodes)))
+    for k in order:
+        left.discard(k)
+        nb = sorted(struct[k] & left)
+        nbrs_at[k] = nb
+        level.setdefault(k, 0)
+        for i in nb:
+            struct[i] |= set(nb) - {i}
+            level[i] = max(level.get(i, 0), level[k] + 1)
+    inv_piv: dict[int, tuple] = {}
+    urow: dict[int, dict[int, tuple]] = {}
+    rhs_at: dict[int, tuple] = {}
+    mags: dict[int, str] = {}
+    for lv in sorted(set(level.values())):
+        group = [k for k in order if level[k] == lv]
+        dens = []
+        for k in group:
+            pr, pi = get(k, k)
+            if pr and pi:
+                mags[k] = e.let(f"{pr} * {pr} + {pi} * {pi}", f"q{k}_m")
+            elif pr or pi:
+                mags[k] = e.let(f"{pr or pi} * {pr or pi}", f"q{k}_m")
+            else:
+                raise NetworkError("internal: a structurally zero pivot")
+            dens.append(mags[k])
+        invs = _batch_reciprocal(e, dens, traps, f"ip{lv}_")
+        for k, inv in zip(group, invs):
+            pr, pi = get(k, k)
+            inv_piv[k] = (e.let(f"{pr} * {inv}", f"q{k}_r") if pr else None,
+                          e.let(f"-{pi} * {inv}", f"q{k}_i") if pi else None)
+        for k in group:
+            nb = nbrs_at[k]
+            urow[k] = {i: get(k, i) for i in nb}
+            rhs_at[k] = rhs.get(k, (None, None))
+            t = {i: e.mul(get(k, i), inv_piv[k], f"l{k}_{i}_") for i in nb}
+            for ii, i in enumerate(nb):
+                for jj in nb[ii:]:
+                    key = (min(i, jj), max(i, jj))
+                    a[key] = e.fms(a.get(key, (None, None)), t[i], get(k, jj), f"a{key[0]}_{key[1]}_")
+                if rhs_at[k] != (None, None):
+                    rhs[i] = e.fms(rhs.get(i, (None, None)), t[i], rhs_at[k], f"b{i}_")
+
+    # ---- back substitution, only for the node voltages the outputs need
+    need: set[int] = set()
+    for ed, form in zip(edges, forms):
+        if form[0] == "D" or SOURCE_NODE in (ed.a, ed.b):
+            need.update(idx[n] for n in (ed.a, ed.b) if n in idx)
+    for k in order:
+        if k in need:
+            need.update(urow[k])
+    x: dict[int, tuple] = {}
+    for k in reversed(order):
+        if k not in need:
+            continue
+        acc = rhs_at[k]
+        for i, u in urow[k].items():
+            acc = e.fms(acc, u, x[i], f"s{k}_")
+        x[k] = e.mul(acc, inv_piv[k], f"x{k}_") if acc != (None, None) else (None, None)
+
+    def volt(node: str) -> tuple:
+        """Node voltage per volt at "in"."""
+        if node == GROUND_NODE:
+            return (None, None)
+        if node == SOURCE_NODE:
+            return ("1.0", None)
+        return x[idx[node]]
+
+    # ---- the current drawn at 1 V, the input impedance, and the source applied through Rs:
+    #      Z = 1 / I1;  V(in) = vs / (1 + Rs I1);  every node voltage scales by V(in)
+    cur_terms = []
+    for ei, ed in enumerate(edges):
+        if SOURCE_NODE in (ed.a, ed.b):
+            other = ed.b if ed.a == SOURCE_NODE else ed.a
+            dv = e.sum([(1, volt(SOURCE_NODE)), (-1, volt(other))], f"dv{ei}_")
+            cur_terms.append(e.mul(ys[ei], dv, f"c{ei}_"))
+    cr, ci = e.sum([(1, c) for c in cur_terms], "ci_")
+    if cr is None and ci is None:
+        raise NetworkError("internal: no current path from the source")
+    cm = e.let(" + ".join(f"{p} * {p}" for p in (cr, ci) if p), "cm")
+    d = len(net.driver_names)
+    trap_terms = list(traps)
+    if net.source_resistance > 0.0:
+        sr = e.let(f"1.0 + rs * {cr}" if cr else "1.0", "sd")
+        si = e.let(f"rs * {ci}", "sd") if ci else None
+        sm = e.let(f"{sr} * {sr}" + (f" + {si} * {si}" if si else ""), "sm")
+        inv_c, inv_s = _batch_reciprocal(e, [cm, sm], traps, "iv")
+        scale = (e.let(f"vs * {sr} * {inv_s}", "vr"), e.let(f"-vs * {si} * {inv_s}", "vi") if si else None)
+    else:
+        inv_c = e.let(f"1.0 / {cm}", "cn")
+        traps.append(e.let(f"{cm} * {inv_c}", "cnt"))
+        scale = ("vs", None)
+    trap_terms = list(traps)
+    zin = (e.let(f"{cr} * {inv_c}", "zr") if cr else None, e.let(f"-{ci} * {inv_c}", "zi") if ci else None)
+    volts: dict[int, tuple[str, str]] = {}
+    for ed, form in zip(edges, forms):
+        if form[0] == "D":
+            u = e.sum([(1, volt(ed.a)), (-1, volt(ed.b))], f"u{form[1]}_")
+            v = e.mul(u, scale, f"v{form[1]}_")
+            volts[form[1]] = (v[0] or "0.0", v[1] or "0.0")
+            trap_terms.extend(x for x in v if x)
+    trap_terms.extend(x for x in zin if x)
+    body_solve = e.lines
+    e.lines = []
+
+    # ---- pivot checks: |p|^2 >= tau2 (sum |y| at the node)^2, and a NaN trap over everything produced
+    check = []
+    margins = []
+    for k in order:
+        sc = f"sc{k}"
+        check.append(f"{sc} = {' + '.join(scale_terms[k]) or '0.0'}")
+        margins.append(f"tau2 * {sc} * {sc} - {mags[k]}")
+    if margins:
+        check.append(f"bad = {margins[0]}")
+        check += [f"bad = max(bad, {m})" for m in margins[1:]]
+    else:
+        check.append("bad = -1.0")
+    check.append(f"bad = bad + 0.0 * ({' + '.join(trap_terms)})")
+    return SolverCode(
+        prep=tuple(prep), loads=tuple(loads), body=tuple(body_y + body_solve + check),
+        volts=tuple(volts[i] for i in range(d)), zin=(zin[0] or "0.0", zin[1] or "0.0"),
+        comment=(f"# edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
+                 f"# unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}"))
+
+
+def generate_kernel_source(net: Network) -> str:
+    """Python source of a numba kernel that solves ``net`` for a batch of values on its grid.
+
+    Signature: ``kernel(vals (B, P), r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2,
+    scratch (2 D + 3, F), out (B, D + 1, 2 F) float64 (a complex array's view), out_bad (B, F)) -> int``.
+    ``out[:, :D]`` holds the driver voltages, ``out[:, D]`` the input impedance;
+    ``out_bad`` is positive (or NaN) where some pivot fell below sqrt(tau2) of
+    its node's admittance scale or a value over- or underflowed, and the return
+    value counts those points. Node "in" is not an unknown: the network is
+    solved for 1 V there and the source (vs behind rs) applied afterwards.
+
+    The solve runs per candidate into the planar ``scratch``, then a short loop
+    interleaves it into the complex output: LLVM vectorises the frequency loop
+    only with few arrays and few written rows (its runtime alias checks are
+    capped), and not around interleaved complex stores.
+    """
+    code = solver_code(net)
+    d = len(net.driver_names)
+    outs = []
+    for i, (vr, vi) in enumerate(code.volts):
+        outs += [f"scratch[{2 * i}, f] = {vr}", f"scratch[{2 * i + 1}, f] = {vi}"]
+    outs += [f"scratch[{2 * d}, f] = {code.zin[0]}", f"scratch[{2 * d + 1}, f] = {code.zin[1]}",
+             f"scratch[{2 * d + 2}, f] = bad"]
+    ind1, ind2 = " " * 8, " " * 12
+    src = [
+        "# generated by xo_fit.network.generate_kernel_source; do not edit",
+        f"# kernel version {KERNEL_VERSION}",
+        *code.comment,
+        "import numba",
+        "",
+        "",
+        '@numba.njit(cache=True, error_model="numpy", fastmath={"contract"}, nogil=True)',
+        "def kernel(vals, r_coef, r_exp, fin, vs, rs, tau2, scratch, out, out_bad):",
+        "    nb = vals.shape[0]",
+        "    nf = fin.shape[1]",
+        "    nbad = 0",
+        "    for b in range(nb):",
+    ]
+    src += [ind1 + s for s in code.prep] or [ind1 + "pass"]
+    src.append(ind1 + "for f in range(nf):")
+    src += [ind2 + s for s in code.loads + code.body + tuple(outs)]
+    src.append(ind1 + "for f in range(nf):")
+    for i in range(d + 1):  # into the complex result seen as float64 (B, D + 1, 2 F): 6 % faster than complex()
+        src += [ind2 + f"out[b, {i}, 2 * f] = scratch[{2 * i}, f]", ind2 + f"out[b, {i}, 2 * f + 1] = scratch[{2 * i + 1}, f]"]
+    src += [ind2 + f"bv = scratch[{2 * d + 2}, f]", ind2 + "out_bad[b, f] = bv", ind2 + "if not bv <= 0.0:",
+            ind2 + "    nbad += 1"]
+    src.append("    return nbad")
+    return "\n".join(src) + "\n"

@@ -1,0 +1,120 @@
+"""The dense reference solve: plain nodal analysis with LAPACK's pivoting solve of the full matrix.
+
+Slow and exact: every fast path is tested against it, the compiled kernel
+hands it the points it flags, and single reported designs are scored on it.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from ..constants import GROUND_NODE, SOURCE_NODE
+from .netlist import Solution
+
+if TYPE_CHECKING:
+    from .network import Network
+
+
+def branch_admittances(net: Network, values: np.ndarray, f_index: np.ndarray) -> np.ndarray:
+    """Admittance of every branch, siemens, shape (M, len(branches)) for M (values row, frequency) pairs.
+
+    values: (M, P); f_index: (M,) indices into the grid.
+    """
+    w = net.omega[f_index]
+    out = np.empty((values.shape[0], len(net.branches)), dtype=complex)
+    col = 0
+    r = net.series_resistance(values)
+    for j, br in enumerate(net.branches):
+        if br.kind == "D":
+            out[:, j] = 1.0 / net.driver_impedance[br.driver, f_index]
+            continue
+        x = values[:, col]
+        if br.kind == "R":
+            z = x + 0j
+        elif br.kind == "L":
+            z = r[:, col] + 1j * w * x
+        else:
+            z = r[:, col] + 1.0 / (1j * w * x)
+        out[:, j] = 1.0 / z
+        col += 1
+    return out
+
+
+def _dense_nodes(net: Network, values: np.ndarray, f_index: np.ndarray):
+    """Assemble and solve the full nodal system (LAPACK, pivoting) for M (values row, frequency index) pairs.
+
+    Returns (volt, y): volt(node) gives that node's voltage (M,) complex, y the branch admittances (M, branches).
+    """
+    values = np.asarray(values, dtype=float)
+    f_index = np.asarray(f_index)
+    m = values.shape[0]
+    nodes = net.unknown_nodes
+    idx = {n: i for i, n in enumerate(nodes)}
+    n = len(nodes)
+    y = branch_admittances(net, values, f_index)
+    mat = np.zeros((m, n, n), dtype=complex)
+    rhs = np.zeros((m, n), dtype=complex)
+    vs = net.source_voltage
+    fixed = {GROUND_NODE: 0.0}
+    if net.source_resistance == 0.0:
+        fixed[SOURCE_NODE] = vs
+    else:
+        mat[:, idx[SOURCE_NODE], idx[SOURCE_NODE]] += 1.0 / net.source_resistance
+        rhs[:, idx[SOURCE_NODE]] += vs / net.source_resistance
+    for j, br in enumerate(net.branches):
+        ia, ib = idx.get(br.a), idx.get(br.b)
+        if ia is not None:
+            mat[:, ia, ia] += y[:, j]
+        if ib is not None:
+            mat[:, ib, ib] += y[:, j]
+        if ia is not None and ib is not None:
+            mat[:, ia, ib] -= y[:, j]
+            mat[:, ib, ia] -= y[:, j]
+        if ia is not None and br.b in fixed:
+            rhs[:, ia] += y[:, j] * fixed[br.b]
+        if ib is not None and br.a in fixed:
+            rhs[:, ib] += y[:, j] * fixed[br.a]
+    x = np.linalg.solve(mat, rhs[..., None])[..., 0] if n else np.zeros((m, 0), dtype=complex)
+
+    def volt(node: str) -> np.ndarray:
+        if node in fixed:
+            return np.full(m, fixed[node], dtype=complex)
+        return x[:, idx[node]]
+
+    return volt, y
+
+
+def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Solution:
+    """Plain nodal analysis with LAPACK's pivoting solve, for M (values row, frequency index) pairs.
+
+    Returns voltages (M, D) and impedance (M,) (a Solution with the F axis dropped).
+    """
+    volt, y = _dense_nodes(net, values, f_index)
+    m = y.shape[0]
+    volts = np.zeros((m, len(net.driver_names)), dtype=complex)
+    current = np.zeros(m, dtype=complex)
+    for j, br in enumerate(net.branches):
+        if br.kind == "D":
+            volts[:, br.driver] = volt(br.a) - volt(br.b)
+        if br.a == SOURCE_NODE:
+            current += y[:, j] * (volt(br.a) - volt(br.b))
+        elif br.b == SOURCE_NODE:
+            current += y[:, j] * (volt(br.b) - volt(br.a))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = volt(SOURCE_NODE) / current
+    return Solution(voltages=volts, impedance=z)
+
+
+def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Voltage across and current through every branch of one design, from the dense solve.
+
+    values: (P,) SI. Returns (voltage, current), complex (len(branches), F), for the source at
+    ``net.source_voltage``; a branch's voltage is V(a) - V(b) and its current flows a -> b through it.
+    """
+    v = net._check_values(values)[:1]
+    f_index = np.arange(net.frequencies.size)
+    volt, y = _dense_nodes(net, np.repeat(v, f_index.size, axis=0), f_index)
+    volts = np.stack([volt(br.a) - volt(br.b) for br in net.branches])
+    return volts, volts * y.T
