@@ -228,16 +228,17 @@ def work(payload: dict) -> dict:
     try:
         for st in payload["stages"]:
             folder = tmp / st
+            home = Path(payload["home"]) / st if payload.get("home") else None
             try:
                 if st == "fit":
-                    o = fit_stage(system, folder, plots=payload.get("plots", True))
+                    o = fit_stage(system, folder, plots=payload.get("plots", True), home=home)
                 elif st == "snap":
                     start = values if values is not None else system.values()
                     o = snap_stage(system, folder, np.asarray(start), inventory=payload.get("inventory"),
-                                   plots=payload.get("plots", True))
+                                   plots=payload.get("plots", True), home=home)
                 else:
                     start = values if values is not None else system.values()
-                    o = spread_stage(system, folder, np.asarray(start), plots=payload.get("plots", True))
+                    o = spread_stage(system, folder, np.asarray(start), plots=payload.get("plots", True), home=home)
             except UserError as e:
                 error = {"stage": st, "message": str(e)}
                 break
@@ -320,7 +321,7 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
                 failed += 1
                 continue
             payloads.append((it, need, {"system": system, "stages": need, "start": start, "inventory": inv,
-                                        "plots": plots}))
+                                        "plots": plots, "home": str((out / _folder_name(it.name)).resolve())}))
         for it, need, _ in payloads:
             for st in need:
                 store.set(it.name, st, hash=it.hash, status="running", started=time.time(), finished=None,

@@ -204,6 +204,11 @@ def _print_score(s, start_cost: float | None = None) -> None:
     say(f"  impedance minimum {m['impedance_min_ohm']:.2f} ohm at {m['impedance_min_hz']:.0f} Hz")
 
 
+def _findings(design) -> None:
+    for f in design.findings:
+        say(f"  finding ({f['kind']}): {f['text']}")
+
+
 def _cautions(system, s) -> None:
     from .cautions import design_cautions, load_cautions
 
@@ -229,20 +234,21 @@ def _cautions(system, s) -> None:
 def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
              out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
              from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (or its folder) whose values to use."),
+             no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
              ) -> None:
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
-    from .fit import score, write_outputs
+    from . import api
 
     t0 = time.perf_counter()
     system, values = _design(job, from_)
     j = system.job
-    s = score(system, values)
-    files = write_outputs(system, out, "simulate", s,
-                          {"source": {"job": str(j.path), "from": str(from_) if from_ else None}},
-                          title=f"{j.name}: simulated")
+    d = api.simulate(system, dict(zip(system.part_names, values)), source_from=str(from_) if from_ else None)
+    files = d.save(out, plots=not no_plots, title=f"{j.name}: simulated")
+    s = d.scored
     say(f"simulated {j.name}: {len(s.values)} part values, {system.frequencies.size} points "
         f"in {time.perf_counter() - t0:.2f} s")
     _print_score(s)
+    _findings(d)
     _cautions(system, s)
     say("wrote " + ", ".join(str(p) for p in files))
 
@@ -326,6 +332,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
             if p.free:
                 start = f" (start {format_value(p.value, p.unit)})" if p.value is not None else ""
                 say(f"    {p.name:<8} {format_value(float(v), p.unit)}{start}")
+    _findings(st.info["design"])
     _cautions(system, outcome.scored)
     say("wrote " + ", ".join(str(p) for p in files))
     if not r.complete and r.stopped_by == "interrupted":
@@ -399,6 +406,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
             m = sc.metrics
             say(f"  {label:<10} rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB, "
                 f"phase {m['phase_mismatch_deg']:.1f} deg, |Z| min {m['impedance_min_ohm']:.2f} ohm")
+    _findings(st.info["design"])
     _cautions(system, after)
     say("wrote " + ", ".join(str(p) for p in files))
 
@@ -515,7 +523,7 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
            out: Path = typer.Option(..., "--out", "-o", help="Folder for report.html and its PNGs.")) -> None:
     """A self-contained HTML page: curves against the targets, phase, group delay, impedance, metrics, part list with
     stresses, cautions."""
-    from .report import write_report
+    from .api import write_report
 
     t0 = time.perf_counter()
     page = write_report(list(results), out)
@@ -526,19 +534,14 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
 def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
            spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
     """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
-    from .io.job import load_job
-    from .io.results import read_result, result_values
+    from .design import load_result
     from .io.spice import export as write_spice
-    from .system import load_system
 
-    doc = read_result(result)
-    src = (doc.get("source") or {}).get("job")
-    if not src:
-        raise XoFitError("the result does not name its job (source.job)", path=result)
-    system = load_system(load_job(src))
-    values = system.values(result_values(doc, system.part_names, result))
-    path = write_spice(system, values, spice, f"{system.job.name} ({doc.get('stage', 'result')})")
-    measured = [d.name for d in system.job.drivers if d.impedance.__class__.__name__ == "FileCurve"]
+    d = load_result(result)
+    d = getattr(d, "design", d)
+    system = d.system
+    path = write_spice(system, d.array, spice, f"{system.job.name} ({d.stage})")
+    measured = [x.name for x in system.job.drivers if x.impedance.__class__.__name__ == "FileCurve"]
     say(f"wrote {path}" + (f"; measured drivers {', '.join(measured)} are placeholder subcircuits: replace them with "
                            "models of your own" if measured else ""))
 
@@ -555,14 +558,14 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     job = write_scenario(out / "scenario")
     say(f"wrote the demo scenario: {job} and its measurement files in {job.parent / 'data'}")
     say("hand design (textbook starting values):")
-    simulate(job=job, out=out / "hand-design", from_=None)
+    simulate(job=job, out=out / "hand-design", from_=None, no_plots=False)
     say("fit:")
     fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, workers=1, no_plots=False)
     say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
     snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, no_plots=False)
     say("tolerance spread of the snapped design:")
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
-    from .report import write_report
+    from .api import write_report
 
     page = write_report([out / "fit", out / "snap", out / "spread"], out / "report")
     say(f"report: {page.resolve()}")

@@ -82,6 +82,12 @@ def wrap_deg(x: np.ndarray) -> np.ndarray:
     return 180.0 - np.mod(180.0 - x, 360.0)
 
 
+def phase_error_deg(ratio: np.ndarray, target_diff_deg: np.ndarray) -> np.ndarray:
+    """Phase error of two adjacent ways, degrees in (-180, 180]: the phase of p_a / p_b (``ratio``, complex)
+    less the phase difference their targets intend (``target_diff_deg``), wrapped once."""
+    return wrap_deg(np.rad2deg(np.angle(ratio)) - target_diff_deg)
+
+
 @dataclass(frozen=True, eq=False)
 class Evaluation:
     """Cost of a batch of designs: total (B,), each term (B,), the level used (B,, dB SPL)."""
@@ -153,8 +159,7 @@ class CostModel:
     def _phase_errors(self, pressure: np.ndarray) -> list[np.ndarray]:
         out = []
         for a, b, region, target_diff in self.pairs:
-            diff = np.rad2deg(np.angle(pressure[:, a, region] / pressure[:, b, region]))
-            out.append(wrap_deg(diff - target_diff[region]))
+            out.append(phase_error_deg(pressure[:, a, region] / pressure[:, b, region], target_diff[region]))
         return out
 
     def _phase(self, pressure: np.ndarray) -> np.ndarray:

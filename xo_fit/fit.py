@@ -1,21 +1,18 @@
 """Fitting a job: targets, cost and search put together; and the scoring shared with simulate.
 
 :func:`run_fit` finds the free values that minimise the job's cost;
-:func:`score` evaluates any design (a hand design, a fit, later a snap) into
-the cost, its terms and the metrics that result.json carries;
-:func:`write_outputs` writes result.json, response.csv and the plot.
+:func:`score` evaluates any design (a hand design, a fit, a snap) into the
+cost, its terms and the metrics that result.json carries.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
 from .cost import CostModel, simulation_metrics
 from .solver.fused import FusedCost
-from .io.results import part_entries, response_table, write_csv, write_json
 from .search import SearchResult, make_space, search
 from .targets import Targets, build_targets
 
@@ -155,43 +152,9 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start), runs
 
 
-def result_document(system, stage: str, s: Scored, extra: dict | None = None) -> dict:
-    """result.json's content for a scored design."""
-    job = system.job
-    doc = {
-        "job": job.name,
-        "stage": stage,
-        "parts": part_entries(system.part_names, tuple(p.unit for p in job.valued_parts), s.values),
-        "cost": s.cost,
-        "cost_terms": s.terms,
-        "metrics": s.metrics,
-    }
-    if s.level_db is not None:
-        doc["level_db"] = s.level_db
-    doc.update(extra or {})
-    return doc
-
-
 def target_db(s: Scored) -> np.ndarray | None:
     """The system target in dB SPL on the grid at the design's level, or None."""
     if s.targets is None:
         return None
     with np.errstate(divide="ignore"):
         return s.level_db + 20 * np.log10(np.abs(s.targets.system))
-
-
-def write_outputs(system, out: Path, stage: str, s: Scored, extra: dict | None = None, *, title: str,
-                  plots: bool = True, compare: tuple[str, "Scored"] | None = None) -> list[Path]:
-    """Write result.json, response.csv and (unless plots=False) response.png into ``out``."""
-    from .report import plot_design
-
-    out.mkdir(parents=True, exist_ok=True)
-    names = tuple(d.name for d in system.job.drivers)
-    write_json(out / "result.json", result_document(system, stage, s, extra))
-    write_csv(out / "response.csv", response_table(system.frequencies, names, s.sim.pressure[0], s.sim.total[0],
-                                                   s.sim.impedance[0], target_db(s)))
-    written = [out / "result.json", out / "response.csv"]
-    if plots:
-        plot_design(out / "response.png", system, s, title=title, compare=compare)
-        written.append(out / "response.png")
-    return written

@@ -1,0 +1,213 @@
+"""The Python API: load a job, simulate, fit, snap and spread designs, write a report.
+
+Every function takes a job (a :class:`~xo_fit.io.job.Job` from :func:`load_job`,
+a path to a job file, or an already loaded :class:`~xo_fit.system.System`) and
+returns a :class:`~xo_fit.design.Design` or :class:`~xo_fit.design.Spread`.
+Values are SI floats by part name. User errors raise
+:class:`~xo_fit.errors.XoFitError`; the command line is built on these same
+functions.
+
+>>> import xo_fit
+>>> job = xo_fit.load_job("job.toml")                 # doctest: +SKIP
+>>> best = xo_fit.fit(job, budget=20000, seed=1)      # doctest: +SKIP
+>>> buy = xo_fit.snap(job, best)                      # doctest: +SKIP
+>>> tol = xo_fit.spread(job, buy, samples=2000)       # doctest: +SKIP
+>>> xo_fit.write_report([best, buy, tol], "report")   # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from .constants import PART_UNIT
+from .design import Design, Spread, load_result
+from .errors import XoFitError
+from .io.job import Job
+from .io.job import load_job as _load_job
+
+__all__ = ["load_job", "simulate", "fit", "snap", "spread", "write_report", "load_result", "Design", "Spread"]
+
+
+def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
+    """A validated job from a TOML file, or from a mapping with the TOML's structure.
+
+    ``base`` is the folder relative data paths are taken from (default: the job file's folder; for a
+    mapping, the current folder). Raises :class:`~xo_fit.errors.JobError` naming the file, line and key.
+    """
+    return _load_job(source, base)
+
+
+def _system(job):
+    """A loaded system for a job given as a System, a Job or a path."""
+    from .system import System, load_system
+
+    if isinstance(job, System):
+        return job
+    if isinstance(job, (str, Path)):
+        job = _load_job(job)
+    if not isinstance(job, Job):
+        raise XoFitError(f"expected a job (xo_fit.load_job) or a job file path, got {type(job).__name__}")
+    return load_system(job)
+
+
+def _values(system, design) -> np.ndarray:
+    """Values (P,) of a design given as a Design, a Spread, a mapping name -> SI value, or None (the job's own)."""
+    if design is None:
+        return system.values()
+    if isinstance(design, Spread):
+        design = design.design
+    if isinstance(design, Design):
+        if design.system.part_names != system.part_names:
+            raise XoFitError("the design belongs to a job with other parts "
+                             f"({', '.join(design.system.part_names)}; this job: {', '.join(system.part_names)})")
+        return np.array(design.array, dtype=float)
+    if isinstance(design, Mapping):
+        unknown = [k for k in design if k not in system.part_names]
+        if unknown:
+            raise XoFitError(f"no part named {unknown[0]} in the job (parts: {', '.join(system.part_names)})")
+        bad = [k for k, v in design.items() if not (isinstance(v, (int, float)) and np.isfinite(v) and v > 0)]
+        if bad:
+            raise XoFitError(f"part {bad[0]}: expected a value above 0 in SI units, got {design[bad[0]]!r}")
+        return system.values({k: float(v) for k, v in design.items()})
+    raise XoFitError(f"expected a Design or a mapping of part values, got {type(design).__name__}")
+
+
+def _reuse(job, design):
+    """The design's own loaded system when the job is the design's job (saves reading the data again)."""
+    d = design.design if isinstance(design, Spread) else design
+    if isinstance(d, Design) and (job is d.system or job is d.job):
+        return d.system
+    return _system(job)
+
+
+def simulate(job, values: Mapping[str, float] | Design | None = None, *, source_from: str | None = None) -> Design:
+    """The job's own values (a hand design), some replaced by ``values`` (SI by part name), simulated and scored."""
+    from .fit import score
+
+    system = _reuse(job, values)
+    v = _values(system, values)
+    return Design(system=system, scored=score(system, v), stage="simulate", source={"from": source_from})
+
+
+def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: str | None = None,
+        time_limit: float | None = None, workers: int = 1, progress=None) -> Design:
+    """Global search and polish of the job's free values; arguments override the job's [search].
+
+    ``workers`` > 1 runs that many independent searches from derived seeds in processes; the best wins.
+    """
+    from .fit import run_fit, run_fit_restarts
+
+    system = _system(job)
+    j = system.job
+    runs = None
+    if workers > 1:
+        outcome, runs = run_fit_restarts(system, workers, optimizer=optimizer, budget=budget, seed=seed,
+                                         time_limit=time_limit)
+    else:
+        outcome = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
+                          progress=progress)
+    r = outcome.search
+    search = {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
+              "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by}
+    if runs is not None:
+        search["restarts"] = runs
+    if j.search.robust_samples:
+        search["robust"] = {"samples": j.search.robust_samples, "solves": r.evaluations * j.search.robust_samples,
+                            "note": "cost = mean over fixed tolerance draws; each evaluation solves one design "
+                                    "per draw"}
+    return Design(system=system, scored=outcome.scored, stage="fit", sections={"search": search},
+                  info={"outcome": outcome, "runs": runs}, label="fit")
+
+
+def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Mapping[str, str] | None = None,
+         inventory=None, combine: int | None = None, source_from: str | None = None) -> Design:
+    """Every snappable value moved to a purchasable one (series, or the parts on hand) and re-scored.
+
+    ``design``: the continuous design to snap (default: the job's own values). ``series`` maps a kind
+    (R, L, C) to a series name and overrides the job's [snap] series; ``inventory`` is a path to a drawer
+    CSV (or a read :class:`~xo_fit.io.inventory.Inventory`), by default the job's own.
+    """
+    from .fit import cost_model, score
+    from .io.inventory import Inventory, read_inventory
+    from .snap import parts_table, run_snap
+    from .units import format_value
+
+    system = _reuse(job, design)
+    j = system.job
+    continuous = _values(system, design)
+    if inventory is None and j.snap.inventory is not None:
+        inventory = j.snap.inventory
+    if inventory is not None and not isinstance(inventory, Inventory):
+        inventory = read_inventory(inventory)
+    outcome = run_snap(system, continuous, series_override=dict(series) if series else None, inventory=inventory,
+                       combine=combine)
+    model = cost_model(system)
+    before = score(system, continuous, model)
+    after = score(system, outcome.values, model)
+    sr = outcome.search
+    sections = {"snap": {"continuous_cost": before.cost,
+                         "log_nearest_cost": sr.baseline_cost if sr else before.cost,
+                         "evaluations": sr.evaluations if sr else 0, "exhaustive": sr.exhaustive if sr else True,
+                         "seconds": round(outcome.seconds, 4), "continuous_metrics": before.metrics}}
+    part_info = {}
+    for sp in outcome.parts:
+        unit = PART_UNIT[sp.kind]
+        e = {"continuous": sp.continuous, "source": sp.source}
+        if sp.source == "inventory":
+            e["inventory"] = str(inventory.path)
+        elif sp.source not in ("continuous", "fixed"):
+            e["series"] = sp.source
+        if sp.choice is not None and sp.choice.connection != "single":
+            e["combination"] = {"connection": sp.choice.connection,
+                                "parts": [{"value": v, "text": format_value(v, unit)} for v in sp.choice.pieces]}
+        part_info[sp.name] = e
+    return Design(system=system, scored=after, stage="snap", sections=sections,
+                  source={"from": source_from, "inventory": str(inventory.path) if inventory else None},
+                  part_info=part_info, tables={"parts.csv": parts_table(outcome, j, dict(j.spread.tolerance))},
+                  info={"outcome": outcome, "before": before, "after": after, "compare": ("continuous", before)},
+                  label="snap")
+
+
+def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: int | None = None,
+           seed: int | None = None, progress=None, source_from: str | None = None) -> Spread:
+    """Tolerance Monte Carlo of a design (default: the job's own values): yields, sensitivity, percentiles."""
+    from .fit import score
+    from .spread import run_spread
+
+    system = _reuse(job, design)
+    j = system.job
+    nominal = _values(system, design)
+    r = run_spread(system, nominal, samples=samples, seed=seed, progress=progress)
+    names = ["sum"] + [d.name for d in j.drivers]
+    cols = {"frequency_hz": system.frequencies}
+    for i, n in enumerate(names):
+        cols[f"{n}_p05_db"] = r.p05[i]
+        cols[f"{n}_p50_db"] = r.p50[i]
+        cols[f"{n}_p95_db"] = r.p95[i]
+    section = {
+        "samples": r.samples, "distribution": j.spread.distribution, "qmc": j.spread.qmc,
+        "seed": j.spread.seed if seed is None else seed,
+        "tolerances_pct": {n: float(t * 100) for n, t in zip(system.part_names, r.tolerances)},
+        "yield": {"within_band": r.yield_band, "meeting_limits": r.yield_limits, **r.limits},
+        "worst_draw": {"deviation_db": r.worst_deviation_db, "at_hz": r.worst_at_hz,
+                       "parts_pct": {n: float((x - 1) * 100) for n, x in zip(system.part_names, r.worst_factors)}},
+        "sensitivity": r.sensitivity,
+        "corners": r.corners,
+        "pair_matching": {"p50_db": r.pair_p50_db, "p95_db": r.pair_p95_db},
+    }
+    nominal_design = Design(system=system, scored=score(system, nominal), stage="spread",
+                            sections={"spread": section}, source={"from": source_from}, label="spread")
+    return Spread(design=nominal_design, section=section, columns=cols, result=r)
+
+
+def write_report(items: list, out: str | Path) -> Path:
+    """report.html (self-contained) and its PNGs for designs and spreads (or result.json paths), overlaid."""
+    from .report import write_report as _write
+
+    loaded = [load_result(x) if isinstance(x, (str, Path)) else x for x in items]
+    if not loaded:
+        raise XoFitError("nothing to report: give at least one design or result")
+    return _write(loaded, Path(out))
