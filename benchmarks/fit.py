@@ -31,7 +31,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from conftest import ladder_job  # noqa: E402  (the test helper that writes handbook ladder jobs)
 
 from xo_fit.demo import write_scenario  # noqa: E402
-from xo_fit.fit import cost_model  # noqa: E402
+from xo_fit.fitting import cost_model  # noqa: E402
 from xo_fit.solver.fused import FusedCost  # noqa: E402
 from xo_fit.io.job import load_job  # noqa: E402
 from xo_fit.search import make_space, search  # noqa: E402

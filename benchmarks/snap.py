@@ -20,10 +20,10 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from xo_fit.demo import JOB_TEXT, write_scenario  # noqa: E402
-from xo_fit.fit import cost_model, run_fit  # noqa: E402
+from xo_fit.fitting import cost_model, run_fit  # noqa: E402
 from xo_fit.io.job import load_job  # noqa: E402
 from xo_fit.series import nearest  # noqa: E402
-from xo_fit.snap import NEIGHBOURS, run_snap  # noqa: E402
+from xo_fit.snapping import NEIGHBOURS, run_snap  # noqa: E402
 from xo_fit.system import load_system  # noqa: E402
 
 

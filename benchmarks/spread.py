@@ -21,9 +21,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from xo_fit.demo import JOB_TEXT, write_scenario  # noqa: E402
-from xo_fit.fit import run_fit  # noqa: E402
+from xo_fit.fitting import run_fit  # noqa: E402
 from xo_fit.io.job import load_job  # noqa: E402
-from xo_fit.spread import run_spread  # noqa: E402
+from xo_fit.tolerance import run_spread  # noqa: E402
 from xo_fit.system import load_system  # noqa: E402
 
 

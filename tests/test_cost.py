@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from xo_fit.cost import BREAKUP_FLOOR_DB, CostModel
-from xo_fit.fit import score
+from xo_fit.fitting import score
 from xo_fit.io.job import load_job
 from xo_fit.system import load_system
 from xo_fit.targets import build_targets

@@ -10,7 +10,7 @@ import textwrap
 import numpy as np
 import pytest
 
-from xo_fit.fit import run_fit
+from xo_fit.fitting import run_fit
 from xo_fit.io.job import load_job
 from xo_fit.search import make_space, search
 from xo_fit.system import load_system

@@ -7,7 +7,7 @@ import pytest
 
 from xo_fit.cost import TERMS
 from xo_fit.demo import write_scenario
-from xo_fit.fit import cost_model
+from xo_fit.fitting import cost_model
 from xo_fit.solver.fused import FusedCost
 from xo_fit.io.job import load_job
 from xo_fit.search import make_space

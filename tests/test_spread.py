@@ -10,9 +10,9 @@ import pytest
 
 from xo_fit.acoustics import spl_db
 from xo_fit.grid import band_mask
-from xo_fit.fit import run_fit
+from xo_fit.fitting import run_fit
 from xo_fit.io.job import load_job
-from xo_fit.spread import draw_factors, part_tolerances, run_spread, sensitivities
+from xo_fit.tolerance import draw_factors, part_tolerances, run_spread, sensitivities
 from xo_fit.system import load_system
 
 from conftest import ladder_job

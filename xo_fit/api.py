@@ -9,9 +9,9 @@ functions.
 
 >>> import xo_fit
 >>> job = xo_fit.load_job("job.toml")                 # doctest: +SKIP
->>> best = xo_fit.fit(job, budget=20000, seed=1)      # doctest: +SKIP
->>> buy = xo_fit.snap(job, best)                      # doctest: +SKIP
->>> tol = xo_fit.spread(job, buy, samples=2000)       # doctest: +SKIP
+>>> best = xo_fit.fit(job, budget=20000, seed=1)    # doctest: +SKIP
+>>> buy = xo_fit.snap(job, best)                    # doctest: +SKIP
+>>> tol = xo_fit.spread(job, buy, samples=2000)     # doctest: +SKIP
 >>> xo_fit.write_report([best, buy, tol], "report")   # doctest: +SKIP
 """
 
@@ -85,7 +85,7 @@ def _reuse(job, design):
 
 def simulate(job, values: Mapping[str, float] | Design | None = None, *, source_from: str | None = None) -> Design:
     """The job's own values (a hand design), some replaced by ``values`` (SI by part name), simulated and scored."""
-    from .fit import score
+    from .fitting import score
 
     system = _reuse(job, values)
     v = _values(system, values)
@@ -98,7 +98,7 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
 
     ``workers`` > 1 runs that many independent searches from derived seeds in processes; the best wins.
     """
-    from .fit import run_fit, run_fit_restarts
+    from .fitting import run_fit, run_fit_restarts
 
     system = _system(job)
     j = system.job
@@ -130,9 +130,9 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
     (R, L, C) to a series name and overrides the job's [snap] series; ``inventory`` is a path to a drawer
     CSV (or a read :class:`~xo_fit.io.inventory.Inventory`), by default the job's own.
     """
-    from .fit import cost_model, score
+    from .fitting import cost_model, score
     from .io.inventory import Inventory, read_inventory
-    from .snap import parts_table, run_snap
+    from .snapping import parts_table, run_snap
     from .units import format_value
 
     system = _reuse(job, design)
@@ -174,8 +174,8 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
 def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: int | None = None,
            seed: int | None = None, progress=None, source_from: str | None = None) -> Spread:
     """Tolerance Monte Carlo of a design (default: the job's own values): yields, sensitivity, percentiles."""
-    from .fit import score
-    from .spread import run_spread
+    from .fitting import score
+    from .tolerance import run_spread
 
     system = _reuse(job, design)
     j = system.job

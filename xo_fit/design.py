@@ -37,7 +37,7 @@ class Design:
     """One design of a job: part values, their simulation and score, and what its stage adds.
 
     ``system`` is the loaded job (:class:`~xo_fit.system.System`), ``scored`` the
-    simulation and cost (:class:`~xo_fit.fit.Scored`), ``stage`` one of
+    simulation and cost (:class:`~xo_fit.fitting.Scored`), ``stage`` one of
     "simulate", "fit", "snap", "spread"; ``sections`` are the stage's own
     result.json sections (``search``, ``snap``, ...) and ``source`` the
     provenance extras (``from``, ``inventory``); ``part_info`` adds entries per
@@ -149,7 +149,7 @@ class Design:
         return pd.DataFrame(self.response_table().columns)
 
     def response_table(self):
-        from .fit import target_db
+        from .fitting import target_db
         from .io.results import response_table
 
         s = self.scored
@@ -226,7 +226,7 @@ class Spread:
     ``design`` is the nominal design (stage "spread"), ``section`` the result.json
     "spread" section, ``columns`` the spread.csv columns (frequency_hz, then
     ``<x>_p05_db``, ``<x>_p50_db``, ``<x>_p95_db`` for the sum and each driver),
-    ``result`` the full :class:`~xo_fit.spread.SpreadResult` when computed here.
+    ``result`` the full :class:`~xo_fit.tolerance.SpreadResult` when computed here.
     """
 
     design: Design
@@ -333,7 +333,7 @@ def load_result(path: str | Path, *, system=None) -> Design | Spread:
     """
     import csv
 
-    from .fit import score
+    from .fitting import score
     from .io.results import read_result, result_values
 
     path = Path(path)

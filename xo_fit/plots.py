@@ -20,7 +20,7 @@ from .io.results import atomic_path
 
 
 def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | None = None) -> None:
-    """Write a PNG for a scored design (xo_fit.fit.Scored); ``compare`` = (label, other Scored) overlays
+    """Write a PNG for a scored design (xo_fit.fitting.Scored); ``compare`` = (label, other Scored) overlays
     another design's sum, phase error and impedance in grey (continuous against snapped)."""
     import matplotlib
 

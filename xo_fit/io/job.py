@@ -607,7 +607,7 @@ def _build(data: dict, ctx: _Context) -> Job:
     return Job(name=name, path=ctx.path, grid=grid, source_voltage=voltage, source_resistance=resistance,
                speed_of_sound=c, drivers=tuple(drivers), parts=parts, target=target, cost=cost,
                search=search, snap=snap, spread=spread, stress=stress, folder=ctx.folder,
-               document=json.dumps(document, default=str, sort_keys=True),
+               document=json.dumps(document, default=str),
                part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}))
 
 

@@ -329,7 +329,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     """Snap design ``continuous`` (P,) of ``system`` to purchasable values with the job's cost."""
     import time
 
-    from .fit import require_cost_model
+    from .fitting import require_cost_model
     from .solver.fused import FusedCost
     from .search import Space, search
 

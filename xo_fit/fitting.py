@@ -73,7 +73,7 @@ def robust_factors(job) -> np.ndarray | None:
     n = job.search.robust_samples
     if not n:
         return None
-    from .spread import draw_factors, part_tolerances
+    from .tolerance import draw_factors, part_tolerances
 
     rng = np.random.default_rng(np.random.SeedSequence([job.search.seed, 0x5EED]))
     return draw_factors(n, part_tolerances(job), job.spread.distribution, rng)
