@@ -1,7 +1,7 @@
 """Shared helpers for the tests.
 
 Reference values are quoted beside each check with their source; the facts
-come from ../shared/design/references.md unless a test says otherwise.
+come from docs/references.md unless a test says otherwise.
 """
 
 from __future__ import annotations
@@ -81,7 +81,7 @@ def resistive_curve(r=8.0, f_lo=10.0, f_hi=40000.0, n=200) -> str:
     return "\n".join(f"{x:.6f} {r:.6f} 0.0" for x in f) + "\n"
 
 
-# references.md ladder coefficients, L = kL R / fc, C = kC / (R fc), source side first
+# docs/references.md ladder coefficients, L = kL R / fc, C = kC / (R fc), source side first
 LADDERS = {
     "LR2": ("LC", [0.31831, 0.07958], "CL", [0.07958, 0.31831]),
     "BW3": ("LCL", [0.23873, 0.21221, 0.07958], "CLC", [0.10610, 0.11937, 0.31831]),

@@ -51,7 +51,7 @@ def system(write_job, voltage=2.83, offset_a="0mm", offset_b="0mm", nodes_b='["i
 
 
 def test_two_equal_drivers_in_phase_sum_to_plus_6_02_db(write_job):
-    """references.md [DER]: two equal signals in phase sum to +6.02 dB."""
+    """docs/references.md [DER]: two equal signals in phase sum to +6.02 dB."""
     s = system(write_job)
     sim = s.simulate(s.values())
     np.testing.assert_allclose(acoustics.spl_db(sim.pressure[0, 0]), 90.0, atol=1e-5)
@@ -73,7 +73,7 @@ def test_reference_voltage_scales_the_level(write_job):
 
 def test_offset_is_a_pure_delay_and_quadrature_sums_plus_3_01_db(write_job):
     """exp(-j w d / c): an offset of a quarter wavelength at f puts the drivers in quadrature: +3.01 dB
-    (references.md [DER])."""
+    (docs/references.md [DER])."""
     f0 = 1000.0
     d = 343.0 / f0 / 4
     s = system(write_job, offset_b=f"{d * 1000!r}mm")

@@ -10,7 +10,7 @@ from xo_fit.units import awg_diameter
 
 
 def test_dcr_at_1mh_against_references():
-    """references.md [DER from Brooks proportions]: at 1 mH roughly 0.47, 0.32, 0.22, 0.15 ohm for 18/16/14/12 AWG."""
+    """docs/references.md [DER from Brooks proportions]: at 1 mH roughly 0.47, 0.32, 0.22, 0.15 ohm for 18/16/14/12 AWG."""
     for gauge, ohm in ((18, 0.47), (16, 0.32), (14, 0.22), (12, 0.15)):
         assert float(coil_dcr(1e-3, awg_diameter(gauge))) == pytest.approx(ohm, rel=0.05)
 

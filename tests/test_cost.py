@@ -21,7 +21,7 @@ def model(write_job, text):
 
 @pytest.mark.parametrize("name", ["LR2", "LR4", "BW3"])
 def test_exact_handbook_design_costs_nothing(write_job, name):
-    """Ideal resistive drivers with the references.md ladders meet their own acoustic targets."""
+    """Ideal resistive drivers with the docs/references.md ladders meet their own acoustic targets."""
     text, _ = ladder_job(name, impedance_min=3.0)
     s, cm = model(write_job, text)
     m, ev = cm.metrics(s.values())

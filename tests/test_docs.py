@@ -27,8 +27,132 @@ def test_ci_runs_the_readme_test_command():
 
 
 def test_every_top_level_entry_is_expected():
-    expected = {"README.md", "DEVELOPERS.md", "pyproject.toml", "xo_fit", "targets", "tests", "benchmarks", ".ci",
+    expected = {"README.md", "DEVELOPERS.md", "pyproject.toml", "xo_fit", "docs", "tests", "benchmarks", ".ci",
                 ".git", ".gitignore"}
     ignorable = {".venv", ".pytest_cache", ".hypothesis", "demo-out", "xo_fit.egg-info", "build"}
     present = {p.name for p in ROOT.iterdir()} - ignorable
     assert present <= expected, present - expected
+
+
+def _tracked_files() -> list[Path]:
+    import subprocess
+
+    try:
+        out = subprocess.run(["git", "ls-files"], cwd=ROOT, capture_output=True, text=True, check=True).stdout
+        return [ROOT / p for p in out.splitlines() if (ROOT / p).is_file()]
+    except (OSError, subprocess.CalledProcessError):  # not a git checkout (an unpacked sdist): every file
+        return [p for p in ROOT.rglob("*") if p.is_file() and ".venv" not in p.parts and ".git" not in p.parts]
+
+
+def test_nothing_refers_outside_the_repository():
+    """A user who clones or installs xo_fit has only the repository: no file may point at a folder beside it."""
+    team = "shared"  # the team's folder beside the checkout (spelt apart so that this test does not find itself)
+    pattern = re.compile(rf"\.\./{team}|{team}/design|{team}/hooks")
+    bad = []
+    for p in _tracked_files():
+        try:
+            text = p.read_text(encoding="utf-8")
+        except (UnicodeDecodeError, OSError):
+            continue
+        bad += [f"{p.relative_to(ROOT)}:{i}" for i, line in enumerate(text.splitlines(), 1) if pattern.search(line)]
+    assert not bad, bad
+
+
+def test_readme_links_the_docs():
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    for name in ("job-format.md", "outputs.md", "api.md", "references.md"):
+        assert (ROOT / "docs" / name).is_file()
+        assert f"docs/{name}" in readme, name
+
+
+def _doc_sections() -> dict[str, dict[str, str]]:
+    """docs/job-format.md: heading -> {key: default column} for every table row."""
+    out: dict[str, dict[str, str]] = {}
+    current = None
+    for line in (ROOT / "docs" / "job-format.md").read_text(encoding="utf-8").splitlines():
+        if line.startswith("### "):
+            current = out.setdefault(line[4:].strip(), {})
+        elif current is not None and line.startswith("| `"):
+            cells = [c.strip() for c in line.strip("|").split("|")]
+            for key in re.findall(r"`([a-z_]+)`", cells[0]):
+                current[key] = cells[3]
+    return out
+
+
+def _render(table: str, key: str, value) -> str:
+    if value is None:
+        return "none"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return f'"{value}"'
+    if isinstance(value, (int, float)):
+        return f"{value:g}"
+    if isinstance(value, dict):
+        items = [f'{k} = "{v * 100:g}%"' if key == "tolerance" else f"{k} = {_render(table, key, v)}"
+                 for k, v in value.items()]
+        return "{ " + ", ".join(items) + " }"
+    raise TypeError(value)
+
+
+def test_job_format_doc_has_every_default():
+    """Every key of DEFAULTS is documented in its table of docs/job-format.md, with the same default."""
+    from xo_fit.io.job import DEFAULTS
+
+    where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
+             "thiele_small": "[driver.NAME.impedance]", "part": "[[part]]", "target": "[target]",
+             "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
+             "spread": "[spread]", "stress": "[stress]"}
+    assert set(where) == set(DEFAULTS)
+    docs = _doc_sections()
+    for table, keys in DEFAULTS.items():
+        section = docs[where[table]]
+        for key, value in keys.items():
+            assert key in section, f"{where[table]} {key} is not documented"
+            assert section[key] == _render(table, key, value), (where[table], key, section[key])
+
+
+def test_the_package_has_no_import_cycle():
+    """Imports (module level and inside functions) of xo_fit's modules form no cycle: the tree reads top-down."""
+    import ast
+
+    pkg = ROOT / "xo_fit"
+    modules = {".".join(p.relative_to(ROOT).with_suffix("").parts).removesuffix(".__init__"): p
+               for p in pkg.rglob("*.py")}
+    graph: dict[str, set[str]] = {m: set() for m in modules}
+    for mod, path in modules.items():
+        is_pkg = path.name == "__init__.py"
+        here = mod.split(".") if is_pkg else mod.split(".")[:-1]
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        typing_only = {id(n) for block in ast.walk(tree) if isinstance(block, ast.If)
+                       and getattr(block.test, "id", None) == "TYPE_CHECKING" for n in ast.walk(block)}
+        for node in ast.walk(tree):
+            if id(node) in typing_only:
+                continue
+            targets = []
+            if isinstance(node, ast.ImportFrom):
+                base = here[: len(here) - node.level + 1] if node.level else []
+                stem = ".".join(base + ([node.module] if node.module else [])) if node.level else (node.module or "")
+                targets = [stem] + [f"{stem}.{a.name}" for a in node.names]
+            elif isinstance(node, ast.Import):
+                targets = [a.name for a in node.names]
+            for t in targets:
+                if t in modules and t != mod and t != "xo_fit":
+                    graph[mod].add(t)
+    seen: dict[str, int] = {}
+    stack: list[str] = []
+
+    def visit(m: str) -> None:
+        seen[m] = 1
+        stack.append(m)
+        for n in sorted(graph[m]):
+            if seen.get(n) == 1:
+                raise AssertionError("import cycle: " + " -> ".join(stack[stack.index(n):] + [n]))
+            if n not in seen:
+                visit(n)
+        stack.pop()
+        seen[m] = 2
+
+    for m in sorted(graph):
+        if m not in seen:
+            visit(m)

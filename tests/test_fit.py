@@ -28,7 +28,7 @@ def fit_ladder(write_job, name, seed=1, start=2.0, budget=20000, optimizer="auto
 @pytest.mark.parametrize("name, start", [("LR2", 2.0), ("LR2", 0.5), ("BW3", 2.0), ("BW3", 0.6)])
 def test_fit_recovers_handbook_ladders(write_job, name, start):
     """Ideal resistive drivers (flat, zero phase, 8 ohm): the fit of an LR2 or BW3 target with the matching
-    ladder from a wrong start finds the references.md handbook values within 1 %."""
+    ladder from a wrong start finds the docs/references.md handbook values within 1 %."""
     out, truth, s = fit_ladder(write_job, name, start=start)
     for pname, v in zip(s.part_names, out.scored.values):
         assert v == pytest.approx(truth[pname], rel=0.01), pname

@@ -13,7 +13,7 @@ from conftest import flat_curve, resistive_curve
 DATA = {"data/woofer-response.txt": flat_curve(), "data/woofer-impedance.txt": resistive_curve(),
         "data/tweeter-response.txt": flat_curve(), "data/tweeter-impedance.txt": resistive_curve()}
 
-# the example of shared/design/job-format.md, verbatim but for the inventory line
+# a complete two-way example job (every table of the format), without an inventory line
 CONTRACT = '''\
 name = "bookshelf-2way"
 

@@ -117,7 +117,7 @@ def _bw2_highpass(f, fc=1000.0):
 
 
 def test_minimum_phase_of_butterworth2_highpass():
-    """references.md [DER]: a BW2 high-pass at 1 kHz given as magnitude only (20 Hz-20 kHz) returns its analytic
+    """docs/references.md [DER]: a BW2 high-pass at 1 kHz given as magnitude only (20 Hz-20 kHz) returns its analytic
     phase (90 deg at 1 kHz, 136.7 deg at 500 Hz) within 0.5 deg over 100 Hz-10 kHz. Analytic phase: scipy.signal."""
     f = np.geomspace(20, 20000, 200)
     h = _bw2_highpass(f)

@@ -54,7 +54,7 @@ rated_impedance = 8
 
 
 def test_lpad_stresses_follow_ohms_law(write_job):
-    """An L-pad (6 dB into 8 ohm, references.md) on a resistive load: at 100 W into 8 ohm (28.28 V RMS) the input is
+    """An L-pad (6 dB into 8 ohm, docs/references.md) on a resistive load: at 100 W into 8 ohm (28.28 V RMS) the input is
     exactly 8 ohm, so 3.536 A flows in R1 (P = I^2 R1) and the pad's node sits at V/2 (P2 = (V/2)^2 / R2)."""
     s = load_system(load_job(write_job(LPAD)))
     st = stresses(s, s.values(), 100.0, 8.0)
@@ -72,7 +72,7 @@ def test_lpad_stresses_follow_ohms_law(write_job):
 
 
 def test_epdr_and_the_80_percent_rule():
-    """EPDR (K. Howard 2006, references.md): EPDR/|Z| = 1 at 0 deg and 0.35 at 45 deg.
+    """EPDR (K. Howard 2006, docs/references.md): EPDR/|Z| = 1 at 0 deg and 0.35 at 45 deg.
     IEC 60268-5: the minimum |Z| should not fall below 80 % of the rated impedance: 4 ohm -> 3.2 ohm."""
     assert epdr(np.array([8.0 + 0j]))[0] == pytest.approx(8.0)
     assert epdr(np.array([np.exp(1j * np.pi / 4)]))[0] == pytest.approx(0.35, abs=0.005)

@@ -58,12 +58,14 @@ def test_small_tolerances_follow_first_order_propagation(write_job):
     u_pct = tol / 2 * 100
     first_order = np.sqrt(np.sum((c * u_pct[:, None]) ** 2, axis=0))
     sel = band & (first_order > 1e-3)
-    np.testing.assert_allclose(mc[sel], first_order[sel], rtol=0.10)
+    # 20,000 draws estimate a standard deviation to about 1/sqrt(2 N) = 0.5 % (the largest difference seen here);
+    # asserted at 2 %, four times that
+    np.testing.assert_allclose(mc[sel], first_order[sel], rtol=0.02)
 
 
 def test_percentiles_match_an_independent_closed_form_monte_carlo(write_job):
     """Second code path: LR2 ladders into 8 ohm in closed form, H_lp = 1/(s^2 LC + s L/R + 1) and
-    H_hp = s^2 LC/(s^2 LC + s L/R + 1) (references.md ladder polynomial), tweeter inverted, driven with the same
+    H_hp = s^2 LC/(s^2 LC + s L/R + 1) (docs/references.md ladder polynomial), tweeter inverted, driven with the same
     draws; the summed level's percentiles agree with the histogram's to 0.01 dB."""
     s = lr2(write_job, tol="5%", samples=4000)
     nominal = s.values()

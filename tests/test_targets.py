@@ -1,4 +1,4 @@
-"""Acoustic targets against closed forms, scipy.signal and the facts of references.md."""
+"""Acoustic targets against closed forms, scipy.signal and the facts of docs/references.md."""
 
 from __future__ import annotations
 
@@ -52,7 +52,7 @@ def test_linkwitz_riley_is_squared_butterworth(order):
 
 @pytest.mark.parametrize("order, phase", [(1, -45), (2, -90), (3, -135), (4, -180)])
 def test_butterworth_phase_at_fc(order, phase):
-    """references.md: Butterworth low-pass phase at fc is -45, -90, -135, -180 deg for orders 1-4;
+    """docs/references.md: Butterworth low-pass phase at fc is -45, -90, -135, -180 deg for orders 1-4;
     the LR of order 2N has twice the Butterworth-N phase."""
     at = np.array([FC])
     ph = np.rad2deg(np.unwrap(np.angle(way_shape(way(alignment="BW", order=order), np.geomspace(1, FC, 200)))))[-1]
@@ -64,7 +64,7 @@ def test_butterworth_phase_at_fc(order, phase):
 
 
 def test_bessel_uses_scipy_phase_normalisation():
-    """references.md [DER]: scipy's Bessel norm='phase' is not at the phase midpoint for orders 3 and 4
+    """docs/references.md [DER]: scipy's Bessel norm='phase' is not at the phase midpoint for orders 3 and 4
     (-134.341 and -178.152 deg at fc): assert scipy's own numbers."""
     for order, want in ((2, -90.0), (3, -134.341), (4, -178.152)):
         f = np.geomspace(1, FC, 400)
@@ -90,7 +90,7 @@ def _pair_sum(alignment, order, **pol):
 
 
 def test_textbook_polarity_makes_pairs_sum_flat():
-    """references.md [DER]: LR2 sums flat with the high-pass inverted, LR4 in phase; BW3 flat either way;
+    """docs/references.md [DER]: LR2 sums flat with the high-pass inverted, LR4 in phase; BW3 flat either way;
     BW2 inverted peaks +3.01 dB at fc."""
     for alignment, order, inverted in (("LR", 2, True), ("LR", 4, False), ("LR", 8, False), ("BW", 3, False)):
         p, total = _pair_sum(alignment, order)

@@ -62,7 +62,7 @@ def test_format_value():
 
 
 def test_awg_diameters_against_astm_b258():
-    """ASTM B258 (references.md): 18 AWG 1.024 mm, 16 AWG 1.291 mm, 14 AWG 1.628 mm."""
+    """ASTM B258 (docs/references.md): 18 AWG 1.024 mm, 16 AWG 1.291 mm, 14 AWG 1.628 mm."""
     for gauge, mm in ((18, 1.024), (16, 1.291), (14, 1.628)):
         assert awg_diameter(gauge) * 1e3 == pytest.approx(mm, abs=0.0006)
     assert parse_wire("18awg") == awg_diameter(18)

@@ -41,7 +41,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .errors import XoFitError
-from .io.results import atomic_path
+from .io.results import atomic_path, write_rows
 
 SCHEMA = """
 CREATE TABLE IF NOT EXISTS runs (
@@ -438,12 +438,10 @@ def write_summary(out: Path, store: Store | None = None) -> list[dict]:
                                                                           "phase_mismatch_deg", "impedance_min_ohm")})
     summary = sorted(jobs.values(), key=lambda j: (j["status"] != "done", j["cost"] if j["cost"] is not None
                                                    else float("inf"), j["job"]))
-    import pandas as pd
-
-    frame = pd.DataFrame(summary, columns=["job", "status", "stage", "cost", "rms_error_db", "max_error_db",
-                                           "phase_mismatch_deg", "impedance_min_ohm", "folder", "error"])
-    with atomic_path(out / "summary.csv") as tmp:
-        frame.to_csv(tmp, index=False, float_format="%.6g")
+    columns = ["job", "status", "stage", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
+               "impedance_min_ohm", "folder", "error"]
+    write_rows(out / "summary.csv", [{c: "" if j[c] is None else j[c] for c in columns} for j in summary],
+               columns=columns)
     return summary
 
 

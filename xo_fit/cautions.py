@@ -1,6 +1,6 @@
 """Safety cautions printed by the commands where a design can hurt an amplifier, a part or a listener.
 
-The figures and their sources are in ``shared/design/references.md``. These
+The figures and their sources are in ``docs/references.md``. These
 notes inform; they do not replace the amplifier maker's ratings, local
 electrical codes or licensed practice.
 """

@@ -1,4 +1,4 @@
-"""The ``xo-fit`` command line (contract: ``shared/design/commands.md``).
+"""The ``xo-fit`` command line (README.md describes every command).
 
 Commands parse their arguments, call the library and render the outcome. A
 user error (:class:`~xo_fit.errors.XoFitError`) becomes one line on stderr and

@@ -9,7 +9,7 @@ way a designer's own in-cabinet measurements would look:
   resonance, with a lossy voice-coil inductance Z = K (j w)^n (W. M. Leach,
   JAES 50(6), 2002);
 * woofer response: the sealed-box 2nd-order high-pass, the baffle-step shelf
-  (midpoint 115 / W Hz after H. F. Olson; a first-order shelf, references.md),
+  (midpoint 115 / W Hz after H. F. Olson; a first-order shelf, docs/references.md),
   the current roll-off of the voice-coil inductance, a cone breakup peak and
   the cone's own low-pass;
 * tweeter: its own 2nd-order roll-off at resonance, a dome peak, and a top-end
@@ -55,7 +55,7 @@ def _peak(s: np.ndarray, f0: float, q: float, gain_db: float) -> np.ndarray:
 
 
 def _shelf(s: np.ndarray, width: float) -> np.ndarray:
-    """Baffle step: -6.02 dB below, 0 dB above, -3.01 dB at f3 = 115 / width (references.md)."""
+    """Baffle step: -6.02 dB below, 0 dB above, -3.01 dB at f3 = 115 / width (docs/references.md)."""
     w3 = 2 * np.pi * 115.0 / width
     return (s + w3 / np.sqrt(2)) / (s + np.sqrt(2) * w3)
 
@@ -104,7 +104,7 @@ JOB_TEXT = """\
 # The "Wren" stand-mount (invented demo scenario): 6.5-inch class woofer and
 # 1-inch class dome tweeter in a 19 cm wide sealed cabinet, crossed at 2.2 kHz.
 # The start values are the textbook third-order Butterworth ladders into the
-# drivers' nominal 6 ohm (references.md coefficients), a Zobel from Re and Le,
+# drivers' nominal 6 ohm (docs/references.md coefficients), a Zobel from Re and Le,
 # a notch on the breakup and a 3 dB L-pad: the kind of hand design the fit
 # then improves.
 name = "wren-2way"

@@ -10,7 +10,7 @@ against scipy.signal):
 * ``Bessel`` order N: ``scipy.signal.bessel(N, wc, analog=True, norm="phase")``,
   the normalisation whose phase response reaches half its asymptote at fc for
   low orders (the one the handbook Bessel-2 crossover uses); for orders 3 and
-  up scipy's phase at fc differs slightly from the midpoint (references.md).
+  up scipy's phase at fc differs slightly from the midpoint (docs/references.md).
 
 Types: ``lowpass`` and ``highpass`` at ``fc``; ``bandpass`` is the high-pass
 at ``fc_low`` times the low-pass at ``fc_high``; ``fullrange`` is 1.

@@ -1,6 +1,6 @@
 """Job files: TOML in, a frozen and validated :class:`Job` out.
 
-The format is specified in ``shared/design/job-format.md`` (version 1). Every
+The format is specified in ``docs/job-format.md``. Every
 default lives in :data:`DEFAULTS` below and nowhere else. Validation is strict:
 an unknown key, a value of the wrong kind or unit, or a part that cannot exist
 is a :class:`~xo_fit.errors.JobError` that names the file, the line (found in
@@ -183,54 +183,54 @@ class WayTarget:
 @dataclass(frozen=True)
 class TargetSpec:
     band: tuple[float, float] | None = None
-    level: float | str = "auto"
-    curve: str = "flat"
+    level: float | str = DEFAULTS["target"]["level"]
+    curve: str = DEFAULTS["target"]["curve"]
     ways: tuple[WayTarget, ...] = ()
 
 
 @dataclass(frozen=True)
 class CostSpec:
-    way: float = 1.0
-    sum: float = 1.0
-    phase: float = 0.5
-    impedance: float = 1.0
-    impedance_min: float = 0.0
+    way: float = DEFAULTS["cost"]["way"]
+    sum: float = DEFAULTS["cost"]["sum"]
+    phase: float = DEFAULTS["cost"]["phase"]
+    impedance: float = DEFAULTS["cost"]["impedance"]
+    impedance_min: float = DEFAULTS["cost"]["impedance_min"]
 
 
 @dataclass(frozen=True)
 class SearchSpec:
-    optimizer: str = "auto"
-    budget: int = 20000
-    seed: int = 1
-    time_limit: float | None = None
-    polish: bool = True
+    optimizer: str = DEFAULTS["search"]["optimizer"]
+    budget: int = DEFAULTS["search"]["budget"]
+    seed: int = DEFAULTS["search"]["seed"]
+    time_limit: float | None = DEFAULTS["search"]["time_limit"]
+    polish: bool = DEFAULTS["search"]["polish"]
     robust_samples: int = 0
 
 
 @dataclass(frozen=True)
 class SnapSpec:
-    series: Mapping[str, str] = field(default_factory=dict)
-    inventory: Path | None = None
-    combine: int = 1
+    series: Mapping[str, str] = field(default_factory=lambda: FrozenMap(DEFAULTS["snap"]["series"]))
+    inventory: Path | None = DEFAULTS["snap"]["inventory"]
+    combine: int = DEFAULTS["snap"]["combine"]
 
 
 @dataclass(frozen=True)
 class SpreadSpec:
-    samples: int = 2000
-    seed: int = 1
-    distribution: str = "uniform"
-    band_db: float = 1.0
-    qmc: bool = False
-    tolerance: Mapping[str, float] = field(default_factory=dict)
-    rms_limit_db: float = 1.0
+    samples: int = DEFAULTS["spread"]["samples"]
+    seed: int = DEFAULTS["spread"]["seed"]
+    distribution: str = DEFAULTS["spread"]["distribution"]
+    band_db: float = DEFAULTS["spread"]["band_db"]
+    qmc: bool = DEFAULTS["spread"]["qmc"]
+    tolerance: Mapping[str, float] = field(default_factory=lambda: FrozenMap(DEFAULTS["spread"]["tolerance"]))
+    rms_limit_db: float = DEFAULTS["spread"]["rms_limit_db"]
 
 
 @dataclass(frozen=True)
 class StressSpec:
     """Drive level for the stress figures: ``power`` W into ``rated_impedance`` ohm (both None: no stresses)."""
 
-    power: float | None = None
-    rated_impedance: float | None = None
+    power: float | None = DEFAULTS["stress"]["power"]
+    rated_impedance: float | None = DEFAULTS["stress"]["rated_impedance"]
 
 
 @dataclass(frozen=True)

@@ -1,6 +1,6 @@
 """Measurement files in, complex curves on the job's grid out; minimum phase from magnitude.
 
-File format (``shared/design/job-format.md``): plain text, one point a line:
+File format (``docs/job-format.md``): plain text, one point a line:
 frequency in Hz, magnitude (dB SPL for a response, ohm for an impedance), and
 optionally phase in degrees. Columns are separated by spaces, tabs, commas or
 semicolons; a decimal comma is read where commas do not separate the columns.

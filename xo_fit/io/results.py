@@ -1,6 +1,6 @@
 """Result files: result.json and response.csv, written atomically; result.json read back.
 
-Formats are specified in ``shared/design/job-format.md``. Every file is first
+Formats are specified in ``docs/job-format.md``. Every file is first
 written under a temporary name in its own folder, then renamed over the
 target, so a crash or Ctrl-C never leaves a half-written result in place of a
 finished one.
@@ -119,11 +119,11 @@ def write_csv(path: str | Path, table: Table) -> None:
     table.write(path)
 
 
-def write_rows(path: str | Path, rows: list[dict]) -> None:
-    """Write dict rows (the keys of the first row are the columns) as CSV, atomically."""
+def write_rows(path: str | Path, rows: list[dict], columns: list[str] | None = None) -> None:
+    """Write dict rows as CSV, atomically; the columns are ``columns`` or the keys of the first row."""
     with atomic_path(path) as tmp:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
-            w = csv.DictWriter(fh, fieldnames=list(rows[0]) if rows else [])
+            w = csv.DictWriter(fh, fieldnames=columns if columns is not None else (list(rows[0]) if rows else []))
             w.writeheader()
             for row in rows:
                 w.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in row.items()})
