@@ -209,3 +209,27 @@ def test_report_refuses_to_overlay_different_grids(write_job, cli, tmp_path):
     assert code == 2 and "need the same grid and drivers" in err and len(err.strip().splitlines()) == 1
     code, out, err = cli("report", tmp_path / "ra", "--out", tmp_path / "rep1")
     assert code == 0 and (tmp_path / "rep1" / "report.html").exists(), err
+
+
+def test_a_hostile_job_name_cannot_reach_the_deck_as_statements(write_job, tmp_path, cli):
+    """A job name holding newlines and a control block stays inside one comment line; ngspice runs nothing of it."""
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2")
+    hostile = 'x\\n.control\\nshell touch PWNED\\n.endc\\r\\nRX in 0 1'
+    job = write_job(f'name = "{hostile}"\n' + text)
+    code, out, err = cli("simulate", job, "--out", tmp_path / "sim", "--no-plots")
+    assert code == 0, err
+    code, out, err = cli("export", tmp_path / "sim", "--spice", tmp_path / "deck.cir")
+    assert code == 0, err
+    deck = (tmp_path / "deck.cir").read_text()
+    statements = [x for x in deck.splitlines() if x.strip() and not x.startswith("*")]
+    assert not any(x.lower().startswith((".control", "shell", ".endc", "rx ")) for x in statements), statements
+    assert "shell touch PWNED" in deck.splitlines()[0]  # kept, as a comment
+    ngspice = shutil.which("ngspice")
+    if ngspice is None:
+        if os.environ.get("XO_FIT_REQUIRE_NGSPICE") == "1":
+            raise RuntimeError("ngspice is required (XO_FIT_REQUIRE_NGSPICE=1)")
+        pytest.skip("ngspice not installed")
+    subprocess.run([ngspice, "-b", str(tmp_path / "deck.cir")], cwd=tmp_path, capture_output=True, timeout=60)
+    assert not (tmp_path / "PWNED").exists()

@@ -21,6 +21,7 @@ job's; the driver subcircuits are named X<part>.
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -33,11 +34,17 @@ def _n(x: float) -> str:
     return repr(float(x))
 
 
+def comment(text: str) -> str:
+    """One SPICE comment line holding ``text``: control characters (a newline above all) become spaces, so that
+    no text a user wrote (a job name, a file path) can end the comment and reach the deck as a statement."""
+    return "* " + re.sub(r"[\x00-\x1f\x7f\u2028\u2029\x85]", " ", str(text))
+
+
 def netlist(system, values: np.ndarray, title: str) -> str:
     """The SPICE deck (text) of design ``values`` (P,) of ``system``."""
     job = system.job
     net = system.network
-    lines = [f"* {title}", "* exported by xo_fit; values in SI units", "*"]
+    lines = [comment(title), "* exported by xo_fit; values in SI units", "*"]
     lines.append(f"VSRC src 0 DC 0 AC {_n(job.source_voltage)}")
     lines.append(f"RSRC src in {_n(job.source_resistance)}" if job.source_resistance > 0 else "VAMP src in DC 0")
     r = net.series_resistance(np.asarray(values)[None])[0]
@@ -87,7 +94,7 @@ def _driver_subckt(spec, data, system) -> list[str]:
 
         band = band_mask(system.frequencies, system.job.target.band)
         zmin = float(np.min(np.abs(data.impedance[band])))
-        out += [f"* PLACEHOLDER: driver '{spec.name}' was measured ({spec.impedance.path});",
+        out += [comment(f"PLACEHOLDER: driver '{spec.name}' was measured ({spec.impedance.path});"),
                 "* a resistor of its lowest |Z| in the band stands in for it.",
                 "* Replace it with a model of the driver before trusting a simulation of this deck.",
                 f"RD pos neg {_n(zmin)}"]
