@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import os
 import signal
 import sqlite3
@@ -149,3 +150,20 @@ def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
             a = json.loads((local / f"job{i}" / stage / "result.json").read_text())
             b = json.loads((tmp_path / "dask" / f"job{i}" / stage / "result.json").read_text())
             assert a["parts"] == b["parts"] and a["cost"] == b["cost"], (i, stage)
+
+
+def test_unsafe_job_names_are_refused_and_folders_are_unique_per_job(tmp_path, cli):
+    """A job named '..' or 'x/y' is bad input (exit 2); names that clean to the same text get their own folders."""
+    from xo_fit.batch import _folder_name
+
+
+    text, _ = ladder_job("LR2")
+    for name in ("..", ".", "x/y", "a\\b"):
+        (tmp_path / "j.toml").write_text(f"name = {json.dumps(name)}\n" + text)
+        code, out, err = cli("check", tmp_path / "j.toml")
+        assert code == 2 and "cannot name files and folders" in err, (name, err)
+    names = ["x_y", "x y", "x:y", "plain-name.1", "é"]
+    folders = [_folder_name(n) for n in names]
+    assert len(set(folders)) == len(names)
+    assert folders[0] == "x_y" and folders[3] == "plain-name.1"
+    assert all(re.fullmatch(r"[A-Za-z0-9_.=-]+", f) and f not in (".", "..") for f in folders)

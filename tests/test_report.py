@@ -211,15 +211,23 @@ def test_report_refuses_to_overlay_different_grids(write_job, cli, tmp_path):
     assert code == 0 and (tmp_path / "rep1" / "report.html").exists(), err
 
 
-def test_a_hostile_job_name_cannot_reach_the_deck_as_statements(write_job, tmp_path, cli):
-    """A job name holding newlines and a control block stays inside one comment line; ngspice runs nothing of it."""
+def test_hostile_text_cannot_reach_the_deck_as_statements(write_job, tmp_path, cli):
+    """Text from a result (its stage, here edited by hand to hold newlines and a control block) stays inside one
+    comment line of the deck; ngspice runs nothing of it. Job names with line breaks are refused outright."""
+    import json
+
     from conftest import ladder_job
 
     text, _ = ladder_job("LR2")
-    hostile = 'x\\n.control\\nshell touch PWNED\\n.endc\\r\\nRX in 0 1'
-    job = write_job(f'name = "{hostile}"\n' + text)
+    hostile = 'x\n.control\nshell touch PWNED\n.endc\r\nRX in 0 1'
+    code, out, err = cli("check", write_job(f'name = {json.dumps(hostile)}\n' + text, name="bad.toml"))
+    assert code == 2 and "cannot name files and folders" in err and len(err.strip().splitlines()) == 1
+    job = write_job(text)
     code, out, err = cli("simulate", job, "--out", tmp_path / "sim", "--no-plots")
     assert code == 0, err
+    doc = json.loads((tmp_path / "sim" / "result.json").read_text())
+    doc["stage"] = hostile
+    (tmp_path / "sim" / "result.json").write_text(json.dumps(doc))
     code, out, err = cli("export", tmp_path / "sim", "--spice", tmp_path / "deck.cir")
     assert code == 0, err
     deck = (tmp_path / "deck.cir").read_text()

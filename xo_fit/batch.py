@@ -74,7 +74,12 @@ class Item:
 
 
 def _folder_name(name: str) -> str:
-    return re.sub(r"[^A-Za-z0-9_.=-]+", "_", name)[:120]
+    """The job's folder in the batch: its name where that is a plain file name, else a cleaned name with a
+    short hash of the real one, so that two names never share a folder ("a b" and "a_b")."""
+    safe = re.sub(r"[^A-Za-z0-9_.=-]+", "_", name)[:120]
+    if safe == name and name not in (".", ".."):
+        return name
+    return f"{safe.strip('.') or 'job'}-{hashlib.sha256(name.encode()).hexdigest()[:8]}"
 
 
 def _data_files(job) -> list[Path]:

@@ -512,10 +512,15 @@ def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
         for (key, paths, _), value in zip(axes, combo):
             for p in paths:
                 _assign(variant, p, value, ctx, key)
-            label.append(f"{paths[0].split('.')[-1]}{value}")
+            label.append(f"{paths[0].split('.')[-1]}{_label(value)}")
         variant["name"] = f"{base_name}-" + "-".join(label)
         out.append((_build(variant, ctx), variant))
     return out
+
+
+def _label(value: Any) -> str:
+    """A swept value as it appears in a variant's name: safe in a file name."""
+    return re.sub(r"[^\w.=+-]+", "_", str(value))[:40]
 
 
 def _assign(data: dict, path: str, value: Any, ctx: "_Context", key: str) -> None:
@@ -567,6 +572,9 @@ def _read(source: str | Path | Mapping[str, Any], base: str | Path | None = None
 def _build(data: dict, ctx: _Context) -> Job:
     top = _Reader(data, (), "job", ctx)
     name = top.text("name", ctx.stem)
+    if name in (".", "..") or re.search(r"[/\\\x00-\x1f\x7f\u2028\u2029\x85]", name):
+        raise top.error("name", f"{name!r} cannot name files and folders: no '/', '\\', control characters "
+                                "(a line break), and not '.' or '..'")
 
     grid = _grid(top.sub("grid", "[grid]"))
     src = top.sub("source", "[source]")
