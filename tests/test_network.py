@@ -351,3 +351,29 @@ def test_passivity_real_part_of_input_impedance_is_never_negative(values):
     """A passive network (Re Z of every part >= 0) presents Re Z_in >= 0."""
     sol = reference_net().solve(values)
     assert np.all(sol.impedance.real >= -1e-12 * np.abs(sol.impedance))
+
+
+def test_the_kernel_cache_is_private(tmp_path, monkeypatch):
+    """Compiled kernels are run from the cache, so a folder others can write (or a link) is never used."""
+    import os
+    import tempfile
+
+    from xo_fit.solver import kernels
+
+    monkeypatch.delenv("XO_FIT_CACHE", raising=False)
+    monkeypatch.setattr(kernels, "_SESSION", [])
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path / "tmp"))
+    (tmp_path / "tmp").mkdir()
+    blocked = tmp_path / "not-a-folder"
+    blocked.write_text("")  # ~/.cache unusable: a file where the folder should be
+    monkeypatch.setenv("XDG_CACHE_HOME", str(blocked))
+    shared = tmp_path / "tmp" / f"xo_fit-{os.getuid()}" / "kernels"
+    shared.mkdir(parents=True)
+    shared.chmod(0o777)  # the predictable fallback, writable by anyone: refused
+    got = kernels.cache_dir()
+    assert got != shared and got.parent == tmp_path / "tmp" and (got.stat().st_mode & 0o777) == 0o700
+    shared.chmod(0o700)  # once private, the fallback is used
+    assert kernels.cache_dir() == shared
+    own = tmp_path / "own"
+    monkeypatch.setenv("XO_FIT_CACHE", str(own))
+    assert kernels.cache_dir() == own / "kernels" and (own / "kernels").stat().st_mode & 0o022 == 0

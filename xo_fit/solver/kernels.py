@@ -9,6 +9,7 @@ from __future__ import annotations
 import hashlib
 import importlib.util
 import os
+import stat
 import sys
 import tempfile
 from pathlib import Path
@@ -17,20 +18,46 @@ from pathlib import Path
 KERNEL_VERSION = 2
 
 
-def cache_dir() -> Path:
-    """Folder for generated kernels and numba's compiled objects: $XO_FIT_CACHE, else ~/.cache/xo_fit."""
-    env = os.environ.get("XO_FIT_CACHE")
-    base = Path(env) if env else Path(os.environ.get("XDG_CACHE_HOME", Path.home() / ".cache")) / "xo_fit"
-    folder = base / "kernels"
+def _private(folder: Path) -> bool:
+    """True when ``folder`` (created 0700 if missing) is a real folder owned by this user that nobody else can
+    write: only then may code found in it be run."""
     try:
-        folder.mkdir(parents=True, exist_ok=True)
+        folder.mkdir(parents=True, exist_ok=True, mode=0o700)
         probe = folder / f".probe{os.getpid()}"
         probe.write_text("")
         probe.unlink()
+        for f in (folder, folder.parent):
+            st = f.lstat()
+            if not stat.S_ISDIR(st.st_mode):
+                return False  # a link or a file: someone else may decide where it points
+            if hasattr(os, "getuid") and st.st_uid != os.getuid():
+                return False
+            if f == folder and st.st_mode & 0o022:
+                return False
     except OSError:
-        folder = Path(tempfile.gettempdir()) / f"xo_fit-{os.getuid() if hasattr(os, 'getuid') else 'u'}" / "kernels"
-        folder.mkdir(parents=True, exist_ok=True)
-    return folder
+        return False
+    return True
+
+
+_SESSION: list[Path] = []
+
+
+def cache_dir() -> Path:
+    """Folder for generated kernels and numba's compiled objects: $XO_FIT_CACHE, else ~/.cache/xo_fit/kernels.
+
+    The folder must be private (owned by this user, not writable by others), since the kernels in it are run.
+    When the usual folder is not writable, ``<tmp>/xo_fit-<uid>/kernels`` is used if it is private; else a fresh
+    private folder for this process only (nothing is then reused across runs, and nothing planted is run).
+    """
+    env = os.environ.get("XO_FIT_CACHE")
+    base = Path(env) if env else Path(os.environ.get("XDG_CACHE_HOME", Path.home() / ".cache")) / "xo_fit"
+    uid = os.getuid() if hasattr(os, "getuid") else "u"
+    for folder in (base / "kernels", Path(tempfile.gettempdir()) / f"xo_fit-{uid}" / "kernels"):
+        if _private(folder):
+            return folder
+    if not _SESSION:
+        _SESSION.append(Path(tempfile.mkdtemp(prefix="xo_fit-kernels-")))
+    return _SESSION[0]
 
 
 _LOADED: dict[str, object] = {}
