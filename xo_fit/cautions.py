@@ -50,18 +50,23 @@ def design_cautions(stress, rated_ohm: float | None) -> list[str]:
     for p in stress.parts:
         if p.kind != "R":
             continue
-        need = RESISTOR_MARGIN * p.sine_worst
+        programme = p.programme if p.programme is not None else p.sine_worst
+        need = RESISTOR_MARGIN * programme
+        figures = (f"{programme:.3g} W programme, {p.sine_worst:.3g} W sine worst case at {p.at_hz:.0f} Hz; a sustained "
+                   f"sine at full drive would need {RESISTOR_MARGIN * p.sine_worst:.3g} W")
         if p.rating is not None and p.rating < need:
-            out.append(f"{p.name} dissipates up to {p.sine_worst:.2f} W (sine worst case at {p.at_hz:.0f} Hz) against its "
-                       f"{p.rating:g} W rating: less than the 2x margin of common practice; use at least {need:.1f} W")
+            out.append(f"{p.name} is rated {p.rating:g} W, less than 2x its programme power ({figures}): use at least "
+                       f"{need:.3g} W (2x margin, common practice)")
             hot = True
         elif p.rating is None and p.sine_worst >= 1.0:
-            out.append(f"{p.name} dissipates up to {p.sine_worst:.2f} W (sine worst case at {p.at_hz:.0f} Hz): rate it at "
-                       f"{need:.1f} W or more (2x margin, common practice)")
+            out.append(f"{p.name}: rate it at {need:.3g} W or more, 2x its programme power (common practice; "
+                       f"{figures})")
             hot = True
     for p in stress.parts:
         if p.kind == "C" and p.rating is not None and p.sine_worst > p.rating:
-            out.append(f"{p.name} sees {p.sine_worst:.1f} V peak against its {p.rating:g} V rating")
+            out.append(f"{p.name} sees {p.sine_worst:.3g} V peak against its {p.rating:g} V rating")
+        if p.kind == "L" and p.rating is not None and p.sine_worst > p.rating:
+            out.append(f"{p.name} carries {p.sine_worst:.3g} A peak against its {p.rating:g} A rating")
     if hot:
         out.append("resistors that run hot belong away from damping material (wadding), wiring and capacitors, "
                    "with free air around them")

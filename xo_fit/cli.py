@@ -90,21 +90,17 @@ def _load(job_path: Path):
 @app.command()
 def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
     """Read and validate a job and its data; show the grid, drivers, parts, free values and nodes."""
-    import tomllib
-
+    from .io.job import has_sweep
     from .units import format_value
 
-    try:
-        swept = "sweep" in tomllib.loads(job.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
-        swept = False  # load_job reports it properly below
-    if swept:
+    if has_sweep(job):
+        from .fitting import cost_model
         from .io.job import expand_job
         from .system import load_system
 
         variants = expand_job(job)
         for v, _ in variants:
-            load_system(v)  # every variant's data must load too
+            cost_model(load_system(v))  # every variant's data and target curves must load too
         say(f"job      {job} has a [sweep] of {len(variants)} variants, all valid: "
             + ", ".join(v.name for v, _ in variants))
         say("ok (run them with xo-fit batch)")
@@ -112,6 +108,9 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
     system = _load(job)
     j = system.job
     f = system.frequencies
+    from .fitting import cost_model
+
+    cost_model(system)  # the targets and their shaping curve load as a fit would load them
     per_oct = (f.size - 1) / np.log2(f[-1] / f[0])
     say(f"job      {j.name}  ({j.path})")
     say(f"grid     {f.size} points, {format_value(f[0], 'Hz')} to {format_value(f[-1], 'Hz')}, "

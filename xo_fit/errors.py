@@ -67,12 +67,42 @@ class NetworkError(XoFitError):
     """The netlist cannot be built: duplicate names, islands, shorted parts."""
 
 
-def read_user_text(path: str | Path, what: str, error: type = DataError, encoding: str = "utf-8-sig") -> str:
-    """The text of a file the user named; a missing or unreadable one raises ``error`` naming it and ``what`` it is."""
+#: The largest file read for the user (a job, a measurement, a drawer, a result), bytes.
+MAX_USER_FILE = 64 * 1024 * 1024
+
+
+def read_user_bytes(path: str | Path, what: str, error: type = DataError) -> bytes:
+    """The bytes of a regular file the user named, at most MAX_USER_FILE of them.
+
+    A missing, unreadable or oversized file, a device or pipe (``/dev/zero`` would never end), or a path with
+    a NUL raises ``error`` naming it and ``what`` it is.
+    """
+    import os
+    import stat
+
     path = Path(path)
     try:
-        return path.read_text(encoding=encoding)
+        with open(path, "rb") as fh:
+            mode = os.fstat(fh.fileno()).st_mode
+            if not stat.S_ISREG(mode):
+                raise error(f"the {what} is not a regular file", path=path)
+            raw = fh.read(MAX_USER_FILE + 1)
     except FileNotFoundError:
         raise error(f"{what} not found", path=path) from None
-    except (OSError, UnicodeDecodeError) as e:
-        raise error(f"cannot read the {what}: {e}", path=path) from None
+    except IsADirectoryError:
+        raise error(f"the {what} is a folder, not a file", path=path) from None
+    except (OSError, ValueError) as e:  # ValueError: a NUL in the path
+        raise error(f"cannot read the {what}: {getattr(e, 'strerror', None) or e}", path=repr(str(path))[1:-1]) from None
+    if len(raw) > MAX_USER_FILE:
+        raise error(f"the {what} is larger than {MAX_USER_FILE // 2**20} MiB", path=path)
+    return raw
+
+
+def read_user_text(path: str | Path, what: str, error: type = DataError, encoding: str = "utf-8-sig") -> str:
+    """The text of a file the user named; a missing, unreadable or undecodable one raises ``error``."""
+    raw = read_user_bytes(path, what, error)
+    try:
+        return raw.decode(encoding)
+    except UnicodeDecodeError as e:
+        raise error(f"cannot read the {what}: not {encoding.split('-sig')[0].upper()} text ({e.reason} at byte "
+                    f"{e.start})", path=path) from None

@@ -19,6 +19,17 @@ from .cost import phase_error_deg
 from .io.results import atomic_path
 
 
+def plain(text: str) -> str:
+    """User text (a job name, a label) as matplotlib shows it literally: no "$...$" mathtext."""
+    return str(text).replace("$", r"\$")
+
+
+def set_ylim(ax, lo: float, hi: float) -> None:
+    """ax.set_ylim when both ends are finite and apart (a curve of NaN or overflowed levels leaves the default)."""
+    if np.isfinite(lo) and np.isfinite(hi) and hi > lo:
+        ax.set_ylim(lo, hi)
+
+
 def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | None = None) -> None:
     """Write a PNG for a scored design (xo_fit.fitting.Scored); ``compare`` = (label, other Scored) overlays
     another design's sum, phase error and impedance in grey (continuous against snapped)."""
@@ -54,9 +65,9 @@ def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | Non
         ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.system)), color="k", lw=1.0, ls="--",
                     label="target")
     top = float(np.nanmax(sum_db))
-    ax.set_ylim(top - 50, top + 6)
+    set_ylim(ax, top - 50, top + 6)
     ax.set_ylabel("SPL (dB)")
-    ax.set_title(title)
+    ax.set_title(plain(title))
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(loc="lower center", ncol=4, fontsize=8)
     band = system.job.target.band
@@ -84,7 +95,7 @@ def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | Non
     if floor > 0:
         ax2.axhline(floor, color="tab:red", lw=1.0, ls="--", label=f"floor {floor:g} Ω")
     ax2.set_ylabel("|Z| (Ω)")
-    ax2.set_ylim(0, max(float(np.nanmax(zmag)) * 1.15, floor * 1.5, 1.0))
+    set_ylim(ax2, 0, max(float(np.nanmax(zmag)) * 1.15, floor * 1.5, 1.0))
     ax2.grid(True, which="both", alpha=0.3)
     ax3 = ax2.twinx()
     ax3.semilogx(f, acoustics.phase_deg(z), color="tab:gray", lw=1.0, label="phase")
@@ -133,11 +144,11 @@ def plot_spread(path: str | Path, system, s, r, *, title: str) -> None:
         ax.fill_between(f, r.p05[i], r.p95[i], color=c, alpha=0.18 if i else 0.25, lw=0)
         ax.semilogx(f, r.nominal_db[i], color=c, lw=2.0 if i == 0 else 1.2, label=f"{name} (nominal, p05-p95)")
     top = float(np.nanmax(r.nominal_db[0]))
-    ax.set_ylim(top - 40, top + 6)
+    set_ylim(ax, top - 40, top + 6)
     ax.set_xlim(f[0], f[-1])
     ax.set_xlabel("frequency (Hz)")
     ax.set_ylabel("SPL (dB)")
-    ax.set_title(title)
+    ax.set_title(plain(title))
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(loc="lower center", fontsize=8, ncol=3)
     fig.subplots_adjust(left=0.08, right=0.97, top=0.93, bottom=0.1)
@@ -163,11 +174,11 @@ def spl_db_of(p: np.ndarray) -> np.ndarray:
 
 def finish_axes(ax, ylabel: str, title: str, f: np.ndarray, top: float | None = None) -> None:
     if top is not None:
-        ax.set_ylim(top - 50, top + 6)
+        set_ylim(ax, top - 50, top + 6)
     ax.set_xlim(f[0], f[-1])
     ax.set_ylabel(ylabel)
     ax.set_xlabel("frequency (Hz)")
-    ax.set_title(title, fontsize=10)
+    ax.set_title(plain(title), fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=7, loc="best")
     ax.figure.tight_layout()

@@ -18,7 +18,7 @@ import numpy as np
 from .cost import phase_error_deg
 from .errors import XoFitError
 from .io.results import atomic_path
-from .plots import crossover_pairs, finish_axes, png_bytes, spl_db_of
+from .plots import crossover_pairs, finish_axes, plain, png_bytes, set_ylim, spl_db_of
 
 
 def _entries(items: list) -> list[tuple]:
@@ -27,7 +27,7 @@ def _entries(items: list) -> list[tuple]:
     for x in items:
         design = getattr(x, "design", x)
         columns = getattr(x, "columns", None) if design is not x else None
-        out.append([design.label or design.stage, design, columns])
+        out.append([plain(design.label or design.stage), design, columns])
     labels = [e[0] for e in out]
     for k, e in enumerate(out):
         if labels.count(e[0]) > 1:
@@ -106,7 +106,7 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
         ax1.set_title("Phase error through the crossover (deg)", fontsize=10)
         ax1.grid(True, which="both", alpha=0.3)
         ax1.legend(fontsize=7)
-        ax2.set_ylim(top - 45, top + 6)
+        set_ylim(ax2, top - 45, top + 6)
         ax2.set_title("Reverse-polarity null: deep and centred at the crossover", fontsize=10)
         ax2.grid(True, which="both", alpha=0.3)
         ax2.legend(fontsize=7)
@@ -135,7 +135,7 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
         ax.axhline(job.cost.impedance_min, color="tab:red", ls="--", lw=1.0, label=f"floor {job.cost.impedance_min:g} Ω")
     if rated:
         ax.axhline(0.8 * rated, color="tab:orange", ls="-.", lw=1.0, label=f"80 % of {rated:g} Ω rated")
-    ax.set_ylim(0, float(np.max(np.abs(scored[0].sim.impedance[0]))) * 1.15)
+    set_ylim(ax, 0, float(np.max(np.abs(scored[0].sim.impedance[0]))) * 1.15)
     ax2.set_ylim(-90, 90)
     ax2.set_ylabel("phase (deg, dotted)")
     finish_axes(ax, "|Z| (Ω)", "Impedance the amplifier sees", f)

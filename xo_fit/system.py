@@ -172,7 +172,7 @@ def load_system(job: Job) -> System:
     """
     check_netlist(job)
     grid = job.grid.frequencies
-    warnings: list[str] = []
+    warnings: list[str] = list(job.warnings)
     drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
     zd = np.stack([d.impedance for d in drivers])
     network = compile_network(branches_for(job), [d.name for d in job.drivers], grid, zd,

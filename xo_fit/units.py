@@ -10,6 +10,8 @@ Accepted forms (everything else is an error naming the text):
   ``"1m5"``; for resistances also ``R`` as the point: ``"3R3"``, ``"0R22"``,
   ``"R47"``, ``"10R"``.
 
+Prefixes are p, n, u (or µ), m, k (or K), M and G; any other letter is an
+error, and so is a comma (write the decimal point: "4.2mH", not "4,2mH").
 A bare prefix letter is a scale, not a unit: ``"1m"`` is 0.001 of the base
 unit, so write lengths as ``"1000mm"`` or as the number ``1.0``. The unit, when
 written, must be the one the key expects (``"6.8uF"`` where a value in henry is
@@ -78,10 +80,39 @@ def _letter_code(text: str, unit: str) -> float | None:
     if mark == "R" and unit != "ohm":
         raise UnitsError(f"'{text}': the letter code with R as the decimal point is for resistances; "
                          f"expected {_describe(unit)}")
-    scale = 1.0 if mark == "R" else _PREFIX[mark]
     _check_unit(text, m["unit"], unit)
-    number = float(f"{m['int'] or '0'}.{m['frac'] or '0'}")
-    return (-1.0 if m["sign"] == "-" else 1.0) * number * scale
+    number = f"{m['sign']}{m['int'] or '0'}.{m['frac'] or '0'}"
+    return float(number) if mark == "R" else _scale(number, mark)
+
+
+def _scale(number: str, prefix: str) -> float:
+    """``number`` (decimal text) times the prefix, rounded once: "6.8" and "u" give exactly 6.8e-06."""
+    from decimal import Decimal
+
+    exponent = {"p": -12, "n": -9, "u": -6, "µ": -6, "μ": -6, "m": -3, "k": 3, "K": 3, "M": 6, "G": 9}[prefix]
+    return float(Decimal(number).scaleb(exponent))
+
+
+_SCALED = re.compile(r"^(?P<num>[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?)\s*(?P<rest>\S+)$")
+
+
+def _scaled(text: str, unit: str) -> float:
+    """A number with an SI prefix and/or the unit: "1.2mH", "1.5 mH", "470n", "10 ohm", "2.2kΩ"."""
+    m = _SCALED.match(text)
+    if not m:
+        raise UnitsError(f"cannot read '{text}' as {_describe(unit)}")
+    number, rest = m["num"], m["rest"]
+    spellings = UNIT_SPELLINGS.get(unit, frozenset())
+    if rest in _PREFIX:  # a bare prefix is a scale, never a unit ("1m" is 0.001 of the base unit)
+        return _scale(number, rest)
+    if rest in spellings:
+        return float(number)
+    if rest[0] in _PREFIX and rest[1:] in spellings:
+        return _scale(number, rest[0])
+    if rest[0] in _PREFIX or (len(rest) > 1 and rest[1:] in spellings):
+        raise UnitsError(f"'{text}' is not {_describe(unit)}" if rest[0] in _PREFIX else
+                         f"'{text}': unknown prefix '{rest[0]}' (use p, n, u, µ, m, k, M or G)")
+    raise UnitsError(f"'{text}' is not {_describe(unit)}")
 
 
 def _check_unit(text: str, written: str, unit: str) -> None:
@@ -120,17 +151,15 @@ def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: 
         text = value.strip()
         if not text:
             raise UnitsError(f"empty text, expected {_describe(unit)}")
+        if "," in text:
+            raise UnitsError(f"'{text}': a comma in a value; write a decimal point (\"4.2mH\", not \"4,2mH\") "
+                             "and no thousands separator")
         result = _letter_code(text, unit)
         if result is None:
             if _NUMBER.match(text):
                 result = float(text)
             else:
-                try:
-                    q = Quantity(text)
-                except Exception:
-                    raise UnitsError(f"cannot read '{text}' as {_describe(unit)}") from None
-                _check_unit(text, q.units, unit)
-                result = float(q)
+                result = _scaled(text, unit)
     else:
         raise UnitsError(f"expected {_describe(unit)}, got {type(value).__name__} {value!r}")
     if not math.isfinite(result):

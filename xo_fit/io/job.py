@@ -14,6 +14,7 @@ Relative paths are taken from the job file's folder.
 from __future__ import annotations
 
 import json
+import math
 import re
 import tomllib
 from dataclasses import dataclass, field
@@ -46,6 +47,15 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False, "rms_limit_db": 1.0,
                "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
 })
+
+#: The frequency range a grid may span, Hz (beyond it the arithmetic of a loudspeaker model loses meaning).
+GRID_HZ = (0.1, 1e6)
+#: The most grid points (memory: every curve, candidate and draw is this long).
+MAX_POINTS = 100_000
+#: The largest cost weight (larger ones overflow the cost).
+MAX_WEIGHT = 1e6
+#: Plausible ranges of a voltage (V) and of a flat driver's level (dB SPL).
+VOLTS = (1e-6, 1e4)
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
 _NODE = re.compile(r"^[A-Za-z0-9_\-+.]+$")
@@ -261,6 +271,7 @@ class Job:
     folder: Path = Path(".")
     document: str = "{}"
     part_lines: Mapping[str, int] = field(default_factory=lambda: FrozenMap())  # line of each part's nodes
+    warnings: tuple[str, ...] = ()  # doubtful but legal values, one line each
 
     @property
     def data(self) -> dict:
@@ -376,7 +387,11 @@ class _Reader:
         v = self.data[key]
         ok = isinstance(v, int) if integer else isinstance(v, (int, float))
         if isinstance(v, bool) or not ok:
-            raise self.error(key, f"expected {'a whole number' if integer else 'a number'}, got {v!r}")
+            raise self.error(key, f"expected {'a whole number' if integer else 'a number'}, got {_short(v)}")
+        if isinstance(v, float) and not math.isfinite(v):
+            raise self.error(key, f"expected a finite number, got {v!r}")
+        if isinstance(v, int) and abs(v) > 2**63:
+            raise self.error(key, f"{v} is out of range")
         if minimum is not None and v < minimum:
             raise self.error(key, f"must be at least {minimum:g}, got {v!r}")
         if maximum is not None and v > maximum:
@@ -412,6 +427,8 @@ class _Reader:
 
     def path(self, key: str) -> Path:
         v = self.text(key, required=True)
+        if re.search(r"[\x00-\x1f\x7f]", v):
+            raise self.error(key, f"a file path cannot hold control characters (got {v!r})")
         p = Path(v)
         return p if p.is_absolute() else (self.ctx.folder / p)
 
@@ -423,7 +440,7 @@ class _Reader:
         unknown = [k for k in self.data if k not in self.used and k not in allowed_extra]
         if unknown:
             key = unknown[0]
-            known = sorted(self.used | set(allowed_extra))
+            known = sorted(self.used | set(allowed_extra) | KEYS.get(_table_kind(self.table), frozenset()))
             hint = _close_match(key, known)
             raise self.ctx.error(
                 self.table, key,
@@ -438,14 +455,59 @@ class _Context:
     folder: Path
     lines: _Lines
     stem: str = "job"
+    warnings: list = field(default_factory=list)
+
+    def warn(self, table: tuple, key: str | None, message: str) -> None:
+        line = self.lines.find(table, key)
+        where = f"{self.path}:{line}: " if self.path and line else (f"{self.path}: " if self.path else "")
+        self.warnings.append(where + message)
 
     def error(self, table: tuple, key: str | None, message: str, where: str | None = None) -> JobError:
         return JobError(message, path=self.path, line=self.lines.find(table, key), key=where)
 
 
+#: Every key each table takes (what "did you mean" chooses from).
+KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) for k, v in {
+    "top": "name grid source acoustics driver part target cost search snap spread stress sweep",
+    "grid": "f_min f_max points per_octave",
+    "source": "voltage resistance",
+    "acoustics": "speed_of_sound",
+    "driver": "response impedance reference_voltage offset phase impedance_phase",
+    "thiele_small": "re le fs qms qes le_exponent",
+    "part": "name type nodes driver value min max fixed dcr esr tolerance rating series",
+    "target": "band level curve way",
+    "way": "type alignment order fc fc_low fc_high polarity",
+    "cost": "way sum phase impedance impedance_min",
+    "search": "optimizer budget seed time_limit polish robust",
+    "robust": "samples",
+    "snap": "series inventory combine",
+    "spread": "samples seed distribution band_db qmc rms_limit_db tolerance",
+    "stress": "power rated_impedance",
+}.items()})
+
+
+def _table_kind(table: tuple) -> str:
+    """The kind of table a reader reads, from its path in the document."""
+    if not table:
+        return "top"
+    if table[0] == "driver":
+        return "thiele_small" if len(table) == 3 else "driver"
+    if table[0] == "target" and len(table) == 3:
+        return "way"
+    if table[:2] == ("search", "robust"):
+        return "robust"
+    return str(table[0])
+
+
 def _kind(v: Any) -> str:
     return {dict: "a table", list: "a list", str: "a text", bool: "a boolean",
             int: "a number", float: "a number"}.get(type(v), type(v).__name__)
+
+
+def _short(v: Any) -> str:
+    """A value for an error message: its repr, cut short."""
+    text = repr(v)
+    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def _unit_text(unit: str) -> str:
@@ -475,6 +537,15 @@ def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = N
         raise JobError("this job has a [sweep] of variants: run it with 'xo-fit batch' (the other commands take "
                        "one design)", path=ctx.path, line=ctx.lines.find(("sweep",)), key="[sweep]")
     return _build(data, ctx)
+
+
+def has_sweep(path: str | Path) -> bool:
+    """True when the job file has a [sweep] table; False also when it cannot be read (load_job then says why)."""
+    try:
+        data, _ = _read(path)
+    except XoFitError:
+        return False
+    return "sweep" in data
 
 
 def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
@@ -558,6 +629,8 @@ def _read(source: str | Path | Mapping[str, Any], base: str | Path | None = None
     text = read_user_text(path, "job file", JobError)
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise JobError("invalid TOML: nested too deeply", path=path) from None
     except tomllib.TOMLDecodeError as e:
         msg = str(e)
         m = re.search(r"\(at line (\d+), column \d+\)", msg)
@@ -579,6 +652,8 @@ def _build(data: dict, ctx: _Context) -> Job:
     grid = _grid(top.sub("grid", "[grid]"))
     src = top.sub("source", "[source]")
     voltage = src.value("voltage", "V", DEFAULTS["source"]["voltage"])
+    if not VOLTS[0] <= voltage <= VOLTS[1]:
+        raise src.error("voltage", f"{voltage:g} V is outside {VOLTS[0]:g} to {VOLTS[1]:g} V")
     resistance = src.value("resistance", "ohm", DEFAULTS["source"]["resistance"], allow_zero=True)
     src.done()
     ac = top.sub("acoustics", "[acoustics]")
@@ -600,9 +675,16 @@ def _build(data: dict, ctx: _Context) -> Job:
     driver_names = {d.name for d in drivers}
     parts = tuple(_part(_Reader(p, ("part", i), f"[[part]] #{i + 1}", ctx), driver_names)
                   for i, p in enumerate(raw_parts))
+    for i, p in enumerate(parts):
+        _plausible(p, ctx, ("part", i))
     _check_parts(parts, drivers, ctx)
 
     target = _target(top.sub("target", "[target]"), driver_names)
+    if target.band is not None:
+        f = grid.frequencies
+        if not np.any((f >= target.band[0]) & (f <= target.band[1])):
+            raise ctx.error(("target",), "band", f"the band {target.band[0]:g}-{target.band[1]:g} Hz holds no point "
+                            f"of the grid ({f[0]:g}-{f[-1]:g} Hz, {f.size} points)", "[target] band")
     cost = _cost(top.sub("cost", "[cost]"))
     search = _search(top.sub("search", "[search]"))
     snap = _snap(top.sub("snap", "[snap]"))
@@ -616,7 +698,8 @@ def _build(data: dict, ctx: _Context) -> Job:
                speed_of_sound=c, drivers=tuple(drivers), parts=parts, target=target, cost=cost,
                search=search, snap=snap, spread=spread, stress=stress, folder=ctx.folder,
                document=json.dumps(document, default=str),
-               part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}))
+               part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}),
+               warnings=tuple(ctx.warnings))
 
 
 def _stress(r: _Reader) -> StressSpec:
@@ -638,11 +721,17 @@ def _grid(r: _Reader) -> Grid:
         raise r.error("f_max", f"must be above f_min ({f_min:g} Hz), got {f_max:g} Hz")
     if r.has("points") and r.has("per_octave"):
         raise r.error("per_octave", "give either points or per_octave, not both")
+    for key, f in (("f_min", f_min), ("f_max", f_max)):
+        if not GRID_HZ[0] <= f <= GRID_HZ[1]:
+            raise r.error(key, f"{f:g} Hz is outside {GRID_HZ[0]:g} Hz to {GRID_HZ[1]:g} Hz")
     if r.has("per_octave"):
         per_octave = r.number("per_octave", None, integer=True, minimum=1, maximum=1000)
         points = int(np.ceil(np.log2(f_max / f_min) * per_octave - 1e-9)) + 1
+        if points > MAX_POINTS:
+            raise r.error("per_octave", f"{per_octave} per octave from {f_min:g} to {f_max:g} Hz makes {points} "
+                                        f"points; at most {MAX_POINTS}")
     else:
-        points = r.number("points", d["points"], integer=True, minimum=2, maximum=100000)
+        points = r.number("points", d["points"], integer=True, minimum=2, maximum=MAX_POINTS)
     r.done()
     return Grid(f_min=f_min, f_max=f_max, points=points)
 
@@ -662,6 +751,8 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
                       "or a Thiele-Small table {re, le, fs, qms, qes}")
     resp = r.raw("response")
     if isinstance(resp, (int, float)) and not isinstance(resp, bool):
+        if not (math.isfinite(resp) and -300 <= resp <= 300):
+            raise r.error("response", f"a flat driver's level must be -300 to 300 dB SPL, got {_short(resp)}")
         response: FileCurve | FlatResponse = FlatResponse(float(resp))
     else:
         response = FileCurve(r.path("response"))
@@ -688,13 +779,20 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
         name=name,
         response=response,
         impedance=impedance,
-        reference_voltage=r.value("reference_voltage", "V", d["reference_voltage"]),
+        reference_voltage=_volts(r, "reference_voltage", d["reference_voltage"]),
         offset=r.value("offset", "m", d["offset"], positive=False),
         phase=_phase_choice(r, "phase"),
         impedance_phase=_phase_choice(r, "impedance_phase"),
     )
     r.done()
     return spec
+
+
+def _volts(r: _Reader, key: str, default: float) -> float:
+    v = r.value(key, "V", default)
+    if not VOLTS[0] <= v <= VOLTS[1]:
+        raise r.error(key, f"{v:g} V is outside {VOLTS[0]:g} to {VOLTS[1]:g} V")
+    return v
 
 
 def _missing(r: _Reader, key: str):
@@ -739,9 +837,7 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         return PartSpec(name=name, type=ptype, nodes=nodes_t, driver=drv)
 
     unit = PART_UNIT[ptype]
-    value = r.value("value", unit)
-    lo = r.value("min", unit)
-    hi = r.value("max", unit)
+    value, lo, hi = (_part_value(r, key, unit) for key in ("value", "min", "max"))
     fixed = r.boolean("fixed", DEFAULTS["part"]["fixed"])
     if (lo is None) != (hi is None):
         raise r.error("min" if lo is None else "max", "give both min and max for a search range, or neither")
@@ -797,6 +893,41 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
                     dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series, rating=rating)
 
 
+#: What the parts of a loudspeaker crossover take, by type (SI): resistors from a fraction of an ohm (a
+#: coil's copper, a series pad) to some kilohms; coils from a few microhenry to tens of millihenry; capacitors
+#: from a few nanofarad (a tweeter's bypass) to some millifarad (a woofer's bass-shelf network). A value
+#: outside is legal but usually a slip of the unit ("10" for a capacitor is 10 F).
+PLAUSIBLE = {"R": (0.01, 1e5), "L": (1e-6, 0.1), "C": (1e-9, 0.01)}
+
+
+#: Part values the arithmetic can take (SI): far outside what any part is, and inside what float64 divides
+#: without overflow (a denormal resistance would make an infinite admittance).
+SOLVABLE = (1e-12, 1e12)
+
+
+def _part_value(r: _Reader, key: str, unit: str) -> float | None:
+    v = r.value(key, unit)
+    if v is not None and not SOLVABLE[0] <= v <= SOLVABLE[1]:
+        from ..units import format_value
+
+        raise r.error(key, f"{format_value(v, unit)} is no part: values must lie within "
+                           f"{SOLVABLE[0]:g} to {SOLVABLE[1]:g} {unit}")
+    return v
+
+
+def _plausible(p: PartSpec, ctx: _Context, table: tuple) -> None:
+    from ..units import format_value
+
+    if p.type not in PLAUSIBLE:
+        return
+    lo, hi = PLAUSIBLE[p.type]
+    for key in ("value", "min", "max"):
+        v = getattr(p, key)
+        if v is not None and not lo <= v <= hi:
+            ctx.warn(table, key, f"part {p.name}: {key} {format_value(v, p.unit)} lies outside what a crossover "
+                                 f"uses ({format_value(lo, p.unit)} to {format_value(hi, p.unit)}); check the unit")
+
+
 def _is_length(text: str) -> bool:
     try:
         parse_value(text, "m")
@@ -844,10 +975,10 @@ def _target(r: _Reader, driver_names: set[str]) -> TargetSpec:
         raw = r.raw("level")
         if raw == "auto":
             level = "auto"
-        elif isinstance(raw, (int, float)) and not isinstance(raw, bool):
+        elif isinstance(raw, (int, float)) and not isinstance(raw, bool) and math.isfinite(raw) and abs(raw) <= 300:
             level = float(raw)
         else:
-            raise r.error("level", f"expected \"auto\" or a level in dB SPL, got {raw!r}")
+            raise r.error("level", f"expected \"auto\" or a level in dB SPL (-300 to 300), got {_short(raw)}")
     curve = r.text("curve", d["curve"])
     ways = []
     w_table = r.sub("way", "[target.way]")
@@ -888,10 +1019,10 @@ def _way(name: str, r: _Reader) -> WayTarget:
 def _cost(r: _Reader) -> CostSpec:
     d = DEFAULTS["cost"]
     spec = CostSpec(
-        way=r.number("way", d["way"], minimum=0.0),
-        sum=r.number("sum", d["sum"], minimum=0.0),
-        phase=r.number("phase", d["phase"], minimum=0.0),
-        impedance=r.number("impedance", d["impedance"], minimum=0.0),
+        way=r.number("way", d["way"], minimum=0.0, maximum=MAX_WEIGHT),
+        sum=r.number("sum", d["sum"], minimum=0.0, maximum=MAX_WEIGHT),
+        phase=r.number("phase", d["phase"], minimum=0.0, maximum=MAX_WEIGHT),
+        impedance=r.number("impedance", d["impedance"], minimum=0.0, maximum=MAX_WEIGHT),
         impedance_min=r.value("impedance_min", "ohm", d["impedance_min"], allow_zero=True),
     )
     r.done()
@@ -907,7 +1038,7 @@ def _search(r: _Reader) -> SearchSpec:
         rr.done()
     spec = SearchSpec(
         optimizer=r.text("optimizer", d["optimizer"]),
-        budget=r.number("budget", d["budget"], integer=True, minimum=1),
+        budget=r.number("budget", d["budget"], integer=True, minimum=1, maximum=10**9),
         seed=r.number("seed", d["seed"], integer=True, minimum=0),
         time_limit=r.value("time_limit", "s", d["time_limit"]),
         polish=r.boolean("polish", d["polish"]),
@@ -961,12 +1092,12 @@ def _spread(r: _Reader) -> SpreadSpec:
             except UnitsError as e:
                 raise r.error("tolerance", f"{k}: {e.message}") from None
     spec = SpreadSpec(
-        samples=r.number("samples", d["samples"], integer=True, minimum=1),
+        samples=r.number("samples", d["samples"], integer=True, minimum=1, maximum=10**8),
         seed=r.number("seed", d["seed"], integer=True, minimum=0),
         distribution=r.choice("distribution", ("uniform", "normal"), d["distribution"]),
-        band_db=r.number("band_db", d["band_db"], minimum=0.0),
+        band_db=r.number("band_db", d["band_db"], minimum=0.0, maximum=100.0),
         qmc=r.boolean("qmc", d["qmc"]),
-        rms_limit_db=r.number("rms_limit_db", d["rms_limit_db"], minimum=0.0),
+        rms_limit_db=r.number("rms_limit_db", d["rms_limit_db"], minimum=0.0, maximum=100.0),
         tolerance=FrozenMap(tol),
     )
     r.done()

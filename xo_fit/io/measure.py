@@ -22,8 +22,14 @@ from pathlib import Path
 import numpy as np
 
 from ..constants import P_REF
-from ..errors import DataError
+from ..errors import DataError, read_user_bytes
 
+#: Plausible ranges of each column (frequency Hz, magnitude, phase deg): beyond them a number is a mistake
+#: (a misplaced exponent, a column of another quantity), and beyond them the arithmetic overflows too.
+_LIMITS = {
+    "response": ((-np.inf, 1e7, "frequency (Hz)"), (-300.0, 300.0, "level (dB)"), (-1e7, 1e7, "phase (deg)")),
+    "impedance": ((-np.inf, 1e7, "frequency (Hz)"), (-1e9, 1e9, "impedance (ohm)"), (-1e7, 1e7, "phase (deg)")),
+}
 #: Relative slack allowed when checking that the grid lies inside a file's range.
 RANGE_SLACK = 1e-9
 #: Width of the band at each end of a curve whose log-log slope extends it (octaves).
@@ -60,9 +66,13 @@ class Curve:
         return float(self.frequency[0]), float(self.frequency[-1])
 
 
-def _decode(raw: bytes) -> str:
+def _decode(raw: bytes, path: Path, kind: str) -> str:
     if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
-        return raw.decode("utf-16")
+        try:
+            return raw.decode("utf-16")
+        except UnicodeDecodeError as e:
+            raise DataError(f"the {kind} file starts as UTF-16 but is not valid UTF-16 ({e.reason} at byte "
+                            f"{e.start})", path=path) from None
     try:
         return raw.decode("utf-8-sig")
     except UnicodeDecodeError:
@@ -100,12 +110,7 @@ def read_curve(path: str | Path, kind: str) -> Curve:
         a non-positive frequency or impedance, fewer than two points.
     """
     path = Path(path)
-    try:
-        text = _decode(path.read_bytes())
-    except FileNotFoundError:
-        raise DataError(f"{kind} file not found", path=path) from None
-    except OSError as e:
-        raise DataError(f"cannot read the {kind} file: {e.strerror}", path=path) from None
+    text = _decode(read_user_bytes(path, f"{kind} file"), path, kind)
 
     data: list[tuple[int, str]] = []
     for number, line in enumerate(text.splitlines(), start=1):
@@ -144,6 +149,10 @@ def read_curve(path: str | Path, kind: str) -> Curve:
             raise DataError(f"'{bad}' is not a number", path=path, line=number) from None
         if not all(np.isfinite(vals)):
             raise DataError("not a finite number", path=path, line=number)
+        for x, (lo, hi, what) in zip(vals, _LIMITS[kind]):
+            if not lo <= x <= hi:
+                raise DataError(f"{what} {x:g} is outside {lo:g} to {hi:g}: not a plausible measurement",
+                                path=path, line=number)
         rows.append(vals)
     arr = np.asarray(rows, dtype=float)
     lines = np.asarray([n for n, _ in data])

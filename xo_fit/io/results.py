@@ -137,6 +137,8 @@ def read_result(path: str | Path) -> dict:
     text = read_user_text(path, "result file")
     try:
         data = json.loads(text)
+    except RecursionError:
+        raise DataError("not an xo_fit result: nested too deeply", path=path) from None
     except json.JSONDecodeError as e:
         raise DataError(f"not valid JSON: {e.msg}", path=path, line=e.lineno) from None
     if not isinstance(data, dict) or not isinstance(data.get("parts"), dict):
