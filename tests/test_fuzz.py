@@ -229,3 +229,54 @@ def test_odd_names_and_values_still_plot(tmp_path, replace):
 def test_values_no_part_can_have_are_refused(tmp_path):
     code, err = _cli(tmp_path, _job({'value = "2R2"': "value = 5e-324"}))
     assert code == 2 and "is no part: values must lie within 1e-12 to 1e+12 ohm" in err, err
+
+
+RESONANT = """
+[grid]
+f_min = 1000
+f_max = 4000
+points = 3
+[driver.w]
+response = 90
+impedance = 8
+[[part]]
+name = "L1"
+type = "L"
+nodes = ["in", "a"]
+value = 0.0006332573977646111
+[[part]]
+name = "C1"
+type = "C"
+nodes = ["a", "0"]
+value = 1e-5
+min = "5uF"
+max = "10uF"
+[[part]]
+name = "W"
+type = "driver"
+driver = "w"
+nodes = ["in", "0"]
+[target.way.w]
+type = "fullrange"
+"""
+
+
+def test_an_exact_series_resonance_across_the_source_is_no_traceback(tmp_path):
+    """An ideal series LC across "in" (Rs = 0), resonant on a grid point (2 kHz: w^2 L C = 1 to the last bit): the
+    nodal matrix is singular there. Simulate and fit finish, the load reads as the short it is, and the cost
+    reported is the cost the search computed (the fused kernel) for the same design."""
+    import json
+
+    import xo_fit
+    from xo_fit.fitting import cost_model
+    from xo_fit.solver.fused import FusedCost
+
+    (tmp_path / "job.toml").write_text(RESONANT)
+    for command in ("simulate", "fit"):
+        assert main([command, str(tmp_path / "job.toml"), "--out", str(tmp_path / command), "--no-plots"]
+                    + (["--budget", "300"] if command == "fit" else [])) == 0
+        doc = json.loads((tmp_path / command / "result.json").read_text())
+        assert doc["metrics"]["impedance_min_ohm"] < 1e-6 and doc["metrics"]["impedance_min_hz"] == pytest.approx(2000)
+        design = xo_fit.load_result(tmp_path / command)
+        searched = FusedCost(cost_model(design.system)[0])(design.array[None])[0]
+        assert np.isfinite(doc["cost"]) and abs(searched - doc["cost"]) <= 1e-9 * max(1.0, abs(doc["cost"]))

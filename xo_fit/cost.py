@@ -143,6 +143,9 @@ class CostModel:
             "impedance": self._impedance(sim.impedance[..., band]),
         }
         cost = sum(self.weights[k] * terms[k] for k in TERMS)
+        finite = (np.all(np.isfinite(sim.impedance[..., band]), axis=-1)
+                  & np.all(np.isfinite(sim.pressure[..., band]), axis=(-2, -1)))
+        cost = np.where(np.isfinite(cost) & finite, cost, np.inf)  # a singular point (a short): infeasible
         return Evaluation(cost=cost, terms=terms, level_db=level)
 
     def _way(self, p_db: np.ndarray, level: np.ndarray) -> np.ndarray:

@@ -108,6 +108,11 @@ class Design:
             out.append({"kind": "at_limit", "part": name,
                         "text": f"{name} rests on its {side} {format_value(bound, p.unit)}: widen the range, "
                                 "or the part may not be needed"})
+        if self.scored.cost is not None and not math.isfinite(self.scored.cost):
+            out.append({"kind": "infeasible", "part": None,
+                        "text": "the design has no finite response at some frequency (an ideal series resonance or "
+                                "a short across the source or a driver): give the parts their resistance (dcr, esr) "
+                                "or move the values"})
         floor = self.job.cost.impedance_min
         zmin = self.scored.metrics.get("impedance_min_ohm")
         if floor > 0 and zmin is not None and zmin < floor:

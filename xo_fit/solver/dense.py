@@ -76,7 +76,7 @@ def _dense_nodes(net: Network, values: np.ndarray, f_index: np.ndarray):
             rhs[:, ia] += y[:, j] * fixed[br.b]
         if ib is not None and br.a in fixed:
             rhs[:, ib] += y[:, j] * fixed[br.a]
-    x = np.linalg.solve(mat, rhs[..., None])[..., 0] if n else np.zeros((m, 0), dtype=complex)
+    x = _solve_points(mat, rhs, np.abs(y).max(axis=-1)) if n else np.zeros((m, 0), dtype=complex)
 
     def volt(node: str) -> np.ndarray:
         if node in fixed:
@@ -84,6 +84,34 @@ def _dense_nodes(net: Network, values: np.ndarray, f_index: np.ndarray):
         return x[:, idx[node]]
 
     return volt, y
+
+
+def _solve_points(mat: np.ndarray, rhs: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """Solve (M, N, N) x = (M, N) for every point.
+
+    A point whose matrix is exactly singular (an ideal series resonance that leaves a node with no admittance
+    at all: the limit of a vanishing resistance) is solved with the diagonal raised by 1e-13 of the largest
+    branch admittance there (``scale``, (M,) siemens), which gives that limit to within rounding and matches the compiled kernel, which meets the same
+    point through the merged series chain; a point that stays unsolvable gets NaN (the design then scores as
+    infeasible).
+    """
+    with np.errstate(all="ignore"):
+        try:
+            x = np.linalg.solve(mat, rhs[..., None])[..., 0]
+        except np.linalg.LinAlgError:
+            x = np.full(rhs.shape, np.nan, dtype=complex)
+            for i in range(mat.shape[0]):
+                try:
+                    x[i] = np.linalg.solve(mat[i], rhs[i])
+                except np.linalg.LinAlgError:
+                    continue
+        eye = np.eye(mat.shape[-1])
+        for i in np.nonzero(~np.all(np.isfinite(x), axis=-1))[0]:  # singular, or so nearly that it overflowed
+            try:
+                x[i] = np.linalg.solve(mat[i] + 1e-13 * max(scale[i], 1e-300) * eye, rhs[i])
+            except np.linalg.LinAlgError:
+                x[i] = np.nan
+        return x
 
 
 def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Solution:

@@ -195,6 +195,7 @@ class FusedCost:
             for i, t in enumerate(TERMS, start=1):
                 out[redo, i] = ev.terms[t]
             out[redo, 5] = ev.level_db
+        out[~np.isfinite(out[:, 0]), 0] = np.inf  # as the reference: a design with a singular point is infeasible
         return out
 
     def __call__(self, values: np.ndarray) -> np.ndarray:
