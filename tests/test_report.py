@@ -242,3 +242,58 @@ def test_hostile_text_cannot_reach_the_deck_as_statements(write_job, tmp_path, c
         pytest.skip("ngspice not installed")
     subprocess.run([ngspice, "-b", str(tmp_path / "deck.cir")], cwd=tmp_path, capture_output=True, timeout=60)
     assert not (tmp_path / "PWNED").exists()
+
+
+def test_nodes_that_differ_only_in_case_stay_apart_in_the_deck(write_job, tmp_path):
+    """SPICE reads names without regard to case: "w1" and "W1" would merge and the coil between them vanish.
+    The deck renames one, and ngspice then gives xo_fit's driver voltage (to 1e-6)."""
+    from xo_fit.io.spice import spice_names
+
+    text = """
+[grid]
+f_min = 20
+f_max = 20000
+points = 31
+[driver.w]
+response = 88
+impedance = 8
+[[part]]
+name = "L1"
+type = "L"
+nodes = ["in", "w1"]
+value = "1mH"
+[[part]]
+name = "l1"
+type = "L"
+nodes = ["w1", "W1"]
+value = "2mH"
+[[part]]
+name = "C1"
+type = "C"
+nodes = ["W1", "0"]
+value = "10uF"
+[[part]]
+name = "W"
+type = "driver"
+driver = "w"
+nodes = ["W1", "0"]
+"""
+    s = load_system(load_job(write_job(text)))
+    deck = netlist(s, s.values(), "case")
+    node = spice_names(["in", "0", "w1", "W1"], keep=("0", "in"))
+    assert node["w1"].lower() != node["W1"].lower()
+    elements = [x.split()[0].lower() for x in deck.splitlines() if x and x[0] in "RLCX"]
+    assert len(elements) == len(set(elements)) == 5  # L1, l1, C1, the driver and RD inside its subcircuit
+    ngspice = shutil.which("ngspice")
+    if ngspice is None:
+        if os.environ.get("XO_FIT_REQUIRE_NGSPICE") == "1":
+            raise RuntimeError("ngspice is required (XO_FIT_REQUIRE_NGSPICE=1)")
+        pytest.skip("ngspice not installed")
+    control = (f".control\nset wr_vecnames\nset wr_singlescale\noption numdgt=16\nrun\n"
+               f"wrdata out.txt (v({node['W1']}))\nquit\n.endc\n")
+    (tmp_path / "x.cir").write_text(deck.replace(".end\n", control + ".end\n"))
+    run = subprocess.run([ngspice, "-b", "x.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stdout + run.stderr
+    data = np.loadtxt(tmp_path / "out.txt", skiprows=1)
+    mine = s.network.solve(s.values()).voltages[0, 0]
+    np.testing.assert_allclose(mine, data[:, 1] + 1j * data[:, 2], rtol=1e-6)

@@ -40,11 +40,35 @@ def comment(text: str) -> str:
     return "* " + re.sub(r"[\x00-\x1f\x7f\u2028\u2029\x85]", " ", str(text))
 
 
+def spice_names(names: list[str], keep: tuple[str, ...] = ()) -> dict[str, str]:
+    """SPICE names for node or part names: SPICE reads names without regard to case and stops at some
+    characters, so a name is kept only when it is plain (letters, digits, _) and no other name equals it
+    ignoring case; the others get a plain form and a number ("W1" beside "w1" becomes "W1_2")."""
+    out: dict[str, str] = {n: n for n in keep}
+    taken = {n.lower() for n in keep}
+    unique = set(names)
+    folded = [n.lower() for n in unique]
+    for k, n in enumerate(sorted(unique - set(keep)), start=1):
+        plain = re.sub(r"[^A-Za-z0-9_]", "_", n)
+        if plain != n or plain.lower() in taken or folded.count(n.lower()) > 1:
+            plain = f"{plain}_{k}"
+            while plain.lower() in taken:
+                plain += "x"
+        out[n] = plain
+        taken.add(plain.lower())
+    return out
+
+
 def netlist(system, values: np.ndarray, title: str) -> str:
     """The SPICE deck (text) of design ``values`` (P,) of ``system``."""
     job = system.job
     net = system.network
+    nodes = sorted({n for p in job.parts for n in p.nodes})
+    node = spice_names(nodes, keep=("0", "in"))
+    part = spice_names([p.name for p in job.parts])
     lines = [comment(title), "* exported by xo_fit; values in SI units", "*"]
+    lines += [comment(f"node {a} is {b} here") for a, b in node.items() if a != b]
+    lines += [comment(f"part {a} is {b} here") for a, b in part.items() if a != b]
     lines.append(f"VSRC src 0 DC 0 AC {_n(job.source_voltage)}")
     lines.append(f"RSRC src in {_n(job.source_resistance)}" if job.source_resistance > 0 else "VAMP src in DC 0")
     r = net.series_resistance(np.asarray(values)[None])[0]
@@ -54,19 +78,20 @@ def netlist(system, values: np.ndarray, title: str) -> str:
         if p.type == "driver":
             drv = job.driver(p.driver)
             i = [d.name for d in job.drivers].index(p.driver)
-            lines.append(f"X{p.name} {p.nodes[0]} {p.nodes[1]} DRV_{drv.name}")
+            lines.append(f"X{part[p.name]} {node[p.nodes[0]]} {node[p.nodes[1]]} DRV_{drv.name}")
             subckts.append(_driver_subckt(drv, system.drivers[i], system))
             continue
         v, rr = float(values[col]), float(r[col])
         col += 1
-        a, b = p.nodes
+        a, b = node[p.nodes[0]], node[p.nodes[1]]
+        name = part[p.name]
         if p.type == "R":
-            lines.append(f"R{p.name} {a} {b} {_n(v)}")
+            lines.append(f"R{name} {a} {b} {_n(v)}")
             continue
-        mid = f"{p.name}_s" if rr > 0 else b
-        lines.append(f"{p.type}{p.name} {a} {mid} {_n(v)}")
+        mid = f"{name}_s" if rr > 0 else b
+        lines.append(f"{p.type}{name} {a} {mid} {_n(v)}")
         if rr > 0:
-            lines.append(f"R{p.name}_{'dcr' if p.type == 'L' else 'esr'} {mid} {b} {_n(rr)}")
+            lines.append(f"R{name}_{'dcr' if p.type == 'L' else 'esr'} {mid} {b} {_n(rr)}")
     f = system.frequencies
     per_decade = max(1, round((f.size - 1) / math.log10(f[-1] / f[0])))
     lines += ["", *sum(subckts, []), "", f".ac dec {per_decade} {_n(f[0])} {_n(f[-1])}", ".end"]
