@@ -109,11 +109,15 @@ class _Hist:
     def __init__(self, curves: int, nf: int) -> None:
         self.nb = int(round(2 * HIST_RANGE_DB / HIST_STEP_DB)) + 1
         self.counts = np.zeros((curves, nf, self.nb), dtype=np.int64)
+        self.low = np.full((curves, nf), np.inf)
+        self.high = np.full((curves, nf), -np.inf)
         self.n = 0
 
     def add(self, dev: np.ndarray) -> None:
         """dev: (B, C, F) deviations in dB."""
         _accumulate(self.counts, np.ascontiguousarray(dev, dtype=float), HIST_RANGE_DB, 1.0 / HIST_STEP_DB)
+        self.low = np.minimum(self.low, dev.min(axis=0))
+        self.high = np.maximum(self.high, dev.max(axis=0))
         self.n += dev.shape[0]
 
     def percentile(self, q: float) -> np.ndarray:
@@ -124,7 +128,9 @@ class _Hist:
         below = np.where(k > 0, np.take_along_axis(cum, np.maximum(k - 1, 0)[..., None], -1)[..., 0], 0)
         here = np.take_along_axis(self.counts, k[..., None], -1)[..., 0]
         frac = np.where(here > 0, (target - below) / np.maximum(here, 1), 0.5)
-        return (k - 0.5 + np.clip(frac, 0, 1)) * HIST_STEP_DB - HIST_RANGE_DB
+        p = (k - 0.5 + np.clip(frac, 0, 1)) * HIST_STEP_DB - HIST_RANGE_DB
+        # never outside the deviations seen: zero tolerance gives exactly zero spread, not half a bin
+        return np.clip(p, self.low, self.high)
 
 
 @dataclass(frozen=True, eq=False)
