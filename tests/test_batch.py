@@ -167,3 +167,113 @@ def test_unsafe_job_names_are_refused_and_folders_are_unique_per_job(tmp_path, c
     assert len(set(folders)) == len(names)
     assert folders[0] == "x_y" and folders[3] == "plain-name.1"
     assert all(re.fullmatch(r"[A-Za-z0-9_.=-]+", f) and f not in (".", "..") for f in folders)
+
+
+def _children(pid: int) -> list[int]:
+    out = []
+    for task in Path(f"/proc/{pid}/task").iterdir():
+        kids = (task / "children").read_text().split()
+        out += [int(k) for k in kids]
+    return out
+
+
+def test_killing_the_coordinator_alone_leaves_no_worker_and_no_lock(tmp_path):
+    """kill -9 of the batch process only (not its group): its workers end with it, the lock goes with them, and
+    the next run finishes the batch."""
+    make_jobs(tmp_path, 4, budget=60000)
+    out = tmp_path / "out"
+    proc = subprocess.Popen([sys.executable, "-m", "xo_fit", "batch", str(tmp_path / "*.toml"), "--out", str(out),
+                             "--workers", "2", "--stages", "fit", "--no-plots"], stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)
+    deadline = time.time() + 60
+    kids: list[int] = []
+    while time.time() < deadline and not kids:
+        time.sleep(0.1)
+        kids = _children(proc.pid)
+    assert kids, "no worker started"
+    proc.kill()
+    proc.wait()
+    deadline = time.time() + 10
+    while time.time() < deadline and any(Path(f"/proc/{k}").exists() and
+                                         "zombie" not in Path(f"/proc/{k}/status").read_text() for k in kids):
+        time.sleep(0.1)
+    alive = [k for k in kids if Path(f"/proc/{k}").exists() and "(zombie)" not in Path(f"/proc/{k}/status").read_text()]
+    assert not alive, alive
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--workers", "2", "--stages", "fit", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    assert all(v[0] == "done" for v in rows(out).values()) and len(rows(out)) == 4
+
+
+def test_a_worker_that_dies_costs_only_its_own_job(tmp_path, monkeypatch):
+    """A worker killed in its second stage: its first stage is kept, the job is tried once more from there and,
+    dying again, recorded failed with the cause; every other job finishes. Stages carry their own times."""
+    import xo_fit.stages as stages
+    from xo_fit.batch import run_batch
+
+    make_jobs(tmp_path, 3, budget=800)
+    real = stages.snap_stage
+
+    def snap_or_die(system, *args, **kwargs):
+        if system.job.name == "job1":
+            os.kill(os.getpid(), signal.SIGKILL)
+        return real(system, *args, **kwargs)
+
+    monkeypatch.setattr(stages, "snap_stage", snap_or_die)
+    out = tmp_path / "out"
+    rep = run_batch([str(tmp_path / "*.toml")], out, ["fit", "snap"], workers=2, plots=False)
+    assert rep.done == 2 and rep.failed == 1
+    with sqlite3.connect(out / "results.sqlite") as db:
+        got = {(r[0], r[1]): r[2:] for r in db.execute("SELECT job, stage, status, started, finished, error FROM runs")}
+    assert got[("job1", "fit")][0] == "done" and (out / "job1" / "fit" / "result.json").is_file()
+    assert got[("job1", "snap")][0] == "failed" and "signal 9" in got[("job1", "snap")][3]
+    assert "twice" in got[("job1", "snap")][3]
+    for job in ("job0", "job2"):
+        fit, snap = got[(job, "fit")], got[(job, "snap")]
+        assert fit[0] == snap[0] == "done"
+        assert fit[1] < fit[2] <= snap[1] < snap[2]  # each stage's own start and end
+
+
+def test_store_and_folder_faults_are_one_line(tmp_path):
+    make_jobs(tmp_path, 1)
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "results.sqlite").write_bytes(b"SQLite format 3\x00" + b"\x13" * 200)  # truncated, damaged
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--stages", "fit", "--no-plots")
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "damaged" in r.stderr, r.stderr
+    (tmp_path / "file").write_text("")
+    r = cli("batch", tmp_path / "*.toml", "--out", tmp_path / "file" / "out", "--stages", "fit", "--no-plots")
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "--out" in r.stderr, r.stderr
+
+
+def test_a_full_disk_fails_the_job_and_leaves_no_running_row(tmp_path, monkeypatch):
+    import errno
+
+    import xo_fit.batch as batch
+
+    make_jobs(tmp_path, 2)
+
+    def no_space(path, suffix=""):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(batch, "atomic_path", no_space)
+    rep = batch.run_batch([str(tmp_path / "*.toml")], tmp_path / "out", ["fit"], workers=1, plots=False)
+    assert rep.failed == 2
+    states = rows(tmp_path / "out")
+    assert all(v[0] == "failed" and "No space left" in v[3] for v in states.values()), states
+
+
+def test_resume_after_a_stage_folder_was_deleted(tmp_path):
+    import shutil
+
+    make_jobs(tmp_path, 2)
+    out = tmp_path / "out"
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--workers", "1", "--stages", "fit,snap", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    before = rows(out)
+    shutil.rmtree(out / "job0" / "fit")
+    r = cli("batch", tmp_path / "*.toml", "--out", out, "--workers", "1", "--stages", "fit,snap", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    after = rows(out)
+    assert (out / "job0" / "fit" / "result.json").is_file()
+    assert after[("job0", "fit")][1] > before[("job0", "fit")][1]  # redone
+    assert after[("job1", "fit")] == before[("job1", "fit")]  # untouched

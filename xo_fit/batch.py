@@ -147,10 +147,13 @@ class Store:
         self.path = folder / "results.sqlite"
         try:
             self.db = sqlite3.connect(self.path, timeout=30)
-        except sqlite3.Error as e:
-            raise XoFitError(f"cannot open the results store: {e}", path=self.path) from None
-        self.db.execute(SCHEMA)
-        self.db.commit()
+            self.db.execute(SCHEMA)
+            self.db.commit()
+            self.db.execute("SELECT job, stage, hash, status, started, finished, cost, metrics, error, folder, "
+                            "source FROM runs LIMIT 1").fetchall()
+        except sqlite3.DatabaseError as e:
+            raise XoFitError(f"the results store is damaged or not one ({e}); move it away to start the batch "
+                             "afresh (the job folders are kept)", path=self.path) from None
 
     def rows(self) -> dict[tuple[str, str], dict]:
         cur = self.db.execute("SELECT job, stage, hash, status, started, finished, cost, metrics, error, folder, "
@@ -212,11 +215,13 @@ def _single_threaded() -> None:
         pass
 
 
-def work(payload: dict) -> dict:
+def work(payload: dict, emit=None) -> dict:
     """Run one job's stages (in a worker): payload has system, stages, start (values or None), inventory, plots.
 
-    Returns {"stages": [{"stage", "cost", "metrics", "files": {relative path: bytes}}], "error": None or
-    {"stage", "message"}, "seconds"}. Nothing here touches the batch's folder.
+    Returns {"stages": [{"stage", "cost", "metrics", "started", "finished", "files": {relative path: bytes}}],
+    "error": None or {"stage", "message"}, "seconds"}. ``emit``, when given, receives each stage's entry as
+    soon as the stage ends (so that a worker that dies later loses no finished stage). Nothing here touches the
+    batch's folder.
     """
     import numpy as np
 
@@ -234,6 +239,7 @@ def work(payload: dict) -> dict:
         for st in payload["stages"]:
             folder = tmp / st
             home = Path(payload["home"]) / st if payload.get("home") else None
+            started = time.time()
             try:
                 if st == "fit":
                     o = fit_stage(system, folder, plots=payload.get("plots", True), home=home)
@@ -252,7 +258,10 @@ def work(payload: dict) -> dict:
                 break
             values = [o.document["parts"][n]["value"] for n in system.part_names]
             files = {f"{st}/{p.name}": p.read_bytes() for p in sorted(folder.iterdir()) if p.is_file()}
-            done.append({"stage": st, "cost": o.cost, "metrics": o.metrics, "files": files})
+            done.append({"stage": st, "cost": o.cost, "metrics": o.metrics, "files": files, "started": started,
+                         "finished": time.time()})
+            if emit is not None:
+                emit({"stage_done": done[-1]})
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     return {"stages": done, "error": error, "seconds": time.time() - t0}
@@ -287,9 +296,16 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
         if st not in ("fit", "snap", "spread"):
             raise XoFitError(f"unknown stage '{st}'; expected fit, snap, spread", key="--stages")
     items = collect(patterns)
-    out.mkdir(parents=True, exist_ok=True)
-    lock = Lock(out)
-    store = Store(out)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        lock = Lock(out)
+    except OSError as e:
+        raise XoFitError(f"cannot use this folder for a batch: {e.strerror or e}", path=out, key="--out") from None
+    try:
+        store = Store(out)
+    except BaseException:
+        lock.release()
+        raise
     try:
         rows = store.rows()
         todo = []
@@ -304,7 +320,8 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
             need, previous = [], None
             for st in stages:
                 r = rows.get((it.name, st))
-                if not need and r is not None and r["status"] == "done" and r["hash"] == it.hash:
+                kept = (out / _folder_name(it.name) / st / "result.json").is_file()  # its folder may be gone
+                if not need and r is not None and r["status"] == "done" and r["hash"] == it.hash and kept:
                     previous = st
                     continue
                 need.append(st)
@@ -332,14 +349,26 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
                 store.set(it.name, st, hash=it.hash, status="running", started=time.time(), finished=None,
                           cost=None, metrics=None, error=None, folder=_folder_name(it.name), source=str(it.source))
 
-        def finish(it: Item, need: list[str], res: dict) -> bool:
+        def record(it: Item, stage_res: dict) -> None:
+            """One finished stage: its files written, its row done (with the stage's own start and end)."""
             folder = out / _folder_name(it.name)
-            for stage_res in res["stages"]:
+            try:
                 for rel, data in stage_res["files"].items():
                     with atomic_path(folder / rel) as tmp:
                         tmp.write_bytes(data)
-                store.set(it.name, stage_res["stage"], hash=it.hash, status="done", finished=time.time(),
-                          cost=stage_res["cost"], metrics=stage_res["metrics"], error=None)
+            except OSError as e:
+                raise _WriteFailed(f"cannot write the results of {it.name} into {folder}: {e.strerror or e}") from e
+            store.set(it.name, stage_res["stage"], hash=it.hash, status="done",
+                      started=stage_res.get("started", time.time()), finished=stage_res.get("finished", time.time()),
+                      cost=stage_res["cost"], metrics=stage_res["metrics"], error=None)
+
+        def finish(it: Item, need: list[str], res: dict) -> bool:
+            try:
+                for stage_res in res["stages"]:
+                    if not stage_res.get("recorded"):
+                        record(it, stage_res)
+            except _WriteFailed as e:
+                res = {"stages": [], "error": {"stage": need[0], "message": str(e)}}
             if res["error"] is not None:
                 store.set(it.name, res["error"]["stage"], hash=it.hash, status="failed", finished=time.time(),
                           error=res["error"]["message"])
@@ -354,10 +383,14 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
         n = len(payloads)
         if progress:
             progress(0, failed, 0, n, t0)
-        if scheduler:
-            done, failed = _run_dask(scheduler, payloads, finish, progress, done, failed, n, t0)
-        else:
-            done, failed = _run_local(workers or os.cpu_count() or 1, payloads, finish, progress, done, failed, n, t0)
+        try:
+            if scheduler:
+                done, failed = _run_dask(scheduler, payloads, finish, progress, done, failed, n, t0)
+            else:
+                done, failed = _run_local(workers or os.cpu_count() or 1, payloads, finish, record, progress, done,
+                                          failed, n, t0, lock)
+        finally:
+            _no_running_rows(store)
         summary = write_summary(out, store)
         return BatchReport(total=len(items), skipped=skipped, done=done, failed=failed, summary=summary)
     finally:
@@ -365,16 +398,125 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
         lock.release()
 
 
-def _run_local(workers, payloads, finish, progress, done, failed, n, t0):
-    from concurrent.futures import ProcessPoolExecutor, as_completed
+class _WriteFailed(Exception):
+    """A job's results could not be written into the batch folder (disk full, read-only)."""
+
+
+def _no_running_rows(store: "Store") -> None:
+    """Rows still "running" when the coordinator stops (interrupted, failing) become failed, to be rerun."""
+    try:
+        store.db.execute("UPDATE runs SET status = 'failed', error = COALESCE(error, 'interrupted: the batch "
+                         "stopped before this stage ended; run the batch again') WHERE status = 'running'")
+        store.db.commit()
+    except sqlite3.Error:
+        pass
+
+
+def _die_with_parent() -> None:
+    """In a worker: end when the coordinator ends (kill -9 included), never linger holding its files."""
+    parent = os.getppid()
+    try:  # Linux: the kernel sends SIGKILL when the parent dies
+        import ctypes
+
+        ctypes.CDLL(None, use_errno=True).prctl(1, 9)  # PR_SET_PDEATHSIG, SIGKILL
+    except Exception:  # pragma: no cover - elsewhere a watcher thread does it
+        pass
+    import threading
+
+    def watch() -> None:
+        while True:
+            time.sleep(1.0)
+            if os.getppid() != parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, daemon=True).start()
+
+
+def _child(conn, payload: dict, close_fds: list[int]) -> None:
+    """A worker process: one job, its stages reported through ``conn`` as they end, then the whole result."""
+    for fd in close_fds:  # the coordinator's lock and store are not the worker's to hold
+        try:
+            os.close(fd)
+        except OSError:
+            pass
+    _die_with_parent()
+    _single_threaded()
+    try:
+        res = work(payload, emit=conn.send)
+        conn.send({"final": res})
+    finally:
+        conn.close()
+
+
+def _run_local(workers, payloads, finish, record, progress, done, failed, n, t0, lock):
+    """One process per job, at most ``workers`` at a time. A job whose process dies (a crash, kill -9) is run once
+    more from its last finished stage, then recorded failed with the cause; the other jobs are not touched."""
+    import multiprocessing as mp
+    from collections import deque
+    from multiprocessing.connection import wait
 
     if not payloads:
         return done, failed
-    for var in THREAD_VARS:  # before the pool starts, so that every worker inherits them
+    for var in THREAD_VARS:  # before the workers start, so that every worker inherits them
         os.environ.setdefault(var, "1")
-    with ProcessPoolExecutor(max_workers=min(workers, len(payloads)), initializer=_single_threaded) as pool:
-        futures = {pool.submit(work, p): (it, need) for it, need, p in payloads}
-        return _drain(futures, as_completed(futures), "worker failed", finish, progress, done, failed, n, t0)
+    ctx = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else mp.get_context()
+    close_fds = [lock.fh.fileno()]
+    queue = deque((it, need, p, 0) for it, need, p in payloads)
+    running: dict = {}  # connection -> [process, item, need, payload, attempt, stages recorded]
+    try:
+        while queue or running:
+            while queue and len(running) < workers:
+                it, need, p, attempt = queue.popleft()
+                here, there = ctx.Pipe(duplex=False)
+                proc = ctx.Process(target=_child, args=(there, p, close_fds), daemon=True)
+                proc.start()
+                there.close()
+                running[here] = [proc, it, need, p, attempt, []]
+            for conn in wait(list(running), timeout=5.0):
+                proc, it, need, p, attempt, recorded = running[conn]
+                try:
+                    msg = conn.recv()
+                except (EOFError, OSError):
+                    msg = None
+                if msg is not None and "stage_done" in msg:
+                    stage_res = msg["stage_done"]
+                    try:
+                        record(it, stage_res)
+                        stage_res["recorded"] = True
+                    except _WriteFailed:
+                        pass  # finish() reports it with the job's final result
+                    recorded.append(stage_res)
+                    continue
+                del running[conn]
+                conn.close()
+                proc.join()
+                if msg is not None:
+                    res = msg["final"]
+                    for r in res["stages"]:
+                        r["recorded"] = any(x["stage"] == r["stage"] and x.get("recorded") for x in recorded)
+                else:  # the process died: retry once from the last recorded stage, else record the cause
+                    left = need[len(recorded):]
+                    cause = (f"the worker process died (signal {-proc.exitcode})" if proc.exitcode and proc.exitcode < 0
+                             else f"the worker process died (exit code {proc.exitcode})")
+                    if attempt == 0 and left:
+                        retry = dict(p, stages=left)
+                        if recorded:
+                            doc = json.loads(recorded[-1]["files"][f"{recorded[-1]['stage']}/result.json"])
+                            retry["start"] = [doc["parts"][n_]["value"] for n_ in p["system"].part_names]
+                        queue.append((it, left, retry, 1))
+                        continue
+                    res = {"stages": [], "error": {"stage": left[0] if left else need[-1],
+                                                   "message": f"{cause}, twice; not retried again"}}
+                    need = left or need
+                ok = finish(it, need, res)
+                done += ok
+                failed += not ok
+                if progress:
+                    progress(done, failed, len(running), n, t0)
+    finally:
+        for proc, *_ in running.values():
+            proc.kill()
+    return done, failed
 
 
 def _drain(futures: dict, completed, failure: str, finish, progress, done, failed, n, t0):
