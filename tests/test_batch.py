@@ -277,3 +277,20 @@ def test_resume_after_a_stage_folder_was_deleted(tmp_path):
     assert (out / "job0" / "fit" / "result.json").is_file()
     assert after[("job0", "fit")][1] > before[("job0", "fit")][1]  # redone
     assert after[("job1", "fit")] == before[("job1", "fit")]  # untouched
+
+
+def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("distributed")
+    import xo_fit.batch as batch
+    from xo_fit.errors import XoFitError
+
+    make_jobs(tmp_path, 1)
+    monkeypatch.setattr(batch, "DASK_WORKER_WAIT", 1.0)
+    cluster = distributed.LocalCluster(n_workers=0, processes=True, host="127.0.0.1",
+                                       dashboard_address="127.0.0.1:0")  # loopback only, no worker
+    try:
+        with pytest.raises(XoFitError, match="no Dask worker is connected"):
+            batch.run_batch([str(tmp_path / "*.toml")], tmp_path / "out", ["fit"], scheduler=cluster.scheduler_address)
+    finally:
+        cluster.close()
+    assert not any(v[0] == "running" for v in rows(tmp_path / "out").values())

@@ -37,6 +37,7 @@ import sqlite3
 import tempfile
 import time
 import traceback
+import uuid
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -59,6 +60,8 @@ CREATE TABLE IF NOT EXISTS runs (
     PRIMARY KEY (job, stage)
 )
 """
+#: How long a batch waits for a Dask worker to connect to the scheduler, s.
+DASK_WORKER_WAIT = 60.0
 THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS")
 
 
@@ -527,8 +530,9 @@ def _drain(futures: dict, completed, failure: str, finish, progress, done, faile
         running -= 1
         try:
             res = fut.result()
-        except Exception as e:  # the worker process (or cluster task) itself died
-            res = {"stages": [], "error": {"stage": need[0], "message": f"{failure}: {e}"}}
+        except Exception as e:  # the cluster task itself died
+            res = {"stages": [], "error": {"stage": need[0], "message": f"{failure} for job {it.name}: "
+                                                                       f"{type(e).__name__}: {e}"}}
         ok = finish(it, need, res)
         done += ok
         failed += not ok
@@ -547,10 +551,17 @@ def _run_dask(address, payloads, finish, progress, done, failed, n, t0):
     except (OSError, TimeoutError) as e:
         raise XoFitError(f"cannot reach the Dask scheduler at {address}: {e}", key="--scheduler") from None
     try:
+        waited = time.time()
+        while not client.scheduler_info().get("workers"):
+            if time.time() - waited > DASK_WORKER_WAIT:
+                raise XoFitError(f"no Dask worker is connected to the scheduler at {address} (waited "
+                                 f"{DASK_WORKER_WAIT:g} s); start workers with xo_fit installed", key="--scheduler")
+            time.sleep(0.5)
         futures = {}
         for it, need, p in payloads:
-            # pure=False: equal arguments must not be merged into one task; the payload is one positional argument
-            fut = client.submit(work, p, pure=False)
+            # pure=False: equal arguments must not be merged into one task; the payload is one positional argument;
+            # the key names the job, so the cluster's dashboard and errors say which one
+            fut = client.submit(work, p, pure=False, key=f"xo_fit-{_folder_name(it.name)}-{uuid.uuid4().hex[:8]}")
             futures[fut] = (it, need)
         done, failed = _drain(futures, as_completed(list(futures)), "cluster task failed", finish, progress, done,
                               failed, n, t0)
