@@ -83,14 +83,30 @@ def test_epdr_and_the_80_percent_rule():
     assert RATED_FRACTION * 4 == pytest.approx(3.2) and LOW_LOAD_OHM == pytest.approx(3.2)
 
 
-def test_exported_netlist_runs_in_ngspice(write_job, tmp_path):
-    """The exported deck (Thiele-Small drivers as their RLC equivalents), run through ngspice, gives xo_fit's
-    driver voltages."""
+def _ngspice() -> str:
+    """The ngspice program; the test is skipped without it, unless XO_FIT_REQUIRE_NGSPICE=1 (CI) makes it a failure."""
     ngspice = shutil.which("ngspice")
     if ngspice is None:
         if os.environ.get("XO_FIT_REQUIRE_NGSPICE") == "1":
             raise RuntimeError("ngspice is required (XO_FIT_REQUIRE_NGSPICE=1)")
         pytest.skip("ngspice not installed")
+    return ngspice
+
+
+def _run_deck(ngspice: str, deck: str, probes: str, folder) -> np.ndarray:
+    """Run ``deck`` in ngspice batch mode, writing the complex ``probes`` at every frequency; the data columns."""
+    control = (f".control\nset wr_vecnames\nset wr_singlescale\noption numdgt=16\nrun\nwrdata out.txt {probes}\n"
+               "quit\n.endc\n")
+    (folder / "x.cir").write_text(deck.replace(".end\n", control + ".end\n"))
+    run = subprocess.run([ngspice, "-b", "x.cir"], cwd=folder, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stdout + run.stderr
+    return np.loadtxt(folder / "out.txt", skiprows=1)
+
+
+def test_exported_netlist_runs_in_ngspice(write_job, tmp_path):
+    """The exported deck (Thiele-Small drivers as their RLC equivalents), run through ngspice, gives xo_fit's
+    driver voltages."""
+    ngspice = _ngspice()
     text = '''
 [grid]
 f_min = 20
@@ -142,11 +158,7 @@ nodes = ["0", "t1"]
     s = load_system(load_job(write_job(text)))
     deck = netlist(s, s.values(), "test")
     assert "PLACEHOLDER" not in deck and ".subckt DRV_w" in deck
-    control = ".control\nset wr_vecnames\nset wr_singlescale\noption numdgt=16\nrun\nwrdata out.txt (v(w1)) (0-v(t1))\nquit\n.endc\n"
-    (tmp_path / "x.cir").write_text(deck.replace(".end\n", control + ".end\n"))
-    run = subprocess.run([ngspice, "-b", "x.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
-    assert run.returncode == 0, run.stdout + run.stderr
-    data = np.loadtxt(tmp_path / "out.txt", skiprows=1)
+    data = _run_deck(ngspice, deck, "(v(w1)) (0-v(t1))", tmp_path)
     f = data[:, 0]
     np.testing.assert_allclose(f, s.frequencies, rtol=1e-9)
     spice = data[:, 1::2] + 1j * data[:, 2::2]
@@ -235,11 +247,7 @@ def test_hostile_text_cannot_reach_the_deck_as_statements(write_job, tmp_path, c
     statements = [x for x in deck.splitlines() if x.strip() and not x.startswith("*")]
     assert not any(x.lower().startswith((".control", "shell", ".endc", "rx ")) for x in statements), statements
     assert "shell touch PWNED" in deck.splitlines()[0]  # kept, as a comment
-    ngspice = shutil.which("ngspice")
-    if ngspice is None:
-        if os.environ.get("XO_FIT_REQUIRE_NGSPICE") == "1":
-            raise RuntimeError("ngspice is required (XO_FIT_REQUIRE_NGSPICE=1)")
-        pytest.skip("ngspice not installed")
+    ngspice = _ngspice()
     subprocess.run([ngspice, "-b", str(tmp_path / "deck.cir")], cwd=tmp_path, capture_output=True, timeout=60)
     assert not (tmp_path / "PWNED").exists()
 
@@ -284,16 +292,7 @@ nodes = ["W1", "0"]
     assert node["w1"].lower() != node["W1"].lower()
     elements = [x.split()[0].lower() for x in deck.splitlines() if x and x[0] in "RLCX"]
     assert len(elements) == len(set(elements)) == 5  # L1, l1, C1, the driver and RD inside its subcircuit
-    ngspice = shutil.which("ngspice")
-    if ngspice is None:
-        if os.environ.get("XO_FIT_REQUIRE_NGSPICE") == "1":
-            raise RuntimeError("ngspice is required (XO_FIT_REQUIRE_NGSPICE=1)")
-        pytest.skip("ngspice not installed")
-    control = (f".control\nset wr_vecnames\nset wr_singlescale\noption numdgt=16\nrun\n"
-               f"wrdata out.txt (v({node['W1']}))\nquit\n.endc\n")
-    (tmp_path / "x.cir").write_text(deck.replace(".end\n", control + ".end\n"))
-    run = subprocess.run([ngspice, "-b", "x.cir"], cwd=tmp_path, capture_output=True, text=True, timeout=120)
-    assert run.returncode == 0, run.stdout + run.stderr
-    data = np.loadtxt(tmp_path / "out.txt", skiprows=1)
+    ngspice = _ngspice()
+    data = _run_deck(ngspice, deck, f"(v({node['W1']}))", tmp_path)
     mine = s.network.solve(s.values()).voltages[0, 0]
     np.testing.assert_allclose(mine, data[:, 1] + 1j * data[:, 2], rtol=1e-6)
