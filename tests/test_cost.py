@@ -109,3 +109,23 @@ def test_simulate_reports_cost_and_metrics(write_job, cli, tmp_path):
     assert "cost " in out and "rms" in out
     s = load_system(load_job(write_job(text)))
     assert score(s, s.values()).cost == pytest.approx(r["cost"], rel=1e-9)
+
+
+def test_an_exact_null_of_the_target_is_one_floor_for_both(write_job):
+    """An LR2 pair wired and targeted in phase sums to (1 + s^2)/(1 + s)^2: an exact null at fc (docs/references.md
+    [DER]), on a grid point here (2 kHz). The handbook design then matches its target everywhere; the null takes
+    no part in the level and costs nothing (it cost 37 when target and response had floors of their own), and
+    the fused kernel agrees with the reference."""
+    from xo_fit.solver.fused import FusedCost
+
+    text, _ = ladder_job("LR2", tweeter_inverted=False)
+    text = text.replace('[target.way.tweeter]\n', '[target.way.tweeter]\npolarity = "normal"\n')
+    s, cm = model(write_job, text)
+    assert (~cm.keep).sum() == 1 and s.frequencies[cm.band][~cm.keep][0] == pytest.approx(2000.0)
+    m, ev = cm.metrics(s.values())
+    assert ev.cost[0] < 1e-5 and m["rms_error_db"] < 3e-3
+    assert m["level_db"] == pytest.approx(90.0, abs=1e-3)
+    rng = np.random.default_rng(3)
+    values = s.values()[None] * np.exp(rng.uniform(-0.3, 0.3, (16, s.values().size)))
+    values[0] = s.values()
+    np.testing.assert_allclose(FusedCost(cm)(values), cm.evaluate(values).cost, rtol=1e-9, atol=1e-12)

@@ -16,7 +16,9 @@ the weights of ``[cost]``):
     that rises toward the passband is punished, harmless depth is not (common
     practice: breakup 20 dB under the average level is inaudible).
 ``sum``
-    the complex sum of all drivers against the system target ``L + S``.
+    the complex sum of all drivers against the system target ``L + S``. Where the
+    system target is a null (more than NULL_DB below the level) only output above
+    ``L + NULL_DB`` counts, and the automatic level leaves those points out.
 ``phase``
     through each crossover region (points where two adjacent way targets lie
     within XO_REGION_DB of each other) the phase difference of the two drivers
@@ -63,6 +65,11 @@ STOP_BAND_DB = 30.0
 BREAKUP_FLOOR_DB = 20.0
 #: Adjacent way targets within this many dB of each other mark a crossover region.
 XO_REGION_DB = 6.0
+#: Where the system target lies this far below its level (dB) it is a null (an in-phase LR2 pair at fc): there
+#: the sum only has to be as deep, and the point takes no part in the automatic level. One floor for target and
+#: response alike, instead of the logarithm's floor of each (common practice: output 60 dB under the level in
+#: a narrow null is inaudible; a 5-digit handbook ladder reaches about -96 dB there).
+NULL_DB = -60.0
 #: Degrees of phase mismatch that cost like one dB of level error.
 PHASE_DEG_PER_DB = 10.0
 TERMS = ("way", "sum", "phase", "impedance")
@@ -109,6 +116,9 @@ class CostModel:
         band = targets.band
         self.band = band
         self.t_sys_db = spl_db_unit(targets.system)[band]
+        self.keep = self.t_sys_db > NULL_DB  # (Fb,) points that are not nulls of the target
+        if not self.keep.any():
+            self.keep = np.ones_like(self.keep)
         t_way = np.where(targets.has_way[:, None], targets.ways, 1.0)
         self.t_way_db = spl_db_unit(t_way)[:, band]
         self.has_way = targets.has_way
@@ -134,11 +144,11 @@ class CostModel:
         p_db = spl_db(sim.pressure[..., band])  # (B, D, Fb)
         s_db = spl_db(sim.total[..., band])  # (B, Fb)
         target = self.t_sys_db
-        level = (np.mean(s_db - target, axis=-1) if self.targets.level_db is None
+        level = (np.mean((s_db - target)[..., self.keep], axis=-1) if self.targets.level_db is None
                  else np.full(s_db.shape[0], self.targets.level_db))
         terms = {
             "way": self._way(p_db, level),
-            "sum": np.mean((s_db - level[:, None] - target) ** 2, axis=-1),
+            "sum": np.mean(self.sum_error(s_db, level) ** 2, axis=-1),
             "phase": self._phase(sim.pressure[..., band]),
             "impedance": self._impedance(sim.impedance[..., band]),
         }
@@ -147,6 +157,12 @@ class CostModel:
                   & np.all(np.isfinite(sim.pressure[..., band]), axis=(-2, -1)))
         cost = np.where(np.isfinite(cost) & finite, cost, np.inf)  # a singular point (a short): infeasible
         return Evaluation(cost=cost, terms=terms, level_db=level)
+
+    def sum_error(self, s_db: np.ndarray, level: np.ndarray) -> np.ndarray:
+        """The summed level's error against the system target, dB (B, Fb): at the target's nulls only output
+        above ``level + NULL_DB`` counts. s_db: (B, Fb) dB SPL in the band; level: (B,)."""
+        rel = s_db - level[:, None]
+        return np.where(self.keep, rel - self.t_sys_db, np.maximum(rel - NULL_DB, 0.0))
 
     def _way(self, p_db: np.ndarray, level: np.ndarray) -> np.ndarray:
         rows = np.nonzero(self.has_way)[0]
@@ -186,7 +202,7 @@ class CostModel:
         sim = self.system.simulate(values, dense=True)
         ev = self.evaluate_simulation(sim)
         band = self.band
-        err = spl_db(sim.total[0, band]) - ev.level_db[0] - self.t_sys_db
+        err = self.sum_error(spl_db(sim.total[:1, band]), ev.level_db[:1])[0]
         phase = self._phase_errors(sim.pressure[:1, :, band])
         zmin, fmin = impedance_minimum(self.system.frequencies, sim.impedance[0], self.system.job.target.band)
         m = {

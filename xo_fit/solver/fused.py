@@ -26,7 +26,7 @@ import math
 import numpy as np
 
 from ..constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB
-from ..cost import BREAKUP_FLOOR_DB, PHASE_DEG_PER_DB, TERMS
+from ..cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from .codegen import solver_code
 from .kernels import KERNEL_VERSION, load_kernel
 
@@ -67,6 +67,11 @@ class FusedCost:
         r = np.zeros(nf)
         r[self.lo:self.hi] = cm.t_sys_db
         rows.append(r)
+        self.row_keep = len(rows)
+        r = np.zeros(nf)
+        r[self.lo:self.hi] = cm.keep
+        rows.append(r)
+        self.n_keep = int(cm.keep.sum())
         self.row_pairs = len(rows)
         self.pair_counts = []
         for a, b, region, target_diff in cm.pairs:
@@ -98,7 +103,7 @@ class FusedCost:
                       f"scratch[{k}, f] = pd{k}"]
         lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}",
                   "sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
-                  f"acc_l += sd - tgt[{self.row_tsys}, f]"]
+                  f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
         for j, (a, b, _, _) in enumerate(cm.pairs):
             base = self.row_pairs + 3 * j
             lines += [f"qr{j} = pr{a} * pr{b} + pi{a} * pi{b}", f"qi{j} = pi{a} * pr{b} - pr{a} * pi{b}",
@@ -119,7 +124,10 @@ class FusedCost:
                        f"x{k} = x{k} if x{k} > 0.0 else 0.0",
                        f"e{k} = x{k} if tgt[{self.row_stop + k}, f] > 0.5 else y{k}",
                        f"acc_w += e{k} * e{k}"]
-        second += [f"s = scratch[{d}, f] - level - tgt[{self.row_tsys}, f]", "acc_s += s * s"]
+        second += [f"s = scratch[{d}, f] - level - tgt[{self.row_tsys}, f]",
+                   f"u = scratch[{d}, f] - level - {NULL_DB!r}",  # at a null of the target: only output above it
+                   "u = u if u > 0.0 else 0.0",
+                   f"s = s if tgt[{self.row_keep}, f] > 0.5 else u", "acc_s += s * s"]
 
         phase_expr = " + ".join(f"acc_p{j} / {self.pair_counts[j]}.0" for j in range(len(cm.pairs)))
         phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
@@ -147,7 +155,7 @@ class FusedCost:
         src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0"]
         src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
         src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in lines]
-        src += [i1 + (f"level = acc_l / {nb}.0" if level is None else f"level = {level!r}"),
+        src += [i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
                 i1 + "acc_w = 0.0", i1 + "acc_s = 0.0"]
         src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in second]
         src += [i1 + "mz = 0.0"]
