@@ -14,8 +14,11 @@ GROUND_NODE = "0"
 
 #: Reference sound pressure of dB SPL, Pa (20 uPa, ISO 1683).
 P_REF = 20e-6
-#: Levels below this read as this floor in dB SPL (avoids the log of zero).
-SPL_FLOOR_DB = -200.0
+#: Levels below this read as this floor in dB SPL: silence, far under any measurement's noise, and deep enough
+#: that the rounding of two solve paths (a short's residue at -160 dB SPL here, -165 there) reads the same.
+SPL_FLOOR_DB = -100.0
+#: Loads below this many ohm are a dead short whatever their exact value (the cost's shortfall stops growing).
+Z_SHORT_OHM = 1e-6
 
 #: A pivot smaller than this fraction of the summed |admittance| at its node sends the point to the dense solve.
 PIVOT_TOLERANCE = 1e-3

@@ -56,7 +56,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .acoustics import spl_db
-from .constants import SPL_FLOOR_DB
+from .constants import SPL_FLOOR_DB, Z_SHORT_OHM
 from .grid import band_mask
 
 #: Where a way target lies this far below the level, only excess output counts (dB).
@@ -191,7 +191,7 @@ class CostModel:
     def _impedance(self, z: np.ndarray) -> np.ndarray:
         if self.impedance_floor <= 0:
             return np.zeros(z.shape[0])
-        short = np.maximum(20 * np.log10(self.impedance_floor / np.maximum(np.abs(z), 1e-300)), 0.0)
+        short = np.maximum(20 * np.log10(self.impedance_floor / np.maximum(np.abs(z), Z_SHORT_OHM)), 0.0)
         return np.mean(short**2, axis=-1) + np.max(short, axis=-1) ** 2
 
     # ------------------------------------------------------------------ metrics

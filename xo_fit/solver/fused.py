@@ -25,7 +25,7 @@ import math
 
 import numpy as np
 
-from ..constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB
+from ..constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB, Z_SHORT_OHM
 from ..cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from .codegen import solver_code
 from .kernels import KERNEL_VERSION, load_kernel
@@ -113,7 +113,7 @@ class FusedCost:
         if floor > 0:
             zr, zi = code.zin
             lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
-                      f"sh = DB10 * ln(max({floor * floor!r} / max(zz, 1e-300), 1.0))",
+                      f"sh = DB10 * ln(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
                       "acc_z += sh * sh", f"scratch[{d + 1}, f] = sh"]
         lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
 
