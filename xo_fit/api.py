@@ -28,7 +28,8 @@ from .errors import XoFitError
 from .io.job import Job
 from .io.job import load_job as _load_job
 
-__all__ = ["load_job", "simulate", "fit", "snap", "spread", "write_report", "load_result", "Design", "Spread"]
+__all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "Design",
+           "Spread"]
 
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
@@ -201,6 +202,20 @@ def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: 
     nominal_design = Design(system=system, scored=score(system, nominal), stage="spread",
                             sections={"spread": section}, source={"from": source_from}, label="spread")
     return Spread(design=nominal_design, section=section, columns=cols, result=r)
+
+
+def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: int | None = None,
+          seed: int | None = None, max_increase: float = 0.10, workers: int = 1, progress=None):
+    """Greedy backward elimination of parts with refits, from ``design`` (default: the job's own values).
+
+    Returns a :class:`~xo_fit.pruning.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),
+    ``design`` (the chosen one: the fewest parts within ``max_increase`` of step 0's cost), ``save(folder)``.
+    """
+    from .pruning import run_prune
+
+    system = _reuse(job, design)
+    return run_prune(system, _values(system, design), budget=budget, seed=seed, max_increase=max_increase,
+                     workers=workers, progress=progress)
 
 
 def write_report(items: list, out: str | Path) -> Path:

@@ -453,6 +453,50 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say("wrote " + ", ".join(str(p) for p in files))
 
 
+# ----------------------------------------------------------------------------- prune
+
+
+@app.command()
+def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
+          out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
+          from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
+          budget: Optional[int] = typer.Option(None, "--budget", min=1,
+                                               help="Cost evaluations per refit (default 600)."),
+          seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed (default: [search] seed)."),
+          max_increase: float = typer.Option(10.0, "--max-increase", min=0.0,
+                                             help="Largest cost increase over step 0 for the chosen design, %."),
+          workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),
+          no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNGs."),
+          ) -> None:
+    """Remove, one at a time, the part whose removal costs least (open or short, the rest refitted); keep the
+    smallest design within --max-increase of the start."""
+    from . import api
+
+    t0 = time.perf_counter()
+    system, values = _design(job, from_)
+    j = system.job
+
+    def progress(step: int, name: str, how: str, cost: float) -> None:
+        say(f"  step {step}: without {name} ({how}), cost {cost:.4g}")
+
+    say(f"prune {j.name}: {len(j.valued_parts)} parts, refits of {budget or 600} evaluations")
+    pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
+                   max_increase=max_increase / 100, workers=workers, progress=progress)
+    files = pr.save(out, plots=not no_plots)
+    if len(pr.steps) == 1:
+        say("  nothing to remove: every removal leaves no legal netlist, or every part has keep = true")
+    say(f"  {'step':>4} {'parts':>5} {'removed':<10} {'how':<6} {'cost':>10} {'rms dB':>7} {'worst dB':>8}")
+    for r in pr.steps:
+        mark = "  <- chosen" if r["step"] == pr.chosen else ""
+        say(f"  {r['step']:>4} {r['parts']:>5} {r['removed']:<10} {r['how']:<6} {r['cost']:>10.4g} "
+            f"{r['rms_error_db']:>7.2f} {r['max_error_db']:>8.2f}{mark}")
+    say(f"  chosen: {pr.steps[pr.chosen]['parts']} parts, within {max_increase:g} % of step 0's cost; "
+        f"{pr.evaluations} evaluations in {time.perf_counter() - t0:.1f} s")
+    _findings(pr.design)
+    _cautions(pr.design.system, pr.design.scored)
+    say("wrote " + ", ".join(str(p) for p in files))
+
+
 # ----------------------------------------------------------------------------- batch
 
 

@@ -178,7 +178,8 @@ class CostModel:
     def _phase_errors(self, pressure: np.ndarray) -> list[np.ndarray]:
         out = []
         for a, b, region, target_diff in self.pairs:
-            out.append(phase_error_deg(pressure[:, a, region] / pressure[:, b, region], target_diff[region]))
+            with np.errstate(divide="ignore", invalid="ignore"):  # a silent way: its phase is undefined
+                out.append(phase_error_deg(pressure[:, a, region] / pressure[:, b, region], target_diff[region]))
         return out
 
     def _phase(self, pressure: np.ndarray) -> np.ndarray:

@@ -113,6 +113,12 @@ class Design:
                         "text": "the design has no finite response at some frequency (an ideal series resonance or "
                                 "a short across the source or a driver): give the parts their resistance (dcr, esr) "
                                 "or move the values"})
+        if self.stage in ("simulate", "fit", "snap", "prune"):
+            if "idle" not in self.info:
+                from .removal import idle_parts
+
+                self.info["idle"] = idle_parts(self.system, self.scored.values, self.scored.cost)
+            out += self.info["idle"]
         floor = self.job.cost.impedance_min
         zmin = self.scored.metrics.get("impedance_min_ohm")
         if floor > 0 and zmin is not None and zmin < floor:

@@ -157,6 +157,46 @@ def plot_spread(path: str | Path, system, s, r, *, title: str) -> None:
     plt.close(fig)
 
 
+def plot_pruning(path: str | Path, steps: list[dict], chosen: int, *, title: str) -> None:
+    """The trade-off of a prune: cost and rms error against the number of parts, the chosen step marked."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig = pruning_figure(plt, steps, chosen, title)
+    with atomic_path(path, suffix=".png") as tmp:
+        fig.savefig(tmp, dpi=100, format="png")
+    plt.close(fig)
+
+
+def pruning_figure(plt, steps: list[dict], chosen: int, title: str):
+    parts = [r["parts"] for r in steps]
+    cost = [r["cost"] if r["cost"] is not None else np.nan for r in steps]
+    rms = [r["rms_error_db"] if r["rms_error_db"] is not None else np.nan for r in steps]
+    fig, ax = plt.subplots(figsize=(9, 3.8))
+    ax.plot(parts, cost, "o-", color="k", label="cost")
+    ax.plot([parts[chosen]], [cost[chosen]], "o", ms=12, mfc="none", mec="tab:red", label="chosen")
+    for r in steps[1:]:
+        ax.annotate(f"-{r['removed']} ({r['how']})", (r["parts"], r["cost"] or 0), fontsize=7, rotation=30,
+                    textcoords="offset points", xytext=(3, 4))
+    ax.set_xlabel("R, L and C parts")
+    ax.set_ylabel("cost")
+    if all(np.isfinite(c) and c > 0 for c in cost):
+        ax.set_yscale("log")
+    ax.invert_xaxis()
+    ax2 = ax.twinx()
+    ax2.plot(parts, rms, "s--", color="tab:blue", ms=4, label="rms error (dB)")
+    ax2.set_ylabel("rms error (dB)")
+    ax.set_title(plain(title), fontsize=10)
+    ax.grid(True, alpha=0.3)
+    h1, l1 = ax.get_legend_handles_labels()
+    h2, l2 = ax2.get_legend_handles_labels()
+    ax.legend(h1 + h2, l1 + l2, fontsize=8, loc="upper left")
+    fig.tight_layout()
+    return fig
+
+
 def png_bytes(fig) -> bytes:
     import io
 

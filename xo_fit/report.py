@@ -140,6 +140,15 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
     ax2.set_ylabel("phase (deg, dotted)")
     finish_axes(ax, "|Z| (Ω)", "Impedance the amplifier sees", f)
     figs["impedance"] = png_bytes(fig)
+
+    # 7. the trade-off of a prune: cost against part count
+    pruned = [d for _, d, _ in entries if "prune" in d.sections]
+    if pruned:
+        from .plots import pruning_figure
+
+        sec = pruned[0].sections["prune"]
+        figs["prune"] = png_bytes(pruning_figure(plt, sec["steps"], sec["chosen_step"],
+                                                 "Pruning: cost and rms error against the number of parts"))
     return figs
 
 
@@ -205,6 +214,18 @@ def write_report(items: list, out: Path) -> Path:
         part_rows.append(f"<tr><td>{esc(p.name)}</td><td>{p.type}</td><td>{esc(value)}</td>"
                          f"<td>{esc(source)}</td><td>{'' if tol is None else f'{tol * 100:g} %'}</td>"
                          f"<td>{esc(comb_text)}</td><td>{esc(stress_text)}</td></tr>")
+    prune_table = ""
+    pruned = [d for _, d, _ in entries if "prune" in d.sections]
+    if pruned:
+        sec = pruned[0].sections["prune"]
+        rows_html = "".join(
+            f"<tr><td>{r['step']}</td><td>{r['parts']}</td><td>{esc(r['removed'])}</td><td>{esc(r['how'])}</td>"
+            f"<td>{r['cost']:.4g}</td><td>{r['rms_error_db']:.2f}</td><td>{r['max_error_db']:.2f}</td>"
+            f"<td>{'chosen' if r['step'] == sec['chosen_step'] else ''}</td></tr>" for r in sec["steps"])
+        prune_table = (f"<h2>Pruning</h2><p>Each step removes the part whose removal costs least (the rest refitted); "
+                       f"the chosen design has the fewest parts within {sec['max_increase'] * 100:g} % of step 0's "
+                       "cost.</p><table><tr><th>step</th><th>parts</th><th>removed</th><th>how</th><th>cost</th>"
+                       f"<th>rms error (dB)</th><th>worst error (dB)</th><th></th></tr>{rows_html}</table>")
     findings = last.findings
     finding_rows = "".join(f"<li>{esc(x['text'])}</li>" for x in findings) or "<li>none</li>"
     cautions = load_cautions(last.scored.metrics["impedance_min_ohm"], job.cost.impedance_min)
@@ -239,6 +260,7 @@ check the built speaker by measurement.</p>
 <p>{esc(drive)}</p>
 <table><tr><th>part</th><th>kind</th><th>value</th><th>source</th><th>tolerance</th><th>made of</th><th>stress</th></tr>
 {''.join(part_rows)}</table>
+{prune_table}
 <h2>Findings ({esc(last_label)})</h2><ul>{finding_rows}</ul>
 <h2>Cautions</h2>{''.join(f'<div class="caution">{esc(c)}</div>' for c in cautions)}
 </body></html>

@@ -37,7 +37,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
                "impedance_phase": "measured"},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0},
-    "part": {"fixed": False, "dcr": 0.0, "esr": 0.0},
+    "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
     "target": {"level": "auto", "curve": "flat"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0},
@@ -165,6 +165,7 @@ class PartSpec:
     driver: str | None = None
     series: str | None = None
     rating: float | None = None  # W for R, V for C, A for L (what the bought part is rated for)
+    keep: bool = False  # protected from removal (xo-fit prune)
 
     @property
     def free(self) -> bool:
@@ -474,7 +475,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "acoustics": "speed_of_sound",
     "driver": "response impedance reference_voltage offset phase impedance_phase",
     "thiele_small": "re le fs qms qes le_exponent",
-    "part": "name type nodes driver value min max fixed dcr esr tolerance rating series",
+    "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way",
     "way": "type alignment order fc fc_low fc_high polarity",
     "cost": "way sum phase impedance impedance_min",
@@ -830,7 +831,7 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         drv = r.text("driver", required=True)
         if drv not in driver_names:
             raise r.error("driver", f"unknown driver '{drv}'; defined drivers: {', '.join(sorted(driver_names))}")
-        for key in ("value", "min", "max", "dcr", "esr", "tolerance", "series", "fixed", "rating"):
+        for key in ("value", "min", "max", "dcr", "esr", "tolerance", "series", "fixed", "rating", "keep"):
             if r.has(key):
                 raise r.error(key, "a driver part takes only name, type, nodes and driver")
         r.done()
@@ -839,6 +840,7 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
     unit = PART_UNIT[ptype]
     value, lo, hi = (_part_value(r, key, unit) for key in ("value", "min", "max"))
     fixed = r.boolean("fixed", DEFAULTS["part"]["fixed"])
+    keep = r.boolean("keep", DEFAULTS["part"]["keep"])
     if (lo is None) != (hi is None):
         raise r.error("min" if lo is None else "max", "give both min and max for a search range, or neither")
     if lo is not None and hi is not None:
@@ -890,7 +892,7 @@ def _part(r: _Reader, driver_names: set[str]) -> PartSpec:
         raise r.error("driver", "only a part of type driver names a driver")
     r.done()
     return PartSpec(name=name, type=ptype, nodes=nodes_t, value=value, min=lo, max=hi, fixed=fixed,
-                    dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series, rating=rating)
+                    dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series, rating=rating, keep=keep)
 
 
 #: What the parts of a loudspeaker crossover take, by type (SI): resistors from a fraction of an ohm (a

@@ -1,0 +1,42 @@
+"""Pruning the demo two-way (13 parts) with refits: steps, seconds, the trade-off table.
+
+Goal (issue 12): the whole prune in at most 60 s on one core. Run: .venv/bin/python benchmarks/prune.py
+Two runs are timed; the median of the two is quoted (the machine is shared).
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import tempfile
+import time
+from pathlib import Path
+
+os.environ.setdefault("OMP_NUM_THREADS", "1")  # one core
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import xo_fit  # noqa: E402
+from xo_fit.demo import write_scenario  # noqa: E402
+
+
+def main() -> None:
+    folder = Path(tempfile.mkdtemp(prefix="xo_fit-bench-prune-"))
+    job = xo_fit.load_job(write_scenario(folder / "scenario"))
+    best = xo_fit.fit(job, seed=1)
+    times = []
+    for _ in range(2):
+        t0 = time.perf_counter()
+        pr = xo_fit.prune(job, best)
+        times.append(time.perf_counter() - t0)
+    print(f"demo: {len(job.valued_parts)} parts, fit cost {best.cost:.4g}; prune with refits of 600 evaluations "
+          f"(dense solve, one thread): {len(pr.steps) - 1} steps, {len(pr.trials)} trial refits, "
+          f"{pr.evaluations} evaluations; seconds {', '.join(f'{t:.1f}' for t in times)}, median "
+          f"{statistics.median(times):.1f} (goal <= 60)")
+    print(f"{'step':>4} {'parts':>5} {'removed':<8} {'how':<6} {'cost':>9} {'rms dB':>7} {'worst dB':>8}")
+    for r in pr.steps:
+        print(f"{r['step']:>4} {r['parts']:>5} {r['removed']:<8} {r['how']:<6} {r['cost']:>9.4g} "
+              f"{r['rms_error_db']:>7.2f} {r['max_error_db']:>8.2f}" + ("  <- chosen" if r["step"] == pr.chosen else ""))
+
+
+if __name__ == "__main__":
+    main()

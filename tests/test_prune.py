@@ -1,0 +1,150 @@
+"""Which parts earn their place: idle parts found without refits, pruning with refits, ratings compared."""
+
+from __future__ import annotations
+
+import csv
+import json
+
+import numpy as np
+import pytest
+
+import xo_fit
+from xo_fit.io.job import load_job
+from xo_fit.removal import idle_parts, variant
+from xo_fit.stress import stresses
+from xo_fit.system import load_system
+
+from conftest import ladder_job
+
+SHUNT = '''
+[[part]]
+name = "CX"
+type = "C"
+nodes = ["{node}", "0"]
+value = "1nF"
+{keep}
+'''
+
+
+def _with_shunt(write_job, keep: bool = False, spread: float | None = 2.0):
+    text, truth = ladder_job("LR2", spread=spread)
+    node = "w0"  # the woofer's node in the LR2 ladder (series L, shunt C, then the driver)
+    assert f'nodes = ["{node}", "0"]' in text
+    extra = SHUNT.format(node=node, keep="keep = true" if keep else "")
+    head, tail = text.split("[target]", 1)
+    return write_job(head + extra + "[target]" + tail), truth
+
+
+def test_a_provably_idle_part_is_found_negligible_and_no_ladder_part_is(write_job):
+    """A 1 nF shunt across an 8 ohm driver: its reactance 1/(2 pi 20 kHz 1 nF) = 7.96 kohm, about 1000 x the
+    load, so the load changes by about 0.1 % at 20 kHz and far less below [DER, Ohm's law]: removing it
+    changes the cost by far less than 1 % (negligible). Every part of the handbook LR2 ladder is needed."""
+    assert 1 / (2 * np.pi * 20e3 * 1e-9) == pytest.approx(7958, rel=1e-3)
+    path, _ = _with_shunt(write_job)
+    d = xo_fit.simulate(xo_fit.load_job(path))
+    idle = [f for f in d.findings if f["kind"] == "negligible"]
+    assert [f["part"] for f in idle] == ["CX"], d.findings
+    assert "CX" in d.to_json()["findings"][0]["text"] or any(f["part"] == "CX" for f in d.to_json()["findings"])
+    text, _ = ladder_job("LR2")
+    s = load_system(load_job(write_job(text, name="plain.toml")))
+    from xo_fit.fitting import score
+
+    assert idle_parts(s, s.values(), score(s, s.values()).cost) == []
+
+
+def test_illegal_removals_are_skipped(write_job):
+    """Opening the woofer's series coil leaves the woofer unconnected; shorting a shunt part across the driver
+    shorts the driver; both are no netlist and are skipped, not errors."""
+    text, _ = ladder_job("LR2")
+    s = load_system(load_job(write_job(text)))
+    assert variant(s, "wL0", "open") is None      # the woofer would hang from ground alone: no voltage
+    assert variant(s, "wC1", "short") is None     # the woofer shorted
+    assert variant(s, "wC1", "open") is not None  # a first-order woofer: legal
+    assert variant(s, "wL0", "short") is not None
+
+
+def test_prune_removes_the_idle_part_first_and_writes_its_job(write_job, tmp_path, cli):
+    path, _ = _with_shunt(write_job)
+    code, out, err = cli("prune", path, "--out", tmp_path / "p", "--budget", "150", "--no-plots")
+    assert code == 0, err
+    with open(tmp_path / "p" / "prune.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert list(rows[0]) == ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db",
+                             "phase_mismatch_deg", "impedance_min_ohm"]
+    assert rows[0]["removed"] == "" and int(rows[0]["parts"]) == 5
+    assert rows[1]["removed"] == "CX" and rows[1]["how"] == "open"
+    assert float(rows[1]["cost"]) <= float(rows[0]["cost"]) * 1.01
+    assert [int(r["parts"]) for r in rows] == list(range(5, 5 - len(rows), -1))
+    doc = json.loads((tmp_path / "p" / "result.json").read_text())
+    assert doc["stage"] == "prune" and "CX" not in doc["parts"]
+    chosen = doc["prune"]["chosen_step"]
+    assert float(rows[chosen]["cost"]) <= float(rows[0]["cost"]) * 1.10
+    assert all(float(r["cost"]) > float(rows[0]["cost"]) * 1.10 for r in rows if int(r["parts"]) < int(rows[chosen]["parts"]))
+    # the pruned job runs as it is, and gives the chosen design's cost
+    code, out, err = cli("simulate", tmp_path / "p" / "job.toml", "--out", tmp_path / "s", "--no-plots")
+    assert code == 0, err
+    again = json.loads((tmp_path / "s" / "result.json").read_text())
+    assert again["cost"] == pytest.approx(doc["cost"], rel=1e-9)
+
+
+def test_keep_protects_a_part_and_nothing_removable_says_so(write_job, tmp_path, cli):
+    path, _ = _with_shunt(write_job, keep=True)
+    pr = xo_fit.prune(xo_fit.load_job(path), budget=100)
+    assert "CX" not in {r["removed"] for r in pr.steps}
+    text, _ = ladder_job("LR2", spread=2.0)
+    text = text.replace('type = "L"\n', 'type = "L"\nkeep = true\n').replace('type = "C"\n', 'type = "C"\nkeep = true\n')
+    code, out, err = cli("prune", write_job(text, name="kept.toml"), "--out", tmp_path / "k", "--budget", "100",
+                         "--no-plots")
+    assert code == 0, err
+    assert "nothing to remove" in out
+    assert (tmp_path / "k" / "prune.csv").read_text().count("\n") == 2  # header and step 0
+
+
+def test_a_coils_peak_current_on_a_second_order_high_pass(write_job):
+    """Series C, then a shunt L across the resistive load R: V_out = V Z_p / (Z_p + 1/(sC)), Z_p = sLR/(sL + R),
+    and the coil carries V_out / (sL) [DER, nodal analysis]; its peak is sqrt 2 times the RMS current at the
+    worst frequency of the band for a sine of V RMS. A coil rated below it is flagged."""
+    text = """
+[grid]
+f_min = 100
+f_max = 20000
+points = 400
+[driver.t]
+response = 90
+impedance = 6
+[[part]]
+name = "C"
+type = "C"
+nodes = ["in", "t1"]
+value = "10uF"
+[[part]]
+name = "L"
+type = "L"
+nodes = ["t1", "0"]
+value = "0.5mH"
+rating = "1A"
+[[part]]
+name = "T"
+type = "driver"
+driver = "t"
+nodes = ["t1", "0"]
+[stress]
+power = 50
+rated_impedance = 6
+"""
+    s = load_system(load_job(write_job(text)))
+    st = stresses(s, s.values(), 50.0, 6.0)
+    coil = next(p for p in st.parts if p.name == "L")
+    v = np.sqrt(50 * 6.0)
+    f = s.frequencies
+    sw = 2j * np.pi * f
+    zp = sw * 0.5e-3 * 6.0 / (sw * 0.5e-3 + 6.0)
+    i_l = v * zp / (zp + 1 / (sw * 10e-6)) / (sw * 0.5e-3)
+    k = np.argmax(np.abs(i_l))
+    assert coil.sine_worst == pytest.approx(np.sqrt(2) * abs(i_l[k]), rel=1e-6)
+    assert coil.at_hz == pytest.approx(f[k])
+    d = xo_fit.simulate(s.job)
+    assert d.stress["L"]["unit"] == "A" and d.stress["L"]["within_rating"] is False
+    from xo_fit.cautions import design_cautions
+
+    assert any("L carries" in c and "1 A rating" in c for c in design_cautions(st, 6.0))
