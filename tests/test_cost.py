@@ -103,7 +103,7 @@ def test_simulate_reports_cost_and_metrics(write_job, cli, tmp_path):
     code, out, err = cli("simulate", write_job(text), "--out", tmp_path / "o")
     assert code == 0, err
     r = json.loads((tmp_path / "o" / "result.json").read_text())
-    assert r["cost"] < 1e-5 and set(r["cost_terms"]) == {"way", "sum", "phase", "impedance"}
+    assert r["cost"] < 1e-5 and set(r["cost_terms"]) == {"way", "sum", "phase", "impedance", "stress"}
     assert set(r["metrics"]) == {"rms_error_db", "max_error_db", "phase_mismatch_deg", "impedance_min_ohm",
                                  "impedance_min_hz"}
     assert "cost " in out and "rms" in out

@@ -26,7 +26,7 @@ def check(system, n=48, seed=0):
     np.testing.assert_allclose(raw[:, 0], ev.cost, rtol=1e-9)
     for i, t in enumerate(TERMS, start=1):
         np.testing.assert_allclose(raw[:, i], ev.terms[t], rtol=1e-9, atol=1e-12)
-    np.testing.assert_allclose(raw[:, 5], ev.level_db, rtol=1e-12)
+    np.testing.assert_allclose(raw[:, 6], ev.level_db, rtol=1e-12)
     return raw, ev
 
 
@@ -40,7 +40,7 @@ def test_fused_cost_with_a_fixed_level_and_a_floor(write_job, name):
     text, _ = ladder_job(name, start=1.0, spread=3.0, impedance_min=7.5)
     text = text.replace("band = [100, 15000]", "band = [100, 15000]\nlevel = 88.5")
     raw, _ = check(load_system(load_job(write_job(text))))
-    assert np.all(raw[:, 5] == 88.5)
+    assert np.all(raw[:, 6] == 88.5)
 
 
 def test_resonant_trap_and_flagged_candidates(write_job, monkeypatch):
@@ -78,3 +78,17 @@ value = {c!r}
     raw = fused.evaluate_raw(v)
     assert calls == [5]  # every candidate flagged and re-scored
     np.testing.assert_allclose(raw[:, 0], real(v).cost, rtol=1e-12)
+
+
+def test_the_stress_term_in_the_fused_kernel_equals_the_reference(tmp_path):
+    """[cost] stress: part currents from the generated elimination code against the dense solve's branch
+    currents, the excess over each rating as cost.stress_excess_db defines it; rated R, C and L parts."""
+    path = write_scenario(tmp_path)
+    text = path.read_text().replace("[cost]", "[cost]\nstress = 1.0", 1)
+    for name, unit in (("C3", "50V"), ("L3", "2A"), ("RZ", "5W")):  # a rating on a C, an L, another R
+        marker = f'name = "{name}"\n'
+        assert marker in text
+        text = text.replace(marker, marker + f'rating = "{unit}"\n', 1)
+    path.write_text(text)
+    raw, ev = check(load_system(load_job(path)))
+    assert np.any(raw[:, 5] > 0) and np.any(raw[:, 5] == 0)  # some random designs break a rating, some do not

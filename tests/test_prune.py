@@ -148,3 +148,21 @@ rated_impedance = 6
     from xo_fit.cautions import design_cautions
 
     assert any("L carries" in c and "1 A rating" in c for c in design_cautions(st, 6.0))
+
+
+def test_a_stress_weight_keeps_a_rated_part_within_its_rating(tmp_path):
+    """The demo's R1 (rated 10 W, at 60 W into 4 ohm): the plain fit makes it take 14 W programme power, more
+    than half its rating (the 2x margin of common practice); with [cost] stress = 10 the fit ends within it,
+    at a small cost in level error. Both shown."""
+    from xo_fit.demo import write_scenario
+
+    path = write_scenario(tmp_path / "s")
+    plain = xo_fit.fit(xo_fit.load_job(path), seed=1)
+    stressed_path = path.with_name("stressed.toml")
+    stressed_path.write_text(path.read_text().replace("[cost]", "[cost]\nstress = 10", 1))
+    stressed = xo_fit.fit(xo_fit.load_job(stressed_path), seed=1)
+    a, b = plain.stress["R1"], stressed.stress["R1"]
+    assert a["rating"] == b["rating"] == 10.0
+    assert a["within_rating"] is False and a["programme_w"] > 10.0
+    assert b["within_rating"] is True and b["programme_w"] <= 5.0 * 1.005
+    assert stressed.terms["stress"] < 1e-3 and plain.cost < stressed.cost  # the rating costs some accuracy

@@ -604,6 +604,15 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     simulate(job=job, out=out / "hand-design", from_=None, no_plots=False)
     say("fit:")
     fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, workers=1, no_plots=False)
+    import json
+
+    over = [(name, e) for name, e in (json.loads((out / "fit" / "result.json").read_text()).get("stress") or {}).items()
+            if e.get("within_rating") is False]
+    for name, e in over:
+        figure = f"{e['programme_w']:.3g} W programme" if "programme_w" in e else f"{e['figure']:.3g} {e['unit']} peak"
+        say(f"  the demo fits for accuracy alone, so {name} ends over its rating ({figure}, rated {e['rating']:g} "
+            f"{e['unit']}): add `stress = 10` to the job's [cost] and fit again to keep it within, at some cost "
+            "in accuracy")
     say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
     snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, no_plots=False)
     say("tolerance spread of the snapped design:")

@@ -51,6 +51,7 @@ Metrics (result.json), in a designer's words:
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -72,7 +73,7 @@ XO_REGION_DB = 6.0
 NULL_DB = -60.0
 #: Degrees of phase mismatch that cost like one dB of level error.
 PHASE_DEG_PER_DB = 10.0
-TERMS = ("way", "sum", "phase", "impedance")
+TERMS = ("way", "sum", "phase", "impedance", "stress")
 
 
 def impedance_minimum(frequencies: np.ndarray, impedance: np.ndarray,
@@ -111,7 +112,12 @@ class CostModel:
         self.system = system
         self.targets = targets
         spec = system.job.cost
-        self.weights = {"way": spec.way, "sum": spec.sum, "phase": spec.phase, "impedance": spec.impedance}
+        self.weights = {"way": spec.way, "sum": spec.sum, "phase": spec.phase, "impedance": spec.impedance,
+                        "stress": spec.stress}
+        self.rated = rated_parts(system) if spec.stress > 0 else []
+        drive = system.job.stress
+        self.drive_scale = (math.sqrt(drive.power * drive.rated_impedance) / system.network.source_voltage
+                            if self.rated else 1.0)
         self.impedance_floor = spec.impedance_min
         band = targets.band
         self.band = band
@@ -137,9 +143,10 @@ class CostModel:
     def evaluate(self, values: np.ndarray) -> Evaluation:
         """Cost of designs ``values`` (B, P) (SI part values)."""
         sim = self.system.simulate(values)
-        return self.evaluate_simulation(sim)
+        return self.evaluate_simulation(sim, values)
 
-    def evaluate_simulation(self, sim) -> Evaluation:
+    def evaluate_simulation(self, sim, values: np.ndarray | None = None) -> Evaluation:
+        """The cost of simulated designs; ``values`` (B, P) are needed for the stress term (its part currents)."""
         band = self.band
         p_db = spl_db(sim.pressure[..., band])  # (B, D, Fb)
         s_db = spl_db(sim.total[..., band])  # (B, Fb)
@@ -151,6 +158,7 @@ class CostModel:
             "sum": np.mean(self.sum_error(s_db, level) ** 2, axis=-1),
             "phase": self._phase(sim.pressure[..., band]),
             "impedance": self._impedance(sim.impedance[..., band]),
+            "stress": self._stress(values, sim.impedance.shape[0]),
         }
         cost = sum(self.weights[k] * terms[k] for k in TERMS)
         finite = (np.all(np.isfinite(sim.impedance[..., band]), axis=-1)
@@ -189,6 +197,20 @@ class CostModel:
         chord = [np.rad2deg(1.0) ** 2 * 2 * (1 - np.cos(np.deg2rad(e))) for e in errs]
         return np.mean([np.mean(c, axis=-1) for c in chord], axis=0) / PHASE_DEG_PER_DB**2
 
+    def _stress(self, values: np.ndarray | None, b: int) -> np.ndarray:
+        """Mean over rated parts of the squared excess over their ratings, dB (see :func:`stress_excess_db`)."""
+        if not self.rated:
+            return np.zeros(b)
+        if values is None:
+            raise ValueError("the stress term needs the part values")
+        from .solver.dense import branch_currents
+
+        v = np.atleast_2d(np.asarray(values, dtype=float))
+        amps = branch_currents(self.system.network, v)[..., self.band] * self.drive_scale  # (B, branches, Fb)
+        w = 2 * np.pi * self.system.frequencies[self.band]
+        e = [stress_excess_db(kind, np.abs(amps[:, j]) ** 2, v[:, col], w, rating) for j, col, kind, rating in self.rated]
+        return np.mean(np.square(e), axis=0)
+
     def _impedance(self, z: np.ndarray) -> np.ndarray:
         if self.impedance_floor <= 0:
             return np.zeros(z.shape[0])
@@ -201,7 +223,7 @@ class CostModel:
         """Metrics and evaluation of one design (P,) or (1, P), as plain floats for result.json
         (solved on the dense reference path: one reported design needs no compiled kernel)."""
         sim = self.system.simulate(values, dense=True)
-        ev = self.evaluate_simulation(sim)
+        ev = self.evaluate_simulation(sim, values)
         band = self.band
         err = self.sum_error(spl_db(sim.total[:1, band]), ev.level_db[:1])[0]
         phase = self._phase_errors(sim.pressure[:1, :, band])
@@ -215,6 +237,38 @@ class CostModel:
             "level_db": float(ev.level_db[0]),
         }
         return m, ev
+
+
+def rated_parts(system) -> list[tuple[int, int, str, float]]:
+    """The parts with a rating: (branch index, values column, kind R/L/C, rating in W, V or A)."""
+    out = []
+    col = 0
+    parts = system.job.valued_parts
+    for j, br in enumerate(system.network.branches):
+        if br.kind == "D":
+            continue
+        if parts[col].rating is not None:
+            out.append((j, col, br.kind, float(parts[col].rating)))
+        col += 1
+    return out
+
+
+def stress_excess_db(kind: str, i2: np.ndarray, x: np.ndarray, w: np.ndarray, rating: float) -> np.ndarray:
+    """How far a part's stress exceeds what its rating allows, dB, 0 within it; (B,).
+
+    i2: |I|^2 of the part's RMS current over the band, A^2 (B, Fb), at the stress drive; x: its value (B,);
+    w: rad/s (Fb,). A resistor's programme power (the band's mean: equal power per log-spaced point, pink)
+    against half its rating (the 2x margin of common practice), 10 log10; a capacitor's peak voltage and a
+    coil's peak current against their ratings, 20 log10.
+    """
+    if kind == "R":
+        ratio = np.mean(i2, axis=-1) * x / (rating / 2)
+    elif kind == "C":
+        ratio = 2 * np.max(i2 / w**2, axis=-1) / x**2 / rating**2
+    else:
+        ratio = 2 * np.max(i2, axis=-1) / rating**2
+    with np.errstate(divide="ignore"):
+        return 10 * np.log10(np.maximum(ratio, 1.0))
 
 
 def spl_db_unit(x: np.ndarray) -> np.ndarray:

@@ -22,6 +22,9 @@ import numpy as np
 from .constants import RESULT_FORMAT
 from .errors import DataError, XoFitError
 
+#: A stress this far over its limit (0.5 %, 0.02 dB) still counts as within the rating: the fit's quadratic
+#: stress term approaches a limit from outside, and no part rating is that exact.
+RATING_TOLERANCE = 0.005
 #: A free value within this log distance of a bound (1 %) rests on it.
 LIMIT_LOG_DISTANCE = math.log(1.01)
 
@@ -148,7 +151,7 @@ class Design:
                 e["rating"] = p.rating
                 judged = p.programme if p.kind == "R" else p.sine_worst
                 limit = p.rating / 2 if p.kind == "R" else p.rating
-                e["within_rating"] = bool(judged <= limit)
+                e["within_rating"] = bool(judged <= limit * (1 + RATING_TOLERANCE))
             out[p.name] = e
         return out
 

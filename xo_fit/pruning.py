@@ -43,7 +43,8 @@ def refit(system, budget: int, seed: int):
     space = make_space(system.job)
 
     def fn(u: np.ndarray) -> np.ndarray:
-        return cm.evaluate_simulation(system.simulate(space.values(u), dense=True)).cost
+        v = space.values(u)
+        return cm.evaluate_simulation(system.simulate(v, dense=True), v).cost
 
     r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True)
     return score(system, space.values(r.u)[0], model), r.evaluations

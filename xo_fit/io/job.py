@@ -40,7 +40,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
     "target": {"level": "auto", "curve": "flat"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
-    "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0},
+    "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1},
     "stress": {"power": None, "rated_impedance": None},
@@ -206,6 +206,7 @@ class CostSpec:
     phase: float = DEFAULTS["cost"]["phase"]
     impedance: float = DEFAULTS["cost"]["impedance"]
     impedance_min: float = DEFAULTS["cost"]["impedance_min"]
+    stress: float = DEFAULTS["cost"]["stress"]
 
 
 @dataclass(frozen=True)
@@ -478,7 +479,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way",
     "way": "type alignment order fc fc_low fc_high polarity",
-    "cost": "way sum phase impedance impedance_min",
+    "cost": "way sum phase impedance impedance_min stress",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
     "snap": "series inventory combine",
@@ -691,6 +692,11 @@ def _build(data: dict, ctx: _Context) -> Job:
     snap = _snap(top.sub("snap", "[snap]"))
     spread = _spread(top.sub("spread", "[spread]"))
     stress = _stress(top.sub("stress", "[stress]"))
+    if cost.stress > 0 and not stress.power:
+        raise ctx.error(("cost",), "stress", "a stress weight needs the drive: [stress] power and rated_impedance",
+                        "[cost] stress")
+    if cost.stress > 0 and not any(p.rating for p in parts):
+        ctx.warn(("cost",), "stress", "[cost] stress is set but no part has a rating: the term is always 0")
     top.done()
     document = dict(data)
     document["name"] = name
@@ -1026,6 +1032,7 @@ def _cost(r: _Reader) -> CostSpec:
         phase=r.number("phase", d["phase"], minimum=0.0, maximum=MAX_WEIGHT),
         impedance=r.number("impedance", d["impedance"], minimum=0.0, maximum=MAX_WEIGHT),
         impedance_min=r.value("impedance_min", "ohm", d["impedance_min"], allow_zero=True),
+        stress=r.number("stress", d["stress"], minimum=0.0, maximum=MAX_WEIGHT),
     )
     r.done()
     return spec

@@ -165,10 +165,15 @@ class SolverCode:
     volts: tuple[tuple[str, str], ...]
     zin: tuple[str, str]
     comment: tuple[str, ...]
+    currents: tuple[tuple[str, str], ...] = ()  # (re, im) of the current through each branch asked for, A
 
 
-def solver_code(net: Network) -> SolverCode:
-    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`)."""
+def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
+    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`).
+
+    ``currents``: indices into ``net.branches`` of valued parts whose current (at the source voltage ``vs``)
+    the code also computes: the current of the edge (part or series chain) that holds the part.
+    """
     e = _Emitter()
     edges = reduce_series_chains(net)
     col_of = {}
@@ -365,9 +370,10 @@ def solver_code(net: Network) -> SolverCode:
                     rhs[i] = e.fms(rhs.get(i, (None, None)), t[i], rhs_at[k], f"b{i}_")
 
     # ---- back substitution, only for the node voltages the outputs need
+    edge_of = {j: ei for ei, ed in enumerate(edges) for j in ed.members}
     need: set[int] = set()
-    for ed, form in zip(edges, forms):
-        if form[0] == "D" or SOURCE_NODE in (ed.a, ed.b):
+    for ei, (ed, form) in enumerate(zip(edges, forms)):
+        if form[0] == "D" or SOURCE_NODE in (ed.a, ed.b) or any(edge_of.get(j) == ei for j in currents):
             need.update(idx[n] for n in (ed.a, ed.b) if n in idx)
     for k in order:
         if k in need:
@@ -423,6 +429,14 @@ def solver_code(net: Network) -> SolverCode:
             volts[form[1]] = (v[0] or "0.0", v[1] or "0.0")
             trap_terms.extend(x for x in v if x)
     trap_terms.extend(x for x in zin if x)
+    amps = []
+    for j in currents:
+        if j not in edge_of:
+            raise NetworkError(f"internal: part {net.branches[j].name} carries no current (a closed loop)")
+        ed = edges[edge_of[j]]
+        u = e.sum([(1, volt(ed.a)), (-1, volt(ed.b))], f"ub{j}_")
+        i_ = e.mul(e.mul(ys[edge_of[j]], u, f"ib{j}_"), scale, f"ia{j}_")
+        amps.append((i_[0] or "0.0", i_[1] or "0.0"))
     body_solve = e.lines
     e.lines = []
 
@@ -441,7 +455,7 @@ def solver_code(net: Network) -> SolverCode:
     check.append(f"bad = bad + 0.0 * ({' + '.join(trap_terms)})")
     return SolverCode(
         prep=tuple(prep), loads=tuple(loads), body=tuple(body_y + body_solve + check),
-        volts=tuple(volts[i] for i in range(d)), zin=(zin[0] or "0.0", zin[1] or "0.0"),
+        volts=tuple(volts[i] for i in range(d)), zin=(zin[0] or "0.0", zin[1] or "0.0"), currents=tuple(amps),
         comment=(f"# edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
                  f"# unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}"))
 

@@ -146,3 +146,14 @@ def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndar
     volt, y = _dense_nodes(net, np.repeat(v, f_index.size, axis=0), f_index)
     volts = np.stack([volt(br.a) - volt(br.b) for br in net.branches])
     return volts, volts * y.T
+
+
+def branch_currents(net: Network, values: np.ndarray) -> np.ndarray:
+    """Current through every branch for a batch of designs, complex A, (B, branches, F), at ``net.source_voltage``
+    (the dense path: the reference the fused kernel's stress term is held to)."""
+    v = net._check_values(values)
+    b, nf = v.shape[0], net.frequencies.size
+    bi, fi = np.meshgrid(np.arange(b), np.arange(nf), indexing="ij")
+    volt, y = _dense_nodes(net, v[bi.ravel()], fi.ravel())
+    amps = np.stack([(volt(br.a) - volt(br.b)) * y[:, j] for j, br in enumerate(net.branches)], axis=-1)
+    return amps.reshape(b, nf, -1).transpose(0, 2, 1)

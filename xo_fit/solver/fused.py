@@ -88,7 +88,7 @@ class FusedCost:
 
     def source(self) -> str:
         cm, net = self.cm, self.net
-        code = solver_code(net)
+        code = solver_code(net, currents=tuple(j for j, _, _, _ in cm.rated))
         d = len(net.driver_names)
         ways = [k for k in range(d) if cm.has_way[k]]
         nb = self.hi - self.lo
@@ -115,6 +115,15 @@ class FusedCost:
             lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
                       f"sh = DB10 * ln(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
                       "acc_z += sh * sh", f"scratch[{d + 1}, f] = sh"]
+        peaks = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
+        for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(cm.rated, code.currents)):
+            lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
+            if kind == "R":
+                lines.append(f"acc_r{m} += qq{m}")
+            else:
+                row = d + 2 + len(peaks)
+                lines.append(f"scratch[{row}, f] = qq{m} * iw * iw" if kind == "C" else f"scratch[{row}, f] = qq{m}")
+                peaks.append((row, m))
         lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
 
         second = []
@@ -153,6 +162,7 @@ class FusedCost:
         ]
         src += [i1 + s for s in code.prep]
         src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0"]
+        src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(cm.rated) if kind == "R"]
         src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
         src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in lines]
         src += [i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
@@ -162,15 +172,30 @@ class FusedCost:
         if floor > 0:
             src += [i1 + f"for f in range({self.lo}, {self.hi}):", i2 + f"shv = scratch[{d + 1}, f]",
                     i2 + "if shv > mz:", i3 + "mz = shv"]
+        # the stress term: each rated part's excess over its rating in dB (cost.stress_excess_db), squared
+        k2 = cm.drive_scale**2
+        for row, m in peaks:
+            src += [i1 + f"mq{m} = 0.0", i1 + f"for f in range({self.lo}, {self.hi}):",
+                    i2 + f"qv = scratch[{row}, f]", i2 + f"if qv > mq{m}:", i3 + f"mq{m} = qv"]
+        src.append(i1 + "acc_st = 0.0")
+        for m, (j, _, kind, rating) in enumerate(cm.rated):
+            if kind == "R":
+                ratio = f"acc_r{m} / {nb}.0 * x_{j} * {k2!r} / {rating / 2!r}"
+            elif kind == "C":
+                ratio = f"2.0 * mq{m} / (x_{j} * x_{j}) * {k2!r} / {rating * rating!r}"
+            else:
+                ratio = f"2.0 * mq{m} * {k2!r} / {rating * rating!r}"
+            src += [i1 + f"ex{m} = DB10 * ln(max({ratio}, 1.0))", i1 + f"acc_st += ex{m} * ex{m}"]
+        src.append(i1 + (f"t_stress = acc_st / {len(cm.rated)}.0" if cm.rated else "t_stress = 0.0"))
         src += [
             i1 + (f"t_way = acc_w / {nb * len(ways)}.0" if ways else "t_way = 0.0"),
             i1 + f"t_sum = acc_s / {nb}.0",
             i1 + (f"t_phase = ({phase_expr}) * {phase_scale!r}" if cm.pairs else "t_phase = 0.0"),
             i1 + (f"t_imp = acc_z / {nb}.0 + mz * mz" if floor > 0 else "t_imp = 0.0"),
             i1 + f"out[b, 0] = {w['way']!r} * t_way + {w['sum']!r} * t_sum + {w['phase']!r} * t_phase "
-                 f"+ {w['impedance']!r} * t_imp",
+                 f"+ {w['impedance']!r} * t_imp + {w['stress']!r} * t_stress",
             i1 + "out[b, 1] = t_way", i1 + "out[b, 2] = t_sum", i1 + "out[b, 3] = t_phase", i1 + "out[b, 4] = t_imp",
-            i1 + "out[b, 5] = level", i1 + "out[b, 6] = acc_bad",
+            i1 + "out[b, 5] = t_stress", i1 + "out[b, 6] = level", i1 + "out[b, 7] = acc_bad",
             i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
             "    return nbad",
         ]
@@ -189,20 +214,21 @@ class FusedCost:
     # ------------------------------------------------------------------ evaluation
 
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
-        """(B, 7): cost, way, sum, phase, impedance, level, flag for designs (B, P); flagged rows re-scored."""
+        """(B, 8): cost, way, sum, phase, impedance, stress, level, flag for designs (B, P); flagged rows re-scored."""
         v = self.net._check_values(values)
         k = self.net._kernel_args()
-        out = np.empty((v.shape[0], 7))
-        scratch = np.empty((len(self.net.driver_names) + 2, self.net.frequencies.size))
+        out = np.empty((v.shape[0], 8))
+        peaks = sum(kind != "R" for _, _, kind, _ in self.cm.rated)
+        scratch = np.empty((len(self.net.driver_names) + 2 + peaks, self.net.frequencies.size))
         nbad = self.kernel()(v, k["r_coef"], k["r_exp"], k["fin"], self.net.source_voltage,
                              self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, scratch, out)
         if nbad:
-            redo = np.nonzero(~(out[:, 6] <= 0.0))[0]
+            redo = np.nonzero(~(out[:, 7] <= 0.0))[0]
             ev = self.cm.evaluate(v[redo])
             out[redo, 0] = ev.cost
             for i, t in enumerate(TERMS, start=1):
                 out[redo, i] = ev.terms[t]
-            out[redo, 5] = ev.level_db
+            out[redo, 6] = ev.level_db
         out[~np.isfinite(out[:, 0]), 0] = np.inf  # as the reference: a design with a singular point is infeasible
         return out
 
