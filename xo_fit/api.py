@@ -112,9 +112,11 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
                           progress=progress)
     r = outcome.search
     search = {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
-              "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by}
-    if runs is not None:
-        search["restarts"] = runs
+              "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by, "restarts": r.restarts,
+              "best_restart": r.best_restart, "basins": list(r.basins)}
+    if runs is not None:  # --workers: the processes shared the budget; the winner's derived seed is "seed"
+        search["workers"] = runs
+        search["evaluations"] = sum(x["evaluations"] for x in runs)
     if j.search.robust_samples:
         search["robust"] = {"samples": j.search.robust_samples, "solves": r.evaluations * j.search.robust_samples,
                             "note": "cost = mean over fixed tolerance draws; each evaluation solves one design "

@@ -318,7 +318,14 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
     _print_score(outcome.scored, outcome.start_cost)
     if runs is not None:
-        say("  restarts: " + ", ".join(f"seed {x['seed']}: {x['cost']:.4g}" for x in runs))
+        say(f"  {len(runs)} processes shared the budget; seed {r.seed} won: "
+            + ", ".join(f"seed {x['seed']}: {x['cost']:.4g}" for x in runs))
+    else:
+        basins = sorted(set(round(b, 6) for b in r.basins))
+        say(f"  {r.restarts} searches in the budget found {len(basins)} distinct basin"
+            f"{'s' if len(basins) != 1 else ''} (best costs before the polish: "
+            + ", ".join(f"{b:.4g}" for b in basins[:6]) + ("..." if len(basins) > 6 else "")
+            + f"); restart {r.best_restart} led to the result")
     if OUT.verbose and r.history:
         marks = sorted({int(round(x)) for x in np.linspace(0, len(r.history) - 1, 8)})
         say("  convergence (evaluations: best cost): "

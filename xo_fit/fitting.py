@@ -132,7 +132,7 @@ def restart_seeds(seed: int, n: int) -> list[int]:
 
 def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budget: int | None = None,
                      seed: int | None = None, time_limit: float | None = None) -> tuple[FitOutcome, list[dict]]:
-    """``workers`` independent fits from derived seeds in as many processes; the best one wins.
+    """``workers`` independent fits from derived seeds in as many processes, sharing one budget; the best wins.
 
     Whole searches are distributed, never single evaluations (those cost more to ship than to compute).
     Returns the winner and one summary per restart (seed, cost, evaluations, complete).
@@ -141,10 +141,12 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
 
     base = system.job.search.seed if seed is None else seed
     seeds = restart_seeds(base, workers)
+    total = budget or system.job.search.budget
+    budget = max(1, total // workers)  # the processes share one budget
     with ProcessPoolExecutor(max_workers=workers) as pool:
         results = list(pool.map(_fit_worker, [(system, optimizer, budget, s_, time_limit) for s_ in seeds]))
-    runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete}
-            for s_, r, _ in results]
+    runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
+             "restarts": r.restarts} for s_, r, _ in results]
     best = min(range(len(results)), key=lambda i: (results[i][1].cost, i))
     _, search_result, values = results[best]
     start = None
