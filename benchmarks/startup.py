@@ -1,0 +1,89 @@
+"""Start-up: where the time of a whole `xo-fit fit` goes, warm and with a topology seen for the first time.
+
+Goals (issue 13): a whole fit of the 16-part three-way (tests/data/hard-three-way.toml) with a warm kernel
+cache in <= 0.8 s, and a first fit of a new topology (empty cache) in <= 1.5 s. Each figure is the median of
+several runs of a fresh process (the machine is shared).
+
+Run: python benchmarks/startup.py [--runs 5]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+JOB = ROOT / "tests" / "data" / "hard-three-way.toml"
+PY = sys.executable
+
+
+def timed(cmd: list[str], env: dict | None = None) -> float:
+    t0 = time.perf_counter()
+    subprocess.run(cmd, check=True, capture_output=True, env={**os.environ, **(env or {})})
+    return time.perf_counter() - t0
+
+
+def median(cmd: list[str], runs: int, env_for=None) -> float:
+    return statistics.median(timed(cmd, env_for(k) if env_for else None) for k in range(runs))
+
+
+PHASES = r"""
+import time, sys
+t0 = time.perf_counter()
+import numpy, scipy
+t_np = time.perf_counter()
+import numba
+t_nb = time.perf_counter()
+import xo_fit.cli
+from xo_fit.io.job import load_job
+from xo_fit.system import load_system
+t_imp = time.perf_counter()
+s = load_system(load_job(sys.argv[1]))
+t_load = time.perf_counter()
+from xo_fit.fitting import cost_model
+from xo_fit.solver.fused import FusedCost
+fc = FusedCost(cost_model(s)[0])
+fc(s.values()[None])
+t_first = time.perf_counter()
+from xo_fit.fitting import run_fit
+out = run_fit(s)
+t_fit = time.perf_counter()
+print(f"{t_np - t0:.3f} {t_nb - t_np:.3f} {t_imp - t_nb:.3f} {t_load - t_imp:.3f} {t_first - t_load:.3f} "
+      f"{out.search.seconds:.3f} {t_fit - t_first - out.search.seconds:.3f}")
+"""
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--runs", type=int, default=5)
+    runs = ap.parse_args().runs
+    out = tempfile.mkdtemp(prefix="xo_fit-bench-startup-")
+    fit = [PY, "-m", "xo_fit", "-q", "fit", str(JOB), "--out", out, "--no-plots"]
+    subprocess.run(fit, check=True, capture_output=True)  # warm the cache
+    print(f"python -c pass:            {median([PY, '-c', 'pass'], runs):.3f} s")
+    print(f"import xo_fit:             {median([PY, '-c', 'import xo_fit'], runs):.3f} s")
+    print(f"xo-fit --version:          {median([PY, '-m', 'xo_fit', '--version'], runs):.3f} s")
+    print(f"xo-fit check (hard job):   {median([PY, '-m', 'xo_fit', '-q', 'check', str(JOB)], runs):.3f} s")
+    warm = median(fit, runs)
+    cold = median(fit, max(2, runs // 2), lambda k: {"XO_FIT_CACHE": tempfile.mkdtemp(prefix="xo_fit-cold-")})
+    print(f"whole fit, warm cache:     {warm:.3f} s (goal <= 0.8)")
+    print(f"whole fit, empty cache:    {cold:.3f} s (goal <= 1.5)")
+    phases = []
+    for _ in range(runs):
+        r = subprocess.run([PY, "-c", PHASES, str(JOB)], check=True, capture_output=True, text=True)
+        phases.append([float(x) for x in r.stdout.split()])
+    names = ["numpy + scipy import", "numba import", "xo_fit import", "job + data load", "first cached kernel call",
+             "search (20,000 evaluations)", "scoring after the search"]
+    print("phases inside one warm process (medians):")
+    for i, n in enumerate(names):
+        print(f"  {n:<28} {statistics.median(p[i] for p in phases):.3f} s")
+
+
+if __name__ == "__main__":
+    main()
