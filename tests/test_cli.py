@@ -64,7 +64,7 @@ FILES = {"w.txt": flat_curve(level=87), "wz.txt": resistive_curve(6.0)}
 def test_check_prints_what_a_designer_needs(write_job, cli):
     code, out, err = cli("check", write_job(JOB, FILES))
     assert code == 0, err
-    for text in ("60 points", "50 Hz to 15 kHz", "w.txt", "phase measured", "ThieleSmall", "L1", "free",
+    for text in ("60 points", "50 Hz to 15 kHz", "w.txt", "phase measured", "Thiele-Small model: Re", "L1", "free",
                  "C1", "fixed", "esr 50 mΩ", "dcr from 1.024 mm wire", "free     1: L1", "nodes    4: in, 0, t, w"):
         assert text in out, (text, out)
 
@@ -233,3 +233,14 @@ def test_version(cli):
 
     code, out, _ = cli("--version")
     assert code == 0 and out.strip() == f"xo-fit {__version__}"
+
+
+def test_help_shows_every_default_as_a_value(cli):
+    """Rich markup once ate "[search]" from the help, leaving "(default: budget)"; the demo's help names all it does."""
+    code, out, _ = cli("fit", "--help")
+    assert code == 0
+    text = " ".join(out.split()).replace("│", "").replace("  ", " ")
+    assert "[search] budget, else 20000" in " ".join(text.split())
+    code, out, _ = cli("demo", "--help")
+    flat = " ".join(out.split())
+    assert "spread" in flat and "report" in flat

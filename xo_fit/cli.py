@@ -16,6 +16,7 @@ import numpy as np
 import typer
 
 from .errors import XoFitError
+from .io.job import DEFAULTS
 
 app = typer.Typer(add_completion=False, pretty_exceptions_enable=False, no_args_is_help=True,
                   help="Fit passive loudspeaker crossover part values to measured drivers and an acoustic target.")
@@ -123,7 +124,7 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
                                    ("impedance", d.impedance_curve, d.impedance_phase)):
             if curve is None:
                 src = spec.response if what == "response" else spec.impedance
-                say(f"    {what:<9} {type(src).__name__}: {_describe_ideal(src)}")
+                say(f"    {what:<9} {_describe_ideal(src)}")
             else:
                 lo, hi = curve.f_range
                 kind = {"measured": "phase measured", "minimum": "phase derived (minimum phase)"}[phase]
@@ -166,7 +167,8 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
         for w in j.target.ways:
             where = (f"{format_value(w.fc_low, 'Hz')} to {format_value(w.fc_high, 'Hz')}" if w.type == "bandpass"
                      else (f"at {format_value(w.fc, 'Hz')}" if w.fc else ""))
-            say(f"  {w.driver:<10} {w.type} {w.alignment}{w.order} {where}, "
+            shape = "" if w.type == "fullrange" else f" {w.alignment}{w.order}"
+            say(f"  {w.driver:<10} {w.type}{shape}{' ' + where if where else ''}, "
                 f"{'inverted' if pol[w.driver] < 0 else 'normal'} polarity")
     free = [p.name for p in j.free_parts]
     say(f"free     {len(free)}: {', '.join(free) if free else '(none: every value is fixed)'}")
@@ -180,11 +182,12 @@ def _describe_ideal(src) -> str:
     from .units import format_value
 
     if isinstance(src, FlatResponse):
-        return f"flat {src.level_db:g} dB SPL, zero phase"
+        return f"ideal flat response, {src.level_db:g} dB SPL, zero phase"
     if isinstance(src, Resistive):
-        return f"{format_value(src.resistance, 'ohm')}, zero phase"
+        return f"ideal resistor, {format_value(src.resistance, 'ohm')}, zero phase"
     if isinstance(src, ThieleSmall):
-        return (f"Re {format_value(src.re, 'ohm')}, Le {format_value(src.le, 'H')}, fs {format_value(src.fs, 'Hz')}, "
+        return (f"Thiele-Small model: Re {format_value(src.re, 'ohm')}, Le {format_value(src.le, 'H')}, "
+                f"fs {format_value(src.fs, 'Hz')}, "
                 f"Qms {src.qms:g}, Qes {src.qes:g}")
     return str(src)
 
@@ -288,14 +291,15 @@ class _Progress:
 @app.command()
 def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-        budget: Optional[int] = typer.Option(None, "--budget", min=1, help="Cost evaluations (default: [search] budget)."),
-        seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed (default: [search] seed)."),
+        budget: Optional[int] = typer.Option(None, "--budget", min=1, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
+        seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
         optimizer: Optional[str] = typer.Option(None, "--optimizer",
                                                 help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
         time_limit: Optional[float] = typer.Option(None, "--time-limit", min=0.0,
                                                    help="Stop after this many seconds and keep the best so far."),
         workers: int = typer.Option(1, "--workers", min=1, max=64,
-                                    help="Independent searches from derived seeds, one per process; the best wins."),
+                                    help="Processes sharing the budget, each from a seed derived from the job's; "
+                                         "the best wins and the result names its seed."),
         no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
         ) -> None:
     """Search the free part values that best meet the job's acoustic target, then polish locally."""
@@ -375,7 +379,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv, parts.csv, plots."),
          from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) whose values to snap."),
          series: Optional[str] = typer.Option(None, "--series", help='A series for every kind ("E24"), or "L=E12,C=E24".'),
-         inventory: Optional[Path] = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value [, count]."),
+         inventory: Optional[Path] = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value \\[, count] (default: the job's \\[snap] inventory)."),
          combine: Optional[int] = typer.Option(None, "--combine", min=1, max=2,
                                                help="2: allow two parts to make one value."),
          no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
@@ -424,8 +428,8 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, spread.csv and plots."),
            from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
-           samples: Optional[int] = typer.Option(None, "--samples", min=1, help="Tolerance draws (default [spread] samples)."),
-           seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed (default [spread] seed)."),
+           samples: Optional[int] = typer.Option(None, "--samples", min=1, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
+           seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[spread] seed, else {DEFAULTS['spread']['seed']})."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
@@ -469,7 +473,7 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
           budget: Optional[int] = typer.Option(None, "--budget", min=1,
                                                help="Cost evaluations per refit (default 600)."),
-          seed: Optional[int] = typer.Option(None, "--seed", min=0, help="Random seed (default: [search] seed)."),
+          seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
           max_increase: float = typer.Option(10.0, "--max-increase", min=0.0,
                                              help="Largest cost increase over step 0 for the chosen design, %."),
           workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),
@@ -602,7 +606,8 @@ def export(result: Path = typer.Argument(..., help="A result.json (or its folder
 @app.command()
 def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scenario and its results.")) -> None:
     """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design,
-    fit, and snap the fit to purchasable values."""
+    fit, snap the fit to purchasable values, spread the snapped design over 5 % part tolerances, and write the
+    report (DIR/report/report.html)."""
     from .demo import write_scenario
 
     job = write_scenario(out / "scenario")

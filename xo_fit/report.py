@@ -158,6 +158,7 @@ def write_report(items: list, out: Path) -> Path:
     import html
 
     from .cautions import GENERAL, design_cautions, load_cautions
+    from .snapping import combination_text
     from .io.results import write_text
     from .stress import epdr
     from .units import format_value
@@ -200,7 +201,8 @@ def write_report(items: list, out: Path) -> Path:
         entry = last.part_info.get(p.name, {})
         source = entry.get("series") or entry.get("source") or ("fixed" if not p.free else "continuous")
         comb = entry.get("combination")
-        comb_text = (f"{comb['connection']}: " + " + ".join(x["text"] for x in comb["parts"])) if comb else ""
+        comb_text = (f"{comb['connection']}: " + combination_text(comb["connection"], [x["text"] for x in comb["parts"]])
+                     if comb else "")
         tol = p.tolerance if p.tolerance is not None else dict(last_sys.job.spread.tolerance).get(p.type)
         sp = stress_by.get(p.name)
         stress_text = ""

@@ -67,10 +67,15 @@ class Choice:
     uses: tuple = ()
 
     def describe(self, unit: str) -> str:
-        if self.connection == "single":
-            return format_value(self.pieces[0], unit)
-        join = " || " if self.connection == "parallel" else " + "
-        return join.join(format_value(p, unit) for p in self.pieces)
+        return combination_text(self.connection, [format_value(p, unit) for p in self.pieces])
+
+
+def combination_text(connection: str, texts: list[str]) -> str:
+    """One notation for a part made of two, in the console, parts.csv and the report: "4.7 µF || 1 µF" in
+    parallel, "2.2 Ω + 1 Ω" in series."""
+    if connection == "single":
+        return texts[0]
+    return (" || " if connection == "parallel" else " + ").join(texts)
 
 
 def _combine(kind: str, a: float, b: float) -> list[tuple[float, str]]:
