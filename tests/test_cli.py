@@ -244,3 +244,16 @@ def test_help_shows_every_default_as_a_value(cli):
     code, out, _ = cli("demo", "--help")
     flat = " ".join(out.split())
     assert "spread" in flat and "report" in flat
+
+
+def test_spread_says_when_the_nominal_design_already_misses_the_limits(tmp_path):
+    from xo_fit.cli import main as run_main
+    from xo_fit.demo import write_scenario
+    import contextlib
+    import io
+
+    job = write_scenario(tmp_path / "s")  # its hand design is 3 dB rms off the target
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        assert run_main(["spread", str(job), "--out", str(tmp_path / "sp"), "--samples", "100", "--no-plots"]) == 0
+    assert "the nominal design itself misses the limits: its rms error is" in out.getvalue()

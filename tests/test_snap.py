@@ -162,3 +162,12 @@ def test_snap_from_a_fit_and_continuous_parts(write_job, cli, tmp_path):
     r = json.loads((tmp_path / "s" / "result.json").read_text())
     assert r["parts"]["wL0"]["source"] == "continuous" and "series" not in r["parts"]["wL0"]
     assert r["parts"]["wC1"]["series"] == "E12"
+
+
+def test_a_drawer_too_small_names_the_kind_and_counts(write_job, cli, tmp_path):
+    """An LR2 two-way needs two coils and two capacitors; a drawer of one coil says which kind ran short."""
+    text, _ = ladder_job("LR2", spread=3.0)
+    (tmp_path / "inv.csv").write_text("L, 1.2mH, 1\nC, 4.7uF, 2\nC, 22uF, 2\n")
+    code, _, err = cli("snap", write_job(text), "--out", tmp_path / "s", "--inventory", tmp_path / "inv.csv")
+    assert code == 2 and len(err.strip().splitlines()) == 1
+    assert "coils: 2 needed, 1 held" in err and "capacitors" not in err, err

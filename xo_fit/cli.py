@@ -454,6 +454,15 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say(f"  yield: {r.yield_band * 100:.1f} % within +-{r.limits['band_db']:g} dB of the nominal sum; "
         f"{r.yield_limits * 100:.1f} % meet rms <= {r.limits['rms_error_db']:g} dB"
         + (f" and |Z| >= {r.limits['impedance_min_ohm']:g} ohm" if r.limits["impedance_min_ohm"] > 0 else ""))
+    m = st.info["design"].metrics
+    misses = []
+    if m.get("rms_error_db") is not None and m["rms_error_db"] > r.limits["rms_error_db"]:
+        misses.append(f"its rms error is {m['rms_error_db']:.2f} dB (limit {r.limits['rms_error_db']:g} dB)")
+    if r.limits["impedance_min_ohm"] > 0 and m["impedance_min_ohm"] < r.limits["impedance_min_ohm"]:
+        misses.append(f"its |Z| falls to {m['impedance_min_ohm']:.2f} ohm (floor {r.limits['impedance_min_ohm']:g} ohm)")
+    if misses:
+        say("  the nominal design itself misses the limits: " + "; ".join(misses)
+            + " (so few builds or none can meet them: fit or snap the design first, or relax [spread] rms_limit_db)")
     say(f"  worst build: {r.worst_deviation_db:.2f} dB off at {r.worst_at_hz:.0f} Hz; worst corner "
         f"{r.corners['worst_deviation_db']:.2f} dB ({r.corners['method']})")
     say(f"  left/right matching: largest difference p50 {r.pair_p50_db:.2f} dB, p95 {r.pair_p95_db:.2f} dB")

@@ -407,8 +407,28 @@ def _first_feasible(ev: _Evaluator, base: np.ndarray) -> np.ndarray:
             if _feasible_partial(ev, trial):
                 break
     if not ev.feasible(a[None])[0]:
-        raise XoFitError("the inventory does not hold enough parts for this design")
+        raise XoFitError(_shortfall(ev))
     return a
+
+
+def _shortfall(ev: "_Evaluator") -> str:
+    """Which kinds the drawer lacks, with counts: "coils: 6 needed, 5 held"."""
+    names = {"R": "resistors", "L": "coils", "C": "capacitors"}
+    needed: dict[str, int] = {}
+    for opts in ev.options:
+        kinds = {k for o in opts for k, _ in o.uses}
+        if len(kinds) == 1:
+            k = kinds.pop()
+            needed[k] = needed.get(k, 0) + 1
+    held: dict[str, int] = {}
+    for (k, _), n in ev.stock.items():
+        held[k] = held.get(k, 0) + n
+    short = [f"{names[k]}: {n} needed, {held.get(k, 0)} held" for k, n in sorted(needed.items()) if n > held.get(k, 0)]
+    if short:
+        return "the inventory does not hold enough parts for this design (" + "; ".join(short) + ")"
+    return ("the inventory holds enough parts in number, but not of values that fit every part at once "
+            f"(held: {', '.join(f'{names[k]} {n}' for k, n in sorted(held.items()))}); add parts or allow "
+            "combine = 2")
 
 
 def _feasible_partial(ev: _Evaluator, row: np.ndarray) -> bool:
