@@ -129,3 +129,18 @@ def test_an_exact_null_of_the_target_is_one_floor_for_both(write_job):
     values = s.values()[None] * np.exp(rng.uniform(-0.3, 0.3, (16, s.values().size)))
     values[0] = s.values()
     np.testing.assert_allclose(FusedCost(cm)(values), cm.evaluate(values).cost, rtol=1e-9, atol=1e-12)
+
+
+def test_the_error_breakdown_says_where(write_job):
+    """A handbook LR2 with the tweeter's series capacitor 30 % low: the tweeter's way error and the crossover
+    region carry most of the error."""
+    import xo_fit
+
+    text, truth = ladder_job("LR2")
+    d = xo_fit.simulate(xo_fit.load_job(write_job(text)), {"tC0": truth["tC0"] * 0.7})
+    b = d.breakdown
+    ways = {w["way"]: w for w in b["ways"]}
+    assert ways["tweeter"]["rms_db"] > 1.5 * ways["woofer"]["rms_db"]  # the auto level shares some of it out
+    assert len(b["crossovers"]) == 1 and b["crossovers"][0]["ways"] == "woofer-tweeter"
+    assert 1000 < b["crossovers"][0]["from_hz"] < 2000 < b["crossovers"][0]["to_hz"] < 4000
+    assert d.to_json()["error_breakdown"]["sum"]["rms_db"] == pytest.approx(d.metrics["rms_error_db"], rel=1e-9)

@@ -207,6 +207,13 @@ def _print_score(s, start_cost: float | None = None) -> None:
 
 
 def _findings(design) -> None:
+    b = design.breakdown
+    if b is not None:
+        parts = [f"{w['way']} {w['rms_db']:.2f} dB rms, worst {w['worst_db']:+.2f} dB at {w['worst_hz']:.0f} Hz"
+                 for w in b["ways"]]
+        parts += [f"crossover {c['ways']} ({c['from_hz']:.0f}-{c['to_hz']:.0f} Hz): sum {c['sum_rms_db']:.2f} dB rms, "
+                  f"phase worst {c['phase_worst_deg']:+.1f} deg at {c['phase_worst_hz']:.0f} Hz" for c in b["crossovers"]]
+        say("  where the error lies: " + "; ".join(parts))
     for f in design.findings:
         say(f"  finding ({f['kind']}): {f['text']}")
 

@@ -219,6 +219,40 @@ class CostModel:
 
     # ------------------------------------------------------------------ metrics
 
+    def breakdown(self, values: np.ndarray) -> dict:
+        """Where the error of one design (P,) lies: per way over its passband (its target within 6 dB of the
+        level) and per crossover region (the sum's error and the phase error), rms and worst with frequency."""
+        sim = self.system.simulate(values, dense=True)
+        ev = self.evaluate_simulation(sim, values)
+        f = self.system.frequencies[self.band]
+        level = ev.level_db[:1]
+        names = [d.name for d in self.system.job.drivers]
+        ways = []
+        p_db = spl_db(sim.pressure[0][:, self.band])
+        for k in np.nonzero(self.has_way)[0]:
+            passband = self.t_way_db[k] > -6.0
+            if not passband.any():
+                continue
+            err = (p_db[k] - level[0] - self.t_way_db[k])[passband]
+            i = int(np.argmax(np.abs(err)))
+            ways.append({"way": names[k], "from_hz": float(f[passband][0]), "to_hz": float(f[passband][-1]),
+                         "rms_db": float(np.sqrt(np.mean(err**2))), "worst_db": float(err[i]),
+                         "worst_hz": float(f[passband][i])})
+        sum_err = self.sum_error(spl_db(sim.total[:1, self.band]), level)[0]
+        regions = []
+        for (a, b, region, _), ph in zip(self.pairs, self._phase_errors(sim.pressure[:1, :, self.band])):
+            e = sum_err[region]
+            i = int(np.argmax(np.abs(e)))
+            j = int(np.argmax(np.abs(ph[0])))
+            regions.append({"ways": f"{names[a]}-{names[b]}", "from_hz": float(f[region][0]),
+                            "to_hz": float(f[region][-1]), "sum_rms_db": float(np.sqrt(np.mean(e**2))),
+                            "sum_worst_db": float(e[i]), "sum_worst_hz": float(f[region][i]),
+                            "phase_worst_deg": float(ph[0][j]), "phase_worst_hz": float(f[region][j])})
+        i = int(np.argmax(np.abs(sum_err)))
+        return {"ways": ways, "crossovers": regions,
+                "sum": {"rms_db": float(np.sqrt(np.mean(sum_err**2))), "worst_db": float(sum_err[i]),
+                        "worst_hz": float(f[i])}}
+
     def metrics(self, values: np.ndarray) -> tuple[dict, Evaluation]:
         """Metrics and evaluation of one design (P,) or (1, P), as plain floats for result.json
         (solved on the dense reference path: one reported design needs no compiled kernel)."""

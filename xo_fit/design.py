@@ -131,6 +131,17 @@ class Design:
         return out
 
     @property
+    def breakdown(self) -> dict | None:
+        """Where the error lies: per way, per crossover region and for the sum (rms, worst and where), or None
+        without way targets (see :meth:`xo_fit.cost.CostModel.breakdown`)."""
+        if "breakdown" not in self.info:
+            from .fitting import cost_model
+
+            model = cost_model(self.system)
+            self.info["breakdown"] = model[0].breakdown(self.scored.values) if model else None
+        return self.info["breakdown"]
+
+    @property
     def stress(self) -> dict | None:
         """Part stresses at the job's [stress] drive (sine worst case; programme power for resistors), or None."""
         spec = self.job.stress
@@ -195,6 +206,8 @@ class Design:
         if s.level_db is not None:
             doc["level_db"] = s.level_db
         doc["findings"] = self.findings
+        if self.breakdown is not None:
+            doc["error_breakdown"] = self.breakdown
         if stress is not None:
             doc["stress"] = stress
         doc.update(self.sections)
@@ -302,7 +315,7 @@ class Spread:
 
 #: Sections recomputed when a result is loaded (everything else is kept as the stage wrote it).
 _RECOMPUTED = {"xo_fit_version", "format", "job", "stage", "parts", "cost", "cost_terms", "metrics", "level_db",
-               "findings", "stress", "source"}
+               "findings", "stress", "source", "error_breakdown"}
 #: Entries of parts.NAME recomputed when a result is loaded.
 _PART_RECOMPUTED = {"value", "unit", "text", "limit"}
 
