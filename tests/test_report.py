@@ -187,8 +187,11 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
     assert "http://" not in page and "https://" not in page
     assert page.count('src="data:image/png;base64,') >= 5
     for text in ("Metrics", "Part list", "Cautions", "EPDR", "Stresses at 60 W into 4 Ω", "R1", "rated 10 W",
-                 "licensed practice"):
+                 "licensed practice", "xo_fit 0.", "from: xo-fit", "(at its min)", "Where the error lies"):
         assert text in page, text
+    # the spread's part list still says what to buy (it once said "continuous" for every snapped part)
+    part_list = page.split("<h2>Part list", 1)[1].split("</table>", 1)[0]
+    assert "E12" in part_list and "E24" in part_list and "continuous" not in part_list
     if CHROMIUM is None:
         if os.environ.get("XO_FIT_REQUIRE_CHROMIUM") == "1":
             raise RuntimeError("chromium is required (XO_FIT_REQUIRE_CHROMIUM=1)")
@@ -209,6 +212,16 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
     nonwhite = np.mean(np.any(rgb < 235, axis=-1))
     colours = len(np.unique(rgb.reshape(-1, 3)[::37], axis=0))
     assert nonwhite > 0.05 and colours > 200, (nonwhite, colours)
+    # the page as the browser built it has every section a designer reads
+    dom = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+                          "--disable-background-networking", "--disable-component-update", "--disable-sync",
+                          f"--user-data-dir={tmp_path / 'profile2'}", "--dump-dom",
+                          (tmp_path / "d" / "report" / "report.html").as_uri()],
+                         capture_output=True, text=True, timeout=120).stdout
+    heads = re.findall(r"<h2>([^<(]+)", dom)
+    for want in ("Metrics", "Where the error lies", "Values", "Targets", "Curves", "Part list", "Network", "Findings",
+                 "Cautions"):
+        assert any(h.strip() == want for h in heads), (want, heads)
 
 
 def test_report_refuses_to_overlay_different_grids(write_job, cli, tmp_path):

@@ -201,8 +201,10 @@ def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: 
         "corners": r.corners,
         "pair_matching": {"p50_db": r.pair_p50_db, "p95_db": r.pair_p95_db},
     }
+    d0 = design.design if isinstance(design, Spread) else design
     nominal_design = Design(system=system, scored=score(system, nominal), stage="spread",
-                            sections={"spread": section}, source={"from": source_from}, label="spread")
+                            sections={"spread": section}, source={"from": source_from}, label="spread",
+                            part_info=dict(d0.part_info) if isinstance(d0, Design) else {})
     return Spread(design=nominal_design, section=section, columns=cols, result=r)
 
 
@@ -220,11 +222,11 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
                      workers=workers, progress=progress)
 
 
-def write_report(items: list, out: str | Path) -> Path:
+def write_report(items: list, out: str | Path, command: list[str] | None = None) -> Path:
     """report.html (self-contained) and its PNGs for designs and spreads (or result.json paths), overlaid."""
     from .report import write_report as _write
 
     loaded = [load_result(x) if isinstance(x, (str, Path)) else x for x in items]
     if not loaded:
         raise XoFitError("nothing to report: give at least one design or result")
-    return _write(loaded, Path(out))
+    return _write(loaded, Path(out), command)

@@ -235,6 +235,7 @@ def work(payload: dict, emit=None) -> dict:
     t0 = time.time()
     system = payload["system"]
     values = payload.get("start")
+    info: dict = {}
     tmp = Path(tempfile.mkdtemp(prefix="xo_fit-job-"))
     done = []
     error = None
@@ -252,7 +253,8 @@ def work(payload: dict, emit=None) -> dict:
                                    plots=payload.get("plots", True), home=home)
                 else:
                     start = values if values is not None else system.values()
-                    o = spread_stage(system, folder, np.asarray(start), plots=payload.get("plots", True), home=home)
+                    o = spread_stage(system, folder, np.asarray(start), plots=payload.get("plots", True), home=home,
+                                     part_info=info)
             except UserError as e:
                 error = {"stage": st, "message": str(e)}
                 break
@@ -260,6 +262,8 @@ def work(payload: dict, emit=None) -> dict:
                 error = {"stage": st, "message": f"{type(e).__name__}: {e}\n{traceback.format_exc(limit=6)}"}
                 break
             values = [o.document["parts"][n]["value"] for n in system.part_names]
+            info = {n: {k: v for k, v in e.items() if k not in ("value", "unit", "text", "limit")}
+                    for n, e in o.document["parts"].items()}
             files = {f"{st}/{p.name}": p.read_bytes() for p in sorted(folder.iterdir()) if p.is_file()}
             done.append({"stage": st, "cost": o.cost, "metrics": o.metrics, "files": files, "started": started,
                          "finished": time.time()})

@@ -67,6 +67,17 @@ def _design(job_path: Path, from_: Path | None):
     return system, system.values(overrides)
 
 
+def _part_info(from_: Path | None) -> dict:
+    """What a result says of each part beyond its value (a snap's series, source and combination)."""
+    if from_ is None:
+        return {}
+    from .design import _PART_RECOMPUTED
+    from .io.results import read_result
+
+    return {n: {k: v for k, v in e.items() if k not in _PART_RECOMPUTED}
+            for n, e in read_result(from_)["parts"].items() if isinstance(e, dict)}
+
+
 def _load(job_path: Path):
     from .io.job import load_job
     from .system import load_system
@@ -452,7 +463,7 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
 
     try:
         st = spread_stage(system, out, nominal, samples=samples, seed=seed, plots=not no_plots,
-                          source_from=str(from_) if from_ else None, progress=progress)
+                          source_from=str(from_) if from_ else None, progress=progress, part_info=_part_info(from_))
     finally:
         bar.close()
     r, files = st.info["result"], st.files
@@ -596,7 +607,7 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
     from .api import write_report
 
     t0 = time.perf_counter()
-    page = write_report(list(results), out)
+    page = write_report(list(results), out, ["xo-fit", *sys.argv[1:]])
     say(f"report of {len(results)} result(s) in {time.perf_counter() - t0:.2f} s: {page}")
 
 
@@ -647,7 +658,7 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
     from .api import write_report
 
-    page = write_report([out / "fit", out / "snap", out / "spread"], out / "report")
+    page = write_report([out / "fit", out / "snap", out / "spread"], out / "report", ["xo-fit", *sys.argv[1:]])
     say(f"report: {page.resolve()}")
 
 

@@ -58,7 +58,7 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
     names = [d.name for d in base.job.drivers]
     scored = [d.scored for _, d, _ in entries]
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    shades = ["k", "0.45", "tab:brown", "tab:olive"]
+    shades = ["k", "tab:red", "tab:blue", "tab:green", "tab:purple"]  # one distinct colour per result
     figs: dict[str, bytes] = {}
     top = float(np.max(spl_db_of(scored[0].sim.total[0])))
 
@@ -102,7 +102,8 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
                 ax2.semilogx(f, spl_db_of(flipped), color=shades[k % len(shades)], lw=1.3,
                              label=f"{names[b]} reversed, {entries[k][0]}")
         ax1.axhline(0, color="k", lw=0.7)
-        ax1.set_ylim(-90, 90)
+        ax1.set_ylim(-180, 180)  # the error is wrapped to +-180 deg: nothing is cut off
+        ax1.set_yticks([-180, -90, -45, 0, 45, 90, 180])
         ax1.set_title("Phase error through the crossover (deg)", fontsize=10)
         ax1.grid(True, which="both", alpha=0.3)
         ax1.legend(fontsize=7)
@@ -152,8 +153,82 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
     return figs
 
 
-def write_report(items: list, out: Path) -> Path:
-    """report.html (self-contained: images inline) and its PNGs for designs and spreads, overlaid in one page."""
+def _values_table(entries: list[tuple], esc) -> str:
+    """Part values side by side, one column per result, with each part's range; a value on a bound marked."""
+    job = entries[0][1].job
+    heads = "".join(f"<th>{esc(label)}</th>" for label, _, _ in entries)
+    rows = []
+    from .units import format_value
+
+    for p in job.valued_parts:
+        rng = f"{format_value(p.min, p.unit)} .. {format_value(p.max, p.unit)}" if p.free else "fixed"
+        cells = []
+        for _, d, _ in entries:
+            v = d.values.get(p.name)
+            if v is None:
+                cells.append("<td>removed</td>")
+                continue
+            at = d.limits.get(p.name)
+            cells.append(f"<td>{esc(format_value(v, p.unit))}{f' <b>(at its {at})</b>' if at else ''}</td>")
+        rows.append(f"<tr><td>{esc(p.name)}</td><td>{p.type}</td><td>{esc(rng)}</td>{''.join(cells)}</tr>")
+    return (f"<h2>Values</h2><table><tr><th>part</th><th>kind</th><th>range</th>{heads}</tr>{''.join(rows)}</table>")
+
+
+def _targets_table(job, esc) -> str:
+    from .targets import polarities
+    from .units import format_value
+
+    if not job.target.ways:
+        return "<h2>Targets</h2><p>No way targets: metrics only.</p>"
+    pol = polarities(job.target.ways)
+    rows = []
+    for w in job.target.ways:
+        where = (f"{format_value(w.fc_low, 'Hz')} to {format_value(w.fc_high, 'Hz')}" if w.type == "bandpass"
+                 else (format_value(w.fc, "Hz") if w.fc else ""))
+        shape = "" if w.type == "fullrange" else f"{w.alignment} order {w.order}"
+        rows.append(f"<tr><td>{esc(w.driver)}</td><td>{w.type}</td><td>{esc(shape)}</td><td>{esc(where)}</td>"
+                    f"<td>{'inverted' if pol[w.driver] < 0 else 'normal'}</td></tr>")
+    band = job.target.band
+    level = "automatic" if job.target.level == "auto" else f"{job.target.level:g} dB SPL"
+    info = (f"Band {format_value(band[0], 'Hz')} to {format_value(band[1], 'Hz')}" if band else "The whole grid") + \
+        f"; level {level}; shaping curve {esc(job.target.curve)}; impedance floor " + \
+        (f"{job.cost.impedance_min:g} Ω." if job.cost.impedance_min else "none.")
+    return (f"<h2>Targets</h2><p>{info}</p><table><tr><th>way</th><th>type</th><th>alignment</th><th>at</th>"
+            f"<th>polarity</th></tr>{''.join(rows)}</table>")
+
+
+def _breakdown_table(entries: list[tuple], esc) -> str:
+    rows = []
+    for label, d, _ in entries:
+        b = d.breakdown
+        if b is None:
+            continue
+        for w in b["ways"]:
+            rows.append(f"<tr><td>{esc(label)}</td><td>{esc(w['way'])} ({w['from_hz']:.0f}-{w['to_hz']:.0f} Hz)</td>"
+                        f"<td>{w['rms_db']:.2f}</td><td>{w['worst_db']:+.2f} at {w['worst_hz']:.0f} Hz</td><td></td></tr>")
+        for c in b["crossovers"]:
+            rows.append(f"<tr><td>{esc(label)}</td><td>crossover {esc(c['ways'])} ({c['from_hz']:.0f}-"
+                        f"{c['to_hz']:.0f} Hz)</td><td>{c['sum_rms_db']:.2f}</td><td>{c['sum_worst_db']:+.2f} at "
+                        f"{c['sum_worst_hz']:.0f} Hz</td><td>{c['phase_worst_deg']:+.1f} at "
+                        f"{c['phase_worst_hz']:.0f} Hz</td></tr>")
+    if not rows:
+        return ""
+    return ("<h2>Where the error lies</h2><table><tr><th>result</th><th>way or region</th><th>rms error (dB)</th>"
+            f"<th>worst error (dB)</th><th>worst phase error (deg)</th></tr>{''.join(rows)}</table>")
+
+
+def _netlist_table(job, esc) -> str:
+    rows = "".join(f"<tr><td>{esc(p.name)}</td><td>{p.type if p.type != 'driver' else 'driver ' + esc(p.driver)}</td>"
+                   f"<td>{esc(p.nodes[0])}</td><td>{esc(p.nodes[1])}</td></tr>" for p in job.parts)
+    return ("<h2>Network</h2><p>Node \"in\" is the amplifier's output, \"0\" its return; a driver's first node is "
+            f"its positive terminal.</p><table><tr><th>part</th><th>kind</th><th>from node</th><th>to node</th></tr>"
+            f"{rows}</table>")
+
+
+def write_report(items: list, out: Path, command: list[str] | None = None) -> Path:
+    """report.html (self-contained: images inline) and its PNGs for designs and spreads, overlaid in one page.
+
+    ``command``: the command line that made it, shown with the version and date."""
     import base64
     import html
 
@@ -229,6 +304,16 @@ def write_report(items: list, out: Path) -> Path:
                        "cost.</p><table><tr><th>step</th><th>parts</th><th>removed</th><th>how</th><th>cost</th>"
                        f"<th>rms error (dB)</th><th>worst error (dB)</th><th></th></tr>{rows_html}</table>")
     findings = last.findings
+    values_table = _values_table(entries, esc)
+    targets_table = _targets_table(job, esc)
+    breakdown_table = _breakdown_table(entries, esc)
+    netlist_table = _netlist_table(job, esc)
+    from datetime import datetime, timezone
+
+    from . import __version__
+
+    made = (f"xo_fit {__version__}, {datetime.now(timezone.utc).strftime('%Y-%m-%d %H:%M UTC')}, from: "
+            f"{' '.join(command) if command else 'the Python API'}")
     finding_rows = "".join(f"<li>{esc(x['text'])}</li>" for x in findings) or "<li>none</li>"
     cautions = load_cautions(last.scored.metrics["impedance_min_ohm"], job.cost.impedance_min)
     if st is not None:
@@ -254,14 +339,19 @@ figure {{ margin: 0.8em 0; }} img {{ max-width: 100%; height: auto; }}
 <h1>{esc(job.name)}: crossover report</h1>
 <p>Results: {esc(', '.join(x[0] for x in entries))}. Made by xo_fit from simulations of the measured drivers in the network;
 check the built speaker by measurement.</p>
+<p class="made">{esc(made)}</p>
 <h2>Metrics</h2>
 <table><tr><th>result</th><th>cost</th><th>rms error (dB)</th><th>worst error (dB)</th><th>phase mismatch (deg)</th>
 <th>|Z| minimum (Ω)</th><th>EPDR minimum (Ω)</th></tr>{''.join(metric_rows)}</table>
+{breakdown_table}
+{values_table}
+{targets_table}
 <h2>Curves</h2>{imgs}
 <h2>Part list ({esc(last_label)})</h2>
 <p>{esc(drive)}</p>
 <table><tr><th>part</th><th>kind</th><th>value</th><th>source</th><th>tolerance</th><th>made of</th><th>stress</th></tr>
 {''.join(part_rows)}</table>
+{netlist_table}
 {prune_table}
 <h2>Findings ({esc(last_label)})</h2><ul>{finding_rows}</ul>
 <h2>Cautions</h2>{''.join(f'<div class="caution">{esc(c)}</div>' for c in cautions)}

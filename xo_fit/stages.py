@@ -59,8 +59,12 @@ def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=Non
 
 
 def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=None, plots: bool = True,
-                 source_from: str | None = None, progress=None, home: Path | None = None) -> StageOutput:
+                 source_from: str | None = None, progress=None, home: Path | None = None,
+                 part_info: dict | None = None) -> StageOutput:
+    """``part_info``: what the design's own result said of each part (a snap's series, source, combination),
+    carried into the spread's result so that its part list still says what to buy."""
     values = dict(zip(system.part_names, np.asarray(nominal, dtype=float)))
     sp = api.spread(system, values, samples=samples, seed=seed, progress=progress, source_from=source_from)
+    sp.design.part_info = dict(part_info or {})
     files = sp.save(out, plots=plots, home=home)
     return _output(sp.design, out, files, result=sp.result, spread=sp)
