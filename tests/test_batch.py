@@ -54,8 +54,15 @@ def test_batch_runs_sweeps_and_resumes_without_redoing(tmp_path):
     r = cli("batch", tmp_path / "*.toml", "--out", out, "--no-plots")
     assert r.returncode == 0 and "4 already done, 0 run now" in r.stdout
     assert rows(out) == first and (out / "job0" / "snap" / "result.json").stat().st_mtime_ns == mtime
-    summary = (out / "summary.csv").read_text().splitlines()
-    assert summary[0].startswith("job,status,stage,cost") and len(summary) == 5
+    import csv
+
+    with open(out / "summary.csv", newline="") as fh:
+        summary = list(csv.DictReader(fh))
+    assert list(summary[0])[:4] == ["job", "sweep_seed", "status", "stage"] and len(summary) == 4
+    assert {r["job"]: r["sweep_seed"] for r in summary if r["job"].startswith("swept")} == {"swept-seed3": "3",
+                                                                                         "swept-seed4": "4"}
+    assert all(0.0 <= float(r["yield_band"]) <= 1.0 and r["yield_limits"] != "" for r in summary)
+    assert "seed=3" in r.stdout and "%" in r.stdout  # the console table has the swept value and the yield
 
 
 def test_kill_minus_nine_then_resume(tmp_path):

@@ -265,7 +265,13 @@ def work(payload: dict, emit=None) -> dict:
             info = {n: {k: v for k, v in e.items() if k not in ("value", "unit", "text", "limit")}
                     for n, e in o.document["parts"].items()}
             files = {f"{st}/{p.name}": p.read_bytes() for p in sorted(folder.iterdir()) if p.is_file()}
-            done.append({"stage": st, "cost": o.cost, "metrics": o.metrics, "files": files, "started": started,
+            metrics = dict(o.metrics)
+            if system.job.swept:
+                metrics["swept"] = dict(system.job.swept)
+            if st == "spread":
+                y = o.document.get("spread", {}).get("yield", {})
+                metrics["yield_band"], metrics["yield_limits"] = y.get("within_band"), y.get("meeting_limits")
+            done.append({"stage": st, "cost": o.cost, "metrics": metrics, "files": files, "started": started,
                          "finished": time.time()})
             if emit is not None:
                 emit({"stage_done": done[-1]})
@@ -588,20 +594,29 @@ def write_summary(out: Path, store: Store | None = None) -> list[dict]:
     for (job, stage), r in rows.items():
         j = jobs.setdefault(job, {"job": job, "status": "done", "stage": None, "cost": None, "rms_error_db": None,
                                   "max_error_db": None, "phase_mismatch_deg": None, "impedance_min_ohm": None,
-                                  "error": "", "folder": r["folder"]})
+                                  "yield_band": None, "yield_limits": None, "swept": {}, "error": "",
+                                  "folder": r["folder"]})
+        m = json.loads(r["metrics"]) if r["metrics"] else {}
+        j["swept"].update(m.get("swept") or {})
+        if stage == "spread" and r["status"] == "done":
+            j["yield_band"], j["yield_limits"] = m.get("yield_band"), m.get("yield_limits")
         if r["status"] != "done":
             j["status"] = r["status"]
             if r["error"] and not j["error"]:
                 j["error"] = r["error"].splitlines()[0][:200]
             continue
         if j["stage"] is None or order[stage] > order[j["stage"]]:
-            m = json.loads(r["metrics"]) if r["metrics"] else {}
             j.update(stage=stage, cost=r["cost"], **{k: m.get(k) for k in ("rms_error_db", "max_error_db",
                                                                           "phase_mismatch_deg", "impedance_min_ohm")})
     summary = sorted(jobs.values(), key=lambda j: (j["status"] != "done", j["cost"] if j["cost"] is not None
                                                    else float("inf"), j["job"]))
-    columns = ["job", "status", "stage", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
-               "impedance_min_ohm", "folder", "error"]
+    swept = sorted({k for j in summary for k in j["swept"]})
+    for j in summary:
+        for k in swept:
+            j[f"sweep_{k}"] = j["swept"].get(k)
+    columns = (["job"] + [f"sweep_{k}" for k in swept] +
+               ["status", "stage", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg", "impedance_min_ohm",
+                "yield_band", "yield_limits", "folder", "error"])
     write_rows(out / "summary.csv", [{c: "" if j[c] is None else j[c] for c in columns} for j in summary],
                columns=columns)
     return summary

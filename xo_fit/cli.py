@@ -539,14 +539,17 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
 
 
 def _print_summary(rows: list[dict]) -> None:
-    say(f"  {'job':<36} {'status':<8} {'stage':<7} {'cost':>9} {'rms dB':>7} {'worst dB':>8} {'|Z| min':>8}")
+    say(f"  {'job':<36} {'status':<8} {'stage':<7} {'cost':>9} {'rms dB':>7} {'worst dB':>8} {'|Z| min':>8} "
+        f"{'yield':>6}  swept")
     for r in rows:
         def num(x, fmt):
             return format(x, fmt) if isinstance(x, (int, float)) else "-"
 
+        swept = ", ".join(f"{k}={v}" for k, v in sorted(r.get("swept", {}).items()))
+        yld = f"{r['yield_band'] * 100:5.1f}%" if isinstance(r.get("yield_band"), (int, float)) else "-"
         say(f"  {r['job'][:36]:<36} {r['status']:<8} {r['stage'] or '-':<7} {num(r['cost'], '9.4g'):>9} "
             f"{num(r['rms_error_db'], '7.2f'):>7} {num(r['max_error_db'], '8.2f'):>8} "
-            f"{num(r['impedance_min_ohm'], '8.2f'):>8}" + (f"  {r['error'][:60]}" if r["error"] else ""))
+            f"{num(r['impedance_min_ohm'], '8.2f'):>8} {yld:>6}  {swept}" + (f"  {r['error'][:60]}" if r["error"] else ""))
 
 
 @app.command()

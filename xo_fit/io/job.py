@@ -13,6 +13,7 @@ Relative paths are taken from the job file's folder.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import re
@@ -274,6 +275,7 @@ class Job:
     document: str = "{}"
     part_lines: Mapping[str, int] = field(default_factory=lambda: FrozenMap())  # line of each part's nodes
     warnings: tuple[str, ...] = ()  # doubtful but legal values, one line each
+    swept: Mapping[str, Any] = field(default_factory=lambda: FrozenMap())  # a [sweep] variant's values, by label
 
     @property
     def data(self) -> dict:
@@ -587,7 +589,8 @@ def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
                 _assign(variant, p, value, ctx, key)
             label.append(f"{paths[0].split('.')[-1]}{_label(value)}")
         variant["name"] = f"{base_name}-" + "-".join(label)
-        out.append((_build(variant, ctx), variant))
+        swept = FrozenMap({paths[0].split(".")[-1]: value for (key, paths, _), value in zip(axes, combo)})
+        out.append((dataclasses.replace(_build(variant, ctx), swept=swept), variant))
     return out
 
 
