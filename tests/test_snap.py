@@ -171,3 +171,20 @@ def test_a_drawer_too_small_names_the_kind_and_counts(write_job, cli, tmp_path):
     code, _, err = cli("snap", write_job(text), "--out", tmp_path / "s", "--inventory", tmp_path / "inv.csv")
     assert code == 2 and len(err.strip().splitlines()) == 1
     assert "coils: 2 needed, 1 held" in err and "capacitors" not in err, err
+
+
+def test_top_up_buys_from_a_series_what_the_drawer_lacks(write_job, cli, tmp_path):
+    """The drawer that ran short above, topped up from E12: the coils it lacks are bought, its own parts used."""
+    text, _ = ladder_job("LR2", spread=3.0)
+    (tmp_path / "inv.csv").write_text("L, 1.2mH, 1\nC, 4.7uF, 2\nC, 22uF, 2\n")
+    job = write_job(text)
+    code, _, err = cli("snap", job, "--out", tmp_path / "s", "--inventory", tmp_path / "inv.csv", "--top-up", "E12",
+                       "--no-plots")
+    assert code == 0, err
+    parts = json.loads((tmp_path / "s" / "result.json").read_text())["parts"]
+    sources = [p["source"] for p in parts.values()]
+    assert "E12" in sources and "inventory" in sources, sources
+    coils = [p for p in parts.values() if p["unit"] == "H"]
+    assert sum(p["source"] == "inventory" for p in coils) <= 1  # the drawer's one coil is used at most once
+    code, _, err = cli("snap", job, "--out", tmp_path / "x", "--inventory", tmp_path / "inv.csv", "--top-up", "E7")
+    assert code == 2 and "E7" in err

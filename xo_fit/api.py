@@ -126,7 +126,8 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
 
 
 def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Mapping[str, str] | None = None,
-         inventory=None, combine: int | None = None, source_from: str | None = None) -> Design:
+         inventory=None, combine: int | None = None, source_from: str | None = None,
+         top_up: str | None = None) -> Design:
     """Every snappable value moved to a purchasable one (series, or the parts on hand) and re-scored.
 
     ``design``: the continuous design to snap (default: the job's own values). ``series`` maps a kind
@@ -146,7 +147,7 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
     if inventory is not None and not isinstance(inventory, Inventory):
         inventory = read_inventory(inventory)
     outcome = run_snap(system, continuous, series_override=dict(series) if series else None, inventory=inventory,
-                       combine=combine)
+                       combine=combine, top_up=top_up)
     model = cost_model(system)
     before = score(system, continuous, model)
     after = score(system, outcome.values, model)

@@ -400,6 +400,9 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          inventory: Optional[Path] = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value \\[, count] (default: the job's \\[snap] inventory)."),
          combine: Optional[int] = typer.Option(None, "--combine", min=1, max=2,
                                                help="2: allow two parts to make one value."),
+         top_up: Optional[str] = typer.Option(None, "--top-up",
+                                              help="With an inventory: a series to buy from where the drawer lacks "
+                                                   "a value (default: the job's \\[snap] top_up)."),
          no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
          ) -> None:
     """Move every part value to a purchasable one (a series or parts on hand) and re-score, searching the
@@ -415,7 +418,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     inv_path = inventory if inventory is not None else j.snap.inventory
     inv = read_inventory(inv_path) if inv_path is not None else None
     st = snap_stage(system, out, continuous, series_override=_series_option(series), inventory=inv, combine=combine,
-                    plots=not no_plots, source_from=str(from_) if from_ else None)
+                    plots=not no_plots, source_from=str(from_) if from_ else None, top_up=top_up)
     outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
     sr = outcome.search
     say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
@@ -656,7 +659,8 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
             f"{e['unit']}): add `stress = 10` to the job's [cost] and fit again to keep it within, at some cost "
             "in accuracy")
     say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
-    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, no_plots=False)
+    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, top_up=None,
+         no_plots=False)
     say("tolerance spread of the snapped design:")
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
     from .api import write_report

@@ -94,8 +94,11 @@ def _pool(kind: str, target: float, source: str, inventory: Inventory | None) ->
 
 
 def choices_for(kind: str, target: float, source: str, *, inventory: Inventory | None = None, combine: int = 1,
-                lo: float | None = None, hi: float | None = None, k: int = NEIGHBOURS) -> list[Choice]:
-    """The choices of one part: the nearest purchasable values (k each side) and the best pairs."""
+                lo: float | None = None, hi: float | None = None, k: int = NEIGHBOURS,
+                top_up: str | None = None) -> list[Choice]:
+    """The choices of one part: the nearest purchasable values (k each side) and the best pairs; with a drawer
+    and ``top_up`` (a series name), also the nearest values of that series, to be bought where the drawer
+    lacks them (they count against no stock)."""
     out: list[Choice] = []
     if source == "inventory":
         avail = sorted(v for v, _ in inventory.values(kind))
@@ -104,6 +107,9 @@ def choices_for(kind: str, target: float, source: str, *, inventory: Inventory |
         i = int(np.argmin(np.abs(np.log(np.array(avail) / target))))
         singles = avail[max(0, i - k): i + k + 1]
         out += [Choice(v, "inventory", (v,), uses=((kind, v),)) for v in singles]
+        if top_up is not None:
+            have = set(singles)
+            out += [Choice(v, top_up, (v,)) for v in neighbours(target, top_up, k, lo, hi) if v not in have]
     else:
         singles = neighbours(target, source, k, lo, hi)
         out += [Choice(v, source, (v,)) for v in singles]
@@ -330,7 +336,8 @@ def part_sources(job, series_override: dict | None, inventory: Inventory | None)
 
 
 def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = None,
-             inventory: Inventory | None = None, combine: int | None = None, seed: int | None = None) -> SnapOutcome:
+             inventory: Inventory | None = None, combine: int | None = None, seed: int | None = None,
+             top_up: str | None = None) -> SnapOutcome:
     """Snap design ``continuous`` (P,) of ``system`` to purchasable values with the job's cost."""
     import time
 
@@ -341,6 +348,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     t0 = time.monotonic()
     job = system.job
     combine = job.snap.combine if combine is None else combine
+    top_up = job.snap.top_up if top_up is None else check_name(top_up)
     seed = job.search.seed if seed is None else seed
     cm, _ = require_cost_model(system, "score the snap with")
     cost_fn = FusedCost(cm)
@@ -352,7 +360,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     for i in snap_idx:
         p = parts[i]
         opts = choices_for(p.type, continuous[i], sources[p.name], inventory=inventory, combine=combine,
-                           lo=p.min, hi=p.max)
+                           lo=p.min, hi=p.max, top_up=top_up)
         options.append(opts)
         baseline.append(log_nearest_index(opts, continuous[i]))
     stock = {}
@@ -387,7 +395,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
         src = sources[p.name]
         choice = options[snap_idx.index(i)][result.assignment[snap_idx.index(i)]] if i in snap_idx else None
         out_parts.append(SnappedPart(p.name, p.type, float(continuous[i]), float(values[i]),
-                                     "continuous" if src == "none" else src, choice))
+                                     "continuous" if src == "none" else (choice.source if choice else src), choice))
     return SnapOutcome(parts=tuple(out_parts), values=values, continuous=continuous, search=result,
                        seconds=time.monotonic() - t0)
 

@@ -50,10 +50,11 @@ def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time
 
 
 def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=None, inventory=None, combine=None,
-               plots: bool = True, source_from: str | None = None, home: Path | None = None) -> StageOutput:
+               plots: bool = True, source_from: str | None = None, home: Path | None = None,
+               top_up: str | None = None) -> StageOutput:
     values = dict(zip(system.part_names, np.asarray(continuous, dtype=float)))
     d = api.snap(system, values, series=series_override, inventory=inventory, combine=combine,
-                 source_from=source_from)
+                 source_from=source_from, top_up=top_up)
     files = d.save(out, plots=plots, title=f"{system.job.name}: snapped (grey: continuous)", home=home)
     return _output(d, out, files)
 

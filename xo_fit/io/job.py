@@ -43,7 +43,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
-    "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1},
+    "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
     "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False, "rms_limit_db": 1.0,
                "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
@@ -225,6 +225,7 @@ class SnapSpec:
     series: Mapping[str, str] = field(default_factory=lambda: FrozenMap(DEFAULTS["snap"]["series"]))
     inventory: Path | None = DEFAULTS["snap"]["inventory"]
     combine: int = DEFAULTS["snap"]["combine"]
+    top_up: str | None = DEFAULTS["snap"]["top_up"]
 
 
 @dataclass(frozen=True)
@@ -484,7 +485,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "cost": "way sum phase impedance impedance_min stress",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
-    "snap": "series inventory combine",
+    "snap": "series inventory combine top_up",
     "spread": "samples seed distribution band_db qmc rms_limit_db tolerance",
     "stress": "power rated_impedance",
 }.items()})
@@ -1085,8 +1086,16 @@ def _snap(r: _Reader) -> SnapSpec:
                 raise r.error("series", f"{k}: {e.message}") from None
     inventory = r.path("inventory") if r.has("inventory") else None
     combine = r.number("combine", d["combine"], integer=True, minimum=1, maximum=2)
+    top_up = r.text("top_up", d["top_up"])
+    if top_up is not None:
+        from ..series import check_name
+
+        try:
+            top_up = check_name(top_up)
+        except XoFitError as e:
+            raise r.error("top_up", e.message) from None
     r.done()
-    return SnapSpec(series=FrozenMap(series), inventory=inventory, combine=combine)
+    return SnapSpec(series=FrozenMap(series), inventory=inventory, combine=combine, top_up=top_up)
 
 
 def _spread(r: _Reader) -> SpreadSpec:
