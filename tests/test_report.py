@@ -309,3 +309,27 @@ nodes = ["W1", "0"]
     data = _run_deck(ngspice, deck, f"(v({node['W1']}))", tmp_path)
     mine = s.network.solve(s.values()).voltages[0, 0]
     np.testing.assert_allclose(mine, data[:, 1] + 1j * data[:, 2], rtol=1e-6)
+
+
+def test_the_network_is_drawn_as_ladders_or_listed(write_job, tmp_path):
+    """The demo's two ways lay out as ladders (every part placed once); a bridge between the ways has no ladder
+    layout, and the report then lists the netlist instead."""
+    import xo_fit
+    from xo_fit.demo import write_scenario
+    from xo_fit.schematic import draw, ladders
+
+    job = xo_fit.load_job(write_scenario(tmp_path / "s"))
+    lay = ladders(job)
+    placed = [n for w in lay for n, _, _ in w["series"]] + [n for w in lay for c in w["shunts"].values() for x in c
+                                                            for n in x]
+    assert sorted(placed) == sorted(p.name for p in job.valued_parts)
+    assert draw(job, xo_fit.simulate(job).values)[:4] == b"\x89PNG"
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2")
+    head, tail = text.split("[target]", 1)
+    bridged = write_job(head + '[[part]]\nname = "RB"\ntype = "R"\nnodes = ["w0", "t0"]\nvalue = 100\n[target]' + tail)
+    job2 = xo_fit.load_job(bridged)
+    assert ladders(job2) is None
+    page = xo_fit.write_report([xo_fit.simulate(job2)], tmp_path / "r").read_text()
+    assert "<th>from node</th>" in page and "RB" in page

@@ -307,7 +307,17 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
     values_table = _values_table(entries, esc)
     targets_table = _targets_table(job, esc)
     breakdown_table = _breakdown_table(entries, esc)
-    netlist_table = _netlist_table(job, esc)
+    from .schematic import draw
+
+    drawing = draw(last.job, last.values)
+    if drawing is not None:
+        with atomic_path(out / "network.png", suffix=".png") as tmp:
+            tmp.write_bytes(drawing)
+        netlist_table = ("<h2>Network</h2><p>Each way as a ladder from \"in\"; values of the "
+                         f"{esc(last_label)} design.</p><figure><img alt=\"network\" "
+                         f"src=\"data:image/png;base64,{base64.b64encode(drawing).decode()}\"></figure>")
+    else:
+        netlist_table = _netlist_table(job, esc)
     from datetime import datetime, timezone
 
     from . import __version__
