@@ -157,3 +157,26 @@ def test_unknown_curve_is_a_clear_error(write_job):
     job = load_job(write_job(JOB.format(curve="bright")))
     with pytest.raises(JobError, match="no target curve 'bright'.*flat"):
         build_targets(job, job.grid.frequencies)
+
+
+def test_shipped_shaping_curves_are_defined_on_any_grid(write_job):
+    """flat and the tilts are formulas: a grid from 5 Hz to 30 kHz (beyond the files' 10 Hz-40 kHz) works, and the
+    formulas agree with the shipped files where both are defined (-k log10(f / 1 kHz))."""
+    from xo_fit.io.measure import read_curve
+    from xo_fit.targets import load_curve
+    import importlib.resources
+
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2")
+    job = load_job(write_job(text.replace("f_min = 20", "f_min = 5")))
+    f = np.geomspace(5, 30000, 200)
+    assert np.all(load_curve("flat", job, f) == 0.0)
+    for name, k in (("tilt-1db-decade", 1.0), ("tilt-2db-decade", 2.0)):
+        got = load_curve(name, job, f)
+        np.testing.assert_allclose(got, -k * np.log10(f / 1000), atol=1e-12)
+        with importlib.resources.as_file(shipped_curves()[name]) as path:
+            c = read_curve(path, "response")
+        inside = (f >= c.frequency[0]) & (f <= c.frequency[-1])
+        np.testing.assert_allclose(got[inside], np.interp(np.log(f[inside]), np.log(c.frequency), c.magnitude),
+                                   atol=0.01)

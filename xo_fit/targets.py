@@ -135,6 +135,11 @@ def polarities(ways: tuple[WayTarget, ...]) -> dict[str, float]:
     return out
 
 
+#: The shipped shaping curves as formulas, dB per decade of fall, 0 dB at 1 kHz (data/targets/ lists them as
+#: files too, 10 Hz to 40 kHz, for reading and as examples of the file form).
+TILTS = {"flat": 0.0, "tilt-1db-decade": 1.0, "tilt-2db-decade": 2.0}
+
+
 def load_curve(name: str, job: Job, f: np.ndarray) -> np.ndarray:
     """A shaping curve in dB on the grid: a shipped curve by stem, or a path (relative to the job's folder)."""
     p = Path(name)
@@ -144,6 +149,8 @@ def load_curve(name: str, job: Job, f: np.ndarray) -> np.ndarray:
         if not path.exists():
             raise JobError(f"target curve file {path} not found", path=job.path, key="[target] curve")
         return _curve_on_grid(path, f)
+    if name in TILTS:  # the shipped curves are straight lines in log frequency: defined on any grid
+        return -TILTS[name] * np.log10(np.asarray(f, dtype=float) / 1000.0)
     if name in shipped:
         with importlib.resources.as_file(shipped[name]) as path:
             return _curve_on_grid(path, f)
