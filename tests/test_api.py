@@ -145,3 +145,19 @@ def test_report_takes_designs_and_a_result_rebuilds_the_same_design(write_job, t
     page = xo_fit.write_report([best, again], tmp_path / "report")
     html = page.read_text()
     assert "fit 1" in html and "fit 2" in html
+
+
+def test_phase_edge_appears_and_disappears_as_the_band_moves(write_job, tmp_path):
+    """A tweeter file from 300 Hz to 30 kHz with its phase derived: a band reaching below 600 Hz (an octave above
+    the file's start) or above 15 kHz gets the finding; a band inside them does not."""
+    f = np.geomspace(300, 30000, 120)
+    curve = "".join(f"{x:.3f} 90.0\n" for x in f)
+    text, _ = ladder_job("LR2")
+    text = text.replace('[driver.tweeter]\nresponse = 90', '[driver.tweeter]\nresponse = "t.txt"\nphase = "minimum"')
+    text = text.replace("f_min = 20", "f_min = 310").replace("f_max = 20000", "f_max = 29000")
+    kinds = {}
+    for band in ("[400, 12000]", "[700, 12000]", "[700, 16000]"):
+        job = xo_fit.load_job(write_job(text.replace("band = [100, 15000]", f"band = {band}"), {"t.txt": curve}))
+        kinds[band] = [x["kind"] for x in xo_fit.simulate(job).findings]
+    assert "phase_edge" in kinds["[400, 12000]"] and "phase_edge" in kinds["[700, 16000]"]
+    assert "phase_edge" not in kinds["[700, 12000]"]
