@@ -19,7 +19,7 @@ from .coils import DCR_EXPONENT, dcr_coefficient
 from .errors import JobError, NetworkError
 from .io.job import FileCurve, FlatResponse, Job, Resistive, ThieleSmall
 from .constants import P_REF
-from .io.measure import Curve, on_grid, read_curve
+from .io.measure import Curve, extend_curve, on_grid, read_curve
 from .solver.netlist import check_topology
 from .solver.network import Branch, Network, Solution, compile_network
 
@@ -113,7 +113,8 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> Drive
     else:
         assert isinstance(spec.response, FileCurve)
         resp_curve = read_curve(spec.response.path, "response")
-        response, w = on_grid(resp_curve, grid, "response", spec.phase)
+        response, w = on_grid(extend_curve(resp_curve, grid, "response", spec.extend_low, spec.extend_high), grid,
+                              "response", spec.phase)
         warnings += w
         rphase = spec.phase
     if isinstance(spec.impedance, Resistive):
@@ -124,7 +125,8 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> Drive
         iphase = "ideal"
     else:
         imp_curve = read_curve(spec.impedance.path, "impedance")
-        impedance, w = on_grid(imp_curve, grid, "impedance", spec.impedance_phase)
+        impedance, w = on_grid(extend_curve(imp_curve, grid, "impedance", spec.impedance_extend_low,
+                                            spec.impedance_extend_high), grid, "impedance", spec.impedance_phase)
         warnings += w
         iphase = spec.impedance_phase
         if np.any(impedance.real <= 0):

@@ -36,7 +36,8 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "source": {"voltage": 2.83, "resistance": 0.0},
     "acoustics": {"speed_of_sound": 343.0},
     "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
-               "impedance_phase": "measured"},
+               "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
+               "impedance_extend_low": "none", "impedance_extend_high": "none"},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0},
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
     "target": {"level": "auto", "curve": "flat"},
@@ -140,6 +141,10 @@ class DriverSpec:
     offset: float
     phase: str
     impedance_phase: str
+    extend_low: str = "none"
+    extend_high: str = "none"
+    impedance_extend_low: str = "none"
+    impedance_extend_high: str = "none"
 
 
 @dataclass(frozen=True)
@@ -477,7 +482,8 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "grid": "f_min f_max points per_octave",
     "source": "voltage resistance",
     "acoustics": "speed_of_sound",
-    "driver": "response impedance reference_voltage offset phase impedance_phase",
+    "driver": "response impedance reference_voltage offset phase impedance_phase extend_low extend_high "
+              "impedance_extend_low impedance_extend_high",
     "thiele_small": "re le fs qms qes le_exponent",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way",
@@ -794,7 +800,20 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
         offset=r.value("offset", "m", d["offset"], positive=False),
         phase=_phase_choice(r, "phase"),
         impedance_phase=_phase_choice(r, "impedance_phase"),
+        extend_low=r.choice("extend_low", ("none", "slope", "order2", "order4"), d["extend_low"]),
+        extend_high=r.choice("extend_high", ("none", "slope"), d["extend_high"]),
+        impedance_extend_low=r.choice("impedance_extend_low", ("none", "slope"), d["impedance_extend_low"]),
+        impedance_extend_high=r.choice("impedance_extend_high", ("none", "slope"), d["impedance_extend_high"]),
     )
+    for keys, what, phase_key in ((("extend_low", "extend_high"), "response", "phase"),
+                                  (("impedance_extend_low", "impedance_extend_high"), "impedance", "impedance_phase")):
+        for key in keys:
+            if getattr(spec, key) != "none":
+                if not isinstance(getattr(spec, what), FileCurve):
+                    raise r.error(key, f"only a {what} read from a file can be extended")
+                if getattr(spec, phase_key) != "minimum":
+                    raise r.error(key, f"an extended {what} must use {phase_key} = \"minimum\": the measured phase "
+                                       "stops at the file's end, the extended magnitude gives the phase")
     r.done()
     return spec
 

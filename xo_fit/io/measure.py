@@ -246,6 +246,69 @@ def on_grid(curve: Curve, grid: np.ndarray, kind: str, phase: str = "measured") 
     return mag * np.exp(1j * ph), warnings
 
 
+#: The extensions a file's data can take beyond its ends.
+EXTENSIONS = ("none", "slope", "order2", "order4")
+#: Points per octave of an extension.
+EXTEND_PER_OCTAVE = 48
+
+
+def extend_curve(curve: Curve, grid: np.ndarray, kind: str, low: str = "none", high: str = "none") -> Curve:
+    """The curve with its magnitude continued to cover ``grid`` (Hz): "slope" continues the dB-per-octave
+    slope fitted over the data's last third of an octave; "order2"/"order4" (low end only) fit a second- or
+    fourth-order Butterworth high-pass to the data's lowest octave, joined at the file's first point without a
+    step. The phase column is dropped: an extended curve takes minimum phase from its whole magnitude."""
+    if low == "none" and high == "none":
+        return curve
+    u = np.log(curve.frequency)
+    db = magnitude_db(curve, kind)
+    parts_u, parts_db = [], []
+    lo_g, hi_g = float(np.log(grid[0])), float(np.log(grid[-1]))
+    if low != "none" and lo_g < u[0]:
+        n = int(np.ceil((u[0] - lo_g) / np.log(2) * EXTEND_PER_OCTAVE)) + 1
+        ue = np.linspace(lo_g - 1e-9, u[0], n + 1)[:-1]
+        if low == "slope":
+            ext = db[0] + _edge_slope(u, db, True) * (ue - u[0])
+        else:
+            ext = _highpass_extension(u, db, ue, 2 if low == "order2" else 4)
+        parts_u.append(ue)
+        parts_db.append(ext)
+    parts_u.append(u)
+    parts_db.append(db)
+    if high != "none" and hi_g > u[-1]:
+        n = int(np.ceil((hi_g - u[-1]) / np.log(2) * EXTEND_PER_OCTAVE)) + 1
+        ue = np.linspace(u[-1], hi_g + 1e-9, n + 1)[1:]
+        parts_u.append(ue)
+        parts_db.append(db[-1] + _edge_slope(u, db, False) * (ue - u[-1]))
+    uu, dd = np.concatenate(parts_u), np.concatenate(parts_db)
+    lines = np.concatenate([np.zeros(len(x), dtype=curve.lines.dtype) if x is not u else curve.lines
+                            for x in parts_u])  # extension points have no line of the file (0)
+    mag = dd if kind == "response" else 10.0 ** (dd / 20.0)
+    return Curve(path=curve.path, frequency=np.exp(uu), magnitude=mag, phase_deg=None, lines=lines)
+
+
+def _highpass_extension(u: np.ndarray, db: np.ndarray, ue: np.ndarray, order: int) -> np.ndarray:
+    """dB below the data's first point from an order-N Butterworth high-pass fitted over its lowest octave."""
+    sel = u <= u[0] + np.log(2.0)
+    if np.count_nonzero(sel) < 3:
+        sel = slice(0, min(3, u.size))
+    us, ds = u[sel], db[sel]
+
+    def shape(x_u: np.ndarray, log_fc: float) -> np.ndarray:  # 20 log10 |H|, |H|^2 = x^2N / (1 + x^2N)
+        x2 = np.exp(2 * order * (x_u - log_fc))
+        return 10 * np.log10(x2 / (1 + x2))
+
+    best = None
+    for log_fc in np.linspace(us[0] - 3 * np.log(2), us[-1] + np.log(2), 400):  # corner from 3 octaves below on
+        m = shape(us, log_fc)
+        g = float(np.mean(ds - m))
+        err = float(np.sum((ds - m - g) ** 2))
+        if best is None or err < best[0]:
+            best = (err, log_fc, g)
+    _, log_fc, _ = best
+    g = db[0] - float(shape(np.array([u[0]]), log_fc)[0])  # joined at the file's first point, no step
+    return g + shape(ue, log_fc)
+
+
 def _edge_slope(u: np.ndarray, a: np.ndarray, at_start: bool) -> float:
     """Least-squares slope of a(u) over the outer EDGE_OCTAVES of the data at one end."""
     width = EDGE_OCTAVES * np.log(2.0)
