@@ -56,6 +56,11 @@ def test_an_extended_response_runs_and_needs_minimum_phase(write_job, cli, tmp_p
     job = write_job(text.replace('[driver.tweeter]\nresponse = 90', ext), {"t.txt": curve})
     code, out, err = cli("simulate", job, "--out", tmp_path / "s", "--no-plots")
     assert code == 0, err
+    code, out, err = cli("check", job)
+    assert code == 0, err
+    assert "measured 300 Hz to 25 kHz" in out
+    grid_lo = text.split("f_min = ")[1].split()[0]
+    assert f"extended below to {grid_lo} Hz (order2)" in out
     bad = write_job(text.replace('[driver.tweeter]\nresponse = 90', ext.replace('phase = "minimum"\n', "")),
                     {"t.txt": curve}, name="bad.toml")
     code, _, err = cli("check", bad)

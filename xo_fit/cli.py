@@ -99,6 +99,20 @@ def _load(job_path: Path):
 # ----------------------------------------------------------------------------- check
 
 
+def _extension_text(spec, what: str, lo: float, hi: float, f: np.ndarray) -> str:
+    """How a driver's file is extended to the grid ``f`` (Hz): "" where it is not."""
+    from .units import format_value
+
+    low, high = ((spec.extend_low, spec.extend_high) if what == "response"
+                 else (spec.impedance_extend_low, spec.impedance_extend_high))
+    out = []
+    if low != "none" and f[0] < lo:
+        out.append(f"extended below to {format_value(f[0], 'Hz')} ({low})")
+    if high != "none" and f[-1] > hi:
+        out.append(f"extended above to {format_value(f[-1], 'Hz')} ({high})")
+    return ", ".join(out)
+
+
 @app.command()
 def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
     """Read and validate a job and its data; show the grid, drivers, parts, free values and nodes."""
@@ -142,7 +156,10 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
                 if what == "response" and phase == "measured" and curve.phase_deg is None:
                     kind = "no phase"
                 say(f"    {what:<9} {curve.path}  {len(curve.frequency)} points, "
-                    f"{format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, {kind}")
+                    f"measured {format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, {kind}")
+                ext = _extension_text(spec, what, lo, hi, f)
+                if ext:
+                    say(f"    {'':<9} {ext}")
         say(f"    reference {format_value(spec.reference_voltage, 'V')}, offset {format_value(spec.offset, 'm')}")
     say("parts")
     say(f"  {'name':<10} {'type':<6} {'nodes':<14} {'value':<11} {'range':<24} {'notes'}")
