@@ -74,7 +74,7 @@ def _doc_sections() -> dict[str, dict[str, str]]:
             current = out.setdefault(line[4:].strip(), {})
         elif current is not None and line.startswith("| `"):
             cells = [c.strip() for c in line.strip("|").split("|")]
-            for key in re.findall(r"`([a-z_]+)`", cells[0]):
+            for key in re.findall(r"`([a-z_][a-z0-9_]*)`", cells[0]):
                 current[key] = cells[3]
     return out
 

@@ -93,14 +93,15 @@ def _ngspice() -> str:
     return ngspice
 
 
-def _run_deck(ngspice: str, deck: str, probes: str, folder) -> np.ndarray:
-    """Run ``deck`` in ngspice batch mode, writing the complex ``probes`` at every frequency; the data columns."""
-    control = (f".control\nset wr_vecnames\nset wr_singlescale\noption numdgt=16\nrun\nwrdata out.txt {probes}\n"
-               "quit\n.endc\n")
-    (folder / "x.cir").write_text(deck.replace(".end\n", control + ".end\n"))
-    run = subprocess.run([ngspice, "-b", "x.cir"], cwd=folder, capture_output=True, text=True, timeout=120)
+def _run_deck(ngspice: str, deck: str, folder, name: str = "x") -> np.ndarray:
+    """Run ``deck`` as exported (its own control block) in ngspice batch mode; the columns of the data file it
+    writes: frequency, then re, im of each driver voltage and of the input current."""
+    (folder / f"{name}.cir").write_text(deck)
+    run = subprocess.run([ngspice, "-b", f"{name}.cir"], cwd=folder, capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stdout + run.stderr
-    return np.loadtxt(folder / "out.txt", skiprows=1)
+    assert "db(" in run.stdout and "Error" not in run.stdout + run.stderr  # it printed its results too
+    data_file = re.search(r"^wrdata (\S+)", deck, re.M)[1]
+    return np.loadtxt(folder / data_file, skiprows=1)
 
 
 def test_exported_netlist_runs_in_ngspice(write_job, tmp_path):
@@ -158,23 +159,83 @@ nodes = ["0", "t1"]
     s = load_system(load_job(write_job(text)))
     deck = netlist(s, s.values(), "test")
     assert "PLACEHOLDER" not in deck and ".subckt DRV_w" in deck
-    data = _run_deck(ngspice, deck, "(v(w1)) (0-v(t1))", tmp_path)
+    data = _run_deck(ngspice, deck, tmp_path)
     f = data[:, 0]
     np.testing.assert_allclose(f, s.frequencies, rtol=1e-9)
     spice = data[:, 1::2] + 1j * data[:, 2::2]
-    mine = s.network.solve(s.values()).voltages[0]
+    sol = s.network.solve(s.values())
+    mine = sol.voltages[0]
     np.testing.assert_allclose(mine[0], spice[:, 0], rtol=1e-6)
     np.testing.assert_allclose(mine[1], spice[:, 1], rtol=1e-6)
+    # the input current: the source's voltage over the input impedance and its own resistance
+    np.testing.assert_allclose(2.83 / (sol.impedance[0] + 0.05), spice[:, 2], rtol=1e-6)
 
 
-def test_measured_drivers_export_as_placeholders(tmp_path, cli):
+def test_measured_drivers_export_as_fitted_circuits_that_ngspice_agrees_with(tmp_path, cli):
+    """The demo's drivers are measured: the deck models each by the lossy-coil circuit fitted to its impedance,
+    states the fit error, and run through ngspice (its own control block) gives xo_fit's driver voltages within
+    that error (rms over the grid), and the input current within the largest error stated."""
+    ngspice = _ngspice()
     code, _, err = cli("demo", "--out", tmp_path / "d")
     assert code == 0, err
     code, out, err = cli("export", tmp_path / "d" / "snap", "--spice", tmp_path / "x.cir")
     assert code == 0, err
     deck = (tmp_path / "x.cir").read_text()
-    assert deck.count("PLACEHOLDER") == 2 and "placeholder subcircuits" in out
+    assert "PLACEHOLDER" not in deck and "ngspice -b x.cir" in out and "x.data" in out
     assert re.search(r"^LLN ", deck, re.M) and re.search(r"^RL1_dcr ", deck, re.M)
+    stated = [(float(a), float(b)) for a, b in re.findall(r"^\* fit error ([\d.]+) % rms of \|Z\|, at most ([\d.]+) %",
+                                                         deck, re.M)]
+    assert len(stated) == 2 and "fit error" in out
+    data = _run_deck(ngspice, deck, tmp_path, "x")
+    from xo_fit.design import load_result
+
+    d = load_result(tmp_path / "d" / "snap")
+    s = d.system
+    sol = s.network.solve(d.array)
+    np.testing.assert_allclose(data[:, 0], s.frequencies, rtol=1e-9)
+    spice = data[:, 1::2] + 1j * data[:, 2::2]
+    for k, (rms, _) in enumerate(stated):
+        mine = sol.voltages[0, k]
+        e = np.abs(spice[:, k] - mine) / np.abs(mine)
+        assert 100 * np.sqrt(np.mean(e ** 2)) <= rms, k
+    current = s.job.source_voltage / (sol.impedance[0] + s.job.source_resistance)
+    assert 100 * np.max(np.abs(spice[:, 2] - current) / np.abs(current)) <= max(m for _, m in stated)
+
+
+def test_a_measured_driver_without_a_model_stays_a_marked_placeholder(write_job, tmp_path, cli):
+    """An impedance file with no resonance on the grid (a flat 7 ohm): no model fits, so the deck keeps a marked
+    resistor and says why; the deck still runs."""
+    flat = "".join(f"{f:g} 7.0 0\n" for f in np.geomspace(10, 40000, 60))
+    job = write_job("""
+[grid]
+f_min = 20
+f_max = 20000
+points = 41
+[driver.t]
+response = 90
+impedance = "z.txt"
+[[part]]
+name = "C1"
+type = "C"
+nodes = ["in", "t1"]
+value = "10uF"
+[[part]]
+name = "T"
+type = "driver"
+driver = "t"
+nodes = ["t1", "0"]
+""", {"z.txt": flat})
+    code, _, err = cli("simulate", job, "--out", tmp_path / "sim", "--no-plots")
+    assert code == 0, err
+    code, out, err = cli("export", tmp_path / "sim", "--spice", tmp_path / "p.cir")
+    assert code == 0, err
+    deck = (tmp_path / "p.cir").read_text()
+    assert deck.count("PLACEHOLDER") == 1 and "no resonance peak" in deck and "PLACEHOLDER" in out
+    assert float(re.search(r"^RD pos neg (\S+)$", deck, re.M)[1]) == pytest.approx(7.0)
+    data = _run_deck(_ngspice(), deck, tmp_path, "p")
+    w = 2 * np.pi * data[:, 0]
+    # a first-order high-pass into 7 ohm: V = Vs * R / (R + 1/(j w C))  (circuit theory)
+    np.testing.assert_allclose(data[:, 1] + 1j * data[:, 2], 2.83 * 7 / (7 + 1 / (1j * w * 10e-6)), rtol=1e-6)
 
 
 def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
@@ -258,7 +319,9 @@ def test_hostile_text_cannot_reach_the_deck_as_statements(write_job, tmp_path, c
     assert code == 0, err
     deck = (tmp_path / "deck.cir").read_text()
     statements = [x for x in deck.splitlines() if x.strip() and not x.startswith("*")]
-    assert not any(x.lower().startswith((".control", "shell", ".endc", "rx ")) for x in statements), statements
+    assert not any(x.lower().startswith(("shell", "rx ")) for x in statements), statements
+    # one control block, the deck's own (run, write, print, quit), and nothing of the hostile text in it
+    assert [x.lower() for x in statements].count(".control") == 1 and "touch" not in " ".join(statements)
     assert "shell touch PWNED" in deck.splitlines()[0]  # kept, as a comment
     ngspice = _ngspice()
     subprocess.run([ngspice, "-b", str(tmp_path / "deck.cir")], cwd=tmp_path, capture_output=True, timeout=60)
@@ -306,7 +369,8 @@ nodes = ["W1", "0"]
     elements = [x.split()[0].lower() for x in deck.splitlines() if x and x[0] in "RLCX"]
     assert len(elements) == len(set(elements)) == 5  # L1, l1, C1, the driver and RD inside its subcircuit
     ngspice = _ngspice()
-    data = _run_deck(ngspice, deck, f"(v({node['W1']}))", tmp_path)
+    assert re.search(rf"^wrdata \S+ v\({node['W1']}\) i\(vin\)$", deck, re.M)
+    data = _run_deck(ngspice, deck, tmp_path)
     mine = s.network.solve(s.values()).voltages[0, 0]
     np.testing.assert_allclose(mine, data[:, 1] + 1j * data[:, 2], rtol=1e-6)
 

@@ -644,10 +644,52 @@ def export(result: Path = typer.Argument(..., help="A result.json (or its folder
     d = load_result(result)
     d = getattr(d, "design", d)
     system = d.system
-    path = write_spice(system, d.array, spice, f"{system.job.name} ({d.stage})")
-    measured = [x.name for x in system.job.drivers if x.impedance.__class__.__name__ == "FileCurve"]
-    say(f"wrote {path}" + (f"; measured drivers {', '.join(measured)} are placeholder subcircuits: replace them with "
-                           "models of your own" if measured else ""))
+    deck = write_spice(system, d.array, spice, f"{system.job.name} ({d.stage})")
+    say(f"wrote {spice}; `ngspice -b {spice.name}` runs it, prints the driver voltages and input impedance and "
+        f"writes {deck.data_file}")
+    for note in deck.notes:
+        say(f"  {note}")
+
+
+@app.command()
+def driver(impedance: Path = typer.Argument(..., help="A measured impedance file (Hz, ohm, optional phase in deg)."),
+           model: str = typer.Option("ts", "--model", help="ts (Small's model) or ts-lossy (with L2 || R2)."),
+           name: Optional[str] = typer.Option(None, "--name", help="The driver's name in the TOML printed "
+                                                                  "(default: from the file name).")) -> None:
+    """Fit an equivalent circuit to a measured impedance; print its parameters, the fit error and the TOML to paste."""
+    import re
+
+    from .impedance_fit import MODELS, fit_impedance
+    from .io.measure import read_curve
+    from .units import format_value
+
+    if model not in MODELS:
+        raise XoFitError(f"expected one of {', '.join(MODELS)}, got {model!r}", key="--model")
+    curve = read_curve(impedance, "impedance")
+    fit = fit_impedance(curve, model)
+    for w in fit.warnings:
+        warn(w)
+    p = fit.params
+    lo, hi = fit.f_range
+    say(f"{impedance}: {curve.frequency.size} points, {format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, "
+        + ("with phase: the complex impedance fitted" if fit.used_phase else "no phase: |Z| alone fitted"))
+    say(f"model {model}: " + ("Small's model (Re, Le, fs, Qms, Qes)" if model == "ts"
+                              else "Small's model with a lossy voice coil (Le, then L2 with R2 across it)"))
+    rows = [("Re", format_value(p.re, "ohm", 4)), ("Le", format_value(p.le, "H", 4)),
+            ("fs", format_value(p.fs, "Hz", 4)), ("Qms", f"{p.qms:.4g}"), ("Qes", f"{p.qes:.4g}"),
+            ("Qts", f"{fit.qts:.4g}")]
+    if model == "ts-lossy":
+        rows += [("L2", format_value(p.l2, "H", 4)), ("R2", format_value(p.r2, "ohm", 4))]
+    for k, v in rows:
+        say(f"  {k:<4} {v}")
+    say(f"fit error: {fit.rms_error_pct:.2f} % rms of |Z| over {fit.points} points (log-spaced), at most "
+        f"{fit.max_error_pct:.2f} % at {format_value(fit.max_error_hz, 'Hz')}")
+    label = name if name is not None else re.sub(r"[^A-Za-z0-9_-]", "_", impedance.stem) or "NAME"
+    if not re.fullmatch(r"[A-Za-z0-9_-]{1,64}", label):
+        raise XoFitError(f"a driver name is 1-64 letters, digits, '_' or '-', got {label[:40]!r}", key="--name")
+    say("")
+    say("# the impedance to paste into a job (replacing the driver's impedance = ...):")
+    say(fit.toml(label).rstrip("\n"))
 
 
 # ----------------------------------------------------------------------------- demo
@@ -662,6 +704,10 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
 
     job = write_scenario(out / "scenario")
     say(f"wrote the demo scenario: {job} and its measurement files in {job.parent / 'data'}")
+    say("the tweeter's response is gated from 300 Hz and extended below by a fitted 2nd-order high-pass (check):")
+    check(job=job)
+    say("an equivalent circuit fitted to the woofer's measured impedance (xo-fit driver FILE --model ts-lossy):")
+    driver(impedance=job.parent / "data" / "woofer-impedance.txt", model="ts-lossy", name="woofer")
     say("hand design (textbook starting values):")
     simulate(job=job, out=out / "hand-design", from_=None, no_plots=False)
     say("fit:")
@@ -680,6 +726,8 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
          no_plots=False)
     say("tolerance spread of the snapped design:")
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
+    say("SPICE deck of the snapped design (measured drivers as circuits fitted to their impedance):")
+    export(result=out / "snap", spice=out / "snap" / "deck.cir")
     from .api import write_report
 
     page = write_report([out / "fit", out / "snap", out / "spread"], out / "report", ["xo-fit", *sys.argv[1:]])

@@ -139,11 +139,17 @@ class Design:
         f = self.system.frequencies
         band = self.job.target.band or (float(f[0]), float(f[-1]))
         for d in self.system.drivers:
-            for what, curve, phase in (("response", d.response_curve, d.response_phase),
-                                       ("impedance", d.impedance_curve, d.impedance_phase)):
+            spec = self.job.driver(d.name)
+            for what, curve, phase, ext in (
+                    ("response", d.response_curve, d.response_phase, (spec.extend_low, spec.extend_high)),
+                    ("impedance", d.impedance_curve, d.impedance_phase,
+                     (spec.impedance_extend_low, spec.impedance_extend_high))):
                 if curve is None or phase != "minimum":
                     continue
                 lo, hi = curve.f_range
+                # an extended end reaches the grid's: the phase is derived from the extended magnitude there
+                lo = min(lo, float(f[0])) if ext[0] != "none" else lo
+                hi = max(hi, float(f[-1])) if ext[1] != "none" else hi
                 ends = [f"{lo:.0f} Hz" for _ in [0] if band[0] < 2 * lo] + [f"{hi:.0f} Hz" for _ in [0] if band[1] > hi / 2]
                 if ends:
                     out.append({"kind": "phase_edge", "part": None,

@@ -38,7 +38,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
                "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
                "impedance_extend_low": "none", "impedance_extend_high": "none"},
-    "thiele_small": {"le": 0.0, "le_exponent": 1.0},
+    "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
     "target": {"level": "auto", "curve": "flat"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
@@ -110,6 +110,9 @@ class ThieleSmall:
     the voice-coil inductance is Z_Le = le * (j w)^n * w_ref^(1-n) with
     w_ref = 2 pi 1 kHz (W. M. Leach, JAES 50(6), 2002): n = 1 is an ideal
     inductor, n < 1 a lossy one whose |Z_Le| at 1 kHz is still w_ref * le.
+    A second lossy-coil form adds an inductance ``l2`` (H) with ``r2`` (ohm)
+    across it in series (Z_L2 = j w L2 R2 / (R2 + j w L2); W. M. Leach, JAES
+    2002; J. R. Wright, JAES 38(10), 1990); both zero leave it out.
     """
 
     re: float
@@ -118,6 +121,8 @@ class ThieleSmall:
     qms: float
     qes: float
     le_exponent: float = 1.0
+    l2: float = 0.0
+    r2: float = 0.0
 
     def impedance(self, f: np.ndarray) -> np.ndarray:
         """Complex impedance in ohm at frequencies ``f`` (Hz), shape of ``f``."""
@@ -127,7 +132,10 @@ class ThieleSmall:
         w_ref = 2 * np.pi * 1000.0
         z_le = self.le * s**self.le_exponent * w_ref ** (1.0 - self.le_exponent)
         res = self.re * self.qms / self.qes
-        return self.re + z_le + res / (1 + self.qms * (s / ws + ws / s))
+        z = self.re + z_le + res / (1 + self.qms * (s / ws + ws / s))
+        if self.l2 > 0 and self.r2 > 0:
+            z = z + s * self.l2 * self.r2 / (self.r2 + s * self.l2)
+        return z
 
 
 @dataclass(frozen=True)
@@ -484,7 +492,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "acoustics": "speed_of_sound",
     "driver": "response impedance reference_voltage offset phase impedance_phase extend_low extend_high "
               "impedance_extend_low impedance_extend_high",
-    "thiele_small": "re le fs qms qes le_exponent",
+    "thiele_small": "re le fs qms qes le_exponent l2 r2",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way",
     "way": "type alignment order fc fc_low fc_high polarity",
@@ -784,7 +792,12 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
             qms=t.number("qms", None, minimum=1e-3) or _missing(t, "qms"),
             qes=t.number("qes", None, minimum=1e-3) or _missing(t, "qes"),
             le_exponent=t.number("le_exponent", DEFAULTS["thiele_small"]["le_exponent"], minimum=0.0, maximum=1.0),
+            l2=t.value("l2", "H", DEFAULTS["thiele_small"]["l2"], allow_zero=True),
+            r2=t.value("r2", "ohm", DEFAULTS["thiele_small"]["r2"], allow_zero=True),
         )
+        if (impedance.l2 > 0) != (impedance.r2 > 0):
+            raise t.error("l2" if impedance.r2 > 0 else "r2",
+                          "the lossy-coil branch needs both l2 (H) and r2 (ohm) above zero, or neither")
         t.done()
     elif isinstance(imp, str) and _looks_numeric(imp):
         impedance = Resistive(r.value("impedance", "ohm"))
