@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 
 from xo_fit.cost import TERMS
+from xo_fit.solver.fused import LEVEL
 from xo_fit.demo import write_scenario
 from xo_fit.fitting import cost_model
 from xo_fit.solver.fused import FusedCost
@@ -25,14 +26,29 @@ def check(system, n=48, seed=0):
     ev = cm.evaluate(values)
     np.testing.assert_allclose(raw[:, 0], ev.cost, rtol=1e-9)
     for i, t in enumerate(TERMS, start=1):
-        np.testing.assert_allclose(raw[:, i], ev.terms[t], rtol=1e-9, atol=1e-12)
-    np.testing.assert_allclose(raw[:, 6], ev.level_db, rtol=1e-12)
+        np.testing.assert_allclose(raw[:, i], ev.terms.get(t, 0.0), rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(raw[:, LEVEL], ev.level_db, rtol=1e-12)
     return raw, ev
 
 
 def test_fused_cost_on_the_demo(tmp_path):
+    """The demo is an off-axis job fitted to its listening window."""
     raw, ev = check(load_system(load_job(write_scenario(tmp_path))))
     assert np.all(raw[:, 4] >= 0) and np.any(raw[:, 4] > 0)  # some random designs dip below the 3.2 ohm floor
+
+
+@pytest.mark.parametrize("reference, er, sp", [("on_axis", 0.5, 0.0), ("listening_window", 0.0, 2.0),
+                                               ("listening_window", 1.0, 1.0)])
+def test_fused_cost_off_axis(tmp_path, reference, er, sp):
+    """The off-axis terms (early reflections' and sound power's roughness, the listening window as the
+    reference) in the kernel are the reference's numbers."""
+    job = write_scenario(tmp_path)
+    text = job.read_text().replace('reference = "listening_window"', f'reference = "{reference}"')
+    job.write_text(text.replace("[cost]\n", f"[cost]\nearly_reflections = {er}\nsound_power = {sp}\n"))
+    raw, ev = check(load_system(load_job(job)))
+    for i, (t, w) in enumerate((("early_reflections", er), ("sound_power", sp)), start=6):
+        assert TERMS[i - 1] == t
+        assert (np.all(raw[:, i] > 0) if w else np.all(raw[:, i] == 0))
 
 
 @pytest.mark.parametrize("name", ["LR2", "BW3"])
@@ -40,7 +56,7 @@ def test_fused_cost_with_a_fixed_level_and_a_floor(write_job, name):
     text, _ = ladder_job(name, start=1.0, spread=3.0, impedance_min=7.5)
     text = text.replace("band = [100, 15000]", "band = [100, 15000]\nlevel = 88.5")
     raw, _ = check(load_system(load_job(write_job(text))))
-    assert np.all(raw[:, 6] == 88.5)
+    assert np.all(raw[:, LEVEL] == 88.5)
 
 
 def test_resonant_trap_and_flagged_candidates(write_job, monkeypatch):

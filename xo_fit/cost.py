@@ -33,6 +33,14 @@ the weights of ``[cost]``):
     shortfall of |Z| below ``impedance_min`` in dB, 20 log10(Zmin / |Z|):
     the mean of its square plus the square of the worst point, so that even a
     narrow dip costs.
+``early_reflections`` / ``sound_power`` (off-axis jobs)
+    the roughness of those ANSI/CTA-2034-A curves: the mean square deviation
+    (dB^2) over the band of the curve's level from its own least-squares
+    straight line on log frequency (the slope is the designer's choice; the
+    smoothness is scored; every octave weighs alike on the log grid).
+
+With ``[target] reference = "listening_window"`` the ``sum`` term (and the
+automatic level) uses the listening window's level instead of the on-axis sum.
 
 Metrics (result.json), in a designer's words:
 
@@ -56,7 +64,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .acoustics import spl_db
+from .acoustics import angle_pressures, curve_weights, directivity, power_db, spl_db
 from .constants import SPL_FLOOR_DB, Z_SHORT_OHM
 from .grid import band_mask
 
@@ -73,7 +81,9 @@ XO_REGION_DB = 6.0
 NULL_DB = -60.0
 #: Degrees of phase mismatch that cost like one dB of level error.
 PHASE_DEG_PER_DB = 10.0
-TERMS = ("way", "sum", "phase", "impedance", "stress")
+TERMS = ("way", "sum", "phase", "impedance", "stress", "early_reflections", "sound_power")
+#: The terms that need off-axis responses; left out of an on-axis job's terms.
+OFF_AXIS_TERMS = ("early_reflections", "sound_power")
 
 
 def impedance_minimum(frequencies: np.ndarray, impedance: np.ndarray,
@@ -113,7 +123,20 @@ class CostModel:
         self.targets = targets
         spec = system.job.cost
         self.weights = {"way": spec.way, "sum": spec.sum, "phase": spec.phase, "impedance": spec.impedance,
-                        "stress": spec.stress}
+                        "stress": spec.stress, "early_reflections": spec.early_reflections,
+                        "sound_power": spec.sound_power}
+        self.off_axis = bool(system.positions)
+        self.reference = system.job.target.reference
+        self.curve_weights = curve_weights(system.positions) if self.off_axis else {}
+        # the positions the cost reads (those of the curves it weighs), and their weights (A', 3)
+        self.needed = [n for n, used in (("listening_window", self.reference == "listening_window"),
+                                         ("early_reflections", spec.early_reflections > 0),
+                                         ("sound_power", spec.sound_power > 0)) if used and self.off_axis]
+        if self.needed:
+            w = np.stack([self.curve_weights[n] for n in self.needed], axis=1)
+            self.active = np.nonzero(np.any(w > 0, axis=1))[0]
+            self.active_weights = w[self.active]
+            self.active_factors = system.angle_factors[self.active]
         self.rated = rated_parts(system) if spec.stress > 0 else []
         drive = system.job.stress
         self.drive_scale = (math.sqrt(drive.power * drive.rated_impedance) / system.network.source_voltage
@@ -149,7 +172,8 @@ class CostModel:
         """The cost of simulated designs; ``values`` (B, P) are needed for the stress term (its part currents)."""
         band = self.band
         p_db = spl_db(sim.pressure[..., band])  # (B, D, Fb)
-        s_db = spl_db(sim.total[..., band])  # (B, Fb)
+        curves = self.curves(sim)
+        s_db = self.reference_db(sim, curves)  # (B, Fb)
         target = self.t_sys_db
         level = (np.mean((s_db - target)[..., self.keep], axis=-1) if self.targets.level_db is None
                  else np.full(s_db.shape[0], self.targets.level_db))
@@ -160,11 +184,37 @@ class CostModel:
             "impedance": self._impedance(sim.impedance[..., band]),
             "stress": self._stress(values, sim.impedance.shape[0]),
         }
-        cost = sum(self.weights[k] * terms[k] for k in TERMS)
+        if self.off_axis:
+            for k in OFF_AXIS_TERMS:
+                terms[k] = (roughness(power_db(curves[k][..., band]), np.log2(self.system.frequencies[band]))
+                            if self.weights[k] > 0 else np.zeros(s_db.shape[0]))
+        cost = sum(self.weights[k] * terms[k] for k in terms)
         finite = (np.all(np.isfinite(sim.impedance[..., band]), axis=-1)
                   & np.all(np.isfinite(sim.pressure[..., band]), axis=(-2, -1)))
         cost = np.where(np.isfinite(cost) & finite, cost, np.inf)  # a singular point (a short): infeasible
         return Evaluation(cost=cost, terms=terms, level_db=level)
+
+    def curves(self, sim) -> dict[str, np.ndarray]:
+        """The ANSI/CTA-2034-A curves the cost weighs (Pa^2, (B, F) each; from the positions they need only) of
+        a Simulation; {} when it weighs none."""
+        if not self.needed:
+            return {}
+        p2 = np.abs(angle_pressures(sim.voltages, self.active_factors)) ** 2  # (B, A', F)
+        return {n: np.einsum("baf,a->bf", p2, self.active_weights[:, i]) for i, n in enumerate(self.needed)}
+
+    def all_curves(self, sim) -> dict[str, np.ndarray]:
+        """Every ANSI/CTA-2034-A curve the job's positions allow (Pa^2, (B, F)); {} on axis."""
+        if not self.off_axis:
+            return {}
+        return directivity(np.abs(angle_pressures(sim.voltages, self.system.angle_factors)) ** 2,
+                           self.curve_weights)
+
+    def reference_db(self, sim, curves: dict | None = None) -> np.ndarray:
+        """The level (dB SPL, (B, Fb)) the system target applies to: the on-axis sum, or the listening window."""
+        if self.reference == "listening_window":
+            curves = self.curves(sim) if curves is None else curves
+            return power_db(curves["listening_window"][..., self.band])
+        return spl_db(sim.total[..., self.band])
 
     def sum_error(self, s_db: np.ndarray, level: np.ndarray) -> np.ndarray:
         """The summed level's error against the system target, dB (B, Fb): at the target's nulls only output
@@ -238,7 +288,7 @@ class CostModel:
             ways.append({"way": names[k], "from_hz": float(f[passband][0]), "to_hz": float(f[passband][-1]),
                          "rms_db": float(np.sqrt(np.mean(err**2))), "worst_db": float(err[i]),
                          "worst_hz": float(f[passband][i])})
-        sum_err = self.sum_error(spl_db(sim.total[:1, self.band]), level)[0]
+        sum_err = self.sum_error(self.reference_db(sim)[:1], level)[0]
         regions = []
         for (a, b, region, _), ph in zip(self.pairs, self._phase_errors(sim.pressure[:1, :, self.band])):
             e = sum_err[region]
@@ -259,7 +309,8 @@ class CostModel:
         sim = self.system.simulate(values, dense=True)
         ev = self.evaluate_simulation(sim, values)
         band = self.band
-        err = self.sum_error(spl_db(sim.total[:1, band]), ev.level_db[:1])[0]
+        curves = self.all_curves(sim)
+        err = self.sum_error(self.reference_db(sim, curves)[:1], ev.level_db[:1])[0]
         phase = self._phase_errors(sim.pressure[:1, :, band])
         zmin, fmin = impedance_minimum(self.system.frequencies, sim.impedance[0], self.system.job.target.band)
         m = {
@@ -270,7 +321,24 @@ class CostModel:
             "impedance_min_hz": float(fmin),
             "level_db": float(ev.level_db[0]),
         }
+        if "listening_window" in curves:
+            lw = self.sum_error(power_db(curves["listening_window"][:1, band]), ev.level_db[:1])[0]
+            m["listening_window_rms_db"] = float(np.sqrt(np.mean(lw**2)))
+        if "sound_power" in curves and "listening_window" in curves:
+            di = power_db(curves["listening_window"][0, band]) - power_db(curves["sound_power"][0, band])
+            m["sound_power_di_min_db"] = float(np.min(di))
+            m["sound_power_di_max_db"] = float(np.max(di))
+            m["sound_power_di_range_db"] = float(np.max(di) - np.min(di))
         return m, ev
+
+
+def roughness(y_db: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Mean square deviation (dB^2, (B,)) of curves ``y_db`` (B, Fb) from their own least-squares straight
+    lines on ``x`` (Fb,), e.g. log2 of frequency."""
+    xc = x - x.mean()
+    yc = y_db - y_db.mean(axis=-1, keepdims=True)
+    slope = (yc @ xc) / (xc @ xc)
+    return np.mean((yc - slope[..., None] * xc) ** 2, axis=-1)
 
 
 def rated_parts(system) -> list[tuple[int, int, str, float]]:

@@ -15,7 +15,15 @@ way a designer's own in-cabinet measurements would look:
 * tweeter: its own 2nd-order roll-off at resonance, a dome peak, and a top-end
   roll-off; the woofer's acoustic centre sits 18 mm behind the tweeter's; its
   response file is gated and starts at 300 Hz (the job extends it below);
-* a little measurement ripple (+-0.25 dB) on both responses.
+* a little measurement ripple (+-0.25 dB) on both responses;
+* off-axis responses on both orbits in 10 degree steps: each driver a rigid
+  circular piston, directivity 2 J1(ka sin t) / (ka sin t) in front (Kinsler,
+  Frey, Coppens and Sanders, *Fundamentals of Acoustics*; L. Beranek,
+  *Acoustics*), its 90 degree value behind, fading with frequency as the
+  cabinet's shadow deepens (an invented first-order fall above the baffle
+  step); placed on the baffle (the tweeter's centre is the reference point,
+  the woofer's 150 mm below it and 18 mm deeper), so the path differences of
+  the two drivers to each position give the vertical lobing.
 
 All phases are minimum phase of the model (time of flight removed, as after
 gating); the offset between the drivers is in the job. Everything is
@@ -33,6 +41,18 @@ from .io.results import write_text
 
 #: Baffle width of the demo cabinet, m.
 BAFFLE_WIDTH = 0.19
+
+#: Radiating radii of the demo drivers (m): a 6.5-inch class cone and a 1-inch class dome.
+WOOFER_RADIUS = 0.066
+TWEETER_RADIUS = 0.013
+#: The woofer's centre relative to the tweeter's (the reference point): height (m, up positive), depth (m).
+WOOFER_HEIGHT = -0.15
+WOOFER_DEPTH = 0.018
+#: Speed of sound of the scenario (m/s), as in the job's [acoustics] default.
+SPEED_OF_SOUND = 343.0
+#: The angles of the demo's off-axis files (deg): horizontal 10..180 (mirrored), vertical -170..170.
+H_ANGLES = tuple(range(10, 181, 10))
+V_ANGLES = tuple(a for a in range(-170, 171, 10) if a != 0)
 
 #: The tweeter's gated measurement starts here (Hz): a 3.3 ms reflection-free window.
 TWEETER_GATE_HZ = 300.0
@@ -92,6 +112,37 @@ def tweeter_response(f: np.ndarray) -> np.ndarray:
     return level * h * _ripple(f, 0.25, 1.3, 1.1)
 
 
+def piston_directivity(ka: np.ndarray, angle_deg: float, f: np.ndarray) -> np.ndarray:
+    """Pressure relative to the axis of a driver at ``angle_deg`` from it (F,): 2 J1(x)/x with x = ka sin t in
+    front (a rigid piston in a baffle; Kinsler et al.); behind the baffle plane its 90 degree value, times
+    a shadow that deepens above the baffle step by up to a first-order fall (invented for the demo)."""
+    from scipy.special import j1
+
+    t = np.radians(min(abs(angle_deg), 90.0))
+    x = ka * np.sin(t)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d = np.where(x < 1e-6, 1.0, 2 * j1(x) / np.where(x < 1e-6, 1.0, x))
+    if abs(angle_deg) > 90:
+        f_step = 115.0 / BAFFLE_WIDTH
+        shadow = 1.0 / np.sqrt(1.0 + (f / f_step) ** 2)
+        d = d * shadow ** ((abs(angle_deg) - 90.0) / 90.0)
+    return d
+
+
+def off_axis(f: np.ndarray, axis: np.ndarray, radius: float, height: float, depth: float, orbit: str,
+             angle: float) -> np.ndarray:
+    """A driver's response at ``angle`` on ``orbit`` ("h" or "v"), complex Pa (F,), from its on-axis response:
+    the piston directivity and the far-field path difference to that direction, relative to the axis (the
+    job's offset gives the axis its own delay): depth (cos t - 1) - height sin t on the vertical orbit,
+    depth (cos t - 1) on the horizontal one (both drivers on the baffle's centre line)."""
+    k = 2 * np.pi * f / SPEED_OF_SOUND
+    t = np.radians(angle)
+    extra = depth * (np.cos(t) - 1.0) - (height * np.sin(t) if orbit == "v" else 0.0)
+    # |2 J1(x)/x|: past the first null the lobes' sign is dropped (they lie 17 dB down and more), so the files'
+    # phase stays smooth enough to interpolate, as a real cone's imperfect nulls keep it
+    return axis * np.abs(piston_directivity(k * radius, angle, f)) * np.exp(-1j * k * extra)
+
+
 def _curve_text(f: np.ndarray, z: np.ndarray, kind: str, title: str) -> str:
     lines = [f"* {title}", f"* invented demo data synthesised by xo_fit.demo; frequency Hz, "
              f"{'SPL dB' if kind == 'response' else 'impedance ohm'}, phase deg"]
@@ -128,6 +179,15 @@ impedance = "data/woofer-impedance.txt"
 reference_voltage = 2.83
 offset = "18mm"
 
+# off axis: both orbits in 10 degree steps; the horizontal one is symmetric
+[driver.woofer.angles]
+horizontal = "data/polar/woofer-h{angle}.txt"
+vertical = "data/polar/woofer-v{angle}.txt"
+horizontal_angles = [10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170, 180]
+vertical_angles = [-170, -160, -150, -140, -130, -120, -110, -100, -90, -80, -70, -60, -50, -40, -30, -20, -10,
+                   10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170]
+mirror = true
+
 # gated from 300 Hz: the data below are a 2nd-order high-pass fitted to its
 # lowest octave, and the phase is derived from the extended magnitude
 [driver.tweeter]
@@ -136,6 +196,14 @@ impedance = "data/tweeter-impedance.txt"
 reference_voltage = 2.83
 extend_low = "order2"
 phase = "minimum"
+
+[driver.tweeter.angles]
+horizontal = "data/polar/tweeter-h{angle}.txt"
+vertical = "data/polar/tweeter-v{angle}.txt"
+horizontal_angles = [10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170, 180]
+vertical_angles = [-170, -160, -150, -140, -130, -120, -110, -100, -90, -80, -70, -60, -50, -40, -30, -20, -10,
+                   10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170]
+mirror = true
 
 # woofer low-pass: L1, C1, L2 (Butterworth 3 at 2.2 kHz into 6 ohm)
 [[part]]
@@ -262,10 +330,12 @@ type = "driver"
 driver = "tweeter"
 nodes = ["t3", "0"]
 
+# the system target applies to the listening window (ANSI/CTA-2034-A), not to one axis
 [target]
 band = [150, 16000]
 level = "auto"
 curve = "flat"
+reference = "listening_window"
 
 [target.way.woofer]
 type = "lowpass"
@@ -303,6 +373,18 @@ def write_scenario(folder: str | Path) -> Path:
                                                            "Wren tweeter, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
     write_text(data / "tweeter-impedance.txt", _curve_text(f, TWEETER.impedance(f), "impedance",
                                                             "Wren tweeter, in cabinet"))
+    fa = f  # 1/48 octave: the path differences turn the phase fast at the top
+    for name, resp, radius, height, depth, lo in (
+            ("woofer", woofer_response, WOOFER_RADIUS, WOOFER_HEIGHT, WOOFER_DEPTH, 0.0),
+            ("tweeter", tweeter_response, TWEETER_RADIUS, 0.0, 0.0, TWEETER_GATE_HZ)):
+        fd = fa[fa >= lo]
+        axis = resp(fd)
+        for orbit, angles in (("h", H_ANGLES), ("v", V_ANGLES)):
+            for a in angles:
+                write_text(data / "polar" / f"{name}-{orbit}{a}.txt",
+                           _curve_text(fd, off_axis(fd, axis, radius, height, depth, orbit, a), "response",
+                                       f"Wren {name}, {'horizontal' if orbit == 'h' else 'vertical'} {a} deg, "
+                                       "2.83 V, 1 m, gated; same timing reference as on axis"))
     job = folder / "job.toml"
     write_text(job, JOB_TEXT)
     return job

@@ -43,6 +43,7 @@ class DriverData:
     impedance_phase: str
     response_curve: Curve | None = None
     impedance_curve: Curve | None = None
+    angle_responses: np.ndarray | None = None  # complex Pa at the reference voltage at System.positions, (A, F)
 
 
 @dataclass(frozen=True, eq=False)
@@ -50,13 +51,15 @@ class Simulation:
     """Acoustic and electrical result of a batch of designs.
 
     voltages: complex V, (B, D, F); impedance: complex ohm, (B, F);
-    pressure: complex Pa per driver, (B, D, F); total: complex Pa, (B, F).
+    pressure: complex Pa per driver, (B, D, F); total: complex Pa, (B, F);
+    angles: the summed complex Pa at every position of an off-axis job, (B, A, F), else None.
     """
 
     voltages: np.ndarray
     impedance: np.ndarray
     pressure: np.ndarray
     total: np.ndarray
+    angles: np.ndarray | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -67,6 +70,8 @@ class System:
     network: Network
     factors: np.ndarray  # Pa per V at each driver's terminals, offset delay included, (D, F)
     warnings: tuple[str, ...] = field(default=())
+    positions: tuple = ()  # an off-axis job's measuring positions, ("h"|"v", deg), the axis first; () otherwise
+    angle_factors: np.ndarray | None = None  # Pa per V of each driver at each position, (A, D, F)
 
     @property
     def part_names(self) -> tuple[str, ...]:
@@ -94,15 +99,84 @@ class System:
     def solve(self, values: np.ndarray) -> Solution:
         return self.network.solve(values)
 
-    def simulate(self, values: np.ndarray, *, dense: bool = False) -> Simulation:
+    def simulate(self, values: np.ndarray, *, dense: bool = False, angles: bool = False) -> Simulation:
         """Driver voltages, input impedance, per-driver and summed pressure for values (B, P) or (P,).
 
         dense: solve with the dense reference path instead of the compiled kernel (for one design that
         is reported, not searched: it needs no kernel loaded; the two agree to 1e-9).
+        angles: also the summed pressure at every position of an off-axis job (``Simulation.angles``).
         """
         sol = self.network.solve_reference(values) if dense else self.network.solve(values)
         p = acoustics.pressures(sol.voltages, self.factors)
-        return Simulation(voltages=sol.voltages, impedance=sol.impedance, pressure=p, total=acoustics.total(p))
+        angles = (acoustics.angle_pressures(sol.voltages, self.angle_factors)
+                  if angles and self.angle_factors is not None else None)
+        return Simulation(voltages=sol.voltages, impedance=sol.impedance, pressure=p, total=acoustics.total(p),
+                          angles=angles)
+
+    def directivity(self, values: np.ndarray) -> dict[str, np.ndarray]:
+        """The ANSI/CTA-2034-A curves of designs (B, P) or (P,) of an off-axis job, mean squared pressure in
+        Pa^2, (B, F) each (see :func:`xo_fit.acoustics.directivity`); {} without angles."""
+        if self.angle_factors is None:
+            return {}
+        sim = self.simulate(np.atleast_2d(values), dense=True, angles=True)
+        return acoustics.directivity(np.abs(sim.angles) ** 2, acoustics.curve_weights(self.positions))
+
+
+def _angle_data(spec, positions: tuple, response: np.ndarray, grid: np.ndarray, warnings: list[str]) -> np.ndarray:
+    """The driver's response at every position (the axis first: its ``response``), complex Pa (A, F). Each
+    file is read and put on the grid as ``response`` is (same extension, same phase); an error names the
+    driver and the position."""
+    from .errors import DataError
+
+    files = spec.angles.files()
+    out = np.empty((len(positions), grid.size), dtype=complex)
+    out[0] = response
+    done: dict = {}  # a mirrored position is its file's data again
+    for i, pos in enumerate(positions[1:], start=1):
+        path, source = files[pos]
+        if path in done:
+            out[i] = out[done[path]]
+            continue
+        where = f"[driver.{spec.name}.angles] {pos[0]}{pos[1]}"
+        try:
+            curve = read_curve(path, "response")
+            out[i], w = on_grid(extend_curve(curve, grid, "response", spec.extend_low, spec.extend_high), grid,
+                                "response", spec.phase)
+        except DataError as e:
+            raise DataError(e.message, path=e.path, line=e.line, key=where) from None
+        warnings += w
+        done[path] = i
+    out.setflags(write=False)
+    return out
+
+
+def _positions(job: Job) -> tuple:
+    """The measuring positions of an off-axis job, the axis first (then horizontal, vertical, by angle)."""
+    first = next((d for d in job.drivers if d.angles is not None), None)
+    if first is None:
+        return ()
+    rest = sorted(first.angles.files(), key=lambda p: (p[0] != "h", p[1]))
+    return (("h", 0), *rest)
+
+
+def _check_curves(job: Job, positions: tuple) -> None:
+    """A cost on an off-axis curve needs that curve's positions (and an off-axis job at all)."""
+    needs = [("listening_window", "[target] reference", job.target.reference == "listening_window"),
+             ("early_reflections", "[cost] early_reflections", job.cost.early_reflections > 0),
+             ("sound_power", "[cost] sound_power", job.cost.sound_power > 0)]
+    for curve, key, used in needs:
+        if not used:
+            continue
+        if not positions:
+            raise JobError(f"the {curve.replace('_', ' ')} needs off-axis responses: give every driver a "
+                           "[driver.NAME.angles] table", path=job.path, key=key)
+        missing = acoustics.missing_positions(positions, curve)
+        if missing:
+            names = ", ".join(f"{o}{a}" for o, a in missing[:8]) + (" ..." if len(missing) > 8 else "")
+            hint = ("; mirror = true in [driver.NAME.angles] lets h+a's file stand for h-a"
+                    if any(o == "h" and a < 0 for o, a in missing) else "")
+            raise JobError(f"the {curve.replace('_', ' ')} needs positions the drivers' angles lack: {names}{hint}",
+                           path=job.path, key=key)
 
 
 def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
@@ -175,7 +249,14 @@ def load_system(job: Job) -> System:
     check_netlist(job)
     grid = job.grid.frequencies
     warnings: list[str] = list(job.warnings)
+    positions = _positions(job)
+    _check_curves(job, positions)
     drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
+    if positions:
+        from dataclasses import replace
+
+        drivers = tuple(replace(d, angle_responses=_angle_data(spec, positions, d.response, grid, warnings))
+                        for d, spec in zip(drivers, job.drivers))
     zd = np.stack([d.impedance for d in drivers])
     network = compile_network(branches_for(job), [d.name for d in job.drivers], grid, zd,
                               job.source_voltage, job.source_resistance, context=str(job.path) if job.path else None)
@@ -185,8 +266,15 @@ def load_system(job: Job) -> System:
         np.array([d.offset for d in job.drivers]),
         grid, job.speed_of_sound)
     factors.setflags(write=False)
+    angle_factors = None
+    if positions:
+        per_volt = acoustics.driver_factors(  # 1 / V_ref and the offset delay, (D, F)
+            np.ones((len(drivers), grid.size)), np.array([d.reference_voltage for d in job.drivers]),
+            np.array([d.offset for d in job.drivers]), grid, job.speed_of_sound)
+        angle_factors = np.stack([d.angle_responses for d in drivers], axis=1) * per_volt[None]  # (A, D, F)
+        angle_factors.setflags(write=False)
     return System(job=job, frequencies=grid, drivers=drivers, network=network, factors=factors,
-                  warnings=tuple(warnings))
+                  warnings=tuple(warnings), positions=positions, angle_factors=angle_factors)
 
 
 def derive_system(system: System, job: Job) -> System:
@@ -199,4 +287,5 @@ def derive_system(system: System, job: Job) -> System:
                               system.network.driver_impedance, job.source_voltage, job.source_resistance,
                               context=str(job.path) if job.path else None)
     return System(job=job, frequencies=system.frequencies, drivers=system.drivers, network=network,
-                  factors=system.factors, warnings=())
+                  factors=system.factors, warnings=(), positions=system.positions,
+                  angle_factors=system.angle_factors)

@@ -39,10 +39,12 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
                "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
                "impedance_extend_low": "none", "impedance_extend_high": "none"},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
+    "angles": {"mirror": False},
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
-    "target": {"level": "auto", "curve": "flat"},
+    "target": {"level": "auto", "curve": "flat", "reference": "on_axis"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
-    "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0},
+    "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0,
+             "early_reflections": 0.0, "sound_power": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
@@ -139,6 +141,47 @@ class ThieleSmall:
 
 
 @dataclass(frozen=True)
+class AngleSpec:
+    """Where a driver's responses at other angles are: a file pattern per orbit with ``{angle}`` in it (the
+    angle in degrees as an integer), the angles of each orbit, and whether a horizontal angle -a that is not
+    listed uses +a's file (``mirror``). Angle 0 is the reference axis: the driver's ``response``."""
+
+    horizontal: str | None
+    vertical: str | None
+    horizontal_angles: tuple[int, ...]
+    vertical_angles: tuple[int, ...]
+    mirror: bool = False
+
+    def files(self) -> dict[tuple[str, int], tuple[Path, int]]:
+        """Each measured position ("h" or "v", angle) but the axis -> (file, the angle whose file it is). The
+        rear point is ("h", 180) whichever orbit gives it; a mirrored angle names +a's file."""
+        out: dict[tuple[str, int], tuple[Path, int]] = {}
+        for orbit, pattern, angles in (("h", self.horizontal, self.horizontal_angles),
+                                       ("v", self.vertical, self.vertical_angles)):
+            for a in angles:
+                pos = position(orbit, a)
+                if pos == ("h", 0) or pattern is None:
+                    continue
+                out.setdefault(pos, (Path(pattern.replace("{angle}", str(a))), a))
+        if self.mirror and self.horizontal is not None:
+            for a in self.horizontal_angles:
+                pos = position("h", -a)
+                if pos not in out and pos != ("h", 0):
+                    out[pos] = (Path(self.horizontal.replace("{angle}", str(a))), a)
+        return out
+
+
+def position(orbit: str, angle: int) -> tuple[str, int]:
+    """The canonical name of a measuring position: angles in (-180, 180]; the axis is ("h", 0) and the point
+    behind is ("h", 180), whichever orbit reaches them."""
+    a = ((int(angle) + 180) % 360) - 180
+    a = 180 if a == -180 else a
+    if a in (0, 180):
+        return ("h", a)
+    return (orbit, a)
+
+
+@dataclass(frozen=True)
 class DriverSpec:
     """One measured driver: where its response and impedance come from, and how to place it."""
 
@@ -153,6 +196,7 @@ class DriverSpec:
     extend_high: str = "none"
     impedance_extend_low: str = "none"
     impedance_extend_high: str = "none"
+    angles: AngleSpec | None = None
 
 
 @dataclass(frozen=True)
@@ -211,6 +255,7 @@ class TargetSpec:
     level: float | str = DEFAULTS["target"]["level"]
     curve: str = DEFAULTS["target"]["curve"]
     ways: tuple[WayTarget, ...] = ()
+    reference: str = DEFAULTS["target"]["reference"]
 
 
 @dataclass(frozen=True)
@@ -221,6 +266,8 @@ class CostSpec:
     impedance: float = DEFAULTS["cost"]["impedance"]
     impedance_min: float = DEFAULTS["cost"]["impedance_min"]
     stress: float = DEFAULTS["cost"]["stress"]
+    early_reflections: float = DEFAULTS["cost"]["early_reflections"]
+    sound_power: float = DEFAULTS["cost"]["sound_power"]
 
 
 @dataclass(frozen=True)
@@ -493,10 +540,11 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "driver": "response impedance reference_voltage offset phase impedance_phase extend_low extend_high "
               "impedance_extend_low impedance_extend_high",
     "thiele_small": "re le fs qms qes le_exponent l2 r2",
+    "angles": "horizontal vertical horizontal_angles vertical_angles mirror",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
-    "target": "band level curve way",
+    "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",
-    "cost": "way sum phase impedance impedance_min stress",
+    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
     "snap": "series inventory combine top_up",
@@ -510,7 +558,7 @@ def _table_kind(table: tuple) -> str:
     if not table:
         return "top"
     if table[0] == "driver":
-        return "thiele_small" if len(table) == 3 else "driver"
+        return ("angles" if table[2] == "angles" else "thiele_small") if len(table) == 3 else "driver"
     if table[0] == "target" and len(table) == 3:
         return "way"
     if table[:2] == ("search", "robust"):
@@ -687,6 +735,19 @@ def _build(data: dict, ctx: _Context) -> Job:
         drivers.append(_driver(dname, drv_table.sub(dname, f"[driver.{dname}]"), voltage))
     if not drivers:
         raise ctx.error((), None, "no drivers: add at least one [driver.NAME] table", "job")
+    with_angles = [d for d in drivers if d.angles is not None]
+    if with_angles:
+        first = with_angles[0]
+        for d in drivers:
+            if d.angles is None:
+                raise ctx.error(("driver", d.name), None, f"driver '{d.name}' has no [driver.{d.name}.angles] but "
+                                f"'{first.name}' has: every driver of an off-axis job needs the same angles",
+                                f"[driver.{d.name}]")
+            if set(d.angles.files()) != set(first.angles.files()):
+                diff = sorted(set(d.angles.files()) ^ set(first.angles.files()))
+                raise ctx.error(("driver", d.name, "angles"), None, f"covers other angles than driver "
+                                f"'{first.name}' ({', '.join(f'{o}{a}' for o, a in diff[:6])} in one only); every "
+                                "driver must cover the same angles", f"[driver.{d.name}.angles]")
 
     top.used.add("part")
     raw_parts = data.get("part", [])
@@ -817,6 +878,8 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
         extend_high=r.choice("extend_high", ("none", "slope"), d["extend_high"]),
         impedance_extend_low=r.choice("impedance_extend_low", ("none", "slope"), d["impedance_extend_low"]),
         impedance_extend_high=r.choice("impedance_extend_high", ("none", "slope"), d["impedance_extend_high"]),
+        angles=_angles(r.sub("angles", f"[driver.{name}.angles]"), isinstance(response, FileCurve))
+        if r.has("angles") else None,
     )
     for keys, what, phase_key in ((("extend_low", "extend_high"), "response", "phase"),
                                   (("impedance_extend_low", "impedance_extend_high"), "impedance", "impedance_phase")):
@@ -827,6 +890,46 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
                 if getattr(spec, phase_key) != "minimum":
                     raise r.error(key, f"an extended {what} must use {phase_key} = \"minimum\": the measured phase "
                                        "stops at the file's end, the extended magnitude gives the phase")
+    r.done()
+    return spec
+
+
+def _angles(r: _Reader, measured: bool) -> AngleSpec:
+    """[driver.NAME.angles]: file patterns with {angle}, the angle lists, mirror."""
+    if not measured:
+        raise r.error(None, "a driver with off-axis files needs its on-axis response from a file too")
+    patterns = {}
+    for key in ("horizontal", "vertical"):
+        if r.has(key):
+            v = r.text(key)
+            if v.count("{angle}") != 1 or re.search(r"[\x00-\x1f\x7f]", v):
+                raise r.error(key, f"expected a file pattern holding {{angle}} once (e.g. \"polar/woofer-h{{angle}}.txt\"), "
+                                   f"got {_short(v)}")
+            p = Path(v)
+            patterns[key] = str(p if p.is_absolute() else (r.ctx.folder / p))
+        lists_key = f"{key}_angles"
+        if r.has(key) != r.has(lists_key):
+            raise r.error(lists_key if r.has(key) else key, f"give {key} and {lists_key} together")
+    if not patterns:
+        raise r.error(None, "expected horizontal (with horizontal_angles) or vertical (with vertical_angles)")
+    lists = {}
+    for key in ("horizontal_angles", "vertical_angles"):
+        raw = r.raw(key, [])
+        if not isinstance(raw, list) or not raw or not all(isinstance(a, int) and not isinstance(a, bool)
+                                                            and -180 <= a <= 180 for a in raw):
+            if key[:-7] in patterns:
+                raise r.error(key, f"expected a list of whole degrees from -180 to 180, got {_short(raw)}")
+            raw = []
+        seen: dict = {}
+        for a in raw:
+            pos = position(key[0], a)
+            if pos in seen:
+                raise r.error(key, f"{a} and {seen[pos]} deg are the same position; list it once")
+            seen[pos] = a
+        lists[key] = tuple(raw)
+    spec = AngleSpec(horizontal=patterns.get("horizontal"), vertical=patterns.get("vertical"),
+                     horizontal_angles=lists["horizontal_angles"], vertical_angles=lists["vertical_angles"],
+                     mirror=r.boolean("mirror", DEFAULTS["angles"]["mirror"]))
     r.done()
     return spec
 
@@ -1024,6 +1127,7 @@ def _target(r: _Reader, driver_names: set[str]) -> TargetSpec:
         else:
             raise r.error("level", f"expected \"auto\" or a level in dB SPL (-300 to 300), got {_short(raw)}")
     curve = r.text("curve", d["curve"])
+    reference = r.choice("reference", ("on_axis", "listening_window"), d["reference"])
     ways = []
     w_table = r.sub("way", "[target.way]")
     for wname in w_table.data:
@@ -1032,7 +1136,7 @@ def _target(r: _Reader, driver_names: set[str]) -> TargetSpec:
             raise w_table.error(wname, f"no driver named '{wname}'; defined drivers: {', '.join(sorted(driver_names))}")
         ways.append(_way(wname, w_table.sub(wname, f"[target.way.{wname}]")))
     r.done()
-    return TargetSpec(band=band, level=level, curve=curve, ways=tuple(ways))
+    return TargetSpec(band=band, level=level, curve=curve, ways=tuple(ways), reference=reference)
 
 
 def _way(name: str, r: _Reader) -> WayTarget:
@@ -1069,6 +1173,8 @@ def _cost(r: _Reader) -> CostSpec:
         impedance=r.number("impedance", d["impedance"], minimum=0.0, maximum=MAX_WEIGHT),
         impedance_min=r.value("impedance_min", "ohm", d["impedance_min"], allow_zero=True),
         stress=r.number("stress", d["stress"], minimum=0.0, maximum=MAX_WEIGHT),
+        early_reflections=r.number("early_reflections", d["early_reflections"], minimum=0.0, maximum=MAX_WEIGHT),
+        sound_power=r.number("sound_power", d["sound_power"], minimum=0.0, maximum=MAX_WEIGHT),
     )
     r.done()
     return spec

@@ -297,14 +297,11 @@ def _highpass_extension(u: np.ndarray, db: np.ndarray, ue: np.ndarray, order: in
         x2 = np.exp(2 * order * (x_u - log_fc))
         return 10 * np.log10(x2 / (1 + x2))
 
-    best = None
-    for log_fc in np.linspace(us[0] - 3 * np.log(2), us[-1] + np.log(2), 400):  # corner from 3 octaves below on
-        m = shape(us, log_fc)
-        g = float(np.mean(ds - m))
-        err = float(np.sum((ds - m - g) ** 2))
-        if best is None or err < best[0]:
-            best = (err, log_fc, g)
-    _, log_fc, _ = best
+    corners = np.linspace(us[0] - 3 * np.log(2), us[-1] + np.log(2), 400)  # corner from 3 octaves below on
+    m = shape(us[None, :], corners[:, None])  # (400, n): every candidate corner at once
+    r = ds[None, :] - m
+    err = np.sum((r - r.mean(axis=1, keepdims=True)) ** 2, axis=1)
+    log_fc = float(corners[int(np.argmin(err))])
     g = db[0] - float(shape(np.array([u[0]]), log_fc)[0])  # joined at the file's first point, no step
     return g + shape(ue, log_fc)
 
@@ -371,5 +368,17 @@ def minimum_phase(frequency: np.ndarray, magnitude_db_: np.ndarray, at: np.ndarr
     before = np.concatenate(([s_lo], slopes))
     after = np.concatenate((slopes, [s_hi]))
     jump = before - after
-    u = u_nodes[None, :] - np.log(np.asarray(at, dtype=float))[:, None]
-    return ((s_lo + s_hi) * np.pi**2 / 4.0 + _bode_kernel(u) @ jump) / np.pi
+    at = np.asarray(at, dtype=float)
+    key = (float(u_nodes[0]), float(u_nodes[-1]), n, at.tobytes())
+    kernel = _KERNELS.get(key)
+    if kernel is None:  # the same for every file of one range on one grid (a driver's off-axis set): kept
+        kernel = _bode_kernel(u_nodes[None, :] - np.log(at)[:, None])
+        if len(_KERNELS) >= _KERNEL_CACHE:
+            _KERNELS.pop(next(iter(_KERNELS)))
+        _KERNELS[key] = kernel
+    return ((s_lo + s_hi) * np.pi**2 / 4.0 + kernel @ jump) / np.pi
+
+
+#: Bode kernels (M, n) by (first node, last node, n, grid): a few, for the files of one job.
+_KERNELS: dict = {}
+_KERNEL_CACHE = 8

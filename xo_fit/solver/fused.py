@@ -33,6 +33,9 @@ from .kernels import KERNEL_VERSION, load_kernel
 #: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
 _P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
 _PREF_DB = 20 * math.log10(P_REF)
+#: Columns of evaluate_raw's output: cost, the terms, then the level and the flag.
+LEVEL = 1 + len(TERMS)
+FLAG = LEVEL + 1
 
 
 class FusedCost:
@@ -81,6 +84,33 @@ class FusedCost:
             w[self.lo:self.hi] = np.exp(-1j * np.deg2rad(target_diff))
             rows += [reg, w.real, w.imag]
             self.pair_counts.append(int(region.sum()))
+        # off axis: the per-volt factors of each driver at the positions the cost reads, (F, A, 2D), with each
+        # position's weight in the listening window, early reflections and sound power (A, 3)
+        names = ("listening_window", "early_reflections", "sound_power")
+        self.need = {"listening_window": cm.off_axis and cm.reference == "listening_window",
+                     "early_reflections": cm.off_axis and cm.weights["early_reflections"] > 0,
+                     "sound_power": cm.off_axis and cm.weights["sound_power"] > 0}
+        self.n_angles = 0
+        ang = np.zeros((nf, 1, 2 * d))
+        angw = np.zeros((1, 3))
+        if any(self.need.values()):
+            w = np.stack([cm.curve_weights[n] if self.need[n] else np.zeros(len(cm.system.positions))
+                          for n in names], axis=1)  # (A, 3)
+            active = np.nonzero(np.any(w > 0, axis=1))[0]
+            g = cm.system.angle_factors[active]  # (A', D, F)
+            ang = np.empty((nf, active.size, 2 * d))
+            ang[..., 0::2] = g.real.transpose(2, 0, 1)
+            ang[..., 1::2] = g.imag.transpose(2, 0, 1)
+            angw = w[active]
+            self.n_angles = int(active.size)
+        self.ang = np.ascontiguousarray(ang)
+        self.angw = np.ascontiguousarray(angw)
+        self.row_xc = len(rows)
+        x = np.zeros(nf)
+        lx = np.log2(f[self.lo:self.hi])
+        x[self.lo:self.hi] = lx - lx.mean()
+        rows.append(x)
+        self.sxx = float(np.sum(x**2))
         self.tgt = np.ascontiguousarray(np.vstack(rows))
         self._kernel = None
 
@@ -96,13 +126,35 @@ class FusedCost:
         level = cm.targets.level_db
         w = cm.weights
         lines = list(code.loads) + list(code.body)
+        need = self.need
+        n_peaks = sum(kind != "R" for _, _, kind, _ in cm.rated)
+        row_e, row_p = d + 2 + n_peaks, d + 3 + n_peaks  # scratch rows of the early reflections', sound power's dB
+        angle_lines = []
+        if self.n_angles:
+            angle_lines += [f"wr{k} = {vr}\nwi{k} = {vi}" for k, (vr, vi) in enumerate(code.volts)]
+            angle_lines += ["lw = 0.0", "er = 0.0", "sp = 0.0", f"for a in range({self.n_angles}):",
+                            "    qr = " + " + ".join(f"wr{k} * ang[f, a, {2 * k}] - wi{k} * ang[f, a, {2 * k + 1}]"
+                                                     for k in range(d)),
+                            "    qi = " + " + ".join(f"wr{k} * ang[f, a, {2 * k + 1}] + wi{k} * ang[f, a, {2 * k}]"
+                                                     for k in range(d)),
+                            "    q2 = qr * qr + qi * qi", "    lw += angw[a, 0] * q2", "    er += angw[a, 1] * q2",
+                            "    sp += angw[a, 2] * q2"]
+            angle_lines = "\n".join(angle_lines).split("\n")
+            if need["early_reflections"]:
+                angle_lines += ["ed = DB10 * ln(max(er, P2F)) - PREF_DB", f"scratch[{row_e}, f] = ed", "acc_e += ed"]
+            if need["sound_power"]:
+                angle_lines += ["spd = DB10 * ln(max(sp, P2F)) - PREF_DB", f"scratch[{row_p}, f] = spd",
+                                "acc_sp += spd"]
+        lines += angle_lines
         for k, (vr, vi) in enumerate(code.volts):
             lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
                       f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
                       f"pd{k} = DB10 * ln(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
                       f"scratch[{k}, f] = pd{k}"]
+        reference = ("sd = DB10 * ln(max(lw, P2F)) - PREF_DB" if need["listening_window"]
+                     else "sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB")
         lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}",
-                  "sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                  reference, f"scratch[{d}, f] = sd",
                   f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
         for j, (a, b, _, _) in enumerate(cm.pairs):
             base = self.row_pairs + 3 * j
@@ -137,6 +189,13 @@ class FusedCost:
                    f"u = scratch[{d}, f] - level - {NULL_DB!r}",  # at a null of the target: only output above it
                    "u = u if u > 0.0 else 0.0",
                    f"s = s if tgt[{self.row_keep}, f] > 0.5 else u", "acc_s += s * s"]
+        # roughness: the curve's deviation from its least-squares line on log2 f (xc: log2 f less its mean)
+        if need["early_reflections"]:
+            second += [f"de = scratch[{row_e}, f] - mean_e", "acc_ee += de * de",
+                       f"acc_ex += de * tgt[{self.row_xc}, f]"]
+        if need["sound_power"]:
+            second += [f"dp = scratch[{row_p}, f] - mean_p", "acc_pp += dp * dp",
+                       f"acc_px += dp * tgt[{self.row_xc}, f]"]
 
         phase_expr = " + ".join(f"acc_p{j} / {self.pair_counts[j]}.0" for j in range(len(cm.pairs)))
         phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
@@ -155,18 +214,20 @@ class FusedCost:
             "",
             "",
             '@numba.njit(cache=True, error_model="numpy", fastmath={"contract", "reassoc"}, nogil=True)',
-            "def cost_kernel(vals, r_coef, r_exp, fin, vs, rs, tau2, tgt, scratch, out):",
+            "def cost_kernel(vals, r_coef, r_exp, fin, vs, rs, tau2, tgt, ang, angw, scratch, out):",
             "    nb = vals.shape[0]",
             "    nbad = 0",
             "    for b in range(nb):",
         ]
         src += [i1 + s for s in code.prep]
-        src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0"]
+        src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0", i1 + "acc_e = 0.0", i1 + "acc_sp = 0.0"]
         src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(cm.rated) if kind == "R"]
         src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
         src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in lines]
         src += [i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
-                i1 + "acc_w = 0.0", i1 + "acc_s = 0.0"]
+                i1 + "acc_w = 0.0", i1 + "acc_s = 0.0", i1 + f"mean_e = acc_e / {nb}.0",
+                i1 + f"mean_p = acc_sp / {nb}.0", i1 + "acc_ee = 0.0", i1 + "acc_ex = 0.0", i1 + "acc_pp = 0.0",
+                i1 + "acc_px = 0.0"]
         src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in second]
         src += [i1 + "mz = 0.0"]
         if floor > 0:
@@ -192,10 +253,16 @@ class FusedCost:
             i1 + f"t_sum = acc_s / {nb}.0",
             i1 + (f"t_phase = ({phase_expr}) * {phase_scale!r}" if cm.pairs else "t_phase = 0.0"),
             i1 + (f"t_imp = acc_z / {nb}.0 + mz * mz" if floor > 0 else "t_imp = 0.0"),
+            i1 + (f"t_er = (acc_ee - acc_ex * acc_ex / {self.sxx!r}) / {nb}.0" if need["early_reflections"]
+                  else "t_er = 0.0"),
+            i1 + (f"t_sp = (acc_pp - acc_px * acc_px / {self.sxx!r}) / {nb}.0" if need["sound_power"]
+                  else "t_sp = 0.0"),
             i1 + f"out[b, 0] = {w['way']!r} * t_way + {w['sum']!r} * t_sum + {w['phase']!r} * t_phase "
-                 f"+ {w['impedance']!r} * t_imp + {w['stress']!r} * t_stress",
+                 f"+ {w['impedance']!r} * t_imp + {w['stress']!r} * t_stress + {w['early_reflections']!r} * t_er "
+                 f"+ {w['sound_power']!r} * t_sp",
             i1 + "out[b, 1] = t_way", i1 + "out[b, 2] = t_sum", i1 + "out[b, 3] = t_phase", i1 + "out[b, 4] = t_imp",
-            i1 + "out[b, 5] = t_stress", i1 + "out[b, 6] = level", i1 + "out[b, 7] = acc_bad",
+            i1 + "out[b, 5] = t_stress", i1 + "out[b, 6] = t_er", i1 + "out[b, 7] = t_sp",
+            i1 + f"out[b, {LEVEL}] = level", i1 + f"out[b, {FLAG}] = acc_bad",
             i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
             "    return nbad",
         ]
@@ -214,21 +281,23 @@ class FusedCost:
     # ------------------------------------------------------------------ evaluation
 
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
-        """(B, 8): cost, way, sum, phase, impedance, stress, level, flag for designs (B, P); flagged rows re-scored."""
+        """(B, 10): cost, the TERMS (way, sum, phase, impedance, stress, early_reflections, sound_power), level,
+        flag for designs (B, P); flagged rows re-scored."""
         v = self.net._check_values(values)
         k = self.net._kernel_args()
-        out = np.empty((v.shape[0], 8))
+        out = np.empty((v.shape[0], FLAG + 1))
         peaks = sum(kind != "R" for _, _, kind, _ in self.cm.rated)
-        scratch = np.empty((len(self.net.driver_names) + 2 + peaks, self.net.frequencies.size))
+        scratch = np.empty((len(self.net.driver_names) + 4 + peaks, self.net.frequencies.size))
         nbad = self.kernel()(v, k["r_coef"], k["r_exp"], k["fin"], self.net.source_voltage,
-                             self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, scratch, out)
+                             self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, self.ang, self.angw, scratch,
+                             out)
         if nbad:
-            redo = np.nonzero(~(out[:, 7] <= 0.0))[0]
+            redo = np.nonzero(~(out[:, FLAG] <= 0.0))[0]
             ev = self.cm.evaluate(v[redo])
             out[redo, 0] = ev.cost
             for i, t in enumerate(TERMS, start=1):
-                out[redo, i] = ev.terms[t]
-            out[redo, 6] = ev.level_db
+                out[redo, i] = ev.terms.get(t, 0.0)
+            out[redo, LEVEL] = ev.level_db
         out[~np.isfinite(out[:, 0]), 0] = np.inf  # as the reference: a design with a singular point is infeasible
         return out
 
