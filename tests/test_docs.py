@@ -100,7 +100,8 @@ def test_job_format_doc_has_every_default():
     from xo_fit.io.job import DEFAULTS
 
     where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
-             "thiele_small": "[driver.NAME.impedance]", "part": "[[part]]", "target": "[target]",
+             "thiele_small": "[driver.NAME.impedance]", "angles": "[driver.NAME.angles]",
+             "part": "[[part]]", "target": "[target]",
              "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
              "spread": "[spread]", "stress": "[stress]"}
     assert set(where) == set(DEFAULTS)
@@ -163,7 +164,8 @@ def test_job_format_doc_lists_every_key():
     from xo_fit.io.job import KEYS
 
     where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
-             "thiele_small": "[driver.NAME.impedance]", "part": "[[part]]", "target": "[target]",
+             "thiele_small": "[driver.NAME.impedance]", "angles": "[driver.NAME.angles]",
+             "part": "[[part]]", "target": "[target]",
              "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
              "spread": "[spread]", "stress": "[stress]"}
     docs = _doc_sections()

@@ -161,6 +161,21 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
                 if ext:
                     say(f"    {'':<9} {ext}")
         say(f"    reference {format_value(spec.reference_voltage, 'V')}, offset {format_value(spec.offset, 'm')}")
+        if spec.angles is not None:
+            files = spec.angles.files()
+            mirrored = sum(1 for pos, (_, a) in files.items() if a != pos[1])
+            say(f"    angles    {len(files) + 1} positions with the axis ({sum(1 for p in files if p[0] == 'h')} "
+                f"horizontal, {sum(1 for p in files if p[0] == 'v')} vertical)"
+                + (f", {mirrored} mirrored" if mirrored else ""))
+    if system.positions:
+        from .acoustics import curve_weights, missing_positions
+
+        have = [k.replace("_", " ") for k, w in curve_weights(system.positions).items() if w is not None]
+        lack = [f"{k.replace('_', ' ')} (needs {', '.join(f'{o}{a}' for o, a in missing_positions(system.positions, k)[:4])}"
+                f"{' ...' if len(missing_positions(system.positions, k)) > 4 else ''})"
+                for k, w in curve_weights(system.positions).items() if w is None]
+        say(f"off axis {len(system.positions)} positions; curves: on axis"
+            + "".join(f", {x}" for x in have) + (f"; not available: {'; '.join(lack)}" if lack else ""))
     say("parts")
     say(f"  {'name':<10} {'type':<6} {'nodes':<14} {'value':<11} {'range':<24} {'notes'}")
     for p in j.parts:
@@ -191,7 +206,8 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
         say(f"target   band {format_value(band[0], 'Hz')} to {format_value(band[1], 'Hz')}" if band else
             "target   band: the whole grid")
         level = "auto" if j.target.level == "auto" else f"{j.target.level:g} dB SPL"
-        say(f"         level {level}, curve {j.target.curve}")
+        say(f"         level {level}, curve {j.target.curve}"
+            + (", applied to the listening window" if j.target.reference == "listening_window" else ""))
         for w in j.target.ways:
             where = (f"{format_value(w.fc_low, 'Hz')} to {format_value(w.fc_high, 'Hz')}" if w.type == "bandpass"
                      else (f"at {format_value(w.fc, 'Hz')}" if w.fc else ""))
@@ -232,6 +248,10 @@ def _print_score(s, start_cost: float | None = None) -> None:
         say(f"  sum vs target: rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB; "
             f"phase mismatch at crossover {m['phase_mismatch_deg']:.1f} deg; level {s.level_db:.1f} dB SPL")
     say(f"  impedance minimum {m['impedance_min_ohm']:.2f} ohm at {m['impedance_min_hz']:.0f} Hz")
+    if "listening_window_rms_db" in m:
+        di = (f"; sound power DI {m['sound_power_di_min_db']:.1f} to {m['sound_power_di_max_db']:.1f} dB over the band"
+              if "sound_power_di_min_db" in m else "")
+        say(f"  off axis: listening window {m['listening_window_rms_db']:.2f} dB rms from the target{di}")
 
 
 def _findings(design) -> None:

@@ -210,6 +210,30 @@ class Design:
         return response_table(self.system.frequencies, names, s.sim.pressure[0], s.sim.total[0], s.sim.impedance[0],
                               target_db(s))
 
+    def off_axis(self) -> tuple | None:
+        """An off-axis job's curves of this design: (positions, summed pressure at each, complex Pa (A, F),
+        the ANSI/CTA-2034-A curves in Pa^2 (F,) each); None on axis."""
+        if not self.system.positions:
+            return None
+        if "off_axis" not in self.info:
+            from .acoustics import angle_pressures, curve_weights, directivity
+
+            p = angle_pressures(self.scored.sim.voltages[:1], self.system.angle_factors)  # (1, A, F)
+            curves = directivity(np.abs(p) ** 2, curve_weights(self.system.positions))
+            self.info["off_axis"] = (self.system.positions, p[0], {k: v[0] for k, v in curves.items()})
+        return self.info["off_axis"]
+
+    def directivity_tables(self) -> dict:
+        """{"directivity.csv": Table, "angles.csv": Table} of an off-axis job; {} otherwise."""
+        data = self.off_axis()
+        if data is None:
+            return {}
+        from .io.results import angles_table, directivity_table
+
+        positions, p, curves = data
+        f = self.system.frequencies
+        return {"directivity.csv": directivity_table(f, curves), "angles.csv": angles_table(f, positions, p)}
+
     # ------------------------------------------------------------------ files
 
     def to_json(self, folder: str | Path | None = None) -> dict:
@@ -261,6 +285,9 @@ class Design:
         write_json(folder / "result.json", self.to_json(home if home is not None else folder))
         write_csv(folder / "response.csv", self.response_table())
         written = [folder / "result.json", folder / "response.csv"]
+        for name, table in self.directivity_tables().items():
+            write_csv(folder / name, table)
+            written.append(folder / name)
         for name, rows in self.tables.items():
             write_rows(folder / name, rows)
             written.append(folder / name)

@@ -142,6 +142,53 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
     finish_axes(ax, "|Z| (Ω)", "Impedance the amplifier sees", f)
     figs["impedance"] = png_bytes(fig)
 
+    # 8. off axis: the ANSI/CTA-2034-A curves with the DIs, and level against angle and frequency per orbit
+    off = entries[-1][1].off_axis() if base.positions else None
+    if off is not None:
+        from .acoustics import power_db
+
+        positions, p, curves = off
+        label = entries[-1][0]
+        fig, ax = plt.subplots(figsize=(9, 4.6))
+        ax2 = ax.twinx()
+        styles = {"on_axis": ("k", 1.8), "listening_window": ("tab:blue", 1.6), "early_reflections": ("tab:green", 1.3),
+                  "sound_power": ("tab:red", 1.3), "estimated_in_room": ("tab:purple", 1.1)}
+        for name, (c, lw) in styles.items():
+            if name in curves:
+                ax.semilogx(f, power_db(curves[name]), color=c, lw=lw, label=name.replace("_", " "))
+        if "listening_window" in curves:
+            for other, c in (("sound_power", "tab:red"), ("early_reflections", "tab:green")):
+                if other in curves:
+                    ax2.semilogx(f, power_db(curves["listening_window"]) - power_db(curves[other]), color=c, ls=":",
+                                 lw=1.2, label=f"{other.replace('_', ' ')} DI")
+            ax2.set_ylim(-2, 20)
+            ax2.set_ylabel("DI (dB, dotted)")
+            ax2.legend(fontsize=7, loc="lower right")
+        top_off = float(np.max(power_db(curves["on_axis"])))
+        finish_axes(ax, "SPL (dB)", f"Directivity curves (ANSI/CTA-2034-A), {label}", f, top=top_off)
+        figs["directivity"] = png_bytes(fig)
+
+        level = spl_db_of(p)  # (A, F)
+        orbits = [(o, t) for o, t in (("h", "horizontal"), ("v", "vertical"))
+                  if sum(1 for q in positions if q[0] == o or q == ("h", 0)) > 2]
+        if orbits:
+            fig, axes = plt.subplots(1, len(orbits), figsize=(11 if len(orbits) > 1 else 7, 4.2), squeeze=False,
+                                     constrained_layout=True)
+            mesh = None
+            for ax, (o, title) in zip(axes[0], orbits):
+                rows = sorted({(q[1] if q[0] == o else q[1]) for q in positions
+                               if q[0] == o or q in (("h", 0), ("h", 180))})
+                index = {q: i for i, q in enumerate(positions)}
+                grid = np.array([level[index[("h", a) if a in (0, 180) else (o, a)]] - level[0] for a in rows])
+                mesh = ax.pcolormesh(f, rows, np.clip(grid, -30, 3), shading="nearest", cmap="viridis",
+                                     vmin=-30, vmax=3)
+                ax.set_xscale("log")
+                ax.set_xlabel("frequency (Hz)")
+                ax.set_ylabel("angle (deg)")
+                ax.set_title(f"{title} orbit, level re on-axis (dB), {label}", fontsize=10)
+            fig.colorbar(mesh, ax=list(axes[0]), shrink=0.9, label="dB re on-axis")
+            figs["angles"] = png_bytes(fig)
+
     # 7. the trade-off of a prune: cost against part count
     pruned = [d for _, d, _ in entries if "prune" in d.sections]
     if pruned:
@@ -332,6 +379,16 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
         cautions = [GENERAL]
     drive = (f"Stresses at {st.drive_w:g} W into {st.rated_ohm:g} Ω ({st.source_v_rms:.2f} V RMS); programme figures "
              "assume pink noise over the band." if st else "No [stress] drive level in the job: no stress figures.")
+    off_axis_text = ""
+    m_last = last.scored.metrics
+    if "listening_window_rms_db" in m_last:
+        off_axis_text = (f"<p>Off axis ({esc(last_label)}): the listening window strays "
+                         f"{m_last['listening_window_rms_db']:.2f} dB rms from the target"
+                         + (f"; the sound power DI runs from {m_last['sound_power_di_min_db']:.1f} to "
+                            f"{m_last['sound_power_di_max_db']:.1f} dB over the band (a range of "
+                            f"{m_last['sound_power_di_range_db']:.1f} dB)" if "sound_power_di_min_db" in m_last else "")
+                         + ". The colour maps show each orbit's level against the axis: lobing reads as dark "
+                         "bands.</p>")
     imgs = "".join(f'<figure><img alt="{esc(k)}" src="data:image/png;base64,{base64.b64encode(v).decode()}"></figure>'
                    for k, v in figs.items())
     page = f"""<!DOCTYPE html>
@@ -356,7 +413,7 @@ check the built speaker by measurement.</p>
 {breakdown_table}
 {values_table}
 {targets_table}
-<h2>Curves</h2>{imgs}
+<h2>Curves</h2>{off_axis_text}{imgs}
 <h2>Part list ({esc(last_label)})</h2>
 <p>{esc(drive)}</p>
 <table><tr><th>part</th><th>kind</th><th>value</th><th>source</th><th>tolerance</th><th>made of</th><th>stress</th></tr>

@@ -137,7 +137,8 @@ def _angle_data(spec, positions: tuple, response: np.ndarray, grid: np.ndarray, 
         if path in done:
             out[i] = out[done[path]]
             continue
-        where = f"[driver.{spec.name}.angles] {pos[0]}{pos[1]}"
+        where = f"[driver.{spec.name}.angles] {pos[0]}{source}" + (f" (mirrored to {pos[0]}{pos[1]} too)"
+                                                                  if source != pos[1] else "")
         try:
             curve = read_curve(path, "response")
             out[i], w = on_grid(extend_curve(curve, grid, "response", spec.extend_low, spec.extend_high), grid,
