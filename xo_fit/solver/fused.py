@@ -84,23 +84,23 @@ class FusedCost:
             w[self.lo:self.hi] = np.exp(-1j * np.deg2rad(target_diff))
             rows += [reg, w.real, w.imag]
             self.pair_counts.append(int(region.sum()))
-        # off axis: the per-volt factors of each driver at the positions the cost reads, (F, A, 2D), with each
+        # off axis: the per-volt factors of each driver at the positions the cost reads, (A, 2D, F), with each
         # position's weight in the listening window, early reflections and sound power (A, 3)
         names = ("listening_window", "early_reflections", "sound_power")
         self.need = {"listening_window": cm.off_axis and cm.reference == "listening_window",
                      "early_reflections": cm.off_axis and cm.weights["early_reflections"] > 0,
                      "sound_power": cm.off_axis and cm.weights["sound_power"] > 0}
         self.n_angles = 0
-        ang = np.zeros((nf, 1, 2 * d))
+        ang = np.zeros((1, 2 * d, nf))
         angw = np.zeros((1, 3))
         if any(self.need.values()):
             w = np.stack([cm.curve_weights[n] if self.need[n] else np.zeros(len(cm.system.positions))
                           for n in names], axis=1)  # (A, 3)
             active = np.nonzero(np.any(w > 0, axis=1))[0]
             g = cm.system.angle_factors[active]  # (A', D, F)
-            ang = np.empty((nf, active.size, 2 * d))
-            ang[..., 0::2] = g.real.transpose(2, 0, 1)
-            ang[..., 1::2] = g.imag.transpose(2, 0, 1)
+            ang = np.empty((active.size, 2 * d, nf))
+            ang[:, 0::2] = g.real
+            ang[:, 1::2] = g.imag
             angw = w[active]
             self.n_angles = int(active.size)
         self.ang = np.ascontiguousarray(ang)
@@ -129,33 +129,49 @@ class FusedCost:
         need = self.need
         n_peaks = sum(kind != "R" for _, _, kind, _ in cm.rated)
         row_e, row_p = d + 2 + n_peaks, d + 3 + n_peaks  # scratch rows of the early reflections', sound power's dB
-        angle_lines = []
+        row_v = d + 4 + n_peaks  # the driver voltages (re, im per driver), then |p|^2 of LW, ER, SP
+        row_q = row_v + 2 * d
+        angle_pre, angle_loop, angle_post = [], [], []
         if self.n_angles:
-            angle_lines += [f"wr{k} = {vr}\nwi{k} = {vi}" for k, (vr, vi) in enumerate(code.volts)]
-            angle_lines += ["lw = 0.0", "er = 0.0", "sp = 0.0", f"for a in range({self.n_angles}):",
-                            "    qr = " + " + ".join(f"wr{k} * ang[f, a, {2 * k}] - wi{k} * ang[f, a, {2 * k + 1}]"
-                                                     for k in range(d)),
-                            "    qi = " + " + ".join(f"wr{k} * ang[f, a, {2 * k + 1}] + wi{k} * ang[f, a, {2 * k}]"
-                                                     for k in range(d)),
-                            "    q2 = qr * qr + qi * qi", "    lw += angw[a, 0] * q2", "    er += angw[a, 1] * q2",
-                            "    sp += angw[a, 2] * q2"]
-            angle_lines = "\n".join(angle_lines).split("\n")
+            # the voltages are kept per frequency; the positions are summed after the frequency loop, position by
+            # position over frequency (unit stride: the loop vectorises), and their levels taken in a third pass
+            for k, (vr, vi) in enumerate(code.volts):
+                angle_pre += [f"scratch[{row_v + 2 * k}, f] = {vr}", f"scratch[{row_v + 2 * k + 1}, f] = {vi}"]
+            qr = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k}, f] - scratch[{row_v + 2 * k + 1}, f] * "
+                            f"ang[a, {2 * k + 1}, f]" for k in range(d))
+            qi = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k + 1}, f] + scratch[{row_v + 2 * k + 1}, f] * "
+                            f"ang[a, {2 * k}, f]" for k in range(d))
+            angle_loop = []
+            for first in (True, False):  # the first position sets the sums (no zeroing pass), the others add
+                op = "=" if first else "+="
+                angle_loop += [("a = 0" if first else f"for a in range(1, {self.n_angles}):")]
+                ind = "" if first else "    "
+                angle_loop += [ind + "wa0 = angw[a, 0]", ind + "wa1 = angw[a, 1]", ind + "wa2 = angw[a, 2]",
+                               ind + f"for f in range({self.lo}, {self.hi}):", ind + f"    qr = {qr}",
+                               ind + f"    qi = {qi}", ind + "    q2 = qr * qr + qi * qi",
+                               ind + f"    scratch[{row_q}, f] {op} wa0 * q2",
+                               ind + f"    scratch[{row_q + 1}, f] {op} wa1 * q2",
+                               ind + f"    scratch[{row_q + 2}, f] {op} wa2 * q2"]
+            if need["listening_window"]:
+                angle_post += [f"sd = DB10 * ln(max(scratch[{row_q}, f], P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                               f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
             if need["early_reflections"]:
-                angle_lines += ["ed = DB10 * ln(max(er, P2F)) - PREF_DB", f"scratch[{row_e}, f] = ed", "acc_e += ed"]
+                angle_post += [f"ed = DB10 * ln(max(scratch[{row_q + 1}, f], P2F)) - PREF_DB",
+                               f"scratch[{row_e}, f] = ed", "acc_e += ed"]
             if need["sound_power"]:
-                angle_lines += ["spd = DB10 * ln(max(sp, P2F)) - PREF_DB", f"scratch[{row_p}, f] = spd",
-                                "acc_sp += spd"]
-        lines += angle_lines
+                angle_post += [f"spd = DB10 * ln(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
+                               f"scratch[{row_p}, f] = spd", "acc_sp += spd"]
+        self.scratch_rows = row_q + 3
+        lines += angle_pre
         for k, (vr, vi) in enumerate(code.volts):
             lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
                       f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
                       f"pd{k} = DB10 * ln(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
                       f"scratch[{k}, f] = pd{k}"]
-        reference = ("sd = DB10 * ln(max(lw, P2F)) - PREF_DB" if need["listening_window"]
-                     else "sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB")
-        lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}",
-                  reference, f"scratch[{d}, f] = sd",
-                  f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
+        lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}"]
+        if not need["listening_window"]:  # else the listening window's level, after the positions are summed
+            lines += ["sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                      f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
         for j, (a, b, _, _) in enumerate(cm.pairs):
             base = self.row_pairs + 3 * j
             lines += [f"qr{j} = pr{a} * pr{b} + pi{a} * pi{b}", f"qi{j} = pi{a} * pr{b} - pr{a} * pi{b}",
@@ -224,6 +240,9 @@ class FusedCost:
         src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(cm.rated) if kind == "R"]
         src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
         src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in lines]
+        if angle_loop:
+            src += [i1 + s for s in angle_loop]
+            src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in angle_post]
         src += [i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
                 i1 + "acc_w = 0.0", i1 + "acc_s = 0.0", i1 + f"mean_e = acc_e / {nb}.0",
                 i1 + f"mean_p = acc_sp / {nb}.0", i1 + "acc_ee = 0.0", i1 + "acc_ex = 0.0", i1 + "acc_pp = 0.0",
@@ -287,7 +306,9 @@ class FusedCost:
         k = self.net._kernel_args()
         out = np.empty((v.shape[0], FLAG + 1))
         peaks = sum(kind != "R" for _, _, kind, _ in self.cm.rated)
-        scratch = np.empty((len(self.net.driver_names) + 4 + peaks, self.net.frequencies.size))
+        if not hasattr(self, "scratch_rows"):
+            self.source()
+        scratch = np.empty((self.scratch_rows, self.net.frequencies.size))
         nbad = self.kernel()(v, k["r_coef"], k["r_exp"], k["fin"], self.net.source_voltage,
                              self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, self.ang, self.angw, scratch,
                              out)
