@@ -218,3 +218,22 @@ def test_the_demo_writes_its_curves_and_the_angles(tmp_path, cli):
 
     m = json.loads((tmp_path / "sim" / "result.json").read_text())["metrics"]
     assert {"listening_window_rms_db", "sound_power_di_range_db"} <= set(m)
+
+
+def test_a_pruned_off_axis_job_runs_from_its_own_folder_and_a_batch_sees_its_angle_files(write_job, tmp_path, cli):
+    """prune writes a job.toml elsewhere: its angle patterns are rewritten relative to it. A batch's job hash
+    covers the angle files, so editing one reruns the job."""
+    job = _job(write_job)
+    text = job.read_text().replace("value = 2\n", "value = 2\nmin = 0.5\nmax = 8\n")
+    job.write_text(text + '[target.way.w]\ntype = "fullrange"\n[target.way.t]\ntype = "fullrange"\n')
+    code, out, err = cli("prune", job, "--out", tmp_path / "deep" / "p", "--budget", "300")
+    assert code == 0, err
+    code, out, err = cli("simulate", tmp_path / "deep" / "p" / "job.toml", "--out", tmp_path / "s", "--no-plots")
+    assert code == 0, err
+    assert (tmp_path / "s" / "angles.csv").exists() and (tmp_path / "deep" / "p" / "angles.csv").exists()
+    from xo_fit.batch import job_hash
+
+    j = load_job(job)
+    before = job_hash(j, j.data)
+    (tmp_path / "t-h20.txt").write_text(flat_curve(level=85.0))
+    assert job_hash(j, j.data) != before

@@ -87,12 +87,16 @@ def _folder_name(name: str) -> str:
 
 def _data_files(job) -> list[Path]:
     files = []
-    from .io.job import FileCurve
+    from .io.job import FileCurve, SplicedResponse
 
     for d in job.drivers:
         for src in (d.response, d.impedance):
             if isinstance(src, FileCurve):
                 files.append(src.path)
+            elif isinstance(src, SplicedResponse):
+                files += [src.near, src.far]
+        if d.angles is not None:
+            files += sorted({path for path, _ in d.angles.files().values()})
     if job.snap.inventory is not None:
         files.append(job.snap.inventory)
     curve = job.target.curve

@@ -155,8 +155,14 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
                 kind = {"measured": "phase measured", "minimum": "phase derived (minimum phase)"}[phase]
                 if what == "response" and phase == "measured" and curve.phase_deg is None:
                     kind = "no phase"
-                say(f"    {what:<9} {curve.path}  {len(curve.frequency)} points, "
-                    f"measured {format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, {kind}")
+                if what == "response" and d.splice is not None:
+                    sp = spec.response
+                    say(f"    {what:<9} spliced at {format_value(sp.splice_hz, 'Hz')}: near field {sp.near} below, "
+                        f"far field {sp.far} above; near field {d.splice.gain_db:+.2f} dB to match over the third "
+                        f"of an octave there; {format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, {kind}")
+                else:
+                    say(f"    {what:<9} {curve.path}  {len(curve.frequency)} points, "
+                        f"measured {format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, {kind}")
                 ext = _extension_text(spec, what, lo, hi, f)
                 if ext:
                     say(f"    {'':<9} {ext}")

@@ -85,7 +85,7 @@ class Pruning:
 
         import tomli_w
 
-        from .io.job import FileCurve
+        from .io.job import FileCurve, SplicedResponse
 
         job = self.design.job
         doc = job.data
@@ -103,6 +103,13 @@ class Pruning:
                 spec = getattr(d, key)
                 if isinstance(spec, FileCurve):
                     doc["driver"][d.name][key] = moved(spec.path)
+                elif isinstance(spec, SplicedResponse):
+                    doc["driver"][d.name][key].update(near=moved(spec.near), far=moved(spec.far))
+            if d.angles is not None:
+                for orbit in ("horizontal", "vertical"):
+                    pattern = getattr(d.angles, orbit)
+                    if pattern is not None:
+                        doc["driver"][d.name]["angles"][orbit] = moved(Path(pattern))
         curve = doc.get("target", {}).get("curve")
         if isinstance(curve, str) and (Path(curve).suffix or "/" in curve or os.sep in curve):
             doc["target"]["curve"] = moved(job.folder / curve)

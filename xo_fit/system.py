@@ -17,9 +17,9 @@ import numpy as np
 from . import acoustics
 from .coils import DCR_EXPONENT, dcr_coefficient
 from .errors import JobError, NetworkError
-from .io.job import FileCurve, FlatResponse, Job, Resistive, ThieleSmall
+from .io.job import FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
 from .constants import P_REF
-from .io.measure import Curve, extend_curve, on_grid, read_curve
+from .io.measure import Curve, extend_curve, on_grid, read_curve, splice_curves
 from .solver.netlist import check_topology
 from .solver.network import Branch, Network, Solution, compile_network
 
@@ -44,6 +44,7 @@ class DriverData:
     response_curve: Curve | None = None
     impedance_curve: Curve | None = None
     angle_responses: np.ndarray | None = None  # complex Pa at the reference voltage at System.positions, (A, F)
+    splice: object = None  # a spliced response's join (xo_fit.io.measure.Splice), else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -181,10 +182,18 @@ def _check_curves(job: Job, positions: tuple) -> None:
 
 
 def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
-    resp_curve = imp_curve = None
+    resp_curve = imp_curve = splice = None
     if isinstance(spec.response, FlatResponse):
         response = np.full(grid.size, P_REF * 10 ** (spec.response.level_db / 20.0), dtype=complex)
         rphase = "ideal"
+    elif isinstance(spec.response, SplicedResponse):
+        sp = spec.response
+        splice = splice_curves(read_curve(sp.near, "response"), read_curve(sp.far, "response"), sp.splice_hz)
+        resp_curve = splice.curve
+        response, w = on_grid(extend_curve(resp_curve, grid, "response", spec.extend_low, spec.extend_high), grid,
+                              "response", spec.phase)
+        warnings += w
+        rphase = spec.phase
     else:
         assert isinstance(spec.response, FileCurve)
         resp_curve = read_curve(spec.response.path, "response")
@@ -211,7 +220,7 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> Drive
     for arr in (response, impedance):
         arr.setflags(write=False)
     return DriverData(name=spec.name, response=response, impedance=impedance, response_phase=rphase,
-                      impedance_phase=iphase, response_curve=resp_curve, impedance_curve=imp_curve)
+                      impedance_phase=iphase, response_curve=resp_curve, impedance_curve=imp_curve, splice=splice)
 
 
 def branches_for(job: Job) -> list[Branch]:

@@ -98,6 +98,20 @@ class FlatResponse:
 
 
 @dataclass(frozen=True)
+class SplicedResponse:
+    """A response joined from a near-field file (below ``splice_hz``, Hz) and a far-field file (above)."""
+
+    near: Path
+    far: Path
+    splice_hz: float
+
+    @property
+    def path(self) -> Path:
+        """The far-field file (the one that names the curve in messages)."""
+        return self.far
+
+
+@dataclass(frozen=True)
 class Resistive:
     """An ideal driver impedance: ``resistance`` ohm, zero phase."""
 
@@ -186,7 +200,7 @@ class DriverSpec:
     """One measured driver: where its response and impedance come from, and how to place it."""
 
     name: str
-    response: FileCurve | FlatResponse
+    response: FileCurve | FlatResponse | SplicedResponse
     impedance: FileCurve | Resistive | ThieleSmall
     reference_voltage: float
     offset: float
@@ -541,6 +555,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
               "impedance_extend_low impedance_extend_high",
     "thiele_small": "re le fs qms qes le_exponent l2 r2",
     "angles": "horizontal vertical horizontal_angles vertical_angles mirror",
+    "splice": "near far splice_hz",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",
@@ -558,7 +573,8 @@ def _table_kind(table: tuple) -> str:
     if not table:
         return "top"
     if table[0] == "driver":
-        return ("angles" if table[2] == "angles" else "thiele_small") if len(table) == 3 else "driver"
+        return ({"angles": "angles", "response": "splice"}.get(table[2], "thiele_small") if len(table) == 3
+                else "driver")
     if table[0] == "target" and len(table) == 3:
         return "way"
     if table[:2] == ("search", "robust"):
@@ -839,7 +855,15 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
     if isinstance(resp, (int, float)) and not isinstance(resp, bool):
         if not (math.isfinite(resp) and -300 <= resp <= 300):
             raise r.error("response", f"a flat driver's level must be -300 to 300 dB SPL, got {_short(resp)}")
-        response: FileCurve | FlatResponse = FlatResponse(float(resp))
+        response: FileCurve | FlatResponse | SplicedResponse = FlatResponse(float(resp))
+    elif isinstance(resp, dict):
+        t = r.sub("response", f"[driver.{name}.response]")
+        response = SplicedResponse(near=t.path("near"), far=t.path("far"), splice_hz=t.value("splice_hz", "Hz",
+                                                                                               required=True))
+        t.done()
+        if _phase_choice(r, "phase") != "minimum":
+            raise r.error("phase", "a spliced response must use phase = \"minimum\": the near and far fields' "
+                                   "phases do not join, the spliced magnitude gives the phase")
     else:
         response = FileCurve(r.path("response"))
     imp = r.raw("impedance")
@@ -878,14 +902,14 @@ def _driver(name: str, r: _Reader, voltage: float) -> DriverSpec:
         extend_high=r.choice("extend_high", ("none", "slope"), d["extend_high"]),
         impedance_extend_low=r.choice("impedance_extend_low", ("none", "slope"), d["impedance_extend_low"]),
         impedance_extend_high=r.choice("impedance_extend_high", ("none", "slope"), d["impedance_extend_high"]),
-        angles=_angles(r.sub("angles", f"[driver.{name}.angles]"), isinstance(response, FileCurve))
+        angles=_angles(r.sub("angles", f"[driver.{name}.angles]"), isinstance(response, (FileCurve, SplicedResponse)))
         if r.has("angles") else None,
     )
     for keys, what, phase_key in ((("extend_low", "extend_high"), "response", "phase"),
                                   (("impedance_extend_low", "impedance_extend_high"), "impedance", "impedance_phase")):
         for key in keys:
             if getattr(spec, key) != "none":
-                if not isinstance(getattr(spec, what), FileCurve):
+                if not isinstance(getattr(spec, what), (FileCurve, SplicedResponse)):
                     raise r.error(key, f"only a {what} read from a file can be extended")
                 if getattr(spec, phase_key) != "minimum":
                     raise r.error(key, f"an extended {what} must use {phase_key} = \"minimum\": the measured phase "

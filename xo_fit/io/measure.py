@@ -286,6 +286,55 @@ def extend_curve(curve: Curve, grid: np.ndarray, kind: str, low: str = "none", h
     return Curve(path=curve.path, frequency=np.exp(uu), magnitude=mag, phase_deg=None, lines=lines)
 
 
+#: Width of the band around a splice over which the near field is level-matched and faded into the far field.
+SPLICE_OCTAVES = 1.0 / 3.0
+#: Points per octave of a spliced curve.
+SPLICE_PER_OCTAVE = 48
+
+
+@dataclass(frozen=True)
+class Splice:
+    """A near-field and a far-field response joined: ``curve`` (magnitude only, dB SPL), the ``gain_db``
+    added to the near field to match the far field around ``splice_hz``."""
+
+    curve: Curve
+    gain_db: float
+    splice_hz: float
+
+
+def splice_curves(near: Curve, far: Curve, splice_hz: float) -> Splice:
+    """Join a near-field response (below ``splice_hz``) to a far-field one (above), both dB SPL.
+
+    The near field is shifted by the mean dB difference over the third of an octave centred on the splice
+    (means over log frequency), then faded into the far field over that same third of an octave (weights
+    linear in log frequency), so the join has neither a step nor a kink worse than the data's. The result
+    covers the near file's start to the far file's end, at SPLICE_PER_OCTAVE points per octave; it has no
+    phase (it takes minimum phase from its whole magnitude). Raises DataError when either file does not
+    cover the splice's third of an octave.
+    """
+    half = SPLICE_OCTAVES / 2 * np.log(2.0)
+    u0 = float(np.log(splice_hz))
+    for c, name in ((near, "near"), (far, "far")):
+        lo, hi = np.log(c.f_range[0]), np.log(c.f_range[1])
+        if not (lo <= u0 - half and u0 + half <= hi):
+            raise DataError(f"the {name}-field file covers {c.f_range[0]:g}-{c.f_range[1]:g} Hz; it must cover the "
+                            f"third of an octave around splice_hz = {splice_hz:g} Hz "
+                            f"({np.exp(u0 - half):.4g}-{np.exp(u0 + half):.4g} Hz)", path=c.path)
+    un, uf = np.log(near.frequency), np.log(far.frequency)
+    window = np.linspace(u0 - half, u0 + half, 33)
+    gain = float(np.mean(np.interp(window, uf, far.magnitude) - np.interp(window, un, near.magnitude)))
+    lo, hi = float(un[0]), float(uf[-1])
+    n = max(int(np.ceil((hi - lo) / np.log(2.0) * SPLICE_PER_OCTAVE)) + 1, 2)
+    u = np.linspace(lo, hi, n)
+    a = np.interp(u, un, near.magnitude) + gain
+    b = np.interp(u, uf, far.magnitude)
+    w = np.clip((u - (u0 - half)) / (2 * half), 0.0, 1.0)  # 0: near field, 1: far field
+    db = np.where(u < u0 - half, a, np.where(u > u0 + half, b, (1 - w) * a + w * b))
+    curve = Curve(path=far.path, frequency=np.exp(u), magnitude=db, phase_deg=None,
+                  lines=np.zeros(n, dtype=far.lines.dtype))
+    return Splice(curve=curve, gain_db=gain, splice_hz=float(splice_hz))
+
+
 def _highpass_extension(u: np.ndarray, db: np.ndarray, ue: np.ndarray, order: int) -> np.ndarray:
     """dB below the data's first point from an order-N Butterworth high-pass fitted over its lowest octave."""
     sel = u <= u[0] + np.log(2.0)
