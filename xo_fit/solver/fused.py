@@ -112,6 +112,10 @@ class FusedCost:
         rows.append(x)
         self.sxx = float(np.sum(x**2))
         self.tgt = np.ascontiguousarray(np.vstack(rows))
+        # scratch rows per frequency: driver dB (D), sum dB, impedance shortfall, peak stresses, the early
+        # reflections' and sound power's dB, driver voltages (2D), the three position sums
+        n_peaks = sum(kind != "R" for _, _, kind, _ in cm.rated)
+        self.scratch_rows = d + 4 + n_peaks + 2 * d + 3
         self._kernel = None
 
     # ------------------------------------------------------------------ code
@@ -161,7 +165,7 @@ class FusedCost:
             if need["sound_power"]:
                 angle_post += [f"spd = DB10 * ln(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
                                f"scratch[{row_p}, f] = spd", "acc_sp += spd"]
-        self.scratch_rows = row_q + 3
+        assert self.scratch_rows == row_q + 3
         lines += angle_pre
         for k, (vr, vi) in enumerate(code.volts):
             lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
@@ -305,9 +309,6 @@ class FusedCost:
         v = self.net._check_values(values)
         k = self.net._kernel_args()
         out = np.empty((v.shape[0], FLAG + 1))
-        peaks = sum(kind != "R" for _, _, kind, _ in self.cm.rated)
-        if not hasattr(self, "scratch_rows"):
-            self.source()
         scratch = np.empty((self.scratch_rows, self.net.frequencies.size))
         nbad = self.kernel()(v, k["r_coef"], k["r_exp"], k["fin"], self.net.source_voltage,
                              self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, self.ang, self.angw, scratch,
