@@ -237,3 +237,20 @@ def test_a_pruned_off_axis_job_runs_from_its_own_folder_and_a_batch_sees_its_ang
     before = job_hash(j, j.data)
     (tmp_path / "t-h20.txt").write_text(flat_curve(level=85.0))
     assert job_hash(j, j.data) != before
+
+
+def test_the_api_gives_the_directivity_and_fits_a_driver(tmp_path):
+    import xo_fit
+    from xo_fit.demo import WOOFER, write_scenario
+
+    job = write_scenario(tmp_path / "s")
+    d = xo_fit.simulate(job)
+    df = d.directivity
+    assert list(df.columns)[:3] == ["frequency_hz", "on_axis_db", "listening_window_db"] and len(df) == 300
+    positions, p, curves = d.off_axis()
+    assert p.shape == (70, 300) and positions[0] == ("h", 0)
+    # on the axis the summed pressure is response.csv's sum
+    np.testing.assert_allclose(20 * np.log10(np.abs(p[0]) / 20e-6), d.response["sum_db"], atol=1e-9)
+    fit = xo_fit.fit_driver(tmp_path / "s" / "data" / "woofer-impedance.txt", "ts-lossy")
+    assert fit.params.fs == pytest.approx(WOOFER.fs, rel=0.02) and fit.rms_error_pct < 10
+    assert "[driver.w.impedance]" in fit.toml("w")

@@ -247,6 +247,8 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
     assert not re.search(r"(href|src)\s*=\s*[\"'](?!data:)", page)
     assert "http://" not in page and "https://" not in page
     assert page.count('src="data:image/png;base64,') >= 5
+    # the demo is an off-axis job: its directivity curves and the colour maps of each orbit
+    assert 'alt="directivity"' in page and 'alt="angles"' in page and "sound power DI runs from" in page
     for text in ("Metrics", "Part list", "Cautions", "EPDR", "Stresses at 60 W into 4 Ω", "R1", "rated 10 W",
                  "licensed practice", "xo_fit 0.", "from: xo-fit", "(at its min)", "Where the error lies"):
         assert text in page, text

@@ -17,7 +17,8 @@ from .errors import XoFitError
 
 __version__ = "0.2.0"
 
-_API = ("load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "Design", "Spread")
+_API = ("load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "fit_driver", "Design",
+        "Spread")
 __all__ = ["XoFitError", "__version__", *_API]
 
 

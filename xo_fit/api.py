@@ -223,6 +223,16 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
                      workers=workers, progress=progress)
 
 
+def fit_driver(path: str | Path, model: str = "ts"):
+    """An equivalent circuit fitted to a measured impedance file (``"ts"``: Small's model; ``"ts-lossy"``: with
+    L2 || R2): an :class:`xo_fit.impedance_fit.ImpedanceFit` (``params``, ``rms_error_pct``,
+    ``max_error_pct``, ``toml(name)``). Bad files and fits that fail raise XoFitError."""
+    from .impedance_fit import fit_impedance
+    from .io.measure import read_curve
+
+    return fit_impedance(read_curve(path, "impedance"), model)
+
+
 def write_report(items: list, out: str | Path, command: list[str] | None = None) -> Path:
     """report.html (self-contained) and its PNGs for designs and spreads (or result.json paths), overlaid."""
     from .report import write_report as _write

@@ -223,6 +223,16 @@ class Design:
             self.info["off_axis"] = (self.system.positions, p[0], {k: v[0] for k, v in curves.items()})
         return self.info["off_axis"]
 
+    @property
+    def directivity(self):
+        """An off-axis job's directivity.csv columns as a pandas DataFrame (None on axis)."""
+        tables = self.directivity_tables()
+        if not tables:
+            return None
+        import pandas as pd
+
+        return pd.DataFrame(tables["directivity.csv"].columns)
+
     def directivity_tables(self) -> dict:
         """{"directivity.csv": Table, "angles.csv": Table} of an off-axis job; {} otherwise."""
         data = self.off_axis()
