@@ -180,6 +180,10 @@ def test_a_bad_angle_file_names_the_driver_the_angle_and_the_file(write_job, cli
     files["t-h20.txt"] = "100 90 0\n200 nonsense 0\n"
     code, _, err = cli("check", _job(write_job, files=files))
     assert code == 2 and "t-h20.txt:2" in err and "[driver.t.angles] h20" in err, err
+    files = _files((10, 20, 30))
+    files["w-h10.txt"] = flat_curve(f_lo=200.0)  # the grid starts at 100 Hz
+    code, _, err = cli("check", _job(write_job, files=files))
+    assert code == 2 and "w-h10.txt" in err and "[driver.w.angles] h10" in err and "grid spans" in err, err
     job = _job(write_job)
     (tmp_path / "w-h30.txt").unlink()
     code, _, err = cli("check", job)
