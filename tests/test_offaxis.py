@@ -258,3 +258,19 @@ def test_the_api_gives_the_directivity_and_fits_a_driver(tmp_path):
     fit = xo_fit.fit_driver(tmp_path / "s" / "data" / "woofer-impedance.txt", "ts-lossy")
     assert fit.params.fs == pytest.approx(WOOFER.fs, rel=0.02) and fit.rms_error_pct < 10
     assert "[driver.w.impedance]" in fit.toml("w")
+
+
+def test_a_spread_judges_the_listening_window_when_the_target_does(tmp_path):
+    """The demo is referred to its listening window: the spread's "sum" percentiles are of that curve (their
+    median within 0.1 dB of the nominal listening window), not of the on-axis sum, which parts from it by more
+    than 0.3 dB near the top."""
+    import xo_fit
+    from xo_fit.demo import write_scenario
+
+    job = write_scenario(tmp_path / "s")
+    tol = xo_fit.spread(job, samples=200, seed=1)
+    lw = tol.design.directivity["listening_window_db"].to_numpy()
+    on = tol.design.response["sum_db"].to_numpy()
+    p50 = tol.curves["sum_p50_db"].to_numpy()
+    assert np.max(np.abs(p50 - lw)) < 0.1
+    assert np.max(np.abs(on - lw)) > 0.3

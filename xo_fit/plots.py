@@ -61,6 +61,8 @@ def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | Non
             ax.semilogx(f, acoustics.spl_db(p), lw=0.9, color=colors[i % len(colors)], alpha=0.45)
         ax.semilogx(f, acoustics.spl_db(other.total[0]), color="0.55", lw=1.6, label=f"sum, {compare[0]}")
     ax.semilogx(f, sum_db, color="k", lw=2.0, label="sum")
+    if system.job.target.reference == "listening_window" and system.positions:
+        ax.semilogx(f, system.reference_db(s.sim)[0], color="tab:blue", lw=1.8, label="listening window")
     if targets is not None:
         ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.system)), color="k", lw=1.0, ls="--",
                     label="target")
@@ -136,7 +138,8 @@ def plot_spread(path: str | Path, system, s, r, *, title: str) -> None:
     import matplotlib.pyplot as plt
 
     f = system.frequencies
-    names = ["sum"] + [d.name for d in system.job.drivers]
+    lw = system.job.target.reference == "listening_window" and bool(system.positions)
+    names = ["listening window" if lw else "sum"] + [d.name for d in system.job.drivers]
     fig, ax = plt.subplots(1, 1, figsize=(9, 5.2))
     colors = ["k"] + plt.rcParams["axes.prop_cycle"].by_key()["color"]
     for i, name in enumerate(names):

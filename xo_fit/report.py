@@ -62,7 +62,9 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
     figs: dict[str, bytes] = {}
     top = float(np.max(spl_db_of(scored[0].sim.total[0])))
 
-    # 1. summed response against the target (with the tolerance band of a spread)
+    # 1. summed response against the target (with the tolerance band of a spread); an off-axis job referred to
+    # its listening window shows that curve too, the one the target and the spread judge
+    lw_ref = base.job.target.reference == "listening_window" and bool(base.positions)
     fig, ax = plt.subplots(figsize=(9, 4.2))
     for k, ((label, _, spread), s) in enumerate(zip(entries, scored)):
         c = shades[k % len(shades)]
@@ -70,10 +72,15 @@ def _figures(entries: list[tuple]) -> dict[str, bytes]:
             ax.fill_between(f, spread["sum_p05_db"], spread["sum_p95_db"], color=c, alpha=0.18, lw=0,
                             label=f"p05-p95, {label}")
         ax.semilogx(f, spl_db_of(s.sim.total[0]), color=c, lw=2.0 if k == 0 else 1.4, label=f"sum, {label}")
+        if lw_ref:
+            ax.semilogx(f, entries[k][1].system.reference_db(s.sim)[0], color=c, ls="-.", lw=1.4,
+                        label=f"listening window, {label}")
     if scored[0].targets is not None:
         ax.semilogx(f, scored[0].level_db + 20 * np.log10(np.abs(scored[0].targets.system)), "k--", lw=1.0,
                     label="target")
-    finish_axes(ax, "SPL (dB)", "Summed response against the target", f, top=top)
+    finish_axes(ax, "SPL (dB)", ("Listening window (the target's curve) and on-axis sum against the target, "
+                                 "spread bands of the listening window") if lw_ref
+                else "Summed response against the target", f, top=top)
     figs["sum"] = png_bytes(fig)
 
     # 2. each way against its way target

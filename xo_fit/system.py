@@ -114,6 +114,16 @@ class System:
         return Simulation(voltages=sol.voltages, impedance=sol.impedance, pressure=p, total=acoustics.total(p),
                           angles=angles)
 
+    def reference_db(self, sim: Simulation) -> np.ndarray:
+        """dB SPL (B, F) of the curve the system target applies to, for a Simulation: the on-axis sum, or (with
+        ``[target] reference = "listening_window"``) the listening window, from its positions alone."""
+        if self.job.target.reference != "listening_window" or self.angle_factors is None:
+            return acoustics.spl_db(sim.total)
+        w = acoustics.curve_weights(self.positions)["listening_window"]
+        idx = np.nonzero(w)[0]
+        p2 = np.abs(acoustics.angle_pressures(sim.voltages, self.angle_factors[idx])) ** 2
+        return acoustics.power_db(np.einsum("baf,a->bf", p2, w[idx]))
+
     def directivity(self, values: np.ndarray) -> dict[str, np.ndarray]:
         """The ANSI/CTA-2034-A curves of designs (B, P) or (P,) of an off-axis job, mean squared pressure in
         Pa^2, (B, F) each (see :func:`xo_fit.acoustics.directivity`); {} without angles."""

@@ -154,14 +154,15 @@ class SpreadResult:
 
 
 def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray) -> np.ndarray:
-    """d(sum dB)/d(+1 % of each part), (P, F), by central differences of +-SENS_STEP."""
+    """d(sum dB)/d(+1 % of each part), (P, F), by central differences of +-SENS_STEP (the sum: the curve the
+    system target applies to, the listening window for an off-axis job referred to it)."""
     p = nominal.size
     v = np.repeat(nominal[None, :], 2 * p, axis=0)
     for i in range(p):
         v[2 * i, i] *= 1 + SENS_STEP
         v[2 * i + 1, i] *= 1 - SENS_STEP
     sim = system.simulate(v)
-    db = spl_db(sim.total)
+    db = system.reference_db(sim)
     return (db[0::2] - db[1::2]) / 2.0 * (0.01 / SENS_STEP)
 
 
@@ -183,7 +184,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
     tol = part_tolerances(job)
     nominal = np.asarray(nominal, dtype=float)
     nom = system.simulate(nominal)
-    nom_db = np.concatenate([spl_db(nom.total), spl_db(nom.pressure[0])], axis=0)  # (C, F)
+    nom_db = np.concatenate([system.reference_db(nom), spl_db(nom.pressure[0])], axis=0)  # (C, F)
     hist = _Hist(nom_db.shape[0], f.size)
     target_db = _target_db(system)
     floor = job.cost.impedance_min
@@ -196,7 +197,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
     for lo in range(0, samples, CHUNK):
         fac = factors[lo:lo + CHUNK]
         sim = system.simulate(nominal[None, :] * fac)
-        db = np.concatenate([spl_db(sim.total)[:, None, :], spl_db(sim.pressure)], axis=1)  # (B, C, F)
+        db = np.concatenate([system.reference_db(sim)[:, None, :], spl_db(sim.pressure)], axis=1)  # (B, C, F)
         dev = db - nom_db[None]
         hist.add(dev)
         sdev = np.abs(dev[:, 0, band])
@@ -266,7 +267,7 @@ def worst_corners(system, nominal, tol, sens, band, nominal_sum_db) -> dict:
     dev_max = np.zeros(signs.shape[0])
     for lo in range(0, signs.shape[0], CHUNK):
         sim = system.simulate(vals[lo:lo + CHUNK])
-        dev_max[lo:lo + CHUNK] = np.abs(spl_db(sim.total)[:, band] - nominal_sum_db[band]).max(axis=1)
+        dev_max[lo:lo + CHUNK] = np.abs(system.reference_db(sim)[:, band] - nominal_sum_db[band]).max(axis=1)
     w = int(np.argmax(dev_max))
     names = system.part_names
     return {"method": method, "worst_deviation_db": float(dev_max[w]),
