@@ -6,14 +6,18 @@ come from docs/references.md unless a test says otherwise.
 
 from __future__ import annotations
 
+import os
 import textwrap
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from xo_fit.cli import main
-from xo_fit.solver.network import Branch, compile_network
+# no background builds of standalone kernels while the suite runs (tests/test_standalone.py turns them on)
+os.environ.setdefault("XO_FIT_STANDALONE", "0")
+
+from xo_fit.cli import main  # noqa: E402
+from xo_fit.solver.network import Branch, compile_network  # noqa: E402
 
 
 def net_of(parts: list[tuple], loads: list[np.ndarray | float], f: np.ndarray, *, rs: float = 0.0,

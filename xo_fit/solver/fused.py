@@ -28,7 +28,8 @@ import numpy as np
 from ..constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB, Z_SHORT_OHM
 from ..cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from .codegen import solver_code
-from .kernels import KERNEL_VERSION, load_kernel
+from .standalone import COST_SIGNATURE
+from .kernels import KERNEL_VERSION, load_kernel, request_standalone
 
 #: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
 _P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
@@ -293,12 +294,13 @@ class FusedCost:
 
     def kernel(self):
         if self._kernel is None:
-            self._kernel = load_kernel(self.source(), entry="cost_kernel")
+            self._kernel = load_kernel(self.source(), entry="cost_kernel", standalone=True)
         return self._kernel
 
     def __getstate__(self) -> dict:
         state = self.__dict__.copy()
         state["_kernel"] = None
+        state["_asked"] = False
         return state
 
     # ------------------------------------------------------------------ evaluation
@@ -306,13 +308,20 @@ class FusedCost:
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
         """(B, 10): cost, the TERMS (way, sum, phase, impedance, stress, early_reflections, sound_power), level,
         flag for designs (B, P); flagged rows re-scored."""
-        v = self.net._check_values(values)
+        v = np.ascontiguousarray(self.net._check_values(values), dtype=float)
         k = self.net._kernel_args()
         out = np.empty((v.shape[0], FLAG + 1))
         scratch = np.empty((self.scratch_rows, self.net.frequencies.size))
-        nbad = self.kernel()(v, k["r_coef"], k["r_exp"], k["fin"], self.net.source_voltage,
-                             self.net.source_resistance, PIVOT_TOLERANCE**2, self.tgt, self.ang, self.angw, scratch,
-                             out)
+        args = (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
+                float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw, scratch,
+                out)
+        nbad = self.kernel()(*args)
+        if not self.__dict__.get("_asked"):
+            # a topology new to this machine ran on the JIT: a standalone copy is built in the background
+            self._asked = True
+            n = min(v.shape[0], 64)
+            request_standalone(self.source(), "cost_kernel", COST_SIGNATURE,
+                               (v[:n].copy(), *args[1:10], scratch.copy(), np.zeros((n, FLAG + 1))))
         if nbad:
             redo = np.nonzero(~(out[:, FLAG] <= 0.0))[0]
             ev = self.cm.evaluate(v[redo])

@@ -14,6 +14,8 @@ import sys
 import tempfile
 from pathlib import Path
 
+from .vectors import prefer_wide_vectors
+
 #: Bump when the generated code changes meaning, so stale caches are not reused.
 KERNEL_VERSION = 2
 
@@ -63,37 +65,44 @@ def cache_dir() -> Path:
 _LOADED: dict[str, object] = {}
 
 
-def _prefer_wide_vectors() -> None:
-    """On AVX-512 hosts let LLVM use 512-bit vectors (it prefers 256 by default).
+def _numba_version() -> str:
+    """numba's version, read from its installed metadata (importing numba costs 0.2 s)."""
+    if "numba" in sys.modules:
+        return sys.modules["numba"].__version__
+    from importlib.metadata import version
 
-    Measured on the reference network here: 18-30 % more sweeps per second. Only
-    done when numba has not been imported yet and the user has not set
-    NUMBA_CPU_FEATURES; XO_FIT_VECTOR_WIDTH=256 turns it off.
+    return version("numba")
+
+
+def kernel_digest(source: str) -> str:
+    """The cache key of a kernel's text (with the kernel version and numba's)."""
+    return hashlib.sha256(f"{KERNEL_VERSION}\n{_numba_version()}\n{source}".encode()).hexdigest()[:20]
+
+
+#: Digests whose kernel was loaded from a standalone module (no numba involved).
+STANDALONE: set[str] = set()
+
+
+def load_kernel(source: str, entry: str = "kernel", *, standalone: bool = False):
+    """Write ``source`` to the cache (once, atomically), import it and return its function ``entry``.
+
+    standalone: first look for a standalone (ahead-of-time compiled) copy of the kernel in the cache
+    (:mod:`xo_fit.solver.standalone`), which loads without numba; its digest is then in ``STANDALONE``.
     """
-    if "numba" in sys.modules or "NUMBA_CPU_FEATURES" in os.environ:
-        return
-    if os.environ.get("XO_FIT_VECTOR_WIDTH", "512") == "256":
-        return
-    try:
-        import llvmlite.binding as llvm
-
-        features = llvm.get_host_cpu_features().flatten()
-    except Exception:  # pragma: no cover - no llvmlite host query: leave numba's defaults
-        return
-    if "+avx512f" in features.split(","):
-        os.environ["NUMBA_CPU_FEATURES"] = features + ",-prefer-256-bit"
-
-
-def load_kernel(source: str, entry: str = "kernel"):
-    """Write ``source`` to the cache (once, atomically), import it and return its function ``entry``."""
-    _prefer_wide_vectors()
-    import numba
-
-    digest = hashlib.sha256(f"{KERNEL_VERSION}\n{numba.__version__}\n{source}".encode()).hexdigest()[:20]
+    digest = kernel_digest(source)
     if digest in _LOADED:
         return _LOADED[digest]
     folder = cache_dir()
-    path = folder / f"xo_kernel_{digest}.py"
+    if standalone:
+        from .standalone import load
+
+        fn = load(folder, digest, entry)
+        if fn is not None:
+            STANDALONE.add(digest)
+            _LOADED[digest] = fn
+            return fn
+    prefer_wide_vectors()
+    path = source_path(folder, digest)
     if not path.exists() or path.read_text() != source:
         fd, tmp = tempfile.mkstemp(dir=folder, suffix=".tmp")
         with os.fdopen(fd, "w") as fh:
@@ -106,3 +115,20 @@ def load_kernel(source: str, entry: str = "kernel"):
     spec.loader.exec_module(module)
     _LOADED[digest] = getattr(module, entry)
     return _LOADED[digest]
+
+
+def source_path(folder: Path, digest: str) -> Path:
+    """Where a kernel's generated text lives in the cache."""
+    return folder / f"xo_kernel_{digest}.py"
+
+
+def request_standalone(source: str, entry: str, signature: str, probe: tuple) -> bool:
+    """Ask for a standalone copy of a kernel loaded through the JIT (a background build, for later runs);
+    ``probe`` is one call's arguments, to check the copy against. Returns whether a build started."""
+    digest = kernel_digest(source)
+    if digest in STANDALONE:
+        return False
+    from .standalone import start_build
+
+    folder = cache_dir()
+    return start_build(folder, digest, source_path(folder, digest), entry, signature, probe)
