@@ -101,9 +101,7 @@ def sound_power_weights() -> dict[Position, float]:
     out = {}
     for pos in CTA_POSITIONS:
         t = math.radians(abs(pos[1]))
-        if pos == ("h", 0):
-            area = 2 * math.pi * (1 - math.cos(half))
-        elif pos == ("h", 180):
+        if pos in (("h", 0), ("h", 180)):  # a cap, its point alone
             area = 2 * math.pi * (1 - math.cos(half))
         else:
             area = 2 * math.pi * (math.cos(t - half) - math.cos(t + half)) / 4
@@ -149,6 +147,22 @@ def angle_pressures(voltages: np.ndarray, factors: np.ndarray) -> np.ndarray:
     """The summed pressure at every position, Pa (B, A, F), from terminal voltages (B, D, F) and the
     per-volt factors of each driver at each position (A, D, F)."""
     return np.einsum("bdf,adf->baf", voltages, factors)
+
+
+def used_positions(weights: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """The positions some of ``weights`` (each (A,)) count, and their weights: indices (A',), weights (A', K)."""
+    w = np.stack(weights, axis=1)
+    index = np.nonzero(np.any(w > 0, axis=1))[0]
+    return index, w[index]
+
+
+def curve_sums(voltages: np.ndarray, factors: np.ndarray, weights: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Mean squared pressure (Pa^2, (B, F)) of each curve in ``weights`` (name -> (A,) weights, e.g. from
+    :func:`curve_weights`), summing only the positions they count: voltages (B, D, F), factors (A, D, F)."""
+    names = list(weights)
+    index, w = used_positions([weights[n] for n in names])
+    p2 = np.abs(angle_pressures(voltages, factors[index])) ** 2  # (B, A', F)
+    return {n: np.einsum("baf,a->bf", p2, w[:, i]) for i, n in enumerate(names)}
 
 
 def directivity(p2: np.ndarray, weights: dict[str, np.ndarray | None]) -> dict[str, np.ndarray]:

@@ -176,10 +176,13 @@ def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
     if system.positions:
         from .acoustics import curve_weights, missing_positions
 
-        have = [k.replace("_", " ") for k, w in curve_weights(system.positions).items() if w is not None]
-        lack = [f"{k.replace('_', ' ')} (needs {', '.join(f'{o}{a}' for o, a in missing_positions(system.positions, k)[:4])}"
-                f"{' ...' if len(missing_positions(system.positions, k)) > 4 else ''})"
-                for k, w in curve_weights(system.positions).items() if w is None]
+        weights = curve_weights(system.positions)
+        have = [k.replace("_", " ") for k, w in weights.items() if w is not None]
+        lack = []
+        for k in (k for k, w in weights.items() if w is None):
+            miss = missing_positions(system.positions, k)
+            lack.append(f"{k.replace('_', ' ')} (needs {', '.join(f'{o}{a}' for o, a in miss[:4])}"
+                        f"{' ...' if len(miss) > 4 else ''})")
         say(f"off axis {len(system.positions)} positions; curves: on axis"
             + "".join(f", {x}" for x in have) + (f"; not available: {'; '.join(lack)}" if lack else ""))
     say("parts")

@@ -64,7 +64,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .acoustics import angle_pressures, curve_weights, directivity, power_db, spl_db
+from .acoustics import angle_pressures, curve_sums, curve_weights, directivity, power_db, spl_db
 from .constants import SPL_FLOOR_DB, Z_SHORT_OHM
 from .grid import band_mask
 
@@ -128,15 +128,10 @@ class CostModel:
         self.off_axis = bool(system.positions)
         self.reference = system.job.target.reference
         self.curve_weights = curve_weights(system.positions) if self.off_axis else {}
-        # the positions the cost reads (those of the curves it weighs), and their weights (A', 3)
+        # the curves the cost weighs (their positions are the only ones it reads)
         self.needed = [n for n, used in (("listening_window", self.reference == "listening_window"),
                                          ("early_reflections", spec.early_reflections > 0),
                                          ("sound_power", spec.sound_power > 0)) if used and self.off_axis]
-        if self.needed:
-            w = np.stack([self.curve_weights[n] for n in self.needed], axis=1)
-            self.active = np.nonzero(np.any(w > 0, axis=1))[0]
-            self.active_weights = w[self.active]
-            self.active_factors = system.angle_factors[self.active]
         self.rated = rated_parts(system) if spec.stress > 0 else []
         drive = system.job.stress
         self.drive_scale = (math.sqrt(drive.power * drive.rated_impedance) / system.network.source_voltage
@@ -199,8 +194,7 @@ class CostModel:
         a Simulation; {} when it weighs none."""
         if not self.needed:
             return {}
-        p2 = np.abs(angle_pressures(sim.voltages, self.active_factors)) ** 2  # (B, A', F)
-        return {n: np.einsum("baf,a->bf", p2, self.active_weights[:, i]) for i, n in enumerate(self.needed)}
+        return curve_sums(sim.voltages, self.system.angle_factors, {n: self.curve_weights[n] for n in self.needed})
 
     def all_curves(self, sim) -> dict[str, np.ndarray]:
         """Every ANSI/CTA-2034-A curve the job's positions allow (Pa^2, (B, F)); {} on axis."""

@@ -86,11 +86,6 @@ class ImpedanceFit:
         return f"[driver.{name}.impedance]\n" + "\n".join(lines) + "\n"
 
 
-def model_impedance(model: str, x: np.ndarray, f: np.ndarray) -> np.ndarray:
-    """Impedance (ohm, complex, shape of ``f``) of ``model`` with log-parameters ``x`` (order of _NAMES)."""
-    return _params(model, x).impedance(f)
-
-
 def _params(model: str, x: np.ndarray) -> ThieleSmall:
     v = dict(zip(_NAMES[model], np.exp(np.asarray(x, dtype=float)).tolist()))
     return ThieleSmall(re=v["re"], le=v["le"], fs=v["fs"], qms=v["qms"], qes=v["qes"],
@@ -101,7 +96,8 @@ def _resampled(curve: Curve) -> tuple[np.ndarray, np.ndarray, bool]:
     """The curve on points evenly spaced in log frequency: (f Hz (N,), Z ohm complex or |Z| real (N,), phase?)."""
     lo, hi = curve.f_range
     n = int(min(max(math.ceil(math.log2(hi / lo) * FIT_PER_OCTAVE) + 1, 16), 2000))
-    n = min(n, max(curve.frequency.size, 16)) if curve.frequency.size >= 16 else n
+    if curve.frequency.size >= 16:  # no finer than the file itself
+        n = min(n, curve.frequency.size)
     f = np.geomspace(lo, hi, n)
     logf, logg = np.log(curve.frequency), np.log(f)
     mag = np.exp(np.interp(logg, logf, np.log(curve.magnitude)))
@@ -111,11 +107,12 @@ def _resampled(curve: Curve) -> tuple[np.ndarray, np.ndarray, bool]:
     return f, mag * np.exp(1j * ph), True
 
 
-def _start(f: np.ndarray, mag: np.ndarray, path) -> tuple[dict, list[str]]:
-    """Start values from the magnitude (Small 1972's construction) and remarks (a second peak)."""
+def _start(f: np.ndarray, mag: np.ndarray, path) -> tuple[dict, str | None]:
+    """Start values from the magnitude (Small 1972's construction), and what is wrong with a file of more
+    peaks than one (None for one)."""
     from scipy.signal import find_peaks
 
-    remarks: list[str] = []
+    second = None
     zmin = float(np.min(mag))
     peaks, props = find_peaks(np.log(mag), prominence=math.log(MIN_PEAK_RATIO))
     if peaks.size == 0:
@@ -126,9 +123,9 @@ def _start(f: np.ndarray, mag: np.ndarray, path) -> tuple[dict, list[str]]:
     k = int(peaks[order[0]])
     if peaks.size > 1:
         other = [f"{f[int(p)]:.4g} Hz" for p in peaks[order[1:]]]
-        remarks.append(f"{path}: more peaks than one ({f[k]:.4g} Hz fitted; also {', '.join(other)}): a vented "
-                       "or passive-radiator box has two, which Small's closed-box model does not describe; "
-                       "measure the driver in free air or a closed box for its parameters")
+        second = (f"more peaks than one ({f[k]:.4g} Hz fitted; also {', '.join(other)}): a vented "
+                  "or passive-radiator box has two, which Small's closed-box model does not describe; "
+                  "measure the driver in free air or a closed box for its parameters")
     fs, zmax = float(f[k]), float(mag[k])
     after = mag[k:]
     re = float(np.min(after)) if after.size > 1 else zmin
@@ -143,7 +140,7 @@ def _start(f: np.ndarray, mag: np.ndarray, path) -> tuple[dict, list[str]]:
     qes = qms / (r0 - 1)
     w_top = 2 * math.pi * f[-1]
     le = math.sqrt(max(mag[-1] ** 2 - re ** 2, (0.05 * re) ** 2)) / w_top
-    return {"re": re, "le": le, "fs": fs, "qms": qms, "qes": qes}, remarks
+    return {"re": re, "le": le, "fs": fs, "qms": qms, "qes": qes}, second
 
 
 def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
@@ -166,13 +163,14 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
                         line=int(curve.lines[i]))
     f, z, phase = _resampled(curve)
     mag = np.abs(z)
-    start, remarks = _start(f, mag, curve.path)
+    start, second = _start(f, mag, curve.path)
+    remarks = [f"{curve.path}: {second}"] if second else []
     names = _NAMES[model]
     lo = np.log([_BOUNDS[n][0] for n in names])
     hi = np.log([_BOUNDS[n][1] for n in names])
 
     def residual(x: np.ndarray) -> np.ndarray:
-        zm = model_impedance(model, x, f)
+        zm = _params(model, x).impedance(f)
         if phase:
             e = (zm - z) / mag
             return np.concatenate([e.real, e.imag])
@@ -210,9 +208,8 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
         raise DataError(f"no {model} model fits this file: {why}; is it a driver's impedance in ohm, with its "
                         "motional peak inside?", path=curve.path)
     if rms > RMS_FAIL_PCT:
-        peaks = [r.split(": ", 1)[1] for r in remarks if "more peaks than one" in r]
         raise DataError(f"no {model} model fits this file (rms error {rms:.0f} % of |Z| at best); "
-                        + (peaks[0] if peaks else "is it a driver's impedance in ohm, with its motional peak inside?"),
+                        + (second or "is it a driver's impedance in ohm, with its motional peak inside?"),
                         path=curve.path)
     if at_bound and not pinned:
         remarks.append(f"{curve.path}: the fit ended on the limit of {', '.join(at_bound)}; the data may not "

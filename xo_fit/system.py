@@ -119,18 +119,8 @@ class System:
         ``[target] reference = "listening_window"``) the listening window, from its positions alone."""
         if self.job.target.reference != "listening_window" or self.angle_factors is None:
             return acoustics.spl_db(sim.total)
-        w = acoustics.curve_weights(self.positions)["listening_window"]
-        idx = np.nonzero(w)[0]
-        p2 = np.abs(acoustics.angle_pressures(sim.voltages, self.angle_factors[idx])) ** 2
-        return acoustics.power_db(np.einsum("baf,a->bf", p2, w[idx]))
-
-    def directivity(self, values: np.ndarray) -> dict[str, np.ndarray]:
-        """The ANSI/CTA-2034-A curves of designs (B, P) or (P,) of an off-axis job, mean squared pressure in
-        Pa^2, (B, F) each (see :func:`xo_fit.acoustics.directivity`); {} without angles."""
-        if self.angle_factors is None:
-            return {}
-        sim = self.simulate(np.atleast_2d(values), dense=True, angles=True)
-        return acoustics.directivity(np.abs(sim.angles) ** 2, acoustics.curve_weights(self.positions))
+        lw = {"listening_window": acoustics.curve_weights(self.positions)["listening_window"]}
+        return acoustics.power_db(acoustics.curve_sums(sim.voltages, self.angle_factors, lw)["listening_window"])
 
 
 def _angle_data(spec, positions: tuple, response: np.ndarray, grid: np.ndarray, warnings: list[str]) -> np.ndarray:

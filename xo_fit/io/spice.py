@@ -111,6 +111,7 @@ def build_deck(system, values: np.ndarray, title: str, data_file: str = "xo_fit_
     subckts: list[str] = []
     notes: list[str] = []
     probes: list[str] = []
+    modelled: set[str] = set()  # drivers whose subcircuit is written
     col = 0
     for p in job.parts:
         if p.type == "driver":
@@ -119,7 +120,8 @@ def build_deck(system, values: np.ndarray, title: str, data_file: str = "xo_fit_
             a, b = node[p.nodes[0]], node[p.nodes[1]]
             lines.append(f"X{part[p.name]} {a} {b} DRV_{drv.name}")
             probes.append(f"v({a},{b})" if a != "0" and b != "0" else f"v({a})" if a != "0" else f"(-v({b}))")
-            if f"DRV_{drv.name}" not in {x.split()[1] for x in subckts if x.startswith(".subckt")}:
+            if drv.name not in modelled:
+                modelled.add(drv.name)
                 sub, note = _driver_subckt(drv, system.drivers[i], system)
                 subckts += sub
                 notes.append(note)

@@ -26,6 +26,7 @@ import math
 import numpy as np
 
 from ..constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB, Z_SHORT_OHM
+from ..acoustics import used_positions
 from ..cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from .codegen import solver_code
 from .standalone import COST_SIGNATURE
@@ -88,21 +89,17 @@ class FusedCost:
         # off axis: the per-volt factors of each driver at the positions the cost reads, (A, 2D, F), with each
         # position's weight in the listening window, early reflections and sound power (A, 3)
         names = ("listening_window", "early_reflections", "sound_power")
-        self.need = {"listening_window": cm.off_axis and cm.reference == "listening_window",
-                     "early_reflections": cm.off_axis and cm.weights["early_reflections"] > 0,
-                     "sound_power": cm.off_axis and cm.weights["sound_power"] > 0}
+        self.need = {n: n in cm.needed for n in names}
         self.n_angles = 0
         ang = np.zeros((1, 2 * d, nf))
         angw = np.zeros((1, 3))
-        if any(self.need.values()):
-            w = np.stack([cm.curve_weights[n] if self.need[n] else np.zeros(len(cm.system.positions))
-                          for n in names], axis=1)  # (A, 3)
-            active = np.nonzero(np.any(w > 0, axis=1))[0]
+        if cm.needed:
+            none = np.zeros(len(cm.system.positions))
+            active, angw = used_positions([cm.curve_weights[n] if self.need[n] else none for n in names])
             g = cm.system.angle_factors[active]  # (A', D, F)
             ang = np.empty((active.size, 2 * d, nf))
             ang[:, 0::2] = g.real
             ang[:, 1::2] = g.imag
-            angw = w[active]
             self.n_angles = int(active.size)
         self.ang = np.ascontiguousarray(ang)
         self.angw = np.ascontiguousarray(angw)
@@ -294,8 +291,14 @@ class FusedCost:
 
     def kernel(self):
         if self._kernel is None:
-            self._kernel = load_kernel(self.source(), entry="cost_kernel", standalone=True)
+            self._kernel = load_kernel(self.text(), entry="cost_kernel", standalone=True)
         return self._kernel
+
+    def text(self) -> str:
+        """The kernel's source, generated once."""
+        if self.__dict__.get("_text") is None:
+            self._text = self.source()
+        return self._text
 
     def __getstate__(self) -> dict:
         state = self.__dict__.copy()
@@ -320,7 +323,7 @@ class FusedCost:
             # a topology new to this machine ran on the JIT: a standalone copy is built in the background
             self._asked = True
             n = min(v.shape[0], 64)
-            request_standalone(self.source(), "cost_kernel", COST_SIGNATURE,
+            request_standalone(self.text(), "cost_kernel", COST_SIGNATURE,
                                (v[:n].copy(), *args[1:10], scratch.copy(), np.zeros((n, FLAG + 1))))
         if nbad:
             redo = np.nonzero(~(out[:, FLAG] <= 0.0))[0]
