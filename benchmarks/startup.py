@@ -28,9 +28,14 @@ JOB = ROOT / "tests" / "data" / "hard-three-way.toml"
 PY = sys.executable
 
 
+# as installed: pip writes byte code when it installs a wheel, so the runs may keep theirs
+# (some shells here set PYTHONDONTWRITEBYTECODE, which would compile xo_fit's modules in every run)
+BASE_ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+
+
 def timed(cmd: list[str], env: dict | None = None) -> float:
     t0 = time.perf_counter()
-    subprocess.run(cmd, check=True, capture_output=True, env={**os.environ, **(env or {})})
+    subprocess.run(cmd, check=True, capture_output=True, env={**BASE_ENV, **(env or {})})
     return time.perf_counter() - t0
 
 
@@ -69,7 +74,7 @@ def main() -> None:
     runs = ap.parse_args().runs
     out = tempfile.mkdtemp(prefix="xo_fit-bench-startup-")
     fit = [PY, "-m", "xo_fit", "-q", "fit", str(JOB), "--out", out, "--no-plots"]
-    subprocess.run(fit, check=True, capture_output=True, env={**os.environ, "XO_FIT_STANDALONE": "0"})  # JIT cache
+    subprocess.run(fit, check=True, capture_output=True, env={**BASE_ENV, "XO_FIT_STANDALONE": "0"})  # JIT cache
     sys.path.insert(0, str(ROOT))
     from xo_fit.fitting import cost_model
     from xo_fit.io.job import load_job
@@ -97,7 +102,7 @@ def main() -> None:
     print(f"whole fit, empty cache:    {cold:.3f} s (goal <= 1.5)")
     phases = []
     for _ in range(runs):
-        r = subprocess.run([PY, "-c", PHASES, str(JOB)], check=True, capture_output=True, text=True)
+        r = subprocess.run([PY, "-c", PHASES, str(JOB)], check=True, capture_output=True, text=True, env=BASE_ENV)
         phases.append([float(x) for x in r.stdout.split()])
     names = ["numpy + scipy import", "xo_fit import", "job + data load", "first kernel call",
              "search (20,000 evaluations)", "scoring after the search"]

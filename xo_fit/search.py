@@ -41,6 +41,7 @@ from typing import Callable
 import numpy as np
 
 from .errors import XoFitError
+from .lbfgsb import minimize_box
 
 #: The population has converged when its costs agree to this relative spread (and its points to 1e-6).
 CONVERGED = 1e-12
@@ -310,8 +311,6 @@ def engine(name: str) -> Callable:
 
 def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
     """L-BFGS-B from ``start`` (default: the best point), forward-difference gradients as one batch per step."""
-    from scipy.optimize import minimize
-
     start = obj.best_u if start is None else start
     if start is None:
         return
@@ -328,8 +327,8 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
             cache[key] = (float(c[0]), np.where(np.isfinite(grad), grad, 0.0))
         return cache[key]
 
-    minimize(fun, np.array(start, dtype=float), jac=True, method="L-BFGS-B", bounds=[(0.0, 1.0)] * n,
-             options={"maxiter": 10_000, "ftol": POLISH_FTOL, "gtol": POLISH_GTOL})
+    minimize_box(fun, np.array(start, dtype=float), np.zeros(n), np.ones(n), maxiter=10_000, ftol=POLISH_FTOL,
+                 gtol=POLISH_GTOL)
 
 
 def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: str = "auto", budget: int = 20000,

@@ -1,0 +1,114 @@
+"""Bounded quasi-Newton minimisation for the polish: scipy's L-BFGS-B routine, driven directly.
+
+``scipy.optimize.minimize(method="L-BFGS-B")`` costs a whole fit about 0.4 s before its first step: importing
+``scipy.optimize`` pulls in linear programming, ``scipy.linalg``, ``scipy.sparse`` and more. The routine itself
+is one small compiled module (``scipy/optimize/_lbfgsb``, C since scipy 1.15, reverse communication through
+``setulb``). :func:`minimize_box` loads that module on its own (a few ms) and runs the same loop as scipy's
+``_minimize_lbfgsb``, so the iterates, the evaluations and the end point are scipy's, bit for bit
+(tests/test_lbfgsb.py holds it to ``scipy.optimize.minimize``). Where the module cannot be loaded that way
+(another scipy layout, an older Fortran interface) it calls ``scipy.optimize.minimize`` instead.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+MAXCOR = 10  # scipy's default number of stored corrections
+MAXLS = 20  # scipy's default line-search steps per iteration
+MAXFUN = 15000  # scipy's default evaluation limit
+
+_TASK_FG, _TASK_NEW_X, _TASK_CONVERGED = 3, 1, 4  # setulb's task codes (scipy/optimize/__lbfgsb.c)
+_TASK_STOP, _STOP_MAXITER, _STOP_MAXFUN = 5, 504, 502
+
+_routine: object = None
+
+
+def _setulb():
+    """scipy's compiled ``setulb`` with the C interface of scipy >= 1.15, or None."""
+    global _routine
+    if _routine is None:
+        _routine = False
+        try:
+            import scipy
+
+            major, minor = (int(p) for p in scipy.__version__.split(".")[:2])
+            if (major, minor) < (1, 15):
+                return None
+            mod = sys.modules.get("scipy.optimize._lbfgsb")
+            if mod is None:
+                name = "scipy.optimize._lbfgsb"
+                found = sorted(Path(scipy.__path__[0], "optimize").glob("_lbfgsb.*"))
+                found = [p for p in found if p.suffix in (".so", ".pyd")]
+                if not found:
+                    return None
+                spec = importlib.util.spec_from_file_location(name, found[0])
+                mod = importlib.util.module_from_spec(spec)
+                spec.loader.exec_module(mod)
+            _routine = mod.setulb
+        except Exception:  # noqa: BLE001 - any failure means: use scipy.optimize.minimize
+            _routine = False
+    return _routine or None
+
+
+def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.ndarray, lower: np.ndarray,
+                 upper: np.ndarray, *, ftol: float, gtol: float, maxiter: int) -> tuple[np.ndarray, float]:
+    """Minimise ``fun`` (returning value and gradient) over the box ``lower <= x <= upper``.
+
+    x0, lower, upper: shape (n,). ``ftol``, ``gtol``, ``maxiter`` as in scipy's L-BFGS-B options. Returns the
+    end point (n,) and its value.
+    """
+    setulb = _setulb()
+    lower = np.asarray(lower, dtype=np.float64)
+    upper = np.asarray(upper, dtype=np.float64)
+    if setulb is None:
+        return _through_scipy(fun, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
+    x = np.clip(np.asarray(x0, dtype=np.float64).ravel(), lower, upper)
+    n = x.size
+    m = MAXCOR
+    factr = ftol / np.finfo(float).eps
+    nbd = np.full(n, 2, dtype=np.int32)  # both bounds on every variable
+    wa = np.zeros(2 * m * n + 5 * n + 11 * m * m + 8 * m, np.float64)
+    iwa = np.zeros(3 * n, dtype=np.int32)
+    task = np.zeros(2, dtype=np.int32)
+    ln_task = np.zeros(2, dtype=np.int32)
+    lsave = np.zeros(4, dtype=np.int32)
+    isave = np.zeros(44, dtype=np.int32)
+    dsave = np.zeros(29, dtype=np.float64)
+    # scipy's ScalarFunction evaluates at the start and then again only at a new point; the same here
+    last_x = x.copy()
+    f_last, g_last = fun(last_x.copy())
+    nfev = 1
+    f = np.array(0.0, dtype=np.float64)
+    g = np.zeros(n, dtype=np.float64)
+    iterations = 0
+    while True:
+        g = g.astype(np.float64)
+        setulb(m, x, lower, upper, nbd, f, g, factr, gtol, wa, iwa, task, lsave, isave, dsave, MAXLS, ln_task)
+        if task[0] == _TASK_FG:
+            if not np.array_equal(x, last_x):
+                last_x = x.copy()
+                f_last, g_last = fun(last_x.copy())
+                nfev += 1
+            f, g = float(f_last), np.atleast_1d(np.asarray(g_last, dtype=np.float64))
+        elif task[0] == _TASK_NEW_X:
+            iterations += 1
+            if iterations >= maxiter:
+                task[0], task[1] = _TASK_STOP, _STOP_MAXITER
+            elif nfev > MAXFUN:
+                task[0], task[1] = _TASK_STOP, _STOP_MAXFUN
+        else:
+            break
+    return x, float(f)
+
+
+def _through_scipy(fun, x0, lower, upper, *, ftol, gtol, maxiter):
+    from scipy.optimize import minimize
+
+    res = minimize(fun, np.array(x0, dtype=float), jac=True, method="L-BFGS-B", bounds=list(zip(lower, upper)),
+                   options={"maxiter": maxiter, "ftol": ftol, "gtol": gtol})
+    return res.x, float(res.fun)
