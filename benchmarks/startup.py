@@ -4,10 +4,10 @@ Goals (issue 13): a whole fit of the 16-part three-way (tests/data/hard-three-wa
 cache in <= 0.8 s, and a first fit of a new topology (empty cache) in <= 1.5 s. Each figure is the median of
 several runs of a fresh process (the machine is shared).
 
-Warm means the kernel cache holds the topology's standalone kernel (xo_fit.solver.standalone: loads without
-numba), built here once before timing; "warm, JIT kernel" is the same with XO_FIT_STANDALONE=0 (numba's
-cached kernel), the start-up before standalone kernels. The empty-cache runs turn the background build off
-so that it does not disturb the runs after them.
+Warm means the kernel cache holds the topology's kernels; with a C compiler (the default) these are standalone
+C builds (xo_fit.solver.standalone: they load without numba). "numba kernel" is the same with
+XO_FIT_STANDALONE=0 (numba's cached kernel). Empty cache means a topology this machine has never seen: with a
+compiler its kernel is translated to C and built in-line (once); with XO_FIT_STANDALONE=0 numba compiles it.
 
 Run: python benchmarks/startup.py [--runs 5]
 """
@@ -68,6 +68,41 @@ print(f"{t_np - t0:.3f} {t_imp - t_nb:.3f} {t_load - t_imp:.3f} {t_first - t_loa
 """
 
 
+KERNELS = r"""
+import ctypes, statistics, sys, time
+import numpy as np
+from xo_fit.constants import PIVOT_TOLERANCE
+from xo_fit.fitting import cost_model
+from xo_fit.io.job import load_job
+from xo_fit.search import make_space
+from xo_fit.solver import standalone
+from xo_fit.solver.fused import FLAG, FusedCost
+from xo_fit.system import load_system
+
+s = load_system(load_job(sys.argv[1]))
+fc = FusedCost(cost_model(s)[0])
+space = make_space(s.job)
+v = np.ascontiguousarray(space.values(np.random.default_rng(1).random((512, len(space.u0)))))
+k = fc.net._kernel_args()
+def args():
+    return (v, k["r_coef"], k["r_exp"], k["fin"], float(fc.net.source_voltage), float(fc.net.source_resistance),
+            float(PIVOT_TOLERANCE ** 2), fc.tgt, fc.ang, fc.angw, np.empty((fc.scratch_rows,
+            fc.net.frequencies.size)), np.empty((512, FLAG + 1)))
+import tempfile, pathlib
+lib = standalone.build(fc.text(), "cost_kernel", standalone.COST_SIGNATURE, pathlib.Path(tempfile.mkdtemp()) / "k.so")
+c = standalone.CKernel(ctypes.CDLL(str(lib)), "cost_kernel", standalone.ndims(standalone.COST_SIGNATURE))
+ns = {}
+exec(compile(fc.text().replace("cache=True, ", ""), "<kernel>", "exec"), ns)
+jit = ns["cost_kernel"]
+a = args(); jit(*a); c(*a)
+tc, tj = [], []
+for _ in range(21):
+    for fn, ts in ((c, tc), (jit, tj)):
+        a = args(); t0 = time.perf_counter(); fn(*a); ts.append(time.perf_counter() - t0)
+print(statistics.median(tc), statistics.median(tj))
+"""
+
+
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--runs", type=int, default=5)
@@ -75,31 +110,24 @@ def main() -> None:
     out = tempfile.mkdtemp(prefix="xo_fit-bench-startup-")
     fit = [PY, "-m", "xo_fit", "-q", "fit", str(JOB), "--out", out, "--no-plots"]
     subprocess.run(fit, check=True, capture_output=True, env={**BASE_ENV, "XO_FIT_STANDALONE": "0"})  # JIT cache
-    sys.path.insert(0, str(ROOT))
-    from xo_fit.fitting import cost_model
-    from xo_fit.io.job import load_job
-    from xo_fit.solver import kernels, standalone
-    from xo_fit.solver.fused import FusedCost
-    from xo_fit.system import load_system
-
-    fc = FusedCost(cost_model(load_system(load_job(JOB)))[0])
-    src = fc.source()
-    target = standalone.module_path(kernels.cache_dir(), kernels.kernel_digest(src))
-    if not target.exists():
-        t0 = time.perf_counter()
-        standalone.build(src, "cost_kernel", standalone.COST_SIGNATURE, target)
-        print(f"standalone kernel built in {time.perf_counter() - t0:.1f} s (once; in the background in use)")
+    subprocess.run(fit, check=True, capture_output=True, env=BASE_ENV)  # the C build, once
     print(f"python -c pass:            {median([PY, '-c', 'pass'], runs):.3f} s")
     print(f"import xo_fit:             {median([PY, '-c', 'import xo_fit'], runs):.3f} s")
     print(f"xo-fit --version:          {median([PY, '-m', 'xo_fit', '--version'], runs):.3f} s")
     print(f"xo-fit check (hard job):   {median([PY, '-m', 'xo_fit', '-q', 'check', str(JOB)], runs):.3f} s")
     warm = median(fit, runs)
     jit = median(fit, runs, lambda k: {"XO_FIT_STANDALONE": "0"})
-    cold = median(fit, max(2, runs // 2), lambda k: {"XO_FIT_CACHE": tempfile.mkdtemp(prefix="xo_fit-cold-"),
-                                                     "XO_FIT_STANDALONE": "0"})
+    cold = median(fit, runs, lambda k: {"XO_FIT_CACHE": tempfile.mkdtemp(prefix="xo_fit-cold-")})
+    cold_jit = median(fit, max(2, runs // 2), lambda k: {"XO_FIT_CACHE": tempfile.mkdtemp(prefix="xo_fit-cold-"),
+                                                         "XO_FIT_STANDALONE": "0"})
     print(f"whole fit, warm cache:     {warm:.3f} s (goal <= 0.8)")
-    print(f"whole fit, warm, JIT kernel: {jit:.3f} s ({jit / warm:.2f}x the standalone start)")
-    print(f"whole fit, empty cache:    {cold:.3f} s (goal <= 1.5)")
+    print(f"whole fit, warm, numba kernel: {jit:.3f} s ({jit / warm:.2f}x the standalone start)")
+    print(f"whole fit, empty cache:    {cold:.3f} s (goal <= 1.5; the C build in-line)")
+    print(f"whole fit, empty cache, numba: {cold_jit:.3f} s ({cold_jit / cold:.2f}x)")
+    r = subprocess.run([PY, "-c", KERNELS, str(JOB)], check=True, capture_output=True, text=True, env=BASE_ENV)
+    tc, tj = (float(x) for x in r.stdout.split())
+    print(f"fused cost kernel, 512 candidates (medians of 21, interleaved): C {tc * 1e3:.2f} ms, "
+          f"numba {tj * 1e3:.2f} ms (C at {tj / tc:.2f}x numba's rate)")
     phases = []
     for _ in range(runs):
         r = subprocess.run([PY, "-c", PHASES, str(JOB)], check=True, capture_output=True, text=True, env=BASE_ENV)

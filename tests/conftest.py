@@ -13,9 +13,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-# no background builds of standalone kernels while the suite runs (tests/test_standalone.py turns them on)
-os.environ.setdefault("XO_FIT_STANDALONE", "0")
-
+# the suite runs the kernels as users do: C builds where a compiler is (tests/test_standalone.py holds them to
+# numba's); XO_FIT_STANDALONE=0 in the environment runs it all on numba instead
 from xo_fit.cli import main  # noqa: E402
 from xo_fit.solver.network import Branch, compile_network  # noqa: E402
 

@@ -30,7 +30,7 @@ from ..acoustics import used_positions
 from ..cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from .codegen import solver_code
 from .standalone import COST_SIGNATURE
-from .kernels import KERNEL_VERSION, load_kernel, request_standalone
+from .kernels import KERNEL_VERSION, load_kernel
 
 #: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
 _P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
@@ -291,7 +291,7 @@ class FusedCost:
 
     def kernel(self):
         if self._kernel is None:
-            self._kernel = load_kernel(self.text(), entry="cost_kernel", standalone=True)
+            self._kernel = load_kernel(self.text(), entry="cost_kernel", signature=COST_SIGNATURE)
         return self._kernel
 
     def text(self) -> str:
@@ -303,7 +303,6 @@ class FusedCost:
     def __getstate__(self) -> dict:
         state = self.__dict__.copy()
         state["_kernel"] = None
-        state["_asked"] = False
         return state
 
     # ------------------------------------------------------------------ evaluation
@@ -319,12 +318,6 @@ class FusedCost:
                 float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw, scratch,
                 out)
         nbad = self.kernel()(*args)
-        if not self.__dict__.get("_asked"):
-            # a topology new to this machine ran on the JIT: a standalone copy is built in the background
-            self._asked = True
-            n = min(v.shape[0], 64)
-            request_standalone(self.text(), "cost_kernel", COST_SIGNATURE,
-                               (v[:n].copy(), *args[1:10], scratch.copy(), np.zeros((n, FLAG + 1))))
         if nbad:
             redo = np.nonzero(~(out[:, FLAG] <= 0.0))[0]
             ev = self.cm.evaluate(v[redo])

@@ -1,7 +1,8 @@
-"""Compiling and caching generated kernels: written once to a private cache folder, compiled by numba.
+"""Compiling and caching generated kernels in a private cache folder: built by the C compiler where there is
+one (:mod:`xo_fit.solver.standalone`), else compiled by numba.
 
-Kernels are keyed by a hash of their text (with the kernel version and
-numba's), so a second run of a topology starts without compiling.
+Kernels are keyed by a hash of their text (with the kernel version, and the compiler or numba's version), so
+a second run of a topology starts without compiling.
 """
 
 from __future__ import annotations
@@ -79,28 +80,31 @@ def kernel_digest(source: str) -> str:
     return hashlib.sha256(f"{KERNEL_VERSION}\n{_numba_version()}\n{source}".encode()).hexdigest()[:20]
 
 
-#: Digests whose kernel was loaded from a standalone module (no numba involved).
+#: Kernel texts (by digest) that run as a standalone C build (no numba involved).
 STANDALONE: set[str] = set()
 
 
-def load_kernel(source: str, entry: str = "kernel", *, standalone: bool = False):
-    """Write ``source`` to the cache (once, atomically), import it and return its function ``entry``.
+def load_kernel(source: str, entry: str = "kernel", *, signature: str | None = None):
+    """The function ``entry`` of a generated kernel, compiled (once per text, cached on disk).
 
-    standalone: first look for a standalone (ahead-of-time compiled) copy of the kernel in the cache
-    (:mod:`xo_fit.solver.standalone`), which loads without numba; its digest is then in ``STANDALONE``.
+    With ``signature`` (the numba signature of its arguments) the kernel is first built as a standalone C
+    library (:mod:`xo_fit.solver.standalone`), which loads without numba; its text's hash is then in
+    ``STANDALONE``. Otherwise, or when that is not possible, numba compiles it: the text is written to the
+    cache (atomically) and imported.
     """
-    digest = kernel_digest(source)
-    if digest in _LOADED:
-        return _LOADED[digest]
+    text_key = hashlib.sha256(f"{entry}\n{signature}\n{source}".encode()).hexdigest()
+    if text_key in _LOADED:
+        return _LOADED[text_key]
     folder = cache_dir()
-    if standalone:
+    if signature is not None:
         from .standalone import load
 
-        fn = load(folder, digest, entry)
+        fn = load(folder, source, entry, signature)
         if fn is not None:
-            STANDALONE.add(digest)
-            _LOADED[digest] = fn
+            STANDALONE.add(text_key)
+            _LOADED[text_key] = fn
             return fn
+    digest = kernel_digest(source)
     prefer_wide_vectors()
     path = source_path(folder, digest)
     if not path.exists() or path.read_text() != source:
@@ -113,22 +117,10 @@ def load_kernel(source: str, entry: str = "kernel", *, standalone: bool = False)
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
     spec.loader.exec_module(module)
-    _LOADED[digest] = getattr(module, entry)
-    return _LOADED[digest]
+    _LOADED[text_key] = getattr(module, entry)
+    return _LOADED[text_key]
 
 
 def source_path(folder: Path, digest: str) -> Path:
     """Where a kernel's generated text lives in the cache."""
     return folder / f"xo_kernel_{digest}.py"
-
-
-def request_standalone(source: str, entry: str, signature: str, probe: tuple) -> bool:
-    """Ask for a standalone copy of a kernel loaded through the JIT (a background build, for later runs);
-    ``probe`` is one call's arguments, to check the copy against. Returns whether a build started."""
-    digest = kernel_digest(source)
-    if digest in STANDALONE:
-        return False
-    from .standalone import start_build
-
-    folder = cache_dir()
-    return start_build(folder, digest, source_path(folder, digest), entry, signature, probe)

@@ -40,6 +40,7 @@ from ..errors import NetworkError
 from .codegen import generate_kernel_source, kernel_inputs
 from .dense import solve_dense
 from .kernels import load_kernel
+from .standalone import SOLVE_SIGNATURE
 from .netlist import Branch, Solution, check_topology
 
 __all__ = ["Branch", "Network", "Solution", "compile_network"]
@@ -194,7 +195,7 @@ class Network:
     def kernel(self):
         """The compiled kernel for this topology (generated, compiled and cached on first use)."""
         if self._kernel is None:
-            self._kernel = load_kernel(generate_kernel_source(self))
+            self._kernel = load_kernel(generate_kernel_source(self), signature=SOLVE_SIGNATURE)
         return self._kernel
 
     def series_resistance(self, values: np.ndarray) -> np.ndarray:

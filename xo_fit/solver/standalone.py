@@ -1,179 +1,220 @@
-"""Standalone copies of generated kernels: compiled ahead of time into an extension module that loads without numba.
+"""Standalone kernels: a generated kernel built by the system's C compiler and loaded without numba.
 
-A warm run of ``xo-fit fit`` spends most of its start-up in numba itself: importing it (0.2 s here) and
-setting up its CPU target on the first cached call (0.3-0.45 s), before a single candidate is scored. The
-same generated kernel compiled ahead of time (numba's ``pycc``, with the JIT's flags: error_model numpy,
-fastmath contract + reassoc, this host's CPU, C-contiguous arrays) is an ordinary extension module: it
-imports in about a millisecond, numba unloaded, and computes the same numbers bit for bit at the same speed
-(measured: 2.5 ms against 2.95 ms per 512 candidates of the 16-part three-way; no difference in any output).
-A build is installed only when it gives the JIT kernel's outputs bit for bit on a probe batch of the run
-that asked for it (so a seed gives the same result whichever copy runs).
+numba compiles the generated kernels well but slowly: the fused cost of a 16-part three-way takes it about
+2.5 s (its type inference and lowering run in Python), and every run pays 0.6 s to import numba and set up
+its CPU target before the first cached call. The same kernel text, written out as C by
+:mod:`xo_fit.solver.ctranslate`, builds with ``cc -O3 -march=native`` in about 0.3 s and loads through
+ctypes in a millisecond; it runs at least as fast (1.6 ms against 2.0 ms per 512 candidates of that
+three-way; benchmarks/startup.py). So when a C compiler is there, a topology seen for the first time is
+built in-line, once, into the private kernel cache, and every later run loads the built library.
 
-Building one takes several seconds and a C compiler, so it never delays a run: the first run of a topology
-uses the JIT kernel as before and starts a detached background build (one at a time per kernel, guarded by a
-lock file); later runs find the module in the private kernel cache and use it. ``XO_FIT_STANDALONE=0``
-turns the whole mechanism off (the test suite does, but for the test of this module). Without a C compiler,
-or a numba without ``pycc``, nothing is built and the JIT kernel is used as always.
+The flags follow the kernel's own ``@numba.njit`` line: ``-ffp-contract=fast`` for ``contract``, and for
+``reassoc`` the flags that let the compiler reorder sums (``-fassociative-math -fno-signed-zeros
+-fno-trapping-math``) so that reductions over the frequency loop vectorise; ``-fno-math-errno`` always
+(``sqrt`` then vectorises), ``-fno-tree-pre`` because gcc's partial redundancy elimination otherwise turns
+the impedance sum into a conditional reduction that it cannot vectorise. A library is keyed by the kernel's
+text, the translator's version, the compiler (path, size, time) and flags, and this CPU's feature flags
+(``-march=native`` code must not run on another CPU sharing the home folder).
 
-Run as ``python -m xo_fit.solver.standalone SOURCE ENTRY SIGNATURE OUTPUT`` (what the background build does).
+One machine always takes the same path (a compiler present: C; none, or ``XO_FIT_STANDALONE=0``: numba),
+so a seed gives the same result run after run. The two paths agree to about 1e-12 relative, not bit for
+bit (the compilers contract and reorder differently). A build that fails leaves a note
+(``xo_c_<key>.failed``) so later runs go straight to numba.
 """
 
 from __future__ import annotations
 
-import importlib.machinery
-import importlib.util
+import ast
+import ctypes
+import hashlib
 import os
 import shutil
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
+
+import numpy as np
+
+from .ctranslate import VERSION as TRANSLATOR_VERSION
+from .ctranslate import to_c
 
 #: numba type signature of the fused cost kernel (xo_fit.solver.fused.FusedCost.source): values (B, P),
 #: r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2, tgt (R, F), ang (A, 2D, F), angw (A, 3), scratch (S, F),
 #: out (B, 10) -> the number of flagged candidates.
 COST_SIGNATURE = ("i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,::1], f8[:,:,::1], f8[:,::1], "
                   "f8[:,::1], f8[:,::1])")
-#: A build lock older than this (s) is taken to be left by a build that died.
-STALE_LOCK_S = 600.0
+#: The network solve kernel (xo_fit.solver.codegen.generate_kernel_source): values (B, P), r_coef, r_exp,
+#: fin (K, F), vs, rs, tau2, scratch (2D + 3, F), out (B, D + 1, 2F), out_bad (B, F) -> flagged points.
+SOLVE_SIGNATURE = "i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,::1], f8[:,:,::1], f8[:,::1])"
+
+BASE_FLAGS = ("-O3", "-march=native", "-fPIC", "-shared", "-fno-math-errno", "-fno-tree-pre", "-std=c99")
+REASSOC_FLAGS = ("-fassociative-math", "-fno-signed-zeros", "-fno-trapping-math")
+#: Longest a build may take (s) before it counts as failed.
+BUILD_TIMEOUT_S = 120.0
 
 
 def enabled() -> bool:
     return os.environ.get("XO_FIT_STANDALONE", "1") != "0"
 
 
-def module_path(folder: Path, digest: str) -> Path:
-    """Where the standalone module of kernel ``digest`` lives in the cache folder."""
-    suffix = importlib.machinery.EXTENSION_SUFFIXES[0]
-    return folder / f"xo_standalone_{digest}{suffix}"
+def compiler() -> str | None:
+    """The C compiler to use: $CC, else cc, else gcc (a path), or None."""
+    for name in (os.environ.get("CC"), "cc", "gcc"):
+        if name:
+            found = shutil.which(name)
+            if found:
+                return found
+    return None
 
 
-def load(folder: Path, digest: str, entry: str):
-    """The function ``entry`` of the standalone module of kernel ``digest``, or None when there is none (or it
-    does not load: a module built by another Python or numba is simply rebuilt)."""
-    path = module_path(folder, digest)
-    if not enabled() or not path.exists():
-        return None
-    name = f"xo_standalone_{digest}"
+def ndims(signature: str) -> list[int]:
+    """The number of dimensions of each argument of a numba signature (0 for a scalar)."""
+    inner = signature[signature.index("(") + 1:signature.rindex(")")]
+    out, depth, cur = [], 0, ""
+    for ch in inner + ",":
+        if ch == "," and depth == 0:
+            cur = cur.strip()
+            out.append(cur.count(",") + 1 if "[" in cur else 0)
+            cur = ""
+            continue
+        depth += ch == "["
+        depth -= ch == "]"
+        cur += ch
+    return out
+
+
+def flags(source: str) -> tuple[str, ...]:
+    """The compiler flags matching the fastmath set of the kernel's ``@numba.njit`` line."""
+    fast: set[str] = set()
+    for line in source.splitlines():
+        if line.startswith("@numba.njit") and "fastmath=" in line:
+            fast = set(ast.literal_eval(line.split("fastmath=", 1)[1].split("}", 1)[0] + "}"))
+    out = BASE_FLAGS + (("-ffp-contract=fast",) if "contract" in fast else ("-ffp-contract=off",))
+    return out + (REASSOC_FLAGS if "reassoc" in fast else ())
+
+
+def _cpu() -> str:
+    """This CPU's identity for the cache key: its feature flags (Linux), else what platform says."""
     try:
-        spec = importlib.util.spec_from_file_location(name, path)
-        module = importlib.util.module_from_spec(spec)
-        spec.loader.exec_module(module)
-        return getattr(module, entry)
-    except Exception:  # a damaged or foreign module: ignore it, the JIT kernel does the work
-        return None
-
-
-def start_build(folder: Path, digest: str, source_path: Path, entry: str, signature: str,
-                probe: tuple | None = None) -> bool:
-    """Start a detached background build of the standalone module (returns whether one was started): not when
-    turned off, without a C compiler, when the module exists, or while another build of it runs."""
-    if not enabled() or module_path(folder, digest).exists():
-        return False
-    if shutil.which(os.environ.get("CC", "cc")) is None and shutil.which("gcc") is None:
-        return False
-    lock = folder / f"xo_standalone_{digest}.building"
-    try:
-        if lock.exists() and time.time() - lock.stat().st_mtime > STALE_LOCK_S:
-            lock.unlink()
-        fd = os.open(lock, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o600)
-        os.close(fd)
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith(("flags", "Features")):
+                    return line
     except OSError:
-        return False
-    probe_path = folder / f"xo_standalone_{digest}.probe.npz"
-    if probe is not None:
-        import numpy as np
+        pass
+    import platform
 
-        with open(probe_path, "wb") as fh:
-            np.savez(fh, *probe)
-    cmd = [sys.executable, "-m", "xo_fit.solver.standalone", str(source_path), entry, signature,
-           str(module_path(folder, digest)), str(lock), str(probe_path) if probe is not None else ""]
+    return platform.machine() + platform.processor()
+
+
+def key(source: str, cc: str) -> str:
+    """The cache key of the C build of ``source`` with compiler ``cc``."""
+    st = os.stat(cc)
+    ident = f"{TRANSLATOR_VERSION}\n{cc}\n{st.st_size}\n{st.st_mtime_ns}\n{flags(source)}\n{_cpu()}\n{source}"
+    return hashlib.sha256(ident.encode()).hexdigest()[:20]
+
+
+def library_path(folder: Path, k: str) -> Path:
+    return folder / f"xo_c_{k}.so"
+
+
+class CKernel:
+    """A built kernel called like the numba one: C-contiguous float64 arrays and floats in, an int out.
+    ctypes releases the GIL for the call, as the JIT kernel's ``nogil`` does."""
+
+    def __init__(self, lib: ctypes.CDLL, entry: str, dims: list[int]) -> None:
+        self.lib = lib
+        self.fn = getattr(lib, entry)
+        self.fn.restype = ctypes.c_longlong
+        types: list = []
+        for k in dims:
+            types += [ctypes.c_double] if k == 0 else [ctypes.c_void_p] + [ctypes.c_longlong] * k
+        self.fn.argtypes = types
+        self.dims = dims
+
+    def __call__(self, *args) -> int:
+        if len(args) != len(self.dims):
+            raise TypeError(f"the kernel takes {len(self.dims)} arguments, got {len(args)}")
+        cargs: list = []
+        for a, k in zip(args, self.dims):
+            if k == 0:
+                cargs.append(float(a))
+                continue
+            if not (isinstance(a, np.ndarray) and a.dtype == np.float64 and a.ndim == k and a.flags.c_contiguous):
+                raise TypeError(f"kernel argument must be a C-contiguous float64 array of {k} dimensions")
+            cargs.append(a.ctypes.data)
+            cargs += a.shape
+        return int(self.fn(*cargs))
+
+
+def load(folder: Path, source: str, entry: str, signature: str):
+    """The C build of ``entry`` in ``source``, from the cache or built now; None when standalone kernels are
+    off, there is no compiler, the kernel is outside the translator's subset or the build failed (then numba
+    compiles it)."""
+    if not enabled():
+        return None
+    cc = compiler()
+    if cc is None:
+        return None
+    k = key(source, cc)
+    path = library_path(folder, k)
+    failed = folder / f"xo_c_{k}.failed"
+    if not path.exists():
+        if failed.exists():
+            return None
+        try:
+            build(source, entry, signature, path, cc)
+        except (OSError, ValueError, RuntimeError, subprocess.SubprocessError) as exc:
+            try:
+                failed.write_text(f"{type(exc).__name__}: {exc}\n")
+            except OSError:
+                pass
+            return None
     try:
-        subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-                         start_new_session=True, env={**os.environ, "XO_FIT_STANDALONE": "0"})
-    except OSError:
-        lock.unlink(missing_ok=True)
-        return False
-    return True
+        return CKernel(ctypes.CDLL(str(path)), entry, ndims(signature))
+    except (OSError, AttributeError):
+        return None  # a damaged library: numba does the work
 
 
-def build(source: str, entry: str, signature: str, output: Path, probe: tuple | None = None) -> Path:
-    """Compile ``entry`` of the generated ``source`` ahead of time into the extension module ``output``
-    (written atomically). With ``probe`` (the kernel's arguments; every array argument written to is copied),
-    the module is installed only if its outputs equal the JIT kernel's bit for bit. Raises on any failure (no
-    compiler, no pycc, a compile error, a mismatch)."""
-    from .vectors import prefer_wide_vectors
-
-    prefer_wide_vectors()  # the JIT's vector width, before numba reads its configuration
-    import numba
-    import numba.core.codegen as codegen
-    import numba.pycc.compiler as pycc_compiler
-    from numba.core.compiler import Flags
-    from numba.core.cpu import FastMathOptions
-    from numba.pycc import CC
-
-    # this host's CPU features as the JIT takes them (NUMBA_CPU_FEATURES included), not the generic model's
-    codegen.AOTCPUCodegen._customize_tm_features = codegen.JITCPUCodegen._customize_tm_features
-
-    class _JitFlags(Flags):  # the flags the JIT kernel is compiled with (see the njit line of the source)
-        def __init__(self, *args, **kwargs) -> None:
-            super().__init__(*args, **kwargs)
-            self.fastmath = FastMathOptions({"contract", "reassoc"})
-            self.error_model = "numpy"
-
-    pycc_compiler.Flags = _JitFlags
-    text = "\n".join(line for line in source.splitlines() if not line.startswith("@numba.njit"))
-    namespace: dict = {}
-    exec(compile(text, f"<standalone {output.name}>", "exec"), namespace)
+def build(source: str, entry: str, signature: str, output: Path, cc: str | None = None) -> Path:
+    """Translate ``entry`` of the generated ``source`` to C and build the shared library ``output``
+    (atomically). Raises ValueError (outside the subset), RuntimeError (the compiler failed) or OSError."""
+    cc = cc or compiler()
+    if cc is None:
+        raise RuntimeError("no C compiler (set CC, or install cc)")
+    names = _parameters(source, entry)
+    dims = ndims(signature)
+    if len(names) != len(dims):
+        raise ValueError(f"the signature has {len(dims)} arguments, the kernel {len(names)}")
+    text = to_c(source, entry, list(zip(names, dims)))
     output = Path(output)
-    with tempfile.TemporaryDirectory(dir=output.parent) as tmp:
-        name = output.name.split(".")[0]
-        cc = CC(name)
-        cc.output_dir = tmp
-        cc.target_cpu = "host"
-        cc.verbose = False
-        cc.export(entry, signature)(namespace[entry])
-        cc.compile()
-        built = next(Path(tmp).glob(f"{name}*"))
-        if probe is not None:
-            import numpy as np
-
-            spec = importlib.util.spec_from_file_location(name, built)
-            module = importlib.util.module_from_spec(spec)
-            spec.loader.exec_module(module)
-            jit = numba.njit(error_model="numpy", fastmath={"contract", "reassoc"})(namespace[entry])
-            a = [x.copy() if isinstance(x, np.ndarray) else x for x in probe]
-            b = [x.copy() if isinstance(x, np.ndarray) else x for x in probe]
-            ra, rb = getattr(module, entry)(*a), jit(*b)
-            same = ra == rb and all(np.array_equal(x, y, equal_nan=True) for x, y in zip(a, b)
-                                    if isinstance(x, np.ndarray))
-            if not same:
-                raise RuntimeError("the standalone kernel does not give the JIT kernel's numbers bit for bit")
-        os.replace(built, output)
+    with tempfile.TemporaryDirectory(dir=output.parent, prefix=".xo_c_build_") as tmp:
+        c_file = Path(tmp) / "kernel.c"
+        c_file.write_text(text)
+        lib = Path(tmp) / "kernel.so"
+        r = subprocess.run([cc, *flags(source), "-o", str(lib), str(c_file), "-lm"], capture_output=True, text=True,
+                           timeout=BUILD_TIMEOUT_S)
+        if r.returncode != 0 or not lib.exists():
+            first = (r.stderr.strip().splitlines() or ["no output"])[0]
+            raise RuntimeError(f"{Path(cc).name} failed ({r.returncode}): {first}")
+        os.replace(lib, output)
     return output
 
 
-def _main(argv: list[str]) -> int:
-    source_path, entry, signature, output = argv[:4]
-    lock = Path(argv[4]) if len(argv) > 4 and argv[4] else None
-    probe_path = Path(argv[5]) if len(argv) > 5 and argv[5] else None
-    try:
-        probe = None
-        if probe_path is not None:
-            import numpy as np
+def _parameters(source: str, entry: str) -> list[str]:
+    for node in ast.parse(source).body:
+        if isinstance(node, ast.FunctionDef) and node.name == entry:
+            return [a.arg for a in node.args.args]
+    raise ValueError(f"no function '{entry}' in the kernel")
 
-            with np.load(probe_path) as z:
-                probe = tuple(z[f"arr_{i}"] if z[f"arr_{i}"].ndim else z[f"arr_{i}"].item() for i in range(len(z.files)))
-        build(Path(source_path).read_text(), entry, signature, Path(output), probe)
-        return 0
-    except Exception:
-        return 1
-    finally:
-        if lock is not None:
-            lock.unlink(missing_ok=True)
-        if probe_path is not None:
-            probe_path.unlink(missing_ok=True)
+
+def _main(argv: list[str]) -> int:
+    """``python -m xo_fit.solver.standalone SOURCE.py ENTRY``: print the C text of a generated kernel."""
+    source = Path(argv[0]).read_text()
+    sig = COST_SIGNATURE if argv[1] == "cost_kernel" else SOLVE_SIGNATURE
+    print(to_c(source, argv[1], list(zip(_parameters(source, argv[1]), ndims(sig)))))
+    return 0
 
 
 if __name__ == "__main__":
