@@ -55,10 +55,10 @@ def removal_document(job, name: str | None, how: str, values: dict[str, float]) 
     return doc
 
 
-def variant(system, name: str, how: str, values: dict[str, float] | None = None):
+def variant(system, name: str, how: str, values: dict[str, float] | None = None, *, check_dead: bool = True):
     """The system without part ``name`` (opened or shorted), or None when that is no legal netlist: a node left
-    hanging, the source or a driver shorted, or a driver that no longer sees any voltage (it hangs from ground
-    alone)."""
+    hanging, the source or a driver shorted, or (``check_dead``; else see :func:`dead_driver`) a driver that no
+    longer sees any voltage (it hangs from ground alone)."""
     from .io.job import load_job
     from .system import derive_system
 
@@ -67,13 +67,17 @@ def variant(system, name: str, how: str, values: dict[str, float] | None = None)
     if doc is None:
         return None
     try:
-        s = derive_system(system, load_job(doc, base=system.job.folder))
+        s = derive_system(system, load_job(doc, base=system.job.folder, copy=False))  # doc is a fresh dict
     except XoFitError:
         return None
-    v = s.network.solve_reference(np.array([values[n] for n in s.part_names])).voltages[0]
-    if np.any(np.max(np.abs(v), axis=-1) < DEAD_DRIVER * abs(system.job.source_voltage)):
+    if check_dead and dead_driver(s, s.network.solve_reference(np.array([values[n] for n in s.part_names])).voltages):
         return None
     return s
+
+
+def dead_driver(system, voltages: np.ndarray) -> bool:
+    """Whether some driver sees (almost) no voltage anywhere on the grid: voltages (1, D, F) of one design."""
+    return bool(np.any(np.max(np.abs(voltages[0]), axis=-1) < DEAD_DRIVER * abs(system.job.source_voltage)))
 
 
 def removals(system, values: dict[str, float], *, protect: bool = True) -> list[tuple[str, str, object]]:
@@ -101,20 +105,34 @@ def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
 
     values: (P,) SI in the system's part order; cost: the design's own cost (None: no targets, nothing to say).
     """
-    from .fitting import score
+    from .cost import CostModel
+    from .fitting import cost_model
     from .units import format_value
 
     if cost is None or not math.isfinite(cost):
         return []
+    model = cost_model(system)
+    if model is None:
+        return []
+    targets = model[1]  # the same grid and targets for every variant
     by_name = dict(zip(system.part_names, np.asarray(values, dtype=float)))
     best: dict[str, tuple[float, str]] = {}
-    for name, how, s in removals(system, by_name, protect=False):
-        other = score(s, np.array([by_name[n] for n in s.part_names])).cost
-        if other is None or not math.isfinite(other):
-            continue
-        change = relative_change(other, cost)
-        if abs(change) < NEGLIGIBLE and (name not in best or abs(change) < abs(best[name][0])):
-            best[name] = (change, how)
+    for p in system.job.valued_parts:
+        for how in HOWS:
+            s = variant(system, p.name, how, by_name, check_dead=False)
+            if s is None:
+                continue
+            name = p.name
+            vals = np.array([by_name[n] for n in s.part_names])[None]
+            sim = s.simulate(vals, dense=True)  # one dense solve serves the check and the cost
+            if dead_driver(s, sim.voltages):
+                continue
+            other = float(CostModel(s, targets).evaluate_simulation(sim, vals).cost[0])
+            if not math.isfinite(other):
+                continue
+            change = relative_change(other, cost)
+            if abs(change) < NEGLIGIBLE and (name not in best or abs(change) < abs(best[name][0])):
+                best[name] = (change, how)
     out = []
     for name, (change, how) in best.items():
         p = system.job.part(name)

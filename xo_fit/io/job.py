@@ -604,18 +604,19 @@ def _close_match(key: str, known: list[str]) -> str | None:
     return m[0] if m else None
 
 
-def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
+def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *, copy: bool = True) -> Job:
     """Read and validate a job: a TOML file, or a mapping with the TOML's structure.
 
     ``base`` is the folder relative data paths are taken from: by default the
-    job file's folder (for a mapping, the current folder).
+    job file's folder (for a mapping, the current folder). ``copy=False``: a
+    mapping is the caller's to give away and is read without a deep copy.
 
     Raises
     ------
     JobError
         For anything wrong with the job, naming the file, line and key.
     """
-    data, ctx = _read(source, base)
+    data, ctx = _read(source, base, copy=copy)
     if "sweep" in data:
         raise JobError("this job has a [sweep] of variants: run it with 'xo-fit batch' (the other commands take "
                        "one design)", path=ctx.path, line=ctx.lines.find(("sweep",)), key="[sweep]")
@@ -702,11 +703,12 @@ def _assign(data: dict, path: str, value: Any, ctx: "_Context", key: str) -> Non
     node[segs[-1]] = value
 
 
-def _read(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> tuple[dict, "_Context"]:
+def _read(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *,
+          copy: bool = True) -> tuple[dict, "_Context"]:
     if isinstance(source, Mapping):
-        import copy
+        import copy as copying
 
-        data = copy.deepcopy(dict(source))
+        data = copying.deepcopy(dict(source)) if copy else dict(source)
         folder = Path(base if base is not None else ".").resolve()
         return data, _Context(path=None, folder=folder, lines=_Lines(""), stem="job")
     path = Path(source)
