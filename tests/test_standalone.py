@@ -182,3 +182,29 @@ def k(a, x, out):
                 "import os\nos.system('x')\ndef k(a, x, out):\n    return 0\n"):
         with pytest.raises(ValueError):
             ctranslate.to_c(bad, "k", [("a", 1), ("x", 0), ("out", 2)])
+
+
+def test_the_c_logarithm_is_libm_s_to_a_few_ulp(tmp_path):
+    # the kernels' ln in C (ctranslate.LN_C, the same steps as vecmath.ln) against numpy's log (libm)
+    src = '''
+import numba
+
+
+@numba.njit(fastmath={"contract", "reassoc"})
+def k(x, out):
+    n = x.shape[0]
+    for i in range(n):
+        out[i] = ln(x[i])
+    return n
+'''
+    lib = standalone.build(src, "k", "i8(f8[::1], f8[::1])", tmp_path / "ln.so")
+    import ctypes
+
+    fn = standalone.CKernel(ctypes.CDLL(str(lib)), "k", [1, 1])
+    x = np.concatenate([np.geomspace(1e-300, 1e300, 200_001), 1.0 + np.linspace(-0.3, 0.3, 20_001),
+                        [1.0, 2.0, np.sqrt(2.0), 0.5]])
+    out = np.empty_like(x)
+    fn(x, out)
+    ref = np.log(x)
+    assert out[x == 1.0][0] == 0.0
+    assert np.max(np.abs(out - ref) / np.maximum(np.abs(ref), 1.0)) < 4 * np.finfo(float).eps  # as test_vecmath

@@ -177,14 +177,12 @@ class _Writer:
             raise ValueError(f"call of {name}")
         if isinstance(node, ast.Subscript):
             return self.element(node), False
-        if isinstance(node, ast.Attribute) or isinstance(node, ast.Subscript):
-            raise ValueError("attribute")
         raise ValueError(f"expression {type(node).__name__}")
 
     def element(self, node: ast.Subscript) -> str:
         if not isinstance(node.value, ast.Name):
-            # name.shape[k]
-            raise ValueError("subscript of an expression")
+            raise ValueError("subscript of an expression (only array arguments are indexed; name.shape[k] is "
+                             "read on its own line)")
         name = node.value.id
         if name not in self.arrays:
             raise ValueError(f"'{name}' is not an array argument")
