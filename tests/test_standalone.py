@@ -91,7 +91,9 @@ def test_the_c_build_computes_what_numba_computes(tmp_path, job):
         path = ROOT / "tests" / "data" / job
     s, fc, args = _kernel_args(path)
     src = fc.text()
-    lib = standalone.build(src, "cost_kernel", standalone.COST_SIGNATURE, tmp_path / "k.so")
+    fixed = standalone.inner_dims(args(), standalone._parameters(src, "cost_kernel"),
+                                  standalone.ndims(standalone.COST_SIGNATURE))  # as a run builds it
+    lib = standalone.build(src, "cost_kernel", standalone.COST_SIGNATURE, tmp_path / "k.so", fixed=fixed)
     import ctypes
 
     ck = standalone.CKernel(ctypes.CDLL(str(lib)), "cost_kernel", standalone.ndims(standalone.COST_SIGNATURE))
@@ -108,44 +110,89 @@ def test_the_c_build_computes_what_numba_computes(tmp_path, job):
 
 def test_the_solve_kernel_agrees_with_the_dense_reference():
     # the network's own kernel, built in C, against solve_dense (numpy.linalg.solve of the full nodal matrix)
-    from xo_fit.solver import kernels
-
     s, fc, _ = _kernel_args(JOB)
     v = s.values()[None] * np.linspace(0.7, 1.3, 5)[:, None]
     sol = s.network.solve_compiled(v)
     ref = s.network.solve_reference(v)
-    assert kernels.STANDALONE  # built in C, not by numba
+    assert s.network.kernel().uses_c  # built in C, not by numba
     np.testing.assert_allclose(sol.voltages, ref.voltages, rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(sol.impedance, ref.impedance, rtol=1e-9)
 
 
+def _fallback_probe():
+    calls = []
+
+    def fallback():
+        calls.append(1)
+        return lambda *args: -1  # stands for numba's kernel
+
+    return calls, fallback
+
+
 def test_a_damaged_library_or_a_failed_build_falls_back_to_numba(tmp_path, monkeypatch):
-    _, fc, _ = _kernel_args(JOB, batch=4)
-    src = fc.text()
+    _, fc, args = _kernel_args(JOB, batch=4)
+    src, sig = fc.text(), standalone.COST_SIGNATURE
     cc = standalone.compiler()
-    key = standalone.key(src, cc)
+    names, dims = standalone._parameters(src, "cost_kernel"), standalone.ndims(sig)
+    key = standalone.key(src, cc, standalone.inner_dims(args(), names, dims))
     standalone.library_path(tmp_path, key).write_bytes(b"not a shared object")
-    assert standalone.load(tmp_path, src, "cost_kernel", standalone.COST_SIGNATURE) is None
+    calls, fallback = _fallback_probe()
+    k = standalone.load(tmp_path, src, "cost_kernel", sig, fallback)
+    assert k(*args()) == -1 and calls == [1] and not k.uses_c
     # a compiler that fails: a note is left, and the next run does not try again
+    standalone.library_path(tmp_path, key).unlink()
     bad = tmp_path / "bad-cc"
     bad.write_text("#!/bin/sh\necho 'bad-cc: broken' >&2\nexit 3\n")
     bad.chmod(0o755)
     monkeypatch.setenv("CC", str(bad))
-    assert standalone.load(tmp_path, src, "cost_kernel", standalone.COST_SIGNATURE) is None
+    key = standalone.key(src, str(bad), standalone.inner_dims(args(), names, dims))
+    k = standalone.load(tmp_path, src, "cost_kernel", sig, fallback)
+    assert k(*args()) == -1 and calls == [1, 1]
     notes = list(tmp_path.glob("*.failed"))
-    assert len(notes) == 1 and "bad-cc failed (3): bad-cc: broken" in notes[0].read_text()
+    assert [n.name for n in notes] == [f"xo_c_{key}.failed"]
+    assert "bad-cc failed (3): bad-cc: broken" in notes[0].read_text()
     monkeypatch.setattr(standalone, "build", lambda *a, **k: pytest.fail("built again after a failure"))
-    assert standalone.load(tmp_path, src, "cost_kernel", standalone.COST_SIGNATURE) is None
+    assert standalone.load(tmp_path, src, "cost_kernel", sig, fallback)(*args()) == -1
+
+
+def test_other_inner_dimensions_get_a_build_of_their_own(tmp_path):
+    # the arrays' inner dimensions are constants in the C: another batch size reuses the build, another
+    # number of parts (vals' second dimension) does not and is built again
+    src = """
+import numba
+
+
+@numba.njit(fastmath={"contract"})
+def k(a, out):
+    n = a.shape[0]
+    m = a.shape[1]
+    for i in range(n):
+        s = 0.0
+        for j in range(m):
+            s += a[i, j]
+        out[i, 0] = s
+    return n
+"""
+    calls, fallback = _fallback_probe()
+    k = standalone.load(tmp_path, src, "k", "i8(f8[:,::1], f8[:,::1])", fallback)
+    for rows, cols in ((3, 4), (5, 4), (2, 7)):
+        a = np.arange(rows * cols, dtype=float).reshape(rows, cols)
+        out = np.zeros((rows, 1))
+        assert k(a, out) == rows
+        np.testing.assert_array_equal(out[:, 0], a.sum(axis=1))
+    assert k.uses_c and not calls
+    assert len(list(tmp_path.glob("xo_c_*.so"))) == 2
 
 
 def test_no_compiler_or_turned_off_means_numba(tmp_path, monkeypatch):
     _, fc, _ = _kernel_args(JOB, batch=4)
+    calls, fallback = _fallback_probe()
     monkeypatch.setattr(standalone.shutil, "which", lambda name: None)
     assert standalone.compiler() is None
-    assert standalone.load(tmp_path, fc.text(), "cost_kernel", standalone.COST_SIGNATURE) is None
+    assert standalone.load(tmp_path, fc.text(), "cost_kernel", standalone.COST_SIGNATURE, fallback) is None
     monkeypatch.undo()
     monkeypatch.setenv("XO_FIT_STANDALONE", "0")
-    assert standalone.load(tmp_path, fc.text(), "cost_kernel", standalone.COST_SIGNATURE) is None
+    assert standalone.load(tmp_path, fc.text(), "cost_kernel", standalone.COST_SIGNATURE, fallback) is None
     assert not list(tmp_path.iterdir())
 
 

@@ -18,7 +18,7 @@ import ast
 import math
 
 #: Bump when the C written for the same kernel text changes, so that cached builds are not reused.
-VERSION = 1
+VERSION = 2
 
 #: C text of vecmath.ln: the same steps (exponent by bit cast, 2 atanh series) so that the loop vectorises.
 LN_C = r"""
@@ -96,8 +96,9 @@ def _scopes(body: list) -> dict[str, tuple]:
 
 class _Writer:
     def __init__(self, arrays: dict[str, int], scalars: list[str], constants: dict[str, str],
-                 scopes: dict[str, tuple]) -> None:
+                 scopes: dict[str, tuple], fixed: dict[str, int]) -> None:
         self.arrays = arrays  # name -> ndim
+        self.fixed = fixed  # "name_dK" -> a dimension known when the C is written
         self.scalars = set(scalars)
         self.constants = constants  # module-level names -> C literal
         self.scopes = scopes
@@ -197,7 +198,7 @@ class _Writer:
             parts.append(text)
         flat = parts[0]
         for k, p in enumerate(parts[1:], start=1):
-            flat = f"({flat}) * {name}_d{k} + {p}"
+            flat = f"({flat}) * {self.dim(name, k)} + {p}"
         return f"{name}[{flat}]"
 
     # ------------------------------------------------------------------ statements
@@ -217,12 +218,18 @@ class _Writer:
             return self.element(node)
         raise ValueError("assignment target")
 
+    def dim(self, name: str, k: int) -> str:
+        """Dimension k of array ``name``: a constant where it is fixed (the compiler then knows every stride, so
+        rows of one array are seen not to overlap and no run-time alias checks are needed), else the argument."""
+        fixed = self.fixed.get(f"{name}_d{k}")
+        return f"{fixed}LL" if fixed is not None else f"{name}_d{k}"
+
     def shape(self, node) -> str | None:
         """``name.shape[k]`` as its C dimension, else None."""
         if (isinstance(node, ast.Subscript) and isinstance(node.value, ast.Attribute) and node.value.attr == "shape"
                 and isinstance(node.value.value, ast.Name) and node.value.value.id in self.arrays
                 and isinstance(node.slice, ast.Constant) and isinstance(node.slice.value, int)):
-            return f"{node.value.value.id}_d{node.slice.value}"
+            return self.dim(node.value.value.id, node.slice.value)
         return None
 
     def stmt(self, node, ind: str) -> None:
@@ -287,11 +294,13 @@ def _dbl(arg: tuple[str, bool]) -> str:
     return f"(double)({arg[0]})" if arg[1] else arg[0]
 
 
-def to_c(source: str, entry: str, args: list[tuple[str, int]]) -> str:
+def to_c(source: str, entry: str, args: list[tuple[str, int]], fixed: dict[str, int] | None = None) -> str:
     """C99 text of the function ``entry`` of a generated kernel.
 
     args: the function's parameters in order, each (name, ndim): ndim 0 for a float scalar, else a C-contiguous
     float64 array of that many dimensions, passed as a pointer followed by its dimensions (``name_d0`` ...).
+    fixed: dimensions written into the code as constants, by ``"name_dK"`` (the caller must then pass arrays
+    of exactly those dimensions).
     Module-level float constants of the source are inlined; imports are ignored. Raises ValueError for any
     construct outside the subset.
     """
@@ -320,7 +329,7 @@ def to_c(source: str, entry: str, args: list[tuple[str, int]]) -> str:
     if names != [n for n, _ in args]:
         raise ValueError(f"parameters {names} differ from {[n for n, _ in args]}")
     arrays = {n: k for n, k in args if k > 0}
-    w = _Writer(arrays, [n for n, k in args if k == 0], constants, _scopes(fn.body))
+    w = _Writer(arrays, [n for n, k in args if k == 0], constants, _scopes(fn.body), dict(fixed or {}))
     w.block(fn.body, "    ")
     params = []
     for n, k in args:

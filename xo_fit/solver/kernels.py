@@ -80,17 +80,13 @@ def kernel_digest(source: str) -> str:
     return hashlib.sha256(f"{KERNEL_VERSION}\n{_numba_version()}\n{source}".encode()).hexdigest()[:20]
 
 
-#: Kernel texts (by digest) that run as a standalone C build (no numba involved).
-STANDALONE: set[str] = set()
-
-
 def load_kernel(source: str, entry: str = "kernel", *, signature: str | None = None):
     """The function ``entry`` of a generated kernel, compiled (once per text, cached on disk).
 
-    With ``signature`` (the numba signature of its arguments) the kernel is first built as a standalone C
-    library (:mod:`xo_fit.solver.standalone`), which loads without numba; its text's hash is then in
-    ``STANDALONE``. Otherwise, or when that is not possible, numba compiles it: the text is written to the
-    cache (atomically) and imported.
+    With ``signature`` (the numba signature of its arguments) the kernel becomes a standalone C library on its
+    first call (:mod:`xo_fit.solver.standalone`: built by the system's compiler, loaded without numba). Without
+    one, or when that is not possible, numba compiles it: the text is written to the cache (atomically) and
+    imported.
     """
     text_key = hashlib.sha256(f"{entry}\n{signature}\n{source}".encode()).hexdigest()
     if text_key in _LOADED:
@@ -99,11 +95,16 @@ def load_kernel(source: str, entry: str = "kernel", *, signature: str | None = N
     if signature is not None:
         from .standalone import load
 
-        fn = load(folder, source, entry, signature)
+        fn = load(folder, source, entry, signature, fallback=lambda: _numba_kernel(folder, source, entry))
         if fn is not None:
-            STANDALONE.add(text_key)
             _LOADED[text_key] = fn
             return fn
+    _LOADED[text_key] = _numba_kernel(folder, source, entry)
+    return _LOADED[text_key]
+
+
+def _numba_kernel(folder: Path, source: str, entry: str):
+    """numba's build of a kernel text: written to the cache (atomically), imported, compiled on first call."""
     digest = kernel_digest(source)
     prefer_wide_vectors()
     path = source_path(folder, digest)
@@ -117,8 +118,7 @@ def load_kernel(source: str, entry: str = "kernel", *, signature: str | None = N
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
     spec.loader.exec_module(module)
-    _LOADED[text_key] = getattr(module, entry)
-    return _LOADED[text_key]
+    return getattr(module, entry)
 
 
 def source_path(folder: Path, digest: str) -> Path:
