@@ -89,8 +89,11 @@ def args():
             float(PIVOT_TOLERANCE ** 2), fc.tgt, fc.ang, fc.angw, np.empty((fc.scratch_rows,
             fc.net.frequencies.size)), np.empty((512, FLAG + 1)))
 import tempfile, pathlib
-lib = standalone.build(fc.text(), "cost_kernel", standalone.COST_SIGNATURE, pathlib.Path(tempfile.mkdtemp()) / "k.so")
-c = standalone.CKernel(ctypes.CDLL(str(lib)), "cost_kernel", standalone.ndims(standalone.COST_SIGNATURE))
+dims = standalone.ndims(standalone.COST_SIGNATURE)
+fixed = standalone.inner_dims(args(), standalone._parameters(fc.text(), "cost_kernel"), dims)  # as a fit builds it
+lib = standalone.build(fc.text(), "cost_kernel", standalone.COST_SIGNATURE, pathlib.Path(tempfile.mkdtemp()) / "k.so",
+                       fixed=fixed)
+c = standalone.CKernel(ctypes.CDLL(str(lib)), "cost_kernel", dims)
 ns = {}
 exec(compile(fc.text().replace("cache=True, ", ""), "<kernel>", "exec"), ns)
 jit = ns["cost_kernel"]
