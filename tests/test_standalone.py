@@ -94,9 +94,8 @@ def test_the_c_build_computes_what_numba_computes(tmp_path, job):
     fixed = standalone.inner_dims(args(), standalone._parameters(src, "cost_kernel"),
                                   standalone.ndims(standalone.COST_SIGNATURE))  # as a run builds it
     lib = standalone.build(src, "cost_kernel", standalone.COST_SIGNATURE, tmp_path / "k.so", fixed=fixed)
-    import ctypes
 
-    ck = standalone.CKernel(ctypes.CDLL(str(lib)), "cost_kernel", standalone.ndims(standalone.COST_SIGNATURE))
+    ck = standalone.open_built(lib, src, "cost_kernel", standalone.COST_SIGNATURE, fixed)
     ns: dict = {}
     exec(compile(src.replace("cache=True, ", ""), "<kernel>", "exec"), ns)
     a, b = args(), args()
@@ -255,3 +254,43 @@ def k(x, out):
     ref = np.log(x)
     assert out[x == 1.0][0] == 0.0
     assert np.max(np.abs(out - ref) / np.maximum(np.abs(ref), 1.0)) < 4 * np.finfo(float).eps  # as test_vecmath
+
+
+def test_calls_from_several_threads_keep_their_own_arguments(tmp_path):
+    # the packed arguments live per thread: threads calling one kernel at once each get their own sums
+    import threading
+
+    src = """
+import numba
+
+
+@numba.njit(fastmath={"contract"})
+def k(a, out):
+    n = a.shape[0]
+    for i in range(n):
+        s = 0.0
+        for r in range(2500):
+            for j in range(8):
+                s += a[i, j]
+        out[i, 0] = s
+    return n
+"""
+    calls, fallback = _fallback_probe()
+    k = standalone.load(tmp_path, src, "k", "i8(f8[:,::1], f8[:,::1])", fallback)
+    errors = []
+
+    def work(seed):
+        rng = np.random.default_rng(seed)
+        for _ in range(200):
+            a = rng.random((3, 8))
+            out = np.zeros((3, 1))
+            k(a, out)
+            if not np.allclose(out[:, 0], 2500 * a.sum(axis=1)):
+                errors.append(seed)
+
+    threads = [threading.Thread(target=work, args=(s,)) for s in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert k.uses_c and not calls and not errors
