@@ -152,6 +152,17 @@ def test_a_damaged_library_or_a_failed_build_falls_back_to_numba(tmp_path, monke
     assert "bad-cc failed (3): bad-cc: broken" in notes[0].read_text()
     monkeypatch.setattr(standalone, "build", lambda *a, **k: pytest.fail("built again after a failure"))
     assert standalone.load(tmp_path, src, "cost_kernel", sig, fallback)(*args()) == -1
+    # a day later it is tried again
+    old = notes[0].stat().st_mtime - standalone.FAILED_RETRY_S - 1
+    os.utime(notes[0], (old, old))
+    tried = []
+
+    def failing_build(*a, **k):
+        tried.append(1)
+        raise OSError("disk full")
+
+    monkeypatch.setattr(standalone, "build", failing_build)
+    assert standalone.load(tmp_path, src, "cost_kernel", sig, fallback)(*args()) == -1 and tried == [1]
 
 
 def test_other_inner_dimensions_get_a_build_of_their_own(tmp_path):

@@ -19,7 +19,7 @@ text, the translator's version, the compiler (path, size, time) and flags, and t
 One machine always takes the same path (a compiler present: C; none, or ``XO_FIT_STANDALONE=0``: numba),
 so a seed gives the same result run after run. The two paths agree to about 1e-12 relative, not bit for
 bit (the compilers contract and reorder differently). A build that fails leaves a note
-(``xo_c_<key>.failed``) so later runs go straight to numba.
+(``xo_c_<key>.failed``) so that runs in the next day go straight to numba.
 """
 
 from __future__ import annotations
@@ -33,6 +33,7 @@ import subprocess
 import sys
 import tempfile
 import threading
+import time
 from pathlib import Path
 
 import numpy as np
@@ -52,6 +53,8 @@ SOLVE_SIGNATURE = "i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,:
 BASE_FLAGS = ("-O3", "-march=native", "-funroll-loops", "-fPIC", "-shared", "-fno-math-errno", "-fno-tree-pre",
               "-std=c99")
 REASSOC_FLAGS = ("-fassociative-math", "-fno-signed-zeros", "-fno-trapping-math")
+#: A failed build is tried again after this long (s): the failure may have been passing (a full disk).
+FAILED_RETRY_S = 86400.0
 #: Longest a build may take (s) before it counts as failed.
 BUILD_TIMEOUT_S = 120.0
 
@@ -249,8 +252,11 @@ def load_built(folder: Path, source: str, entry: str, signature: str, cc: str, f
     path = library_path(folder, k)
     failed = folder / f"xo_c_{k}.failed"
     if not path.exists():
-        if failed.exists():
-            return None
+        try:
+            if time.time() - failed.stat().st_mtime < FAILED_RETRY_S:
+                return None
+        except OSError:
+            pass  # no note: build
         try:
             build(source, entry, signature, path, cc, fixed)
         except (OSError, ValueError, RuntimeError, subprocess.SubprocessError) as exc:
