@@ -71,23 +71,19 @@ print(f"{t_np - t0:.3f} {t_imp - t_nb:.3f} {t_load - t_imp:.3f} {t_first - t_loa
 KERNELS = r"""
 import ctypes, statistics, sys, time
 import numpy as np
-from xo_fit.constants import PIVOT_TOLERANCE
 from xo_fit.fitting import cost_model
 from xo_fit.io.job import load_job
 from xo_fit.search import make_space
 from xo_fit.solver import standalone
-from xo_fit.solver.fused import FLAG, FusedCost
+from xo_fit.solver.fused import FusedCost
 from xo_fit.system import load_system
 
 s = load_system(load_job(sys.argv[1]))
 fc = FusedCost(cost_model(s)[0])
 space = make_space(s.job)
 v = np.ascontiguousarray(space.values(np.random.default_rng(1).random((512, len(space.u0)))))
-k = fc.net._kernel_args()
 def args():
-    return (v, k["r_coef"], k["r_exp"], k["fin"], float(fc.net.source_voltage), float(fc.net.source_resistance),
-            float(PIVOT_TOLERANCE ** 2), fc.tgt, fc.ang, fc.angw, np.empty((fc.scratch_rows,
-            fc.net.frequencies.size)), np.empty((512, FLAG + 1)))
+    return fc.kernel_args(v)
 import tempfile, pathlib
 dims = standalone.ndims(standalone.COST_SIGNATURE)
 fixed = standalone.inner_dims(args(), standalone._parameters(fc.text(), "cost_kernel"), dims)  # as a fit builds it

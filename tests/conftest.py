@@ -6,7 +6,6 @@ come from docs/references.md unless a test says otherwise.
 
 from __future__ import annotations
 
-import os
 import textwrap
 from pathlib import Path
 

@@ -59,24 +59,17 @@ def test_a_new_topology_is_built_once_and_fits_without_numba(tmp_path):
 
 
 def _kernel_args(job: Path, batch: int = 256):
-    from xo_fit.constants import PIVOT_TOLERANCE
     from xo_fit.fitting import cost_model
     from xo_fit.io.job import load_job
     from xo_fit.search import make_space
-    from xo_fit.solver.fused import FLAG, FusedCost
+    from xo_fit.solver.fused import FusedCost
     from xo_fit.system import load_system
 
     s = load_system(load_job(job))
     fc = FusedCost(cost_model(s)[0])
     space = make_space(s.job)
-    u = np.random.default_rng(7).random((batch, len(space.u0)))
-    v = np.ascontiguousarray(space.values(u))
-    k = fc.net._kernel_args()
-    def args():
-        return (v.copy(), k["r_coef"], k["r_exp"], k["fin"], float(fc.net.source_voltage),
-                float(fc.net.source_resistance), float(PIVOT_TOLERANCE ** 2), fc.tgt, fc.ang, fc.angw,
-                np.zeros((fc.scratch_rows, fc.net.frequencies.size)), np.zeros((batch, FLAG + 1)))
-    return s, fc, args
+    v = space.values(np.random.default_rng(7).random((batch, len(space.u0))))
+    return s, fc, lambda: fc.kernel_args(v)
 
 
 @pytest.mark.parametrize("job", ["hard-three-way.toml", "three-way-lr4.toml", "demo"])

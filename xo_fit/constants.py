@@ -7,10 +7,15 @@ unit of each valued part type.
 
 from __future__ import annotations
 
+import math
+
 #: The source's positive terminal.
 SOURCE_NODE = "in"
 #: The source's return (ground).
 GROUND_NODE = "0"
+
+#: 10 / ln(10): 10 log10(x) = DB10 * ln(x) (the compiled kernels take dB through a natural logarithm).
+DB10 = 10.0 / math.log(10.0)
 
 #: Reference sound pressure of dB SPL, Pa (20 uPa, ISO 1683).
 P_REF = 20e-6

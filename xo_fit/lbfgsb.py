@@ -22,7 +22,7 @@ MAXCOR = 10  # scipy's default number of stored corrections
 MAXLS = 20  # scipy's default line-search steps per iteration
 MAXFUN = 15000  # scipy's default evaluation limit
 
-_TASK_FG, _TASK_NEW_X, _TASK_CONVERGED = 3, 1, 4  # setulb's task codes (scipy/optimize/__lbfgsb.c)
+_TASK_FG, _TASK_NEW_X = 3, 1  # setulb's task codes (scipy/optimize/__lbfgsb.c)
 _TASK_STOP, _STOP_MAXITER, _STOP_MAXFUN = 5, 504, 502
 
 _routine: object = None

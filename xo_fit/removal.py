@@ -80,15 +80,16 @@ def dead_driver(system, voltages: np.ndarray) -> bool:
     return bool(np.any(np.max(np.abs(voltages[0]), axis=-1) < DEAD_DRIVER * abs(system.job.source_voltage)))
 
 
-def removals(system, values: dict[str, float], *, protect: bool = True) -> list[tuple[str, str, object]]:
+def removals(system, values: dict[str, float], *, protect: bool = True,
+             check_dead: bool = True) -> list[tuple[str, str, object]]:
     """Every legal removal of an R, L or C part: (name, how, system without it). ``protect`` skips parts with
-    ``keep = true``."""
+    ``keep = true``; ``check_dead`` as in :func:`variant`."""
     out = []
     for p in system.job.valued_parts:
         if protect and p.keep:
             continue
         for how in HOWS:
-            s = variant(system, p.name, how, values)
+            s = variant(system, p.name, how, values, check_dead=check_dead)
             if s is not None:
                 out.append((p.name, how, s))
     return out
@@ -117,22 +118,17 @@ def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
     targets = model[1]  # the same grid and targets for every variant
     by_name = dict(zip(system.part_names, np.asarray(values, dtype=float)))
     best: dict[str, tuple[float, str]] = {}
-    for p in system.job.valued_parts:
-        for how in HOWS:
-            s = variant(system, p.name, how, by_name, check_dead=False)
-            if s is None:
-                continue
-            name = p.name
-            vals = np.array([by_name[n] for n in s.part_names])[None]
-            sim = s.simulate(vals, dense=True)  # one dense solve serves the check and the cost
-            if dead_driver(s, sim.voltages):
-                continue
-            other = float(CostModel(s, targets).evaluate_simulation(sim, vals).cost[0])
-            if not math.isfinite(other):
-                continue
-            change = relative_change(other, cost)
-            if abs(change) < NEGLIGIBLE and (name not in best or abs(change) < abs(best[name][0])):
-                best[name] = (change, how)
+    for name, how, s in removals(system, by_name, protect=False, check_dead=False):
+        vals = np.array([by_name[n] for n in s.part_names])[None]
+        sim = s.simulate(vals, dense=True)  # one dense solve serves the check and the cost
+        if dead_driver(s, sim.voltages):
+            continue
+        other = float(CostModel(s, targets).evaluate_simulation(sim, vals).cost[0])
+        if not math.isfinite(other):
+            continue
+        change = relative_change(other, cost)
+        if abs(change) < NEGLIGIBLE and (name not in best or abs(change) < abs(best[name][0])):
+            best[name] = (change, how)
     out = []
     for name, (change, how) in best.items():
         p = system.job.part(name)

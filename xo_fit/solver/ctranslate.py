@@ -15,7 +15,8 @@ Anything outside the subset raises ``ValueError`` (the caller then uses numba).
 from __future__ import annotations
 
 import ast
-import math
+
+from ..constants import DB10
 
 #: Bump when the C written for the same kernel text changes, so that cached builds are not reused.
 VERSION = 4
@@ -307,7 +308,7 @@ def to_c(source: str, entry: str, args: list[tuple[str, int]], fixed: dict[str, 
     construct outside the subset.
     """
     tree = ast.parse(source)
-    constants: dict[str, str] = {"DB10": _double(10.0 / math.log(10.0))}
+    constants: dict[str, str] = {"DB10": _double(DB10)}
     fn = None
     for node in tree.body:
         if isinstance(node, (ast.Import, ast.ImportFrom)):

@@ -307,16 +307,19 @@ class FusedCost:
 
     # ------------------------------------------------------------------ evaluation
 
+    def kernel_args(self, values: np.ndarray) -> tuple:
+        """The kernel's arguments (COST_SIGNATURE) for designs (B, P): a fresh scratch and output (B, 10) last."""
+        v = np.ascontiguousarray(self.net._check_values(values), dtype=float)
+        k = self.net._kernel_args()
+        return (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
+                float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw,
+                np.empty((self.scratch_rows, self.net.frequencies.size)), np.empty((v.shape[0], FLAG + 1)))
+
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
         """(B, 10): cost, the TERMS (way, sum, phase, impedance, stress, early_reflections, sound_power), level,
         flag for designs (B, P); flagged rows re-scored."""
-        v = np.ascontiguousarray(self.net._check_values(values), dtype=float)
-        k = self.net._kernel_args()
-        out = np.empty((v.shape[0], FLAG + 1))
-        scratch = np.empty((self.scratch_rows, self.net.frequencies.size))
-        args = (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
-                float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw, scratch,
-                out)
+        args = self.kernel_args(values)
+        v, out = args[0], args[-1]
         nbad = self.kernel()(*args)
         if nbad:
             redo = np.nonzero(~(out[:, FLAG] <= 0.0))[0]

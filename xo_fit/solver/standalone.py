@@ -26,8 +26,10 @@ from __future__ import annotations
 
 import ast
 import ctypes
+import functools
 import hashlib
 import os
+import re
 import shutil
 import subprocess
 import sys
@@ -99,6 +101,7 @@ def flags(source: str) -> tuple[str, ...]:
     return out + (REASSOC_FLAGS if "reassoc" in fast else ())
 
 
+@functools.lru_cache(maxsize=1)
 def _cpu() -> str:
     """This CPU's identity for the cache key: its feature flags (Linux), else what platform says."""
     try:
@@ -195,11 +198,11 @@ class CKernel:
 
 
 def open_built(path: Path, source: str, entry: str, signature: str, fixed: dict[str, int] | None = None) -> CKernel:
-    """The kernel in a library built by :func:`build` with these ``fixed`` dimensions."""
-    names = _parameters(source, entry)
-    slots = frozenset((i, int(key.rsplit("_d", 1)[1])) for key in (fixed or {}) for i, n in enumerate(names)
-                      if key.rsplit("_d", 1)[0] == n)
-    return CKernel(ctypes.CDLL(str(path)), entry, ndims(signature), slots)
+    """The kernel in a library built by :func:`build` with these ``fixed`` dimensions (by ``"name_dK"``)."""
+    dims = ndims(signature)
+    slots = frozenset((i, j) for i, (n, k) in enumerate(zip(_parameters(source, entry), dims)) for j in range(k)
+                      if f"{n}_d{j}" in (fixed or {}))
+    return CKernel(ctypes.CDLL(str(path)), entry, dims, slots)
 
 
 class LazyKernel:
@@ -299,6 +302,11 @@ def build(source: str, entry: str, signature: str, output: Path, cc: str | None 
 
 
 def _parameters(source: str, entry: str) -> list[str]:
+    """The parameter names of ``entry``: read off its one-line ``def`` (parsing a kernel's text costs ~9 ms, on
+    every warm start); other layouts are parsed. :func:`to_c` checks the names against its own parse."""
+    m = re.search(rf"^def {re.escape(entry)}\(([\w, ]*)\):", source, re.M)
+    if m:
+        return [n.strip() for n in m.group(1).split(",") if n.strip()]
     for node in ast.parse(source).body:
         if isinstance(node, ast.FunctionDef) and node.name == entry:
             return [a.arg for a in node.args.args]

@@ -19,6 +19,10 @@ from llvmlite import ir
 from numba import types
 from numba.extending import intrinsic
 
+from ..constants import DB10
+
+__all__ = ["DB10", "ln"]  # what the generated kernels import (DB10 lives in constants)
+
 LN2 = math.log(2.0)
 SQRT2 = math.sqrt(2.0)
 _MANTISSA = (1 << 52) - 1
@@ -72,7 +76,3 @@ def ln(x):
     p = p * z2 + 1.0 / 3.0
     p = p * z2 + 1.0
     return ef * LN2 + 2.0 * z * p
-
-
-#: 10 / ln(10): 10 log10(x) = DB10 * ln(x)
-DB10 = 10.0 / math.log(10.0)
