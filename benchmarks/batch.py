@@ -20,7 +20,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
 from conftest import ladder_job  # noqa: E402
 
-from xo_fit.batch import run_batch  # noqa: E402
+from xo_fit.batch.runner import run_batch  # noqa: E402
 
 N_JOBS = 32
 

@@ -31,9 +31,9 @@ sys.path.insert(0, str(ROOT / "tests"))
 from conftest import ladder_job  # noqa: E402  (the test helper that writes handbook ladder jobs)
 
 from xo_fit.demo import write_scenario  # noqa: E402
-from xo_fit.fitting import run_fit  # noqa: E402
-from xo_fit.io.job import load_job  # noqa: E402
-from xo_fit.system import load_system  # noqa: E402
+from xo_fit.search.fitting import run_fit  # noqa: E402
+from xo_fit.job.reader import load_job  # noqa: E402
+from xo_fit.model.system import load_system  # noqa: E402
 
 
 #: A cost this small is the exact design (the ideal LR4's handbook ladder): success however far below it lies.

@@ -27,11 +27,11 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from xo_fit.demo import write_scenario  # noqa: E402
-from xo_fit.fitting import cost_model  # noqa: E402
-from xo_fit.io.job import load_job  # noqa: E402
-from xo_fit.search import make_space  # noqa: E402
-from xo_fit.solver.fused import FusedCost  # noqa: E402
-from xo_fit.system import load_system  # noqa: E402
+from xo_fit.search.fitting import cost_model  # noqa: E402
+from xo_fit.job.reader import load_job  # noqa: E402
+from xo_fit.search.engines import make_space  # noqa: E402
+from xo_fit.model.fused import FusedCost  # noqa: E402
+from xo_fit.model.system import load_system  # noqa: E402
 
 
 def variant(folder: Path, name: str, reference: str, er: float, sp: float) -> FusedCost:

@@ -20,11 +20,11 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from xo_fit.demo import JOB_TEXT, write_scenario  # noqa: E402
-from xo_fit.fitting import cost_model, run_fit  # noqa: E402
-from xo_fit.io.job import load_job  # noqa: E402
+from xo_fit.search.fitting import cost_model, run_fit  # noqa: E402
+from xo_fit.job.reader import load_job  # noqa: E402
 from xo_fit.series import nearest  # noqa: E402
-from xo_fit.snapping import NEIGHBOURS, run_snap  # noqa: E402
-from xo_fit.system import load_system  # noqa: E402
+from xo_fit.stages.snapping import NEIGHBOURS, run_snap  # noqa: E402
+from xo_fit.model.system import load_system  # noqa: E402
 
 
 def main() -> None:

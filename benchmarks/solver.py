@@ -32,9 +32,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from xo_fit.demo import JOB_TEXT  # noqa: E402
-from xo_fit.io.job import load_job  # noqa: E402
+from xo_fit.job.reader import load_job  # noqa: E402
 from xo_fit.constants import PIVOT_TOLERANCE  # noqa: E402
-from xo_fit.system import load_system  # noqa: E402
+from xo_fit.model.system import load_system  # noqa: E402
 
 WOOFER = dict(re=5.4, le=0.6e-3, fs=58.0, qms=3.4, qes=0.62)
 TWEETER = dict(re=4.7, le=0.06e-3, fs=780.0, qms=1.6, qes=1.3)

@@ -21,10 +21,10 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from xo_fit.demo import JOB_TEXT, write_scenario  # noqa: E402
-from xo_fit.fitting import run_fit  # noqa: E402
-from xo_fit.io.job import load_job  # noqa: E402
-from xo_fit.tolerance import run_spread  # noqa: E402
-from xo_fit.system import load_system  # noqa: E402
+from xo_fit.search.fitting import run_fit  # noqa: E402
+from xo_fit.job.reader import load_job  # noqa: E402
+from xo_fit.stages.tolerance import run_spread  # noqa: E402
+from xo_fit.model.system import load_system  # noqa: E402
 
 
 def main() -> None:

@@ -49,18 +49,18 @@ t0 = time.perf_counter()
 import numpy, scipy
 t_np = time.perf_counter()
 t_nb = time.perf_counter()
-import xo_fit.cli
-from xo_fit.io.job import load_job
-from xo_fit.system import load_system
+import xo_fit.cli.app
+from xo_fit.job.reader import load_job
+from xo_fit.model.system import load_system
 t_imp = time.perf_counter()
 s = load_system(load_job(sys.argv[1]))
 t_load = time.perf_counter()
-from xo_fit.fitting import cost_model
-from xo_fit.solver.fused import FusedCost
+from xo_fit.search.fitting import cost_model
+from xo_fit.model.fused import FusedCost
 fc = FusedCost(cost_model(s)[0])
 fc(s.values()[None])
 t_first = time.perf_counter()
-from xo_fit.fitting import run_fit
+from xo_fit.search.fitting import run_fit
 out = run_fit(s)
 t_fit = time.perf_counter()
 print(f"{t_np - t0:.3f} {t_imp - t_nb:.3f} {t_load - t_imp:.3f} {t_first - t_load:.3f} "
@@ -71,12 +71,12 @@ print(f"{t_np - t0:.3f} {t_imp - t_nb:.3f} {t_load - t_imp:.3f} {t_first - t_loa
 KERNELS = r"""
 import ctypes, statistics, sys, time
 import numpy as np
-from xo_fit.fitting import cost_model
-from xo_fit.io.job import load_job
-from xo_fit.search import make_space
+from xo_fit.search.fitting import cost_model
+from xo_fit.job.reader import load_job
+from xo_fit.search.engines import make_space
 from xo_fit.solver import standalone
-from xo_fit.solver.fused import FusedCost
-from xo_fit.system import load_system
+from xo_fit.model.fused import FusedCost
+from xo_fit.model.system import load_system
 
 s = load_system(load_job(sys.argv[1]))
 fc = FusedCost(cost_model(s)[0])

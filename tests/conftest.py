@@ -14,7 +14,7 @@ import pytest
 
 # the suite runs the kernels as users do: C builds where a compiler is (tests/test_standalone.py holds them to
 # numba's); XO_FIT_STANDALONE=0 in the environment runs it all on numba instead
-from xo_fit.cli import main  # noqa: E402
+from xo_fit.cli.app import main  # noqa: E402
 from xo_fit.solver.network import Branch, compile_network  # noqa: E402
 
 

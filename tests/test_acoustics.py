@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from xo_fit import acoustics
-from xo_fit.io.job import load_job
-from xo_fit.system import load_system
+from xo_fit.model import acoustics
+from xo_fit.job.reader import load_job
+from xo_fit.model.system import load_system
 
 JOB = '''\
 [grid]

@@ -161,7 +161,7 @@ def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
 
 def test_unsafe_job_names_are_refused_and_folders_are_unique_per_job(tmp_path, cli):
     """A job named '..' or 'x/y' is bad input (exit 2); names that clean to the same text get their own folders."""
-    from xo_fit.batch import _folder_name
+    from xo_fit.batch.runner import _folder_name
 
 
     text, _ = ladder_job("LR2")
@@ -214,8 +214,8 @@ def test_killing_the_coordinator_alone_leaves_no_worker_and_no_lock(tmp_path):
 def test_a_worker_that_dies_costs_only_its_own_job(tmp_path, monkeypatch):
     """A worker killed in its second stage: its first stage is kept, the job is tried once more from there and,
     dying again, recorded failed with the cause; every other job finishes. Stages carry their own times."""
-    import xo_fit.stages as stages
-    from xo_fit.batch import run_batch
+    import xo_fit.batch.tasks as stages
+    from xo_fit.batch.runner import run_batch
 
     make_jobs(tmp_path, 3, budget=800)
     real = stages.snap_stage
@@ -255,7 +255,7 @@ def test_store_and_folder_faults_are_one_line(tmp_path):
 def test_a_full_disk_fails_the_job_and_leaves_no_running_row(tmp_path, monkeypatch):
     import errno
 
-    import xo_fit.batch as batch
+    import xo_fit.batch.runner as batch
 
     make_jobs(tmp_path, 2)
 
@@ -288,7 +288,7 @@ def test_resume_after_a_stage_folder_was_deleted(tmp_path):
 
 def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch):
     distributed = pytest.importorskip("distributed")
-    import xo_fit.batch as batch
+    import xo_fit.batch.runner as batch
     from xo_fit.errors import XoFitError
 
     make_jobs(tmp_path, 1)

@@ -247,7 +247,7 @@ def test_help_shows_every_default_as_a_value(cli):
 
 
 def test_spread_says_when_the_nominal_design_already_misses_the_limits(tmp_path):
-    from xo_fit.cli import main as run_main
+    from xo_fit.cli.app import main as run_main
     from xo_fit.demo import write_scenario
     import contextlib
     import io

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from xo_fit.coils import K_BROOKS, RHO_COPPER, coil_dcr
+from xo_fit.physics.coils import K_BROOKS, RHO_COPPER, coil_dcr
 from xo_fit.units import awg_diameter
 
 

@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from xo_fit.cost import BREAKUP_FLOOR_DB, CostModel
-from xo_fit.fitting import score
-from xo_fit.io.job import load_job
-from xo_fit.system import load_system
-from xo_fit.targets import build_targets
+from xo_fit.model.cost import BREAKUP_FLOOR_DB, CostModel
+from xo_fit.search.fitting import score
+from xo_fit.job.reader import load_job
+from xo_fit.model.system import load_system
+from xo_fit.model.targets import build_targets
 
 from conftest import ladder_job
 
@@ -116,7 +116,7 @@ def test_an_exact_null_of_the_target_is_one_floor_for_both(write_job):
     [DER]), on a grid point here (2 kHz). The handbook design then matches its target everywhere; the null takes
     no part in the level and costs nothing (it cost 37 when target and response had floors of their own), and
     the fused kernel agrees with the reference."""
-    from xo_fit.solver.fused import FusedCost
+    from xo_fit.model.fused import FusedCost
 
     text, _ = ladder_job("LR2", tweeter_inverted=False)
     text = text.replace('[target.way.tweeter]\n', '[target.way.tweeter]\npolarity = "normal"\n')

@@ -97,7 +97,7 @@ def _render(table: str, key: str, value) -> str:
 
 def test_job_format_doc_has_every_default():
     """Every key of DEFAULTS is documented in its table of docs/job-format.md, with the same default."""
-    from xo_fit.io.job import DEFAULTS
+    from xo_fit.job.model import DEFAULTS
 
     where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
              "thiele_small": "[driver.NAME.impedance]", "angles": "[driver.NAME.angles]",
@@ -161,7 +161,7 @@ def test_the_package_has_no_import_cycle():
 
 def test_job_format_doc_lists_every_key():
     """Every key a table takes (the set "did you mean" chooses from) has its row in docs/job-format.md."""
-    from xo_fit.io.job import KEYS
+    from xo_fit.job.model import KEYS
 
     where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
              "thiele_small": "[driver.NAME.impedance]", "angles": "[driver.NAME.angles]",

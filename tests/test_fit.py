@@ -12,10 +12,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from xo_fit.fitting import run_fit
-from xo_fit.io.job import load_job
-from xo_fit.search import make_space, search
-from xo_fit.system import load_system
+from xo_fit.search.fitting import run_fit
+from xo_fit.job.reader import load_job
+from xo_fit.search.engines import make_space, search
+from xo_fit.model.system import load_system
 
 from conftest import ladder_job
 
@@ -149,7 +149,7 @@ def test_a_failing_optimizer_cannot_hang_the_command(write_job, tmp_path):
     script = textwrap.dedent(f'''
         import sys, threading, time
         import numpy as np
-        import xo_fit.search as s
+        import xo_fit.search.engines as s
 
         def bad(obj, n, u0, rng):
             obj(np.full((4, n), 0.5))
@@ -157,7 +157,7 @@ def test_a_failing_optimizer_cannot_hang_the_command(write_job, tmp_path):
             raise TypeError("boom")
 
         s.ENGINES["bad"] = bad
-        from xo_fit.cli import run
+        from xo_fit.cli.app import run
         sys.argv = ["xo-fit", "fit", {str(job)!r}, "--out", {str(tmp_path / "o")!r}, "--optimizer", "bad", "--no-plots"]
         run()
     ''')
@@ -198,7 +198,7 @@ def test_three_way_with_a_bandpass_midrange_reaches_one_optimum(tmp_path):
         assert r.scored.cost < 0.5 and r.scored.metrics["rms_error_db"] < 0.6
         assert r.scored.metrics["phase_mismatch_deg"] < 5
     np.testing.assert_allclose(results[0].scored.values, results[1].scored.values, rtol=1e-3)
-    from xo_fit.targets import polarities
+    from xo_fit.model.targets import polarities
 
     assert polarities(job.target.ways) == {"w": 1.0, "m": 1.0, "t": 1.0}
 
@@ -224,8 +224,8 @@ def test_restarts_spend_the_budget_exactly(write_job, budget):
     never exceeded; the engine's every call is counted."""
     text, _ = ladder_job("LR2", start=2.0, spread=4.0)
     s = load_system(load_job(write_job(text)))
-    from xo_fit.fitting import cost_model
-    from xo_fit.search import make_space, search
+    from xo_fit.search.fitting import cost_model
+    from xo_fit.search.engines import make_space, search
 
     space = make_space(s.job)
     cm, _ = cost_model(s)

@@ -5,14 +5,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from xo_fit.cost import TERMS
-from xo_fit.solver.fused import LEVEL
+from xo_fit.model.cost import TERMS
+from xo_fit.model.fused import LEVEL
 from xo_fit.demo import write_scenario
-from xo_fit.fitting import cost_model
-from xo_fit.solver.fused import FusedCost
-from xo_fit.io.job import load_job
-from xo_fit.search import make_space
-from xo_fit.system import load_system
+from xo_fit.search.fitting import cost_model
+from xo_fit.model.fused import FusedCost
+from xo_fit.job.reader import load_job
+from xo_fit.search.engines import make_space
+from xo_fit.model.system import load_system
 
 from conftest import ladder_job
 
@@ -81,7 +81,7 @@ value = {c!r}
     c = float(1 / ((2 * np.pi * f0) ** 2 * 1e-3))
     s = load_system(load_job(write_job(text.replace("[target]", trap.format(c=c) + "\n[target]", 1))))
     check(s, n=8)
-    import xo_fit.solver.fused as fused_module
+    import xo_fit.model.fused as fused_module
 
     cm, _ = cost_model(s)
     fused = FusedCost(cm)

@@ -19,7 +19,7 @@ import numpy as np
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from xo_fit.cli import main
+from xo_fit.cli.app import main
 
 N = int(os.environ.get("XO_FIT_FUZZ_EXAMPLES", "120"))
 FUZZ = settings(max_examples=N, deadline=None, derandomize=True,
@@ -149,7 +149,7 @@ def _job(replace: dict[str, str] | None = None, add: str = "") -> str:
 
 
 def _cli(tmp_path, text: str, files: dict | None = None, command: str = "check"):
-    from xo_fit.cli import main as run_main
+    from xo_fit.cli.app import main as run_main
 
     for name, content in {**DATA, **(files or {})}.items():
         (tmp_path / name).write_bytes(content if isinstance(content, bytes) else content.encode())
@@ -220,7 +220,7 @@ def test_odd_names_and_values_still_plot(tmp_path, replace):
     code, err = _cli(tmp_path, _job(replace), command="simulate")
     assert code in (0, 2), err
     if code == 0:
-        from xo_fit.cli import main as run_main
+        from xo_fit.cli.app import main as run_main
 
         assert run_main(["simulate", str(tmp_path / "job.toml"), "--out", str(tmp_path / "p")]) == 0
         assert (tmp_path / "p" / "response.png").stat().st_size > 1000
@@ -270,8 +270,8 @@ def test_an_exact_series_resonance_across_the_source_is_no_traceback(tmp_path, e
     import json
 
     import xo_fit
-    from xo_fit.fitting import cost_model
-    from xo_fit.solver.fused import FusedCost
+    from xo_fit.search.fitting import cost_model
+    from xo_fit.model.fused import FusedCost
 
     (tmp_path / "job.toml").write_text(RESONANT + extra)
     for command in ("simulate", "fit"):

@@ -14,8 +14,8 @@ import pytest
 
 from xo_fit.demo import woofer_response
 from xo_fit.errors import DataError
-from xo_fit.impedance_fit import fit_impedance
-from xo_fit.io.job import load_job
+from xo_fit.physics.impedance_fit import fit_impedance
+from xo_fit.job.reader import load_job
 from xo_fit.io.measure import read_curve
 
 

@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 
 from xo_fit.errors import JobError
-from xo_fit.io.job import DEFAULTS, load_job
+from xo_fit.job.model import DEFAULTS
+from xo_fit.job.reader import load_job
 
 from conftest import flat_curve, resistive_curve
 
@@ -251,7 +252,7 @@ def test_job_and_system_pickle(write_job):
     """A batch worker or cluster node gets the loaded job and its data by pickling."""
     import pickle
 
-    from xo_fit.system import load_system
+    from xo_fit.model.system import load_system
 
     job = load_job(write_job(CONTRACT, DATA))
     j2 = pickle.loads(pickle.dumps(job))

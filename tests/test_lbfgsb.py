@@ -1,6 +1,6 @@
 """The polish's L-BFGS-B driver against scipy.optimize.minimize(method="L-BFGS-B") (reference library).
 
-xo_fit.lbfgsb runs scipy's compiled routine without importing scipy.optimize; it must give scipy's own
+xo_fit.search.lbfgsb runs scipy's compiled routine without importing scipy.optimize; it must give scipy's own
 iterates: the same end point and value bit for bit, and the same evaluations in the same order.
 """
 
@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize, rosen, rosen_der
 
-from xo_fit import lbfgsb
+from xo_fit.search import lbfgsb
 
 
 def _recorded(fun):
@@ -63,7 +63,7 @@ def test_the_fit_path_does_not_import_scipy_optimize():
     import subprocess
     import sys
 
-    code = ("import sys, numpy as np; from xo_fit import lbfgsb;"
+    code = ("import sys, numpy as np; from xo_fit.search import lbfgsb;"
             "x, f = lbfgsb.minimize_box(lambda x: (float(x @ x), 2 * x), np.ones(3), -np.ones(3), np.ones(3),"
             " ftol=1e-10, gtol=1e-8, maxiter=100);"
             "print(int('scipy.optimize' in sys.modules), float(abs(x).max()))")

@@ -220,7 +220,7 @@ def test_fast_path_matches_dense_reference(rs, ideal):
 
 def test_wire_dcr_model_in_the_kernel():
     """A coil with the wire law (DCR = a L^0.6) solves like a fixed DCR of the same resistance."""
-    from xo_fit.coils import coil_dcr, dcr_coefficient
+    from xo_fit.physics.coils import coil_dcr, dcr_coefficient
     from xo_fit.units import awg_diameter
 
     d = awg_diameter(18)

@@ -18,10 +18,11 @@ import numpy as np
 import pytest
 from scipy.special import j1
 
-from xo_fit.acoustics import (CTA_POSITIONS, EARLY_REFLECTION_GROUPS, LISTENING_WINDOW, curve_weights,
+from xo_fit.model.acoustics import (CTA_POSITIONS, EARLY_REFLECTION_GROUPS, LISTENING_WINDOW, curve_weights,
                               directivity, sound_power_weights)
-from xo_fit.io.job import load_job, position
-from xo_fit.system import load_system
+from xo_fit.job.reader import load_job
+from xo_fit.job.model import position
+from xo_fit.model.system import load_system
 
 from conftest import flat_curve
 
@@ -235,7 +236,7 @@ def test_a_pruned_off_axis_job_runs_from_its_own_folder_and_a_batch_sees_its_ang
     code, out, err = cli("simulate", tmp_path / "deep" / "p" / "job.toml", "--out", tmp_path / "s", "--no-plots")
     assert code == 0, err
     assert (tmp_path / "s" / "angles.csv").exists() and (tmp_path / "deep" / "p" / "angles.csv").exists()
-    from xo_fit.batch import job_hash
+    from xo_fit.batch.runner import job_hash
 
     j = load_job(job)
     before = job_hash(j, j.data)

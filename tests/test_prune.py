@@ -9,10 +9,10 @@ import numpy as np
 import pytest
 
 import xo_fit
-from xo_fit.io.job import load_job
-from xo_fit.removal import idle_parts, variant
-from xo_fit.stress import stresses
-from xo_fit.system import load_system
+from xo_fit.job.reader import load_job
+from xo_fit.stages.removal import idle_parts, variant
+from xo_fit.model.stress import stresses
+from xo_fit.model.system import load_system
 
 from conftest import ladder_job
 
@@ -47,7 +47,7 @@ def test_a_provably_idle_part_is_found_negligible_and_no_ladder_part_is(write_jo
     assert "CX" in d.to_json()["findings"][0]["text"] or any(f["part"] == "CX" for f in d.to_json()["findings"])
     text, _ = ladder_job("LR2")
     s = load_system(load_job(write_job(text, name="plain.toml")))
-    from xo_fit.fitting import score
+    from xo_fit.search.fitting import score
 
     assert idle_parts(s, s.values(), score(s, s.values()).cost) == []
 
@@ -145,7 +145,7 @@ rated_impedance = 6
     assert coil.at_hz == pytest.approx(f[k])
     d = xo_fit.simulate(s.job)
     assert d.stress["L"]["unit"] == "A" and d.stress["L"]["within_rating"] is False
-    from xo_fit.cautions import design_cautions
+    from xo_fit.output.cautions import design_cautions
 
     assert any("L carries" in c and "1 A rating" in c for c in design_cautions(st, 6.0))
 

@@ -10,11 +10,11 @@ import subprocess
 import numpy as np
 import pytest
 
-from xo_fit.cautions import design_cautions
-from xo_fit.io.job import load_job
-from xo_fit.io.spice import netlist
-from xo_fit.stress import epdr, stresses
-from xo_fit.system import load_system
+from xo_fit.output.cautions import design_cautions
+from xo_fit.job.reader import load_job
+from xo_fit.output.spice import netlist
+from xo_fit.model.stress import epdr, stresses
+from xo_fit.model.system import load_system
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 
@@ -78,7 +78,7 @@ def test_epdr_and_the_80_percent_rule():
     assert epdr(np.array([8.0 + 0j]))[0] == pytest.approx(8.0)
     assert epdr(np.array([np.exp(1j * np.pi / 4)]))[0] == pytest.approx(0.35, abs=0.005)
     assert epdr(np.array([np.exp(-1j * np.pi / 4)]))[0] == pytest.approx(0.3536, abs=1e-4)
-    from xo_fit.cautions import LOW_LOAD_OHM, RATED_FRACTION
+    from xo_fit.output.cautions import LOW_LOAD_OHM, RATED_FRACTION
 
     assert RATED_FRACTION * 4 == pytest.approx(3.2) and LOW_LOAD_OHM == pytest.approx(3.2)
 
@@ -187,7 +187,7 @@ def test_measured_drivers_export_as_fitted_circuits_that_ngspice_agrees_with(tmp
                                                          deck, re.M)]
     assert len(stated) == 2 and "fit error" in out
     data = _run_deck(ngspice, deck, tmp_path, "x")
-    from xo_fit.design import load_result
+    from xo_fit.output.design import load_result
 
     d = load_result(tmp_path / "d" / "snap")
     s = d.system
@@ -333,7 +333,7 @@ def test_hostile_text_cannot_reach_the_deck_as_statements(write_job, tmp_path, c
 def test_nodes_that_differ_only_in_case_stay_apart_in_the_deck(write_job, tmp_path):
     """SPICE reads names without regard to case: "w1" and "W1" would merge and the coil between them vanish.
     The deck renames one, and ngspice then gives xo_fit's driver voltage (to 1e-6)."""
-    from xo_fit.io.spice import spice_names
+    from xo_fit.output.spice import spice_names
 
     text = """
 [grid]
@@ -382,7 +382,7 @@ def test_the_network_is_drawn_as_ladders_or_listed(write_job, tmp_path):
     layout, and the report then lists the netlist instead."""
     import xo_fit
     from xo_fit.demo import write_scenario
-    from xo_fit.schematic import draw, ladders
+    from xo_fit.output.schematic import draw, ladders
 
     job = xo_fit.load_job(write_scenario(tmp_path / "s"))
     lay = ladders(job)

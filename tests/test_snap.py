@@ -10,15 +10,15 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-import xo_fit.snapping as snap_module
+import xo_fit.stages.snapping as snap_module
 from xo_fit.errors import DataError
-from xo_fit.fitting import cost_model
-from xo_fit.solver.fused import FusedCost
-from xo_fit.io.job import load_job
+from xo_fit.search.fitting import cost_model
+from xo_fit.model.fused import FusedCost
+from xo_fit.job.reader import load_job
 from xo_fit.series import nearest
 from xo_fit.io.inventory import read_inventory
-from xo_fit.snapping import _Evaluator, choices_for, log_nearest_index, run_snap, search_choices
-from xo_fit.system import load_system
+from xo_fit.stages.snapping import _Evaluator, choices_for, log_nearest_index, run_snap, search_choices
+from xo_fit.model.system import load_system
 
 from conftest import ladder_job
 

@@ -8,12 +8,12 @@ import json
 import numpy as np
 import pytest
 
-from xo_fit.acoustics import spl_db
+from xo_fit.model.acoustics import spl_db
 from xo_fit.grid import band_mask
-from xo_fit.fitting import run_fit
-from xo_fit.io.job import load_job
-from xo_fit.tolerance import draw_factors, part_tolerances, run_spread, sensitivities
-from xo_fit.system import load_system
+from xo_fit.search.fitting import run_fit
+from xo_fit.job.reader import load_job
+from xo_fit.stages.tolerance import draw_factors, part_tolerances, run_spread, sensitivities
+from xo_fit.model.system import load_system
 
 from conftest import ladder_job
 

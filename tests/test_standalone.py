@@ -26,7 +26,7 @@ if standalone.compiler() is None:
         raise RuntimeError("a C compiler is required (XO_FIT_REQUIRE_STANDALONE=1)")
     pytest.skip("no C compiler", allow_module_level=True)
 
-RUN = ("import sys, json; from xo_fit.cli import main; code = main(sys.argv[1:]); "
+RUN = ("import sys, json; from xo_fit.cli.app import main; code = main(sys.argv[1:]); "
        "print(json.dumps({'code': code, 'numba': 'numba' in sys.modules}))")
 
 
@@ -62,7 +62,7 @@ def _kernel_args(job: Path, batch: int = 256):
     from xo_fit.fitting import cost_model
     from xo_fit.io.job import load_job
     from xo_fit.search import make_space
-    from xo_fit.solver.fused import FusedCost
+    from xo_fit.model.fused import FusedCost
     from xo_fit.system import load_system
 
     s = load_system(load_job(job))
@@ -74,7 +74,7 @@ def _kernel_args(job: Path, batch: int = 256):
 
 @pytest.mark.parametrize("job", ["hard-three-way.toml", "three-way-lr4.toml", "demo"])
 def test_the_c_build_computes_what_numba_computes(tmp_path, job):
-    from xo_fit.solver.fused import FLAG
+    from xo_fit.model.fused import FLAG
 
     if job == "demo":  # off axis: the listening window as reference, 9 positions summed
         from xo_fit.demo import write_scenario

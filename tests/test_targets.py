@@ -7,8 +7,9 @@ import pytest
 import scipy.signal as sig
 
 from xo_fit.errors import JobError
-from xo_fit.io.job import WayTarget, load_job
-from xo_fit.targets import build_targets, polarities, shipped_curves, way_shape
+from xo_fit.job.model import WayTarget
+from xo_fit.job.reader import load_job
+from xo_fit.model.targets import build_targets, polarities, shipped_curves, way_shape
 
 FC = 2000.0
 F = np.geomspace(20, 20000, 401)
@@ -25,7 +26,7 @@ def way(type_="lowpass", alignment="LR", order=4, polarity="auto", driver="w", *
 def test_closed_form_prototypes_match_scipy_signal(alignment, orders, btype):
     """Second code path: the closed-form slopes against scipy.signal's analog prototypes
     (butter; butter squared for LR; bessel with norm="phase")."""
-    from xo_fit.targets import slope
+    from xo_fit.model.targets import slope
 
     for order in orders:
         wc = 2 * np.pi * FC
@@ -163,7 +164,7 @@ def test_shipped_shaping_curves_are_defined_on_any_grid(write_job):
     """flat and the tilts are formulas: a grid from 5 Hz to 30 kHz (beyond the files' 10 Hz-40 kHz) works, and the
     formulas agree with the shipped files where both are defined (-k log10(f / 1 kHz))."""
     from xo_fit.io.measure import read_curve
-    from xo_fit.targets import load_curve
+    from xo_fit.model.targets import load_curve
     import importlib.resources
 
     from conftest import ladder_job

@@ -13,7 +13,7 @@ Importing the package stays light: numba, matplotlib, nevergrad and dask load
 only when something needs them (the API's names are imported on first use).
 """
 
-from .errors import XoFitError
+from xo_fit.errors import XoFitError
 
 __version__ = "0.2.0"
 
@@ -24,7 +24,7 @@ __all__ = ["XoFitError", "__version__", *_API]
 
 def __getattr__(name: str):
     if name in _API:
-        from . import api
+        from xo_fit import api
 
         return getattr(api, name)
     raise AttributeError(f"module 'xo_fit' has no attribute {name!r}")

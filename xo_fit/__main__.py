@@ -1,3 +1,3 @@
-from .cli import run
+from xo_fit.cli.app import run
 
 run()

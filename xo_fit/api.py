@@ -1,8 +1,8 @@
 """The Python API: load a job, simulate, fit, snap and spread designs, write a report.
 
-Every function takes a job (a :class:`~xo_fit.io.job.Job` from :func:`load_job`,
-a path to a job file, or an already loaded :class:`~xo_fit.system.System`) and
-returns a :class:`~xo_fit.design.Design` or :class:`~xo_fit.design.Spread`.
+Every function takes a job (a :class:`~xo_fit.job.model.Job` from :func:`load_job`,
+a path to a job file, or an already loaded :class:`~xo_fit.model.system.System`) and
+returns a :class:`~xo_fit.output.design.Design` or :class:`~xo_fit.output.design.Spread`.
 Values are SI floats by part name. User errors raise
 :class:`~xo_fit.errors.XoFitError`; the command line is built on these same
 functions.
@@ -22,11 +22,11 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .constants import PART_UNIT
-from .design import Design, Spread, load_result
-from .errors import XoFitError
-from .io.job import Job
-from .io.job import load_job as _load_job
+from xo_fit.constants import PART_UNIT
+from xo_fit.output.design import Design, Spread, load_result
+from xo_fit.errors import XoFitError
+from xo_fit.job.model import Job
+from xo_fit.job.reader import load_job as _load_job
 
 __all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "Design",
            "Spread"]
@@ -43,7 +43,7 @@ def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = N
 
 def _system(job):
     """A loaded system for a job given as a System, a Job or a path."""
-    from .system import System, load_system
+    from xo_fit.model.system import System, load_system
 
     if isinstance(job, System):
         return job
@@ -86,7 +86,7 @@ def _reuse(job, design):
 
 def simulate(job, values: Mapping[str, float] | Design | None = None, *, source_from: str | None = None) -> Design:
     """The job's own values (a hand design), some replaced by ``values`` (SI by part name), simulated and scored."""
-    from .fitting import score
+    from xo_fit.search.fitting import score
 
     system = _reuse(job, values)
     v = _values(system, values)
@@ -99,7 +99,7 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
 
     ``workers`` > 1 runs that many independent searches from derived seeds in processes; the best wins.
     """
-    from .fitting import run_fit, run_fit_restarts
+    from xo_fit.search.fitting import run_fit, run_fit_restarts
 
     system = _system(job)
     j = system.job
@@ -134,10 +134,10 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
     (R, L, C) to a series name and overrides the job's [snap] series; ``inventory`` is a path to a drawer
     CSV (or a read :class:`~xo_fit.io.inventory.Inventory`), by default the job's own.
     """
-    from .fitting import cost_model, score
-    from .io.inventory import Inventory, read_inventory
-    from .snapping import parts_table, run_snap
-    from .units import format_value
+    from xo_fit.search.fitting import cost_model, score
+    from xo_fit.io.inventory import Inventory, read_inventory
+    from xo_fit.stages.snapping import parts_table, run_snap
+    from xo_fit.units import format_value
 
     system = _reuse(job, design)
     j = system.job
@@ -178,8 +178,8 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
 def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: int | None = None,
            seed: int | None = None, progress=None, source_from: str | None = None) -> Spread:
     """Tolerance Monte Carlo of a design (default: the job's own values): yields, sensitivity, percentiles."""
-    from .fitting import score
-    from .tolerance import run_spread
+    from xo_fit.search.fitting import score
+    from xo_fit.stages.tolerance import run_spread
 
     system = _reuse(job, design)
     j = system.job
@@ -213,29 +213,30 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
           seed: int | None = None, max_increase: float = 0.10, workers: int = 1, progress=None):
     """Greedy backward elimination of parts with refits, from ``design`` (default: the job's own values).
 
-    Returns a :class:`~xo_fit.pruning.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),
+    Returns a :class:`~xo_fit.output.pruned.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),
     ``design`` (the chosen one: the fewest parts within ``max_increase`` of step 0's cost), ``save(folder)``.
     """
-    from .pruning import run_prune
+    from xo_fit.output.pruned import Pruning
+    from xo_fit.stages.pruning import run_prune
 
     system = _reuse(job, design)
-    return run_prune(system, _values(system, design), budget=budget, seed=seed, max_increase=max_increase,
-                     workers=workers, progress=progress)
+    return Pruning.of_run(run_prune(system, _values(system, design), budget=budget, seed=seed,
+                                    max_increase=max_increase, workers=workers, progress=progress))
 
 
 def fit_driver(path: str | Path, model: str = "ts"):
     """An equivalent circuit fitted to a measured impedance file (``"ts"``: Small's model; ``"ts-lossy"``: with
-    L2 || R2): an :class:`xo_fit.impedance_fit.ImpedanceFit` (``params``, ``rms_error_pct``,
+    L2 || R2): an :class:`xo_fit.physics.impedance_fit.ImpedanceFit` (``params``, ``rms_error_pct``,
     ``max_error_pct``, ``toml(name)``). Bad files and fits that fail raise XoFitError."""
-    from .impedance_fit import fit_impedance
-    from .io.measure import read_curve
+    from xo_fit.physics.impedance_fit import fit_impedance
+    from xo_fit.io.measure import read_curve
 
     return fit_impedance(read_curve(path, "impedance"), model)
 
 
 def write_report(items: list, out: str | Path, command: list[str] | None = None) -> Path:
     """report.html (self-contained) and its PNGs for designs and spreads (or result.json paths), overlaid."""
-    from .report import write_report as _write
+    from xo_fit.output.report import write_report as _write
 
     loaded = [load_result(x) if isinstance(x, (str, Path)) else x for x in items]
     if not loaded:

@@ -36,8 +36,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .io.job import ThieleSmall
-from .io.results import write_text
+from xo_fit.job.model import ThieleSmall
+from xo_fit.io.results import write_text
 
 #: Baffle width of the demo cabinet, m.
 BAFFLE_WIDTH = 0.19

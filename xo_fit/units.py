@@ -27,7 +27,7 @@ import re
 
 from quantiphy import Quantity
 
-from .errors import XoFitError
+from xo_fit.errors import XoFitError
 
 #: Unit spellings accepted for each base unit. An empty unit is always accepted.
 UNIT_SPELLINGS: dict[str, frozenset[str]] = {

@@ -6,9 +6,9 @@ import csv
 from dataclasses import dataclass
 from pathlib import Path
 
-from ..constants import PART_UNIT
-from ..errors import DataError, read_user_text
-from ..units import UnitsError, parse_value
+from xo_fit.constants import PART_UNIT
+from xo_fit.errors import DataError, read_user_text
+from xo_fit.units import UnitsError, parse_value
 
 
 

@@ -21,8 +21,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ..constants import P_REF
-from ..errors import DataError, read_user_bytes
+from xo_fit.constants import P_REF
+from xo_fit.errors import DataError, read_user_bytes
 
 #: Plausible ranges of each column (frequency Hz, magnitude, phase deg): beyond them a number is a mistake
 #: (a misplaced exponent, a column of another quantity), and beyond them the arithmetic overflows too.

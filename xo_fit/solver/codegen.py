@@ -16,13 +16,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..constants import GROUND_NODE, SOURCE_NODE
-from .kernels import KERNEL_VERSION
-from .netlist import reduce_series_chains
-from ..errors import NetworkError
+from xo_fit.constants import GROUND_NODE, SOURCE_NODE
+from xo_fit.solver.kernels import KERNEL_VERSION
+from xo_fit.solver.netlist import reduce_series_chains
+from xo_fit.errors import NetworkError
 
 if TYPE_CHECKING:
-    from .network import Network
+    from xo_fit.solver.network import Network
 
 
 def _render(terms: list[tuple[int, str]]) -> str:

@@ -10,11 +10,11 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..constants import GROUND_NODE, SOURCE_NODE
-from .netlist import Solution
+from xo_fit.constants import GROUND_NODE, SOURCE_NODE
+from xo_fit.solver.netlist import Solution
 
 if TYPE_CHECKING:
-    from .network import Network
+    from xo_fit.solver.network import Network
 
 
 def branch_admittances(net: Network, values: np.ndarray, f_index: np.ndarray) -> np.ndarray:

@@ -15,11 +15,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..constants import GROUND_NODE, SOURCE_NODE
-from ..errors import NetworkError
+from xo_fit.constants import GROUND_NODE, SOURCE_NODE
+from xo_fit.errors import NetworkError
 
 if TYPE_CHECKING:
-    from .network import Network
+    from xo_fit.solver.network import Network
 
 
 @dataclass(frozen=True)

@@ -6,7 +6,7 @@ voltage ``Vs`` and a series resistance ``Rs``. Each part is a series branch:
 
 * R: Z = R;
 * L: Z = r + j w L, with r its DC resistance (fixed ohms, or the wire law
-  r = a L^0.6 of :mod:`xo_fit.coils`, so a coil moved by the search keeps its
+  r = a L^0.6 of :mod:`xo_fit.physics.coils`, so a coil moved by the search keeps its
   copper);
 * C: Z = esr + 1 / (j w C);
 * a driver: its measured complex impedance on the grid.
@@ -35,13 +35,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..constants import GROUND_NODE, PIVOT_TOLERANCE, SOURCE_NODE
-from ..errors import NetworkError
-from .codegen import generate_kernel_source, kernel_inputs
-from .dense import solve_dense
-from .kernels import load_kernel
-from .standalone import SOLVE_SIGNATURE
-from .netlist import Branch, Solution, check_topology
+from xo_fit.constants import GROUND_NODE, PIVOT_TOLERANCE, SOURCE_NODE
+from xo_fit.errors import NetworkError
+from xo_fit.solver.codegen import generate_kernel_source, kernel_inputs
+from xo_fit.solver.dense import solve_dense
+from xo_fit.solver.kernels import load_kernel
+from xo_fit.solver.standalone import SOLVE_SIGNATURE
+from xo_fit.solver.netlist import Branch, Solution, check_topology
 
 __all__ = ["Branch", "Network", "Solution", "compile_network"]
 

@@ -1,0 +1,71 @@
+"""The stages a job goes through (fit, snap, spread), each computing a design and writing it into a folder.
+
+The command line and the batch runner call the same functions: a command
+writes into its --out folder, a batch worker into a private temporary folder
+whose files it sends back to the coordinator (which alone writes the batch's
+folders and store); ``home`` then names the folder the files will live in, so
+that the result's provenance points at the job from there.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from xo_fit import api
+
+
+@dataclass
+class StageOutput:
+    """What a stage produced: its result document, the files it wrote, and objects for the console."""
+
+    stage: str
+    document: dict
+    files: list[Path]
+    info: dict = field(default_factory=dict)
+
+    @property
+    def cost(self) -> float | None:
+        return self.document.get("cost")
+
+    @property
+    def metrics(self) -> dict:
+        return self.document.get("metrics", {})
+
+
+def _output(design, out: Path, files: list[Path], **info) -> StageOutput:
+    doc = json.loads((out / "result.json").read_text(encoding="utf-8"))
+    return StageOutput(design.stage, doc, files, {**design.info, "design": design, **info})
+
+
+def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time_limit=None, workers: int = 1,
+              plots: bool = True, progress=None, home: Path | None = None) -> StageOutput:
+    d = api.fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit, workers=workers,
+                progress=progress)
+    files = d.save(out, plots=plots, title=f"{system.job.name}: fit", home=home)
+    return _output(d, out, files)
+
+
+def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=None, inventory=None, combine=None,
+               plots: bool = True, source_from: str | None = None, home: Path | None = None,
+               top_up: str | None = None) -> StageOutput:
+    values = dict(zip(system.part_names, np.asarray(continuous, dtype=float)))
+    d = api.snap(system, values, series=series_override, inventory=inventory, combine=combine,
+                 source_from=source_from, top_up=top_up)
+    files = d.save(out, plots=plots, title=f"{system.job.name}: snapped (grey: continuous)", home=home)
+    return _output(d, out, files)
+
+
+def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=None, plots: bool = True,
+                 source_from: str | None = None, progress=None, home: Path | None = None,
+                 part_info: dict | None = None) -> StageOutput:
+    """``part_info``: what the design's own result said of each part (a snap's series, source, combination),
+    carried into the spread's result so that its part list still says what to buy."""
+    values = dict(zip(system.part_names, np.asarray(nominal, dtype=float)))
+    sp = api.spread(system, values, samples=samples, seed=seed, progress=progress, source_from=source_from)
+    sp.design.part_info = dict(part_info or {})
+    files = sp.save(out, plots=plots, home=home)
+    return _output(sp.design, out, files, result=sp.result, spread=sp)

@@ -1,0 +1,416 @@
+"""Job files: TOML in, a frozen and validated :class:`Job` out.
+
+The format is specified in ``docs/job-format.md``. Every
+default lives in :data:`DEFAULTS` below and nowhere else. Validation is strict:
+an unknown key, a value of the wrong kind or unit, or a part that cannot exist
+is a :class:`~xo_fit.errors.JobError` that names the file, the line (found in
+the file's text where it can be), the key and what was expected.
+
+Values in the file are SI numbers or engineering-notation strings
+(:mod:`xo_fit.units`); inside the :class:`Job` they are floats in SI units.
+Relative paths are taken from the job file's folder.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any, Mapping
+
+import numpy as np
+
+from xo_fit.constants import PART_UNIT
+from xo_fit.grid import Grid
+
+#: Every default of the job format, by table and key.
+DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
+    "grid": {"f_min": 20.0, "f_max": 20000.0, "points": 320},
+    "source": {"voltage": 2.83, "resistance": 0.0},
+    "acoustics": {"speed_of_sound": 343.0},
+    "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
+               "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
+               "impedance_extend_low": "none", "impedance_extend_high": "none"},
+    "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
+    "angles": {"mirror": False},
+    "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
+    "target": {"level": "auto", "curve": "flat", "reference": "on_axis"},
+    "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
+    "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0,
+             "early_reflections": 0.0, "sound_power": 0.0},
+    "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
+    "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
+    "stress": {"power": None, "rated_impedance": None},
+    "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False, "rms_limit_db": 1.0,
+               "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
+})
+
+
+#: The frequency range a grid may span, Hz (beyond it the arithmetic of a loudspeaker model loses meaning).
+GRID_HZ = (0.1, 1e6)
+
+
+#: The most grid points (memory: every curve, candidate and draw is this long).
+MAX_POINTS = 100_000
+
+
+#: The largest cost weight (larger ones overflow the cost).
+MAX_WEIGHT = 1e6
+
+
+#: Plausible ranges of a voltage (V) and of a flat driver's level (dB SPL).
+VOLTS = (1e-6, 1e4)
+
+
+NAME_PATTERN = re.compile(r"^[A-Za-z_][A-Za-z0-9_\-]*$")
+
+
+NODE_PATTERN = re.compile(r"^[A-Za-z0-9_\-+.]+$")
+
+
+class FrozenMap(dict):
+    """A read-only dict that pickles (MappingProxyType does not), for the job's small tables."""
+
+    def _readonly(self, *args, **kwargs):
+        raise TypeError("a job's tables are read-only")
+
+    __setitem__ = __delitem__ = clear = pop = popitem = setdefault = update = _readonly  # type: ignore[assignment]
+
+    def __reduce__(self):
+        return (FrozenMap, (dict(self),))
+
+    def __hash__(self):  # frozen dataclasses holding it stay hashable
+        return hash(tuple(sorted(self.items())))
+
+
+@dataclass(frozen=True)
+class FileCurve:
+    """A curve read from a measurement file."""
+
+    path: Path
+
+
+@dataclass(frozen=True)
+class FlatResponse:
+    """An ideal driver response: ``level_db`` dB SPL at every frequency, zero phase."""
+
+    level_db: float
+
+
+@dataclass(frozen=True)
+class SplicedResponse:
+    """A response joined from a near-field file (below ``splice_hz``, Hz) and a far-field file (above)."""
+
+    near: Path
+    far: Path
+    splice_hz: float
+
+    @property
+    def path(self) -> Path:
+        """The far-field file (the one that names the curve in messages)."""
+        return self.far
+
+
+@dataclass(frozen=True)
+class Resistive:
+    """An ideal driver impedance: ``resistance`` ohm, zero phase."""
+
+    resistance: float
+
+
+@dataclass(frozen=True)
+class ThieleSmall:
+    """A driver impedance from its small-signal parameters (R. H. Small, JAES 20(5), 1972).
+
+    Z = Re + Z_Le + Res / (1 + Qms (s/ws + ws/s)), Res = Re Qms / Qes, where
+    the voice-coil inductance is Z_Le = le * (j w)^n * w_ref^(1-n) with
+    w_ref = 2 pi 1 kHz (W. M. Leach, JAES 50(6), 2002): n = 1 is an ideal
+    inductor, n < 1 a lossy one whose |Z_Le| at 1 kHz is still w_ref * le.
+    A second lossy-coil form adds an inductance ``l2`` (H) with ``r2`` (ohm)
+    across it in series (Z_L2 = j w L2 R2 / (R2 + j w L2); W. M. Leach, JAES
+    2002; J. R. Wright, JAES 38(10), 1990); both zero leave it out.
+    """
+
+    re: float
+    le: float
+    fs: float
+    qms: float
+    qes: float
+    le_exponent: float = 1.0
+    l2: float = 0.0
+    r2: float = 0.0
+
+    def impedance(self, f: np.ndarray) -> np.ndarray:
+        """Complex impedance in ohm at frequencies ``f`` (Hz), shape of ``f``."""
+        w = 2 * np.pi * np.asarray(f, dtype=float)
+        s = 1j * w
+        ws = 2 * np.pi * self.fs
+        w_ref = 2 * np.pi * 1000.0
+        z_le = self.le * s**self.le_exponent * w_ref ** (1.0 - self.le_exponent)
+        res = self.re * self.qms / self.qes
+        z = self.re + z_le + res / (1 + self.qms * (s / ws + ws / s))
+        if self.l2 > 0 and self.r2 > 0:
+            z = z + s * self.l2 * self.r2 / (self.r2 + s * self.l2)
+        return z
+
+
+@dataclass(frozen=True)
+class AngleSpec:
+    """Where a driver's responses at other angles are: a file pattern per orbit with ``{angle}`` in it (the
+    angle in degrees as an integer), the angles of each orbit, and whether a horizontal angle -a that is not
+    listed uses +a's file (``mirror``). Angle 0 is the reference axis: the driver's ``response``."""
+
+    horizontal: str | None
+    vertical: str | None
+    horizontal_angles: tuple[int, ...]
+    vertical_angles: tuple[int, ...]
+    mirror: bool = False
+
+    def files(self) -> dict[tuple[str, int], tuple[Path, int]]:
+        """Each measured position ("h" or "v", angle) but the axis -> (file, the angle whose file it is). The
+        rear point is ("h", 180) whichever orbit gives it; a mirrored angle names +a's file."""
+        out: dict[tuple[str, int], tuple[Path, int]] = {}
+        for orbit, pattern, angles in (("h", self.horizontal, self.horizontal_angles),
+                                       ("v", self.vertical, self.vertical_angles)):
+            for a in angles:
+                pos = position(orbit, a)
+                if pos == ("h", 0) or pattern is None:
+                    continue
+                out.setdefault(pos, (Path(pattern.replace("{angle}", str(a))), a))
+        if self.mirror and self.horizontal is not None:
+            for a in self.horizontal_angles:
+                pos = position("h", -a)
+                if pos not in out and pos != ("h", 0):
+                    out[pos] = (Path(self.horizontal.replace("{angle}", str(a))), a)
+        return out
+
+
+def position(orbit: str, angle: int) -> tuple[str, int]:
+    """The canonical name of a measuring position: angles in (-180, 180]; the axis is ("h", 0) and the point
+    behind is ("h", 180), whichever orbit reaches them."""
+    a = ((int(angle) + 180) % 360) - 180
+    a = 180 if a == -180 else a
+    if a in (0, 180):
+        return ("h", a)
+    return (orbit, a)
+
+
+@dataclass(frozen=True)
+class DriverSpec:
+    """One measured driver: where its response and impedance come from, and how to place it."""
+
+    name: str
+    response: FileCurve | FlatResponse | SplicedResponse
+    impedance: FileCurve | Resistive | ThieleSmall
+    reference_voltage: float
+    offset: float
+    phase: str
+    impedance_phase: str
+    extend_low: str = "none"
+    extend_high: str = "none"
+    impedance_extend_low: str = "none"
+    impedance_extend_high: str = "none"
+    angles: AngleSpec | None = None
+
+
+@dataclass(frozen=True)
+class PartSpec:
+    """One part of the netlist.
+
+    ``value``, ``min`` and ``max`` are SI (ohm, H, F) or None. A part is free
+    when it has a range and is not ``fixed``; otherwise it holds ``value``.
+    ``dcr`` is a coil's series resistance: a float in ohm, or the bare wire
+    diameter in m when ``dcr_wire`` is True (see :mod:`xo_fit.physics.coils`).
+    """
+
+    name: str
+    type: str
+    nodes: tuple[str, str]
+    value: float | None = None
+    min: float | None = None
+    max: float | None = None
+    fixed: bool = False
+    dcr: float = 0.0
+    dcr_wire: bool = False
+    esr: float = 0.0
+    tolerance: float | None = None
+    driver: str | None = None
+    series: str | None = None
+    rating: float | None = None  # W for R, V for C, A for L (what the bought part is rated for)
+    keep: bool = False  # protected from removal (xo-fit prune)
+
+    @property
+    def free(self) -> bool:
+        """True when the search may move this part's value."""
+        return self.type != "driver" and not self.fixed and self.min is not None
+
+    @property
+    def unit(self) -> str:
+        return PART_UNIT.get(self.type, "")
+
+
+@dataclass(frozen=True)
+class WayTarget:
+    """The acoustic target of one way (one driver)."""
+
+    driver: str
+    type: str
+    alignment: str
+    order: int
+    fc: float | None = None
+    fc_low: float | None = None
+    fc_high: float | None = None
+    polarity: str = "auto"
+
+
+@dataclass(frozen=True)
+class TargetSpec:
+    band: tuple[float, float] | None = None
+    level: float | str = DEFAULTS["target"]["level"]
+    curve: str = DEFAULTS["target"]["curve"]
+    ways: tuple[WayTarget, ...] = ()
+    reference: str = DEFAULTS["target"]["reference"]
+
+
+@dataclass(frozen=True)
+class CostSpec:
+    way: float = DEFAULTS["cost"]["way"]
+    sum: float = DEFAULTS["cost"]["sum"]
+    phase: float = DEFAULTS["cost"]["phase"]
+    impedance: float = DEFAULTS["cost"]["impedance"]
+    impedance_min: float = DEFAULTS["cost"]["impedance_min"]
+    stress: float = DEFAULTS["cost"]["stress"]
+    early_reflections: float = DEFAULTS["cost"]["early_reflections"]
+    sound_power: float = DEFAULTS["cost"]["sound_power"]
+
+
+@dataclass(frozen=True)
+class SearchSpec:
+    optimizer: str = DEFAULTS["search"]["optimizer"]
+    budget: int = DEFAULTS["search"]["budget"]
+    seed: int = DEFAULTS["search"]["seed"]
+    time_limit: float | None = DEFAULTS["search"]["time_limit"]
+    polish: bool = DEFAULTS["search"]["polish"]
+    robust_samples: int = 0
+
+
+@dataclass(frozen=True)
+class SnapSpec:
+    series: Mapping[str, str] = field(default_factory=lambda: FrozenMap(DEFAULTS["snap"]["series"]))
+    inventory: Path | None = DEFAULTS["snap"]["inventory"]
+    combine: int = DEFAULTS["snap"]["combine"]
+    top_up: str | None = DEFAULTS["snap"]["top_up"]
+
+
+@dataclass(frozen=True)
+class SpreadSpec:
+    samples: int = DEFAULTS["spread"]["samples"]
+    seed: int = DEFAULTS["spread"]["seed"]
+    distribution: str = DEFAULTS["spread"]["distribution"]
+    band_db: float = DEFAULTS["spread"]["band_db"]
+    qmc: bool = DEFAULTS["spread"]["qmc"]
+    tolerance: Mapping[str, float] = field(default_factory=lambda: FrozenMap(DEFAULTS["spread"]["tolerance"]))
+    rms_limit_db: float = DEFAULTS["spread"]["rms_limit_db"]
+
+
+@dataclass(frozen=True)
+class StressSpec:
+    """Drive level for the stress figures: ``power`` W into ``rated_impedance`` ohm (both None: no stresses)."""
+
+    power: float | None = DEFAULTS["stress"]["power"]
+    rated_impedance: float | None = DEFAULTS["stress"]["rated_impedance"]
+
+
+@dataclass(frozen=True)
+class Job:
+    """A validated job. Every value is SI; every path is absolute.
+
+    ``path`` is the job file (None for a job built from a mapping), ``folder``
+    the folder its relative paths were resolved against, ``document`` the
+    resolved job document (after [sweep] expansion) as JSON text, from which
+    :func:`load_job` rebuilds the same job, and ``part_lines`` the line of each
+    part's table in the file (for error messages found later).
+    """
+
+    name: str
+    path: Path | None
+    grid: Grid
+    source_voltage: float
+    source_resistance: float
+    speed_of_sound: float
+    drivers: tuple[DriverSpec, ...]
+    parts: tuple[PartSpec, ...]
+    target: TargetSpec
+    cost: CostSpec
+    search: SearchSpec
+    snap: SnapSpec
+    spread: SpreadSpec
+    stress: StressSpec = StressSpec()
+    folder: Path = Path(".")
+    document: str = "{}"
+    part_lines: Mapping[str, int] = field(default_factory=lambda: FrozenMap())  # line of each part's nodes
+    warnings: tuple[str, ...] = ()  # doubtful but legal values, one line each
+    swept: Mapping[str, Any] = field(default_factory=lambda: FrozenMap())  # a [sweep] variant's values, by label
+
+    @property
+    def data(self) -> dict:
+        """The resolved job document (a fresh dict with the TOML's structure)."""
+        return json.loads(self.document)
+
+    def driver(self, name: str) -> DriverSpec:
+        for d in self.drivers:
+            if d.name == name:
+                return d
+        raise KeyError(name)
+
+    def part(self, name: str) -> PartSpec:
+        for p in self.parts:
+            if p.name == name:
+                return p
+        raise KeyError(name)
+
+    @property
+    def valued_parts(self) -> tuple[PartSpec, ...]:
+        """The R, L and C parts, in file order: the columns of a values array (B, P)."""
+        return tuple(p for p in self.parts if p.type != "driver")
+
+    @property
+    def free_parts(self) -> tuple[PartSpec, ...]:
+        return tuple(p for p in self.parts if p.free)
+
+
+#: Every key each table takes (what "did you mean" chooses from).
+KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) for k, v in {
+    "top": "name grid source acoustics driver part target cost search snap spread stress sweep",
+    "grid": "f_min f_max points per_octave",
+    "source": "voltage resistance",
+    "acoustics": "speed_of_sound",
+    "driver": "response impedance reference_voltage offset phase impedance_phase extend_low extend_high "
+              "impedance_extend_low impedance_extend_high",
+    "thiele_small": "re le fs qms qes le_exponent l2 r2",
+    "angles": "horizontal vertical horizontal_angles vertical_angles mirror",
+    "splice": "near far splice_hz",
+    "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
+    "target": "band level curve way reference",
+    "way": "type alignment order fc fc_low fc_high polarity",
+    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power",
+    "search": "optimizer budget seed time_limit polish robust",
+    "robust": "samples",
+    "snap": "series inventory combine top_up",
+    "spread": "samples seed distribution band_db qmc rms_limit_db tolerance",
+    "stress": "power rated_impedance",
+}.items()})
+
+
+#: What the parts of a loudspeaker crossover take, by type (SI): resistors from a fraction of an ohm (a
+#: coil's copper, a series pad) to some kilohms; coils from a few microhenry to tens of millihenry; capacitors
+#: from a few nanofarad (a tweeter's bypass) to some millifarad (a woofer's bass-shelf network). A value
+#: outside is legal but usually a slip of the unit ("10" for a capacitor is 10 F).
+PLAUSIBLE = {"R": (0.01, 1e5), "L": (1e-6, 0.1), "C": (1e-9, 0.01)}
+
+
+#: Part values the arithmetic can take (SI): far outside what any part is, and inside what float64 divides
+#: without overflow (a denormal resistance would make an infinite admittance).
+SOLVABLE = (1e-12, 1e12)

@@ -1,0 +1,243 @@
+"""Reading one table of a job: line numbers for messages, typed getters, unknown keys refused."""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+
+from xo_fit.errors import JobError
+from xo_fit.units import UnitsError, parse_value
+from xo_fit.job.model import (DEFAULTS, VOLTS, KEYS)
+
+class Lines:
+    """Finds the line of a table or key in the TOML text, for error messages."""
+
+    _HEADER = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?")
+    _KEY = re.compile(r"^\s*([A-Za-z0-9_\-]+|\"[^\"]*\")\s*=")
+
+    def __init__(self, text: str) -> None:
+        self.index: dict[tuple, int] = {}
+        table: tuple = ()
+        counts: dict[str, int] = {}
+        for number, raw in enumerate(text.splitlines(), start=1):
+            m = self._HEADER.match(raw)
+            if m:
+                name = tuple(part.strip().strip('"') for part in m[2].split("."))
+                if m[1] == "[[":
+                    i = counts.get(m[2], 0)
+                    counts[m[2]] = i + 1
+                    name = name + (i,)
+                table = name
+                self.index.setdefault(table, number)
+                continue
+            k = self._KEY.match(raw)
+            if k:
+                key = k[1].strip('"')
+                self.index.setdefault(table + (key,), number)
+                # dotted keys at top level such as `grid.points = 3`
+                if "." in key:
+                    self.index.setdefault(table + tuple(key.split(".")), number)
+
+    def find(self, table: tuple, key: str | None = None) -> int | None:
+        if key is not None:
+            for probe in (table + (key,), table[:-1] + (key,) if table else (key,)):
+                if probe in self.index:
+                    return self.index[probe]
+        while table:
+            if table in self.index:
+                return self.index[table]
+            table = table[:-1]
+        return None
+
+
+class Reader:
+    """Reads one table of the job: typed getters, then ``done()`` refuses unknown keys."""
+
+    def __init__(self, data: Any, table: tuple, label: str, ctx: "Context") -> None:
+        self.ctx = ctx
+        self.table = table
+        self.label = label
+        if not isinstance(data, dict):
+            raise ctx.error(table, None, f"{label} must be a table, got {kind_of(data)}")
+        self.data = data
+        self.used: set[str] = set()
+
+    def error(self, key: str | None, message: str) -> JobError:
+        where = f"{self.label} {key}" if key else self.label
+        return self.ctx.error(self.table, key, message, where)
+
+    def has(self, key: str) -> bool:
+        return key in self.data
+
+    def raw(self, key: str, default: Any = None) -> Any:
+        self.used.add(key)
+        return self.data.get(key, default)
+
+    def value(self, key: str, unit: str, default: Any = None, *, required: bool = False,
+              positive: bool = True, allow_zero: bool = False) -> float | None:
+        self.used.add(key)
+        if key not in self.data:
+            if required:
+                raise self.error(key, f"missing; expected {unit_text(unit)}")
+            return default
+        try:
+            return parse_value(self.data[key], unit, positive=positive, allow_zero=allow_zero)
+        except UnitsError as e:
+            raise self.error(key, e.message) from None
+
+    def number(self, key: str, default: Any, *, integer: bool = False, minimum: float | None = None,
+               maximum: float | None = None) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            return default
+        v = self.data[key]
+        ok = isinstance(v, int) if integer else isinstance(v, (int, float))
+        if isinstance(v, bool) or not ok:
+            raise self.error(key, f"expected {'a whole number' if integer else 'a number'}, got {short(v)}")
+        if isinstance(v, float) and not math.isfinite(v):
+            raise self.error(key, f"expected a finite number, got {v!r}")
+        if isinstance(v, int) and abs(v) > 2**63:
+            raise self.error(key, f"{v} is out of range")
+        if minimum is not None and v < minimum:
+            raise self.error(key, f"must be at least {minimum:g}, got {v!r}")
+        if maximum is not None and v > maximum:
+            raise self.error(key, f"must be at most {maximum:g}, got {v!r}")
+        return int(v) if integer else float(v)
+
+    def choice(self, key: str, options: tuple[str, ...], default: Any) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            return default
+        v = self.data[key]
+        if not isinstance(v, str) or v not in options:
+            raise self.error(key, f"expected one of {', '.join(repr(o) for o in options)}, got {v!r}")
+        return v
+
+    def text(self, key: str, default: Any = None, *, required: bool = False) -> Any:
+        self.used.add(key)
+        if key not in self.data:
+            if required:
+                raise self.error(key, "missing; expected a text")
+            return default
+        v = self.data[key]
+        if not isinstance(v, str) or not v.strip():
+            raise self.error(key, f"expected a non-empty text, got {v!r}")
+        return v
+
+    def boolean(self, key: str, default: bool) -> bool:
+        self.used.add(key)
+        v = self.data.get(key, default)
+        if not isinstance(v, bool):
+            raise self.error(key, f"expected true or false, got {v!r}")
+        return v
+
+    def path(self, key: str) -> Path:
+        v = self.text(key, required=True)
+        if re.search(r"[\x00-\x1f\x7f]", v):
+            raise self.error(key, f"a file path cannot hold control characters (got {v!r})")
+        p = Path(v)
+        return p if p.is_absolute() else (self.ctx.folder / p)
+
+    def sub(self, key: str, label: str | None = None) -> "Reader":
+        self.used.add(key)
+        return Reader(self.data.get(key, {}), self.table + (key,), label or f"[{'.'.join(map(str, self.table + (key,)))}]", self.ctx)
+
+    def done(self, allowed_extra: tuple[str, ...] = ()) -> None:
+        unknown = [k for k in self.data if k not in self.used and k not in allowed_extra]
+        if unknown:
+            key = unknown[0]
+            known = sorted(self.used | set(allowed_extra) | KEYS.get(table_kind(self.table), frozenset()))
+            hint = close_match(key, known)
+            raise self.ctx.error(
+                self.table, key,
+                f"unknown key '{key}'" + (f" (did you mean '{hint}'?)" if hint else "")
+                + f"; expected one of: {', '.join(known)}",
+                self.label)
+
+
+@dataclass
+class Context:
+    path: Path | None
+    folder: Path
+    lines: Lines
+    stem: str = "job"
+    warnings: list = field(default_factory=list)
+
+    def warn(self, table: tuple, key: str | None, message: str) -> None:
+        line = self.lines.find(table, key)
+        where = f"{self.path}:{line}: " if self.path and line else (f"{self.path}: " if self.path else "")
+        self.warnings.append(where + message)
+
+    def error(self, table: tuple, key: str | None, message: str, where: str | None = None) -> JobError:
+        return JobError(message, path=self.path, line=self.lines.find(table, key), key=where)
+
+
+def table_kind(table: tuple) -> str:
+    """The kind of table a reader reads, from its path in the document."""
+    if not table:
+        return "top"
+    if table[0] == "driver":
+        return ({"angles": "angles", "response": "splice"}.get(table[2], "thiele_small") if len(table) == 3
+                else "driver")
+    if table[0] == "target" and len(table) == 3:
+        return "way"
+    if table[:2] == ("search", "robust"):
+        return "robust"
+    return str(table[0])
+
+
+def kind_of(v: Any) -> str:
+    return {dict: "a table", list: "a list", str: "a text", bool: "a boolean",
+            int: "a number", float: "a number"}.get(type(v), type(v).__name__)
+
+
+def short(v: Any) -> str:
+    """A value for an error message: its repr, cut short."""
+    text = repr(v)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def unit_text(unit: str) -> str:
+    from xo_fit.units import UNIT_SYMBOL
+    return f"a value in {UNIT_SYMBOL.get(unit, unit)}" if unit else "a number"
+
+
+def close_match(key: str, known: list[str]) -> str | None:
+    import difflib
+    m = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
+    return m[0] if m else None
+
+
+def phase_choice(r: Reader, key: str) -> str:
+    return r.choice(key, ("measured", "minimum"), DEFAULTS["driver"][key])
+
+
+def volts(r: Reader, key: str, default: float) -> float:
+    v = r.value(key, "V", default)
+    if not VOLTS[0] <= v <= VOLTS[1]:
+        raise r.error(key, f"{v:g} V is outside {VOLTS[0]:g} to {VOLTS[1]:g} V")
+    return v
+
+
+def missing(r: Reader, key: str):
+    raise r.error(key, "missing; expected a number")
+
+
+def looks_numeric(text: str) -> bool:
+    try:
+        parse_value(text, "ohm")
+        return True
+    except UnitsError:
+        return False
+
+
+def is_length(text: str) -> bool:
+    try:
+        parse_value(text, "m")
+    except UnitsError:
+        return False
+    return text.strip().endswith("m") and not text.strip().endswith("ohm")

@@ -1,0 +1,185 @@
+"""From driver terminal voltages to sound pressure: offsets, polarity, summation.
+
+Each driver's pressure in the network is
+
+    p_d(f) = H_d(f) * V_d(f) / V_ref,d * exp(-j w offset_d / c)
+
+with H_d its measured response (complex Pa at the reference voltage V_ref,d),
+V_d the voltage across its terminals (positive node first, so a driver wired
+"0" first is inverted by the network itself), offset_d its acoustic centre
+behind the reference plane (m) and c the speed of sound. The system output is
+the complex sum over drivers. Pressures stay complex; dB appears only at the
+edges (:func:`spl_db`).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from xo_fit.constants import P_REF, SPL_FLOOR_DB
+
+
+def driver_factors(response: np.ndarray, reference_voltage: np.ndarray, offset: np.ndarray,
+                   frequencies: np.ndarray, speed_of_sound: float) -> np.ndarray:
+    """Per-volt complex pressure of each driver including its offset delay, Pa/V, shape (D, F).
+
+    response: complex Pa at the reference voltage, (D, F); reference_voltage: V, (D,);
+    offset: m, (D,); frequencies: Hz, (F,).
+    """
+    w = 2 * np.pi * np.asarray(frequencies)
+    delay = np.exp(-1j * w[None, :] * np.asarray(offset)[:, None] / speed_of_sound)
+    return response / np.asarray(reference_voltage)[:, None] * delay
+
+
+def pressures(voltages: np.ndarray, factors: np.ndarray) -> np.ndarray:
+    """Each driver's pressure in Pa, (B, D, F), from terminal voltages (B, D, F) and factors (D, F)."""
+    return voltages * factors
+
+
+def total(pressure: np.ndarray) -> np.ndarray:
+    """Complex sum over the driver axis: (..., D, F) -> (..., F), Pa."""
+    return pressure.sum(axis=-2)
+
+
+def spl_db(pressure: np.ndarray) -> np.ndarray:
+    """Sound pressure level in dB SPL re 20 uPa; levels below SPL_FLOOR_DB are clipped to it."""
+    mag = np.abs(pressure)
+    with np.errstate(divide="ignore"):
+        db = 20.0 * np.log10(mag / P_REF)
+    return np.maximum(db, SPL_FLOOR_DB)
+
+
+def phase_deg(x: np.ndarray) -> np.ndarray:
+    """Phase in degrees, wrapped to (-180, 180]."""
+    return np.rad2deg(np.angle(x))
+
+
+# ----------------------------------------------------------------------------- off axis: ANSI/CTA-2034-A
+
+#: A measuring position: orbit ("h" horizontal, "v" vertical) and angle in degrees, (-180, 180]; the axis is
+#: ("h", 0) and the point behind ("h", 180) (see :func:`xo_fit.job.model.position`).
+Position = tuple[str, int]
+
+_STEP = 10
+#: The 70 positions of ANSI/CTA-2034-A (2015): both orbits in 10 degree steps, axis and rear counted once.
+CTA_POSITIONS: tuple[Position, ...] = tuple(
+    [("h", a) for a in range(-170, 181, _STEP)] + [("v", a) for a in range(-170, 171, _STEP) if a != 0])
+
+#: The listening window: h0, h+-10, h+-20, h+-30, v+-10 (ANSI/CTA-2034-A; from memory, to be confirmed
+#: against the standard's text).
+LISTENING_WINDOW: tuple[Position, ...] = (("h", 0), ("h", 10), ("h", -10), ("h", 20), ("h", -20), ("h", 30),
+                                          ("h", -30), ("v", 10), ("v", -10))
+#: The early reflections' five groups (ANSI/CTA-2034-A; from memory, to be confirmed): each group is averaged
+#: first, then the five averages.
+EARLY_REFLECTION_GROUPS: dict[str, tuple[Position, ...]] = {
+    "floor": (("v", -20), ("v", -30), ("v", -40)),
+    "ceiling": (("v", 40), ("v", 50), ("v", 60)),
+    "front_wall": (("h", 0), ("h", 10), ("h", -10), ("h", 20), ("h", -20), ("h", 30), ("h", -30)),
+    "side_walls": tuple(("h", s * a) for a in range(40, 81, 10) for s in (1, -1)),
+    "rear_wall": tuple(("h", s * a) for a in range(90, 171, 10) for s in (1, -1)) + (("h", 180),),
+}
+#: The estimated in-room response: 0.12 LW + 0.44 ER + 0.44 SP, in squared pressure (ANSI/CTA-2034-A; from
+#: memory, to be confirmed).
+IN_ROOM_WEIGHTS = (0.12, 0.44, 0.44)
+#: The curves a directivity result holds, in column order.
+CURVES = ("on_axis", "listening_window", "early_reflections", "sound_power", "estimated_in_room")
+
+
+def sound_power_weights() -> dict[Position, float]:
+    """The share of the sphere each of the 70 positions stands for (sums to 1).
+
+    The standard weighs each point by the area of the sphere it represents. Taking the polar angle t of a
+    position from the reference axis (|angle| on either orbit), the points at t stand for the zone of the
+    sphere between t - 5 and t + 5 degrees; its area is 2 pi (cos(t - 5) - cos(t + 5)) on the unit sphere
+    (Archimedes' hat-box theorem: a zone's area is 2 pi r h), shared by the four points at that t (h+t, h-t,
+    v+t, v-t); the axis stands for the cap 0..5 degrees and the rear point for the cap 175..180, each alone.
+    Divided by the sphere's 4 pi. docs/directivity.md gives the derivation and the table.
+    """
+    half = math.radians(_STEP / 2)
+    out = {}
+    for pos in CTA_POSITIONS:
+        t = math.radians(abs(pos[1]))
+        if pos in (("h", 0), ("h", 180)):  # a cap, its point alone
+            area = 2 * math.pi * (1 - math.cos(half))
+        else:
+            area = 2 * math.pi * (math.cos(t - half) - math.cos(t + half)) / 4
+        out[pos] = area / (4 * math.pi)
+    return out
+
+
+def curve_weights(positions: tuple[Position, ...]) -> dict[str, np.ndarray | None]:
+    """For positions (A,) in the order of the data: the weight of each in the listening window, the early
+    reflections and the sound power, (A,) each summing to 1; None for a curve whose positions are not all
+    there. ``positions[0]`` must be the axis."""
+    index = {p: i for i, p in enumerate(positions)}
+    n = len(positions)
+
+    def mean_of(group):
+        if not all(p in index for p in group):
+            return None
+        w = np.zeros(n)
+        for p in group:
+            w[index[p]] += 1.0 / len(group)
+        return w
+
+    lw = mean_of(LISTENING_WINDOW)
+    groups = [mean_of(g) for g in EARLY_REFLECTION_GROUPS.values()]
+    er = None if any(g is None for g in groups) else sum(groups) / len(groups)
+    sp = None
+    if all(p in index for p in CTA_POSITIONS):
+        sp = np.zeros(n)
+        for p, w in sound_power_weights().items():
+            sp[index[p]] = w
+    return {"listening_window": lw, "early_reflections": er, "sound_power": sp}
+
+
+def missing_positions(positions: tuple[Position, ...], curve: str) -> list[Position]:
+    """The positions ``curve`` needs that ``positions`` lacks."""
+    need = {"listening_window": LISTENING_WINDOW, "sound_power": CTA_POSITIONS,
+            "early_reflections": tuple(p for g in EARLY_REFLECTION_GROUPS.values() for p in g)}[curve]
+    have = set(positions)
+    return [p for p in dict.fromkeys(need) if p not in have]
+
+
+def angle_pressures(voltages: np.ndarray, factors: np.ndarray) -> np.ndarray:
+    """The summed pressure at every position, Pa (B, A, F), from terminal voltages (B, D, F) and the
+    per-volt factors of each driver at each position (A, D, F)."""
+    return np.einsum("bdf,adf->baf", voltages, factors)
+
+
+def used_positions(weights: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """The positions some of ``weights`` (each (A,)) count, and their weights: indices (A',), weights (A', K)."""
+    w = np.stack(weights, axis=1)
+    index = np.nonzero(np.any(w > 0, axis=1))[0]
+    return index, w[index]
+
+
+def curve_sums(voltages: np.ndarray, factors: np.ndarray, weights: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Mean squared pressure (Pa^2, (B, F)) of each curve in ``weights`` (name -> (A,) weights, e.g. from
+    :func:`curve_weights`), summing only the positions they count: voltages (B, D, F), factors (A, D, F)."""
+    names = list(weights)
+    index, w = used_positions([weights[n] for n in names])
+    p2 = np.abs(angle_pressures(voltages, factors[index])) ** 2  # (B, A', F)
+    return {n: np.einsum("baf,a->bf", p2, w[:, i]) for i, n in enumerate(names)}
+
+
+def directivity(p2: np.ndarray, weights: dict[str, np.ndarray | None]) -> dict[str, np.ndarray]:
+    """The ANSI/CTA-2034-A curves as mean squared pressure, Pa^2 (B, F) each, from |p|^2 at every position
+    (B, A, F; position 0 the axis) and :func:`curve_weights`: on_axis, and those of listening_window,
+    early_reflections, sound_power, estimated_in_room whose positions are all there."""
+    out = {"on_axis": p2[:, 0]}
+    for name in ("listening_window", "early_reflections", "sound_power"):
+        if weights.get(name) is not None:
+            out[name] = np.einsum("baf,a->bf", p2, weights[name])
+    if all(k in out for k in ("listening_window", "early_reflections", "sound_power")):
+        a, b, c = IN_ROOM_WEIGHTS
+        out["estimated_in_room"] = a * out["listening_window"] + b * out["early_reflections"] + c * out["sound_power"]
+    return out
+
+
+def power_db(p2: np.ndarray) -> np.ndarray:
+    """Level in dB SPL of a mean squared pressure (Pa^2), floored at SPL_FLOOR_DB."""
+    with np.errstate(divide="ignore"):
+        return np.maximum(10.0 * np.log10(np.asarray(p2) / P_REF**2), SPL_FLOOR_DB)

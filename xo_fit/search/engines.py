@@ -1,0 +1,401 @@
+"""Global search over the free part values, then a local polish; reproducible, interruptible.
+
+Each free value is a parameter on a log scale between its ``min`` and ``max``
+(normalised to u in [0, 1]: value = min * (max/min)^u). Every engine asks for
+a whole population and evaluates it in ONE batched call of the objective, so
+the Python work per candidate stays small.
+
+Engines (``[search] optimizer`` or ``--optimizer``):
+
+``de`` (the default, ``auto``)
+    differential evolution in the JADE form (J. Zhang and A. C. Sanderson,
+    IEEE Trans. Evol. Comput. 13(5), 2009: current-to-pbest/1 mutation with an
+    archive, binomial crossover, self-adapting F and CR), written here as whole
+    population array operations.
+``scipy-de``
+    ``scipy.optimize.differential_evolution`` with ``vectorized=True``.
+``ng-NAME``
+    any nevergrad optimiser by its registry name (``ng-TwoPointsDE``,
+    ``ng-CMA``, ``ng-NGOpt``, ...) through batched ask/tell on one
+    ``ng.p.Array``. Nevergrad's own bookkeeping costs some 250 us per
+    candidate (measured here), far more than a solve, so these engines are
+    slower per evaluation; see benchmarks/fit.py.
+
+Then ``polish`` (unless ``[search] polish = false``): L-BFGS-B from the best
+point in u-space, with gradients by forward differences evaluated as one batch
+of n + 1 designs.
+
+The same seed gives the same result bit for bit (numpy's SeedSequence feeds
+every random draw). A time limit or Ctrl-C stops the search between
+generations (the first population is always evaluated) and the best design so
+far is returned, marked incomplete; so is it when an engine fails.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from xo_fit.errors import XoFitError
+from xo_fit.search.lbfgsb import minimize_box
+
+#: The population has converged when its costs agree to this relative spread (and its points to 1e-6).
+CONVERGED = 1e-12
+#: A run whose best improved by less than STAGNATION_TOL (relative) over STAGNATION generations has found its
+#: basin: the rest of the budget goes to a restart (measured on the hard three-way in benchmarks/fit.py: runs
+#: reach 0.1 % of their final cost after 7,000-9,500 of 17,000 evaluations and then only refine).
+STAGNATION = 30
+STAGNATION_TOL = 1e-3
+#: Each restart's population is this many times the last one's (IPOP), up to MAX_POPULATION.
+RESTART_GROWTH = 2
+MAX_POPULATION = 256
+#: The polish starts from the best of this many distinct basins, and keeps the best result.
+POLISH_BASINS = 3
+#: Share of the budget the polish may use at most.
+POLISH_SHARE = 0.15
+#: Forward-difference step of the polish in u (normalised log) space.
+POLISH_STEP = 1e-6
+#: The polish stops when a step improves the cost by less than this fraction (scipy's ftol) ...
+POLISH_FTOL = 1e-10
+#: ... or the projected gradient (cost per unit of u) falls below this.
+POLISH_GTOL = 1e-8
+
+
+@dataclass(frozen=True)
+class Space:
+    """The free values of a job as a unit cube.
+
+    names: free parts; columns: their columns in the values array (P);
+    lo, hi: log of min and max (SI); base: every part's value (P,) with the
+    free ones at their start; u0: the start point in the cube (n,), or None
+    when no free part has a start value (then the search starts from random).
+    """
+
+    names: tuple[str, ...]
+    columns: np.ndarray
+    lo: np.ndarray
+    hi: np.ndarray
+    base: np.ndarray
+    u0: np.ndarray | None
+
+    @property
+    def dims(self) -> int:
+        return len(self.names)
+
+    def values(self, u: np.ndarray) -> np.ndarray:
+        """Part values (B, P) in SI for points u (B, n) of the cube."""
+        u = np.atleast_2d(u)
+        out = np.repeat(self.base[None, :], u.shape[0], axis=0)
+        out[:, self.columns] = np.exp(self.lo + np.clip(u, 0.0, 1.0) * (self.hi - self.lo))
+        return out
+
+
+def make_space(job) -> Space:
+    """The search space of a job: its free parts with their ranges and start values."""
+    parts = job.valued_parts
+    free = [i for i, p in enumerate(parts) if p.free]
+    if not free:
+        raise XoFitError("no free values to fit: give at least one part a min and max (and not fixed = true)",
+                         path=job.path)
+    lo = np.log([parts[i].min for i in free])
+    hi = np.log([parts[i].max for i in free])
+    base = np.array([p.value if p.value is not None else math.sqrt(p.min * p.max) for p in parts])
+    starts = [parts[i].value for i in free]
+    u0 = None
+    if any(s is not None for s in starts):
+        u0 = np.array([(math.log(s) - l) / (h - l) if s is not None else 0.5 for s, l, h in zip(starts, lo, hi)])
+    return Space(names=tuple(parts[i].name for i in free), columns=np.array(free), lo=lo, hi=hi, base=base, u0=u0)
+
+
+class _Stop(Exception):
+    """Raised inside an engine when the budget or the time is used up."""
+
+
+@dataclass
+class Objective:
+    """Counts evaluations, keeps the best point, and stops the engine at the budget or the deadline.
+
+    fn maps cube points (B, n) to costs (B,).
+    """
+
+    fn: Callable[[np.ndarray], np.ndarray]
+    budget: int
+    deadline: float | None = None
+    progress: Callable[[int, int, float], None] | None = None
+    evaluations: int = 0
+    best_u: np.ndarray | None = None
+    best_cost: float = math.inf
+    stopped_by: str | None = None
+    history: list = field(default_factory=list)
+    basins: list = field(default_factory=list)  # (best cost, best point) of each restart, in order
+
+    def __call__(self, u: np.ndarray) -> np.ndarray:
+        u = np.atleast_2d(np.asarray(u, dtype=float))
+        if self.evaluations >= self.budget:
+            self.stopped_by = self.stopped_by or "budget"
+            raise _Stop
+        if self.deadline is not None and self.evaluations and time.monotonic() > self.deadline:
+            self.stopped_by = "time limit"
+            raise _Stop
+        take = min(u.shape[0], self.budget - self.evaluations)
+        cost = np.full(u.shape[0], np.inf)
+        cost[:take] = np.asarray(self.fn(u[:take]), dtype=float)
+        cost = np.where(np.isfinite(cost), cost, np.inf)
+        self.evaluations += take
+        i = int(np.argmin(cost))
+        if cost[i] < self.best_cost:
+            self.best_cost = float(cost[i])
+            self.best_u = u[i].copy()
+        self.history.append((self.evaluations, self.best_cost))
+        if self.progress is not None:
+            self.progress(self.evaluations, self.budget, self.best_cost)
+        return cost
+
+
+@dataclass(frozen=True)
+class SearchResult:
+    u: np.ndarray
+    cost: float
+    evaluations: int
+    seconds: float
+    optimizer: str
+    seed: int
+    complete: bool
+    stopped_by: str | None
+    history: tuple = ()  # (evaluations, best cost so far) after each batch
+    restarts: int = 1  # searches run inside the budget (JADE restarts; 1 for other engines)
+    best_restart: int = 0  # which of them led to the result, counting from 0
+    basins: tuple = ()  # the best cost each restart reached before the polish
+
+
+def population_size(n: int) -> int:
+    """DE population for n free values (Storn's 10 n is wasteful for smooth problems; measured in benchmarks/fit.py)."""
+    return int(np.clip(8 + 3 * n, 16, 64))
+
+
+# ----------------------------------------------------------------------------- engines
+
+
+def latin_hypercube(npop: int, n: int, rng: np.random.Generator) -> np.ndarray:
+    """npop points in [0, 1)^n, one in each of npop equal slices of every axis (M. D. McKay et al.,
+    Technometrics 21(2), 1979). Written out because importing scipy.stats costs half a second."""
+    perms = np.argsort(rng.random((npop, n)), axis=0)
+    return (perms + rng.random((npop, n))) / npop
+
+
+def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generator, npop: int,
+              best: list) -> None:
+    """One JADE run (current-to-pbest/1/bin with archive, vectorised over the population) until its population
+    has converged or its best has stagnated; ``best`` receives [cost, point] of the run as it improves."""
+    pop = latin_hypercube(npop, n, rng)
+    if u0 is not None:
+        pop[0] = u0
+    fit = obj(pop)
+    i = int(np.argmin(fit))
+    best[:] = [float(fit[i]), pop[i].copy()]
+    archive = np.empty((0, n))
+    mu_f, mu_cr, c, p_best = 0.5, 0.5, 0.1, 0.1
+    top = max(2, int(round(p_best * npop)))
+    trace = [best[0]]
+    while True:
+        f = mu_f + 0.1 * rng.standard_cauchy(npop)
+        while np.any(f <= 0):  # JADE: regenerate non-positive F
+            bad = f <= 0
+            f[bad] = mu_f + 0.1 * rng.standard_cauchy(int(bad.sum()))
+        f = np.minimum(f, 1.0)
+        cr = np.clip(rng.normal(mu_cr, 0.1, npop), 0.0, 1.0)
+        order = np.argsort(fit, kind="stable")
+        pbest = pop[order[rng.integers(0, top, npop)]]
+        r1 = (np.arange(npop) + rng.integers(1, npop, npop)) % npop
+        union = np.vstack([pop, archive]) if archive.size else pop
+        r2 = rng.integers(0, union.shape[0], npop)
+        mutant = pop + f[:, None] * (pbest - pop) + f[:, None] * (pop[r1] - union[r2])
+        # bounds: halfway between the parent and the violated bound (JADE)
+        mutant = np.where(mutant < 0, pop / 2, mutant)
+        mutant = np.where(mutant > 1, (pop + 1) / 2, mutant)
+        cross = rng.random((npop, n)) < cr[:, None]
+        cross[np.arange(npop), rng.integers(0, n, npop)] = True
+        trial = np.where(cross, mutant, pop)
+        tfit = obj(trial)
+        better = tfit < fit
+        if better.any():
+            archive = np.vstack([archive, pop[better]])
+            if archive.shape[0] > npop:
+                archive = archive[rng.permutation(archive.shape[0])[:npop]]
+            sf, scr = f[better], cr[better]
+            mu_f = (1 - c) * mu_f + c * float(np.sum(sf**2) / np.sum(sf))
+            mu_cr = (1 - c) * mu_cr + c * float(np.mean(scr))
+        pop = np.where(better[:, None], trial, pop)
+        fit = np.where(better, tfit, fit)
+        i = int(np.argmin(fit))
+        if fit[i] < best[0]:
+            best[:] = [float(fit[i]), pop[i].copy()]
+        trace.append(best[0])
+        if np.ptp(fit) <= CONVERGED * (abs(float(fit.min())) + CONVERGED) and np.ptp(pop, axis=0).max() < 1e-6:
+            return
+        if len(trace) > STAGNATION and trace[-1] >= trace[-1 - STAGNATION] - STAGNATION_TOL * abs(trace[-1]):
+            return  # the best has improved by less than 0.1 % over the last STAGNATION generations: a basin
+
+
+def _jade(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generator) -> None:
+    """JADE (J. Zhang, A. C. Sanderson, IEEE TEC 13(5), 2009) with restarts that spend the whole budget: when a
+    run's population converges or its best stagnates, its basin is kept and a new run starts from a fresh Latin
+    hypercube with a larger population (IPOP: A. Auger, N. Hansen, CEC 2005), until the budget ends."""
+    k = 0
+    while True:
+        best: list = []
+        npop = min(population_size(n) * RESTART_GROWTH**k, MAX_POPULATION)
+        try:
+            _jade_run(obj, n, u0 if k == 0 else None, rng, npop, best)
+        finally:
+            if best:
+                obj.basins.append((best[0], best[1]))
+        k += 1
+
+
+def _scipy_de(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generator) -> None:
+    from scipy.optimize import differential_evolution
+
+    npop = population_size(n)
+    differential_evolution(
+        lambda x: obj(x.T), bounds=[(0.0, 1.0)] * n, vectorized=True, updating="deferred",
+        popsize=max(1, math.ceil(npop / n)), maxiter=max(1, obj.budget // npop), tol=0.0, atol=0.0,
+        seed=int(rng.integers(0, 2**31 - 1)), polish=False, init="latinhypercube", x0=u0)
+
+
+def _nevergrad(name: str) -> Callable:
+    def run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Generator) -> None:
+        import nevergrad as ng
+
+        if name not in ng.optimizers.registry:
+            raise XoFitError(f"unknown nevergrad optimizer '{name}'")
+        param = ng.p.Array(init=u0 if u0 is not None else np.full(n, 0.5), lower=0.0, upper=1.0)
+        param.random_state = np.random.RandomState(int(rng.integers(0, 2**31 - 1)))
+        import warnings
+
+        npop = population_size(n)
+        opt = ng.optimizers.registry[name](parametrization=param, budget=obj.budget, num_workers=npop)
+        with warnings.catch_warnings():
+            # a design whose solve failed is told as a very large cost; nevergrad warns about each one
+            warnings.simplefilter("ignore", category=ng.errors.LossTooLargeWarning)
+            while True:
+                k = min(npop, obj.budget - obj.evaluations)
+                if k <= 0:
+                    raise _Stop
+                asks = [opt.ask() for _ in range(k)]
+                cost = obj(np.stack([a.value for a in asks]))
+                for a, c_ in zip(asks, cost):
+                    opt.tell(a, float(c_) if np.isfinite(c_) else 1e300)
+    return run
+
+
+ENGINES: dict[str, Callable] = {"de": _jade, "scipy-de": _scipy_de}
+DEFAULT_ENGINE = "de"
+
+
+def engine(name: str) -> Callable:
+    """The engine for an optimizer name (``auto``, ``de``, ``scipy-de`` or ``ng-NAME``)."""
+    if name == "auto":
+        name = DEFAULT_ENGINE
+    if name in ENGINES:
+        return ENGINES[name]
+    if name.startswith("ng-"):
+        return _nevergrad(name[3:])
+    raise XoFitError(f"unknown optimizer '{name}'; expected auto, {', '.join(ENGINES)} or ng-NAME "
+                     "(a nevergrad optimizer such as ng-TwoPointsDE or ng-CMA)", key="optimizer")
+
+
+def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
+    """L-BFGS-B from ``start`` (default: the best point), forward-difference gradients as one batch per step."""
+    start = obj.best_u if start is None else start
+    if start is None:
+        return
+    cache: dict[bytes, tuple[float, np.ndarray]] = {}
+
+    def fun(u: np.ndarray):
+        key = u.tobytes()
+        if key not in cache:
+            h = np.where(u + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
+            pts = np.vstack([u, u + np.diag(h)])
+            c = obj(pts)
+            grad = (c[1:] - c[0]) / h
+            cache.clear()
+            cache[key] = (float(c[0]), np.where(np.isfinite(grad), grad, 0.0))
+        return cache[key]
+
+    minimize_box(fun, np.array(start, dtype=float), np.zeros(n), np.ones(n), maxiter=10_000, ftol=POLISH_FTOL,
+                 gtol=POLISH_GTOL)
+
+
+def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: str = "auto", budget: int = 20000,
+           seed: int = 1, time_limit: float | None = None, polish: bool = True,
+           progress: Callable[[int, int, float], None] | None = None) -> SearchResult:
+    """Minimise fn over the space's unit cube within ``budget`` evaluations.
+
+    fn: cube points (B, n) -> costs (B,). Returns the best point found, whether the
+    search ran to its end (``complete``), and what stopped it otherwise.
+    """
+    run = engine(optimizer)
+    name = DEFAULT_ENGINE if optimizer == "auto" else optimizer
+    t0 = time.monotonic()
+    deadline = t0 + time_limit if time_limit is not None else None
+    rng = np.random.default_rng(np.random.SeedSequence(seed))
+    global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
+    obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress)
+    interrupted = False
+    failed = False
+    try:
+        run(obj, space.dims, space.u0, rng)
+    except _Stop:
+        pass
+    except KeyboardInterrupt:
+        interrupted = True
+        obj.stopped_by = "interrupted"
+    except XoFitError:
+        raise
+    except Exception as e:  # a failing engine (or objective) must not lose the best design found so far
+        if obj.best_u is None:
+            raise
+        failed = True
+        obj.stopped_by = f"optimizer failed: {type(e).__name__}: {e}"
+    basins = list(obj.basins) or ([(obj.best_cost, obj.best_u)] if obj.best_u is not None else [])
+    winner = int(np.argmin([b[0] for b in basins])) if basins else 0
+    if polish and not interrupted and not failed and obj.stopped_by != "time limit":
+        state = obj.stopped_by
+        # polish the best few distinct basins, each with an equal share of what is left, and keep the best
+        chosen = [i for i in np.argsort([b[0] for b in basins], kind="stable")]
+        distinct: list[int] = []
+        for i in chosen:
+            if all(abs(basins[i][0] - basins[k][0]) > 1e-9 * max(1.0, abs(basins[k][0])) for k in distinct):
+                distinct.append(int(i))
+            if len(distinct) == POLISH_BASINS:
+                break
+        left = budget - obj.evaluations
+        for m, i in enumerate(distinct):
+            obj.budget = obj.evaluations + left // len(distinct) if m < len(distinct) - 1 else budget
+            obj.stopped_by = None
+            before = obj.best_cost
+            try:
+                _polish(obj, space.dims, basins[i][1])
+            except _Stop:
+                pass
+            except KeyboardInterrupt:
+                interrupted = True
+                obj.stopped_by = "interrupted"
+                break
+            if obj.best_cost < before:
+                winner = i
+            left = budget - obj.evaluations
+        if not interrupted:
+            obj.stopped_by = "converged" if state == "converged" else None
+    if obj.best_u is None:
+        raise XoFitError("the search evaluated no design (budget or time limit too small)")
+    complete = obj.stopped_by in (None, "budget", "converged")
+    return SearchResult(u=obj.best_u, cost=obj.best_cost, evaluations=obj.evaluations,
+                        seconds=time.monotonic() - t0, optimizer=name, seed=seed, complete=complete,
+                        stopped_by=obj.stopped_by, history=tuple(obj.history), restarts=max(len(basins), 1),
+                        best_restart=winner, basins=tuple(float(b[0]) for b in basins))

@@ -1,0 +1,162 @@
+"""Fitting a job: targets, cost and search put together; and the scoring shared with simulate.
+
+:func:`run_fit` finds the free values that minimise the job's cost;
+:func:`score` evaluates any design (a hand design, a fit, a snap) into the
+cost, its terms and the metrics that result.json carries.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from xo_fit.model.cost import CostModel, simulation_metrics
+from xo_fit.model.fused import FusedCost
+from xo_fit.search.engines import SearchResult, make_space, search
+from xo_fit.model.targets import Targets, build_targets
+
+
+@dataclass(frozen=True, eq=False)
+class Scored:
+    """One design with everything the outputs need."""
+
+    values: np.ndarray  # (P,) SI
+    sim: object  # Simulation of this one design
+    cost: float | None
+    terms: dict
+    metrics: dict
+    targets: Targets | None
+    level_db: float | None
+
+
+def cost_model(system) -> tuple[CostModel, Targets] | None:
+    """The job's cost model, or None when the job has no way targets (then only metrics that need none)."""
+    if not system.job.target.ways:
+        return None
+    targets = build_targets(system.job, system.frequencies)
+    return CostModel(system, targets), targets
+
+
+def require_cost_model(system, what: str) -> tuple[CostModel, Targets]:
+    """The job's cost model; a JobError naming what needs it when the job has no way targets."""
+    model = cost_model(system)
+    if model is None:
+        from xo_fit.errors import JobError
+
+        raise JobError(f"nothing to {what}: add [target.way.NAME] tables (type, alignment, order, fc) for the drivers",
+                       path=system.job.path, key="[target]")
+    return model
+
+
+def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = None) -> Scored:
+    """Simulate one design (P,) and score it: cost, terms, metrics."""
+    values = np.asarray(values, dtype=float).reshape(-1)
+    model = model if model is not None else cost_model(system)
+    sim = system.simulate(values, dense=True)
+    if model is None:
+        return Scored(values=values, sim=sim, cost=None, terms={}, metrics=simulation_metrics(system, sim),
+                      targets=None, level_db=None)
+    cm, targets = model
+    metrics, ev = cm.metrics(values)
+    level = metrics.pop("level_db")
+    return Scored(values=values, sim=sim, cost=float(ev.cost[0]), terms={k: float(v[0]) for k, v in ev.terms.items()},
+                  metrics=metrics, targets=targets, level_db=level)
+
+
+def robust_factors(job) -> np.ndarray | None:
+    """The fixed tolerance draws (N, P) of a robust fit ([search] robust = { samples = N }), or None.
+
+    Drawn from the [spread] distribution and tolerances with a seed derived from [search] seed, so every
+    candidate is judged on the same builds; a robust fit costs N solves per candidate.
+    """
+    n = job.search.robust_samples
+    if not n:
+        return None
+    from xo_fit.model.draws import draw_factors, part_tolerances
+
+    rng = np.random.default_rng(np.random.SeedSequence([job.search.seed, 0x5EED]))
+    return draw_factors(n, part_tolerances(job), job.spread.distribution, rng)
+
+
+@dataclass(frozen=True, eq=False)
+class FitOutcome:
+    scored: Scored
+    search: SearchResult
+    start_cost: float | None
+
+
+def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, seed: int | None = None,
+            time_limit: float | None = None, progress=None) -> FitOutcome:
+    """Global search and polish of the job's free values; arguments override the job's [search]."""
+    job = system.job
+    spec = job.search
+    model = require_cost_model(system, "fit to")
+    cm, _ = model
+    space = make_space(job)
+    fused = FusedCost(cm)
+    robust = robust_factors(job)
+
+    def fn(u: np.ndarray) -> np.ndarray:
+        values = space.values(u)
+        if robust is None:
+            return fused(values)
+        # the mean cost over the same tolerance draws for every candidate: one batch of B x N designs
+        b, n = values.shape[0], robust.shape[0]
+        return fused((values[:, None, :] * robust[None, :, :]).reshape(b * n, -1)).reshape(b, n).mean(axis=1)
+
+    start = float(fn(space.u0[None])[0]) if space.u0 is not None else None
+    result = search(fn, space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,
+                    seed=spec.seed if seed is None else seed,
+                    time_limit=time_limit if time_limit is not None else spec.time_limit,
+                    polish=spec.polish, progress=progress)
+    return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start)
+
+
+def _fit_worker(args):
+    """One restart in a worker process: (system, optimizer, budget, seed, time_limit) -> (seed, cost, u)."""
+    import os
+
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, "1")
+    system, optimizer, budget, seed, time_limit = args
+    out = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit)
+    return seed, out.search, out.scored.values
+
+
+def restart_seeds(seed: int, n: int) -> list[int]:
+    """The seeds of n independent restarts derived from one seed (the first restart uses the seed itself)."""
+    children = np.random.SeedSequence(seed).spawn(max(n - 1, 0))
+    return [seed] + [int(c.generate_state(1)[0]) for c in children]
+
+
+def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budget: int | None = None,
+                     seed: int | None = None, time_limit: float | None = None) -> tuple[FitOutcome, list[dict]]:
+    """``workers`` independent fits from derived seeds in as many processes, sharing one budget; the best wins.
+
+    Whole searches are distributed, never single evaluations (those cost more to ship than to compute).
+    Returns the winner and one summary per restart (seed, cost, evaluations, complete).
+    """
+    from concurrent.futures import ProcessPoolExecutor
+
+    base = system.job.search.seed if seed is None else seed
+    seeds = restart_seeds(base, workers)
+    total = budget or system.job.search.budget
+    budget = max(1, total // workers)  # the processes share one budget
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        results = list(pool.map(_fit_worker, [(system, optimizer, budget, s_, time_limit) for s_ in seeds]))
+    runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
+             "restarts": r.restarts} for s_, r, _ in results]
+    best = min(range(len(results)), key=lambda i: (results[i][1].cost, i))
+    _, search_result, values = results[best]
+    start = None
+    model = cost_model(system)
+    return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start), runs
+
+
+def target_db(s: Scored) -> np.ndarray | None:
+    """The system target in dB SPL on the grid at the design's level, or None."""
+    if s.targets is None:
+        return None
+    with np.errstate(divide="ignore"):
+        return s.level_db + 20 * np.log10(np.abs(s.targets.system))

@@ -1,0 +1,127 @@
+"""Pruning: which parts earn their place, by greedy backward elimination with refits.
+
+From a starting design, every R, L and C without ``keep = true`` is tried
+removed, opened (deleted) and shorted (its nodes merged), skipping removals
+that are no legal netlist (:mod:`xo_fit.stages.removal`). After each trial removal the
+remaining free values are refitted from the current ones (a short search and
+polish on the dense solve, so that no topology waits for a compiler). The
+cheapest removal is taken and the step repeated until nothing is left to
+remove. The chosen design is the one with the fewest parts whose cost stays
+within ``max_increase`` of step 0's (the starting design refitted).
+
+Trial removals are independent: with ``workers`` > 1 they run in processes.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from xo_fit.stages.removal import removals
+
+#: Refit budget (cost evaluations) when none is given: a short search and polish from the current values.
+REFIT_BUDGET = 600
+#: Default largest cost increase over step 0 for the chosen design.
+MAX_INCREASE = 0.10
+PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
+                 "impedance_min_ohm"]
+
+
+def refit(system, budget: int, seed: int):
+    """The system's free values refitted from its job's values (the start): (Scored, evaluations)."""
+    from xo_fit.search.fitting import require_cost_model, score
+    from xo_fit.search.engines import make_space, search
+
+    model = require_cost_model(system, "prune against")
+    cm, _ = model
+    if not system.job.free_parts:
+        return score(system, system.values(), model), 0
+    space = make_space(system.job)
+
+    def fn(u: np.ndarray) -> np.ndarray:
+        v = space.values(u)
+        return cm.evaluate_simulation(system.simulate(v, dense=True), v).cost
+
+    r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True)
+    return score(system, space.values(r.u)[0], model), r.evaluations
+
+
+def _trial(args):
+    """One trial removal, refitted (in a worker process or here): (name, how, Scored, system, evaluations)."""
+    name, how, system, budget, seed = args
+    scored, n = refit(system, budget, seed)
+    return name, how, scored, system, n
+
+
+@dataclass(eq=False)
+class PruneRun:
+    """What a prune computed: ``steps`` (the prune.csv rows, step 0 the starting design refitted), ``states``
+    (the system and scored design after each step), ``chosen`` (the index of the chosen step), ``section`` (the
+    result.json "prune" section), ``trials`` (every trial removal: step, removed, how, cost)."""
+
+    steps: list[dict]
+    states: list[tuple]
+    chosen: int
+    max_increase: float
+    section: dict
+    trials: list[dict] = field(default_factory=list)
+    evaluations: int = 0
+
+
+def _row(step: int, system, scored, removed: str, how: str) -> dict:
+    m = scored.metrics
+    return {"step": step, "parts": len(system.job.valued_parts), "removed": removed, "how": how,
+            "cost": scored.cost, "rms_error_db": m.get("rms_error_db"), "max_error_db": m.get("max_error_db"),
+            "phase_mismatch_deg": m.get("phase_mismatch_deg"), "impedance_min_ohm": m.get("impedance_min_ohm")}
+
+
+def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int | None = None,
+              max_increase: float = MAX_INCREASE, workers: int = 1, progress=None) -> PruneRun:
+    """Greedy backward elimination from design ``start`` (P,) of ``system``; see the module's docstring."""
+    from xo_fit.job.reader import load_job
+    from xo_fit.stages.removal import removal_document
+    from xo_fit.model.system import derive_system
+
+    budget = budget or REFIT_BUDGET
+    seed = system.job.search.seed if seed is None else seed
+    values = dict(zip(system.part_names, np.asarray(start, dtype=float)))
+    doc = removal_document(system.job, None, "none", values)
+    current = derive_system(system, load_job(doc, base=system.job.folder))
+    scored, evaluations = refit(current, budget, seed)
+    steps, states, trials = [_row(0, current, scored, "", "")], [(current, scored)], []
+    pool = None
+    if workers > 1:
+        from concurrent.futures import ProcessPoolExecutor
+
+        pool = ProcessPoolExecutor(max_workers=workers)
+    try:
+        while True:
+            last_system, last_scored = states[-1]
+            options = removals(last_system, dict(zip(last_system.part_names, last_scored.values)))
+            if not options:
+                break
+            args = [(name, how, s, budget, seed) for name, how, s in options]
+            results = list(pool.map(_trial, args)) if pool else [_trial(a) for a in args]
+            for name, how, sc, _, n in results:
+                evaluations += n
+                trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
+            feasible = [r for r in results if r[2].cost is not None and math.isfinite(r[2].cost)]
+            if not feasible:
+                break
+            name, how, sc, s, _ = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))
+            steps.append(_row(len(steps), s, sc, name, how))
+            states.append((s, sc))
+            if progress:
+                progress(len(steps) - 1, name, how, sc.cost)
+    finally:
+        if pool:
+            pool.shutdown()
+    limit = steps[0]["cost"] * (1 + max_increase) if steps[0]["cost"] is not None else math.inf
+    within = [i for i, r in enumerate(steps) if r["cost"] is not None and r["cost"] <= limit]
+    chosen = min(within, key=lambda i: (steps[i]["parts"], steps[i]["cost"])) if within else 0
+    section = {"steps": steps, "chosen_step": chosen, "max_increase": max_increase, "refit_budget": budget,
+               "seed": seed, "evaluations": evaluations, "trials": trials}
+    return PruneRun(steps=steps, states=states, chosen=chosen, max_increase=max_increase, section=section,
+                    trials=trials, evaluations=evaluations)

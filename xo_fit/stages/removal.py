@@ -1,0 +1,138 @@
+"""A design without one of its parts: the part opened (deleted) or shorted (its two nodes merged).
+
+:func:`variant` builds the job and system without a part, or None when the
+removal is no legal netlist (it leaves a driver unconnected, shorts the source
+or a driver, or strands a node); :func:`idle_parts` scores every removal of a
+design without refitting and names the parts whose removal changes the cost by
+less than 1 % of it (the ``negligible`` finding).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from xo_fit.constants import GROUND_NODE, SOURCE_NODE
+from xo_fit.errors import XoFitError
+
+#: The two ways a part can leave a netlist.
+HOWS = ("open", "short")
+#: A removal that changes the cost by less than this share of it marks the part as negligible.
+NEGLIGIBLE = 0.01
+#: ... of it, or of this cost (dB^2: about 0.03 dB rms) for a design that meets its target to within rounding.
+COST_FLOOR = 1e-3
+#: A driver whose terminal voltage stays below this share of the source's at every frequency is unconnected.
+DEAD_DRIVER = 1e-9
+
+
+def removal_document(job, name: str | None, how: str, values: dict[str, float]) -> dict | None:
+    """The job's document without part ``name`` (``how`` = "open" or "short"; None: no part removed), the other
+    parts' values set to ``values`` (SI, clamped into their ranges); None when the short would join the source's
+    two terminals or put some other part across a single node."""
+    doc = job.data
+    parts = doc.get("part", [])
+    gone = next((p for p in parts if p.get("name") == name), None) if name is not None else None
+    rest = [p for p in parts if p is not gone]
+    if gone is not None and how == "short":
+        a, b = (str(n).strip() for n in gone["nodes"])
+        special = {SOURCE_NODE, GROUND_NODE}
+        if a in special and b in special:
+            return None  # shorts the source
+        keep, drop = (b, a) if a not in special else (a, b)
+        for p in rest:
+            p["nodes"] = [keep if str(n).strip() == drop else n for n in p["nodes"]]
+        if any(str(p["nodes"][0]).strip() == str(p["nodes"][1]).strip() for p in rest):
+            return None  # a driver (or another part) would sit across one node
+    for p in rest:
+        if p.get("name") in values and p.get("type") != "driver":
+            spec = job.part(p["name"])
+            v = float(values[p["name"]])
+            if spec.free:
+                v = min(max(v, spec.min), spec.max)
+            p["value"] = v
+    doc["part"] = rest
+    return doc
+
+
+def variant(system, name: str, how: str, values: dict[str, float] | None = None, *, check_dead: bool = True):
+    """The system without part ``name`` (opened or shorted), or None when that is no legal netlist: a node left
+    hanging, the source or a driver shorted, or (``check_dead``; else see :func:`dead_driver`) a driver that no
+    longer sees any voltage (it hangs from ground alone)."""
+    from xo_fit.job.reader import load_job
+    from xo_fit.model.system import derive_system
+
+    values = values if values is not None else dict(zip(system.part_names, system.values()))
+    doc = removal_document(system.job, name, how, values)
+    if doc is None:
+        return None
+    try:
+        s = derive_system(system, load_job(doc, base=system.job.folder, copy=False))  # doc is a fresh dict
+    except XoFitError:
+        return None
+    if check_dead and dead_driver(s, s.network.solve_reference(np.array([values[n] for n in s.part_names])).voltages):
+        return None
+    return s
+
+
+def dead_driver(system, voltages: np.ndarray) -> bool:
+    """Whether some driver sees (almost) no voltage anywhere on the grid: voltages (1, D, F) of one design."""
+    return bool(np.any(np.max(np.abs(voltages[0]), axis=-1) < DEAD_DRIVER * abs(system.job.source_voltage)))
+
+
+def removals(system, values: dict[str, float], *, protect: bool = True,
+             check_dead: bool = True) -> list[tuple[str, str, object]]:
+    """Every legal removal of an R, L or C part: (name, how, system without it). ``protect`` skips parts with
+    ``keep = true``; ``check_dead`` as in :func:`variant`."""
+    out = []
+    for p in system.job.valued_parts:
+        if protect and p.keep:
+            continue
+        for how in HOWS:
+            s = variant(system, p.name, how, values, check_dead=check_dead)
+            if s is not None:
+                out.append((p.name, how, s))
+    return out
+
+
+def relative_change(cost: float, base: float) -> float:
+    """(cost - base) / max(base, COST_FLOOR): the change as a share of the design's cost, or of a cost that
+    stands for "on target" when the design is that good."""
+    return (cost - base) / max(base, COST_FLOOR)
+
+
+def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
+    """``negligible`` findings: parts whose removal (open or short, no refit) changes the cost by less than 1 %.
+
+    values: (P,) SI in the system's part order; cost: the design's own cost (None: no targets, nothing to say).
+    """
+    from xo_fit.model.cost import CostModel
+    from xo_fit.search.fitting import cost_model
+    from xo_fit.units import format_value
+
+    if cost is None or not math.isfinite(cost):
+        return []
+    model = cost_model(system)
+    if model is None:
+        return []
+    targets = model[1]  # the same grid and targets for every variant
+    by_name = dict(zip(system.part_names, np.asarray(values, dtype=float)))
+    best: dict[str, tuple[float, str]] = {}
+    for name, how, s in removals(system, by_name, protect=False, check_dead=False):
+        vals = np.array([by_name[n] for n in s.part_names])[None]
+        sim = s.simulate(vals, dense=True)  # one dense solve serves the check and the cost
+        if dead_driver(s, sim.voltages):
+            continue
+        other = float(CostModel(s, targets).evaluate_simulation(sim, vals).cost[0])
+        if not math.isfinite(other):
+            continue
+        change = relative_change(other, cost)
+        if abs(change) < NEGLIGIBLE and (name not in best or abs(change) < abs(best[name][0])):
+            best[name] = (change, how)
+    out = []
+    for name, (change, how) in best.items():
+        p = system.job.part(name)
+        out.append({"kind": "negligible", "part": name,
+                    "text": f"{name} ({format_value(by_name[name], p.unit)}) does little: {'removing' if how == 'open' else 'shorting'} "
+                            f"it changes the cost by {change * 100:+.2f} % (no refit); consider leaving it out"})
+    return out
