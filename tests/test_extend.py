@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from xo_fit.io.measure import extend_curve, read_curve
+from xo_fit.physics.extension import extend_curve
+from xo_fit.io.measure import read_curve
 
 
 def _bw_hp_db(f, fc, order):
@@ -82,7 +83,7 @@ def test_a_near_field_is_level_matched_and_spliced_to_the_far_field(tmp_path):
     0.01 dB) and its shape below the splice kept, within 0.02 dB of the analytic curve below 300 Hz."""
     from scipy import signal
 
-    from xo_fit.io.measure import splice_curves
+    from xo_fit.physics.extension import splice_curves
 
     fn = np.geomspace(10, 2000, 300)
     near = 88 + 22 + _hp2_db(fn, 60, 0.7) - np.where(fn > 800, 6 * np.log2(fn / 800), 0.0)

@@ -7,7 +7,9 @@ import pytest
 import scipy.signal as sig
 
 from xo_fit.errors import DataError
-from xo_fit.io.measure import minimum_phase, on_grid, read_curve
+from xo_fit.physics.minimum_phase import minimum_phase
+from xo_fit.physics.curves import on_grid
+from xo_fit.io.measure import read_curve
 
 
 def write(tmp_path, text, name="m.txt"):

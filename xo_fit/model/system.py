@@ -19,7 +19,9 @@ from xo_fit.physics.coils import DCR_EXPONENT, dcr_coefficient
 from xo_fit.errors import JobError, NetworkError
 from xo_fit.job.model import FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
 from xo_fit.constants import P_REF
-from xo_fit.io.measure import Curve, extend_curve, on_grid, read_curve, splice_curves
+from xo_fit.io.measure import Curve, read_curve
+from xo_fit.physics.extension import extend_curve, splice_curves
+from xo_fit.physics.curves import on_grid
 from xo_fit.solver.netlist import check_topology
 from xo_fit.solver.network import Branch, Network, Solution, compile_network
 
@@ -44,7 +46,7 @@ class DriverData:
     response_curve: Curve | None = None
     impedance_curve: Curve | None = None
     angle_responses: np.ndarray | None = None  # complex Pa at the reference voltage at System.positions, (A, F)
-    splice: object = None  # a spliced response's join (xo_fit.io.measure.Splice), else None
+    splice: object = None  # a spliced response's join (xo_fit.physics.extension.Splice), else None
 
 
 @dataclass(frozen=True, eq=False)

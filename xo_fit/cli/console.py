@@ -1,0 +1,158 @@
+"""Console output of the commands: quiet/verbose state, warnings, progress, scores, findings, cautions."""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+import typer
+
+
+class Output:
+    quiet = False
+    verbose = False
+
+
+OUT = Output()
+
+
+def say(text: str = "") -> None:
+    if not OUT.quiet:
+        typer.echo(text)
+
+
+def warn(text: str) -> None:
+    typer.echo(f"warning: {text}", err=True)
+
+
+def load_design(job_path: Path, from_: Path | None):
+    """The loaded system and a design (P,): the job's own values, or those of a result (--from)."""
+    from xo_fit.io.results import read_result, result_values
+
+    system = load_checked(job_path)
+    overrides = None
+    if from_ is not None:
+        overrides = result_values(read_result(from_), system.part_names, from_)
+    return system, system.values(overrides)
+
+
+def part_info_of(from_: Path | None) -> dict:
+    """What a result says of each part beyond its value (a snap's series, source and combination)."""
+    if from_ is None:
+        return {}
+    from xo_fit.io.results import read_result
+    from xo_fit.output.design import PART_RECOMPUTED
+
+    return {n: {k: v for k, v in e.items() if k not in PART_RECOMPUTED}
+            for n, e in read_result(from_)["parts"].items() if isinstance(e, dict)}
+
+
+def load_checked(job_path: Path):
+    from xo_fit.job.reader import load_job
+    from xo_fit.model.system import load_system
+
+    t0 = time.perf_counter()
+    job = load_job(job_path)
+    system = load_system(job)
+    for w in system.warnings:
+        warn(w)
+    if OUT.verbose:
+        from xo_fit.solver.kernels import cache_dir
+
+        say(f"  loaded {job.path} and its data in {time.perf_counter() - t0:.3f} s "
+            f"({len(job.valued_parts)} parts, {len(job.drivers)} drivers, {system.frequencies.size} points); "
+            f"compiled kernels are cached in {cache_dir()}")
+    return system
+
+
+def print_score(s, start_cost: float | None = None) -> None:
+    m = s.metrics
+    if s.cost is not None:
+        terms = ", ".join(f"{k} {v:.4g}" for k, v in s.terms.items())
+        before = f" (start {start_cost:.4g})" if start_cost is not None else ""
+        say(f"  cost {s.cost:.4g}{before}: {terms}")
+        say(f"  sum vs target: rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB; "
+            f"phase mismatch at crossover {m['phase_mismatch_deg']:.1f} deg; level {s.level_db:.1f} dB SPL")
+    say(f"  impedance minimum {m['impedance_min_ohm']:.2f} ohm at {m['impedance_min_hz']:.0f} Hz")
+    if "listening_window_rms_db" in m:
+        di = (f"; sound power DI {m['sound_power_di_min_db']:.1f} to {m['sound_power_di_max_db']:.1f} dB over the band"
+              if "sound_power_di_min_db" in m else "")
+        say(f"  off axis: listening window {m['listening_window_rms_db']:.2f} dB rms from the target{di}")
+
+
+def print_findings(design) -> None:
+    b = design.breakdown
+    if b is not None:
+        parts = [f"{w['way']} {w['rms_db']:.2f} dB rms, worst {w['worst_db']:+.2f} dB at {w['worst_hz']:.0f} Hz"
+                 for w in b["ways"]]
+        parts += [f"crossover {c['ways']} ({c['from_hz']:.0f}-{c['to_hz']:.0f} Hz): sum {c['sum_rms_db']:.2f} dB rms, "
+                  f"phase worst {c['phase_worst_deg']:+.1f} deg at {c['phase_worst_hz']:.0f} Hz" for c in b["crossovers"]]
+        say("  where the error lies: " + "; ".join(parts))
+    for f in design.findings:
+        say(f"  finding ({f['kind']}): {f['text']}")
+
+
+def print_cautions(system, s) -> None:
+    from xo_fit.output.cautions import design_cautions, load_cautions
+
+    spec = system.job.stress
+    if spec.power:
+        from xo_fit.model.stress import stresses
+
+        st = stresses(system, s.values, spec.power, spec.rated_impedance)
+        say(f"  stresses at {spec.power:g} W into {spec.rated_impedance:g} ohm ({st.source_v_rms:.2f} V RMS), "
+            "sine worst case over the band:")
+        for p in st.parts:
+            prog = f", programme {p.programme:.3g} W" if p.programme is not None else ""
+            rated = f" (rated {p.rating:g} {p.unit})" if p.rating is not None else ""
+            say(f"    {p.name:<8} {p.sine_worst:8.3g} {p.unit} {p.figure} at {p.at_hz:.0f} Hz{prog}{rated}")
+        notes = design_cautions(st, spec.rated_impedance)
+    else:
+        notes = load_cautions(s.metrics["impedance_min_ohm"], system.job.cost.impedance_min)
+    for c in notes:
+        say(f"  caution: {c}")
+
+
+class Progress:
+    """A one-line progress display on stderr, when it is a terminal and the run lasts more than a moment."""
+
+    def __init__(self, label: str, units: str = "evaluations", figure: str = "best cost") -> None:
+        self.label = label
+        self.units = units
+        self.figure = figure
+        self.enabled = sys.stderr.isatty() and not OUT.quiet
+        self.t0 = time.monotonic()
+        self.last = 0.0
+        self.shown = False
+
+    def __call__(self, done: int, total: int, best: float) -> None:
+        now = time.monotonic()
+        if not self.enabled or now - self.t0 < 0.8 or now - self.last < 0.1:
+            return
+        self.last = now
+        width = 30
+        k = int(width * min(done / max(total, 1), 1.0))
+        sys.stderr.write(f"\r{self.label} [{'#' * k}{'.' * (width - k)}] {done}/{total} {self.units}, "
+                         f"{self.figure} {best:.4g} ")
+        sys.stderr.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+
+
+def print_summary(rows: list[dict]) -> None:
+    say(f"  {'job':<36} {'status':<8} {'stage':<7} {'cost':>9} {'rms dB':>7} {'worst dB':>8} {'|Z| min':>8} "
+        f"{'yield':>6}  swept")
+    for r in rows:
+        def num(x, fmt):
+            return format(x, fmt) if isinstance(x, (int, float)) else "-"
+
+        swept = ", ".join(f"{k}={v}" for k, v in sorted(r.get("swept", {}).items()))
+        yld = f"{r['yield_band'] * 100:5.1f}%" if isinstance(r.get("yield_band"), (int, float)) else "-"
+        say(f"  {r['job'][:36]:<36} {r['status']:<8} {r['stage'] or '-':<7} {num(r['cost'], '9.4g'):>9} "
+            f"{num(r['rms_error_db'], '7.2f'):>7} {num(r['max_error_db'], '8.2f'):>8} "
+            f"{num(r['impedance_min_ohm'], '8.2f'):>8} {yld:>6}  {swept}" + (f"  {r['error'][:60]}" if r["error"] else ""))

@@ -1,0 +1,90 @@
+"""Commands over many jobs or over results: batch, report, export."""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from xo_fit.cli.base import app
+from xo_fit.cli.console import OUT, print_summary, say
+from xo_fit.errors import XoFitError
+
+
+@app.command()
+def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or globs (quote globs)."),
+          out: Optional[Path] = typer.Option(None, "--out", "-o", help="Folder for results.sqlite and one folder per job."),
+          stages: str = typer.Option("fit,snap,spread", "--stages", help="Comma-separated: fit, snap, spread."),
+          workers: Optional[int] = typer.Option(None, "--workers", min=1, help="Local worker processes (default: cores)."),
+          scheduler: Optional[str] = typer.Option(None, "--scheduler", help="A running Dask scheduler, tcp://HOST:PORT."),
+          summary: Optional[Path] = typer.Option(None, "--summary", help="Only print (and rewrite) the summary of DIR."),
+          no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNGs."),
+          ) -> None:
+    """Run many jobs unattended and resumably: results.sqlite, one folder per job, summary.csv."""
+    from xo_fit.batch.runner import run_batch, write_summary
+
+    if summary is not None:
+        if not (summary / "results.sqlite").exists():
+            raise XoFitError("no results.sqlite here: not a batch folder", path=summary)
+        rows = write_summary(summary)
+        say(f"batch {summary}: {len(rows)} jobs, sorted by cost (also in {summary / 'summary.csv'})")
+        print_summary(rows)
+        return
+    if not jobs or out is None:
+        raise XoFitError("give job files and --out DIR (or --summary DIR)", key="batch")
+    stage_list = [x.strip() for x in stages.split(",") if x.strip()]
+    label = "batch"
+    enabled = sys.stderr.isatty() and not OUT.quiet
+
+    def progress(done: int, failed: int, running: int, total: int, t0: float) -> None:
+        if not enabled:
+            return
+        finished = done + failed
+        elapsed = time.time() - t0
+        eta = elapsed / finished * (total - finished) if finished else float("nan")
+        sys.stderr.write(f"\r{label}: {done} done, {failed} failed, {running} running of {total}"
+                         + (f", about {eta:.0f} s left " if finished else " "))
+        sys.stderr.flush()
+
+    t0 = time.perf_counter()
+    rep = run_batch(jobs, out, stage_list, workers=workers, scheduler=scheduler, plots=not no_plots,
+                    progress=progress)
+    if enabled:
+        sys.stderr.write("\n")
+    say(f"batch {out}: {rep.total} jobs; {rep.skipped} already done, {rep.done} run now, {rep.failed} failed; "
+        f"{time.perf_counter() - t0:.1f} s")
+    print_summary(rep.summary)
+    if rep.failed:
+        raise typer.Exit(1)
+
+
+@app.command()
+def report(results: list[Path] = typer.Argument(..., help="result.json files (or their folders); overlaid."),
+           out: Path = typer.Option(..., "--out", "-o", help="Folder for report.html and its PNGs.")) -> None:
+    """A self-contained HTML page: curves against the targets, phase, group delay, impedance, metrics, part list with
+    stresses, cautions."""
+    from xo_fit.api import write_report
+
+    t0 = time.perf_counter()
+    page = write_report(list(results), out, ["xo-fit", *sys.argv[1:]])
+    say(f"report of {len(results)} result(s) in {time.perf_counter() - t0:.2f} s: {page}")
+
+
+@app.command()
+def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
+           spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
+    """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
+    from xo_fit.output.design import load_result
+    from xo_fit.output.spice import export as write_spice
+
+    d = load_result(result)
+    d = getattr(d, "design", d)
+    system = d.system
+    deck = write_spice(system, d.array, spice, f"{system.job.name} ({d.stage})")
+    say(f"wrote {spice}; `ngspice -b {spice.name}` runs it, prints the driver voltages and input impedance and "
+        f"writes {deck.data_file}")
+    for note in deck.notes:
+        say(f"  {note}")

@@ -1,0 +1,80 @@
+"""Commands that look at a job or its data before a design exists: check, driver, demo."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from xo_fit.cli.base import app
+from xo_fit.cli.console import load_checked, say, warn
+from xo_fit.errors import XoFitError
+from xo_fit.output.describe import describe
+
+
+@app.command()
+def check(job: Path = typer.Argument(..., help="The job file (TOML).")) -> None:
+    """Read and validate a job and its data; show the grid, drivers, parts, free values and nodes."""
+    from xo_fit.job.sweep import has_sweep
+
+    if has_sweep(job):
+        from xo_fit.job.sweep import expand_job
+        from xo_fit.model.system import load_system
+        from xo_fit.search.fitting import cost_model
+
+        variants = expand_job(job)
+        for v, _ in variants:
+            cost_model(load_system(v))  # every variant's data and target curves must load too
+        say(f"job      {job} has a [sweep] of {len(variants)} variants, all valid: "
+            + ", ".join(v.name for v, _ in variants))
+        say("ok (run them with xo-fit batch)")
+        return
+    system = load_checked(job)
+    from xo_fit.search.fitting import cost_model
+
+    cost_model(system)  # the targets and their shaping curve load as a fit would load them
+    for line in describe(system):
+        say(line)
+    say("ok")
+
+
+@app.command()
+def driver(impedance: Path = typer.Argument(..., help="A measured impedance file (Hz, ohm, optional phase in deg)."),
+           model: str = typer.Option("ts", "--model", help="ts (Small's model) or ts-lossy (with L2 || R2)."),
+           name: Optional[str] = typer.Option(None, "--name", help="The driver's name in the TOML printed "
+                                                                  "(default: from the file name).")) -> None:
+    """Fit an equivalent circuit to a measured impedance; print its parameters, the fit error and the TOML to paste."""
+    import re
+
+    from xo_fit.io.measure import read_curve
+    from xo_fit.physics.impedance_fit import MODELS, fit_impedance
+    from xo_fit.units import format_value
+
+    if model not in MODELS:
+        raise XoFitError(f"expected one of {', '.join(MODELS)}, got {model!r}", key="--model")
+    curve = read_curve(impedance, "impedance")
+    fit = fit_impedance(curve, model)
+    for w in fit.warnings:
+        warn(w)
+    p = fit.params
+    lo, hi = fit.f_range
+    say(f"{impedance}: {curve.frequency.size} points, {format_value(lo, 'Hz')} to {format_value(hi, 'Hz')}, "
+        + ("with phase: the complex impedance fitted" if fit.used_phase else "no phase: |Z| alone fitted"))
+    say(f"model {model}: " + ("Small's model (Re, Le, fs, Qms, Qes)" if model == "ts"
+                              else "Small's model with a lossy voice coil (Le, then L2 with R2 across it)"))
+    rows = [("Re", format_value(p.re, "ohm", 4)), ("Le", format_value(p.le, "H", 4)),
+            ("fs", format_value(p.fs, "Hz", 4)), ("Qms", f"{p.qms:.4g}"), ("Qes", f"{p.qes:.4g}"),
+            ("Qts", f"{fit.qts:.4g}")]
+    if model == "ts-lossy":
+        rows += [("L2", format_value(p.l2, "H", 4)), ("R2", format_value(p.r2, "ohm", 4))]
+    for k, v in rows:
+        say(f"  {k:<4} {v}")
+    say(f"fit error: {fit.rms_error_pct:.2f} % rms of |Z| over {fit.points} points (log-spaced), at most "
+        f"{fit.max_error_pct:.2f} % at {format_value(fit.max_error_hz, 'Hz')}")
+    label = name if name is not None else re.sub(r"[^A-Za-z0-9_-]", "_", impedance.stem) or "NAME"
+    if not re.fullmatch(r"[A-Za-z0-9_-]{1,64}", label):
+        raise XoFitError(f"a driver name is 1-64 letters, digits, '_' or '-', got {label[:40]!r}", key="--name")
+    say("")
+    say("# the impedance to paste into a job (replacing the driver's impedance = ...):")
+    say(fit.toml(label).rstrip("\n"))
