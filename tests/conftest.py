@@ -12,6 +12,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+import os
+import subprocess
+import sys
+import tempfile
+
+# the suite compiles into a kernel cache of its own (a warm user cache would hide build failures, and the suite
+# must not fill the user's): set before xo_fit is imported, removed with the session's temporary folder
+_CACHE = tempfile.TemporaryDirectory(prefix="xo_fit-test-cache-")
+os.environ["XO_FIT_CACHE"] = _CACHE.name
+
 # the suite runs the kernels as users do: C builds where a compiler is (tests/test_standalone.py holds them to
 # numba's); XO_FIT_STANDALONE=0 in the environment runs it all on numba instead
 from xo_fit.cli.app import main  # noqa: E402
@@ -43,6 +53,27 @@ def ts_impedance(f, re=6.0, le=0.5e-3, fs=45.0, qms=3.0, qes=0.4):
     ws = 2 * np.pi * fs
     res = re * qms / qes
     return re + s * le + res / (1 + qms * (s / ws + ws / s))
+
+
+def need(module: str):
+    """Import an optional test dependency: skipped where it is missing, but a failure under CI (CI=true), where
+    .ci/run installs every test extra, so that a check never goes missing silently."""
+    if os.environ.get("CI"):
+        import importlib
+
+        return importlib.import_module(module)
+    return pytest.importorskip(module)
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory):
+    """The README's main command run once per session as a subprocess (the console script's module form):
+    (its folder, the completed process). Tests that read the demo's outputs share it; none may change them."""
+    out = tmp_path_factory.mktemp("demo") / "demo"
+    run = subprocess.run([sys.executable, "-m", "xo_fit", "demo", "--out", str(out)], capture_output=True,
+                         text=True, timeout=600)
+    assert run.returncode == 0, run.stderr
+    return out, run
 
 
 @pytest.fixture

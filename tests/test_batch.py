@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import ladder_job
+from conftest import ladder_job, need
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -130,7 +130,7 @@ def test_changed_job_reruns_broken_job_fails_alone_and_a_second_batch_is_refused
 
 
 def test_unreachable_scheduler_is_bad_input(tmp_path):
-    pytest.importorskip("distributed")
+    need("distributed")
     make_jobs(tmp_path, 1)
     r = cli("batch", tmp_path / "job0.toml", "--out", tmp_path / "o", "--scheduler", "tcp://127.0.0.1:9",
             "--no-plots", timeout=120)
@@ -139,7 +139,7 @@ def test_unreachable_scheduler_is_bad_input(tmp_path):
 
 
 def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
-    distributed = pytest.importorskip("distributed")
+    distributed = need("distributed")
     make_jobs(tmp_path, 3)
     local = tmp_path / "local"
     r = cli("batch", tmp_path / "job*.toml", "--out", local, "--workers", "2", "--no-plots")
@@ -287,7 +287,7 @@ def test_resume_after_a_stage_folder_was_deleted(tmp_path):
 
 
 def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch):
-    distributed = pytest.importorskip("distributed")
+    distributed = need("distributed")
     import xo_fit.batch.runner as batch
     from xo_fit.errors import XoFitError
 

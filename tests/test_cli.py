@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import json
 import re
-import subprocess
-import sys
 
 import numpy as np
 import pandas as pd
@@ -146,11 +144,11 @@ def test_usage_errors_exit_2(cli):
     assert code == 2
 
 
-def test_demo_end_to_end(tmp_path):
+@pytest.mark.slow
+def test_demo_end_to_end(demo_run):
     """The README's main command, as a subprocess: the console script's module form."""
-    run = subprocess.run([sys.executable, "-m", "xo_fit", "demo", "--out", str(tmp_path / "demo")],
-                         capture_output=True, text=True, timeout=300)
-    assert run.returncode == 0, run.stderr
+    demo, run = demo_run
+    tmp_path = demo.parent
     assert (tmp_path / "demo" / "scenario" / "job.toml").exists()
     assert (tmp_path / "demo" / "hand-design" / "response.png").exists()
     result = json.loads((tmp_path / "demo" / "hand-design" / "result.json").read_text())

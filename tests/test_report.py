@@ -171,14 +171,14 @@ nodes = ["0", "t1"]
     np.testing.assert_allclose(2.83 / (sol.impedance[0] + 0.05), spice[:, 2], rtol=1e-6)
 
 
-def test_measured_drivers_export_as_fitted_circuits_that_ngspice_agrees_with(tmp_path, cli):
+@pytest.mark.slow
+def test_measured_drivers_export_as_fitted_circuits_that_ngspice_agrees_with(tmp_path, cli, demo_run):
     """The demo's drivers are measured: the deck models each by the lossy-coil circuit fitted to its impedance,
     states the fit error, and run through ngspice (its own control block) gives xo_fit's driver voltages within
     that error (rms over the grid), and the input current within the largest error stated."""
     ngspice = _ngspice()
-    code, _, err = cli("demo", "--out", tmp_path / "d")
-    assert code == 0, err
-    code, out, err = cli("export", tmp_path / "d" / "snap", "--spice", tmp_path / "x.cir")
+    demo, _ = demo_run
+    code, out, err = cli("export", demo / "snap", "--spice", tmp_path / "x.cir")
     assert code == 0, err
     deck = (tmp_path / "x.cir").read_text()
     assert "PLACEHOLDER" not in deck and "ngspice -b x.cir" in out and "x.data" in out
@@ -189,7 +189,7 @@ def test_measured_drivers_export_as_fitted_circuits_that_ngspice_agrees_with(tmp
     data = _run_deck(ngspice, deck, tmp_path, "x")
     from xo_fit.output.design import load_result
 
-    d = load_result(tmp_path / "d" / "snap")
+    d = load_result(demo / "snap")
     s = d.system
     sol = s.network.solve(d.array)
     np.testing.assert_allclose(data[:, 0], s.frequencies, rtol=1e-9)
@@ -238,11 +238,11 @@ nodes = ["t1", "0"]
     np.testing.assert_allclose(data[:, 1] + 1j * data[:, 2], 2.83 * 7 / (7 + 1 / (1j * w * 10e-6)), rtol=1e-6)
 
 
-def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
-    code, out, err = cli("demo", "--out", tmp_path / "d")
-    assert code == 0, err
-    assert "report: " in out
-    page = (tmp_path / "d" / "report" / "report.html").read_text()
+@pytest.mark.slow
+def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, demo_run):
+    demo, run = demo_run
+    assert "report: " in run.stdout
+    page = (demo / "report" / "report.html").read_text()
     # nothing outside itself: no links, scripts or remote images; every image inline
     assert not re.search(r"(href|src)\s*=\s*[\"'](?!data:)", page)
     assert "http://" not in page and "https://" not in page
@@ -263,7 +263,7 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
     run = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
                           "--disable-background-networking", "--disable-component-update", "--disable-sync",
                           f"--user-data-dir={tmp_path / 'profile'}", "--window-size=1200,2400",
-                          f"--screenshot={shot}", (tmp_path / "d" / "report" / "report.html").as_uri()],
+                          f"--screenshot={shot}", (demo / "report" / "report.html").as_uri()],
                          capture_output=True, text=True, timeout=120)
     assert shot.exists(), run.stderr
     import matplotlib.image as mpimg
@@ -279,7 +279,7 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, cli):
     dom = subprocess.run([CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
                           "--disable-background-networking", "--disable-component-update", "--disable-sync",
                           f"--user-data-dir={tmp_path / 'profile2'}", "--dump-dom",
-                          (tmp_path / "d" / "report" / "report.html").as_uri()],
+                          (demo / "report" / "report.html").as_uri()],
                          capture_output=True, text=True, timeout=120).stdout
     heads = re.findall(r"<h2>([^<(]+)", dom)
     for want in ("Metrics", "Where the error lies", "Values", "Targets", "Curves", "Part list", "Network", "Findings",

@@ -4,9 +4,10 @@ two-port ABCD matrices and compare the voltage transfer and input impedance into
 from __future__ import annotations
 
 import numpy as np
-import pytest
 
-skrf = pytest.importorskip("skrf")
+from conftest import need  # noqa: E402
+
+skrf = need("skrf")
 
 from conftest import net_of  # noqa: E402
 

@@ -28,8 +28,8 @@ from xo_fit.errors import XoFitError
 from xo_fit.job.model import Job
 from xo_fit.job.reader import load_job as _load_job
 
-__all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "Design",
-           "Spread"]
+__all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "fit_driver", "write_report", "load_result",
+           "Design", "Spread"]
 
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
@@ -84,13 +84,13 @@ def _reuse(job, design):
     return _system(job)
 
 
-def simulate(job, values: Mapping[str, float] | Design | None = None, *, source_from: str | None = None) -> Design:
+def simulate(job, values: Mapping[str, float] | Design | None = None) -> Design:
     """The job's own values (a hand design), some replaced by ``values`` (SI by part name), simulated and scored."""
     from xo_fit.search.fitting import score
 
     system = _reuse(job, values)
     v = _values(system, values)
-    return Design(system=system, scored=score(system, v), stage="simulate", source={"from": source_from})
+    return Design(system=system, scored=score(system, v), stage="simulate", source={"from": None})
 
 
 def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: str | None = None,
@@ -126,8 +126,7 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
 
 
 def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Mapping[str, str] | None = None,
-         inventory=None, combine: int | None = None, source_from: str | None = None,
-         top_up: str | None = None) -> Design:
+         inventory=None, combine: int | None = None, top_up: str | None = None) -> Design:
     """Every snappable value moved to a purchasable one (series, or the parts on hand) and re-scored.
 
     ``design``: the continuous design to snap (default: the job's own values). ``series`` maps a kind
@@ -169,14 +168,14 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
                                 "parts": [{"value": v, "text": format_value(v, unit)} for v in sp.choice.pieces]}
         part_info[sp.name] = e
     return Design(system=system, scored=after, stage="snap", sections=sections,
-                  source={"from": source_from, "inventory": str(inventory.path) if inventory else None},
+                  source={"from": None, "inventory": str(inventory.path) if inventory else None},
                   part_info=part_info, tables={"parts.csv": parts_table(outcome, j, dict(j.spread.tolerance))},
                   info={"outcome": outcome, "before": before, "after": after, "compare": ("continuous", before)},
                   label="snap")
 
 
 def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: int | None = None,
-           seed: int | None = None, progress=None, source_from: str | None = None) -> Spread:
+           seed: int | None = None, progress=None) -> Spread:
     """Tolerance Monte Carlo of a design (default: the job's own values): yields, sensitivity, percentiles."""
     from xo_fit.search.fitting import score
     from xo_fit.stages.tolerance import run_spread
@@ -204,7 +203,7 @@ def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: 
     }
     d0 = design.design if isinstance(design, Spread) else design
     nominal_design = Design(system=system, scored=score(system, nominal), stage="spread",
-                            sections={"spread": section}, source={"from": source_from}, label="spread",
+                            sections={"spread": section}, source={"from": None}, label="spread",
                             part_info=dict(d0.part_info) if isinstance(d0, Design) else {})
     return Spread(design=nominal_design, section=section, columns=cols, result=r)
 

@@ -54,7 +54,8 @@ def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=Non
                top_up: str | None = None) -> StageOutput:
     values = dict(zip(system.part_names, np.asarray(continuous, dtype=float)))
     d = api.snap(system, values, series=series_override, inventory=inventory, combine=combine,
-                 source_from=source_from, top_up=top_up)
+                 top_up=top_up)
+    d.source["from"] = source_from
     files = d.save(out, plots=plots, title=f"{system.job.name}: snapped (grey: continuous)", home=home)
     return _output(d, out, files)
 
@@ -65,7 +66,8 @@ def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=N
     """``part_info``: what the design's own result said of each part (a snap's series, source, combination),
     carried into the spread's result so that its part list still says what to buy."""
     values = dict(zip(system.part_names, np.asarray(nominal, dtype=float)))
-    sp = api.spread(system, values, samples=samples, seed=seed, progress=progress, source_from=source_from)
+    sp = api.spread(system, values, samples=samples, seed=seed, progress=progress)
+    sp.design.source["from"] = source_from
     sp.design.part_info = dict(part_info or {})
     files = sp.save(out, plots=plots, home=home)
     return _output(sp.design, out, files, result=sp.result, spread=sp)

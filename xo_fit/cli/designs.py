@@ -37,7 +37,8 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
     t0 = time.perf_counter()
     system, values = load_design(job, from_)
     j = system.job
-    d = api.simulate(system, dict(zip(system.part_names, values)), source_from=str(from_) if from_ else None)
+    d = api.simulate(system, dict(zip(system.part_names, values)))
+    d.source["from"] = str(from_) if from_ else None
     files = d.save(out, plots=not no_plots, title=f"{j.name}: simulated")
     s = d.scored
     say(f"simulated {j.name}: {len(s.values)} part values, {system.frequencies.size} points "

@@ -38,15 +38,28 @@ def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | Non
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    f = system.frequencies
-    names = tuple(d.name for d in system.job.drivers)
-    pressure, total, z = s.sim.pressure[0], s.sim.total[0], s.sim.impedance[0]
-    targets = s.targets
     pairs = crossover_pairs(s)
     rows = 3 if pairs else 2
     fig, axes = plt.subplots(rows, 1, figsize=(9, 3.2 * rows + 1.2), sharex=True,
                              gridspec_kw={"height_ratios": [3] + [1.6] * (rows - 1)})
-    ax = axes[0]
+    _levels_panel(axes[0], system, s, title, compare)
+    if pairs:
+        _phase_panel(axes[1], system, s, pairs)
+    _impedance_panel(axes[rows - 1], system, s, compare)
+    fig.subplots_adjust(left=0.08, right=0.92, top=0.95, bottom=0.07, hspace=0.12)
+    with atomic_path(path, suffix=".png") as tmp:
+        fig.savefig(tmp, dpi=100, format="png")
+    plt.close(fig)
+
+
+def _levels_panel(ax, system, s, title: str, compare: tuple | None) -> None:
+    """The top panel: each way against its way target, the sum (and a compared design's) against the target."""
+    import matplotlib.pyplot as plt
+
+    f = system.frequencies
+    names = tuple(d.name for d in system.job.drivers)
+    pressure, total = s.sim.pressure[0], s.sim.total[0]
+    targets = s.targets
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     for i, (name, p) in enumerate(zip(names, pressure)):
         c = colors[i % len(colors)]
@@ -76,19 +89,27 @@ def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | Non
     if band is not None:
         for b in band:
             ax.axvline(b, color="0.6", lw=0.8, ls=":")
-    k = 1
-    if pairs:
-        axp = axes[1]
-        for a, b, region in pairs:
-            err = phase_error_deg(pressure[a] / pressure[b], np.rad2deg(np.angle(targets.ways[a] / targets.ways[b])))
-            axp.semilogx(f[region], err[region], lw=1.5, label=f"{names[a]} - {names[b]}, against target")
-        axp.axhline(0, color="k", lw=0.8)
-        axp.set_ylabel("phase error (deg)")
-        axp.set_ylim(-90, 90)
-        axp.grid(True, which="both", alpha=0.3)
-        axp.legend(loc="upper right", fontsize=8)
-        k = 2
-    ax2 = axes[k]
+
+
+def _phase_panel(axp, system, s, pairs: list) -> None:
+    """The phase error of adjacent ways through each crossover region, against their targets' difference."""
+    f = system.frequencies
+    names = tuple(d.name for d in system.job.drivers)
+    pressure, targets = s.sim.pressure[0], s.targets
+    for a, b, region in pairs:
+        err = phase_error_deg(pressure[a] / pressure[b], np.rad2deg(np.angle(targets.ways[a] / targets.ways[b])))
+        axp.semilogx(f[region], err[region], lw=1.5, label=f"{names[a]} - {names[b]}, against target")
+    axp.axhline(0, color="k", lw=0.8)
+    axp.set_ylabel("phase error (deg)")
+    axp.set_ylim(-90, 90)
+    axp.grid(True, which="both", alpha=0.3)
+    axp.legend(loc="upper right", fontsize=8)
+
+
+def _impedance_panel(ax2, system, s, compare: tuple | None) -> None:
+    """|Z| with the floor, and its phase on a second axis."""
+    f = system.frequencies
+    z = s.sim.impedance[0]
     zmag = np.abs(z)
     floor = system.job.cost.impedance_min
     if compare is not None:
@@ -108,10 +129,6 @@ def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | Non
     ax2.legend(h1 + h2, l1 + l2, loc="upper right", fontsize=8)
     ax2.set_xlabel("frequency (Hz)")
     ax2.set_xlim(f[0], f[-1])
-    fig.subplots_adjust(left=0.08, right=0.92, top=0.95, bottom=0.07, hspace=0.12)
-    with atomic_path(path, suffix=".png") as tmp:
-        fig.savefig(tmp, dpi=100, format="png")
-    plt.close(fig)
 
 
 def crossover_pairs(s) -> list:

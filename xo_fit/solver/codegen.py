@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -168,22 +168,49 @@ class SolverCode:
     currents: tuple[tuple[str, str], ...] = ()  # (re, im) of the current through each branch asked for, A
 
 
-def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
-    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`).
+@dataclass
+class _Build:
+    """The state of one generation, passed from step to step of :func:`solver_code`."""
 
-    ``currents``: indices into ``net.branches`` of valued parts whose current (at the source voltage ``vs``)
-    the code also computes: the current of the edge (part or series chain) that holds the part.
-    """
-    e = _Emitter()
-    edges = reduce_series_chains(net)
+    e: "_Emitter"
+    net: "Network"
+    edges: list
+    forms: list = field(default_factory=list)   # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss, k)
+    ys: list = field(default_factory=list)      # per edge: its admittance (re, im) names
+    traps: list = field(default_factory=list)   # names whose NaN/inf marks the point for the dense path
+    nodes: list = field(default_factory=list)
+    idx: dict = field(default_factory=dict)
+    a: dict = field(default_factory=dict)       # the nodal matrix's upper triangle, (i, k) -> (re, im)
+    rhs: dict = field(default_factory=dict)
+    scale_terms: dict = field(default_factory=dict)
+    order: list = field(default_factory=list)
+    mags: dict = field(default_factory=dict)
+    inv_piv: dict = field(default_factory=dict)
+    urow: dict = field(default_factory=dict)
+    rhs_at: dict = field(default_factory=dict)
+    x: dict = field(default_factory=dict)
+
+    def get(self, i: int, k: int) -> tuple:
+        return self.a.get((min(i, k), max(i, k)), (None, None))
+
+    def volt(self, node: str) -> tuple:
+        """Node voltage per volt at "in"."""
+        if node == GROUND_NODE:
+            return (None, None)
+        if node == SOURCE_NODE:
+            return ("1.0", None)
+        return self.x[self.idx[node]]
+
+
+def _edge_constants(b: _Build) -> list[str]:
+    """Per candidate: the constants of every edge (values, loss resistances, series sums); sets ``b.forms``."""
+    net = b.net
     col_of = {}
     col = 0
     for j, br in enumerate(net.branches):
         if br.kind != "D":
             col_of[j] = col
             col += 1
-
-    # ---- per candidate: the constants of every edge
     prep: list[str] = []
     for j, br in enumerate(net.branches):
         if br.kind == "D":
@@ -192,62 +219,69 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
         prep.append(f"x_{j} = vals[b, {c}]")
         if br.kind in ("L", "C") and br.r_coef != 0.0:
             prep.append(f"r_{j} = r_coef[{c}] * x_{j} ** r_exp[{c}]" if br.r_exp else f"r_{j} = r_coef[{c}]")
-    forms = []  # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss)
-    for ei, edge in enumerate(edges):
+    for ei, edge in enumerate(b.edges):
         brs = [net.branches[j] for j in edge.members]
         if len(brs) == 1 and brs[0].kind == "D":
-            forms.append(("D", brs[0].driver))
+            b.forms.append(("D", brs[0].driver))
             continue
         if len(brs) == 1 and not brs[0].lossy:
             j = edge.members[0]
             kind = brs[0].kind
             if kind == "R":
                 prep.append(f"g_{j} = 1.0 / x_{j}")
-                forms.append(("G", f"g_{j}"))
+                b.forms.append(("G", f"g_{j}"))
             elif kind == "C":
-                forms.append(("jwC", f"x_{j}"))
+                b.forms.append(("jwC", f"x_{j}"))
             else:
                 prep.append(f"il_{j} = 1.0 / x_{j}")
-                forms.append(("L0", f"il_{j}"))
+                b.forms.append(("L0", f"il_{j}"))
             continue
-        zr, ls, ss = [], [], []
-        for j, br in zip(edge.members, brs):
-            if br.kind == "R":
-                zr.append(f"x_{j}")
-            elif br.kind == "L":
-                ls.append(f"x_{j}")
-                if br.r_coef:
-                    zr.append(f"r_{j}")
-            else:
-                ss.append(f"1.0 / x_{j}")
-                if br.r_coef:
-                    zr.append(f"r_{j}")
-        names = []
-        for tag, terms in (("zr", zr), ("ls", ls), ("ss", ss)):
-            if terms:
-                prep.append(f"{tag}_{ei} = {' + '.join(terms)}")
-                prep.append(f"{tag}2_{ei} = {tag}_{ei} * {tag}_{ei}") if tag == "zr" else None
-                names.append(f"{tag}_{ei}")
-            else:
-                names.append(None)
-        forms.append(("Z", *names, ei))
+        b.forms.append(("Z", *_series_sums(prep, edge, brs, ei), ei))
+    return prep
 
-    # ---- per frequency: edge admittances, with every division batched into one
-    traps: list[str] = []
+
+def _series_sums(prep: list[str], edge, brs, ei: int) -> list:
+    """The series resistance, inductance and elastance sums of a chain edge, as names (or None)."""
+    zr, ls, ss = [], [], []
+    for j, br in zip(edge.members, brs):
+        if br.kind == "R":
+            zr.append(f"x_{j}")
+        elif br.kind == "L":
+            ls.append(f"x_{j}")
+            if br.r_coef:
+                zr.append(f"r_{j}")
+        else:
+            ss.append(f"1.0 / x_{j}")
+            if br.r_coef:
+                zr.append(f"r_{j}")
+    names = []
+    for tag, terms in (("zr", zr), ("ls", ls), ("ss", ss)):
+        if terms:
+            prep.append(f"{tag}_{ei} = {' + '.join(terms)}")
+            prep.append(f"{tag}2_{ei} = {tag}_{ei} * {tag}_{ei}") if tag == "zr" else None
+            names.append(f"{tag}_{ei}")
+        else:
+            names.append(None)
+    return names
+
+
+def _edge_admittances(b: _Build) -> list[str]:
+    """Per frequency: the loads of the input arrays and every edge admittance, every division batched into
+    one; sets ``b.ys``. Returns the load lines."""
+    e = b.e
     loads = ["w = fin[0, f]", "iw = fin[1, f]"]
-    ys: list[tuple] = []
     pending = []  # (edge index, zr, zi name) needing 1/|z|^2
-    for ei, form in enumerate(forms):
+    for ei, form in enumerate(b.forms):
         if form[0] == "D":
             dd = form[1]
             loads += [f"yd{dd}r = fin[{2 + 2 * dd}, f]", f"yd{dd}i = fin[{3 + 2 * dd}, f]"]
-            ys.append((f"yd{dd}r", f"yd{dd}i"))
+            b.ys.append((f"yd{dd}r", f"yd{dd}i"))
         elif form[0] == "G":
-            ys.append((form[1], None))
+            b.ys.append((form[1], None))
         elif form[0] == "jwC":
-            ys.append((None, e.let(f"w * {form[1]}", "y")))
+            b.ys.append((None, e.let(f"w * {form[1]}", "y")))
         elif form[0] == "L0":
-            ys.append((None, e.let(f"-iw * {form[1]}", "y")))
+            b.ys.append((None, e.let(f"-iw * {form[1]}", "y")))
         else:
             _, zr, ls, ss, k = form
             parts = ([f"w * {ls}"] if ls else []) + ([f"- iw * {ss}"] if ss else [])
@@ -259,21 +293,24 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
             else:
                 den = e.let(f"{zi} * {zi}", "zd")
             pending.append((ei, zr, zi, den))
-            ys.append(None)
+            b.ys.append(None)
     if pending:
-        invs = _batch_reciprocal(e, [p[3] for p in pending], traps, "iz")
+        invs = _batch_reciprocal(e, [p[3] for p in pending], b.traps, "iz")
         for (ei, zr, zi, _), inv in zip(pending, invs):
-            ys[ei] = (e.let(f"{zr} * {inv}", "yr") if zr else None, e.let(f"-{zi} * {inv}", "yi") if zi else None)
-    body_y = e.lines
-    e.lines = []
+            b.ys[ei] = (e.let(f"{zr} * {inv}", "yr") if zr else None, e.let(f"-{zi} * {inv}", "yi") if zi else None)
+    return loads
 
-    # ---- assembly of the symmetric nodal matrix (upper triangle) and the right-hand side,
-    #      for 1 V at "in" (the source resistance is applied afterwards, Thevenin-wise)
-    nodes = sorted({n for ed in edges for n in (ed.a, ed.b)} - {GROUND_NODE, SOURCE_NODE})
-    idx = {n: i for i, n in enumerate(nodes)}
+
+def _assemble(b: _Build) -> set:
+    """The symmetric nodal matrix (upper triangle) and the right-hand side for 1 V at "in" (the source
+    resistance is applied afterwards, Thevenin-wise), with each node's admittance scale for the pivot check;
+    returns the nodes that see a dissipative edge."""
+    e, edges, ys, forms = b.e, b.edges, b.ys, b.forms
+    b.nodes = sorted({n for ed in edges for n in (ed.a, ed.b)} - {GROUND_NODE, SOURCE_NODE})
+    b.idx = idx = {n: i for i, n in enumerate(b.nodes)}
     entries: dict[tuple[int, int], list] = {}
     rhs_terms: dict[int, list] = {}
-    scale_terms: dict[int, list[str]] = {i: [] for i in range(len(nodes))}
+    b.scale_terms = {i: [] for i in range(len(b.nodes))}
     dissipative = set()
     for ei, ed in enumerate(edges):
         ia, ib = idx.get(ed.a), idx.get(ed.b)
@@ -293,33 +330,26 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
         for i in (ia, ib):
             if i is not None:
                 entries.setdefault((i, i), []).append((1, ys[ei]))
-                scale_terms[i].append(mag_e)
+                b.scale_terms[i].append(mag_e)
                 if forms[ei][0] in ("D", "G", "Z"):
-                    dissipative.add(nodes[i])
+                    dissipative.add(b.nodes[i])
         if ia is not None and ib is not None:
             entries.setdefault((min(ia, ib), max(ia, ib)), []).append((-1, ys[ei]))
         if ia is not None and ed.b == SOURCE_NODE:
             rhs_terms.setdefault(ia, []).append(ys[ei])
         if ib is not None and ed.a == SOURCE_NODE:
             rhs_terms.setdefault(ib, []).append(ys[ei])
-    a: dict[tuple[int, int], tuple] = {}
     for key in sorted(entries):
-        a[key] = e.sum(entries[key], f"a{key[0]}_{key[1]}_")
-    rhs: dict[int, tuple] = {}
+        b.a[key] = e.sum(entries[key], f"a{key[0]}_{key[1]}_")
     for i, terms in sorted(rhs_terms.items()):
-        rhs[i] = e.sum([(1, t) for t in terms], f"b{i}_")
+        b.rhs[i] = e.sum([(1, t) for t in terms], f"b{i}_")
+    return dissipative
 
-    adj = {n: set() for n in nodes}
-    for (i, k) in a:
-        if i != k:
-            adj[nodes[i]].add(nodes[k])
-            adj[nodes[k]].add(nodes[i])
-    order = [idx[n] for n in _order(nodes, adj, {nodes[i] for i in rhs}, dissipative)]
 
-    def get(i: int, k: int) -> tuple:
-        return a.get((min(i, k), max(i, k)), (None, None))
-
-    # ---- elimination: symbolic, with fill-in; pivots of one elimination-tree level share one division
+def _eliminate(b: _Build) -> None:
+    """Symbolic elimination with fill-in in ``b.order``; the pivots of one elimination-tree level share one
+    division (Montgomery's trick)."""
+    e, nodes, a, rhs = b.e, b.nodes, b.a, b.rhs
     struct = {k: set() for k in range(len(nodes))}
     for (i, k) in a:
         if i != k:
@@ -328,7 +358,7 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
     level: dict[int, int] = {}
     nbrs_at: dict[int, list[int]] = {}
     left = set(range(len(nodes)))
-    for k in order:
+    for k in b.order:
         left.discard(k)
         nb = sorted(struct[k] & left)
         nbrs_at[k] = nb
@@ -336,95 +366,128 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
         for i in nb:
             struct[i] |= set(nb) - {i}
             level[i] = max(level.get(i, 0), level[k] + 1)
-    inv_piv: dict[int, tuple] = {}
-    urow: dict[int, dict[int, tuple]] = {}
-    rhs_at: dict[int, tuple] = {}
-    mags: dict[int, str] = {}
     for lv in sorted(set(level.values())):
-        group = [k for k in order if level[k] == lv]
+        group = [k for k in b.order if level[k] == lv]
         dens = []
         for k in group:
-            pr, pi = get(k, k)
+            pr, pi = b.get(k, k)
             if pr and pi:
-                mags[k] = e.let(f"{pr} * {pr} + {pi} * {pi}", f"q{k}_m")
+                b.mags[k] = e.let(f"{pr} * {pr} + {pi} * {pi}", f"q{k}_m")
             elif pr or pi:
-                mags[k] = e.let(f"{pr or pi} * {pr or pi}", f"q{k}_m")
+                b.mags[k] = e.let(f"{pr or pi} * {pr or pi}", f"q{k}_m")
             else:
                 raise NetworkError("internal: a structurally zero pivot")
-            dens.append(mags[k])
-        invs = _batch_reciprocal(e, dens, traps, f"ip{lv}_")
+            dens.append(b.mags[k])
+        invs = _batch_reciprocal(e, dens, b.traps, f"ip{lv}_")
         for k, inv in zip(group, invs):
-            pr, pi = get(k, k)
-            inv_piv[k] = (e.let(f"{pr} * {inv}", f"q{k}_r") if pr else None,
-                          e.let(f"-{pi} * {inv}", f"q{k}_i") if pi else None)
+            pr, pi = b.get(k, k)
+            b.inv_piv[k] = (e.let(f"{pr} * {inv}", f"q{k}_r") if pr else None,
+                            e.let(f"-{pi} * {inv}", f"q{k}_i") if pi else None)
         for k in group:
             nb = nbrs_at[k]
-            urow[k] = {i: get(k, i) for i in nb}
-            rhs_at[k] = rhs.get(k, (None, None))
-            t = {i: e.mul(get(k, i), inv_piv[k], f"l{k}_{i}_") for i in nb}
+            b.urow[k] = {i: b.get(k, i) for i in nb}
+            b.rhs_at[k] = rhs.get(k, (None, None))
+            t = {i: e.mul(b.get(k, i), b.inv_piv[k], f"l{k}_{i}_") for i in nb}
             for ii, i in enumerate(nb):
                 for jj in nb[ii:]:
                     key = (min(i, jj), max(i, jj))
-                    a[key] = e.fms(a.get(key, (None, None)), t[i], get(k, jj), f"a{key[0]}_{key[1]}_")
-                if rhs_at[k] != (None, None):
-                    rhs[i] = e.fms(rhs.get(i, (None, None)), t[i], rhs_at[k], f"b{i}_")
+                    a[key] = e.fms(a.get(key, (None, None)), t[i], b.get(k, jj), f"a{key[0]}_{key[1]}_")
+                if b.rhs_at[k] != (None, None):
+                    rhs[i] = e.fms(rhs.get(i, (None, None)), t[i], b.rhs_at[k], f"b{i}_")
 
-    # ---- back substitution, only for the node voltages the outputs need
-    edge_of = {j: ei for ei, ed in enumerate(edges) for j in ed.members}
+
+def _back_substitute(b: _Build, currents: tuple[int, ...], edge_of: dict) -> None:
+    """Back substitution, only for the node voltages the outputs need; sets ``b.x``."""
+    e = b.e
     need: set[int] = set()
-    for ei, (ed, form) in enumerate(zip(edges, forms)):
+    for ei, (ed, form) in enumerate(zip(b.edges, b.forms)):
         if form[0] == "D" or SOURCE_NODE in (ed.a, ed.b) or any(edge_of.get(j) == ei for j in currents):
-            need.update(idx[n] for n in (ed.a, ed.b) if n in idx)
-    for k in order:
+            need.update(b.idx[n] for n in (ed.a, ed.b) if n in b.idx)
+    for k in b.order:
         if k in need:
-            need.update(urow[k])
-    x: dict[int, tuple] = {}
-    for k in reversed(order):
+            need.update(b.urow[k])
+    for k in reversed(b.order):
         if k not in need:
             continue
-        acc = rhs_at[k]
-        for i, u in urow[k].items():
-            acc = e.fms(acc, u, x[i], f"s{k}_")
-        x[k] = e.mul(acc, inv_piv[k], f"x{k}_") if acc != (None, None) else (None, None)
+        acc = b.rhs_at[k]
+        for i, u in b.urow[k].items():
+            acc = e.fms(acc, u, b.x[i], f"s{k}_")
+        b.x[k] = e.mul(acc, b.inv_piv[k], f"x{k}_") if acc != (None, None) else (None, None)
 
-    def volt(node: str) -> tuple:
-        """Node voltage per volt at "in"."""
-        if node == GROUND_NODE:
-            return (None, None)
-        if node == SOURCE_NODE:
-            return ("1.0", None)
-        return x[idx[node]]
 
-    # ---- the current drawn at 1 V, the input impedance, and the source applied through Rs:
-    #      Z = 1 / I1;  V(in) = vs / (1 + Rs I1);  every node voltage scales by V(in)
+def _source_scale(b: _Build) -> tuple[tuple, tuple]:
+    """The current drawn at 1 V, the input impedance, and the source applied through Rs:
+    Z = 1 / I1;  V(in) = vs / (1 + Rs I1);  every node voltage scales by V(in). Returns (zin, scale)."""
+    e = b.e
     cur_terms = []
-    for ei, ed in enumerate(edges):
+    for ei, ed in enumerate(b.edges):
         if SOURCE_NODE in (ed.a, ed.b):
             other = ed.b if ed.a == SOURCE_NODE else ed.a
-            dv = e.sum([(1, volt(SOURCE_NODE)), (-1, volt(other))], f"dv{ei}_")
-            cur_terms.append(e.mul(ys[ei], dv, f"c{ei}_"))
+            dv = e.sum([(1, b.volt(SOURCE_NODE)), (-1, b.volt(other))], f"dv{ei}_")
+            cur_terms.append(e.mul(b.ys[ei], dv, f"c{ei}_"))
     cr, ci = e.sum([(1, c) for c in cur_terms], "ci_")
     if cr is None and ci is None:
         raise NetworkError("internal: no current path from the source")
     cm = e.let(" + ".join(f"{p} * {p}" for p in (cr, ci) if p), "cm")
-    d = len(net.driver_names)
-    trap_terms = list(traps)
-    if net.source_resistance > 0.0:
+    if b.net.source_resistance > 0.0:
         sr = e.let(f"1.0 + rs * {cr}" if cr else "1.0", "sd")
         si = e.let(f"rs * {ci}", "sd") if ci else None
         sm = e.let(f"{sr} * {sr}" + (f" + {si} * {si}" if si else ""), "sm")
-        inv_c, inv_s = _batch_reciprocal(e, [cm, sm], traps, "iv")
+        inv_c, inv_s = _batch_reciprocal(e, [cm, sm], b.traps, "iv")
         scale = (e.let(f"vs * {sr} * {inv_s}", "vr"), e.let(f"-vs * {si} * {inv_s}", "vi") if si else None)
     else:
         inv_c = e.let(f"1.0 / {cm}", "cn")
-        traps.append(e.let(f"{cm} * {inv_c}", "cnt"))
+        b.traps.append(e.let(f"{cm} * {inv_c}", "cnt"))
         scale = ("vs", None)
-    trap_terms = list(traps)
     zin = (e.let(f"{cr} * {inv_c}", "zr") if cr else None, e.let(f"-{ci} * {inv_c}", "zi") if ci else None)
+    return zin, scale
+
+
+def _pivot_checks(b: _Build, trap_terms: list[str]) -> list[str]:
+    """Pivot checks: |p|^2 >= tau2 (sum |y| at the node)^2, and a NaN trap over everything produced."""
+    check = []
+    margins = []
+    for k in b.order:
+        sc = f"sc{k}"
+        check.append(f"{sc} = {' + '.join(b.scale_terms[k]) or '0.0'}")
+        margins.append(f"tau2 * {sc} * {sc} - {b.mags[k]}")
+    if margins:
+        check.append(f"bad = {margins[0]}")
+        check += [f"bad = max(bad, {m})" for m in margins[1:]]
+    else:
+        check.append("bad = -1.0")
+    check.append(f"bad = bad + 0.0 * ({' + '.join(trap_terms)})")
+    return check
+
+
+def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
+    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`).
+
+    ``currents``: indices into ``net.branches`` of valued parts whose current (at the source voltage ``vs``)
+    the code also computes: the current of the edge (part or series chain) that holds the part.
+    """
+    b = _Build(e=_Emitter(), net=net, edges=reduce_series_chains(net))
+    e, edges, forms = b.e, b.edges, b.forms
+    prep = _edge_constants(b)
+    loads = _edge_admittances(b)
+    body_y = e.lines
+    e.lines = []
+    dissipative = _assemble(b)
+    adj = {n: set() for n in b.nodes}
+    for (i, k) in b.a:
+        if i != k:
+            adj[b.nodes[i]].add(b.nodes[k])
+            adj[b.nodes[k]].add(b.nodes[i])
+    b.order = [b.idx[n] for n in _order(b.nodes, adj, {b.nodes[i] for i in b.rhs}, dissipative)]
+    _eliminate(b)
+    edge_of = {j: ei for ei, ed in enumerate(edges) for j in ed.members}
+    _back_substitute(b, currents, edge_of)
+    zin, scale = _source_scale(b)
+    trap_terms = list(b.traps)
     volts: dict[int, tuple[str, str]] = {}
     for ed, form in zip(edges, forms):
         if form[0] == "D":
-            u = e.sum([(1, volt(ed.a)), (-1, volt(ed.b))], f"u{form[1]}_")
+            u = e.sum([(1, b.volt(ed.a)), (-1, b.volt(ed.b))], f"u{form[1]}_")
             v = e.mul(u, scale, f"v{form[1]}_")
             volts[form[1]] = (v[0] or "0.0", v[1] or "0.0")
             trap_terms.extend(x for x in v if x)
@@ -434,28 +497,17 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
         if j not in edge_of:
             raise NetworkError(f"internal: part {net.branches[j].name} carries no current (a closed loop)")
         ed = edges[edge_of[j]]
-        u = e.sum([(1, volt(ed.a)), (-1, volt(ed.b))], f"ub{j}_")
-        i_ = e.mul(e.mul(ys[edge_of[j]], u, f"ib{j}_"), scale, f"ia{j}_")
+        u = e.sum([(1, b.volt(ed.a)), (-1, b.volt(ed.b))], f"ub{j}_")
+        i_ = e.mul(e.mul(b.ys[edge_of[j]], u, f"ib{j}_"), scale, f"ia{j}_")
         amps.append((i_[0] or "0.0", i_[1] or "0.0"))
     body_solve = e.lines
     e.lines = []
-
-    # ---- pivot checks: |p|^2 >= tau2 (sum |y| at the node)^2, and a NaN trap over everything produced
-    check = []
-    margins = []
-    for k in order:
-        sc = f"sc{k}"
-        check.append(f"{sc} = {' + '.join(scale_terms[k]) or '0.0'}")
-        margins.append(f"tau2 * {sc} * {sc} - {mags[k]}")
-    if margins:
-        check.append(f"bad = {margins[0]}")
-        check += [f"bad = max(bad, {m})" for m in margins[1:]]
-    else:
-        check.append("bad = -1.0")
-    check.append(f"bad = bad + 0.0 * ({' + '.join(trap_terms)})")
+    check = _pivot_checks(b, trap_terms)
+    nodes, order = b.nodes, b.order
     return SolverCode(
         prep=tuple(prep), loads=tuple(loads), body=tuple(body_y + body_solve + check),
-        volts=tuple(volts[i] for i in range(d)), zin=(zin[0] or "0.0", zin[1] or "0.0"), currents=tuple(amps),
+        volts=tuple(volts[i] for i in range(len(net.driver_names))), zin=(zin[0] or "0.0", zin[1] or "0.0"),
+        currents=tuple(amps),
         comment=(f"# edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
                  f"# unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}"))
 
