@@ -29,7 +29,8 @@ def test_ci_runs_the_readme_test_command():
 def test_every_top_level_entry_is_expected():
     expected = {"README.md", "DEVELOPERS.md", "pyproject.toml", "xo_fit", "docs", "tests", "benchmarks", ".ci",
                 ".git", ".gitignore"}
-    ignorable = {".venv", ".pytest_cache", ".hypothesis", "demo-out", "xo_fit.egg-info", "build"}
+    ignorable = {".venv", ".pytest_cache", ".hypothesis", ".ruff_cache", ".mypy_cache", "demo-out", "xo_fit.egg-info",
+                 "build"}
     present = {p.name for p in ROOT.iterdir()} - ignorable
     assert present <= expected, present - expected
 

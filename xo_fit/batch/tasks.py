@@ -51,11 +51,15 @@ def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time
 
 def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=None, inventory=None, combine=None,
                plots: bool = True, source_from: str | None = None, home: Path | None = None,
-               top_up: str | None = None) -> StageOutput:
+               top_up: str | None = None, speakers: int = 2) -> StageOutput:
+    """``speakers``: the quantities of bom.csv (the parts to buy), written beside the result."""
+    from xo_fit.output.bom import bom_rows
+
     values = dict(zip(system.part_names, np.asarray(continuous, dtype=float)))
     d = api.snap(system, values, series=series_override, inventory=inventory, combine=combine,
                  top_up=top_up)
     d.source["from"] = source_from
+    d.tables["bom.csv"] = bom_rows(d, speakers)
     files = d.save(out, plots=plots, title=f"{system.job.name}: snapped (grey: continuous)", home=home)
     return _output(d, out, files)
 

@@ -20,6 +20,7 @@ from xo_fit.cli.console import (
     print_findings,
     print_score,
     say,
+    warn,
 )
 from xo_fit.errors import XoFitError
 from xo_fit.job.model import DEFAULTS
@@ -143,10 +144,12 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          top_up: Optional[str] = typer.Option(None, "--top-up",
                                               help="With an inventory: a series to buy from where the drawer lacks "
                                                    "a value (default: the job's \\[snap] top_up)."),
+         speakers: int = typer.Option(2, "--speakers", min=1, max=10000,
+                                      help="Speakers to buy parts for: the quantities of bom.csv."),
          no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
          ) -> None:
     """Move every part value to a purchasable one (a series or parts on hand) and re-score, searching the
-    combinations with the real cost."""
+    combinations with the real cost; writes the parts to buy for --speakers speakers (bom.csv)."""
     from xo_fit.batch.tasks import snap_stage
     from xo_fit.constants import PART_UNIT
     from xo_fit.io.inventory import read_inventory
@@ -158,7 +161,8 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     inv_path = inventory if inventory is not None else j.snap.inventory
     inv = read_inventory(inv_path) if inv_path is not None else None
     st = snap_stage(system, out, continuous, series_override=series_option(series), inventory=inv, combine=combine,
-                    plots=not no_plots, source_from=str(from_) if from_ else None, top_up=top_up)
+                    plots=not no_plots, source_from=str(from_) if from_ else None, top_up=top_up,
+                    speakers=speakers)
     outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
     sr = outcome.search
     say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
@@ -177,6 +181,10 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
             m = sc.metrics
             say(f"  {label:<10} rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB, "
                 f"phase {m['phase_mismatch_deg']:.1f} deg, |Z| min {m['impedance_min_ohm']:.2f} ohm")
+    from xo_fit.stages.snapping import snap_warnings
+
+    for w in snap_warnings(outcome, before.cost, after.cost, inv is not None):
+        warn(w)
     print_findings(st.info["design"])
     print_cautions(system, after)
     say("wrote " + ", ".join(str(p) for p in files))

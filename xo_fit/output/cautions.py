@@ -34,6 +34,17 @@ def load_cautions(impedance_min_ohm: float, floor_ohm: float = 0.0) -> list[str]
 RESISTOR_MARGIN = 2.0
 
 
+def round_up(x: float) -> float:
+    """``x`` rounded up to three significant digits: a rating to buy is never printed below the need
+    (10.02 W once printed as "use at least 10 W" beside a 10 W part called too small)."""
+    import math
+
+    if x <= 0 or not math.isfinite(x):
+        return x
+    scale = 10.0 ** (2 - math.floor(math.log10(x)))
+    return math.ceil(x * scale - 1e-9) / scale
+
+
 def design_cautions(stress, rated_ohm: float | None) -> list[str]:
     """Cautions for a design's stress report (xo_fit.model.stress.StressReport) at the job's drive level."""
     out = []
@@ -51,15 +62,15 @@ def design_cautions(stress, rated_ohm: float | None) -> list[str]:
         if p.kind != "R":
             continue
         programme = p.programme if p.programme is not None else p.sine_worst
-        need = RESISTOR_MARGIN * programme
+        need = round_up(RESISTOR_MARGIN * programme)
         figures = (f"{programme:.3g} W programme, {p.sine_worst:.3g} W sine worst case at {p.at_hz:.0f} Hz; a sustained "
                    f"sine at full drive would need {RESISTOR_MARGIN * p.sine_worst:.3g} W")
         if p.rating is not None and p.rating < need:
             out.append(f"{p.name} is rated {p.rating:g} W, less than 2x its programme power ({figures}): use at least "
-                       f"{need:.3g} W (2x margin, common practice)")
+                       f"{need:g} W (2x margin, common practice)")
             hot = True
         elif p.rating is None and p.sine_worst >= 1.0:
-            out.append(f"{p.name}: rate it at {need:.3g} W or more, 2x its programme power (common practice; "
+            out.append(f"{p.name}: rate it at {need:g} W or more, 2x its programme power (common practice; "
                        f"{figures})")
             hot = True
     for p in stress.parts:

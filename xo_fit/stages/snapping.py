@@ -25,6 +25,8 @@ or series ``none``. A part with a range keeps to it where the series allows.
 
 from __future__ import annotations
 
+import math
+
 import itertools
 from dataclasses import dataclass, field
 
@@ -466,3 +468,35 @@ def parts_table(outcome: SnapOutcome, job, tolerance_defaults: dict) -> list[dic
                      "source": sp.source, "tolerance": f"{tol * 100:g}%" if tol is not None else "",
                      "combination": comb})
     return rows
+
+
+#: A snapped value this many E12 steps or more from its continuous value is called out (common practice:
+#: a step or two is the rounding a series costs; more means the series or the drawer lacks the value).
+FAR_STEPS = 2
+#: A snap that raises the cost by more than this fraction of the continuous cost is called out.
+FAR_COST = 0.5
+
+
+def snap_warnings(outcome: "SnapOutcome", continuous_cost: float | None, snapped_cost: float | None,
+                  inventory: bool) -> list[str]:
+    """One-line warnings for a snap that moved parts far from their continuous values or raised the cost by more
+    than half, each with what usually helps (--top-up, --combine 2, a finer series)."""
+    step = math.log(10.0) / 12  # one E12 step in log distance
+    out = []
+    far = []
+    for sp in outcome.parts:
+        if sp.source in ("fixed", "continuous") or not sp.continuous or sp.value <= 0:
+            continue
+        steps = abs(math.log(sp.value / sp.continuous)) / step
+        if steps >= FAR_STEPS + 0.5:
+            far.append(f"{sp.name} {100 * (sp.value / sp.continuous - 1):+.0f} %")
+    helps = ("--top-up E12 (or [snap] top_up) buys what the drawer lacks, --combine 2 makes a value of two parts"
+             if inventory else "--combine 2 makes a value of two parts, or a finer series (--series E24)")
+    if far:
+        out.append(f"the snap moved {len(far)} part(s) more than {FAR_STEPS} E12 steps from the fit ({', '.join(far)}): "
+                   f"{helps}")
+    if continuous_cost is not None and snapped_cost is not None and continuous_cost > 0 \
+            and snapped_cost > continuous_cost * (1 + FAR_COST):
+        out.append(f"the snap raised the cost from {continuous_cost:.4g} to {snapped_cost:.4g} "
+                   f"(+{100 * (snapped_cost / continuous_cost - 1):.0f} %): {helps}")
+    return out
