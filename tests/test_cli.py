@@ -255,3 +255,18 @@ def test_spread_says_when_the_nominal_design_already_misses_the_limits(tmp_path)
     with contextlib.redirect_stdout(out):
         assert run_main(["spread", str(job), "--out", str(tmp_path / "sp"), "--samples", "100", "--no-plots"]) == 0
     assert "the nominal design itself misses the limits: its rms error is" in out.getvalue()
+
+
+def test_common_options_go_before_or_after_the_command(write_job, cli, tmp_path):
+    """`xo-fit check JOB --quiet` works as `xo-fit --quiet check JOB` (the command-line contract): it once failed
+    with "no such option"."""
+    from conftest import ladder_job
+
+    job = write_job(ladder_job("LR2")[0])
+    code, out, err = cli("check", job, "--quiet")
+    assert code == 0, err
+    assert out == ""
+    code, loud, err = cli("check", job)
+    assert code == 0 and "ok" in loud
+    code, out, err = cli("check", job, "-v")
+    assert code == 0 and "loaded" in out

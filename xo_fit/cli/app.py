@@ -34,10 +34,22 @@ def run() -> None:
     sys.exit(code)
 
 
+#: The options every command takes, accepted before the command or after it (`xo-fit fit JOB --quiet`).
+COMMON_OPTIONS = ("-q", "--quiet", "-v", "--verbose")
+
+
+def common_first(argv: list[str]) -> list[str]:
+    """``argv`` with the common options moved before the command, wherever the user put them (up to a ``--``)."""
+    cut = argv.index("--") if "--" in argv else len(argv)
+    common = [a for a in argv[:cut] if a in COMMON_OPTIONS]
+    return common + [a for a in argv[:cut] if a not in COMMON_OPTIONS] + argv[cut:]
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code (0 done, 1 failure, 2 bad input)."""
+    args = common_first(list(sys.argv[1:] if argv is None else argv))
     try:
-        app(args=argv, prog_name="xo-fit")
+        app(args=args, prog_name="xo-fit")
     except XoFitError as e:
         typer.echo(f"xo-fit: error: {e}", err=True)
         return 2
