@@ -154,3 +154,53 @@ def test_minimum_phase_through_on_grid(tmp_path):
     g = np.geomspace(100, 10000, 50)
     p, _ = on_grid(c, g, "response", phase="minimum")
     np.testing.assert_allclose(np.rad2deg(np.angle(p)), np.rad2deg(np.angle(_bw2_highpass(g))), atol=0.5)
+
+
+def test_a_khz_file_is_called_kHz(tmp_path):
+    """A file written in kHz (0.02-20) once got the advice to narrow the grid; it says what is wrong."""
+    p = tmp_path / "k.txt"
+    p.write_text("".join(f"{f:g} 90 0\n" for f in np.geomspace(0.02, 20, 30)))
+    with pytest.raises(DataError, match="look like kHz"):
+        on_grid(read_curve(p, "response"), np.geomspace(20, 20000, 10), "response")
+
+
+def test_swapped_columns_get_a_hint(tmp_path):
+    """Impedance written as |Z|, f: the 'frequencies' fall while the second column rises: say so."""
+    p = tmp_path / "z.txt"
+    p.write_text("".join(f"{z:g} {f:g}\n" for f, z in zip(np.geomspace(20, 20000, 30), np.linspace(40, 6, 30))))
+    with pytest.raises(DataError, match="swapped"):
+        read_curve(p, "impedance")
+
+
+def test_phase_steps_at_a_null_or_off_the_grid_are_not_warned_about(tmp_path):
+    """A rigid piston's off-axis null turns the phase by 180 degrees (Kinsler et al.: 2 J1(x)/x changes sign at
+    its zeros), and points outside the grid are not used: neither is a sign of an unremoved time of flight."""
+    from scipy.special import j1
+
+    f = np.geomspace(100, 40000, 400)
+    x = 2 * np.pi * f / 343.0 * 0.1 * np.sin(np.deg2rad(60))  # ka sin(t), a = 10 cm, 60 degrees off axis
+    d = 2 * j1(x) / x
+    db = 90 + 20 * np.log10(np.abs(d) + 1e-9)
+    ph = np.where(d < 0, 180.0, 0.0)
+    p = tmp_path / "null.txt"
+    p.write_text("".join(f"{a:g} {b:.4f} {c:g}\n" for a, b, c in zip(f, db, ph)))
+    _, warnings = on_grid(read_curve(p, "response"), np.geomspace(200, 20000, 100), "response")
+    assert warnings == []
+    # a real step away from any null still warns
+    ph2 = np.where(f > 5000, 170.0, 0.0)
+    p.write_text("".join(f"{a:g} 90 {c:g}\n" for a, c in zip(f, ph2)))
+    _, warnings = on_grid(read_curve(p, "response"), np.geomspace(200, 20000, 100), "response")
+    assert len(warnings) == 1
+    # ... but not when the step lies outside the grid
+    _, warnings = on_grid(read_curve(p, "response"), np.geomspace(200, 4000, 100), "response")
+    assert warnings == []
+
+
+def test_a_european_drawer_reads(tmp_path):
+    """Semicolons between fields and decimal commas in values, as measurement files in that style are read."""
+    from xo_fit.io.inventory import read_inventory
+
+    p = tmp_path / "drawer.csv"
+    p.write_text("kind;value;count\nC;4,7uF;2\nR;2,2;1\nL;0,33mH;3\n")
+    inv = read_inventory(p)
+    assert inv.values("C") == [(4.7e-6, 2)] and inv.values("R") == [(2.2, 1)] and inv.values("L") == [(3.3e-4, 3)]

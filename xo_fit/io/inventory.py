@@ -47,8 +47,9 @@ def read_inventory(path: str | Path) -> Inventory:
                             path=path, line=number)
         if len(fields) < 2 or len(fields) > 3:
             raise DataError("expected kind, value [, count]", path=path, line=number)
+        text_value = fields[1].replace(",", ".") if delim == ";" else fields[1]  # "4,7uF": a decimal comma
         try:
-            value = parse_value(fields[1], units[kind])
+            value = parse_value(text_value, units[kind])
         except UnitsError as e:
             raise DataError(e.message, path=path, line=number) from None
         count = 1

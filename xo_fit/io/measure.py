@@ -154,7 +154,10 @@ def read_curve(path: str | Path, kind: str) -> Curve:
     step = np.diff(f)
     if np.any(step <= 0):
         i = int(np.argmax(step <= 0)) + 1
-        raise DataError(f"frequencies must rise strictly: {f[i]:g} Hz follows {f[i - 1]:g} Hz",
+        hint = ""
+        if arr.shape[0] > 2 and np.all(np.diff(arr[:, 1]) > 0) and arr[0, 1] > 0:
+            hint = " (the second column rises throughout: are the frequency and magnitude columns swapped?)"
+        raise DataError(f"frequencies must rise strictly: {f[i]:g} Hz follows {f[i - 1]:g} Hz{hint}",
                         path=path, line=int(lines[i]))
     if len(f) < 2:
         raise DataError("need at least two points", path=path, line=int(lines[0]))

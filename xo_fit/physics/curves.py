@@ -20,9 +20,14 @@ def check_coverage(curve: Curve, grid: np.ndarray, kind: str) -> None:
     """Raise if ``grid`` (Hz) reaches beyond the file's frequency range."""
     lo, hi = curve.f_range
     if grid[0] < lo * (1 - RANGE_SLACK) or grid[-1] > hi * (1 + RANGE_SLACK):
+        if hi <= 200.0 and hi * 1000.0 >= grid[-1] * (1 - RANGE_SLACK):
+            advice = (f"its frequencies look like kHz ({lo:g}-{hi:g}): write them in Hz "
+                      f"({lo * 1000:g}-{hi * 1000:g})")
+        else:
+            advice = "narrow [grid] f_min/f_max, extend the data (extend_low/extend_high) or measure wider"
         raise DataError(
-            f"{kind} covers {lo:g}-{hi:g} Hz but the job's grid spans {grid[0]:g}-{grid[-1]:g} Hz; "
-            "narrow [grid] f_min/f_max or measure wider", path=curve.path)
+            f"{kind} covers {lo:g}-{hi:g} Hz but the job's grid spans {grid[0]:g}-{grid[-1]:g} Hz; {advice}",
+            path=curve.path)
 
 
 def magnitude_db(curve: Curve, kind: str) -> np.ndarray:
@@ -61,7 +66,7 @@ def on_grid(curve: Curve, grid: np.ndarray, kind: str, phase: str = "measured") 
                             f"{'phase' if kind == 'response' else 'impedance_phase'} = \"minimum\" "
                             "to derive it from the magnitude", path=curve.path)
         unwrapped = np.unwrap(np.deg2rad(curve.phase_deg))
-        steps = np.abs(np.diff(unwrapped))
+        steps = np.where(_judged_steps(curve.frequency, db, grid), np.abs(np.diff(unwrapped)), 0.0)
         if steps.size and np.max(steps) > np.deg2rad(PHASE_STEP_WARN_DEG):
             i = int(np.argmax(steps))
             warnings.append(f"{curve.path}:{int(curve.lines[i + 1])}: phase steps {np.rad2deg(steps[i]):.0f} deg "
@@ -72,3 +77,18 @@ def on_grid(curve: Curve, grid: np.ndarray, kind: str, phase: str = "measured") 
     if kind == "response":
         mag = mag * P_REF
     return mag * np.exp(1j * ph), warnings
+
+
+#: A point this far (dB) under the highest level within three points either side is a null: phase may turn
+#: by up to 180 degrees across it (a piston's or a baffle's null), which is no sign of a time-of-flight delay.
+NULL_DEPTH_DB = 15.0
+
+
+def _judged_steps(frequency: np.ndarray, db: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """Which steps between adjacent points (F - 1,) a phase-step warning may judge: those that touch the
+    grid's span, away from nulls of the magnitude."""
+    inside = (frequency[1:] >= grid[0]) & (frequency[:-1] <= grid[-1])
+    n = db.size
+    peak = np.array([db[max(0, k - 3):k + 4].max() for k in range(n)])
+    null = (peak - db) >= NULL_DEPTH_DB
+    return inside & ~(null[1:] | null[:-1])
