@@ -263,3 +263,15 @@ def test_job_and_system_pickle(write_job):
     s2 = pickle.loads(pickle.dumps(s))
     np.testing.assert_array_equal(s2.simulate(s2.values({"C1": 1e-5, "C2": 5e-6, "L2": 1e-3})).total,
                                   s.simulate(s.values({"C1": 1e-5, "C2": 5e-6, "L2": 1e-3})).total)
+
+
+def test_a_typo_in_a_required_key_is_named(write_job):
+    """`fc_hihg` once gave "fc_high: missing" without naming the unknown key that was meant."""
+    from conftest import ladder_job
+
+    text, _ = ladder_job("LR2")
+    text = text.replace('[target.way.tweeter]\ntype = "highpass"', '[target.way.tweeter]\ntype = "bandpass"\nfc_low = 1000\nfc_hihg = 3000')
+    text = text.replace('type = "bandpass"\nfc_low = 1000\nfc_hihg = 3000\nalignment = "LR"\norder = 2\nfc = 2000.0', 'type = "bandpass"\nfc_low = 1000\nfc_hihg = 3000\nalignment = "LR"\norder = 2')
+    with pytest.raises(JobError, match="fc_hihg") as e:
+        load_job(write_job(text))
+    assert "fc_high" in str(e.value) and "missing" in str(e.value)

@@ -80,13 +80,14 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     outcome, runs, files = st.info["outcome"], st.info["runs"], st.files
     r = outcome.search
     state = "" if r.complete else f" - INCOMPLETE ({r.stopped_by}): the best design so far"
-    say(f"fit {j.name}: {r.evaluations} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
+    total = st.document.get("search", {}).get("evaluations", r.evaluations)  # all processes together
+    say(f"fit {j.name}: {total} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
         f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
     print_score(outcome.scored, outcome.start_cost)
     if runs is not None:
         say(f"  {len(runs)} processes shared the budget; seed {r.seed} won: "
             + ", ".join(f"seed {x['seed']}: {x['cost']:.4g}" for x in runs))
-    else:
+    if r.basins:
         basins = sorted(set(round(b, 6) for b in r.basins))
         say(f"  {r.restarts} searches in the budget found {len(basins)} distinct basin"
             f"{'s' if len(basins) != 1 else ''} (best costs before the polish: "
@@ -228,7 +229,9 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
         misses.append(f"its |Z| falls to {m['impedance_min_ohm']:.2f} ohm (floor {r.limits['impedance_min_ohm']:g} ohm)")
     if misses:
         say("  the nominal design itself misses the limits: " + "; ".join(misses)
-            + " (so few builds or none can meet them: fit or snap the design first, or relax [spread] rms_limit_db)")
+            + (" (so few builds or none can meet them: fit or snap the design first, or relax [spread] rms_limit_db)"
+               if from_ is None else " (so few builds or none can meet them: relax [spread] rms_limit_db, or fit "
+               "again with the limits as [limits] or heavier [cost] weights)"))
     say(f"  worst build: {r.worst_deviation_db:.2f} dB off at {r.worst_at_hz:.0f} Hz; worst corner "
         f"{r.corners['worst_deviation_db']:.2f} dB ({r.corners['method']})")
     say(f"  left/right matching: largest difference p50 {r.pair_p50_db:.2f} dB, p95 {r.pair_p95_db:.2f} dB")

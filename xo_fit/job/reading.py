@@ -67,6 +67,10 @@ class Reader:
         self.used: set[str] = set()
 
     def error(self, key: str | None, message: str) -> JobError:
+        if key is not None and message.startswith("missing") and key not in self.data:
+            typo = close_match(key, [k for k in self.data if k not in self.used and isinstance(k, str)])
+            if typo is not None:
+                message += f" (the table has an unknown key '{typo}': a typo for '{key}'?)"
         where = f"{self.label} {key}" if key else self.label
         return self.ctx.error(self.table, key, message, where)
 

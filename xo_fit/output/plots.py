@@ -30,6 +30,14 @@ def set_ylim(ax, lo: float, hi: float) -> None:
         ax.set_ylim(lo, hi)
 
 
+def legend(ax, handles=None, labels=None, **kwargs) -> None:
+    """A legend where something is labelled; none where nothing is (matplotlib would warn and draw an empty box)."""
+    if handles is None:
+        handles, labels = ax.get_legend_handles_labels()
+    if handles:
+        ax.legend(handles, labels, **kwargs)
+
+
 def plot_design(path: str | Path, system, s, *, title: str, compare: tuple | None = None) -> None:
     """Write a PNG for a scored design (xo_fit.search.fitting.Scored); ``compare`` = (label, other Scored) overlays
     another design's sum, phase error and impedance in grey (continuous against snapped)."""
@@ -75,7 +83,8 @@ def _levels_panel(ax, system, s, title: str, compare: tuple | None) -> None:
         ax.semilogx(f, acoustics.spl_db(other.total[0]), color="0.55", lw=1.6, label=f"sum, {compare[0]}")
     ax.semilogx(f, sum_db, color="k", lw=2.0, label="sum")
     if system.job.target.reference == "listening_window" and system.positions:
-        ax.semilogx(f, system.reference_db(s.sim)[0], color="tab:blue", lw=1.8, label="listening window")
+        ax.semilogx(f, system.reference_db(s.sim)[0], color=colors[len(names) % len(colors)], lw=1.8, ls="-.",
+                    label="listening window")
     if targets is not None:
         ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(targets.system)), color="k", lw=1.0, ls="--",
                     label="target")
@@ -84,7 +93,7 @@ def _levels_panel(ax, system, s, title: str, compare: tuple | None) -> None:
     ax.set_ylabel("SPL (dB)")
     ax.set_title(plain(title))
     ax.grid(True, which="both", alpha=0.3)
-    ax.legend(loc="lower center", ncol=4, fontsize=8)
+    legend(ax, loc="lower center", ncol=4, fontsize=8)
     band = system.job.target.band
     if band is not None:
         for b in band:
@@ -96,14 +105,17 @@ def _phase_panel(axp, system, s, pairs: list) -> None:
     f = system.frequencies
     names = tuple(d.name for d in system.job.drivers)
     pressure, targets = s.sim.pressure[0], s.targets
+    worst = 0.0
     for a, b, region in pairs:
         err = phase_error_deg(pressure[a] / pressure[b], np.rad2deg(np.angle(targets.ways[a] / targets.ways[b])))
         axp.semilogx(f[region], err[region], lw=1.5, label=f"{names[a]} - {names[b]}, against target")
+        worst = max(worst, float(np.nanmax(np.abs(err[region]))))
     axp.axhline(0, color="k", lw=0.8)
     axp.set_ylabel("phase error (deg)")
-    axp.set_ylim(-90, 90)
+    span = min(180.0, max(90.0, 30.0 * np.ceil(worst / 30.0)))  # a 95 degree error once ran off a +-90 axis
+    axp.set_ylim(-span, span)
     axp.grid(True, which="both", alpha=0.3)
-    axp.legend(loc="upper right", fontsize=8)
+    legend(axp, loc="upper right", fontsize=8)
 
 
 def _impedance_panel(ax2, system, s, compare: tuple | None) -> None:
@@ -126,7 +138,7 @@ def _impedance_panel(ax2, system, s, compare: tuple | None) -> None:
     ax3.set_ylabel("phase (deg)")
     h1, l1 = ax2.get_legend_handles_labels()
     h2, l2 = ax3.get_legend_handles_labels()
-    ax2.legend(h1 + h2, l1 + l2, loc="upper right", fontsize=8)
+    legend(ax2, h1 + h2, l1 + l2, loc="upper right", fontsize=8)
     ax2.set_xlabel("frequency (Hz)")
     ax2.set_xlim(f[0], f[-1])
 
@@ -142,6 +154,9 @@ def crossover_pairs(s) -> list:
     out = []
     for a, b in adjacent_ways(db, t.has_way):
         near = np.abs(db[a] - db[b]) <= 2 * XO_REGION_DB  # wider than the cost's region: the plot shows the run-up
+        # ... but where both targets are deep in their stop bands they are no crossover (two stop bands clipped to
+        # one floor once drew a "crossover" over the whole band)
+        near &= np.maximum(db[a], db[b]) > -2 * XO_REGION_DB - 6.0
         if near.any():
             out.append((a, b, near))
     return out
@@ -170,7 +185,7 @@ def plot_spread(path: str | Path, system, s, r, *, title: str) -> None:
     ax.set_ylabel("SPL (dB)")
     ax.set_title(plain(title))
     ax.grid(True, which="both", alpha=0.3)
-    ax.legend(loc="lower center", fontsize=8, ncol=3)
+    legend(ax, loc="lower center", fontsize=8, ncol=3)
     fig.subplots_adjust(left=0.08, right=0.97, top=0.93, bottom=0.1)
     with atomic_path(path, suffix=".png") as tmp:
         fig.savefig(tmp, dpi=100, format="png")
@@ -197,9 +212,12 @@ def pruning_figure(plt, steps: list[dict], chosen: int, title: str):
     fig, ax = plt.subplots(figsize=(9, 3.8))
     ax.plot(parts, cost, "o-", color="k", label="cost")
     ax.plot([parts[chosen]], [cost[chosen]], "o", ms=12, mfc="none", mec="tab:red", label="chosen")
-    for r in steps[1:]:
+    for k, r in enumerate(steps[1:]):
         ax.annotate(f"-{r['removed']} ({r['how']})", (r["parts"], r["cost"] or 0), fontsize=7, rotation=30,
-                    textcoords="offset points", xytext=(3, 4))
+                    textcoords="offset points", xytext=(3, 6 if k % 2 == 0 else -14))
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))  # a part count is a whole number
     ax.set_xlabel("R, L and C parts")
     ax.set_ylabel("cost")
     if all(np.isfinite(c) and c > 0 for c in cost):
@@ -212,7 +230,7 @@ def pruning_figure(plt, steps: list[dict], chosen: int, title: str):
     ax.grid(True, alpha=0.3)
     h1, l1 = ax.get_legend_handles_labels()
     h2, l2 = ax2.get_legend_handles_labels()
-    ax.legend(h1 + h2, l1 + l2, fontsize=8, loc="upper left")
+    legend(ax, h1 + h2, l1 + l2, fontsize=8, loc="upper left")
     fig.tight_layout()
     return fig
 
@@ -240,5 +258,5 @@ def finish_axes(ax, ylabel: str, title: str, f: np.ndarray, top: float | None = 
     ax.set_xlabel("frequency (Hz)")
     ax.set_title(plain(title), fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
-    ax.legend(fontsize=7, loc="best")
+    legend(ax, fontsize=7, loc="best")
     ax.figure.tight_layout()

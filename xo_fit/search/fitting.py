@@ -149,8 +149,9 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
              "restarts": r.restarts} for s_, r, _ in results]
     best = min(range(len(results)), key=lambda i: (results[i][1].cost, i))
     _, search_result, values = results[best]
-    start = None
     model = cost_model(system)
+    space = make_space(system.job)
+    start = score(system, space.values(space.u0)[0], model).cost if space.u0 is not None else None
     return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start), runs
 
 
