@@ -23,7 +23,8 @@ from xo_fit.demo import JOB_TEXT, write_scenario  # noqa: E402
 from xo_fit.search.fitting import cost_model, run_fit  # noqa: E402
 from xo_fit.job.reader import load_job  # noqa: E402
 from xo_fit.series import nearest  # noqa: E402
-from xo_fit.stages.snapping import NEIGHBOURS, run_snap  # noqa: E402
+from xo_fit.config import NEIGHBOURS  # noqa: E402
+from xo_fit.stages.snapping import run_snap  # noqa: E402
 from xo_fit.model.system import load_system  # noqa: E402
 
 

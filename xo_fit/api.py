@@ -22,6 +22,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from xo_fit.config import MAX_INCREASE
 from xo_fit.constants import PART_UNIT
 from xo_fit.output.design import Design, Spread, load_result
 from xo_fit.errors import XoFitError
@@ -209,7 +210,7 @@ def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: 
 
 
 def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: int | None = None,
-          seed: int | None = None, max_increase: float = 0.10, workers: int = 1, progress=None):
+          seed: int | None = None, max_increase: float = MAX_INCREASE, workers: int = 1, progress=None):
     """Greedy backward elimination of parts with refits, from ``design`` (default: the job's own values).
 
     Returns a :class:`~xo_fit.output.pruned.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),

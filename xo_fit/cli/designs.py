@@ -22,6 +22,7 @@ from xo_fit.cli.console import (
     say,
     warn,
 )
+from xo_fit.config import MAX_INCREASE
 from xo_fit.errors import XoFitError
 from xo_fit.job.model import DEFAULTS
 
@@ -249,7 +250,7 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           budget: Optional[int] = typer.Option(None, "--budget", min=1,
                                                help="Cost evaluations per refit (default 600)."),
           seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
-          max_increase: float = typer.Option(10.0, "--max-increase", min=0.0,
+          max_increase: float = typer.Option(100 * MAX_INCREASE, "--max-increase", min=0.0,
                                              help="Largest cost increase over step 0 for the chosen design, %."),
           workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),
           no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNGs."),

@@ -40,29 +40,10 @@ from typing import Callable
 
 import numpy as np
 
+from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
+                           POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
 from xo_fit.search.lbfgsb import minimize_box
-
-#: The population has converged when its costs agree to this relative spread (and its points to 1e-6).
-CONVERGED = 1e-12
-#: A run whose best improved by less than STAGNATION_TOL (relative) over STAGNATION generations has found its
-#: basin: the rest of the budget goes to a restart (measured on the hard three-way in benchmarks/fit.py: runs
-#: reach 0.1 % of their final cost after 7,000-9,500 of 17,000 evaluations and then only refine).
-STAGNATION = 30
-STAGNATION_TOL = 1e-3
-#: Each restart's population is this many times the last one's (IPOP), up to MAX_POPULATION.
-RESTART_GROWTH = 2
-MAX_POPULATION = 256
-#: The polish starts from the best of this many distinct basins, and keeps the best result.
-POLISH_BASINS = 3
-#: Share of the budget the polish may use at most.
-POLISH_SHARE = 0.15
-#: Forward-difference step of the polish in u (normalised log) space.
-POLISH_STEP = 1e-6
-#: The polish stops when a step improves the cost by less than this fraction (scipy's ftol) ...
-POLISH_FTOL = 1e-10
-#: ... or the projected gradient (cost per unit of u) falls below this.
-POLISH_GTOL = 1e-8
 
 
 @dataclass(frozen=True)

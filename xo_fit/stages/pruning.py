@@ -19,12 +19,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
 from xo_fit.stages.removal import removals
 
-#: Refit budget (cost evaluations) when none is given: a short search and polish from the current values.
-REFIT_BUDGET = 600
-#: Default largest cost increase over step 0 for the chosen design.
-MAX_INCREASE = 0.10
 PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
                  "impedance_min_ohm"]
 

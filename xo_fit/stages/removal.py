@@ -13,15 +13,12 @@ import math
 
 import numpy as np
 
+from xo_fit.config import COST_FLOOR, NEGLIGIBLE
 from xo_fit.constants import GROUND_NODE, SOURCE_NODE
 from xo_fit.errors import XoFitError
 
 #: The two ways a part can leave a netlist.
 HOWS = ("open", "short")
-#: A removal that changes the cost by less than this share of it marks the part as negligible.
-NEGLIGIBLE = 0.01
-#: ... of it, or of this cost (dB^2: about 0.03 dB rms) for a design that meets its target to within rounding.
-COST_FLOOR = 1e-3
 #: A driver whose terminal voltage stays below this share of the source's at every frequency is unconnected.
 DEAD_DRIVER = 1e-9
 

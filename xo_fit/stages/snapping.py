@@ -32,22 +32,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from xo_fit.config import BEAM, CHUNK, EXHAUSTIVE, FAR_COST, FAR_STEPS, NEIGHBOURS, PAIRS_PER_PART, RESTARTS
 from xo_fit.errors import XoFitError
 from xo_fit.io.inventory import Inventory
 from xo_fit.series import check_name, neighbours
 from xo_fit.units import format_value
-
-#: Purchasable values on each side of the nearest one that a part may take.
-NEIGHBOURS = 2
-#: Up to this many complete combinations are searched exhaustively.
-EXHAUSTIVE = 50_000
-#: Beam width of the heuristic search, and its random restarts.
-BEAM = 24
-RESTARTS = 4
-#: Two-part combinations kept per part (the closest to its value).
-PAIRS_PER_PART = 4
-#: Designs per batch of the cost evaluation.
-CHUNK = 2048
 
 
 # ----------------------------------------------------------------------------- choices
@@ -468,13 +457,6 @@ def parts_table(outcome: SnapOutcome, job, tolerance_defaults: dict) -> list[dic
                      "source": sp.source, "tolerance": f"{tol * 100:g}%" if tol is not None else "",
                      "combination": comb})
     return rows
-
-
-#: A snapped value this many E12 steps or more from its continuous value is called out (common practice:
-#: a step or two is the rounding a series costs; more means the series or the drawer lacks the value).
-FAR_STEPS = 2
-#: A snap that raises the cost by more than this fraction of the continuous cost is called out.
-FAR_COST = 0.5
 
 
 def snap_warnings(outcome: "SnapOutcome", continuous_cost: float | None, snapped_cost: float | None,

@@ -33,18 +33,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from xo_fit.config import CHUNK, CORNERS_MAX, HIST_RANGE_DB, HIST_STEP_DB, SENS_STEP
 from xo_fit.model.acoustics import spl_db
 from xo_fit.model.draws import draw_factors, part_tolerances
-
-#: Designs solved per batch.
-CHUNK = 2048
-#: Histogram of level deviations from nominal: bin width and range (dB).
-HIST_STEP_DB = 0.01
-HIST_RANGE_DB = 30.0
-#: Up to this many toleranced parts, every corner is evaluated.
-CORNERS_MAX = 12
-#: Relative step of the sensitivity's central difference (1 %).
-SENS_STEP = 0.01
 
 
 def _accumulate(counts, dev, offset, scale):
