@@ -41,7 +41,7 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
             f"{e['unit']}): add `stress = 10` to the job's [cost] and fit again to keep it within, at some cost "
             "in accuracy")
     say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
-    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, top_up=None,
+    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, top_up=None, speakers=2,
          no_plots=False)
     say("tolerance spread of the snapped design:")
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
