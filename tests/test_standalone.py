@@ -7,7 +7,9 @@ skip into a failure.
 
 from __future__ import annotations
 
+import hashlib
 import json
+import logging
 import os
 import subprocess
 import sys
@@ -121,41 +123,165 @@ def _fallback_probe():
     return calls, fallback
 
 
-def test_a_damaged_library_or_a_failed_build_falls_back_to_numba(tmp_path, monkeypatch):
-    _, fc, args = _kernel_args(JOB, batch=4)
-    src, sig = fc.text(), standalone.COST_SIGNATURE
-    cc = standalone.compiler()
-    names, dims = standalone._parameters(src, "cost_kernel"), standalone.ndims(sig)
-    key = standalone.key(src, cc, standalone.inner_dims(args(), names, dims))
-    standalone.library_path(tmp_path, key).write_bytes(b"not a shared object")
+SUM = """
+import numba
+
+
+@numba.njit(fastmath={"contract"})
+def k(a, out):
+    n = a.shape[0]
+    m = a.shape[1]
+    for i in range(n):
+        s = 0.0
+        for j in range(m):
+            s += a[i, j]
+        out[i, 0] = s
+    return n
+"""
+SUM_SIG = "i8(f8[:,::1], f8[:,::1])"
+
+
+def _sum_call(k) -> None:
+    a = np.arange(12.0).reshape(3, 4)
+    out = np.zeros((3, 1))
+    assert k(a, out) in (3, -1)
+    return out[:, 0]
+
+
+def _fake_cc(path: Path, version: str, compile_part: str) -> str:
+    """A compiler script: answers -v like gcc with ``version``, runs ``compile_part`` for a build."""
+    path.write_text(f"#!/bin/sh\nif [ \"$1\" = -v ]; then echo 'gcc version {version} (fake)' >&2; "
+                    f"echo 'Target: x86_64-linux-gnu' >&2; exit 0; fi\n{compile_part}\n")
+    path.chmod(0o755)
+    return str(path)
+
+
+def test_a_compiler_s_rejection_leaves_a_note_for_that_key_and_compiler_only(tmp_path, monkeypatch, caplog):
     calls, fallback = _fallback_probe()
-    k = standalone.load(tmp_path, src, "cost_kernel", sig, fallback)
-    assert k(*args()) == -1 and calls == [1] and not k.uses_c
-    # a compiler that fails: a note is left, and the next run does not try again
-    standalone.library_path(tmp_path, key).unlink()
-    bad = tmp_path / "bad-cc"
-    bad.write_text("#!/bin/sh\necho 'bad-cc: broken' >&2\nexit 3\n")
-    bad.chmod(0o755)
-    monkeypatch.setenv("CC", str(bad))
-    key = standalone.key(src, str(bad), standalone.inner_dims(args(), names, dims))
-    k = standalone.load(tmp_path, src, "cost_kernel", sig, fallback)
-    assert k(*args()) == -1 and calls == [1, 1]
-    notes = list(tmp_path.glob("*.failed"))
-    assert [n.name for n in notes] == [f"xo_c_{key}.failed"]
-    assert "bad-cc failed (3): bad-cc: broken" in notes[0].read_text()
-    monkeypatch.setattr(standalone, "build", lambda *a, **k: pytest.fail("built again after a failure"))
-    assert standalone.load(tmp_path, src, "cost_kernel", sig, fallback)(*args()) == -1
-    # a day later it is tried again
-    old = notes[0].stat().st_mtime - standalone.FAILED_RETRY_S - 1
-    os.utime(notes[0], (old, old))
-    tried = []
+    bad = _fake_cc(tmp_path / "bad-cc", "99.0", "echo 'kernel.c:3:1: error: broken' >&2\nexit 3")
+    monkeypatch.setenv("CC", bad)
+    with caplog.at_level(logging.INFO, logger="xo_fit"):
+        k = standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback)
+        _sum_call(k)
+    assert calls == [1] and k.backend == "numba"
+    assert "bad-cc failed (3): kernel.c:3:1: error: broken" in caplog.text  # logged, not raised
+    notes = sorted(p.name for p in tmp_path.glob("xo_c_*"))
+    assert len(notes) == 1 and notes[0].endswith(".failed")
+    assert not list(tmp_path.glob(".xo_c_build_*")) and not list(tmp_path.glob("*tmp*"))
+    # the same C and the same compiler: numba at once, no build
+    monkeypatch.setattr(standalone, "_compile_into", lambda *a, **k: pytest.fail("built again after a rejection"))
+    _sum_call(standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback))
+    assert calls == [1, 1]
+    monkeypatch.undo()
+    # another version of the compiler (its -v says so) is tried; the note does not stop another kernel either
+    monkeypatch.setenv("CC", _fake_cc(tmp_path / "bad-cc", "99.1", "exit 4"))
+    standalone.compiler_identity.cache_clear()
+    _sum_call(standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback))
+    assert len(list(tmp_path.glob("xo_c_*.failed"))) == 2
+    monkeypatch.delenv("CC")
+    k = standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback)
+    np.testing.assert_array_equal(_sum_call(k), [6.0, 22.0, 38.0])
+    assert k.backend == "c" and calls == [1, 1, 1]
 
-    def failing_build(*a, **k):
-        tried.append(1)
-        raise OSError("disk full")
 
-    monkeypatch.setattr(standalone, "build", failing_build)
-    assert standalone.load(tmp_path, src, "cost_kernel", sig, fallback)(*args()) == -1 and tried == [1]
+@pytest.mark.parametrize("compile_part", ["echo 'cc1: fatal error: No space left on device' >&2\nexit 1",
+                                          "kill -9 $$", ("echo 'cc: fatal error: Killed signal terminated "
+                                                         "program cc1' >&2\nexit 1")])
+def test_a_passing_failure_leaves_no_note(tmp_path, monkeypatch, compile_part):
+    calls, fallback = _fallback_probe()
+    monkeypatch.setenv("CC", _fake_cc(tmp_path / "cc", "99.2", compile_part))
+    standalone.compiler_identity.cache_clear()
+    for _ in range(2):  # each run tries again
+        k = standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback)
+        _sum_call(k)
+        assert k.backend == "numba"
+    assert calls == [1, 1]
+    assert not [p for p in tmp_path.iterdir() if p.name != "cc"]  # no note, no temporary folder or file
+
+
+def test_the_key_is_the_c_text_and_the_compiler_s_identity(tmp_path, monkeypatch):
+    # a wrapper around the real compiler: a new mtime is no new compiler, a text that gives the same C reuses
+    # the library, another compiler version builds its own
+    real = standalone.compiler()
+    wrap = tmp_path / "bin" / "cc"
+    wrap.parent.mkdir()
+    wrap.write_text(f'#!/bin/sh\nif [ "$1" = -v ]; then echo "gcc version 77 (wrapped)" >&2; exit 0; fi\n'
+                    f'exec {real} "$@"\n')
+    wrap.chmod(0o755)
+    monkeypatch.setenv("CC", str(wrap))
+    standalone.compiler_identity.cache_clear()
+    cache = tmp_path / "cache"
+    cache.mkdir()
+    calls, fallback = _fallback_probe()
+    assert _sum_call(standalone.load(cache, SUM, "k", SUM_SIG, fallback)).tolist() == [6.0, 22.0, 38.0]
+    built = list(cache.glob("xo_c_*.so"))
+    assert len(built) == 1
+    os.utime(wrap, (1e9, 1e9))
+    standalone.compiler_identity.cache_clear()
+    monkeypatch.setattr(standalone, "_compile_into", lambda *a, **k: pytest.fail("built again"))
+    for text in (SUM, SUM.replace("import numba", "import numba  # another comment")):
+        k = standalone.load(cache, text, "k", SUM_SIG, fallback)
+        assert _sum_call(k).tolist() == [6.0, 22.0, 38.0] and k.backend == "c"
+    monkeypatch.undo()
+    monkeypatch.setenv("CC", str(wrap))
+    wrap.write_text(wrap.read_text().replace("gcc version 77", "gcc version 78"))
+    standalone.compiler_identity.cache_clear()
+    assert standalone.load(cache, SUM, "k", SUM_SIG, fallback)(np.ones((2, 4)), np.zeros((2, 1))) == 2
+    assert len(list(cache.glob("xo_c_*.so"))) == 2 and not calls
+
+
+RUN_SUM = ("import sys, json, numpy as np; from pathlib import Path; from xo_fit.solver import standalone\n"
+           "def fallback(): raise SystemExit('fell back to numba')\n"
+           "k = standalone.load(Path(sys.argv[1]), Path(sys.argv[2]).read_text(), 'k', sys.argv[3], fallback)\n"
+           "a = np.arange(12.0).reshape(3, 4); out = np.zeros((3, 1)); n = k(a, out)\n"
+           "print(json.dumps({'n': n, 'sums': out[:, 0].tolist(), 'backend': k.backend}))\n")
+
+
+def _run_sum(cache: Path, text: Path) -> dict:
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])}
+    r = subprocess.run([sys.executable, "-c", RUN_SUM, str(cache), str(text), SUM_SIG], check=False,
+                       capture_output=True, text=True, env=env, timeout=120)
+    assert r.returncode == 0, r.stderr  # a damaged library loaded would crash here (SIGBUS, SIGSEGV)
+    return json.loads(r.stdout)
+
+
+@pytest.mark.parametrize("damage", ["truncate", "flip"])
+def test_a_damaged_library_is_rebuilt_not_loaded(tmp_path, damage):
+    text = tmp_path / "k.py"
+    text.write_text(SUM)
+    cache = tmp_path / "cache"
+    cache.mkdir()
+    assert _run_sum(cache, text) == {"n": 3, "sums": [6.0, 22.0, 38.0], "backend": "c"}
+    (lib,) = cache.glob("xo_c_*.so")
+    data = lib.read_bytes()
+    size, digest = lib.name[:-3].split("-")[1:]  # the size and hash are in the name
+    assert int(size) == len(data) and hashlib.sha256(data).hexdigest().startswith(digest)
+    if damage == "truncate":
+        lib.write_bytes(data[:len(data) // 2])
+    else:
+        lib.write_bytes(data[:4000] + bytes(b ^ 0xFF for b in data[4000:4400]) + data[4400:])
+    assert _run_sum(cache, text) == {"n": 3, "sums": [6.0, 22.0, 38.0], "backend": "c"}
+    (again,) = cache.glob("xo_c_*.so")
+    assert standalone.library_name(again.name[5:25], again.read_bytes()) == again.name  # whole again
+    assert sorted(p.name for p in cache.iterdir()) == [again.name]  # nothing else left: no temporary files
+
+
+def test_which_backend_ran_a_kernel_is_known(tmp_path, monkeypatch):
+    from xo_fit.solver import kernels
+
+    monkeypatch.setenv("XO_FIT_CACHE", str(tmp_path))
+    text = SUM.replace("import numba", "import numba  # backend test")
+    k = kernels.load_kernel(text, "k", signature=SUM_SIG)
+    assert kernels.kernel_backend(k) is None  # built on its first call
+    _sum_call(k)
+    assert kernels.kernel_backend(k) == "c"
+    jit = kernels.load_kernel(text + "\n", "k")  # no signature: numba's
+    assert kernels.kernel_backend(jit) == "numba"
+    calls, fallback = _fallback_probe()
+    src = SUM.replace("out[i, 0] = s", "out[i, 0] = a[i - 1, 0]")  # refused by the translator
+    k = standalone.load(tmp_path, src, "k", SUM_SIG, fallback)
+    _sum_call(k)
+    assert kernels.kernel_backend(k) == "numba" and calls == [1]
 
 
 def test_other_inner_dimensions_get_a_build_of_their_own(tmp_path):
@@ -200,19 +326,20 @@ def test_no_compiler_or_turned_off_means_numba(tmp_path, monkeypatch):
 
 
 def test_the_translator_keeps_python_semantics(tmp_path):
-    # Python's max keeps a NaN in its first argument, / is true division, ** is pow, ints index
+    # Python's max keeps a NaN in its first argument, / is true division (an int over an int is refused:
+    # tests/test_ctranslate.py), ** is pow, ints index
     src = '''
 import numba
 K = 2.5
 
 
-@numba.njit(fastmath={"contract"})
+@numba.njit(error_model="numpy", fastmath={"contract"})
 def k(a, x, out):
     n = a.shape[0]
     for i in range(n):
         out[i, 0] = max(a[i], 0.0)
         out[i, 1] = x ** 2 + K
-        out[i, 2] = 7 / 2
+        out[i, 2] = 7 / 2.0
         out[i, 3] = abs(a[i]) if a[i] < 0.0 else sqrt(a[i])
     return n
 '''
@@ -252,12 +379,27 @@ def k(x, out):
 
     fn = standalone.CKernel(ctypes.CDLL(str(lib)), "k", [1, 1])
     x = np.concatenate([np.geomspace(1e-300, 1e300, 200_001), 1.0 + np.linspace(-0.3, 0.3, 20_001),
-                        [1.0, 2.0, np.sqrt(2.0), 0.5]])
+                        [1.0, 2.0, np.sqrt(2.0), 0.5], np.geomspace(5e-324, 2.2e-308, 1001)])
     out = np.empty_like(x)
     fn(x, out)
     ref = np.log(x)
     assert out[x == 1.0][0] == 0.0
     assert np.max(np.abs(out - ref) / np.maximum(np.abs(ref), 1.0)) < 4 * np.finfo(float).eps  # as test_vecmath
+    # IEEE 754 log of special values [SRC: IEEE 754-2008 9.2; C99 F.9.3.7]: NaN -> NaN, +inf -> +inf,
+    # +-0 -> -inf, negative -> NaN (the kernels once gave ln(NaN) = 710 and ln(inf) = 709.8)
+    special = np.array([np.nan, np.inf, 0.0, -0.0, -1.0, -np.inf, -5e-324])
+    got = np.empty_like(special)
+    fn(special, got)
+    assert np.isnan(got[0]) and got[1] == np.inf and got[2] == got[3] == -np.inf and np.all(np.isnan(got[4:]))
+    # ln_floored: the same on normal input, NaN and +inf passed through
+    lib = standalone.build(src.replace("ln(", "ln_floored("), "k", "i8(f8[::1], f8[::1])", tmp_path / "lnf.so")
+    fn = standalone.CKernel(ctypes.CDLL(str(lib)), "k", [1, 1])
+    normal = x[x >= 2.2250738585072014e-308]
+    out = np.empty_like(normal)
+    fn(normal, out)
+    assert np.max(np.abs(out - np.log(normal)) / np.maximum(np.abs(np.log(normal)), 1.0)) < 4 * np.finfo(float).eps
+    fn(special[:2].copy(), got[:2])
+    assert np.isnan(got[0]) and got[1] == np.inf
 
 
 def test_calls_from_several_threads_keep_their_own_arguments(tmp_path):
@@ -298,3 +440,33 @@ def k(a, out):
     for t in threads:
         t.join()
     assert k.uses_c and not calls and not errors
+
+
+def test_a_full_cache_leaves_no_temporary_file(tmp_path, monkeypatch):
+    # numba's kernel text is written to a temporary file and renamed: when that fails (a full disk), the
+    # temporary file goes too
+    import errno
+
+    from xo_fit.solver import kernels
+
+    def full(*a, **k):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(kernels.os, "replace", full)
+    with pytest.raises(OSError):
+        kernels._numba_kernel(tmp_path, SUM.replace("import numba", "import numba  # full disk"), "k")
+    assert not list(tmp_path.iterdir())
+
+
+def test_a_killed_build_s_leftovers_are_swept(tmp_path):
+    # a process killed mid-build leaves its temporary folder; the next build removes it once it is an hour old
+    old = tmp_path / ".xo_c_build_abc123"
+    old.mkdir()
+    (old / "kernel.c").write_text("int x;")
+    fresh = tmp_path / ".xo_c_build_def456"  # another process's build, now
+    fresh.mkdir()
+    t = os.stat(old).st_mtime - standalone.STALE_BUILD_S - 10
+    os.utime(old, (t, t))
+    calls, fallback = _fallback_probe()
+    _sum_call(standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback))
+    assert not old.exists() and fresh.exists() and not calls

@@ -110,9 +110,13 @@ def _numba_kernel(folder: Path, source: str, entry: str):
     path = source_path(folder, digest)
     if not path.exists() or path.read_text() != source:
         fd, tmp = tempfile.mkstemp(dir=folder, suffix=".tmp")
-        with os.fdopen(fd, "w") as fh:
-            fh.write(source)
-        os.replace(tmp, path)
+        try:
+            with os.fdopen(fd, "w") as fh:
+                fh.write(source)
+            os.replace(tmp, path)
+        except BaseException:
+            Path(tmp).unlink(missing_ok=True)  # a full disk leaves no temporary file behind
+            raise
     name = f"xo_fit_kernels.k_{digest}"
     spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)
@@ -124,3 +128,11 @@ def _numba_kernel(folder: Path, source: str, entry: str):
 def source_path(folder: Path, digest: str) -> Path:
     """Where a kernel's generated text lives in the cache."""
     return folder / f"xo_kernel_{digest}.py"
+
+
+def kernel_backend(fn) -> str | None:
+    """Which compiler's build ran the kernel ``fn`` (as returned by :func:`load_kernel`): ``"c"`` (a standalone
+    C library, :mod:`xo_fit.solver.standalone`) or ``"numba"`` (numba's, also where a C build failed and
+    numba took over); None for a kernel that becomes C on its first call and has not been called yet."""
+    backend = getattr(fn, "backend", "numba")
+    return backend if backend in ("c", "numba", None) else "numba"

@@ -12,14 +12,23 @@ The flags follow the kernel's own ``@numba.njit`` line: ``-ffp-contract=fast`` f
 ``reassoc`` the flags that let the compiler reorder sums (``-fassociative-math -fno-signed-zeros
 -fno-trapping-math``) so that reductions over the frequency loop vectorise; ``-fno-math-errno`` always
 (``sqrt`` then vectorises), ``-fno-tree-pre`` because gcc's partial redundancy elimination otherwise turns
-the impedance sum into a conditional reduction that it cannot vectorise. A library is keyed by the kernel's
-text, the translator's version, the compiler (path, size, time) and flags, and this CPU's feature flags
-(``-march=native`` code must not run on another CPU sharing the home folder).
+the impedance sum into a conditional reduction that it cannot vectorise.
+
+A library is keyed by the C text itself, the compiler's identity (what ``cc -v`` reports: version, target,
+configuration), the flags and this CPU's feature flags (``-march=native`` code must not run on another CPU
+sharing the home folder): a change in the translator or the compiler gives a new key by itself. The
+library's size and SHA-256 are in its file name (``xo_c_<key>-<size>-<sha>.so``) and are checked before it
+is loaded; a library that fails the check (truncated, damaged) is deleted and built again. Builds are
+written to a temporary folder beside the cache, flushed to disk (fsync) and renamed into place.
 
 One machine always takes the same path (a compiler present: C; none, or ``XO_FIT_STANDALONE=0``: numba),
 so a seed gives the same result run after run. The two paths agree to about 1e-12 relative, not bit for
-bit (the compilers contract and reorder differently). A build that fails leaves a note
-(``xo_c_<key>.failed``) so that runs in the next day go straight to numba.
+bit (the compilers contract and reorder differently). Whatever fails in translating, building or loading
+falls back to numba for that kernel and is logged (logger ``"xo_fit"``); :func:`LazyKernel.backend` says
+which ran. Only a compiler that rejects the C (a non-zero exit without a sign of a passing cause such as a
+full disk, a lack of memory or a signal) leaves a note, ``xo_c_<key>.failed``: the same C, flags and
+compiler would fail again, so later runs take numba for that kernel at once; another compiler or another
+C text has another key and is tried. Passing failures leave no note: the next run tries again.
 """
 
 from __future__ import annotations
@@ -28,6 +37,7 @@ import ast
 import ctypes
 import functools
 import hashlib
+import logging
 import os
 import re
 import shutil
@@ -40,8 +50,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .ctranslate import VERSION as TRANSLATOR_VERSION
 from .ctranslate import to_c
+
+_log = logging.getLogger("xo_fit")
 
 #: numba type signature of the fused cost kernel (xo_fit.solver.fused.FusedCost.source): values (B, P),
 #: r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2, tgt (R, F), ang (A, 2D, F), angw (A, 3), scratch (S, F),
@@ -55,8 +66,11 @@ SOLVE_SIGNATURE = "i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,:
 BASE_FLAGS = ("-O3", "-march=native", "-funroll-loops", "-fPIC", "-shared", "-fno-math-errno", "-fno-tree-pre",
               "-std=c99")
 REASSOC_FLAGS = ("-fassociative-math", "-fno-signed-zeros", "-fno-trapping-math")
-#: A failed build is tried again after this long (s): the failure may have been passing (a full disk).
-FAILED_RETRY_S = 86400.0
+#: Words in a compiler's messages that mark a failure as passing (no note is left; the next run tries again).
+TRANSIENT = re.compile(r"No space left|Killed|signal|Cannot allocate|out of memory|Resource temporarily|"
+                       r"Disk quota|Input/output error|Read-only file system", re.IGNORECASE)
+#: Build folders older than this (s) are a killed process's leftovers and are removed.
+STALE_BUILD_S = 3600.0
 #: Longest a build may take (s) before it counts as failed.
 BUILD_TIMEOUT_S = 120.0
 
@@ -116,16 +130,50 @@ def _cpu() -> str:
     return platform.machine() + platform.processor()
 
 
-def key(source: str, cc: str, fixed: dict[str, int] | None = None) -> str:
-    """The cache key of the C build of ``source`` with compiler ``cc`` and the ``fixed`` dimensions."""
-    st = os.stat(cc)
-    ident = (f"{TRANSLATOR_VERSION}\n{cc}\n{st.st_size}\n{st.st_mtime_ns}\n{flags(source)}\n{_cpu()}\n"
-             f"{sorted((fixed or {}).items())}\n{source}")
+@functools.lru_cache(maxsize=8)
+def compiler_identity(cc: str) -> str | None:
+    """What the compiler says of itself (``cc -v``: version with the distribution's patch level, target and
+    configuration; gcc prints only the first of ``-dumpfullversion -dumpmachine``), or None when it does not
+    answer. Run once per process and compiler (about 4 ms), in the C locale (the same words whatever the
+    user's language)."""
+    try:
+        r = subprocess.run([cc, "-v"], check=False, capture_output=True, text=True, timeout=30,
+                           env={**os.environ, "LC_ALL": "C"})
+    except (OSError, subprocess.SubprocessError):
+        return None
+    lines = [ln for ln in (r.stderr + r.stdout).splitlines() if ln.strip() and not ln.startswith("COLLECT_GCC=")]
+    if r.returncode != 0 or not any("version" in ln.lower() for ln in lines):
+        return None
+    return "\n".join(lines)
+
+
+def key(c_text: str, identity: str, flag_set: tuple[str, ...]) -> str:
+    """The cache key of a build: the C text, the compiler's identity, the flags and this CPU's features."""
+    ident = f"{identity}\n{flag_set}\n{_cpu()}\n{c_text}"
     return hashlib.sha256(ident.encode()).hexdigest()[:20]
 
 
-def library_path(folder: Path, k: str) -> Path:
-    return folder / f"xo_c_{k}.so"
+def library_name(k: str, data: bytes) -> str:
+    """The file name of the library ``data`` built under key ``k``: its size and SHA-256 prefix in it."""
+    return f"xo_c_{k}-{len(data)}-{hashlib.sha256(data).hexdigest()[:32]}.so"
+
+
+def verified_library(folder: Path, k: str) -> Path | None:
+    """The cached library of key ``k`` whose size and hash match its name; any that does not match is deleted
+    (a truncated or damaged file is never loaded: it would crash the process). None when there is none."""
+    for path in sorted(folder.glob(f"xo_c_{k}-*.so")):
+        try:
+            data = path.read_bytes()
+        except OSError:
+            continue
+        if library_name(k, data) == path.name:
+            return path
+        _log.warning("kernel library %s is damaged (%d bytes): removed, built again", path.name, len(data))
+        try:
+            path.unlink()
+        except OSError:
+            pass
+    return None
 
 
 def inner_dims(args: tuple, names: list[str], dims: list[int]) -> dict[str, int]:
@@ -209,8 +257,9 @@ class LazyKernel:
     """A generated kernel that becomes a C build on its first call: the arrays' inner dimensions are then
     known and are written into the C as constants (with every stride known, gcc sees that the rows of one
     array do not overlap and vectorises without run-time alias checks: the off-axis cost kernel ran 1.3x
-    slower with them). Calls with other inner dimensions get a build of their own. Where a build fails,
-    ``fallback()`` (numba) gives the kernel."""
+    slower with them). Calls with other inner dimensions get a build of their own. Where translating,
+    building or loading fails (any exception), ``fallback()`` (numba) gives the kernel and the cause is
+    logged. :attr:`backend` says which ran."""
 
     def __init__(self, folder: Path, source: str, entry: str, signature: str, cc: str, fallback) -> None:
         self.folder, self.source, self.entry, self.signature, self.cc = folder, source, entry, signature, cc
@@ -219,21 +268,50 @@ class LazyKernel:
         self.multi = [i for i, k in enumerate(self.dims) if k > 1]  # the arguments with inner dimensions
         self.fallback = fallback
         self.builds: dict[tuple, object] = {}
-        self.uses_c = False  # whether a call ran a C build
+        self.backends: dict[tuple, str] = {}  # per build: "c" or "numba"
+
+    @property
+    def uses_c(self) -> bool:
+        """Whether a call ran a C build."""
+        return "c" in self.backends.values()
+
+    @property
+    def backend(self) -> str | None:
+        """``"c"`` when every call so far ran a C build, ``"numba"`` when some ran numba's (a fallback), None
+        before the first call."""
+        if not self.backends:
+            return None
+        return "numba" if "numba" in self.backends.values() else "c"
 
     def __call__(self, *args) -> int:
         token = tuple([args[i].shape[1:] for i in self.multi])
         fn = self.builds.get(token)
         if fn is None:
-            fn = self.builds[token] = self._resolve(inner_dims(args, self.names, self.dims))
+            fn = self.builds[token] = self._resolve(token, inner_dims(args, self.names, self.dims))
         return fn(*args)
 
-    def _resolve(self, fixed: dict[str, int]):
-        fn = load_built(self.folder, self.source, self.entry, self.signature, self.cc, fixed)
-        if fn is None:
-            return self.fallback()
-        self.uses_c = True
-        return fn
+    def _resolve(self, token: tuple, fixed: dict[str, int]):
+        try:
+            fn = load_built(self.folder, self.source, self.entry, self.signature, self.cc, fixed)
+        except Exception as exc:  # whatever fails here, numba can still run the kernel  # noqa: BLE001
+            level = logging.INFO if isinstance(exc, KnownFailure) else logging.WARNING
+            _log.log(level, "kernel %s runs on numba: the C build failed (%s: %s)", self.entry,
+                     type(exc).__name__, exc)
+            fn = None
+        self.backends[token] = "numba" if fn is None else "c"
+        return self.fallback() if fn is None else fn
+
+
+class BuildError(RuntimeError):
+    """The compiler failed; ``transient`` when the cause may pass (a full disk, memory, a signal, a timeout)."""
+
+    def __init__(self, message: str, transient: bool) -> None:
+        super().__init__(message)
+        self.transient = transient
+
+
+class KnownFailure(RuntimeError):
+    """A failure note says that this compiler rejects this C text."""
 
 
 def load(folder: Path, source: str, entry: str, signature: str, fallback):
@@ -247,58 +325,117 @@ def load(folder: Path, source: str, entry: str, signature: str, fallback):
     return LazyKernel(folder, source, entry, signature, cc, fallback)
 
 
-def load_built(folder: Path, source: str, entry: str, signature: str, cc: str, fixed: dict[str, int]):
-    """The C build of ``entry`` with the ``fixed`` dimensions (by ``"name_dK"``), from the cache or built now;
-    None when the kernel is outside the translator's subset, the build failed (a note is left so that later
-    runs do not try again) or the library does not load."""
-    k = key(source, cc, fixed)
-    path = library_path(folder, k)
-    failed = folder / f"xo_c_{k}.failed"
-    if not path.exists():
+def load_built(folder: Path, source: str, entry: str, signature: str, cc: str, fixed: dict[str, int]) -> CKernel:
+    """The C build of ``entry`` with the ``fixed`` dimensions (by ``"name_dK"``): a verified library from the
+    cache, else built now. Raises ValueError (outside the translator's subset), KnownFailure (a note says the
+    compiler rejects this C), BuildError or OSError; a compiler's rejection leaves the note."""
+    identity = compiler_identity(cc)
+    if identity is None:
+        raise BuildError(f"{cc} -v gives no version: not used", transient=True)
+    names, dims = _parameters(source, entry), ndims(signature)
+    text = to_c(source, entry, list(zip(names, dims)), fixed)
+    fl = flags(source)
+    k = key(text, identity, fl)
+    path = verified_library(folder, k)
+    if path is None:
+        note = folder / f"xo_c_{k}.failed"
+        if note.exists():
+            raise KnownFailure(f"{note.name}: {_first_line(note)}")
         try:
-            if time.time() - failed.stat().st_mtime < FAILED_RETRY_S:
-                return None
-        except OSError:
-            pass  # no note: build
-        try:
-            build(source, entry, signature, path, cc, fixed)
-        except (OSError, ValueError, RuntimeError, subprocess.SubprocessError) as exc:
-            try:
-                failed.write_text(f"{type(exc).__name__}: {exc}\n")
-            except OSError:
-                pass
-            return None
-    try:
-        return open_built(path, source, entry, signature, fixed)
-    except (OSError, AttributeError):
-        return None  # a damaged library: numba does the work
+            path = _compile_into(folder, text, fl, cc, lambda data: folder / library_name(k, data))
+        except BuildError as exc:
+            if not exc.transient:
+                _write_note(note, f"{exc}\n")
+            raise
+    return open_built(path, source, entry, signature, fixed)
 
 
 def build(source: str, entry: str, signature: str, output: Path, cc: str | None = None,
           fixed: dict[str, int] | None = None) -> Path:
     """Translate ``entry`` of the generated ``source`` to C (``fixed`` dimensions as constants: the library
-    must then be called with arrays of exactly those) and build the shared library ``output`` (atomically).
-    Raises ValueError (outside the subset), RuntimeError (the compiler failed) or OSError."""
+    must then be called with arrays of exactly those) and build the shared library ``output`` (flushed to
+    disk, then renamed into place). Raises ValueError (outside the subset), BuildError (the compiler failed)
+    or OSError."""
     cc = cc or compiler()
     if cc is None:
-        raise RuntimeError("no C compiler (set CC, or install cc)")
+        raise BuildError("no C compiler (set CC, or install cc)", transient=False)
     names = _parameters(source, entry)
     dims = ndims(signature)
     if len(names) != len(dims):
         raise ValueError(f"the signature has {len(dims)} arguments, the kernel {len(names)}")
     text = to_c(source, entry, list(zip(names, dims)), fixed)
     output = Path(output)
-    with tempfile.TemporaryDirectory(dir=output.parent, prefix=".xo_c_build_") as tmp:
+    return _compile_into(output.parent, text, flags(source), cc, lambda data: output)
+
+
+def _compile_into(folder: Path, text: str, fl: tuple[str, ...], cc: str, name_of) -> Path:
+    """Compile C ``text`` in a temporary folder inside ``folder`` and move the library to ``name_of(bytes)``
+    after an fsync (then the folder's too): a crash leaves the old file or the whole new one, never a part.
+    The temporary folder goes whatever happens (and a killed process's old ones at the next build)."""
+    _sweep(folder)
+    with tempfile.TemporaryDirectory(dir=folder, prefix=".xo_c_build_") as tmp:
         c_file = Path(tmp) / "kernel.c"
         c_file.write_text(text)
         lib = Path(tmp) / "kernel.so"
-        r = subprocess.run([cc, *flags(source), "-o", str(lib), str(c_file), "-lm"], capture_output=True, text=True,
-                           timeout=BUILD_TIMEOUT_S)
+        try:
+            r = subprocess.run([cc, *fl, "-o", str(lib), str(c_file), "-lm"], check=False, capture_output=True,
+                               text=True, timeout=BUILD_TIMEOUT_S, env={**os.environ, "LC_ALL": "C"})
+        except subprocess.TimeoutExpired:
+            raise BuildError(f"{Path(cc).name} took over {BUILD_TIMEOUT_S:.0f} s", transient=True) from None
         if r.returncode != 0 or not lib.exists():
-            first = (r.stderr.strip().splitlines() or ["no output"])[0]
-            raise RuntimeError(f"{Path(cc).name} failed ({r.returncode}): {first}")
+            msg = r.stderr.strip().splitlines() or ["no output"]
+            first = next((m for m in msg if "error" in m), msg[0])
+            raise BuildError(f"{Path(cc).name} failed ({r.returncode}): {first}",
+                             transient=r.returncode < 0 or bool(TRANSIENT.search(r.stderr)))
+        with open(lib, "rb") as fh:
+            data = fh.read()
+            os.fsync(fh.fileno())
+        output = name_of(data)
         os.replace(lib, output)
+    _fsync_dir(output.parent)
     return output
+
+
+def _sweep(folder: Path) -> None:
+    """Remove build folders left by killed processes (older than STALE_BUILD_S)."""
+    now = time.time()
+    for old in folder.glob(".xo_c_build_*"):
+        try:
+            if now - old.stat().st_mtime > STALE_BUILD_S:
+                shutil.rmtree(old, ignore_errors=True)
+        except OSError:
+            pass
+
+
+def _fsync_dir(folder: Path) -> None:
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def _write_note(note: Path, text: str) -> None:
+    """Leave a failure note; a note that cannot be written whole is not left (a full disk)."""
+    try:
+        note.write_text(text)
+    except OSError:
+        try:
+            note.unlink()
+        except OSError:
+            pass
+
+
+def _first_line(path: Path) -> str:
+    try:
+        return (path.read_text().splitlines() or [""])[0]
+    except OSError:
+        return ""
 
 
 def _parameters(source: str, entry: str) -> list[str]:
