@@ -1,6 +1,6 @@
 """C text for a generated kernel: the restricted Python of the generated kernels, written out as C99.
 
-The kernels that :mod:`xo_fit.solver.codegen` and :mod:`xo_fit.solver.fused` generate use a small part of
+The kernels that :mod:`xo_fit.solver.codegen` and :mod:`xo_fit.model.fused` generate use a small part of
 Python: assignments of float expressions, ``for`` loops over ``range``, ``if``/``else`` and conditional
 expressions, comparisons, ``max``, ``abs``, ``sqrt``, ``float``, ``ln`` and ``ln_floored``
 (:mod:`xo_fit.solver.vecmath`) and indexing of C-contiguous float64 arrays. :func:`to_c` parses such a
@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import ast
 
-from ..constants import DB10
+from xo_fit.constants import DB10
 
 #: C text of vecmath.ln and vecmath.ln_floored: the same steps (exponent by bit cast, 2 atanh series) so that
 #: the loop vectorises; ln scales subnormals by 2^54 first and gives NaN, +inf, -inf and NaN for NaN, +inf,

@@ -15,7 +15,7 @@ import sys
 import tempfile
 from pathlib import Path
 
-from .vectors import prefer_wide_vectors
+from xo_fit.solver.vectors import prefer_wide_vectors
 
 #: Bump when the generated code changes meaning, so stale caches are not reused.
 KERNEL_VERSION = 2
@@ -93,7 +93,7 @@ def load_kernel(source: str, entry: str = "kernel", *, signature: str | None = N
         return _LOADED[text_key]
     folder = cache_dir()
     if signature is not None:
-        from .standalone import load
+        from xo_fit.solver.standalone import load
 
         fn = load(folder, source, entry, signature, fallback=lambda: _numba_kernel(folder, source, entry))
         if fn is not None:

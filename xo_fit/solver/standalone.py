@@ -50,11 +50,11 @@ from pathlib import Path
 
 import numpy as np
 
-from .ctranslate import to_c
+from xo_fit.solver.ctranslate import to_c
 
 _log = logging.getLogger("xo_fit")
 
-#: numba type signature of the fused cost kernel (xo_fit.solver.fused.FusedCost.source): values (B, P),
+#: numba type signature of the fused cost kernel (xo_fit.model.fused.FusedCost.source): values (B, P),
 #: r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2, tgt (R, F), ang (A, 2D, F), angw (A, 3), scratch (S, F),
 #: out (B, 10) -> the number of flagged candidates.
 COST_SIGNATURE = ("i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,::1], f8[:,:,::1], f8[:,::1], "

@@ -27,7 +27,7 @@ from llvmlite import ir
 from numba import types
 from numba.extending import intrinsic
 
-from ..constants import DB10
+from xo_fit.constants import DB10
 
 __all__ = ["DB10", "ln", "ln_floored"]  # what the generated kernels import (DB10 lives in constants)
 
