@@ -194,7 +194,7 @@ def test_an_off_axis_job_sums_at_every_angle(write_job):
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 20]\nmirror = true', "other angles"),
     ('[driver.t.angles]\nhorizontal = "t-h.txt"\nhorizontal_angles = [10, 20, 30]', "{angle}"),
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 370]', "whole degrees"),
-    ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [180, -180]', "same position"),
+    ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 20, 30, 20]', "same position"),
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"', "together"),
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 20, 30]\nmirror = true\nfoo = 1',
      "unknown key 'foo'"),
@@ -203,6 +203,26 @@ def test_bad_angle_tables_are_one_line_errors(write_job, cli, t_angles, message)
     job = _job(write_job, t_angles=t_angles)
     code, _, err = cli("check", job)
     assert code == 2 and message in err and len(err.strip().splitlines()) == 1, err
+
+
+@pytest.mark.parametrize("rear_db, warned", [(81.05, False), (81.3, True)])
+def test_minus_180_and_180_are_one_position_read_from_the_first_file(write_job, rear_db, warned):
+    """A list holding both -180 and 180 (as the job format's own example does) is accepted: one position, the
+    rear, whose first listed file is used once [SRC: the job format, corrections to version 2]; a second file
+    differing by more than 0.1 dB somewhere gets a one-line warning naming both files."""
+    angles = (10, 20, 30, 180, -180)
+    job = _job(write_job, angles=angles,
+               files=_files(angles, level=lambda a: rear_db if a == -180 else 90.0 - abs(a) / 20))
+    s = load_system(load_job(job))
+    assert s.positions.count(("h", 180)) == 1 and ("h", -180) not in s.positions
+    rear = s.positions.index(("h", 180))
+    for d in s.drivers:  # the h180 file (81 dB), listed first, not the h-180 one
+        np.testing.assert_allclose(20 * np.log10(np.abs(d.angle_responses[rear]) / 20e-6), 81.0, atol=1e-3)
+    twins = [w for w in s.warnings if "same position" in w]
+    assert len(twins) == (2 if warned else 0), s.warnings
+    if warned:
+        assert "h-180" in twins[0] and "w-h-180.txt" in twins[0] and "w-h180.txt" in twins[0]
+        assert "0.30 dB" in twins[0] and "\n" not in twins[0]  # 81.3 against 81 dB
 
 
 def test_a_bad_angle_file_names_the_driver_the_angle_and_the_file(write_job, cli, tmp_path):

@@ -186,6 +186,20 @@ class AngleSpec:
                     out[pos] = (Path(self.horizontal.replace("{angle}", str(a))), a)
         return out
 
+    def twins(self) -> list[tuple[tuple[str, int], Path, str]]:
+        """The files listed for a position that :meth:`files` already takes from another file (-180 and 180, or
+        the rear on both orbits): (position, file, its name as "h-180"/"v180"), to be checked against it."""
+        used = self.files()
+        out = []
+        for orbit, pattern, angles in (("h", self.horizontal, self.horizontal_angles),
+                                       ("v", self.vertical, self.vertical_angles)):
+            for a in angles:
+                pos = position(orbit, a)
+                path = Path(pattern.replace("{angle}", str(a))) if pattern is not None else None
+                if path is not None and pos in used and used[pos][0] != path:
+                    out.append((pos, path, f"{orbit}{a}"))
+        return out
+
 
 def position(orbit: str, angle: int) -> tuple[str, int]:
     """The canonical name of a measuring position: angles in (-180, 180]; the axis is ("h", 0) and the point
