@@ -39,7 +39,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "target": {"level": "auto", "curve": "flat", "reference": "on_axis"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0,
-             "early_reflections": 0.0, "sound_power": 0.0},
+             "early_reflections": 0.0, "sound_power": 0.0, "preference": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
@@ -298,6 +298,7 @@ class CostSpec:
     stress: float = DEFAULTS["cost"]["stress"]
     early_reflections: float = DEFAULTS["cost"]["early_reflections"]
     sound_power: float = DEFAULTS["cost"]["sound_power"]
+    preference: float = DEFAULTS["cost"]["preference"]
 
 
 @dataclass(frozen=True)
@@ -409,7 +410,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",
-    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power",
+    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power preference",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
     "snap": "series inventory combine top_up",

@@ -236,6 +236,7 @@ def read_cost(r: Reader) -> CostSpec:
         stress=r.number("stress", d["stress"], minimum=0.0, maximum=MAX_WEIGHT),
         early_reflections=r.number("early_reflections", d["early_reflections"], minimum=0.0, maximum=MAX_WEIGHT),
         sound_power=r.number("sound_power", d["sound_power"], minimum=0.0, maximum=MAX_WEIGHT),
+        preference=r.number("preference", d["preference"], minimum=0.0, maximum=MAX_WEIGHT),
     )
     r.done()
     return spec

@@ -18,6 +18,7 @@ import numpy as np
 
 from xo_fit.constants import P_REF, SPL_FLOOR_DB
 from xo_fit.model.cta2034 import CTA_POSITIONS, IN_ROOM_WEIGHTS, Position, sound_power_weights
+from xo_fit.model.preference import Preference, PreferencePlan, evaluate
 
 
 def driver_factors(response: np.ndarray, reference_voltage: np.ndarray, offset: np.ndarray,
@@ -152,3 +153,29 @@ def power_db(p2: np.ndarray) -> np.ndarray:
     """Level in dB SPL of a mean squared pressure (Pa^2), floored at SPL_FLOOR_DB."""
     with np.errstate(divide="ignore"):
         return np.maximum(10.0 * np.log10(np.asarray(p2) / P_REF**2), SPL_FLOOR_DB)
+
+
+def preference_of(plan: PreferencePlan, curves: dict[str, np.ndarray], *, bound_lfx: bool = False) -> Preference:
+    """S. E. Olive's predicted preference (:mod:`xo_fit.model.preference`) from the curves of :func:`directivity`.
+
+    Parameters
+    ----------
+    plan:
+        :func:`xo_fit.model.preference.make_plan` of the curves' grid.
+    curves:
+        Mean squared pressure, Pa^2 (..., F) each, by name: ``on_axis`` and those of ``listening_window``,
+        ``early_reflections``, ``sound_power`` whose positions are measured (a curve not given makes the figures
+        that need it null, with the reason). Levels are taken with :func:`power_db` (floored).
+    bound_lfx:
+        As :func:`xo_fit.model.preference.evaluate`: a bound instead of NaN where the sound power never falls
+        6 dB (for a cost).
+
+    Returns
+    -------
+    Preference
+        The six figures, arrays of the batch shape (...), with a reason for each null.
+    """
+    db = {k: power_db(curves[k]) if k in curves else None
+          for k in ("on_axis", "listening_window", "early_reflections", "sound_power")}
+    return evaluate(plan, db["on_axis"], db["listening_window"], db["early_reflections"], db["sound_power"],
+                    bound_lfx=bound_lfx)

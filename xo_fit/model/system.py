@@ -209,6 +209,27 @@ def _check_curves(job: Job, positions: tuple) -> None:
                            path=job.path, key=key)
 
 
+def _check_preference(job: Job, positions: tuple) -> None:
+    """[cost] preference needs the score for every candidate: all 70 positions and a grid the model can use."""
+    if job.cost.preference <= 0:
+        return
+    from xo_fit.model.preference import make_plan
+
+    key = "[cost] preference"
+    if not positions:
+        raise JobError("the predicted preference needs off-axis responses: give every driver a [driver.NAME.angles] "
+                       "table with the 70 positions of ANSI/CTA-2034-A", path=job.path, key=key)
+    missing = acoustics.missing_positions(positions, "sound_power")
+    if missing:
+        names = ", ".join(f"{o}{a}" for o, a in missing[:8]) + (" ..." if len(missing) > 8 else "")
+        raise JobError(f"the predicted preference needs the sound power, whose positions the drivers' angles lack: "
+                       f"{names}", path=job.path, key=key)
+    reasons = make_plan(job.grid.frequencies).reasons
+    if reasons:
+        name, why = next(iter(reasons.items()))
+        raise JobError(f"the predicted preference cannot be had on this grid: {name}: {why}", path=job.path, key=key)
+
+
 def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
     resp_curve = imp_curve = splice = None
     if isinstance(spec.response, FlatResponse):
@@ -289,6 +310,7 @@ def load_system(job: Job) -> System:
     warnings: list[str] = list(job.warnings)
     positions = _positions(job)
     _check_curves(job, positions)
+    _check_preference(job, positions)
     drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
     if positions:
         from dataclasses import replace

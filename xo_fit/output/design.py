@@ -267,6 +267,8 @@ class Design:
                      "parts": parts, "cost": s.cost, "cost_terms": dict(s.terms), "metrics": metrics}
         if s.level_db is not None:
             doc["level_db"] = s.level_db
+        if s.preference is not None:
+            doc["preference"] = s.preference
         doc["findings"] = self.findings
         if self.breakdown is not None:
             doc["error_breakdown"] = self.breakdown
