@@ -149,7 +149,7 @@ def test_a_fit_with_the_preference_term_scores_higher(tmp_path):
         job = write_scenario(tmp_path / label)
         _edit(job, {"[cost]\n": f"[cost]\n{extra}"})
         design = xo_fit.fit(job, budget=2000, seed=1)
-        scores[label] = design.scored.preference["score"]
+        scores[label] = design.preference["score"]
         rms[label] = design.metrics["rms_error_db"]
         assert ("preference" in design.terms) == bool(extra)
     assert scores["with"] > scores["without"] + 0.05, f"scores without / with the term: {scores}"

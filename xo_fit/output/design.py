@@ -87,6 +87,11 @@ class Design:
         return dict(self.scored.metrics)
 
     @property
+    def preference(self) -> dict | None:
+        """An off-axis job's predicted preference (Olive 2004) as result.json holds it, else None."""
+        return self.scored.preference
+
+    @property
     def limits(self) -> dict[str, str]:
         """Free parts whose value rests on a bound of their range (within 1 % in log distance): name -> min/max."""
         out = {}
