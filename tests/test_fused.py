@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from xo_fit.model.cost import TERMS
-from xo_fit.model.fused import LEVEL
+from xo_fit.model.fused import LEVEL, PREFERENCE
 from xo_fit.demo import write_scenario
 from xo_fit.search.fitting import cost_model
 from xo_fit.model.fused import FusedCost
@@ -28,6 +28,10 @@ def check(system, n=48, seed=0):
     for i, t in enumerate(TERMS, start=1):
         np.testing.assert_allclose(raw[:, i], ev.terms.get(t, 0.0), rtol=1e-9, atol=1e-12)
     np.testing.assert_allclose(raw[:, LEVEL], ev.level_db, rtol=1e-12)
+    if "preference" in ev.terms:
+        np.testing.assert_allclose(raw[:, PREFERENCE], ev.terms["preference"], rtol=1e-9, atol=1e-12)
+    else:
+        assert raw.shape[1] == PREFERENCE
     return raw, ev
 
 
@@ -108,3 +112,36 @@ def test_the_stress_term_in_the_fused_kernel_equals_the_reference(tmp_path):
     path.write_text(text)
     raw, ev = check(load_system(load_job(path)))
     assert np.any(raw[:, 5] > 0) and np.any(raw[:, 5] == 0)  # some random designs break a rating, some do not
+
+
+@pytest.mark.parametrize("edit", [
+    {},  # the demo: the listening window as reference, a band inside the preference's span
+    {'reference = "listening_window"': 'reference = "on_axis"', "[cost]\n": "[cost]\nstress = 1.0\nsound_power = 0.5\n",
+     "band = [150, 16000]": "band = [400, 6000]"},  # the solve's loop wider than the band: band sums masked
+    {"f_min = 40": "f_min = 100"},  # the sound power not 6 dB down on the grid: LFX at its bound
+])
+def test_the_preference_term_in_the_fused_kernel_equals_the_reference(tmp_path, edit):
+    """[cost] preference: Olive's score of every candidate, computed in the generated kernel (built in C where
+    there is a compiler: its text is in the translator's subset) as xo_fit.model.preference computes it, to
+    1e-9 [CP: the reference implementation, itself checked against hand computations in test_preference]; the
+    other terms unchanged by the wider frequency loop."""
+    from xo_fit.model.acoustics import preference_of
+    from xo_fit.solver import standalone
+
+    job = write_scenario(tmp_path)
+    text = job.read_text().replace("[cost]\n", "[cost]\npreference = 3.0\n", 1)
+    for old, new in edit.items():
+        assert old in text
+        text = text.replace(old, new, 1)
+    job.write_text(text)
+    system = load_system(load_job(job))
+    raw, ev = check(system)
+    assert np.all(raw[:, PREFERENCE] > 0) and np.ptp(raw[:, PREFERENCE]) > 0.01
+    cm, _ = cost_model(system)
+    if standalone.enabled() and standalone.compiler():
+        assert FusedCost(cm).kernel().uses_c  # the kernel check() ran: one text, one build
+    if "f_min = 40" in edit:
+        space = make_space(system.job)
+        values = space.values(np.random.default_rng(0).random((48, space.dims)))
+        lfx = preference_of(cm.preference_plan, cm.all_curves(system.simulate(values)), bound_lfx=False).lfx
+        assert np.any(np.isnan(lfx))  # some candidates take the bound

@@ -1,12 +1,10 @@
 """Off-axis responses and the ANSI/CTA-2034-A curves.
 
-Outside references: the sphere's zone areas (Archimedes' hat-box theorem: a zone of height h on a sphere of
-radius r has area 2 pi r h); the rigid circular piston in an infinite baffle (Kinsler, Frey, Coppens, Sanders,
+Outside references: the sound-power weights, the listening window and the early reflections' groups of
+ANSI/CTA-2034-A (2015), typed in below from the standard; the rigid circular piston in an infinite baffle (Kinsler, Frey, Coppens, Sanders,
 *Fundamentals of Acoustics*, 4th ed., ch. 7; L. Beranek, *Acoustics*): far-field directivity 2 J1(x)/x with
 x = ka sin t, and on-axis directivity factor Q = (ka)^2 / (1 - J1(2ka)/(ka)), so DI = 10 log10 Q tends to
-3.01 dB (a half-space radiator) at small ka; an omnidirectional source has DI 0. The curve definitions are
-those of ANSI/CTA-2034-A (2015) as the job format states them (from memory; to be confirmed against the
-standard's text).
+3.01 dB (a half-space radiator) at small ka; an omnidirectional source has DI 0.
 """
 
 from __future__ import annotations
@@ -18,8 +16,7 @@ import numpy as np
 import pytest
 from scipy.special import j1
 
-from xo_fit.model.acoustics import (CTA_POSITIONS, EARLY_REFLECTION_GROUPS, LISTENING_WINDOW, curve_weights,
-                              directivity, sound_power_weights)
+from xo_fit.model.acoustics import CTA_POSITIONS, curve_weights, directivity
 from xo_fit.job.reader import load_job
 from xo_fit.job.model import position
 from xo_fit.model.system import load_system
@@ -27,17 +24,45 @@ from xo_fit.model.system import load_system
 from conftest import flat_curve
 
 
-def test_the_seventy_positions_and_their_shares_of_the_sphere():
-    w = sound_power_weights()
-    assert len(CTA_POSITIONS) == len(set(CTA_POSITIONS)) == len(w) == 70
-    assert sum(w.values()) == pytest.approx(1.0, abs=1e-12)
-    # the axis stands for the cap 0..5 deg: 2 pi (1 - cos 5 deg) / 4 pi (hat-box theorem)
-    assert w[("h", 0)] == pytest.approx((1 - math.cos(math.radians(5))) / 2, rel=1e-12)
-    # four points at 90 deg share the zone 85..95 deg: 2 pi (2 sin 5 deg) / 4 pi / 4
-    assert w[("h", 90)] == w[("v", -90)] == pytest.approx(math.sin(math.radians(5)) / 4, rel=1e-12)
-    # the front half (0..85 deg caps and zones) and half of the 90 deg zone: exactly one half of the sphere
-    front = sum(v for p, v in w.items() if abs(p[1]) < 90) + sum(v for p, v in w.items() if abs(p[1]) == 90) / 2
-    assert front == pytest.approx(0.5, abs=1e-12)
+#: The standard's sound-power weight of a position by its polar angle from the axis, degrees (ANSI/CTA-2034-A,
+#: its table of sound-power weights; 100..180 mirror 80..0), typed in from the table [SRC].
+CTA_TABLE = {0: 0.000604486, 10: 0.004730189, 20: 0.008955027, 30: 0.012387354, 40: 0.014989611,
+             50: 0.016868154, 60: 0.018165962, 70: 0.019006744, 80: 0.019477787, 90: 0.019629373}
+#: The listening window and the early reflections' groups as ANSI/CTA-2034-A lists them [SRC]; the rear wall is
+#: the whole rear half of the horizontal orbit (the standard's text is ambiguous; its author's public reading).
+CTA_LISTENING_WINDOW = ["h0", "h10", "h-10", "h20", "h-20", "h30", "h-30", "v10", "v-10"]
+CTA_GROUPS = {
+    "floor": ["v-20", "v-30", "v-40"],
+    "ceiling": ["v40", "v50", "v60"],
+    "front_wall": ["h0", "h10", "h-10", "h20", "h-20", "h30", "h-30"],
+    "side_walls": ["h40", "h-40", "h50", "h-50", "h60", "h-60", "h70", "h-70", "h80", "h-80"],
+    "rear_wall": ["h90", "h-90", "h100", "h-100", "h110", "h-110", "h120", "h-120", "h130", "h-130", "h140",
+                  "h-140", "h150", "h-150", "h160", "h-160", "h170", "h-170", "h180"],
+}
+
+
+def _pos(name):
+    return (name[0], int(name[1:]))
+
+
+def test_the_seventy_positions_carry_the_standards_sound_power_weights():
+    """The sound power the package sums (curve_weights over the 70 positions) weighs each position by the
+    standard's table divided by the table's total over the 70 positions [SRC: ANSI/CTA-2034-A]."""
+    assert len(CTA_POSITIONS) == len(set(CTA_POSITIONS)) == 70
+    assert set(CTA_POSITIONS) == ({("h", a) for a in range(-170, 181, 10)}
+                                  | {("v", a) for a in range(-170, 171, 10) if a != 0})
+    sp = curve_weights(CTA_POSITIONS)["sound_power"]
+
+    def table(t):  # mirrored about 90 degrees [SRC]
+        return CTA_TABLE[min(t, 180 - t)]
+
+    # the axis and the rear once, four points at every other polar angle [DER]
+    total = 2 * CTA_TABLE[0] + 4 * sum(table(t) for t in range(10, 171, 10))
+    assert total == pytest.approx(0.996373088, abs=1e-9)
+    for i, (_, a) in enumerate(CTA_POSITIONS):
+        assert sp[i] == pytest.approx(table(abs(a)) / total, rel=1e-12), CTA_POSITIONS[i]
+    assert sp.sum() == pytest.approx(1.0, abs=1e-12)
+    assert sp[CTA_POSITIONS.index(("h", 0))] == pytest.approx(0.00060669, abs=5e-9)  # on axis [DER]
 
 
 def _pressures(fn):
@@ -52,38 +77,42 @@ def test_an_omnidirectional_source_has_every_curve_equal():
         assert curves[name][0, 0] == pytest.approx(1.0, rel=1e-12), name
 
 
-@pytest.mark.parametrize("ka", [0.05, 0.5, 1.0, 2.0])
+@pytest.mark.parametrize("ka", [0.05, 0.5, 1.0, 1.5, 2.0])
 def test_the_sound_power_of_a_baffled_piston_gives_its_textbook_directivity_index(ka):
     """On-axis level over sound power of a piston in an infinite baffle (silent behind it) against
-    Q = (ka)^2 / (1 - J1(2ka)/ka) (Kinsler et al.): within 0.35 dB on the standard's 10 degree sampling
-    (a tolerance of this project: the sampling's own error at these ka)."""
+    Q = (ka)^2 / (1 - J1(2ka)/ka) (Kinsler et al.) [SRC], the 90 degree points measured as they are (the
+    piston's own value there). The standard's 10 degree sampling and weights put the DI under the textbook's:
+    measured 0.33 dB at small ka (2.68 dB against 3.01 dB) growing to 0.355 dB at ka = 2; the tolerance holds
+    that measured figure [MEM], and the small-ka figure is checked on its own."""
 
     def piston(t):
-        if t > math.pi / 2:
+        if t > math.pi / 2 + 1e-12:
             return 0.0
         x = ka * math.sin(t)
         return 1.0 if x < 1e-9 else 2 * j1(x) / x
 
-    # the 90 degree points stand for a zone half in front: count half of their pressure squared
-    p2 = _pressures(piston)
-    for i, (_, a) in enumerate(CTA_POSITIONS):
-        if abs(a) == 90:
-            p2[0, i, 0] /= 2
-    sp = directivity(p2, curve_weights(CTA_POSITIONS))["sound_power"][0, 0]
+    sp = directivity(_pressures(piston), curve_weights(CTA_POSITIONS))["sound_power"][0, 0]
     q = ka**2 / (1 - j1(2 * ka) / ka)
-    assert 10 * math.log10(1.0 / sp) == pytest.approx(10 * math.log10(q), abs=0.35)
+    di = 10 * math.log10(1.0 / sp)
+    assert di == pytest.approx(10 * math.log10(q), abs=0.36)
+    assert di < 10 * math.log10(q)  # the 10 degree sampling misses the lobe's shoulders
+    if ka < 0.1:  # nearly a half-space radiator: 1 in front up to 90 deg, 0 behind; summed from the table [DER]
+        front = CTA_TABLE[0] + 4 * sum(CTA_TABLE[t] for t in range(10, 91, 10))
+        total = 2 * CTA_TABLE[0] + 8 * sum(CTA_TABLE[t] for t in range(10, 81, 10)) + 4 * CTA_TABLE[90]
+        assert di == pytest.approx(10 * math.log10(total / front), abs=0.002)  # 2.68 dB, not 3.01
 
 
 def test_listening_window_and_early_reflections_are_averages_of_their_groups():
     """A source with a different level at every position: the listening window is the plain mean of its nine
-    points; the early reflections the mean of the five group means (each group averaged first)."""
+    points; the early reflections the mean of the five group means (each group averaged first); the in-room
+    response 0.12 LW + 0.44 ER + 0.44 SP. Groups and mix as ANSI/CTA-2034-A gives them (literals above) [SRC]."""
     positions = CTA_POSITIONS
     rng = np.random.default_rng(3)
     p2 = rng.uniform(0.1, 2.0, (1, len(positions), 1))
     curves = directivity(p2, curve_weights(positions))
     value = {p: p2[0, i, 0] for i, p in enumerate(positions)}
-    assert curves["listening_window"][0, 0] == pytest.approx(np.mean([value[p] for p in LISTENING_WINDOW]))
-    groups = [np.mean([value[p] for p in g]) for g in EARLY_REFLECTION_GROUPS.values()]
+    assert curves["listening_window"][0, 0] == pytest.approx(np.mean([value[_pos(p)] for p in CTA_LISTENING_WINDOW]))
+    groups = [np.mean([value[_pos(p)] for p in g]) for g in CTA_GROUPS.values()]
     assert curves["early_reflections"][0, 0] == pytest.approx(np.mean(groups))
     lw, er, sp = (curves[k][0, 0] for k in ("listening_window", "early_reflections", "sound_power"))
     assert curves["estimated_in_room"][0, 0] == pytest.approx(0.12 * lw + 0.44 * er + 0.44 * sp)
@@ -165,7 +194,7 @@ def test_an_off_axis_job_sums_at_every_angle(write_job):
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 20]\nmirror = true', "other angles"),
     ('[driver.t.angles]\nhorizontal = "t-h.txt"\nhorizontal_angles = [10, 20, 30]', "{angle}"),
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 370]', "whole degrees"),
-    ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [180, -180]', "same position"),
+    ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 20, 30, 20]', "same position"),
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"', "together"),
     ('[driver.t.angles]\nhorizontal = "t-h{angle}.txt"\nhorizontal_angles = [10, 20, 30]\nmirror = true\nfoo = 1',
      "unknown key 'foo'"),
@@ -174,6 +203,26 @@ def test_bad_angle_tables_are_one_line_errors(write_job, cli, t_angles, message)
     job = _job(write_job, t_angles=t_angles)
     code, _, err = cli("check", job)
     assert code == 2 and message in err and len(err.strip().splitlines()) == 1, err
+
+
+@pytest.mark.parametrize("rear_db, warned", [(81.05, False), (81.3, True)])
+def test_minus_180_and_180_are_one_position_read_from_the_first_file(write_job, rear_db, warned):
+    """A list holding both -180 and 180 (as the job format's own example does) is accepted: one position, the
+    rear, whose first listed file is used once [SRC: the job format, corrections to version 2]; a second file
+    differing by more than 0.1 dB somewhere gets a one-line warning naming both files."""
+    angles = (10, 20, 30, 180, -180)
+    job = _job(write_job, angles=angles,
+               files=_files(angles, level=lambda a: rear_db if a == -180 else 90.0 - abs(a) / 20))
+    s = load_system(load_job(job))
+    assert s.positions.count(("h", 180)) == 1 and ("h", -180) not in s.positions
+    rear = s.positions.index(("h", 180))
+    for d in s.drivers:  # the h180 file (81 dB), listed first, not the h-180 one
+        np.testing.assert_allclose(20 * np.log10(np.abs(d.angle_responses[rear]) / 20e-6), 81.0, atol=1e-3)
+    twins = [w for w in s.warnings if "same position" in w]
+    assert len(twins) == (2 if warned else 0), s.warnings
+    if warned:
+        assert "h-180" in twins[0] and "w-h-180.txt" in twins[0] and "w-h180.txt" in twins[0]
+        assert "0.30 dB" in twins[0] and "\n" not in twins[0]  # 81.3 against 81 dB
 
 
 def test_a_bad_angle_file_names_the_driver_the_angle_and_the_file(write_job, cli, tmp_path):

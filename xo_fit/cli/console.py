@@ -79,6 +79,22 @@ def print_score(s, start_cost: float | None = None) -> None:
         di = (f"; sound power DI {m['sound_power_di_min_db']:.1f} to {m['sound_power_di_max_db']:.1f} dB over the band"
               if "sound_power_di_min_db" in m else "")
         say(f"  off axis: listening window {m['listening_window_rms_db']:.2f} dB rms from the target{di}")
+    if getattr(s, "preference", None):
+        say("  " + preference_text(s.preference))
+
+
+def preference_text(p: dict) -> str:
+    """One line of a design's predicted preference (result.json's ``preference``): the score and its four parts."""
+    def fig(name, fmt):
+        return "-" if p.get(name) is None else format(p[name], fmt)
+
+    lfx = "-" if p.get("lfx") is None else f"{p['lfx']:.3f} ({10 ** p['lfx']:.0f} Hz)"
+    why = p.get("reasons", {})
+    first = next(iter(why.items()), None)
+    note = f" [{first[0]}: {first[1]}]" if first else ""
+    return (f"predicted preference (Olive): score {fig('score', '.2f')}, with an ideal subwoofer "
+            f"{fig('score_with_sub', '.2f')}; NBD on axis {fig('nbd_on', '.3f')} dB, NBD in room "
+            f"{fig('nbd_pir', '.3f')} dB, LFX {lfx}, SM in room {fig('sm_pir', '.3f')}{note}")
 
 
 def print_findings(design) -> None:

@@ -17,7 +17,7 @@ from xo_fit.cli.prepare import check, driver
 @app.command()
 def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scenario and its results.")) -> None:
     """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design,
-    fit, snap the fit to purchasable values, spread the snapped design over 5 % part tolerances, and write the
+    fit (with the predicted preference score of both), snap the fit to purchasable values, spread the snapped design over 5 % part tolerances, and write the
     report (DIR/report/report.html)."""
     from xo_fit.demo import write_scenario
 
@@ -33,6 +33,11 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
     fit(job=job, out=out / "fit", budget=None, seed=None, optimizer=None, time_limit=None, workers=1, no_plots=False)
     import json
 
+    scores = [(json.loads((out / d / "result.json").read_text()).get("preference") or {}).get("score")
+              for d in ("hand-design", "fit")]
+    if all(x is not None for x in scores):
+        say(f"  predicted preference (Olive 2004, from the ANSI/CTA-2034-A curves): hand design {scores[0]:.2f}, "
+            f"fit {scores[1]:.2f}; `preference = W` in the job's [cost] makes the fit raise it")
     over = [(name, e) for name, e in (json.loads((out / "fit" / "result.json").read_text()).get("stress") or {}).items()
             if e.get("within_rating") is False]
     for name, e in over:

@@ -39,7 +39,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "target": {"level": "auto", "curve": "flat", "reference": "on_axis"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0,
-             "early_reflections": 0.0, "sound_power": 0.0},
+             "early_reflections": 0.0, "sound_power": 0.0, "preference": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
@@ -186,6 +186,20 @@ class AngleSpec:
                     out[pos] = (Path(self.horizontal.replace("{angle}", str(a))), a)
         return out
 
+    def twins(self) -> list[tuple[tuple[str, int], Path, str]]:
+        """The files listed for a position that :meth:`files` already takes from another file (-180 and 180, or
+        the rear on both orbits): (position, file, its name as "h-180"/"v180"), to be checked against it."""
+        used = self.files()
+        out = []
+        for orbit, pattern, angles in (("h", self.horizontal, self.horizontal_angles),
+                                       ("v", self.vertical, self.vertical_angles)):
+            for a in angles:
+                pos = position(orbit, a)
+                path = Path(pattern.replace("{angle}", str(a))) if pattern is not None else None
+                if path is not None and pos in used and used[pos][0] != path:
+                    out.append((pos, path, f"{orbit}{a}"))
+        return out
+
 
 def position(orbit: str, angle: int) -> tuple[str, int]:
     """The canonical name of a measuring position: angles in (-180, 180]; the axis is ("h", 0) and the point
@@ -284,6 +298,7 @@ class CostSpec:
     stress: float = DEFAULTS["cost"]["stress"]
     early_reflections: float = DEFAULTS["cost"]["early_reflections"]
     sound_power: float = DEFAULTS["cost"]["sound_power"]
+    preference: float = DEFAULTS["cost"]["preference"]
 
 
 @dataclass(frozen=True)
@@ -395,7 +410,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",
-    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power",
+    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power preference",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
     "snap": "series inventory combine top_up",

@@ -153,7 +153,7 @@ def read_angles(r: Reader, measured: bool) -> AngleSpec:
         seen: dict = {}
         for a in raw:
             pos = position(key[0], a)
-            if pos in seen:
+            if pos in seen and {a, seen[pos]} != {180, -180}:  # -180 and 180: one position, its file used once
                 raise r.error(key, f"{a} and {seen[pos]} deg are the same position; list it once")
             seen[pos] = a
         lists[key] = tuple(raw)
@@ -236,6 +236,7 @@ def read_cost(r: Reader) -> CostSpec:
         stress=r.number("stress", d["stress"], minimum=0.0, maximum=MAX_WEIGHT),
         early_reflections=r.number("early_reflections", d["early_reflections"], minimum=0.0, maximum=MAX_WEIGHT),
         sound_power=r.number("sound_power", d["sound_power"], minimum=0.0, maximum=MAX_WEIGHT),
+        preference=r.number("preference", d["preference"], minimum=0.0, maximum=MAX_WEIGHT),
     )
     r.done()
     return spec

@@ -14,11 +14,11 @@ edges (:func:`spl_db`).
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from xo_fit.constants import P_REF, SPL_FLOOR_DB
+from xo_fit.model.cta2034 import CTA_POSITIONS, IN_ROOM_WEIGHTS, Position, sound_power_weights
+from xo_fit.model.preference import Preference, PreferencePlan, evaluate
 
 
 def driver_factors(response: np.ndarray, reference_voltage: np.ndarray, offset: np.ndarray,
@@ -58,21 +58,16 @@ def phase_deg(x: np.ndarray) -> np.ndarray:
 
 # ----------------------------------------------------------------------------- off axis: ANSI/CTA-2034-A
 
-#: A measuring position: orbit ("h" horizontal, "v" vertical) and angle in degrees, (-180, 180]; the axis is
-#: ("h", 0) and the point behind ("h", 180) (see :func:`xo_fit.job.model.position`).
-Position = tuple[str, int]
-
-_STEP = 10
-#: The 70 positions of ANSI/CTA-2034-A (2015): both orbits in 10 degree steps, axis and rear counted once.
-CTA_POSITIONS: tuple[Position, ...] = tuple(
-    [("h", a) for a in range(-170, 181, _STEP)] + [("v", a) for a in range(-170, 171, _STEP) if a != 0])
+# A measuring position, the 70 positions, their sound-power weights (the standard's table) and the in-room mix
+# have one definition, in xo_fit.model.cta2034 (imported above; the names of a position: xo_fit.job.model.position).
 
 #: The listening window: h0, h+-10, h+-20, h+-30, v+-10 (ANSI/CTA-2034-A; from memory, to be confirmed
 #: against the standard's text).
 LISTENING_WINDOW: tuple[Position, ...] = (("h", 0), ("h", 10), ("h", -10), ("h", 20), ("h", -20), ("h", 30),
                                           ("h", -30), ("v", 10), ("v", -10))
-#: The early reflections' five groups (ANSI/CTA-2034-A; from memory, to be confirmed): each group is averaged
-#: first, then the five averages.
+#: The early reflections' five groups (ANSI/CTA-2034-A): each group is averaged first, then the five averages.
+#: The rear wall is the whole rear half of the horizontal orbit, h+-90 .. h180: the standard's text is ambiguous
+#: there, and this is the reading its author gave in public (docs/directivity.md).
 EARLY_REFLECTION_GROUPS: dict[str, tuple[Position, ...]] = {
     "floor": (("v", -20), ("v", -30), ("v", -40)),
     "ceiling": (("v", 40), ("v", 50), ("v", 60)),
@@ -80,33 +75,8 @@ EARLY_REFLECTION_GROUPS: dict[str, tuple[Position, ...]] = {
     "side_walls": tuple(("h", s * a) for a in range(40, 81, 10) for s in (1, -1)),
     "rear_wall": tuple(("h", s * a) for a in range(90, 171, 10) for s in (1, -1)) + (("h", 180),),
 }
-#: The estimated in-room response: 0.12 LW + 0.44 ER + 0.44 SP, in squared pressure (ANSI/CTA-2034-A; from
-#: memory, to be confirmed).
-IN_ROOM_WEIGHTS = (0.12, 0.44, 0.44)
 #: The curves a directivity result holds, in column order.
 CURVES = ("on_axis", "listening_window", "early_reflections", "sound_power", "estimated_in_room")
-
-
-def sound_power_weights() -> dict[Position, float]:
-    """The share of the sphere each of the 70 positions stands for (sums to 1).
-
-    The standard weighs each point by the area of the sphere it represents. Taking the polar angle t of a
-    position from the reference axis (|angle| on either orbit), the points at t stand for the zone of the
-    sphere between t - 5 and t + 5 degrees; its area is 2 pi (cos(t - 5) - cos(t + 5)) on the unit sphere
-    (Archimedes' hat-box theorem: a zone's area is 2 pi r h), shared by the four points at that t (h+t, h-t,
-    v+t, v-t); the axis stands for the cap 0..5 degrees and the rear point for the cap 175..180, each alone.
-    Divided by the sphere's 4 pi. docs/directivity.md gives the derivation and the table.
-    """
-    half = math.radians(_STEP / 2)
-    out = {}
-    for pos in CTA_POSITIONS:
-        t = math.radians(abs(pos[1]))
-        if pos in (("h", 0), ("h", 180)):  # a cap, its point alone
-            area = 2 * math.pi * (1 - math.cos(half))
-        else:
-            area = 2 * math.pi * (math.cos(t - half) - math.cos(t + half)) / 4
-        out[pos] = area / (4 * math.pi)
-    return out
 
 
 def curve_weights(positions: tuple[Position, ...]) -> dict[str, np.ndarray | None]:
@@ -183,3 +153,29 @@ def power_db(p2: np.ndarray) -> np.ndarray:
     """Level in dB SPL of a mean squared pressure (Pa^2), floored at SPL_FLOOR_DB."""
     with np.errstate(divide="ignore"):
         return np.maximum(10.0 * np.log10(np.asarray(p2) / P_REF**2), SPL_FLOOR_DB)
+
+
+def preference_of(plan: PreferencePlan, curves: dict[str, np.ndarray], *, bound_lfx: bool = False) -> Preference:
+    """S. E. Olive's predicted preference (:mod:`xo_fit.model.preference`) from the curves of :func:`directivity`.
+
+    Parameters
+    ----------
+    plan:
+        :func:`xo_fit.model.preference.make_plan` of the curves' grid.
+    curves:
+        Mean squared pressure, Pa^2 (..., F) each, by name: ``on_axis`` and those of ``listening_window``,
+        ``early_reflections``, ``sound_power`` whose positions are measured (a curve not given makes the figures
+        that need it null, with the reason). Levels are taken with :func:`power_db` (floored).
+    bound_lfx:
+        As :func:`xo_fit.model.preference.evaluate`: a bound instead of NaN where the sound power never falls
+        6 dB (for a cost).
+
+    Returns
+    -------
+    Preference
+        The six figures, arrays of the batch shape (...), with a reason for each null.
+    """
+    db = {k: power_db(curves[k]) if k in curves else None
+          for k in ("on_axis", "listening_window", "early_reflections", "sound_power")}
+    return evaluate(plan, db["on_axis"], db["listening_window"], db["early_reflections"], db["sound_power"],
+                    bound_lfx=bound_lfx)

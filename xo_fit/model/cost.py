@@ -38,6 +38,12 @@ the weights of ``[cost]``):
     (dB^2) over the band of the curve's level from its own least-squares
     straight line on log frequency (the slope is the designer's choice; the
     smoothness is scored; every octave weighs alike on the log grid).
+``preference`` (off-axis jobs with all 70 positions; only with a weight)
+    S. E. Olive's predicted preference score of the design
+    (:mod:`xo_fit.model.preference`, on the whole grid, not the band), as
+    max(0, 10 - score)^2 / 100: it falls as the score rises and is 0 from 10
+    up. Where the sound power never falls 6 dB the LFX is bounded by the
+    grid's lowest frequency, so the term stays finite.
 
 With ``[target] reference = "listening_window"`` the ``sum`` term (and the
 automatic level) uses the listening window's level instead of the on-axis sum.
@@ -64,7 +70,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from xo_fit.model.acoustics import angle_pressures, curve_sums, curve_weights, directivity, power_db, spl_db
+from xo_fit.model.acoustics import (angle_pressures, curve_sums, curve_weights, directivity, power_db,
+                                    preference_of, spl_db)
+from xo_fit.model.preference import cost_term, make_plan
 from xo_fit.constants import SPL_FLOOR_DB, Z_SHORT_OHM
 from xo_fit.grid import band_mask
 
@@ -124,8 +132,10 @@ class CostModel:
         spec = system.job.cost
         self.weights = {"way": spec.way, "sum": spec.sum, "phase": spec.phase, "impedance": spec.impedance,
                         "stress": spec.stress, "early_reflections": spec.early_reflections,
-                        "sound_power": spec.sound_power}
+                        "sound_power": spec.sound_power, "preference": spec.preference}
         self.off_axis = bool(system.positions)
+        # the predicted preference's plan of the grid (load_system refuses a job whose grid or positions lack it)
+        self.preference_plan = make_plan(system.frequencies) if spec.preference > 0 else None
         self.reference = system.job.target.reference
         self.curve_weights = curve_weights(system.positions) if self.off_axis else {}
         # the curves the cost weighs (their positions are the only ones it reads)
@@ -183,6 +193,8 @@ class CostModel:
             for k in OFF_AXIS_TERMS:
                 terms[k] = (roughness(power_db(curves[k][..., band]), np.log2(self.system.frequencies[band]))
                             if self.weights[k] > 0 else np.zeros(s_db.shape[0]))
+        if self.preference_plan is not None:
+            terms["preference"] = self.preference_term(sim)
         cost = sum(self.weights[k] * terms[k] for k in terms)
         finite = (np.all(np.isfinite(sim.impedance[..., band]), axis=-1)
                   & np.all(np.isfinite(sim.pressure[..., band]), axis=(-2, -1)))
@@ -202,6 +214,12 @@ class CostModel:
             return {}
         return directivity(np.abs(angle_pressures(sim.voltages, self.system.angle_factors)) ** 2,
                            self.curve_weights)
+
+    def preference_term(self, sim) -> np.ndarray:
+        """The preference term (B,) of a Simulation, unweighted: max(0, 10 - score)^2 / 100 of each design's
+        predicted preference (LFX bounded by the grid's lowest frequency, so it stays finite)."""
+        pref = preference_of(self.preference_plan, self.all_curves(sim), bound_lfx=True)
+        return cost_term(pref.score, 1.0)
 
     def reference_db(self, sim, curves: dict | None = None) -> np.ndarray:
         """The level (dB SPL, (B, Fb)) the system target applies to: the on-axis sum, or the listening window."""

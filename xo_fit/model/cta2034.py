@@ -77,7 +77,7 @@ def sound_power_weights() -> dict[Position, float]:
     """The share of the sound power each of the 70 positions carries (ANSI/CTA-2034-A), summing to 1.
 
     Each position's table weight (:func:`table_weight` of its :func:`polar_angle`) divided by the sum of
-    the table weights of all 70 positions. Same keys and meaning as the zone-area weights it replaces.
+    the table weights of all 70 positions. The sound power of xo_fit.model.acoustics uses these.
 
     Returns
     -------

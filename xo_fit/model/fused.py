@@ -28,6 +28,9 @@ import numpy as np
 from xo_fit.constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB, Z_SHORT_OHM
 from xo_fit.model.acoustics import used_positions
 from xo_fit.model.cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
+from xo_fit.model.cta2034 import IN_ROOM_WEIGHTS
+from xo_fit.model.preference import (COEF_LFX, COEF_NBD_ON, COEF_NBD_PIR, COEF_SM_PIR, FLAT_RMS_DB, INTERCEPT,
+                                     LFX_DROP_DB)
 from xo_fit.solver.codegen import solver_code
 from xo_fit.solver.standalone import COST_SIGNATURE
 from xo_fit.solver.kernels import KERNEL_VERSION, load_kernel
@@ -35,9 +38,27 @@ from xo_fit.solver.kernels import KERNEL_VERSION, load_kernel
 #: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
 _P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
 _PREF_DB = 20 * math.log10(P_REF)
-#: Columns of evaluate_raw's output: cost, the terms, then the level and the flag.
+#: Columns of evaluate_raw's output: cost, the terms, then the level and the flag; with [cost] preference, the
+#: preference term after them (a job without it keeps the kernel it had).
 LEVEL = 1 + len(TERMS)
 FLAG = LEVEL + 1
+PREFERENCE = FLAG + 1
+
+
+def _merge_alike(g: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Positions whose per-volt factors are identical (one file standing for two positions) as one, with their
+    weights added: g (A, D, F) complex, w (A, K) -> (A', D, F), (A', K). |p|^2 is the same at both, so each
+    weighted sum is unchanged (up to rounding)."""
+    keep: list[int] = []
+    weights: list[np.ndarray] = []
+    for i in range(g.shape[0]):
+        twin = next((k for k, j in enumerate(keep) if np.array_equal(g[j], g[i])), None)
+        if twin is None:
+            keep.append(i)
+            weights.append(w[i].copy())
+        else:
+            weights[twin] = weights[twin] + w[i]
+    return g[keep], np.array(weights)
 
 
 class FusedCost:
@@ -90,17 +111,22 @@ class FusedCost:
         # position's weight in the listening window, early reflections and sound power (A, 3)
         names = ("listening_window", "early_reflections", "sound_power")
         self.need = {n: n in cm.needed for n in names}
+        # [cost] preference: every curve summed (all 70 positions), the frequency loops widened to what it reads
+        self.plan = cm.preference_plan
         self.n_angles = 0
         ang = np.zeros((1, 2 * d, nf))
         angw = np.zeros((1, 3))
-        if cm.needed:
+        if cm.needed or self.plan is not None:
             none = np.zeros(len(cm.system.positions))
-            active, angw = used_positions([cm.curve_weights[n] if self.need[n] else none for n in names])
+            active, angw = used_positions([cm.curve_weights[n] if self.need[n] or self.plan is not None else none
+                                           for n in names])
             g = cm.system.angle_factors[active]  # (A', D, F)
-            ang = np.empty((active.size, 2 * d, nf))
+            if self.plan is not None:  # positions with the same data (a mirrored file) summed once, weights added
+                g, angw = _merge_alike(g, angw)
+            ang = np.empty((g.shape[0], 2 * d, nf))
             ang[:, 0::2] = g.real
             ang[:, 1::2] = g.imag
-            self.n_angles = int(active.size)
+            self.n_angles = int(g.shape[0])
         self.ang = np.ascontiguousarray(ang)
         self.angw = np.ascontiguousarray(angw)
         self.row_xc = len(rows)
@@ -109,12 +135,28 @@ class FusedCost:
         x[self.lo:self.hi] = lx - lx.mean()
         rows.append(x)
         self.sxx = float(np.sum(x**2))
+        self.flo, self.fhi = self.lo, self.hi  # the solve's frequency range: the band, or what the preference reads
+        if self.plan is not None:
+            rows += self._preference_rows(nf)
         self.tgt = np.ascontiguousarray(np.vstack(rows))
         # scratch rows per frequency: driver dB (D), sum dB, impedance shortfall, peak stresses, the early
-        # reflections' and sound power's dB, driver voltages (2D), the three position sums
+        # reflections' and sound power's dB, driver voltages (2D), the three position sums; with the preference,
+        # the on-axis, listening window, sound power and in-room dB
         n_peaks = sum(kind != "R" for _, _, kind, _ in cm.rated)
-        self.scratch_rows = d + 4 + n_peaks + 2 * d + 3
+        self.scratch_rows = d + 4 + n_peaks + 2 * d + 3 + (4 if self.plan is not None else 0)
         self._kernel = None
+
+    def _preference_rows(self, nf: int) -> list[np.ndarray]:
+        """The preference's rows of ``tgt`` (in band 1 else 0; log10 f; SM's centred log10 f) and its range."""
+        plan = self.plan
+        self.flo = 0  # LFX's search goes down to the grid's lowest point
+        self.fhi = max(self.hi, int(plan.band_stop[-1]), plan.sm_stop, plan.ref_stop, plan.lfx_top + 1)
+        self.row_inband = self.row_xc + 1
+        inband = np.zeros(nf)
+        inband[self.lo:self.hi] = 1.0
+        xc = np.zeros(nf)
+        xc[plan.sm_start:plan.sm_stop] = plan.sm_xc
+        return [inband, plan.log_f.copy(), xc]
 
     # ------------------------------------------------------------------ code
 
@@ -149,7 +191,7 @@ class FusedCost:
                 angle_loop += [("a = 0" if first else f"for a in range(1, {self.n_angles}):")]
                 ind = "" if first else "    "
                 angle_loop += [ind + "wa0 = angw[a, 0]", ind + "wa1 = angw[a, 1]", ind + "wa2 = angw[a, 2]",
-                               ind + f"for f in range({self.lo}, {self.hi}):", ind + f"    qr = {qr}",
+                               ind + f"for f in range({self.flo}, {self.fhi}):", ind + f"    qr = {qr}",
                                ind + f"    qi = {qi}", ind + "    q2 = qr * qr + qi * qi",
                                ind + f"    scratch[{row_q}, f] {op} wa0 * q2",
                                ind + f"    scratch[{row_q + 1}, f] {op} wa1 * q2",
@@ -163,7 +205,9 @@ class FusedCost:
             if need["sound_power"]:
                 angle_post += [f"spd = DB10 * ln(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
                                f"scratch[{row_p}, f] = spd", "acc_sp += spd"]
-        assert self.scratch_rows == row_q + 3
+        pref = self.plan is not None
+        assert self.scratch_rows == row_q + 3 + (4 if pref else 0)
+        inband = f"tgt[{self.row_inband}, f] * " if pref else ""  # the band's sums, when the loop runs wider
         lines += angle_pre
         for k, (vr, vi) in enumerate(code.volts):
             lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
@@ -171,6 +215,8 @@ class FusedCost:
                       f"pd{k} = DB10 * ln(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
                       f"scratch[{k}, f] = pd{k}"]
         lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}"]
+        if pref:  # the on-axis level, whatever the sum's reference
+            lines += [f"scratch[{row_q + 3}, f] = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB"]
         if not need["listening_window"]:  # else the listening window's level, after the positions are summed
             lines += ["sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
                       f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
@@ -184,12 +230,12 @@ class FusedCost:
             zr, zi = code.zin
             lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
                       f"sh = DB10 * ln(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
-                      "acc_z += sh * sh", f"scratch[{d + 1}, f] = sh"]
+                      f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
         peaks = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
         for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(cm.rated, code.currents)):
             lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
             if kind == "R":
-                lines.append(f"acc_r{m} += qq{m}")
+                lines.append(f"acc_r{m} += {inband}qq{m}")
             else:
                 row = d + 2 + len(peaks)
                 lines.append(f"scratch[{row}, f] = qq{m} * iw * iw" if kind == "C" else f"scratch[{row}, f] = qq{m}")
@@ -241,10 +287,13 @@ class FusedCost:
         src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0", i1 + "acc_e = 0.0", i1 + "acc_sp = 0.0"]
         src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(cm.rated) if kind == "R"]
         src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
-        src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in lines]
+        src += [i1 + f"for f in range({self.flo}, {self.fhi}):"] + [i2 + s for s in lines]
         if angle_loop:
             src += [i1 + s for s in angle_loop]
-            src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in angle_post]
+            if angle_post:
+                src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in angle_post]
+        if pref:
+            src += [i1 + s for s in self._preference_source(row_q)]
         src += [i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
                 i1 + "acc_w = 0.0", i1 + "acc_s = 0.0", i1 + f"mean_e = acc_e / {nb}.0",
                 i1 + f"mean_p = acc_sp / {nb}.0", i1 + "acc_ee = 0.0", i1 + "acc_ex = 0.0", i1 + "acc_pp = 0.0",
@@ -280,14 +329,69 @@ class FusedCost:
                   else "t_sp = 0.0"),
             i1 + f"out[b, 0] = {w['way']!r} * t_way + {w['sum']!r} * t_sum + {w['phase']!r} * t_phase "
                  f"+ {w['impedance']!r} * t_imp + {w['stress']!r} * t_stress + {w['early_reflections']!r} * t_er "
-                 f"+ {w['sound_power']!r} * t_sp",
+                 f"+ {w['sound_power']!r} * t_sp" + (f" + {w['preference']!r} * t_pref" if pref else ""),
             i1 + "out[b, 1] = t_way", i1 + "out[b, 2] = t_sum", i1 + "out[b, 3] = t_phase", i1 + "out[b, 4] = t_imp",
             i1 + "out[b, 5] = t_stress", i1 + "out[b, 6] = t_er", i1 + "out[b, 7] = t_sp",
             i1 + f"out[b, {LEVEL}] = level", i1 + f"out[b, {FLAG}] = acc_bad",
+            *([i1 + f"out[b, {PREFERENCE}] = t_pref"] if pref else []),
             i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
             "    return nbad",
         ]
         return "\n".join(src) + "\n"
+
+    def _preference_source(self, row_q: int) -> list[str]:
+        """Per candidate, after the position sums: Olive's score from the on-axis, listening window, early
+        reflections and sound power sums (:mod:`xo_fit.model.preference`, the same arithmetic as
+        ``evaluate(..., bound_lfx=True)``) and the term max(0, 10 - score)^2 / 100 as ``t_pref``. Its names
+        start with ``pf_`` (apart from the solver's)."""
+        plan = self.plan
+        r_on, r_lw, r_sp, r_pir = row_q + 3, row_q + 4, row_q + 5, row_q + 6
+        r_logf, r_smx = self.row_inband + 1, self.row_inband + 2
+        a, b, c = IN_ROOM_WEIGHTS
+        i1, i2 = " " * 4, " " * 8
+        # levels of the listening window, the sound power and the in-room mix (each curve floored as power_db)
+        out = [f"for f in range({self.flo}, {self.fhi}):",
+               i1 + f"pf_ql = max(scratch[{row_q}, f], P2F)", i1 + f"pf_qe = max(scratch[{row_q + 1}, f], P2F)",
+               i1 + f"pf_qs = max(scratch[{row_q + 2}, f], P2F)",
+               i1 + f"scratch[{r_lw}, f] = DB10 * ln(pf_ql) - PREF_DB",
+               i1 + f"scratch[{r_sp}, f] = DB10 * ln(pf_qs) - PREF_DB",
+               i1 + f"scratch[{r_pir}, f] = DB10 * ln({a!r} * pf_ql + {b!r} * pf_qe + {c!r} * pf_qs) - PREF_DB",
+               "pf_non = 0.0", "pf_npir = 0.0"]
+        # NBD: each half-octave band's mean absolute deviation from its own mean, on axis and in room
+        for s, e in zip(plan.band_start.tolist(), plan.band_stop.tolist()):
+            n = f"{e - s}.0"
+            out += ["pf_so = 0.0", "pf_sq = 0.0", f"for f in range({s}, {e}):",
+                    i1 + f"pf_so += scratch[{r_on}, f]", i1 + f"pf_sq += scratch[{r_pir}, f]",
+                    f"pf_mo = pf_so / {n}", f"pf_mq = pf_sq / {n}", "pf_ao = 0.0", "pf_aq = 0.0",
+                    f"for f in range({s}, {e}):", i1 + f"pf_ao += abs(scratch[{r_on}, f] - pf_mo)",
+                    i1 + f"pf_aq += abs(scratch[{r_pir}, f] - pf_mq)",
+                    f"pf_non += pf_ao / {n}", f"pf_npir += pf_aq / {n}"]
+        nb = f"{plan.band_start.size}.0"
+        out += [f"pf_non = pf_non / {nb}", f"pf_npir = pf_npir / {nb}"]
+        # SM: r^2 of the in-room response's straight line on log10 f (centred abscissae in tgt)
+        s, e = plan.sm_start, plan.sm_stop
+        out += ["pf_sy = 0.0", f"for f in range({s}, {e}):", i1 + f"pf_sy += scratch[{r_pir}, f]",
+                f"pf_my = pf_sy / {e - s}.0", "pf_sxy = 0.0", "pf_syy = 0.0", f"for f in range({s}, {e}):",
+                i1 + f"pf_dy = scratch[{r_pir}, f] - pf_my", i1 + f"pf_sxy += pf_dy * tgt[{r_smx}, f]",
+                i1 + "pf_syy += pf_dy * pf_dy",
+                f"pf_sm = 0.0 if pf_syy <= {(e - s) * FLAT_RMS_DB ** 2!r} else "
+                f"pf_sxy * pf_sxy / ({plan.sm_sxx!r} * pf_syy)"]
+        # LFX: the highest point at or under 300 Hz where the sound power is 6 dB under the listening window's
+        # mean (300 Hz..10 kHz), interpolated in log f with the point above; none: the grid's lowest frequency
+        s, e, top = plan.ref_start, plan.ref_stop, plan.lfx_top
+        out += ["pf_sl = 0.0", f"for f in range({s}, {e}):", i1 + f"pf_sl += scratch[{r_lw}, f]",
+                f"pf_thr = pf_sl / {e - s}.0 - {LFX_DROP_DB!r}", "pf_i = -1", f"for f in range(0, {top + 1}):",
+                i1 + f"if scratch[{r_sp}, f] <= pf_thr:", i2 + "pf_i = f",
+                f"pf_lfx = tgt[{r_logf}, 0]", "if pf_i >= 0:", i1 + f"pf_j = pf_i + 1 if pf_i < {top} else pf_i",
+                i1 + f"pf_lfx = tgt[{r_logf}, pf_i]", i1 + "if pf_j > pf_i:",
+                i2 + f"pf_yi = scratch[{r_sp}, pf_i]",
+                i2 + f"pf_lfx = pf_lfx + (pf_thr - pf_yi) / (scratch[{r_sp}, pf_j] - pf_yi) * "
+                     f"(tgt[{r_logf}, pf_j] - pf_lfx)",
+                f"pf_score = {INTERCEPT!r} - {COEF_NBD_ON!r} * pf_non - {COEF_NBD_PIR!r} * pf_npir "
+                f"- {COEF_LFX!r} * pf_lfx + {COEF_SM_PIR!r} * pf_sm",
+                "pf_short = 10.0 - pf_score", "pf_short = pf_short if pf_short > 0.0 else 0.0",
+                "t_pref = pf_short * pf_short / 100.0"]
+        return out
 
     def kernel(self):
         if self._kernel is None:
@@ -313,7 +417,8 @@ class FusedCost:
         k = self.net._kernel_args()
         return (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
                 float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw,
-                np.empty((self.scratch_rows, self.net.frequencies.size)), np.empty((v.shape[0], FLAG + 1)))
+                np.empty((self.scratch_rows, self.net.frequencies.size)),
+                np.empty((v.shape[0], FLAG + (2 if self.plan is not None else 1))))
 
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
         """(B, 10): cost, the TERMS (way, sum, phase, impedance, stress, early_reflections, sound_power), level,
@@ -328,6 +433,8 @@ class FusedCost:
             for i, t in enumerate(TERMS, start=1):
                 out[redo, i] = ev.terms.get(t, 0.0)
             out[redo, LEVEL] = ev.level_db
+            if self.plan is not None:
+                out[redo, PREFERENCE] = ev.terms["preference"]
         out[~np.isfinite(out[:, 0]), 0] = np.inf  # as the reference: a design with a singular point is infeasible
         return out
 

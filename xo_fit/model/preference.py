@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .cta2034 import IN_ROOM_WEIGHTS
+from xo_fit.model.cta2034 import IN_ROOM_WEIGHTS
 
 #: The regression's intercept and coefficients (Olive 2004, part II; US 8,311,232).
 INTERCEPT = 12.69

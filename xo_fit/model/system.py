@@ -150,8 +150,34 @@ def _angle_data(spec, positions: tuple, response: np.ndarray, grid: np.ndarray, 
             raise DataError(e.message, path=e.path, line=e.line, key=where) from None
         warnings += w
         done[path] = i
+    _check_twins(spec, positions, out, grid, warnings)
     out.setflags(write=False)
     return out
+
+
+#: Two files of one position (-180 and 180) that differ by more than this somewhere (dB) get a warning.
+TWIN_TOLERANCE_DB = 0.1
+
+
+def _check_twins(spec, positions: tuple, data: np.ndarray, grid: np.ndarray, warnings: list[str]) -> None:
+    """A position listed twice (-180 and 180, or the rear on both orbits) is read from its first file; each other
+    file of it is read too, and a one-line warning names it where its level differs by more than 0.1 dB."""
+    from xo_fit.errors import DataError
+
+    files = spec.angles.files()
+    for pos, path, name in spec.angles.twins():
+        used = files[pos][0]
+        try:
+            twin, _ = on_grid(extend_curve(read_curve(path, "response"), grid, "response", spec.extend_low,
+                                           spec.extend_high), grid, "response", spec.phase)
+        except DataError as e:
+            raise DataError(e.message, path=e.path, line=e.line, key=f"[driver.{spec.name}.angles] {name}") from None
+        with np.errstate(divide="ignore"):
+            diff = np.abs(20 * np.log10(np.abs(twin) / np.abs(data[positions.index(pos)])))
+        k = int(np.argmax(np.where(np.isnan(diff), np.inf, diff)))
+        if not diff[k] <= TWIN_TOLERANCE_DB:
+            warnings.append(f"[driver.{spec.name}.angles] {name} is the same position as {pos[0]}{pos[1]}, whose "
+                            f"file is used: {path} differs from {used} by {diff[k]:.2f} dB at {grid[k]:.0f} Hz")
 
 
 def _positions(job: Job) -> tuple:
@@ -181,6 +207,27 @@ def _check_curves(job: Job, positions: tuple) -> None:
                     if any(o == "h" and a < 0 for o, a in missing) else "")
             raise JobError(f"the {curve.replace('_', ' ')} needs positions the drivers' angles lack: {names}{hint}",
                            path=job.path, key=key)
+
+
+def _check_preference(job: Job, positions: tuple) -> None:
+    """[cost] preference needs the score for every candidate: all 70 positions and a grid the model can use."""
+    if job.cost.preference <= 0:
+        return
+    from xo_fit.model.preference import make_plan
+
+    key = "[cost] preference"
+    if not positions:
+        raise JobError("the predicted preference needs off-axis responses: give every driver a [driver.NAME.angles] "
+                       "table with the 70 positions of ANSI/CTA-2034-A", path=job.path, key=key)
+    missing = acoustics.missing_positions(positions, "sound_power")
+    if missing:
+        names = ", ".join(f"{o}{a}" for o, a in missing[:8]) + (" ..." if len(missing) > 8 else "")
+        raise JobError(f"the predicted preference needs the sound power, whose positions the drivers' angles lack: "
+                       f"{names}", path=job.path, key=key)
+    reasons = make_plan(job.grid.frequencies).reasons
+    if reasons:
+        name, why = next(iter(reasons.items()))
+        raise JobError(f"the predicted preference cannot be had on this grid: {name}: {why}", path=job.path, key=key)
 
 
 def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
@@ -263,6 +310,7 @@ def load_system(job: Job) -> System:
     warnings: list[str] = list(job.warnings)
     positions = _positions(job)
     _check_curves(job, positions)
+    _check_preference(job, positions)
     drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
     if positions:
         from dataclasses import replace

@@ -87,6 +87,11 @@ class Design:
         return dict(self.scored.metrics)
 
     @property
+    def preference(self) -> dict | None:
+        """An off-axis job's predicted preference (Olive 2004) as result.json holds it, else None."""
+        return self.scored.preference
+
+    @property
     def limits(self) -> dict[str, str]:
         """Free parts whose value rests on a bound of their range (within 1 % in log distance): name -> min/max."""
         out = {}
@@ -267,6 +272,8 @@ class Design:
                      "parts": parts, "cost": s.cost, "cost_terms": dict(s.terms), "metrics": metrics}
         if s.level_db is not None:
             doc["level_db"] = s.level_db
+        if s.preference is not None:
+            doc["preference"] = s.preference
         doc["findings"] = self.findings
         if self.breakdown is not None:
             doc["error_breakdown"] = self.breakdown

@@ -5,7 +5,7 @@ and :class:`~xo_fit.output.design.Spread`); it never reads a job or a result its
 Figures: the summed response against the target (with the p05-p95 band of a
 spread), each way against its way target, the phase error through each
 crossover and the reverse-polarity null, the group delay, and the impedance
-with the floor and 80 % of the rated impedance. Tables: metrics, the part list
+with the floor and 80 % of the rated impedance. Tables: metrics, the predicted preference, the part list
 (source, tolerance, combination, stress, range limits), findings and cautions.
 """
 
@@ -271,6 +271,33 @@ def _breakdown_table(entries: list[tuple], esc) -> str:
             f"<th>worst error (dB)</th><th>worst phase error (deg)</th></tr>{''.join(rows)}</table>")
 
 
+def _preference_table(entries: list[tuple], esc) -> str:
+    """Each result's predicted preference (Olive 2004): the score and its four parts, a null's reason below."""
+    rows, notes = [], []
+    for label, d, _ in entries:
+        p = d.scored.preference
+        if p is None:
+            continue
+
+        def fig(name, fmt):
+            return "&ndash;" if p.get(name) is None else format(p[name], fmt)
+
+        lfx = "&ndash;" if p.get("lfx") is None else f"{p['lfx']:.3f} ({10 ** p['lfx']:.0f} Hz)"
+        rows.append(f"<tr><td>{esc(label)}</td><td><b>{fig('score', '.2f')}</b></td><td>{fig('score_with_sub', '.2f')}"
+                    f"</td><td>{fig('nbd_on', '.3f')}</td><td>{fig('nbd_pir', '.3f')}</td><td>{lfx}</td>"
+                    f"<td>{fig('sm_pir', '.3f')}</td></tr>")
+        notes += [f"<li>{esc(label)}, {esc(k)}: {esc(v)}</li>" for k, v in p.get("reasons", {}).items()]
+    if not rows:
+        return ""
+    return ("<h2>Predicted preference</h2><p>S. E. Olive's model (AES convention papers 6113 and 6190, 2004): "
+            "score = 12.69 &minus; 2.49 NBD_ON &minus; 2.99 NBD_PIR &minus; 4.31 LFX + 2.32 SM_PIR, from the "
+            "on-axis curve, the estimated in-room response (PIR) and the sound power against the listening "
+            "window; the second score puts an ideal subwoofer (14.5 Hz) in place of the speaker's bass.</p>"
+            "<table><tr><th>result</th><th>score</th><th>with an ideal subwoofer</th><th>NBD on axis (dB)</th>"
+            "<th>NBD in room (dB)</th><th>LFX (log10 Hz)</th><th>SM in room (r&sup2;)</th></tr>"
+            f"{''.join(rows)}</table>" + (f"<ul>{''.join(notes)}</ul>" if notes else ""))
+
+
 def _netlist_table(job, esc) -> str:
     rows = "".join(f"<tr><td>{esc(p.name)}</td><td>{p.type if p.type != 'driver' else 'driver ' + esc(p.driver)}</td>"
                    f"<td>{esc(p.nodes[0])}</td><td>{esc(p.nodes[1])}</td></tr>" for p in job.parts)
@@ -417,6 +444,7 @@ check the built speaker by measurement.</p>
 <h2>Metrics</h2>
 <table><tr><th>result</th><th>cost</th><th>rms error (dB)</th><th>worst error (dB)</th><th>phase mismatch (deg)</th>
 <th>|Z| minimum (Ω)</th><th>EPDR minimum (Ω)</th></tr>{''.join(metric_rows)}</table>
+{_preference_table(entries, esc)}
 {breakdown_table}
 {values_table}
 {targets_table}

@@ -28,6 +28,7 @@ class Scored:
     metrics: dict
     targets: Targets | None
     level_db: float | None
+    preference: dict | None = None  # an off-axis job's predicted preference (Preference.to_json), else None
 
 
 def cost_model(system) -> tuple[CostModel, Targets] | None:
@@ -54,14 +55,28 @@ def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = 
     values = np.asarray(values, dtype=float).reshape(-1)
     model = model if model is not None else cost_model(system)
     sim = system.simulate(values, dense=True)
+    pref = design_preference(system, sim)
     if model is None:
         return Scored(values=values, sim=sim, cost=None, terms={}, metrics=simulation_metrics(system, sim),
-                      targets=None, level_db=None)
+                      targets=None, level_db=None, preference=pref)
     cm, targets = model
     metrics, ev = cm.metrics(values)
     level = metrics.pop("level_db")
     return Scored(values=values, sim=sim, cost=float(ev.cost[0]), terms={k: float(v[0]) for k, v in ev.terms.items()},
-                  metrics=metrics, targets=targets, level_db=level)
+                  metrics=metrics, targets=targets, level_db=level, preference=pref)
+
+
+def design_preference(system, sim) -> dict | None:
+    """The predicted preference (Olive 2004) of the first design of a Simulation, as result.json holds it (the
+    six figures, None and a reason where the grid or the positions do not allow one); None on axis."""
+    if not system.positions:
+        return None
+    from xo_fit.model.acoustics import angle_pressures, curve_weights, directivity, preference_of
+    from xo_fit.model.preference import make_plan
+
+    p2 = np.abs(angle_pressures(sim.voltages[:1], system.angle_factors)) ** 2
+    curves = {k: v[0] for k, v in directivity(p2, curve_weights(system.positions)).items()}
+    return preference_of(make_plan(system.frequencies), curves).to_json()
 
 
 def robust_factors(job) -> np.ndarray | None:
