@@ -297,6 +297,9 @@ def test_each_angle_file_is_spliced_with_the_same_near_field(tmp_path, write_job
         """)
     system = load_system(load_job(job))
     d = system.drivers[0]
+    from xo_fit.output.describe import describe
+
+    assert any("each a far field spliced with the near field at 400 Hz" in line for line in describe(system))
     # [CP] the level shift: the mean dB difference far - near over the third of an octave around 400 Hz
     u = np.linspace(math.log(400) - math.log(2) / 6, math.log(400) + math.log(2) / 6, 33)
     gain = np.mean(np.interp(u, np.log(f), far(0.0)) - np.interp(u, np.log(f), near))

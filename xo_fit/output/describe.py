@@ -92,7 +92,9 @@ def describe(system) -> list[str]:
             mirrored = sum(1 for pos, (_, a) in files.items() if a != pos[1])
             out.append(f"    angles    {len(files) + 1} positions with the axis ({sum(1 for p in files if p[0] == 'h')} "
                 f"horizontal, {sum(1 for p in files if p[0] == 'v')} vertical)"
-                + (f", {mirrored} mirrored" if mirrored else ""))
+                + (f", {mirrored} mirrored" if mirrored else "")
+                + (f"; each a far field spliced with the near field at {format_value(d.splice.splice_hz, 'Hz')} "
+                   f"({d.splice.gain_db:+.2f} dB, as on the axis)" if d.splice is not None else ""))
     out += placement_lines(system)
     if system.positions:
         from xo_fit.model.acoustics import curve_weights, missing_positions
