@@ -21,13 +21,15 @@ way a designer's own in-cabinet measurements would look:
   Frey, Coppens and Sanders, *Fundamentals of Acoustics*; L. Beranek,
   *Acoustics*), its 90 degree value behind, fading with frequency as the
   cabinet's shadow deepens (an invented first-order fall above the baffle
-  step); placed on the baffle (the tweeter's centre is the reference point,
-  the woofer's 150 mm below it and 18 mm deeper), so the path differences of
-  the two drivers to each position give the vertical lobing.
+  step), measured about each driver's own centre (no path term in the files);
+* the drivers' places are in the job: the tweeter's centre is the reference
+  point, the woofer's 150 mm below it (``position``) and 18 mm deeper
+  (``offset``), and the angle files say ``about = "driver"``, so xo_fit adds
+  each driver's path to every position and the vertical lobing comes from the
+  geometry.
 
 All phases are minimum phase of the model (time of flight removed, as after
-gating); the offset between the drivers is in the job. Everything is
-deterministic.
+gating). Everything is deterministic.
 """
 
 from __future__ import annotations
@@ -129,18 +131,14 @@ def piston_directivity(ka: np.ndarray, angle_deg: float, f: np.ndarray) -> np.nd
     return d
 
 
-def off_axis(f: np.ndarray, axis: np.ndarray, radius: float, height: float, depth: float, orbit: str,
-             angle: float) -> np.ndarray:
-    """A driver's response at ``angle`` on ``orbit`` ("h" or "v"), complex Pa (F,), from its on-axis response:
-    the piston directivity and the far-field path difference to that direction, relative to the axis (the
-    job's offset gives the axis its own delay): depth (cos t - 1) - height sin t on the vertical orbit,
-    depth (cos t - 1) on the horizontal one (both drivers on the baffle's centre line)."""
+def off_axis(f: np.ndarray, axis: np.ndarray, radius: float, angle: float) -> np.ndarray:
+    """A driver's response at ``angle`` from its axis (either orbit: a round piston), complex Pa (F,), measured
+    about the driver's own centre: its on-axis response times the piston directivity, no path term (the job's
+    ``position`` and ``offset`` give each driver its path to every position)."""
     k = 2 * np.pi * f / SPEED_OF_SOUND
-    t = np.radians(angle)
-    extra = depth * (np.cos(t) - 1.0) - (height * np.sin(t) if orbit == "v" else 0.0)
     # |2 J1(x)/x|: past the first null the lobes' sign is dropped (they lie 17 dB down and more), so the files'
     # phase stays smooth enough to interpolate, as a real cone's imperfect nulls keep it
-    return axis * np.abs(piston_directivity(k * radius, angle, f)) * np.exp(-1j * k * extra)
+    return axis * np.abs(piston_directivity(k * radius, angle, f))
 
 
 def _curve_text(f: np.ndarray, z: np.ndarray, kind: str, title: str) -> str:
@@ -177,10 +175,13 @@ resistance = 0.05
 response = "data/woofer-response.txt"
 impedance = "data/woofer-impedance.txt"
 reference_voltage = 2.83
-offset = "18mm"
+offset = "18mm"                       # 18 mm behind the tweeter's acoustic centre
+position = { x = 0, y = "-150mm" }    # 150 mm below it (the tweeter's centre is the reference point)
 
-# off axis: both orbits in 10 degree steps; the horizontal one is symmetric
+# off axis: both orbits in 10 degree steps; the horizontal one is symmetric. The files are measured about
+# the driver's own centre (time of flight removed), so xo_fit adds its path to every position
 [driver.woofer.angles]
+about = "driver"
 horizontal = "data/polar/woofer-h{angle}.txt"
 vertical = "data/polar/woofer-v{angle}.txt"
 horizontal_angles = [10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170, 180]
@@ -196,8 +197,10 @@ impedance = "data/tweeter-impedance.txt"
 reference_voltage = 2.83
 extend_low = "order2"
 phase = "minimum"
+position = { x = 0, y = 0 }
 
 [driver.tweeter.angles]
+about = "driver"
 horizontal = "data/polar/tweeter-h{angle}.txt"
 vertical = "data/polar/tweeter-v{angle}.txt"
 horizontal_angles = [10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170, 180]
@@ -373,18 +376,16 @@ def write_scenario(folder: str | Path) -> Path:
                                                            "Wren tweeter, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
     write_text(data / "tweeter-impedance.txt", _curve_text(f, TWEETER.impedance(f), "impedance",
                                                             "Wren tweeter, in cabinet"))
-    fa = f  # 1/48 octave: the path differences turn the phase fast at the top
-    for name, resp, radius, height, depth, lo in (
-            ("woofer", woofer_response, WOOFER_RADIUS, WOOFER_HEIGHT, WOOFER_DEPTH, 0.0),
-            ("tweeter", tweeter_response, TWEETER_RADIUS, 0.0, 0.0, TWEETER_GATE_HZ)):
-        fd = fa[fa >= lo]
+    for name, resp, radius, lo in (("woofer", woofer_response, WOOFER_RADIUS, 0.0),
+                                   ("tweeter", tweeter_response, TWEETER_RADIUS, TWEETER_GATE_HZ)):
+        fd = f[f >= lo]
         axis = resp(fd)
         for orbit, angles in (("h", H_ANGLES), ("v", V_ANGLES)):
             for a in angles:
                 write_text(data / "polar" / f"{name}-{orbit}{a}.txt",
-                           _curve_text(fd, off_axis(fd, axis, radius, height, depth, orbit, a), "response",
+                           _curve_text(fd, off_axis(fd, axis, radius, a), "response",
                                        f"Wren {name}, {'horizontal' if orbit == 'h' else 'vertical'} {a} deg, "
-                                       "2.83 V, 1 m, gated; same timing reference as on axis"))
+                                       "2.83 V, 1 m, gated; about the driver's centre (time of flight removed)"))
     job = folder / "job.toml"
     write_text(job, JOB_TEXT)
     return job

@@ -23,7 +23,10 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
 
     job = write_scenario(out / "scenario")
     say(f"wrote the demo scenario: {job} and its measurement files in {job.parent / 'data'}")
-    say("the tweeter's response is gated from 300 Hz and extended below by a fitted 2nd-order high-pass (check):")
+    say("the tweeter's response is gated from 300 Hz and extended below by a fitted 2nd-order high-pass; the drivers' "
+        "positions are in the job (the woofer 150 mm below the tweeter, 18 mm deeper) and their angle files are "
+        "measured about each driver (about = \"driver\"), so every sum adds each driver's path from its "
+        "acoustic centre: the vertical lobing comes from the geometry (check):")
     check(job=job)
     say("an equivalent circuit fitted to the woofer's measured impedance (xo-fit driver FILE --model ts-lossy):")
     driver(impedance=job.parent / "data" / "woofer-impedance.txt", model="ts-lossy", name="woofer")

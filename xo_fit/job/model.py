@@ -14,6 +14,7 @@ Relative paths are taken from the job file's folder.
 from __future__ import annotations
 
 import json
+import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,10 +30,11 @@ from xo_fit.grid import Grid
 DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "grid": {"f_min": 20.0, "f_max": 20000.0, "points": 320},
     "source": {"voltage": 2.83, "resistance": 0.0},
-    "acoustics": {"speed_of_sound": 343.0},
+    "acoustics": {"speed_of_sound": 343.0, "distance": "far"},
     "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
                "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
                "impedance_extend_low": "none", "impedance_extend_high": "none"},
+    "position": {"x": 0.0, "y": 0.0},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
     "angles": {"mirror": False},
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
@@ -227,6 +229,8 @@ class DriverSpec:
     impedance_extend_low: str = "none"
     impedance_extend_high: str = "none"
     angles: AngleSpec | None = None
+    position: tuple[float, float] | None = None  # (x, y) of the acoustic centre in the baffle plane, m; None: not given
+    about: str | None = None  # what the files were measured about: "reference", "driver", None (not given)
 
 
 @dataclass(frozen=True)
@@ -368,6 +372,7 @@ class Job:
     part_lines: Mapping[str, int] = field(default_factory=lambda: FrozenMap())  # line of each part's nodes
     warnings: tuple[str, ...] = ()  # doubtful but legal values, one line each
     swept: Mapping[str, Any] = field(default_factory=lambda: FrozenMap())  # a [sweep] variant's values, by label
+    distance: float = math.inf  # m from the reference point to every listening point; inf: the far field
 
     @property
     def data(self) -> dict:
@@ -401,11 +406,12 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "top": "name grid source acoustics driver part target cost search snap spread stress sweep",
     "grid": "f_min f_max points per_octave",
     "source": "voltage resistance",
-    "acoustics": "speed_of_sound",
-    "driver": "response impedance reference_voltage offset phase impedance_phase extend_low extend_high "
-              "impedance_extend_low impedance_extend_high",
+    "acoustics": "speed_of_sound distance",
+    "driver": "response impedance reference_voltage offset position about phase impedance_phase extend_low "
+              "extend_high impedance_extend_low impedance_extend_high",
+    "position": "x y",
     "thiele_small": "re le fs qms qes le_exponent l2 r2",
-    "angles": "horizontal vertical horizontal_angles vertical_angles mirror",
+    "angles": "horizontal vertical horizontal_angles vertical_angles mirror about",
     "splice": "near far splice_hz",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",

@@ -14,7 +14,7 @@ from xo_fit.errors import JobError, read_user_text
 from xo_fit.job.model import (DEFAULTS, VOLTS, FrozenMap, Job)
 from xo_fit.job.reading import (Lines, Reader, Context)
 from xo_fit.job.parts import (read_part, check_plausible, check_parts)
-from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_target, read_cost, read_search, read_snap, read_spread)
+from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_distance, check_distance, read_target, read_cost, read_search, read_snap, read_spread)
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *, copy: bool = True) -> Job:
     """Read and validate a job: a TOML file, or a mapping with the TOML's structure.
@@ -76,6 +76,7 @@ def build_job(data: dict, ctx: Context) -> Job:
     src.done()
     ac = top.sub("acoustics", "[acoustics]")
     c = ac.value("speed_of_sound", "m/s", DEFAULTS["acoustics"]["speed_of_sound"])
+    distance = read_distance(ac)
     ac.done()
 
     drv_table = top.sub("driver", "[driver]")
@@ -85,6 +86,7 @@ def build_job(data: dict, ctx: Context) -> Job:
         drivers.append(read_driver(dname, drv_table.sub(dname, f"[driver.{dname}]"), voltage))
     if not drivers:
         raise ctx.error((), None, "no drivers: add at least one [driver.NAME] table", "job")
+    check_distance(ac, distance, drivers)
     with_angles = [d for d in drivers if d.angles is not None]
     if with_angles:
         first = with_angles[0]
@@ -135,4 +137,4 @@ def build_job(data: dict, ctx: Context) -> Job:
                search=search, snap=snap, spread=spread, stress=stress, folder=ctx.folder,
                document=json.dumps(document, default=str),
                part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}),
-               warnings=tuple(ctx.warnings))
+               warnings=tuple(ctx.warnings), distance=distance)

@@ -16,12 +16,13 @@ import numpy as np
 
 from xo_fit.model import acoustics
 from xo_fit.physics.coils import DCR_EXPONENT, dcr_coefficient
-from xo_fit.errors import JobError, NetworkError
+from xo_fit.errors import JobError, NetworkError, XoFitError
 from xo_fit.job.model import FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
 from xo_fit.constants import P_REF
 from xo_fit.io.measure import Curve, read_curve
 from xo_fit.physics.extension import extend_curve, splice_curves
 from xo_fit.physics.curves import on_grid
+from xo_fit.physics.geometry import Placement, acoustic_centres, placement_factors, placement_warnings
 from xo_fit.solver.netlist import check_topology
 from xo_fit.solver.network import Branch, Network, Solution, compile_network
 
@@ -71,10 +72,11 @@ class System:
     frequencies: np.ndarray
     drivers: tuple[DriverData, ...]
     network: Network
-    factors: np.ndarray  # Pa per V at each driver's terminals, offset delay included, (D, F)
+    factors: np.ndarray  # Pa per V at each driver's terminals on the axis, placement included, (D, F)
     warnings: tuple[str, ...] = field(default=())
     positions: tuple = ()  # an off-axis job's measuring positions, ("h"|"v", deg), the axis first; () otherwise
     angle_factors: np.ndarray | None = None  # Pa per V of each driver at each position, (A, D, F)
+    placements: tuple = ()  # each driver's Placement (physics/geometry.py): position, phase, about
 
     @property
     def part_names(self) -> tuple[str, ...]:
@@ -125,15 +127,17 @@ class System:
         return acoustics.power_db(acoustics.curve_sums(sim.voltages, self.angle_factors, lw)["listening_window"])
 
 
-def _angle_data(spec, positions: tuple, response: np.ndarray, grid: np.ndarray, warnings: list[str]) -> np.ndarray:
+def _angle_data(spec, positions: tuple, d: DriverData, grid: np.ndarray, warnings: list[str]) -> np.ndarray:
     """The driver's response at every position (the axis first: its ``response``), complex Pa (A, F). Each
-    file is read and put on the grid as ``response`` is (same extension, same phase); an error names the
-    driver and the position."""
+    file is read and put on the grid as ``response`` is (same extension, same phase); a spliced driver's files
+    are far fields, each spliced with its near field at the same frequency and with the on-axis splice's level
+    shift (the near field the same at every angle). An error names the driver and the position."""
     from xo_fit.errors import DataError
 
     files = spec.angles.files()
     out = np.empty((len(positions), grid.size), dtype=complex)
-    out[0] = response
+    out[0] = d.response
+    near = read_curve(spec.response.near, "response") if d.splice is not None else None
     done: dict = {}  # a mirrored position is its file's data again
     for i, pos in enumerate(positions[1:], start=1):
         path, source = files[pos]
@@ -144,6 +148,8 @@ def _angle_data(spec, positions: tuple, response: np.ndarray, grid: np.ndarray, 
                                                                   if source != pos[1] else "")
         try:
             curve = read_curve(path, "response")
+            if near is not None:
+                curve = splice_curves(near, curve, d.splice.splice_hz, gain_db=d.splice.gain_db).curve
             out[i], w = on_grid(extend_curve(curve, grid, "response", spec.extend_low, spec.extend_high), grid,
                                 "response", spec.phase)
         except DataError as e:
@@ -315,26 +321,52 @@ def load_system(job: Job) -> System:
     if positions:
         from dataclasses import replace
 
-        drivers = tuple(replace(d, angle_responses=_angle_data(spec, positions, d.response, grid, warnings))
+        drivers = tuple(replace(d, angle_responses=_angle_data(spec, positions, d, grid, warnings))
                         for d, spec in zip(drivers, job.drivers))
     zd = np.stack([d.impedance for d in drivers])
     network = compile_network(branches_for(job), [d.name for d in job.drivers], grid, zd,
                               job.source_voltage, job.source_resistance, context=str(job.path) if job.path else None)
-    factors = acoustics.driver_factors(
-        np.stack([d.response for d in drivers]),
-        np.array([d.reference_voltage for d in job.drivers]),
-        np.array([d.offset for d in job.drivers]),
-        grid, job.speed_of_sound)
+    placements = tuple(_placement(spec, d) for spec, d in zip(job.drivers, drivers))
+    warnings += placement_warnings(placements, off_axis=bool(positions), distance=job.distance)
+    factors, angle_factors = _acoustic_factors(job, drivers, placements, positions, grid)
+    return System(job=job, frequencies=grid, drivers=drivers, network=network, factors=factors,
+                  warnings=tuple(warnings), positions=positions, angle_factors=angle_factors, placements=placements)
+
+
+def _placement(spec, d: DriverData) -> Placement:
+    """Where a driver is and what its data hold, as the geometry sees it (physics/geometry.py)."""
+    x, y = spec.position if spec.position is not None else (0.0, 0.0)
+    could_measure = (isinstance(spec.response, FileCurve) and spec.extend_low == spec.extend_high == "none"
+                     and spec.about != "driver")  # a phase column the job could have used, holding the geometry
+    in_files = could_measure and d.response_curve is not None and d.response_curve.phase_deg is not None
+    return Placement(name=spec.name, x=x, y=y, offset=spec.offset, positioned=spec.position is not None,
+                     phase=d.response_phase, about=spec.about, phase_in_files=in_files)
+
+
+def _acoustic_factors(job: Job, drivers: tuple, placements: tuple, positions: tuple,
+                      grid: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """Pa per V of each driver on the axis (D, F) and at every position of an off-axis job (A, D, F), or None.
+
+    Each driver's response is divided by its reference voltage and multiplied by its placement factor
+    (:func:`~xo_fit.physics.geometry.placement_factors`): the propagation from its acoustic centre to the
+    listening point for data that do not carry the geometry, the offset delay for data that do. A job without
+    positions and distance gets the offset delay on the axis bit for bit as before.
+    """
+    centres = acoustic_centres([p.x for p in placements], [p.y for p in placements], [p.offset for p in placements])
+    try:
+        place = placement_factors(positions or (("h", 0),), centres, [not p.carries for p in placements], grid,
+                                  speed_of_sound=job.speed_of_sound, distance=job.distance)  # (A, D, F)
+    except XoFitError as e:
+        raise JobError(e.message, path=job.path, key="[acoustics] distance") from None
+    vref = np.array([d.reference_voltage for d in job.drivers])
+    factors = np.stack([d.response for d in drivers]) / vref[:, None] * place[0]
     factors.setflags(write=False)
     angle_factors = None
     if positions:
-        per_volt = acoustics.driver_factors(  # 1 / V_ref and the offset delay, (D, F)
-            np.ones((len(drivers), grid.size)), np.array([d.reference_voltage for d in job.drivers]),
-            np.array([d.offset for d in job.drivers]), grid, job.speed_of_sound)
-        angle_factors = np.stack([d.angle_responses for d in drivers], axis=1) * per_volt[None]  # (A, D, F)
+        per_volt = np.ones((len(drivers), grid.size)) / vref[:, None]  # 1 / V_ref, (D, F)
+        angle_factors = np.stack([d.angle_responses for d in drivers], axis=1) * (per_volt[None] * place)
         angle_factors.setflags(write=False)
-    return System(job=job, frequencies=grid, drivers=drivers, network=network, factors=factors,
-                  warnings=tuple(warnings), positions=positions, angle_factors=angle_factors)
+    return factors, angle_factors
 
 
 def derive_system(system: System, job: Job) -> System:
@@ -348,4 +380,4 @@ def derive_system(system: System, job: Job) -> System:
                               context=str(job.path) if job.path else None)
     return System(job=job, frequencies=system.frequencies, drivers=system.drivers, network=network,
                   factors=system.factors, warnings=(), positions=system.positions,
-                  angle_factors=system.angle_factors)
+                  angle_factors=system.angle_factors, placements=system.placements)

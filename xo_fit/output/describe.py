@@ -34,6 +34,20 @@ def describe_ideal(src) -> str:
     return str(src)
 
 
+def placement_lines(system) -> list[str]:
+    """Where the drivers are and how each one's geometry enters the sums (``check``): the listening distance,
+    then one line per driver (:func:`~xo_fit.physics.geometry.placement_line`)."""
+    import math
+
+    from xo_fit.physics.geometry import placement_line
+    from xo_fit.units import format_value
+
+    d = system.job.distance
+    field = ("far field (distance \"far\"): path differences only" if math.isinf(d) else
+             f"listening distance {format_value(d, 'm')} from the reference point: exact paths, levels 1/r")
+    return [f"placement {field}"] + [f"  {placement_line(p, d)}" for p in system.placements]
+
+
 def describe(system) -> list[str]:
     """What ``xo-fit check`` prints of a loaded system (:class:`~xo_fit.model.system.System`): the grid, each
     driver's data and how it is extended, the off-axis positions and curves, the parts, the target, the free
@@ -78,7 +92,10 @@ def describe(system) -> list[str]:
             mirrored = sum(1 for pos, (_, a) in files.items() if a != pos[1])
             out.append(f"    angles    {len(files) + 1} positions with the axis ({sum(1 for p in files if p[0] == 'h')} "
                 f"horizontal, {sum(1 for p in files if p[0] == 'v')} vertical)"
-                + (f", {mirrored} mirrored" if mirrored else ""))
+                + (f", {mirrored} mirrored" if mirrored else "")
+                + (f"; each a far field spliced with the near field at {format_value(d.splice.splice_hz, 'Hz')} "
+                   f"({d.splice.gain_db:+.2f} dB, as on the axis)" if d.splice is not None else ""))
+    out += placement_lines(system)
     if system.positions:
         from xo_fit.model.acoustics import curve_weights, missing_positions
 

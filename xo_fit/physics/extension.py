@@ -71,7 +71,7 @@ class Splice:
     splice_hz: float
 
 
-def splice_curves(near: Curve, far: Curve, splice_hz: float) -> Splice:
+def splice_curves(near: Curve, far: Curve, splice_hz: float, gain_db: float | None = None) -> Splice:
     """Join a near-field response (below ``splice_hz``) to a far-field one (above), both dB SPL.
 
     The near field is shifted by the mean dB difference over the third of an octave centred on the splice
@@ -80,6 +80,10 @@ def splice_curves(near: Curve, far: Curve, splice_hz: float) -> Splice:
     covers the near file's start to the far file's end, at SPLICE_PER_OCTAVE points per octave; it has no
     phase (it takes minimum phase from its whole magnitude). Raises DataError when either file does not
     cover the splice's third of an octave.
+
+    ``gain_db`` (dB), when given, is the near field's shift instead of the one matched here: an off-axis far
+    field spliced with the on-axis splice's shift, so that the near field is the same at every angle
+    (omnidirectional below the splice).
     """
     half = SPLICE_OCTAVES / 2 * np.log(2.0)
     u0 = float(np.log(splice_hz))
@@ -91,7 +95,8 @@ def splice_curves(near: Curve, far: Curve, splice_hz: float) -> Splice:
                             f"({np.exp(u0 - half):.4g}-{np.exp(u0 + half):.4g} Hz)", path=c.path)
     un, uf = np.log(near.frequency), np.log(far.frequency)
     window = np.linspace(u0 - half, u0 + half, 33)
-    gain = float(np.mean(np.interp(window, uf, far.magnitude) - np.interp(window, un, near.magnitude)))
+    gain = (float(np.mean(np.interp(window, uf, far.magnitude) - np.interp(window, un, near.magnitude)))
+            if gain_db is None else float(gain_db))
     lo, hi = float(un[0]), float(uf[-1])
     n = max(int(np.ceil((hi - lo) / np.log(2.0) * SPLICE_PER_OCTAVE)) + 1, 2)
     u = np.linspace(lo, hi, n)
