@@ -380,9 +380,11 @@ class FusedCost:
         # mean (300 Hz..10 kHz), interpolated in log f with the point above; none: the grid's lowest frequency
         s, e, top = plan.ref_start, plan.ref_stop, plan.lfx_top
         out += ["pf_sl = 0.0", f"for f in range({s}, {e}):", i1 + f"pf_sl += scratch[{r_lw}, f]",
-                f"pf_thr = pf_sl / {e - s}.0 - {LFX_DROP_DB!r}", "pf_i = -1", f"for f in range(0, {top + 1}):",
-                i1 + f"if scratch[{r_sp}, f] <= pf_thr:", i2 + "pf_i = f",
-                f"pf_lfx = tgt[{r_logf}, 0]", "if pf_i >= 0:", i1 + f"pf_j = pf_i + 1 if pf_i < {top} else pf_i",
+                f"pf_thr = pf_sl / {e - s}.0 - {LFX_DROP_DB!r}", "pf_i = 0", "pf_hit = 0.0",
+                f"for f in range(0, {top + 1}):",
+                i1 + f"if scratch[{r_sp}, f] <= pf_thr:", i2 + "pf_i = f", i2 + "pf_hit = 1.0",
+                # (a found flag, not a -1 sentinel: the C translation refuses an index it cannot prove >= 0)
+                f"pf_lfx = tgt[{r_logf}, 0]", "if pf_hit > 0.5:", i1 + f"pf_j = pf_i + 1 if pf_i < {top} else pf_i",
                 i1 + f"pf_lfx = tgt[{r_logf}, pf_i]", i1 + "if pf_j > pf_i:",
                 i2 + f"pf_yi = scratch[{r_sp}, pf_i]",
                 i2 + f"pf_lfx = pf_lfx + (pf_thr - pf_yi) / (scratch[{r_sp}, pf_j] - pf_yi) * "
