@@ -197,13 +197,13 @@ class FusedCost:
                                ind + f"    scratch[{row_q + 1}, f] {op} wa1 * q2",
                                ind + f"    scratch[{row_q + 2}, f] {op} wa2 * q2"]
             if need["listening_window"]:
-                angle_post += [f"sd = DB10 * ln(max(scratch[{row_q}, f], P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                angle_post += [f"sd = DB10 * ln_floored(max(scratch[{row_q}, f], P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
                                f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
             if need["early_reflections"]:
-                angle_post += [f"ed = DB10 * ln(max(scratch[{row_q + 1}, f], P2F)) - PREF_DB",
+                angle_post += [f"ed = DB10 * ln_floored(max(scratch[{row_q + 1}, f], P2F)) - PREF_DB",
                                f"scratch[{row_e}, f] = ed", "acc_e += ed"]
             if need["sound_power"]:
-                angle_post += [f"spd = DB10 * ln(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
+                angle_post += [f"spd = DB10 * ln_floored(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
                                f"scratch[{row_p}, f] = spd", "acc_sp += spd"]
         pref = self.plan is not None
         assert self.scratch_rows == row_q + 3 + (4 if pref else 0)
@@ -212,13 +212,13 @@ class FusedCost:
         for k, (vr, vi) in enumerate(code.volts):
             lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
                       f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
-                      f"pd{k} = DB10 * ln(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
+                      f"pd{k} = DB10 * ln_floored(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
                       f"scratch[{k}, f] = pd{k}"]
         lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}"]
         if pref:  # the on-axis level, whatever the sum's reference
-            lines += [f"scratch[{row_q + 3}, f] = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB"]
+            lines += [f"scratch[{row_q + 3}, f] = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB"]
         if not need["listening_window"]:  # else the listening window's level, after the positions are summed
-            lines += ["sd = DB10 * ln(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+            lines += ["sd = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
                       f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
         for j, (a, b, _, _) in enumerate(cm.pairs):
             base = self.row_pairs + 3 * j
@@ -229,7 +229,7 @@ class FusedCost:
         if floor > 0:
             zr, zi = code.zin
             lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
-                      f"sh = DB10 * ln(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
+                      f"sh = DB10 * ln_floored(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
                       f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
         peaks = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
         for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(cm.rated, code.currents)):
@@ -271,7 +271,7 @@ class FusedCost:
             *code.comment,
             "import numba",
             "from math import sqrt",
-            "from xo_fit.solver.vecmath import ln, DB10",
+            "from xo_fit.solver.vecmath import ln, ln_floored, DB10",
             "",
             f"P2F = {_P2_FLOOR!r}",
             f"PREF_DB = {_PREF_DB!r}",
@@ -316,7 +316,7 @@ class FusedCost:
                 ratio = f"2.0 * mq{m} / (x_{j} * x_{j}) * {k2!r} / {rating * rating!r}"
             else:
                 ratio = f"2.0 * mq{m} * {k2!r} / {rating * rating!r}"
-            src += [i1 + f"ex{m} = DB10 * ln(max({ratio}, 1.0))", i1 + f"acc_st += ex{m} * ex{m}"]
+            src += [i1 + f"ex{m} = DB10 * ln_floored(max({ratio}, 1.0))", i1 + f"acc_st += ex{m} * ex{m}"]
         src.append(i1 + (f"t_stress = acc_st / {len(cm.rated)}.0" if cm.rated else "t_stress = 0.0"))
         src += [
             i1 + (f"t_way = acc_w / {nb * len(ways)}.0" if ways else "t_way = 0.0"),
