@@ -22,24 +22,26 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from xo_fit.constants import PART_UNIT
+from xo_fit.constants import PART_UNIT, SPEED_OF_SOUND
 from xo_fit.grid import Grid
 
 #: Every default of the job format, by table and key.
 DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "grid": {"f_min": 20.0, "f_max": 20000.0, "points": 320},
     "source": {"voltage": 2.83, "resistance": 0.0},
-    "acoustics": {"speed_of_sound": 343.0},
+    "acoustics": {"speed_of_sound": SPEED_OF_SOUND},
     "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
                "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
                "impedance_extend_low": "none", "impedance_extend_high": "none"},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
+    "box": {"ql": 7.0},
     "angles": {"mirror": False},
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
     "target": {"level": "auto", "curve": "flat", "reference": "on_axis"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0,
-             "early_reflections": 0.0, "sound_power": 0.0},
+             "early_reflections": 0.0, "sound_power": 0.0,
+             "protection": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
@@ -157,6 +159,29 @@ class ThieleSmall:
 
 
 @dataclass(frozen=True)
+class ModelImpedance:
+    """``impedance = "model"``: the driver's impedance is that of its ``[driver.NAME.ts]`` set in its
+    ``[driver.NAME.box]`` (an infinite baffle without one), worked out by :mod:`xo_fit.physics.box`."""
+
+
+#: Every key of a ``[driver.NAME.ts]`` table and its base unit ("" for a plain number).
+TS_UNITS: Mapping[str, str] = MappingProxyType({
+    "re": "ohm", "le": "H", "fs": "Hz", "qms": "", "qes": "", "qts": "", "vas": "m3", "sd": "m2", "bl": "T m",
+    "mms": "kg", "cms": "m/N", "rms": "kg/s", "xmax": "m", "power": "W", "l2": "H", "r2": "ohm"})
+
+
+@dataclass(frozen=True)
+class BoxSpec:
+    """A driver's box as the job gives it (SI): ``kind`` "closed" or "vented", the net ``volume`` (m^3), the
+    vented box's ``tuning`` (Hz; None for a closed box) and leakage ``ql``."""
+
+    kind: str
+    volume: float
+    tuning: float | None = None
+    ql: float = DEFAULTS["box"]["ql"]
+
+
+@dataclass(frozen=True)
 class AngleSpec:
     """Where a driver's responses at other angles are: a file pattern per orbit with ``{angle}`` in it (the
     angle in degrees as an integer), the angles of each orbit, and whether a horizontal angle -a that is not
@@ -203,7 +228,7 @@ class DriverSpec:
 
     name: str
     response: FileCurve | FlatResponse | SplicedResponse
-    impedance: FileCurve | Resistive | ThieleSmall
+    impedance: FileCurve | Resistive | ThieleSmall | ModelImpedance
     reference_voltage: float
     offset: float
     phase: str
@@ -213,6 +238,8 @@ class DriverSpec:
     impedance_extend_low: str = "none"
     impedance_extend_high: str = "none"
     angles: AngleSpec | None = None
+    ts: Mapping[str, float] | None = None  # the [driver.NAME.ts] values given, SI (the rest is derived later)
+    box: BoxSpec | None = None
 
 
 @dataclass(frozen=True)
@@ -284,6 +311,7 @@ class CostSpec:
     stress: float = DEFAULTS["cost"]["stress"]
     early_reflections: float = DEFAULTS["cost"]["early_reflections"]
     sound_power: float = DEFAULTS["cost"]["sound_power"]
+    protection: float = DEFAULTS["cost"]["protection"]
 
 
 @dataclass(frozen=True)
@@ -388,14 +416,17 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "source": "voltage resistance",
     "acoustics": "speed_of_sound",
     "driver": "response impedance reference_voltage offset phase impedance_phase extend_low extend_high "
-              "impedance_extend_low impedance_extend_high",
+              "impedance_extend_low impedance_extend_high ts box",
     "thiele_small": "re le fs qms qes le_exponent l2 r2",
+    "ts": " ".join(TS_UNITS),
+    "box": "type volume tuning ql",
     "angles": "horizontal vertical horizontal_angles vertical_angles mirror",
     "splice": "near far splice_hz",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",
-    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power",
+    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power "
+            "protection",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
     "snap": "series inventory combine top_up",
