@@ -170,6 +170,15 @@ TS_UNITS: Mapping[str, str] = MappingProxyType({
     "mms": "kg", "cms": "m/N", "rms": "kg/s", "xmax": "m", "power": "W", "l2": "H", "r2": "ohm"})
 
 
+#: What drivers and boxes have, SI (common practice, from a tweeter's dome to a large woofer's cone): a value
+#: outside is legal but earns a warning, since it is usually a slip of the unit (``vas = 60`` is 60 m^3).
+TS_PLAUSIBLE: Mapping[str, tuple[float, float]] = MappingProxyType({
+    "re": (0.5, 100.0), "le": (0.0, 0.05), "fs": (5.0, 20000.0), "qms": (0.3, 100.0), "qes": (0.05, 20.0),
+    "qts": (0.05, 5.0), "vas": (1e-6, 3.0), "sd": (1e-5, 0.5), "bl": (0.5, 50.0), "mms": (1e-5, 1.0),
+    "cms": (1e-6, 0.01), "rms": (0.01, 100.0), "xmax": (1e-5, 0.05), "power": (0.1, 1e4), "l2": (0.0, 0.05),
+    "r2": (0.01, 1e4), "volume": (1e-4, 3.0), "tuning": (5.0, 1000.0), "ql": (1.0, 100.0)})
+
+
 @dataclass(frozen=True)
 class BoxSpec:
     """A driver's box as the job gives it (SI): ``kind`` "closed" or "vented", the net ``volume`` (m^3), the

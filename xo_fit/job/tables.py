@@ -12,7 +12,7 @@ from xo_fit.errors import XoFitError
 from xo_fit.grid import Grid
 from xo_fit.units import UnitsError, parse_percent, parse_value
 from xo_fit.job.model import (DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
-from xo_fit.job.model import TS_UNITS, BoxSpec, ModelImpedance
+from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice)
 
 def read_stress(r: Reader) -> StressSpec:
@@ -147,7 +147,18 @@ def read_ts(r: Reader) -> FrozenMap:
         raise r.error("l2" if "r2" in out else "r2", "the lossy coil needs both l2 (H) and r2 (ohm, across l2)")
     if not out:
         raise r.error(None, "empty; expected the driver's parameters (re, fs, qms, qes, vas, sd, ...)")
+    plausible(r, out, TS_UNITS)
     return FrozenMap(out)
+
+
+def plausible(r: Reader, values: dict, units: dict) -> None:
+    """A one-line warning for each value outside what drivers and boxes have (TS_PLAUSIBLE): a unit slip."""
+    for key, v in values.items():
+        lo, hi = TS_PLAUSIBLE[key]
+        if v is not None and not lo <= v <= hi:
+            unit = {"m3": "m^3", "m2": "m^2"}.get(units[key], units[key])
+            r.ctx.warn(r.table, key, f"{r.label} {key} = {v:g} {unit} lies outside what drivers and boxes have "
+                                     f"({lo:g} to {hi:g} {unit}); check the unit (\"60L\", \"220cm2\", \"6mm\")")
 
 
 def read_box(r: Reader) -> BoxSpec:
@@ -162,10 +173,12 @@ def read_box(r: Reader) -> BoxSpec:
                 raise r.error(key, f"a closed box takes no {key} (a vented box's); give type = \"vented\" or leave "
                                    f"{key} out")
         r.done()
+        plausible(r, {"volume": volume}, {"volume": "m3"})
         return BoxSpec("closed", volume)
     tuning = r.value("tuning", "Hz", required=True)
     ql = r.value("ql", "", DEFAULTS["box"]["ql"])
     r.done()
+    plausible(r, {"volume": volume, "tuning": tuning, "ql": ql}, {"volume": "m3", "tuning": "Hz", "ql": ""})
     return BoxSpec("vented", volume, tuning, ql)
 
 

@@ -146,8 +146,9 @@ class CostModel:
             from xo_fit.model.protection import protection_model
 
             self.protection = protection_model(system)
-        #: terms the fused kernel lacks: a search must score with :meth:`evaluate` (xo_fit.search.fitting)
-        self.needs_reference = spec.protection > 0
+        #: terms the fused kernel lacks: a search must score with :meth:`evaluate` (xo_fit.search.fitting); a
+        #: protection weight without a driver to protect is a term of 0 (the job reader warns of it)
+        self.needs_reference = self.protection is not None
         band = targets.band
         self.band = band
         self.t_sys_db = spl_db_unit(targets.system)[band]
@@ -190,9 +191,8 @@ class CostModel:
             "impedance": self._impedance(sim.impedance[..., band]),
             "stress": self._stress(values, sim.impedance.shape[0]),
         }
-        if self.needs_reference:
-            terms["protection"] = (self.protection.penalty(sim.voltages) if self.protection is not None
-                                   else np.zeros(s_db.shape[0]))
+        if self.protection is not None:
+            terms["protection"] = self.protection.penalty(sim.voltages)
         if self.off_axis:
             for k in OFF_AXIS_TERMS:
                 terms[k] = (roughness(power_db(curves[k][..., band]), np.log2(self.system.frequencies[band]))
