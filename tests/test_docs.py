@@ -102,7 +102,8 @@ def test_job_format_doc_has_every_default():
 
     where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
              "thiele_small": "[driver.NAME.impedance]", "angles": "[driver.NAME.angles]",
-             "position": "[driver.NAME.position]", "part": "[[part]]", "target": "[target]",
+             "position": "[driver.NAME.position]", "box": "[driver.NAME.box]", "part": "[[part]]",
+             "target": "[target]",
              "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
              "spread": "[spread]", "stress": "[stress]"}
     assert set(where) == set(DEFAULTS)
@@ -166,8 +167,8 @@ def test_job_format_doc_lists_every_key():
 
     where = {"grid": "[grid]", "source": "[source]", "acoustics": "[acoustics]", "driver": "[driver.NAME]",
              "thiele_small": "[driver.NAME.impedance]", "angles": "[driver.NAME.angles]",
-             "splice": "[driver.NAME.response]", "position": "[driver.NAME.position]", "part": "[[part]]",
-             "target": "[target]",
+             "splice": "[driver.NAME.response]", "position": "[driver.NAME.position]", "ts": "[driver.NAME.ts]",
+             "box": "[driver.NAME.box]", "part": "[[part]]", "target": "[target]",
              "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
              "spread": "[spread]", "stress": "[stress]"}
     docs = _doc_sections()

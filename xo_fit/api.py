@@ -224,14 +224,31 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
                                     max_increase=max_increase, workers=workers, progress=progress))
 
 
-def fit_driver(path: str | Path, model: str = "ts"):
+def fit_driver(path: str | Path, model: str = "ts", volume: float | None = None):
     """An equivalent circuit fitted to a measured impedance file (``"ts"``: Small's model; ``"ts-lossy"``: with
     L2 || R2): an :class:`xo_fit.physics.impedance_fit.ImpedanceFit` (``params``, ``rms_error_pct``,
-    ``max_error_pct``, ``toml(name)``). Bad files and fits that fail raise XoFitError."""
-    from xo_fit.physics.impedance_fit import fit_impedance
+    ``max_error_pct``, ``toml(name)``). ``"vented"`` (``"vented-lossy"``: with L2 || R2) fits a driver in its
+    vented box to the twin-peak impedance: a :class:`xo_fit.physics.vented_fit.VentedFit` (re, le, fs, qms, qes,
+    alpha = Vas/Vb, fb, ql, the same error figures, ``toml(name)`` with the ts and box tables); ``volume``
+    (m^3), the box's net volume where known, gives vas. Bad files and fits that fail raise XoFitError."""
     from xo_fit.io.measure import read_curve
+    from xo_fit.physics.impedance_fit import MODELS, fit_impedance
 
-    return fit_impedance(read_curve(path, "impedance"), model)
+    if model not in MODELS + VENTED_MODELS:
+        raise XoFitError(f"expected one of {', '.join(MODELS + VENTED_MODELS)}, got {model!r}", key="--model")
+    curve = read_curve(path, "impedance")
+    if model in VENTED_MODELS:
+        from xo_fit.physics.vented_fit import fit_vented
+
+        z = curve.magnitude if curve.phase_deg is None else curve.magnitude * np.exp(1j * np.deg2rad(curve.phase_deg))
+        return fit_vented(curve.frequency, z, lossy=model == "vented-lossy", volume=volume, path=curve.path)
+    if volume is not None:
+        raise XoFitError(f"a box volume belongs to --model vented, not {model}", key="--volume")
+    return fit_impedance(curve, model)
+
+
+#: The vented-box models ``fit_driver`` takes besides the free-air ones.
+VENTED_MODELS = ("vented", "vented-lossy")
 
 
 def write_report(items: list, out: str | Path, command: list[str] | None = None) -> Path:

@@ -1,8 +1,8 @@
 """Constants shared across the package: one home, so no two modules can disagree.
 
 Node names of the netlist, the pressure reference of dB SPL, the floors that
-stand in for the logarithm of zero, the solver's pivot tolerance, and the SI
-unit of each valued part type.
+stand in for the logarithm of zero, the solver's pivot tolerance, the SI
+unit of each valued part type, and the speed of sound.
 """
 
 from __future__ import annotations
@@ -34,6 +34,11 @@ PART_TYPES = ("R", "L", "C", "driver")
 PART_UNIT = {"R": "ohm", "L": "H", "C": "F"}
 #: Unit of a part's rating, by type: W for a resistor, V for a capacitor, A for a coil.
 RATING_UNIT = {"R": "W", "C": "V", "L": "A"}
+
+#: Speed of sound in air, m/s: the job's [acoustics] default (offsets into delays) and the air of the
+#: Thiele-Small relations (Vas = rho c^2 Sd^2 Cms); c = sqrt(gamma R T) with gamma = 1.40 and R = 287.05 J/(kg K)
+#: gives 343.0 m/s at 19.6 C (343.2 at 20 C), one value for both so that they cannot disagree.
+SPEED_OF_SOUND = 343.0
 
 #: Version of the result.json layout written by this package.
 RESULT_FORMAT = 2

@@ -7,7 +7,12 @@ way a designer's own in-cabinet measurements would look:
 
 * woofer impedance: Thiele-Small (R. H. Small, JAES 1972) at the in-box
   resonance, with a lossy voice-coil inductance Z = K (j w)^n (W. M. Leach,
-  JAES 50(6), 2002);
+  JAES 50(6), 2002); the job gives its data sheet too ([driver.woofer.ts] and .box,
+  descriptive: the measured impedance file stays the one the network uses):
+  the free-air set that this in-box model is in its 12 L sealed box, by
+  Small's closed-box relations fc = fs sqrt(1 + alpha), Qmc = Qms sqrt(1 +
+  alpha), Qec = Qes sqrt(1 + alpha) with alpha = Vas/Vb = 2, and Sd the
+  cone's radiating area (pi a^2, a = WOOFER_RADIUS);
 * woofer response: the sealed-box 2nd-order high-pass, the baffle-step shelf
   (midpoint 115 / W Hz after H. F. Olson; a first-order shelf, docs/references.md),
   the current roll-off of the voice-coil inductance, a cone breakup peak and
@@ -38,6 +43,7 @@ from pathlib import Path
 
 import numpy as np
 
+from xo_fit.constants import SPEED_OF_SOUND  # the scenario's air: the job's [acoustics] default
 from xo_fit.job.model import ThieleSmall
 from xo_fit.io.results import write_text
 
@@ -50,8 +56,6 @@ TWEETER_RADIUS = 0.013
 #: The woofer's centre relative to the tweeter's (the reference point): height (m, up positive), depth (m).
 WOOFER_HEIGHT = -0.15
 WOOFER_DEPTH = 0.018
-#: Speed of sound of the scenario (m/s), as in the job's [acoustics] default.
-SPEED_OF_SOUND = 343.0
 #: The angles of the demo's off-axis files (deg): horizontal 10..180 (mirrored), vertical -170..170.
 H_ANGLES = tuple(range(10, 181, 10))
 V_ANGLES = tuple(a for a in range(-170, 171, 10) if a != 0)
@@ -188,6 +192,23 @@ horizontal_angles = [10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140
 vertical_angles = [-170, -160, -150, -140, -130, -120, -110, -100, -90, -80, -70, -60, -50, -40, -30, -20, -10,
                    10, 20, 30, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170]
 mirror = true
+
+# the woofer's data sheet (free air) and its sealed box: the measured impedance above is the
+# in-box one, fc = fs sqrt(1 + Vas/Vb) = 58 Hz; check prints what follows, the report the excursion
+[driver.woofer.ts]
+re = 5.4
+le = "0.6mH"
+fs = 33.49
+qms = 1.963
+qes = 0.358
+vas = "24L"
+sd = "137cm2"
+xmax = "4mm"                     # linear one-way excursion
+power = 50                       # W, programme rating
+
+[driver.woofer.box]
+type = "closed"
+volume = "12L"
 
 # gated from 300 Hz: the data below are a 2nd-order high-pass fitted to its
 # lowest octave, and the phase is derived from the extended magnitude

@@ -41,12 +41,30 @@ UNIT_SPELLINGS: dict[str, frozenset[str]] = {
     "W": frozenset({"W"}),
     "A": frozenset({"A"}),
     "m/s": frozenset({"m/s"}),
+    "m/N": frozenset({"m/N"}),  # a suspension's compliance: "0.8mm/N"
     "": frozenset(),
 }
 
+#: Units written in a form of their own, with its factor to the base unit; no prefix is taken on these (a
+#: volume, an area: "cm2" is 1e-4 m^2, which no prefix rule gives), except that "L" and "g" take p..G as
+#: any unit does ("500mL"). Driver data sheets quote volumes in litres, areas in cm^2, masses in grams.
+UNIT_FORMS: dict[str, dict[str, float]] = {
+    "m3": {"m3": 1.0, "m^3": 1.0, "m³": 1.0, "L": 1e-3, "l": 1e-3, "dm3": 1e-3, "cm3": 1e-6},
+    "m2": {"m2": 1.0, "m^2": 1.0, "m²": 1.0, "cm2": 1e-4, "cm^2": 1e-4, "cm²": 1e-4, "mm2": 1e-6,
+           "mm^2": 1e-6, "mm²": 1e-6},
+    "kg": {"kg": 1.0, "g": 1e-3},
+    "T m": {"T m": 1.0, "Tm": 1.0, "T*m": 1.0, "T·m": 1.0, "N/A": 1.0},
+    "kg/s": {"kg/s": 1.0, "N s/m": 1.0, "Ns/m": 1.0},
+}
+#: The forms of UNIT_FORMS that take an SI prefix ("mL", "mg").
+_PREFIXED_FORMS = {"L", "l", "g"}
+
 #: How each base unit is printed.
 UNIT_SYMBOL = {"ohm": "Ω", "H": "H", "F": "F", "Hz": "Hz", "m": "m", "V": "V", "s": "s", "W": "W", "A": "A",
-               "m/s": "m/s", "": ""}
+               "m/s": "m/s", "m/N": "m/N", "m3": "m³", "m2": "m²", "kg": "kg", "T m": "T m", "kg/s": "kg/s",
+               "": ""}
+#: The other form named in messages, for the units that have one.
+_ALSO = {"m3": "L", "m2": "cm2", "kg": "g", "T m": "N/A", "kg/s": "N s/m"}
 
 _PREFIX = {"p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "μ": 1e-6, "m": 1e-3,
            "k": 1e3, "K": 1e3, "M": 1e6, "G": 1e9}
@@ -64,7 +82,16 @@ class UnitsError(XoFitError):
 
 
 def _describe(unit: str) -> str:
-    return f"a value in {UNIT_SYMBOL.get(unit, unit)}" if unit else "a plain number"
+    if not unit:
+        return "a plain number"
+    return f"a value in {UNIT_SYMBOL.get(unit, unit)}" + (f" (or {_ALSO[unit]})" if unit in _ALSO else "")
+
+
+def _times(number: str, factor: float) -> float:
+    """``number`` (decimal text, or a float) times a form's factor, rounded once: "220" cm2 is exactly 0.022."""
+    from decimal import Decimal
+
+    return float(Decimal(number) * Decimal(repr(factor))) if factor != 1.0 else float(number)
 
 
 def _letter_code(text: str, unit: str) -> float | None:
@@ -82,7 +109,8 @@ def _letter_code(text: str, unit: str) -> float | None:
                          f"expected {_describe(unit)}")
     _check_unit(text, m["unit"], unit)
     number = f"{m['sign']}{m['int'] or '0'}.{m['frac'] or '0'}"
-    return float(number) if mark == "R" else _scale(number, mark)
+    factor = UNIT_FORMS.get(unit, {}).get(m["unit"], 1.0)  # "1k5g": 1.5 kg
+    return float(number) if mark == "R" else _times(repr(_scale(number, mark)), factor)
 
 
 def _scale(number: str, prefix: str) -> float:
@@ -93,7 +121,7 @@ def _scale(number: str, prefix: str) -> float:
     return float(Decimal(number).scaleb(exponent))
 
 
-_SCALED = re.compile(r"^(?P<num>[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?)\s*(?P<rest>\S+)$")
+_SCALED = re.compile(r"^(?P<num>[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?)\s*(?P<rest>\S(?:.*\S)?)$")
 
 
 def _scaled(text: str, unit: str) -> float:
@@ -107,6 +135,13 @@ def _scaled(text: str, unit: str) -> float:
         return _scale(number, rest)
     if rest in spellings:
         return float(number)
+    forms = UNIT_FORMS.get(unit, {})
+    if rest in forms:
+        return _times(number, forms[rest])
+    if rest[0] in _PREFIX and rest[1:] in forms and rest[1:] in _PREFIXED_FORMS:
+        return _times(repr(_scale(number, rest[0])), forms[rest[1:]])
+    if " " in rest:
+        raise UnitsError(f"'{text}' is not {_describe(unit)}")
     if rest[0] in _PREFIX and rest[1:] in spellings:
         return _scale(number, rest[0])
     if rest[0] in _PREFIX or (len(rest) > 1 and rest[1:] in spellings):
@@ -116,7 +151,7 @@ def _scaled(text: str, unit: str) -> float:
 
 
 def _check_unit(text: str, written: str, unit: str) -> None:
-    if written and written not in UNIT_SPELLINGS.get(unit, frozenset()):
+    if written and written not in UNIT_SPELLINGS.get(unit, frozenset()) and written not in UNIT_FORMS.get(unit, {}):
         raise UnitsError(f"'{text}' is not {_describe(unit)}")
 
 

@@ -124,10 +124,31 @@ def print_cautions(system, s) -> None:
             rated = f" (rated {p.rating:g} {p.unit})" if p.rating is not None else ""
             say(f"    {p.name:<8} {p.sine_worst:8.3g} {p.unit} {p.figure} at {p.at_hz:.0f} Hz{prog}{rated}")
         notes = design_cautions(st, spec.rated_impedance)
+        notes = print_protection(system, s) + notes
     else:
         notes = load_cautions(s.metrics["impedance_min_ohm"], system.job.cost.impedance_min)
     for c in notes:
         say(f"  caution: {c}")
+
+
+def print_protection(system, s) -> list[str]:
+    """Print each protected driver's excursion and power at the [stress] drive; return their cautions."""
+    from xo_fit.model.protection import protection
+    from xo_fit.output.cautions import protection_cautions
+
+    spec = system.job.stress
+    prot = protection(system, s.sim.voltages)
+    if not prot:
+        return []
+    say(f"  drivers at {spec.power:g} W into {spec.rated_impedance:g} ohm (sine excursion, programme power, over the "
+        "band):")
+    for name, p in prot.items():
+        x = ("excursion undetermined (give sd)" if p["excursion_mm"] is None else
+             f"excursion {p['excursion_mm']:.3g} mm at {p['at_hz']:.0f} Hz"
+             + (f" (xmax {p['xmax_mm']:.3g} mm)" if p["xmax_mm"] is not None else ""))
+        w = f"power {p['power_w']:.3g} W" + (f" (rated {p['rating_w']:g} W)" if p["rating_w"] is not None else "")
+        say(f"    {name:<8} {x}, {w}: {'within' if p['within'] else 'OVER'}")
+    return protection_cautions(prot, spec)
 
 
 class Progress:

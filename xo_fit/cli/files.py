@@ -10,7 +10,7 @@ from typing import Optional
 import typer
 
 from xo_fit.cli.base import app
-from xo_fit.cli.console import OUT, print_summary, say
+from xo_fit.cli.console import OUT, print_summary, say, warn
 from xo_fit.errors import XoFitError
 
 
@@ -88,3 +88,5 @@ def export(result: Path = typer.Argument(..., help="A result.json (or its folder
         f"writes {deck.data_file}")
     for note in deck.notes:
         say(f"  {note}")
+    for w in deck.warnings:
+        warn(w)

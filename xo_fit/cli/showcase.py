@@ -29,7 +29,7 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
         "acoustic centre: the vertical lobing comes from the geometry (check):")
     check(job=job)
     say("an equivalent circuit fitted to the woofer's measured impedance (xo-fit driver FILE --model ts-lossy):")
-    driver(impedance=job.parent / "data" / "woofer-impedance.txt", model="ts-lossy", name="woofer")
+    driver(impedance=job.parent / "data" / "woofer-impedance.txt", model="ts-lossy", name="woofer", volume=None)
     say("hand design (textbook starting values):")
     simulate(job=job, out=out / "hand-design", from_=None, no_plots=False)
     say("fit:")

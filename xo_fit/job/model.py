@@ -23,25 +23,27 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from xo_fit.constants import PART_UNIT
+from xo_fit.constants import PART_UNIT, SPEED_OF_SOUND
 from xo_fit.grid import Grid
 
 #: Every default of the job format, by table and key.
 DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "grid": {"f_min": 20.0, "f_max": 20000.0, "points": 320},
     "source": {"voltage": 2.83, "resistance": 0.0},
-    "acoustics": {"speed_of_sound": 343.0, "distance": "far"},
+    "acoustics": {"speed_of_sound": SPEED_OF_SOUND, "distance": "far"},
     "driver": {"reference_voltage": 2.83, "offset": 0.0, "phase": "measured",
                "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
                "impedance_extend_low": "none", "impedance_extend_high": "none"},
     "position": {"x": 0.0, "y": 0.0},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
+    "box": {"ql": 7.0},
     "angles": {"mirror": False},
     "part": {"fixed": False, "keep": False, "dcr": 0.0, "esr": 0.0},
     "target": {"level": "auto", "curve": "flat", "reference": "on_axis"},
     "way": {"order": 4, "alignment": "LR", "polarity": "auto"},
     "cost": {"way": 1.0, "sum": 1.0, "phase": 0.5, "impedance": 1.0, "impedance_min": 0.0, "stress": 0.0,
-             "early_reflections": 0.0, "sound_power": 0.0, "preference": 0.0},
+             "early_reflections": 0.0, "sound_power": 0.0, "preference": 0.0,
+             "protection": 0.0},
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
@@ -159,6 +161,38 @@ class ThieleSmall:
 
 
 @dataclass(frozen=True)
+class ModelImpedance:
+    """``impedance = "model"``: the driver's impedance is that of its ``[driver.NAME.ts]`` set in its
+    ``[driver.NAME.box]`` (an infinite baffle without one), worked out by :mod:`xo_fit.physics.box`."""
+
+
+#: Every key of a ``[driver.NAME.ts]`` table and its base unit ("" for a plain number).
+TS_UNITS: Mapping[str, str] = MappingProxyType({
+    "re": "ohm", "le": "H", "fs": "Hz", "qms": "", "qes": "", "qts": "", "vas": "m3", "sd": "m2", "bl": "T m",
+    "mms": "kg", "cms": "m/N", "rms": "kg/s", "xmax": "m", "power": "W", "l2": "H", "r2": "ohm"})
+
+
+#: What drivers and boxes have, SI (common practice, from a tweeter's dome to a large woofer's cone): a value
+#: outside is legal but earns a warning, since it is usually a slip of the unit (``vas = 60`` is 60 m^3).
+TS_PLAUSIBLE: Mapping[str, tuple[float, float]] = MappingProxyType({
+    "re": (0.5, 100.0), "le": (0.0, 0.05), "fs": (5.0, 20000.0), "qms": (0.3, 100.0), "qes": (0.05, 20.0),
+    "qts": (0.05, 5.0), "vas": (1e-6, 3.0), "sd": (1e-5, 0.5), "bl": (0.5, 50.0), "mms": (1e-5, 1.0),
+    "cms": (1e-6, 0.01), "rms": (0.01, 100.0), "xmax": (1e-5, 0.05), "power": (0.1, 1e4), "l2": (0.0, 0.05),
+    "r2": (0.01, 1e4), "volume": (1e-4, 3.0), "tuning": (5.0, 1000.0), "ql": (1.0, 100.0)})
+
+
+@dataclass(frozen=True)
+class BoxSpec:
+    """A driver's box as the job gives it (SI): ``kind`` "closed" or "vented", the net ``volume`` (m^3), the
+    vented box's ``tuning`` (Hz; None for a closed box) and leakage ``ql``."""
+
+    kind: str
+    volume: float
+    tuning: float | None = None
+    ql: float = DEFAULTS["box"]["ql"]
+
+
+@dataclass(frozen=True)
 class AngleSpec:
     """Where a driver's responses at other angles are: a file pattern per orbit with ``{angle}`` in it (the
     angle in degrees as an integer), the angles of each orbit, and whether a horizontal angle -a that is not
@@ -219,7 +253,7 @@ class DriverSpec:
 
     name: str
     response: FileCurve | FlatResponse | SplicedResponse
-    impedance: FileCurve | Resistive | ThieleSmall
+    impedance: FileCurve | Resistive | ThieleSmall | ModelImpedance
     reference_voltage: float
     offset: float
     phase: str
@@ -231,6 +265,8 @@ class DriverSpec:
     angles: AngleSpec | None = None
     position: tuple[float, float] | None = None  # (x, y) of the acoustic centre in the baffle plane, m; None: not given
     about: str | None = None  # what the files were measured about: "reference", "driver", None (not given)
+    ts: Mapping[str, float] | None = None  # the [driver.NAME.ts] values given, SI (the rest is derived later)
+    box: BoxSpec | None = None
 
 
 @dataclass(frozen=True)
@@ -303,6 +339,7 @@ class CostSpec:
     early_reflections: float = DEFAULTS["cost"]["early_reflections"]
     sound_power: float = DEFAULTS["cost"]["sound_power"]
     preference: float = DEFAULTS["cost"]["preference"]
+    protection: float = DEFAULTS["cost"]["protection"]
 
 
 @dataclass(frozen=True)
@@ -408,15 +445,18 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "source": "voltage resistance",
     "acoustics": "speed_of_sound distance",
     "driver": "response impedance reference_voltage offset position about phase impedance_phase extend_low "
-              "extend_high impedance_extend_low impedance_extend_high",
+              "extend_high impedance_extend_low impedance_extend_high ts box",
     "position": "x y",
     "thiele_small": "re le fs qms qes le_exponent l2 r2",
+    "ts": " ".join(TS_UNITS),
+    "box": "type volume tuning ql",
     "angles": "horizontal vertical horizontal_angles vertical_angles mirror about",
     "splice": "near far splice_hz",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",
-    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power preference",
+    "cost": "way sum phase impedance impedance_min stress early_reflections sound_power preference "
+            "protection",
     "search": "optimizer budget seed time_limit polish robust",
     "robust": "samples",
     "snap": "series inventory combine top_up",

@@ -14,6 +14,7 @@ from xo_fit.errors import JobError, read_user_text
 from xo_fit.job.model import (DEFAULTS, VOLTS, FrozenMap, Job)
 from xo_fit.job.reading import (Lines, Reader, Context)
 from xo_fit.job.parts import (read_part, check_plausible, check_parts)
+from xo_fit.job.tables import check_protection
 from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_distance, check_distance, read_target, read_cost, read_search, read_snap, read_spread)
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *, copy: bool = True) -> Job:
@@ -128,6 +129,7 @@ def build_job(data: dict, ctx: Context) -> Job:
                         "[cost] stress")
     if cost.stress > 0 and not any(p.rating for p in parts):
         ctx.warn(("cost",), "stress", "[cost] stress is set but no part has a rating: the term is always 0")
+    check_protection(cost, stress, drivers, ctx)
     top.done()
     document = dict(data)
     document["name"] = name

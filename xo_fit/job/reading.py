@@ -185,9 +185,8 @@ def table_kind(table: tuple) -> str:
     if not table:
         return "top"
     if table[0] == "driver":
-        return ({"angles": "angles", "response": "splice", "position": "position"}.get(table[2], "thiele_small")
-                if len(table) == 3
-                else "driver")
+        return ({"angles": "angles", "response": "splice", "position": "position", "ts": "ts", "box": "box"}
+                .get(table[2], "thiele_small") if len(table) == 3 else "driver")
     if table[0] == "target" and len(table) == 3:
         return "way"
     if table[:2] == ("search", "robust"):

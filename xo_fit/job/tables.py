@@ -12,6 +12,7 @@ from xo_fit.errors import XoFitError
 from xo_fit.grid import Grid
 from xo_fit.units import UnitsError, parse_percent, parse_value
 from xo_fit.job.model import (DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
+from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice)
 
 def read_stress(r: Reader) -> StressSpec:
@@ -73,8 +74,13 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
     else:
         response = FileCurve(r.path("response"))
     imp = r.raw("impedance")
-    impedance: FileCurve | Resistive | ThieleSmall
-    if isinstance(imp, dict):
+    impedance: FileCurve | Resistive | ThieleSmall | ModelImpedance
+    if imp == "model":
+        if not r.has("ts"):
+            raise r.error("impedance", f"\"model\" needs the driver's parameters: add a [driver.{name}.ts] table "
+                                       "(re, fs, qms, qes or a set that determines them)")
+        impedance = ModelImpedance()
+    elif isinstance(imp, dict):
         t = r.sub("impedance", f"[driver.{name}.impedance]")
         impedance = ThieleSmall(
             re=t.value("re", "ohm", required=True),
@@ -112,7 +118,12 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         if r.has("angles") else None,
         position=read_position(r.sub("position", f"[driver.{name}.position]")) if r.has("position") else None,
         about=read_about(r, name, isinstance(response, (FileCurve, SplicedResponse))),
+        ts=read_ts(r.sub("ts", f"[driver.{name}.ts]")) if r.has("ts") else None,
+        box=read_box(r.sub("box", f"[driver.{name}.box]")) if r.has("box") else None,
     )
+    if spec.box is not None and spec.ts is None:
+        raise r.error("box", f"a box needs the driver's parameters: add a [driver.{name}.ts] table with vas (or sd "
+                             "and a scale of the moving system)")
     for keys, what, phase_key in ((("extend_low", "extend_high"), "response", "phase"),
                                   (("impedance_extend_low", "impedance_extend_high"), "impedance", "impedance_phase")):
         for key in keys:
@@ -196,6 +207,51 @@ def check_distance(r: Reader, distance: float, drivers: list[DriverSpec]) -> Non
         raise r.error("distance", f"{distance:g} m does not lie beyond driver {name}'s acoustic centre "
                                   f"({reach:g} m from the reference point): give a listening distance beyond "
                                   "every driver, or \"far\"")
+def read_ts(r: Reader) -> FrozenMap:
+    """[driver.NAME.ts]: the Thiele-Small values given, SI (which of them determine the rest is worked out
+    when the job's drivers are modelled, :mod:`xo_fit.model.drivers`)."""
+    out = {}
+    for key in r.data:
+        if key in TS_UNITS:
+            out[key] = r.value(key, TS_UNITS[key], allow_zero=key == "le")
+    r.done()
+    if ("l2" in out) != ("r2" in out):
+        raise r.error("l2" if "r2" in out else "r2", "the lossy coil needs both l2 (H) and r2 (ohm, across l2)")
+    if not out:
+        raise r.error(None, "empty; expected the driver's parameters (re, fs, qms, qes, vas, sd, ...)")
+    plausible(r, out, TS_UNITS)
+    return FrozenMap(out)
+
+
+def plausible(r: Reader, values: dict, units: dict) -> None:
+    """A one-line warning for each value outside what drivers and boxes have (TS_PLAUSIBLE): a unit slip."""
+    for key, v in values.items():
+        lo, hi = TS_PLAUSIBLE[key]
+        if v is not None and not lo <= v <= hi:
+            unit = {"m3": "m^3", "m2": "m^2"}.get(units[key], units[key])
+            r.ctx.warn(r.table, key, f"{r.label} {key} = {v:g} {unit} lies outside what drivers and boxes have "
+                                     f"({lo:g} to {hi:g} {unit}); check the unit (\"60L\", \"220cm2\", \"6mm\")")
+
+
+def read_box(r: Reader) -> BoxSpec:
+    """[driver.NAME.box]: type "closed" or "vented", volume, and a vented box's tuning and ql."""
+    kind = r.choice("type", ("closed", "vented"), None)
+    if kind is None:
+        raise r.error("type", "missing; expected \"closed\" or \"vented\"")
+    volume = r.value("volume", "m3", required=True)
+    if kind == "closed":
+        for key in ("tuning", "ql"):
+            if r.has(key):
+                raise r.error(key, f"a closed box takes no {key} (a vented box's); give type = \"vented\" or leave "
+                                   f"{key} out")
+        r.done()
+        plausible(r, {"volume": volume}, {"volume": "m3"})
+        return BoxSpec("closed", volume)
+    tuning = r.value("tuning", "Hz", required=True)
+    ql = r.value("ql", "", DEFAULTS["box"]["ql"])
+    r.done()
+    plausible(r, {"volume": volume, "tuning": tuning, "ql": ql}, {"volume": "m3", "tuning": "Hz", "ql": ""})
+    return BoxSpec("vented", volume, tuning, ql)
 
 
 def read_angles(r: Reader, measured: bool) -> AngleSpec:
@@ -312,6 +368,7 @@ def read_cost(r: Reader) -> CostSpec:
         early_reflections=r.number("early_reflections", d["early_reflections"], minimum=0.0, maximum=MAX_WEIGHT),
         sound_power=r.number("sound_power", d["sound_power"], minimum=0.0, maximum=MAX_WEIGHT),
         preference=r.number("preference", d["preference"], minimum=0.0, maximum=MAX_WEIGHT),
+        protection=r.number("protection", d["protection"], minimum=0.0, maximum=MAX_WEIGHT),
     )
     r.done()
     return spec
@@ -398,3 +455,15 @@ def read_spread(r: Reader) -> SpreadSpec:
     )
     r.done()
     return spec
+
+
+def check_protection(cost: CostSpec, stress: StressSpec, drivers: list[DriverSpec], ctx) -> None:
+    """``[cost] protection`` needs the drive ([stress] power) and is 0 without a driver rated in its ts."""
+    if cost.protection <= 0:
+        return
+    if not stress.power:
+        raise ctx.error(("cost",), "protection", "a protection weight needs the drive: [stress] power and "
+                        "rated_impedance", "[cost] protection")
+    if not any(d.ts and ("xmax" in d.ts or "power" in d.ts) for d in drivers):
+        ctx.warn(("cost",), "protection", "[cost] protection is set but no driver's [driver.NAME.ts] gives xmax "
+                 "or power: the term is always 0")

@@ -33,6 +33,10 @@ the weights of ``[cost]``):
     shortfall of |Z| below ``impedance_min`` in dB, 20 log10(Zmin / |Z|):
     the mean of its square plus the square of the worst point, so that even a
     narrow dip costs.
+``protection`` (``[cost] protection`` > 0 only)
+    each protected driver's peak excursion over its xmax and programme power over its rating at the
+    ``[stress]`` drive, as squared dB excess (:mod:`xo_fit.model.protection`); the fused kernel has no such
+    term, so a fit or snap with it runs on this reference cost (``needs_reference``).
 ``early_reflections`` / ``sound_power`` (off-axis jobs)
     the roughness of those ANSI/CTA-2034-A curves: the mean square deviation
     (dB^2) over the band of the curve's level from its own least-squares
@@ -132,7 +136,8 @@ class CostModel:
         spec = system.job.cost
         self.weights = {"way": spec.way, "sum": spec.sum, "phase": spec.phase, "impedance": spec.impedance,
                         "stress": spec.stress, "early_reflections": spec.early_reflections,
-                        "sound_power": spec.sound_power, "preference": spec.preference}
+                        "sound_power": spec.sound_power, "preference": spec.preference,
+                        "protection": spec.protection}
         self.off_axis = bool(system.positions)
         # the predicted preference's plan of the grid (load_system refuses a job whose grid or positions lack it)
         self.preference_plan = make_plan(system.frequencies) if spec.preference > 0 else None
@@ -147,6 +152,14 @@ class CostModel:
         self.drive_scale = (math.sqrt(drive.power * drive.rated_impedance) / system.network.source_voltage
                             if self.rated else 1.0)
         self.impedance_floor = spec.impedance_min
+        self.protection = None
+        if spec.protection > 0:
+            from xo_fit.model.protection import protection_model
+
+            self.protection = protection_model(system)
+        #: terms the fused kernel lacks: a search must score with :meth:`evaluate` (xo_fit.search.fitting); a
+        #: protection weight without a driver to protect is a term of 0 (the job reader warns of it)
+        self.needs_reference = self.protection is not None
         band = targets.band
         self.band = band
         self.t_sys_db = spl_db_unit(targets.system)[band]
@@ -189,6 +202,8 @@ class CostModel:
             "impedance": self._impedance(sim.impedance[..., band]),
             "stress": self._stress(values, sim.impedance.shape[0]),
         }
+        if self.protection is not None:
+            terms["protection"] = self.protection.penalty(sim.voltages)
         if self.off_axis:
             for k in OFF_AXIS_TERMS:
                 terms[k] = (roughness(power_db(curves[k][..., band]), np.log2(self.system.frequencies[band]))

@@ -18,6 +18,7 @@ from xo_fit.model import acoustics
 from xo_fit.physics.coils import DCR_EXPONENT, dcr_coefficient
 from xo_fit.errors import JobError, NetworkError, XoFitError
 from xo_fit.job.model import FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
+from xo_fit.job.model import ModelImpedance
 from xo_fit.constants import P_REF
 from xo_fit.io.measure import Curve, read_curve
 from xo_fit.physics.extension import extend_curve, splice_curves
@@ -262,6 +263,11 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> Drive
     elif isinstance(spec.impedance, ThieleSmall):
         impedance = spec.impedance.impedance(grid)
         iphase = "ideal"
+    elif isinstance(spec.impedance, ModelImpedance):  # the [driver.NAME.ts] model in its box
+        from xo_fit.model.drivers import model_impedance
+
+        impedance = model_impedance(job, spec, grid)
+        iphase = "ideal"
     else:
         imp_curve = read_curve(spec.impedance.path, "impedance")
         impedance, w = on_grid(extend_curve(imp_curve, grid, "impedance", spec.impedance_extend_low,
@@ -317,6 +323,9 @@ def load_system(job: Job) -> System:
     positions = _positions(job)
     _check_curves(job, positions)
     _check_preference(job, positions)
+    from xo_fit.model.drivers import driver_models
+
+    driver_models(job)  # every [driver.NAME.ts] and .box completed and checked before any file is read
     drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
     if positions:
         from dataclasses import replace

@@ -83,3 +83,37 @@ def design_cautions(stress, rated_ohm: float | None) -> list[str]:
                    "with free air around them")
     out.append(GENERAL)
     return out
+
+
+def _drive(stress) -> str:
+    return f"{stress.power:g} W into {stress.rated_impedance:g} ohm"
+
+
+def protection_findings(protection: dict | None, stress) -> list[dict]:
+    """``over_excursion`` and ``over_power`` findings of a design's protection figures (result.json's
+    ``protection``, :func:`xo_fit.model.protection.protection`) at the drive ``stress`` (a StressSpec)."""
+    from xo_fit.model.protection import TOLERANCE
+
+    out = []
+    for name, p in (protection or {}).items():
+        x, xmax = p["excursion_mm"], p["xmax_mm"]
+        if x is not None and xmax is not None and x > xmax * (1 + TOLERANCE):
+            out.append({"kind": "over_excursion", "part": None, "driver": name,
+                        "text": f"{name} moves {x:.2f} mm one way (sine) at {p['at_hz']:.0f} Hz at {_drive(stress)}, "
+                                f"over its xmax of {xmax:.2f} mm: cross it higher or steeper, or rate the speaker "
+                                f"for less power"})
+        if p["rating_w"] is not None and p["power_w"] > p["rating_w"] * (1 + TOLERANCE):
+            out.append({"kind": "over_power", "part": None, "driver": name,
+                        "text": f"{name} takes {p['power_w']:.3g} W programme (pink noise over the band) at "
+                                f"{_drive(stress)}, over its {p['rating_w']:g} W rating: pad it down, cross it "
+                                "higher, or rate the speaker for less power"})
+    return out
+
+
+def protection_cautions(protection: dict | None, stress) -> list[str]:
+    """Cautions for the drivers a design drives past their xmax or rating at the drive ``stress``."""
+    over = [f["text"] for f in protection_findings(protection, stress)]
+    if over:
+        over.append("a cone past xmax distorts and, further, bottoms out; a coil past its rating overheats: keep "
+                    "test levels below the stated drive until the crossover protects every driver")
+    return over

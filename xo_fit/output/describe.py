@@ -20,7 +20,7 @@ def extension_text(spec, what: str, lo: float, hi: float, f: np.ndarray) -> str:
 
 
 def describe_ideal(src) -> str:
-    from xo_fit.job.model import FlatResponse, Resistive, ThieleSmall
+    from xo_fit.job.model import FlatResponse, ModelImpedance, Resistive, ThieleSmall
     from xo_fit.units import format_value
 
     if isinstance(src, FlatResponse):
@@ -31,6 +31,8 @@ def describe_ideal(src) -> str:
         return (f"Thiele-Small model: Re {format_value(src.re, 'ohm')}, Le {format_value(src.le, 'H')}, "
                 f"fs {format_value(src.fs, 'Hz')}, "
                 f"Qms {src.qms:g}, Qes {src.qes:g}")
+    if isinstance(src, ModelImpedance):
+        return "the Thiele-Small model (below) in its box"
     return str(src)
 
 
@@ -52,6 +54,7 @@ def describe(system) -> list[str]:
     """What ``xo-fit check`` prints of a loaded system (:class:`~xo_fit.model.system.System`): the grid, each
     driver's data and how it is extended, the off-axis positions and curves, the parts, the target, the free
     values and the nodes; one line of text each."""
+    from xo_fit.output.driver_text import model_lines
     from xo_fit.units import format_value
 
     out: list[str] = []
@@ -87,6 +90,7 @@ def describe(system) -> list[str]:
                 if ext:
                     out.append(f"    {'':<9} {ext}")
         out.append(f"    reference {format_value(spec.reference_voltage, 'V')}, offset {format_value(spec.offset, 'm')}")
+        out += model_lines(j, spec)
         if spec.angles is not None:
             files = spec.angles.files()
             mirrored = sum(1 for pos, (_, a) in files.items() if a != pos[1])

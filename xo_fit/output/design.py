@@ -128,6 +128,9 @@ class Design:
 
                 self.info["idle"] = idle_parts(self.system, self.scored.values, self.scored.cost)
             out += self.info["idle"]
+        from xo_fit.output.cautions import protection_findings
+
+        out += protection_findings(self.protection, self.job.stress)
         floor = self.job.cost.impedance_min
         zmin = self.scored.metrics.get("impedance_min_ohm")
         if floor > 0 and zmin is not None and zmin < floor:
@@ -198,6 +201,16 @@ class Design:
                 e["within_rating"] = bool(judged <= limit * (1 + RATING_TOLERANCE))
             out[p.name] = e
         return out
+
+    @property
+    def protection(self) -> dict | None:
+        """Each protected driver's peak excursion and programme power at the job's [stress] drive against its
+        xmax and rating (:func:`xo_fit.model.protection.protection`), or None where nothing is judged."""
+        if "protection" not in self.info:
+            from xo_fit.model.protection import protection
+
+            self.info["protection"] = protection(self.system, self.scored.sim.voltages)
+        return self.info["protection"]
 
     @property
     def response(self):
@@ -279,6 +292,8 @@ class Design:
             doc["error_breakdown"] = self.breakdown
         if stress is not None:
             doc["stress"] = stress
+        if self.protection is not None:
+            doc["protection"] = self.protection
         doc.update(self.sections)
         source = {"job": str(job.path) if job.path else None, "folder": str(job.folder)}
         if folder is not None:
@@ -387,7 +402,7 @@ class Spread:
 
 #: Sections recomputed when a result is loaded (everything else is kept as the stage wrote it).
 _RECOMPUTED = {"xo_fit_version", "format", "job", "stage", "parts", "cost", "cost_terms", "metrics", "level_db",
-               "findings", "stress", "source", "error_breakdown"}
+               "findings", "stress", "source", "error_breakdown", "protection"}
 #: Entries of parts.NAME recomputed when a result is loaded.
 PART_RECOMPUTED = {"value", "unit", "text", "limit"}
 

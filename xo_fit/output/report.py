@@ -306,6 +306,27 @@ def _netlist_table(job, esc) -> str:
             f"{rows}</table>")
 
 
+def _protection_table(design, esc) -> str:
+    """The drivers' excursion and power at the [stress] drive against their xmax and rating ("" without)."""
+    prot = design.protection
+    if not prot:
+        return ""
+    st = design.job.stress
+
+    def num(x, fmt):
+        return "" if x is None else format(x, fmt)
+
+    rows = "".join(f"<tr><td>{esc(n)}</td><td>{num(p['excursion_mm'], '.3g')}</td><td>{num(p['at_hz'], '.0f')}</td>"
+                   f"<td>{num(p['xmax_mm'], '.3g')}</td><td>{p['power_w']:.3g}</td><td>{num(p['rating_w'], 'g')}</td>"
+                   f"<td>{'yes' if p['within'] else 'NO'}</td></tr>" for n, p in prot.items())
+    return (f"<h2>Driver protection</h2><p>At {st.power:g} W into {st.rated_impedance:g} Ω: each driver's largest "
+            "one-way cone excursion over the band for a sine (from its Thiele-Small model in its box and the "
+            "network's voltage at it) against its xmax, and its programme power (pink noise over the band) "
+            "against its rating.</p><table><tr><th>driver</th><th>peak excursion (mm)</th><th>at (Hz)</th>"
+            "<th>xmax (mm)</th><th>programme power (W)</th><th>rating (W)</th><th>within</th></tr>"
+            f"{rows}</table>")
+
+
 def write_report(items: list, out: Path, command: list[str] | None = None) -> Path:
     """report.html (self-contained: images inline) and its PNGs for designs and spreads, overlaid in one page.
 
@@ -313,7 +334,7 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
     import base64
     import html
 
-    from xo_fit.output.cautions import GENERAL, design_cautions, load_cautions
+    from xo_fit.output.cautions import GENERAL, design_cautions, load_cautions, protection_cautions
     from xo_fit.stages.snapping import combination_text
     from xo_fit.io.results import write_text
     from xo_fit.model.stress import epdr
@@ -408,7 +429,8 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
     finding_rows = "".join(f"<li>{esc(x['text'])}</li>" for x in findings) or "<li>none</li>"
     cautions = load_cautions(last.scored.metrics["impedance_min_ohm"], job.cost.impedance_min)
     if st is not None:
-        cautions = design_cautions(st, last_sys.job.stress.rated_impedance)
+        cautions = (protection_cautions(last.protection, last_sys.job.stress)
+                    + design_cautions(st, last_sys.job.stress.rated_impedance))
     elif not cautions:
         cautions = [GENERAL]
     drive = (f"Stresses at {st.drive_w:g} W into {st.rated_ohm:g} Ω ({st.source_v_rms:.2f} V RMS); programme figures "
@@ -453,6 +475,7 @@ check the built speaker by measurement.</p>
 <p>{esc(drive)}</p>
 <table><tr><th>part</th><th>kind</th><th>value</th><th>source</th><th>tolerance</th><th>made of</th><th>stress</th></tr>
 {''.join(part_rows)}</table>
+{_protection_table(last, esc)}
 {netlist_table}
 {prune_table}
 <h2>Findings ({esc(last_label)})</h2><ul>{finding_rows}</ul>

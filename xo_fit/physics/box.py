@@ -121,6 +121,27 @@ def _elements(ts: ThieleSmallSet, box: Box, f: np.ndarray, key: str | None):
     return s, 1.0 / y, shape
 
 
+def circuit(ts: ThieleSmallSet, box: Box, *, key: str | None = None) -> dict[str, float]:
+    """The element values of the electrical analogue :func:`impedance` works out (SI), for a circuit simulator.
+
+    Re, Le (and L2 with R2 across it) in series with the motional branch: ``res``, ``lces`` and ``cmes`` in
+    parallel, and across them the box: ``lceb`` alone (closed) or ``lceb`` in series with ``rel`` and ``cmep``
+    (vented). Returns re, le, l2, r2, res, lces, cmes (ohm, H, F), plus lceb (closed), or lceb, rel, cmep
+    (vented); an infinite baffle has no box elements.
+    """
+    ws = 2 * math.pi * ts.fs
+    cmes = ts.qes / (ws * ts.re)
+    lces = 1.0 / (ws * ws * cmes)
+    out = {"re": ts.re, "le": ts.le, "l2": ts.l2, "r2": ts.r2, "res": ts.res, "lces": lces, "cmes": cmes}
+    if box.kind != "none":
+        lceb = lces / alpha(ts, box, key)
+        out["lceb"] = lceb
+        if box.kind == "vented":
+            wb = 2 * math.pi * box.tuning
+            out.update(rel=wb * lceb / box.ql, cmep=1.0 / (wb * wb * lceb))
+    return out
+
+
 def impedance(ts: ThieleSmallSet, box: Box, f: np.ndarray, *, key: str | None = None) -> np.ndarray:
     """The driver's input impedance in its box, Z = Re + Zcoil + Zmot.
 

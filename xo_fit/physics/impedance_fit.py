@@ -125,7 +125,7 @@ def _start(f: np.ndarray, mag: np.ndarray, path) -> tuple[dict, str | None]:
         other = [f"{f[int(p)]:.4g} Hz" for p in peaks[order[1:]]]
         second = (f"more peaks than one ({f[k]:.4g} Hz fitted; also {', '.join(other)}): a vented "
                   "or passive-radiator box has two, which Small's closed-box model does not describe; "
-                  "measure the driver in free air or a closed box for its parameters")
+                  "fit a vented box with --model vented, or measure the driver in free air or a closed box")
     fs, zmax = float(f[k]), float(mag[k])
     after = mag[k:]
     re = float(np.min(after)) if after.size > 1 else zmin
@@ -217,7 +217,8 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
     if rms > RMS_WARN_PCT:
         remarks.append(f"{curve.path}: the {model} model fits with {rms:.1f} % rms error (above "
                        f"{RMS_WARN_PCT:g} %); it does not describe this driver well"
-                       + ("; try --model ts-lossy" if model == "ts" else ""))
+                       + ("; fit the twin peaks with --model vented" if second
+                          else "; try --model ts-lossy" if model == "ts" else ""))
     if model == "ts":
         params = replace(params, l2=0.0, r2=0.0)
     return ImpedanceFit(model=model, params=params, rms_error_pct=rms, max_error_pct=100.0 * float(err[i]),

@@ -332,8 +332,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     """Snap design ``continuous`` (P,) of ``system`` to purchasable values with the job's cost."""
     import time
 
-    from xo_fit.search.fitting import require_cost_model
-    from xo_fit.model.fused import FusedCost
+    from xo_fit.search.fitting import cost_function, require_cost_model
     from xo_fit.search.engines import Space, search
 
     t0 = time.monotonic()
@@ -342,7 +341,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     top_up = job.snap.top_up if top_up is None else check_name(top_up)
     seed = job.search.seed if seed is None else seed
     cm, _ = require_cost_model(system, "score the snap with")
-    cost_fn = FusedCost(cm)
+    cost_fn = cost_function(cm)
     sources = part_sources(job, series_override, inventory)
     parts = job.valued_parts
     continuous = np.asarray(continuous, dtype=float)
