@@ -10,133 +10,19 @@ so the frequency loop (innermost) vectorises.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
-
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from xo_fit.constants import GROUND_NODE, SOURCE_NODE
+from xo_fit.errors import NetworkError
+from xo_fit.solver.emitter import Emitter, batch_reciprocal, elimination_order
 from xo_fit.solver.kernels import KERNEL_VERSION
 from xo_fit.solver.netlist import reduce_series_chains
-from xo_fit.errors import NetworkError
 
 if TYPE_CHECKING:
     from xo_fit.solver.network import Network
-
-
-def _render(terms: list[tuple[int, str]]) -> str:
-    """Render signed terms [(+1, "a"), (-1, "b * c")] as "a - b * c"."""
-    expr = ""
-    for sign, term in terms:
-        if not expr:
-            expr = term if sign > 0 else f"-{term}"
-        else:
-            expr += f" + {term}" if sign > 0 else f" - {term}"
-    return expr
-
-
-class _Emitter:
-    """Emits straight-line real arithmetic for complex values kept as (re, im) names; None is a zero part."""
-
-    def __init__(self) -> None:
-        self.lines: list[str] = []
-        self.count = 0
-
-    def let(self, expr: str, stem: str = "t") -> str:
-        self.count += 1
-        name = f"{stem}{self.count}"
-        self.lines.append(f"{name} = {expr}")
-        return name
-
-    def _pair(self, re_terms: list, im_terms: list, stem: str) -> tuple:
-        return (self.let(_render(re_terms), stem + "r") if re_terms else None,
-                self.let(_render(im_terms), stem + "i") if im_terms else None)
-
-    def sum(self, terms: list[tuple[int, tuple]], stem: str = "a") -> tuple:
-        """Sum of sign * value over terms; returns a complex pair (names or None)."""
-        return self._pair([(s, v[0]) for s, v in terms if v[0]], [(s, v[1]) for s, v in terms if v[1]], stem)
-
-    @staticmethod
-    def _products(x: tuple, y: tuple, sign: int) -> tuple[list, list]:
-        """Signed terms of sign * x * y, real and imaginary."""
-        xr, xi = x
-        yr, yi = y
-        re = [(sign, f"{xr} * {yr}")] if xr and yr else []
-        re += [(-sign, f"{xi} * {yi}")] if xi and yi else []
-        im = [(sign, f"{xr} * {yi}")] if xr and yi else []
-        im += [(sign, f"{xi} * {yr}")] if xi and yr else []
-        return re, im
-
-    def mul(self, x: tuple, y: tuple, stem: str = "m") -> tuple:
-        return self._pair(*self._products(x, y, 1), stem)
-
-    def fms(self, acc: tuple, x: tuple, y: tuple, stem: str = "a") -> tuple:
-        """acc - x * y, one expression per part (so the compiler can contract it to fused multiply-adds)."""
-        re, im = self._products(x, y, -1)
-        if not re and not im:
-            return acc
-        re = ([(1, acc[0])] if acc[0] else []) + re
-        im = ([(1, acc[1])] if acc[1] else []) + im
-        return self._pair(re, im, stem)
-
-
-def _order(nodes: list[str], adj: dict[str, set[str]], rhs: set[str], dissipative: set[str]) -> list[str]:
-    """Greedy minimum-degree elimination order with fill-in; ties: no RHS first, dissipative first, by name."""
-    adj = {n: set(a) for n, a in adj.items()}
-    left = list(nodes)
-    order = []
-    while left:
-        best = min(left, key=lambda n: (len(adj[n]), n in rhs, n not in dissipative, n))
-        nb = adj[best]
-        for i in nb:
-            adj[i] |= nb - {i}
-            adj[i].discard(best)
-        if best in rhs:
-            rhs |= nb
-        left.remove(best)
-        order.append(best)
-    return order
-
-
-def _batch_reciprocal(e: "_Emitter", dens: list[str], traps: list[str], stem: str) -> list[str]:
-    """Reciprocals of several independent reals with one division (Montgomery's trick, tree-shaped).
-
-    The values are multiplied pairwise up a balanced tree, the root is
-    inverted once, and the inverse is pushed back down (1/(ab) * b = 1/a), so
-    n reciprocals cost one division and about 3n multiplications with a
-    dependency depth of only 2 log2(n) multiplications: the kernel is bound
-    by latency, not by arithmetic. ``traps`` receives a name that is NaN when
-    the product over- or underflowed, so that the point is solved again by
-    the dense path instead of silently returning zeros.
-    """
-    if len(dens) == 1:
-        inv = e.let(f"1.0 / {dens[0]}", stem)
-        traps.append(e.let(f"{dens[0]} * {inv}", stem + "t"))
-        return [inv]
-    # build the tree bottom-up: levels[0] = leaves
-    levels = [list(dens)]
-    while len(levels[-1]) > 1:
-        prev = levels[-1]
-        nxt = [e.let(f"{prev[i]} * {prev[i + 1]}", stem + "c") if i + 1 < len(prev) else prev[i]
-               for i in range(0, len(prev), 2)]
-        levels.append(nxt)
-    root = levels[-1][0]
-    inv = e.let(f"1.0 / {root}", stem + "n")
-    traps.append(e.let(f"{root} * {inv}", stem + "t"))
-    invs = [inv]
-    for depth in range(len(levels) - 2, -1, -1):
-        prev = levels[depth]
-        down = []
-        for i in range(0, len(prev), 2):
-            parent = invs[i // 2]
-            if i + 1 < len(prev):
-                down.append(e.let(f"{parent} * {prev[i + 1]}", stem + "r"))
-                down.append(e.let(f"{parent} * {prev[i]}", stem + "r"))
-            else:
-                down.append(parent)
-        invs = down
-    return invs
 
 
 def kernel_inputs(net: Network) -> np.ndarray:
@@ -172,7 +58,7 @@ class SolverCode:
 class _Build:
     """The state of one generation, passed from step to step of :func:`solver_code`."""
 
-    e: "_Emitter"
+    e: "Emitter"
     net: "Network"
     edges: list
     forms: list = field(default_factory=list)   # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss, k)
@@ -295,7 +181,7 @@ def _edge_admittances(b: _Build) -> list[str]:
             pending.append((ei, zr, zi, den))
             b.ys.append(None)
     if pending:
-        invs = _batch_reciprocal(e, [p[3] for p in pending], b.traps, "iz")
+        invs = batch_reciprocal(e, [p[3] for p in pending], b.traps, "iz")
         for (ei, zr, zi, _), inv in zip(pending, invs):
             b.ys[ei] = (e.let(f"{zr} * {inv}", "yr") if zr else None, e.let(f"-{zi} * {inv}", "yi") if zi else None)
     return loads
@@ -378,7 +264,7 @@ def _eliminate(b: _Build) -> None:
             else:
                 raise NetworkError("internal: a structurally zero pivot")
             dens.append(b.mags[k])
-        invs = _batch_reciprocal(e, dens, b.traps, f"ip{lv}_")
+        invs = batch_reciprocal(e, dens, b.traps, f"ip{lv}_")
         for k, inv in zip(group, invs):
             pr, pi = b.get(k, k)
             b.inv_piv[k] = (e.let(f"{pr} * {inv}", f"q{k}_r") if pr else None,
@@ -433,7 +319,7 @@ def _source_scale(b: _Build) -> tuple[tuple, tuple]:
         sr = e.let(f"1.0 + rs * {cr}" if cr else "1.0", "sd")
         si = e.let(f"rs * {ci}", "sd") if ci else None
         sm = e.let(f"{sr} * {sr}" + (f" + {si} * {si}" if si else ""), "sm")
-        inv_c, inv_s = _batch_reciprocal(e, [cm, sm], b.traps, "iv")
+        inv_c, inv_s = batch_reciprocal(e, [cm, sm], b.traps, "iv")
         scale = (e.let(f"vs * {sr} * {inv_s}", "vr"), e.let(f"-vs * {si} * {inv_s}", "vi") if si else None)
     else:
         inv_c = e.let(f"1.0 / {cm}", "cn")
@@ -466,7 +352,7 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
     ``currents``: indices into ``net.branches`` of valued parts whose current (at the source voltage ``vs``)
     the code also computes: the current of the edge (part or series chain) that holds the part.
     """
-    b = _Build(e=_Emitter(), net=net, edges=reduce_series_chains(net))
+    b = _Build(e=Emitter(), net=net, edges=reduce_series_chains(net))
     e, edges, forms = b.e, b.edges, b.forms
     prep = _edge_constants(b)
     loads = _edge_admittances(b)
@@ -478,7 +364,7 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
         if i != k:
             adj[b.nodes[i]].add(b.nodes[k])
             adj[b.nodes[k]].add(b.nodes[i])
-    b.order = [b.idx[n] for n in _order(b.nodes, adj, {b.nodes[i] for i in b.rhs}, dissipative)]
+    b.order = [b.idx[n] for n in elimination_order(b.nodes, adj, {b.nodes[i] for i in b.rhs}, dissipative)]
     _eliminate(b)
     edge_of = {j: ei for ei, ed in enumerate(edges) for j in ed.members}
     _back_substitute(b, currents, edge_of)
