@@ -55,6 +55,8 @@ def test_a_new_topology_is_built_once_and_fits_without_numba(tmp_path):
         assert second["result"][key] == first["result"][key]  # same seed, same result, bit for bit
     jit = _fit(cache, tmp_path / "c", "0")  # XO_FIT_STANDALONE=0: numba compiles the same text
     assert jit["numba"]
+    # result.json says which build ran the search's cost (results differ between them by ~1e-6)
+    assert first["result"]["search"]["kernel"] == "c" and jit["result"]["search"]["kernel"] == "numba"
     # the kernels agree to ~1e-12, the searches then part in the last digits and the polish ends each within
     # its tolerance: the same basin, costs within 1e-6
     assert jit["result"]["cost"] == pytest.approx(first["result"]["cost"], rel=1e-6)

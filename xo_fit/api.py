@@ -114,7 +114,7 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
     r = outcome.search
     search = {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
               "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by, "restarts": r.restarts,
-              "best_restart": r.best_restart, "basins": list(r.basins)}
+              "best_restart": r.best_restart, "basins": list(r.basins), "kernel": outcome.kernel}
     if runs is not None:  # --workers: the processes shared the budget; the winner's derived seed is "seed"
         search["workers"] = runs
         search["evaluations"] = sum(x["evaluations"] for x in runs)

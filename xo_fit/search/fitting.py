@@ -109,6 +109,7 @@ class FitOutcome:
     scored: Scored
     search: SearchResult
     start_cost: float | None
+    kernel: str | None = None  # which build ran the cost: "c", "numba", or "numpy" (the reference cost)
 
 
 def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, seed: int | None = None,
@@ -135,7 +136,18 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
                     seed=spec.seed if seed is None else seed,
                     time_limit=time_limit if time_limit is not None else spec.time_limit,
                     polish=spec.polish, progress=progress)
-    return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start)
+    return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start,
+                      kernel=backend_of(fused))
+
+
+def backend_of(cost) -> str:
+    """Which build ran a search's batch cost: ``"c"`` or ``"numba"`` for the fused kernel
+    (:func:`xo_fit.solver.kernels.kernel_backend`), ``"numpy"`` for the reference cost."""
+    if not isinstance(cost, FusedCost):
+        return "numpy"
+    from xo_fit.solver.kernels import kernel_backend
+
+    return kernel_backend(cost.kernel()) or "numba"
 
 
 def _fit_worker(args):
@@ -146,7 +158,7 @@ def _fit_worker(args):
         os.environ.setdefault(var, "1")
     system, optimizer, budget, seed, time_limit = args
     out = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit)
-    return seed, out.search, out.scored.values
+    return seed, out.search, out.scored.values, out.kernel
 
 
 def restart_seeds(seed: int, n: int) -> list[int]:
@@ -171,13 +183,14 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     with ProcessPoolExecutor(max_workers=workers) as pool:
         results = list(pool.map(_fit_worker, [(system, optimizer, budget, s_, time_limit) for s_ in seeds]))
     runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
-             "restarts": r.restarts} for s_, r, _ in results]
+             "restarts": r.restarts, "kernel": k} for s_, r, _, k in results]
     best = min(range(len(results)), key=lambda i: (results[i][1].cost, i))
-    _, search_result, values = results[best]
+    _, search_result, values, kernel = results[best]
     model = cost_model(system)
     space = make_space(system.job)
     start = score(system, space.values(space.u0)[0], model).cost if space.u0 is not None else None
-    return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start), runs
+    return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start,
+                      kernel=kernel), runs
 
 
 def target_db(s: Scored) -> np.ndarray | None:
