@@ -275,3 +275,24 @@ def test_a_typo_in_a_required_key_is_named(write_job):
     with pytest.raises(JobError, match="fc_hihg") as e:
         load_job(write_job(text))
     assert "fc_high" in str(e.value) and "missing" in str(e.value)
+
+
+def test_a_missing_data_file_names_its_driver_and_job_line(write_job, cli):
+    """A missing file once gave only "<path as written>: response file not found": now the job line, the driver
+    and key, and the path normalised."""
+    job = write_job("""
+[grid]
+points = 41
+[driver.w]
+response = "data/../data/nothere.txt"
+impedance = 8
+[[part]]
+name = "W"
+type = "driver"
+driver = "w"
+nodes = ["in", "0"]
+""")
+    code, _, err = cli("check", job)
+    assert code == 2
+    assert f"{job}:5: [driver.w] response: " in err and "not found" in err
+    assert "data/nothere.txt" in err and "/../" not in err

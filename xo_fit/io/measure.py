@@ -155,7 +155,8 @@ def read_curve(path: str | Path, kind: str) -> Curve:
     if np.any(step <= 0):
         i = int(np.argmax(step <= 0)) + 1
         hint = ""
-        if arr.shape[0] > 2 and np.all(np.diff(arr[:, 1]) > 0) and arr[0, 1] > 0:
+        second = arr[:, 1]
+        if arr.shape[0] >= 5 and np.all(np.diff(second) > 0) and second[0] > 0 and second[-1] >= 10 * second[0]:
             hint = " (the second column rises throughout: are the frequency and magnitude columns swapped?)"
         raise DataError(f"frequencies must rise strictly: {f[i]:g} Hz follows {f[i - 1]:g} Hz{hint}",
                         path=path, line=int(lines[i]))

@@ -245,3 +245,14 @@ def is_length(text: str) -> bool:
     except UnitsError:
         return False
     return text.strip().endswith("m") and not text.strip().endswith("ohm")
+
+
+def job_line(job, table: tuple, key: str | None = None) -> int | None:
+    """The line of ``table`` (and ``key``) in ``job``'s file, for an error found after reading (None without a
+    file, or where the file cannot be read again)."""
+    if job.path is None:
+        return None
+    try:
+        return Lines(job.path.read_text(encoding="utf-8")).find(table, key)
+    except (OSError, UnicodeDecodeError):
+        return None

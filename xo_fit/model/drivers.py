@@ -33,14 +33,9 @@ class DriverModel:
 
 def _line(job, table: tuple) -> int | None:
     """The line of ``table`` in the job file, for an error found after reading (None without a file)."""
-    if job.path is None:
-        return None
-    from xo_fit.job.reading import Lines
+    from xo_fit.job.reading import job_line
 
-    try:
-        return Lines(job.path.read_text(encoding="utf-8")).find(table)
-    except OSError:
-        return None
+    return job_line(job, table)
 
 
 def driver_model(job, spec) -> DriverModel | None:

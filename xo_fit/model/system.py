@@ -16,7 +16,7 @@ import numpy as np
 
 from xo_fit.model import acoustics
 from xo_fit.physics.coils import DCR_EXPONENT, dcr_coefficient
-from xo_fit.errors import JobError, NetworkError, XoFitError
+from xo_fit.errors import DataError, JobError, NetworkError, XoFitError
 from xo_fit.job.model import FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
 from xo_fit.job.model import ModelImpedance
 from xo_fit.constants import P_REF
@@ -237,6 +237,36 @@ def _check_preference(job: Job, positions: tuple) -> None:
         raise JobError(f"the predicted preference cannot be had on this grid: {name}: {why}", path=job.path, key=key)
 
 
+def _driver_data_of(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
+    """:func:`_driver_data`, a missing or unreadable data file tied to the driver and the job line naming it
+    (a bare "file not found" once named neither, with the path as written, ../ and all)."""
+    import os
+
+    try:
+        return _driver_data(job, spec, grid, warnings)
+    except DataError as e:
+        access = ("not found", "cannot read", "not a regular file", "is a folder")
+        if e.line is not None or e.path is None or not any(a in e.message for a in access):
+            raise  # a file that was read: its own path and line say where
+        named = os.path.normpath(str(e.path))
+        key = next((k for k, v in (("response", spec.response), ("impedance", spec.impedance))
+                    if named in {os.path.normpath(str(p)) for p in _paths_of(v)}), None)
+        from xo_fit.job.reading import job_line
+
+        line = job_line(job, ("driver", spec.name), key)
+        where = f"[driver.{spec.name}]" + (f" {key}" if key else "")
+        raise DataError(f"{e.message}: {named}", path=job.path or named, line=line, key=where) from None
+
+
+def _paths_of(source) -> list:
+    """The data files a response or impedance source names."""
+    if isinstance(source, FileCurve):
+        return [source.path]
+    if isinstance(source, SplicedResponse):
+        return [source.near, source.far]
+    return []
+
+
 def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
     resp_curve = imp_curve = splice = None
     if isinstance(spec.response, FlatResponse):
@@ -326,7 +356,7 @@ def load_system(job: Job) -> System:
     from xo_fit.model.drivers import driver_models
 
     driver_models(job)  # every [driver.NAME.ts] and .box completed and checked before any file is read
-    drivers = tuple(_driver_data(job, d, grid, warnings) for d in job.drivers)
+    drivers = tuple(_driver_data_of(job, d, grid, warnings) for d in job.drivers)
     if positions:
         from dataclasses import replace
 
