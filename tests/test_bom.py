@@ -10,6 +10,7 @@ import csv
 import math
 
 import numpy as np
+import pytest
 
 from xo_fit.output.cautions import round_up
 
@@ -112,3 +113,47 @@ def test_a_far_snap_says_what_helps(write_job, cli, tmp_path):
     code, out, err = cli("snap", job, "--out", tmp_path / "s", "--no-plots", "--inventory", tmp_path / "drawer.csv")
     assert code == 0, err
     assert "--top-up" in err and "--combine 2" in err and "L1" in err
+
+
+def test_an_old_coil_from_the_drawer_brings_its_own_dcr(write_job, cli, tmp_path):
+    """The drawer's dcr column is the coil's measured resistance: the snapped design is scored with it (a 2 ohm
+    coil in series with an 8 ohm load is -1.94 dB at low frequency, 20 log10(8/10) [DER, voltage divider]),
+    and bom.csv lists it with the drawer's rating."""
+    job = write_job("""
+[grid]
+f_min = 20
+f_max = 20000
+points = 61
+[driver.w]
+response = 90
+impedance = 8
+[[part]]
+name = "L1"
+type = "L"
+nodes = ["in", "a"]
+value = "1mH"
+min = "0.5mH"
+max = "2mH"
+[[part]]
+name = "W"
+type = "driver"
+driver = "w"
+nodes = ["a", "0"]
+[target]
+band = [40, 5000]
+[target.way.w]
+type = "lowpass"
+alignment = "BW"
+order = 1
+fc = 1273
+""")
+    (tmp_path / "drawer.csv").write_text("kind,value,count,dcr,esr,rating\nL,1mH,2,2.0,,3\n")
+    code, out, err = cli("snap", job, "--out", tmp_path / "s", "--no-plots", "--inventory", tmp_path / "drawer.csv")
+    assert code == 0, err
+    import pandas as pd
+
+    r = pd.read_csv(tmp_path / "s" / "response.csv")
+    low = r.w_db.iloc[0] - (90 + 20 * math.log10(2.83 / 2.83))  # the flat driver's 90 dB at its reference voltage
+    assert low == pytest.approx(20 * math.log10(8 / 10), abs=0.02)
+    rows = _rows(tmp_path / "s" / "bom.csv")
+    assert rows["L1"]["dcr_ohm"] == "2" and rows["L1"]["rating"] == "3 A" and rows["L1"]["source"] == "inventory"

@@ -114,7 +114,8 @@ def test_inventory_counts_are_never_exceeded_and_combinations_are_reported(bw3_s
     ("C,4.7uF,0\n", 1, "count must be at least 1"),
     ("C,4.7uF,1\nQ,1,1\n", 2, "expected a part kind R, L or C"),
     ("C,4.7uH\n", 1, "is not a value in F"),
-    ("C,1uF,1,3\n", 1, "expected kind, value [, count]"),
+    ("C,1uF,1,3\n", 1, "a C part has no dcr"),
+    ("L,1mH,1,0.3,,2,9\n", 1, "expected kind, value [, count [, dcr"),
 ])
 def test_bad_inventory_lines(tmp_path, text, line, message):
     p = tmp_path / "inv.csv"
