@@ -9,7 +9,7 @@ Variants (the same job, the same candidates):
 Prints the median of --repeats timings of a batch of --batch candidates, evaluations per second, and the ratio
 to the on-axis kernel. The goal: the listening window within 3x of on axis.
 
-Run: python benchmarks/offaxis.py [--batch 512] [--repeats 9]
+Run: python benchmarks/offaxis.py [--batch 512] [--repeats 9] [--smoke]
 """
 
 from __future__ import annotations
@@ -46,7 +46,10 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--batch", type=int, default=512)
     ap.add_argument("--repeats", type=int, default=9)
+    ap.add_argument("--smoke", action="store_true", help="batch 16, one repeat (the test suite's run)")
     args = ap.parse_args()
+    if args.smoke:
+        args.batch, args.repeats = 16, 1
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         variants = {"on axis": variant(folder, "a", "on_axis", 0.0, 0.0),

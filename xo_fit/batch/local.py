@@ -2,8 +2,9 @@
 
 A worker is forked once and kept: it builds and loads each job it is sent
 (keeping parsed measurement files between jobs) and reports each stage as it
-ends. The coordinator sends a job to each idle worker, then records whatever
-its workers have sent in one store transaction. A job whose worker dies (a
+ends. The coordinator keeps each worker one job ahead (while enough jobs wait),
+so that a worker goes on at once while the coordinator records, and records
+whatever its workers have sent in one store transaction. A job whose worker dies (a
 crash, kill -9) is run once more, on a fresh worker, from its last finished
 stage, then recorded failed with the cause; the other jobs are not touched.
 Workers end with the coordinator, however it ends.
@@ -23,6 +24,8 @@ from xo_fit.batch.worker import THREAD_VARS, single_threaded, work
 
 #: How long the coordinator waits for a message before looking at its workers again, s.
 POLL = 5.0
+#: Jobs sent to a worker ahead of the one it runs (while more jobs wait than there are workers).
+AHEAD = 1
 
 
 def die_with_parent() -> None:
@@ -45,7 +48,8 @@ def die_with_parent() -> None:
 
 
 def serve(conn, close_fds: list[int]) -> None:
-    """A worker process: take a job, report its stages as they end and then its whole result; again."""
+    """A worker process: take a job, report its stages as they end and then its end; again. (The stages' files
+    travel once, as they end: the job's end carries no files.)"""
     for fd in close_fds:  # the coordinator's lock and store are not the worker's to hold
         try:
             os.close(fd)
@@ -60,7 +64,8 @@ def serve(conn, close_fds: list[int]) -> None:
             payload = conn.recv()
             if payload is None:
                 return
-            conn.send({"final": work(payload, emit=conn.send)})
+            res = work(payload, emit=conn.send)
+            conn.send({"final": dict(res, stages=[])})
     except (EOFError, OSError):
         return
     finally:
@@ -69,12 +74,13 @@ def serve(conn, close_fds: list[int]) -> None:
 
 @dataclass
 class Slot:
-    """A worker process and the job it holds (if any)."""
+    """A worker process and the jobs sent to it, (item, stages, payload, attempt) each: the one it runs, and the
+    one it will run next (sent ahead, so that the worker never waits for the coordinator)."""
 
     proc: object
     conn: object
-    job: tuple | None = None  # (item, need, payload, attempt)
-    recorded: list[str] = field(default_factory=list)
+    jobs: deque = field(default_factory=deque)
+    recorded: list[str] = field(default_factory=list)  # the running job's stages recorded so far
     last_values: dict | None = None
 
 
@@ -90,18 +96,22 @@ class Pool:
         self.size, self.close_fds = size, close_fds
         self.slots: dict = {}  # connection -> Slot
 
-    def idle(self) -> Slot | None:
-        free = next((s for s in self.slots.values() if s.job is None), None)
-        if free is None and len(self.slots) < self.size:
+    def free(self, queued: int) -> Slot | None:
+        """A worker for the next job: an idle one, a new one, or (while more jobs wait than there are workers)
+        one whose next job is not yet sent."""
+        slot = next((s for s in self.slots.values() if not s.jobs), None)
+        if slot is None and len(self.slots) < self.size:
             here, there = self.ctx.Pipe(duplex=True)
             proc = self.ctx.Process(target=serve, args=(there, self.close_fds), daemon=True)
             proc.start()
             there.close()
-            free = self.slots[here] = Slot(proc, here)
-        return free
+            slot = self.slots[here] = Slot(proc, here)
+        if slot is None and queued >= len(self.slots):
+            slot = next((s for s in self.slots.values() if len(s.jobs) < AHEAD + 1), None)
+        return slot
 
     def busy(self) -> list:
-        return [c for c, s in self.slots.items() if s.job is not None]
+        return [c for c, s in self.slots.items() if s.jobs]
 
     def drop(self, slot: Slot) -> None:
         del self.slots[slot.conn]
@@ -110,7 +120,7 @@ class Pool:
 
     def close(self) -> None:
         for slot in list(self.slots.values()):
-            if slot.job is None:
+            if not slot.jobs:
                 try:
                     slot.conn.send(None)
                 except OSError:
@@ -132,9 +142,8 @@ def read_ready(pool: Pool, ready) -> list[tuple[Slot, dict | None]]:
         slot = pool.slots[conn]
         try:
             while True:
-                msg = conn.recv()
-                out.append((slot, msg))
-                if "final" in msg or not conn.poll():
+                out.append((slot, conn.recv()))
+                if not conn.poll():
                     break
         except (EOFError, OSError):
             out.append((slot, None))
@@ -142,10 +151,11 @@ def read_ready(pool: Pool, ready) -> list[tuple[Slot, dict | None]]:
 
 
 def died(pool: Pool, slot: Slot, queue: deque):
-    """The worker of ``slot`` died: its job goes back in the queue once (from its last recorded stage), else it
-    is returned as failed with the cause."""
-    it, need, payload, attempt = slot.job
+    """The worker of ``slot`` died: the job it ran goes back in the queue once (from its last recorded stage),
+    else it is returned as failed with the cause; the job sent ahead goes back as it was."""
+    (it, need, payload, attempt), ahead = slot.jobs[0], list(slot.jobs)[1:]
     pool.drop(slot)
+    queue.extendleft(reversed(ahead))
     code = slot.proc.exitcode
     cause = (f"the worker process died (signal {-code})" if code is not None and code < 0
              else f"the worker process died (exit code {code})")
@@ -160,22 +170,26 @@ def died(pool: Pool, slot: Slot, queue: deque):
                                                       "message": f"{cause}, twice; not retried again"}}
 
 
+def send(pool: Pool, slot: Slot, job: tuple, queue: deque, recorder) -> None:
+    slot.jobs.append(job)
+    try:
+        slot.conn.send(job[2])
+    except OSError:  # the worker is gone already
+        with recorder.batch():
+            handle(pool, slot, None, queue, recorder)
+
+
 def run_local(jobs: list, workers: int, recorder, close_fds: list[int]) -> None:
     """Run ``jobs`` ((item, stages, payload) each) on at most ``workers`` processes; every stage and result
-    goes to ``recorder`` (its ``stage``, ``finish`` and ``batch``)."""
+    goes to ``recorder`` (its ``stage``, ``finish`` and ``batch``), all that arrived together in one batch."""
     if not jobs:
         return
     queue = deque((it, need, p, 0) for it, need, p in jobs)
     pool = Pool(min(workers, len(jobs)), close_fds)
     try:
         while queue or pool.busy():
-            while queue and (slot := pool.idle()) is not None:
-                slot.job, slot.recorded, slot.last_values = queue.popleft(), [], None
-                try:
-                    slot.conn.send(slot.job[2])
-                except OSError:  # the worker is gone already
-                    with recorder.batch():
-                        handle(pool, slot, None, queue, recorder)
+            while queue and (slot := pool.free(len(queue))) is not None:
+                send(pool, slot, queue.popleft(), queue, recorder)
             messages = read_ready(pool, wait(pool.busy(), timeout=POLL))
             with recorder.batch():
                 for slot, msg in messages:
@@ -186,9 +200,9 @@ def run_local(jobs: list, workers: int, recorder, close_fds: list[int]) -> None:
 
 def handle(pool: Pool, slot: Slot, msg: dict | None, queue: deque, recorder) -> None:
     """One message of a worker: a stage done, the job's end, or (None) the worker's death."""
-    if slot.job is None:
+    if not slot.jobs or slot.conn not in pool.slots:
         return
-    it, need = slot.job[0], slot.job[1]
+    it, need = slot.jobs[0][0], slot.jobs[0][1]
     if msg is None:
         failed = died(pool, slot, queue)
         if failed is not None:
@@ -201,5 +215,5 @@ def handle(pool: Pool, slot: Slot, msg: dict | None, queue: deque, recorder) -> 
         slot.last_values = entry.get("values")
         return
     recorder.finish(it, need, msg["final"])
-    slot.job = None
-
+    slot.jobs.popleft()
+    slot.recorded, slot.last_values = [], None
