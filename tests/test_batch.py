@@ -12,6 +12,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from conftest import ladder_job
@@ -284,3 +285,30 @@ def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch
     finally:
         cluster.close()
     assert not any(v[0] == "running" for v in rows(tmp_path / "out").values())
+
+
+def test_a_variant_run_on_a_system_kept_from_another_gives_what_a_fresh_load_gives(tmp_path):
+    """One worker runs a seed sweep: its second variant reuses the system loaded for the first (seeds are not
+    loaded). Its result equals the one computed from a fresh load of that variant (the fit command's path)."""
+    from xo_fit.batch import worker
+    from xo_fit.batch.tasks import fit_stage
+    from xo_fit.job.sweep import expand_job
+    from xo_fit.model.system import load_system
+
+    text, _ = ladder_job("LR2", start=1.5, spread=4.0)
+    job = tmp_path / "s.toml"
+    job.write_text(text + '\n[search]\nbudget = 600\n[sweep]\n"search.seed" = [3, 4]\n')
+    out = tmp_path / "out"
+    r = cli("batch", job, "--out", out, "--workers", "1", "--stages", "fit", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    (first, d0), (variant, d1) = expand_job(job)
+    fresh = load_system(variant)
+    result = fit_stage(fresh, tmp_path / "fresh", plots=False)
+    kept = json.loads((out / "s-seed4" / "fit" / "result.json").read_text())
+    assert kept["parts"] == result.document["parts"] and kept["cost"] == result.document["cost"]
+    # in one process: the second variant gets the first's system, rebound to itself
+    payload = {"source": str(job.resolve()), "data": "one data key"}
+    a = worker.kept_system(first, d0, payload, load_system)
+    b = worker.kept_system(variant, d1, payload, load_system)
+    assert b.network is a.network and b.job is variant and b.job.search.seed == 4
+    assert b.warnings == fresh.warnings and np.array_equal(b.factors, fresh.factors)

@@ -29,13 +29,15 @@ FILE_PATHS = ("driver.", "snap.inventory", "target.curve")
 @dataclass
 class Item:
     """One job of a batch: its name, its job file, its hash, the swept values that make it (``()`` for a job
-    without a [sweep]); or, for a job file that cannot be read, the error."""
+    without a [sweep]), a key of the data files it reads (the same for every variant of its file; None where
+    the variants may read other files); or, for a job file that cannot be read, the error."""
 
     name: str
     source: Path
     hash: str
     combo: tuple = ()
     error: str | None = None
+    data: str | None = None
 
 
 @dataclass
@@ -156,9 +158,12 @@ def file_items(path: Path, digests: Digests, files: dict[str, list[str]]) -> lis
         first = next(combos)
         job, _ = sweep.variant(first)  # the file checked, its data files listed
         read = {str(f) for f in data_files(job)}
+        files_key = "".join(f"\0{f}\0{digests(f)}" for f in data_files(job)).encode()
         base = hashlib.sha256(json.dumps(sweep.data, sort_keys=True, default=str).encode())
-        base.update("".join(f"\0{f}\0{digests(f)}" for f in data_files(job)).encode())
-        items = [Item(sweep.name(c), source, _variant_hash(base, c), c) for c in itertools.chain([first], combos)]
+        base.update(files_key)
+        data = hashlib.sha256(files_key).hexdigest()
+        items = [Item(sweep.name(c), source, _variant_hash(base, c), c, data=data)
+                 for c in itertools.chain([first], combos)]
     files[str(source)] = [str(source)] + sorted(read)
     return items
 

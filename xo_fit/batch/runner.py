@@ -136,7 +136,7 @@ def plan(collection: Collection, store: Store, out: Path, stages: list[str], plo
             if not need:
                 skipped += 1
                 continue
-            payload = {"name": it.name, "source": str(it.source), "combo": it.combo, "stages": need,
+            payload = {"name": it.name, "source": str(it.source), "combo": it.combo, "data": it.data, "stages": need,
                        "start": start, "previous": previous, "plots": plots,
                        "home": str((out / folder_name(it.name)).resolve())}
             jobs.append((it, need, payload))

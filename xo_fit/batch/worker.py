@@ -9,17 +9,28 @@ as bytes, for the coordinator to write.
 
 from __future__ import annotations
 
+import dataclasses
+import json
 import os
 import shutil
 import tempfile
+import threading
 import time
 import traceback
+from collections import OrderedDict
 from pathlib import Path
 
 from xo_fit.errors import XoFitError
 
 THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMEXPR_NUM_THREADS")
+#: Sections of a job that :func:`~xo_fit.model.system.load_system` does not read: variants that differ only in
+#: them (seeds, budgets, series, samples) share their loaded system in a worker.
+NOT_LOADED = ("name", "search", "snap", "spread")
+#: How many loaded systems a worker keeps.
+KEPT_SYSTEMS = 8
 _READY = False
+_SYSTEMS: OrderedDict = OrderedDict()
+_SYSTEMS_LOCK = threading.Lock()  # a Dask worker may run several jobs at once, on threads
 
 
 def single_threaded() -> None:
@@ -56,14 +67,36 @@ def load(payload: dict):
     from xo_fit.model.system import load_system
 
     with supplied_files(payload.get("files")):
-        job, _ = read_sweep(payload["source"]).variant(tuple(payload.get("combo", ())))
+        job, doc = read_sweep(payload["source"]).variant(tuple(payload.get("combo", ())))
         if job.name != payload["name"]:
             raise XoFitError(f"the job file now names this job '{job.name}', not '{payload['name']}' (changed "
                              "during the batch?); run the batch again", path=payload["source"])
-        system = load_system(job)
+        system = kept_system(job, doc, payload, load_system)
         inventory = (read_inventory(job.snap.inventory) if "snap" in payload["stages"] and job.snap.inventory
                      else None)
     return system, inventory
+
+
+def kept_system(job, doc: dict, payload: dict, load_system):
+    """The job's system: loaded, or a system this worker loaded for another variant of the same file and data
+    that differs only in sections not loaded (:data:`NOT_LOADED`), given this job (and its own warnings)."""
+    if not payload.get("data"):
+        return load_system(job)
+    key = (payload["source"], payload["data"],
+           json.dumps({k: v for k, v in doc.items() if k not in NOT_LOADED}, sort_keys=True, default=str))
+    with _SYSTEMS_LOCK:
+        kept = _SYSTEMS.get(key)
+        if kept is not None:
+            _SYSTEMS.move_to_end(key)
+    if kept is None:
+        system = load_system(job)
+        with _SYSTEMS_LOCK:
+            _SYSTEMS[key] = system
+            while len(_SYSTEMS) > KEPT_SYSTEMS:
+                _SYSTEMS.popitem(last=False)
+        return system
+    data_warnings = kept.warnings[len(kept.job.warnings):]
+    return dataclasses.replace(kept, job=job, warnings=tuple(job.warnings) + tuple(data_warnings))
 
 
 def start_values(system, payload: dict) -> tuple[list[float] | None, list[str]]:
