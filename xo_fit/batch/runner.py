@@ -196,7 +196,7 @@ class Recorder:
             self.failed += 1
             self.failures.append((it.name, error["stage"], error["message"]))
             self.store.failed(it.name, error["stage"], it.hash, error["message"])
-            for st in need[need.index(error["stage"]) + 1:] if error["stage"] in need else []:
+            for st in need[need.index(error["stage"]) + 1:] if error["stage"] in need else need:
                 self.store.failed(it.name, st, it.hash, f"not run: stage {error['stage']} failed")
         self.report()
 
@@ -271,6 +271,7 @@ def run_steps(collection: Collection, out: Path, store: Store, lock: Lock, stage
                 recorder.total += 1
                 recorder.failures.append((it.name, "load", it.error))
         execute(jobs, recorder, collection, workers, scheduler, lock)
+        store.interrupt_running()  # none should be left; never one said to run still
     except BaseException:
         with signals_ignored():
             store.interrupt_running()

@@ -12,7 +12,7 @@ import json
 import math
 from pathlib import Path
 
-from xo_fit.batch.store import Store
+from xo_fit.batch.store import BatchStopped, Store
 from xo_fit.io.results import write_rows
 
 ORDER = {"load": -1, "fit": 0, "snap": 1, "spread": 2}
@@ -89,5 +89,9 @@ def write_summary(out: Path, store: Store | None = None) -> list[dict]:
             j[f"sweep_{k}"] = j["swept"].get(k)
     columns = (["job"] + [f"sweep_{k}" for k in swept] +
                ["status", "stage", "cost", *FIGURES, "yield_band", "yield_limits", "folder", "error"])
-    write_rows(out / "summary.csv", [{c: cell(j[c]) for c in columns} for j in summary], columns=columns)
+    try:
+        write_rows(out / "summary.csv", [{c: cell(j[c]) for c in columns} for j in summary], columns=columns)
+    except OSError as e:
+        raise BatchStopped(f"cannot write summary.csv: {e.strerror or e} (the results are in results.sqlite: "
+                           "'xo-fit batch --summary DIR' writes it again)", path=out) from None
     return summary

@@ -29,7 +29,11 @@ def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or gl
     if summary is not None:
         if not (summary / "results.sqlite").exists():
             raise XoFitError("no results.sqlite here: not a batch folder", path=summary)
-        rows = write_summary(summary)
+        try:
+            rows = write_summary(summary)
+        except BatchStopped as e:
+            typer.echo(f"xo-fit: {e}", err=True)
+            raise typer.Exit(e.code)
         say(f"batch {summary}: {len(rows)} jobs, sorted by cost (also in {summary / 'summary.csv'})")
         print_summary(rows)
         return
