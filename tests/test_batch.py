@@ -312,3 +312,27 @@ def test_a_variant_run_on_a_system_kept_from_another_gives_what_a_fresh_load_giv
     b = worker.kept_system(variant, d1, payload, load_system)
     assert b.network is a.network and b.job is variant and b.job.search.seed == 4
     assert b.warnings == fresh.warnings and np.array_equal(b.factors, fresh.factors)
+
+
+def test_a_worker_keeps_parsed_curves_by_their_bytes_and_reads_supplied_files(tmp_path):
+    """Kept curves: the same bytes give the same (read-only) curve without a parse; changed bytes a new one.
+    Supplied files (a cluster worker's): read instead of the disk, which need not hold them."""
+    from xo_fit.errors import supplied_files
+    from xo_fit.io import measure
+
+    p = tmp_path / "r.txt"
+    p.write_text("100 80\n1000 85\n10000 82\n")
+    measure.keep_curves(True)
+    try:
+        a, b = measure.read_curve(p, "response"), measure.read_curve(p, "response")
+        assert a is b and not a.magnitude.flags.writeable
+        p.write_text("100 70\n1000 75\n10000 72\n")
+        c = measure.read_curve(p, "response")
+        assert c is not a and list(c.magnitude) == [70.0, 75.0, 72.0]
+    finally:
+        measure.keep_curves(False)
+    gone = tmp_path / "elsewhere" / "w.txt"
+    with supplied_files({str(gone): b"20 1\n20000 2\n"}):
+        assert list(measure.read_curve(gone, "response").magnitude) == [1.0, 2.0]
+    with pytest.raises(Exception, match="not found"):
+        measure.read_curve(gone, "response")
