@@ -271,9 +271,9 @@ def test_resume_after_a_stage_folder_was_deleted(tmp_path):
 
 def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch):
     distributed = pytest.importorskip("distributed")
-    import xo_fit.batch.cluster as cluster
     import xo_fit.batch.runner as batch
     from xo_fit.errors import XoFitError
+    import xo_fit.batch.cluster as cluster
 
     make_jobs(tmp_path, 1)
     monkeypatch.setattr(cluster, "DASK_WORKER_WAIT", 1.0)
