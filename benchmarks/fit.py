@@ -9,7 +9,7 @@ A seed succeeds when its cost is within 0.5 % of the best cost known for the pro
 reached, or 1e-9 where that is the exact design). For each engine and budget: successes out of the seeds, the median evaluations a successful run
 needed to get within 0.5 % (from its history), the median search seconds, and evaluations per second.
 
-Run: python benchmarks/fit.py [--seeds 20] [--budgets 20000,100000] [--engines de,scipy-de] [--quick]
+Run: python benchmarks/fit.py [--seeds 20] [--budgets 20000,100000] [--engines de,scipy-de] [--quick] [--smoke]
 (nevergrad engines, e.g. --engines de,ng-CMA, take seconds per fit; they are left out by default.)
 """
 
@@ -60,10 +60,11 @@ def main() -> None:
     ap.add_argument("--budgets", default="20000,100000")
     ap.add_argument("--engines", default="de,scipy-de")
     ap.add_argument("--quick", action="store_true", help="5 seeds, 20000 only")
+    ap.add_argument("--smoke", action="store_true", help="1 seed, budget 300, de only (the test suite's run)")
     a = ap.parse_args()
-    seeds = 5 if a.quick else a.seeds
-    budgets = [20000] if a.quick else [int(x) for x in a.budgets.split(",")]
-    engines = a.engines.split(",")
+    seeds = 1 if a.smoke else 5 if a.quick else a.seeds
+    budgets = [300] if a.smoke else [20000] if a.quick else [int(x) for x in a.budgets.split(",")]
+    engines = ["de"] if a.smoke else a.engines.split(",")
     folder = Path(tempfile.mkdtemp(prefix="xo_fit-bench-fit-"))
     for name, path in problems(folder).items():
         system = load_system(load_job(path))

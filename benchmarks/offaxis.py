@@ -14,7 +14,7 @@ to the on-axis kernel and to the unpositioned listening window. The goals: the l
 axis; the positioned listening window within 1.5x of the unpositioned one (the geometry lives in the
 per-position factors, so the kernel is the same).
 
-Run: python benchmarks/offaxis.py [--batch 512] [--repeats 9]
+Run: python benchmarks/offaxis.py [--batch 512] [--repeats 9] [--smoke]
 """
 
 from __future__ import annotations
@@ -53,7 +53,10 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--batch", type=int, default=512)
     ap.add_argument("--repeats", type=int, default=9)
+    ap.add_argument("--smoke", action="store_true", help="batch 16, one repeat (the test suite's run)")
     args = ap.parse_args()
+    if args.smoke:
+        args.batch, args.repeats = 16, 1
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         variants = {"on axis": variant(folder, "a", "on_axis", 0.0, 0.0),

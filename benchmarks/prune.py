@@ -1,13 +1,16 @@
 """Pruning the demo two-way (13 parts) with refits: steps, seconds, the trade-off table.
 
-Goal (issue 12): the whole prune in at most 60 s on one core. Run: .venv/bin/python benchmarks/prune.py
-Two runs are timed; the median of the two is quoted (the machine is shared).
+Goal (issue 12): the whole prune in at most 60 s on one core. Run: .venv/bin/python benchmarks/prune.py [--smoke]
+Two runs are timed; the median of the two is quoted (the machine is shared). --smoke prunes the 4-part handbook
+LR2 ladder with refits of 100 evaluations instead, once (the test suite's run).
 """
 
 from __future__ import annotations
 
+import argparse
 import os
 import statistics
+import sys
 import tempfile
 import time
 from pathlib import Path
@@ -15,20 +18,33 @@ from pathlib import Path
 os.environ.setdefault("OMP_NUM_THREADS", "1")  # one core
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+
 import xo_fit  # noqa: E402
 from xo_fit.demo import write_scenario  # noqa: E402
 
 
 def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--smoke", action="store_true", help="a 4-part ladder, refits of 100 evaluations, one run")
+    smoke = ap.parse_args().smoke
     folder = Path(tempfile.mkdtemp(prefix="xo_fit-bench-prune-"))
-    job = xo_fit.load_job(write_scenario(folder / "scenario"))
-    best = xo_fit.fit(job, seed=1)
+    if smoke:
+        from conftest import ladder_job
+
+        (folder / "ladder.toml").write_text(ladder_job("LR2", start=1.5, spread=4.0)[0])
+        job = xo_fit.load_job(folder / "ladder.toml")
+    else:
+        job = xo_fit.load_job(write_scenario(folder / "scenario"))
+    best = xo_fit.fit(job, seed=1, budget=300 if smoke else None)
     times = []
-    for _ in range(2):
+    for _ in range(1 if smoke else 2):
         t0 = time.perf_counter()
-        pr = xo_fit.prune(job, best)
+        pr = xo_fit.prune(job, best, budget=100 if smoke else None)
         times.append(time.perf_counter() - t0)
-    print(f"demo: {len(job.valued_parts)} parts, fit cost {best.cost:.4g}; prune with refits of 600 evaluations "
+    print(f"{job.name}: {len(job.valued_parts)} parts, fit cost {best.cost:.4g}; prune with refits of "
+          f"{100 if smoke else 600} evaluations "
           f"(dense solve, one thread): {len(pr.steps) - 1} steps, {len(pr.trials)} trial refits, "
           f"{pr.evaluations} evaluations; seconds {', '.join(f'{t:.1f}' for t in times)}, median "
           f"{statistics.median(times):.1f} (goal <= 60)")

@@ -6,11 +6,12 @@ a random +-10 %, as hand designs would be) are snapped to E12. Printed per desig
 scored, and the cost of the continuous design, of log-nearest rounding and of
 the snapped design; then medians. Goal: under 5 s on one core.
 
-Run: python benchmarks/snap.py
+Run: python benchmarks/snap.py [--smoke]   (--smoke: fits of 300 evaluations, one design: the test suite's run)
 """
 
 from __future__ import annotations
 
+import argparse
 import sys
 import tempfile
 from pathlib import Path
@@ -29,6 +30,9 @@ from xo_fit.model.system import load_system  # noqa: E402
 
 
 def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--smoke", action="store_true", help="fits of 300 evaluations, one design")
+    smoke = ap.parse_args().smoke
     folder = Path(tempfile.mkdtemp())
     job_path = write_scenario(folder)
     text = JOB_TEXT.replace('name = "R2"\ntype = "R"\nnodes = ["t3", "0"]\nvalue = "15"\nmin = "2"\nmax = "50"',
@@ -41,9 +45,9 @@ def main() -> None:
     print(f"demo two-way, {snapped_parts} parts snapped to E12, {NEIGHBOURS} neighbours each side")
     print(f"{'design':>6} {'seconds':>8} {'designs':>8} {'continuous':>11} {'log-nearest':>12} {'snapped':>9}")
     rows = []
-    run_snap(system, run_fit(system, budget=2000).scored.values, series_override=e12)  # warm the kernels
-    fitted = run_fit(system).scored.values
-    for seed in range(1, 6):
+    run_snap(system, run_fit(system, budget=300 if smoke else 2000).scored.values, series_override=e12)  # warm
+    fitted = run_fit(system, budget=300 if smoke else None).scored.values
+    for seed in range(1, 2 if smoke else 6):
         # the fit itself, then four designs around it (+-10 % per part, as hand designs would be)
         rng = np.random.default_rng(seed)
         free = np.array([not p.fixed for p in system.job.valued_parts])

@@ -9,7 +9,8 @@ C builds (xo_fit.solver.standalone: they load without numba). "numba kernel" is 
 XO_FIT_STANDALONE=0 (numba's cached kernel). Empty cache means a topology this machine has never seen: with a
 compiler its kernel is translated to C and built in-line (once); with XO_FIT_STANDALONE=0 numba compiles it.
 
-Run: python benchmarks/startup.py [--runs 5]
+Run: python benchmarks/startup.py [--runs 5] [--smoke]
+(--smoke: one run of each warm figure, no numba kernel and no empty cache: the test suite's run)
 """
 
 from __future__ import annotations
@@ -105,16 +106,23 @@ print(statistics.median(tc), statistics.median(tj))
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--runs", type=int, default=5)
-    runs = ap.parse_args().runs
+    ap.add_argument("--smoke", action="store_true", help="one run, warm figures only")
+    args = ap.parse_args()
+    runs = 1 if args.smoke else args.runs
     out = tempfile.mkdtemp(prefix="xo_fit-bench-startup-")
     fit = [PY, "-m", "xo_fit", "-q", "fit", str(JOB), "--out", out, "--no-plots"]
-    subprocess.run(fit, check=True, capture_output=True, env={**BASE_ENV, "XO_FIT_STANDALONE": "0"})  # JIT cache
+    if not args.smoke:
+        subprocess.run(fit, check=True, capture_output=True, env={**BASE_ENV, "XO_FIT_STANDALONE": "0"})  # JIT
     subprocess.run(fit, check=True, capture_output=True, env=BASE_ENV)  # the C build, once
     print(f"python -c pass:            {median([PY, '-c', 'pass'], runs):.3f} s")
     print(f"import xo_fit:             {median([PY, '-c', 'import xo_fit'], runs):.3f} s")
     print(f"xo-fit --version:          {median([PY, '-m', 'xo_fit', '--version'], runs):.3f} s")
     print(f"xo-fit check (hard job):   {median([PY, '-m', 'xo_fit', '-q', 'check', str(JOB)], runs):.3f} s")
     warm = median(fit, runs)
+    if args.smoke:
+        print(f"whole fit, warm cache:     {warm:.3f} s (goal <= 0.8)")
+        phases(runs)
+        return
     jit = median(fit, runs, lambda k: {"XO_FIT_STANDALONE": "0"})
     cold = median(fit, runs, lambda k: {"XO_FIT_CACHE": tempfile.mkdtemp(prefix="xo_fit-cold-")})
     cold_jit = median(fit, max(2, runs // 2), lambda k: {"XO_FIT_CACHE": tempfile.mkdtemp(prefix="xo_fit-cold-"),
@@ -127,16 +135,21 @@ def main() -> None:
     tc, tj = (float(x) for x in r.stdout.split())
     print(f"fused cost kernel, 512 candidates (medians of 21, interleaved): C {tc * 1e3:.2f} ms, "
           f"numba {tj * 1e3:.2f} ms (C at {tj / tc:.2f}x numba's rate)")
-    phases = []
+    phases(runs)
+
+
+def phases(runs: int) -> None:
+    """Where one warm process spends its time, medians of ``runs`` processes."""
+    rows = []
     for _ in range(runs):
         r = subprocess.run([PY, "-c", PHASES, str(JOB)], check=True, capture_output=True, text=True, env=BASE_ENV)
-        phases.append([float(x) for x in r.stdout.split()])
+        rows.append([float(x) for x in r.stdout.split()])
     names = ["numpy + scipy import", "xo_fit import", "job + data load", "first kernel call",
              "search (20,000 evaluations)", "scoring after the search"]
     print("phases inside one warm process (medians):")
     for i, n in enumerate(names):
-        print(f"  {n:<28} {statistics.median(p[i] for p in phases):.3f} s")
-    print(f"  numba loaded in the process: {'yes' if any(p[-1] for p in phases) else 'no'}")
+        print(f"  {n:<28} {statistics.median(p[i] for p in rows):.3f} s")
+    print(f"  numba loaded in the process: {'yes' if any(p[-1] for p in rows) else 'no'}")
 
 
 if __name__ == "__main__":

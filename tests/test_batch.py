@@ -12,6 +12,7 @@ import sys
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from conftest import ladder_job, need
@@ -161,8 +162,7 @@ def test_dask_local_cluster_gives_the_local_pool_results(tmp_path):
 
 def test_unsafe_job_names_are_refused_and_folders_are_unique_per_job(tmp_path, cli):
     """A job named '..' or 'x/y' is bad input (exit 2); names that clean to the same text get their own folders."""
-    from xo_fit.batch.runner import _folder_name
-
+    from xo_fit.batch.collect import folder_name as _folder_name
 
     text, _ = ladder_job("LR2")
     for name in ("..", ".", "x/y", "a\\b"):
@@ -252,23 +252,6 @@ def test_store_and_folder_faults_are_one_line(tmp_path):
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "--out" in r.stderr, r.stderr
 
 
-def test_a_full_disk_fails_the_job_and_leaves_no_running_row(tmp_path, monkeypatch):
-    import errno
-
-    import xo_fit.batch.runner as batch
-
-    make_jobs(tmp_path, 2)
-
-    def no_space(path, suffix=""):
-        raise OSError(errno.ENOSPC, "No space left on device")
-
-    monkeypatch.setattr(batch, "atomic_path", no_space)
-    rep = batch.run_batch([str(tmp_path / "*.toml")], tmp_path / "out", ["fit"], workers=1, plots=False)
-    assert rep.failed == 2
-    states = rows(tmp_path / "out")
-    assert all(v[0] == "failed" and "No space left" in v[3] for v in states.values()), states
-
-
 def test_resume_after_a_stage_folder_was_deleted(tmp_path):
     import shutil
 
@@ -290,9 +273,10 @@ def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch
     distributed = need("distributed")
     import xo_fit.batch.runner as batch
     from xo_fit.errors import XoFitError
+    import xo_fit.batch.cluster as cluster
 
     make_jobs(tmp_path, 1)
-    monkeypatch.setattr(batch, "DASK_WORKER_WAIT", 1.0)
+    monkeypatch.setattr(cluster, "DASK_WORKER_WAIT", 1.0)
     cluster = distributed.LocalCluster(n_workers=0, processes=True, host="127.0.0.1",
                                        dashboard_address="127.0.0.1:0")  # loopback only, no worker
     try:
@@ -301,3 +285,54 @@ def test_a_scheduler_without_workers_is_said_not_waited_on(tmp_path, monkeypatch
     finally:
         cluster.close()
     assert not any(v[0] == "running" for v in rows(tmp_path / "out").values())
+
+
+def test_a_variant_run_on_a_system_kept_from_another_gives_what_a_fresh_load_gives(tmp_path):
+    """One worker runs a seed sweep: its second variant reuses the system loaded for the first (seeds are not
+    loaded). Its result equals the one computed from a fresh load of that variant (the fit command's path)."""
+    from xo_fit.batch import worker
+    from xo_fit.batch.tasks import fit_stage
+    from xo_fit.job.sweep import expand_job
+    from xo_fit.model.system import load_system
+
+    text, _ = ladder_job("LR2", start=1.5, spread=4.0)
+    job = tmp_path / "s.toml"
+    job.write_text(text + '\n[search]\nbudget = 600\n[sweep]\n"search.seed" = [3, 4]\n')
+    out = tmp_path / "out"
+    r = cli("batch", job, "--out", out, "--workers", "1", "--stages", "fit", "--no-plots")
+    assert r.returncode == 0, r.stderr
+    (first, d0), (variant, d1) = expand_job(job)
+    fresh = load_system(variant)
+    result = fit_stage(fresh, tmp_path / "fresh", plots=False)
+    kept = json.loads((out / "s-seed4" / "fit" / "result.json").read_text())
+    assert kept["parts"] == result.document["parts"] and kept["cost"] == result.document["cost"]
+    # in one process: the second variant gets the first's system, rebound to itself
+    payload = {"source": str(job.resolve()), "data": "one data key"}
+    a = worker.kept_system(first, d0, payload, load_system)
+    b = worker.kept_system(variant, d1, payload, load_system)
+    assert b.network is a.network and b.job is variant and b.job.search.seed == 4
+    assert b.warnings == fresh.warnings and np.array_equal(b.factors, fresh.factors)
+
+
+def test_a_worker_keeps_parsed_curves_by_their_bytes_and_reads_supplied_files(tmp_path):
+    """Kept curves: the same bytes give the same (read-only) curve without a parse; changed bytes a new one.
+    Supplied files (a cluster worker's): read instead of the disk, which need not hold them."""
+    from xo_fit.errors import supplied_files
+    from xo_fit.io import measure
+
+    p = tmp_path / "r.txt"
+    p.write_text("100 80\n1000 85\n10000 82\n")
+    measure.keep_curves(True)
+    try:
+        a, b = measure.read_curve(p, "response"), measure.read_curve(p, "response")
+        assert a is b and not a.magnitude.flags.writeable
+        p.write_text("100 70\n1000 75\n10000 72\n")
+        c = measure.read_curve(p, "response")
+        assert c is not a and list(c.magnitude) == [70.0, 75.0, 72.0]
+    finally:
+        measure.keep_curves(False)
+    gone = tmp_path / "elsewhere" / "w.txt"
+    with supplied_files({str(gone): b"20 1\n20000 2\n"}):
+        assert list(measure.read_curve(gone, "response").magnitude) == [1.0, 2.0]
+    with pytest.raises(Exception, match="not found"):
+        measure.read_curve(gone, "response")

@@ -285,7 +285,7 @@ def test_a_pruned_off_axis_job_runs_from_its_own_folder_and_a_batch_sees_its_ang
     code, out, err = cli("simulate", tmp_path / "deep" / "p" / "job.toml", "--out", tmp_path / "s", "--no-plots")
     assert code == 0, err
     assert (tmp_path / "s" / "angles.csv").exists() and (tmp_path / "deep" / "p" / "angles.csv").exists()
-    from xo_fit.batch.runner import job_hash
+    from xo_fit.batch.collect import job_hash
 
     j = load_job(job)
     before = job_hash(j, j.data)

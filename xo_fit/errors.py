@@ -10,7 +10,9 @@ other exception is a bug and keeps its traceback.
 
 from __future__ import annotations
 
+from contextlib import contextmanager
 from pathlib import Path
+from typing import Iterator, Mapping
 
 
 class XoFitError(Exception):
@@ -71,6 +73,23 @@ class NetworkError(XoFitError):
 MAX_USER_FILE = 64 * 1024 * 1024
 
 
+#: Files given by their bytes instead of read from disk (:func:`supplied_files`): path -> bytes.
+_SUPPLIED: dict[str, bytes] = {}
+
+
+@contextmanager
+def supplied_files(files: Mapping[str, bytes] | None) -> Iterator[None]:
+    """Within the block, :func:`read_user_bytes` of a path in ``files`` (keyed by ``str(path)``) returns the given
+    bytes instead of reading the disk: a batch's cluster worker gets its job's files this way, with no shared
+    disk. ``None`` or an empty mapping supplies nothing."""
+    _SUPPLIED.update(files or {})
+    try:
+        yield
+    finally:
+        for key in files or {}:
+            _SUPPLIED.pop(key, None)
+
+
 def read_user_bytes(path: str | Path, what: str, error: type = DataError) -> bytes:
     """The bytes of a regular file the user named, at most MAX_USER_FILE of them.
 
@@ -81,6 +100,8 @@ def read_user_bytes(path: str | Path, what: str, error: type = DataError) -> byt
     import stat
 
     path = Path(path)
+    if _SUPPLIED and str(path) in _SUPPLIED:
+        return _SUPPLIED[str(path)]
     try:
         with open(path, "rb") as fh:
             mode = os.fstat(fh.fileno()).st_mode

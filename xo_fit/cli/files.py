@@ -24,12 +24,16 @@ def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or gl
           no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNGs."),
           ) -> None:
     """Run many jobs unattended and resumably: results.sqlite, one folder per job, summary.csv."""
-    from xo_fit.batch.runner import run_batch, write_summary
+    from xo_fit.batch.runner import BatchStopped, run_batch, write_summary
 
     if summary is not None:
         if not (summary / "results.sqlite").exists():
             raise XoFitError("no results.sqlite here: not a batch folder", path=summary)
-        rows = write_summary(summary)
+        try:
+            rows = write_summary(summary)
+        except BatchStopped as e:
+            typer.echo(f"xo-fit: {e}", err=True)
+            raise typer.Exit(e.code)
         say(f"batch {summary}: {len(rows)} jobs, sorted by cost (also in {summary / 'summary.csv'})")
         print_summary(rows)
         return
@@ -50,15 +54,36 @@ def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or gl
         sys.stderr.flush()
 
     t0 = time.perf_counter()
-    rep = run_batch(jobs, out, stage_list, workers=workers, scheduler=scheduler, plots=not no_plots,
-                    progress=progress)
+    try:
+        rep = run_batch(jobs, out, stage_list, workers=workers, scheduler=scheduler, plots=not no_plots,
+                        progress=progress)
+    except BatchStopped as e:
+        if enabled:
+            sys.stderr.write("\n")
+        typer.echo(f"xo-fit: {e}", err=True)
+        raise typer.Exit(e.code)
     if enabled:
         sys.stderr.write("\n")
+    report_failures(rep.failures)
     say(f"batch {out}: {rep.total} jobs; {rep.skipped} already done, {rep.done} run now, {rep.failed} failed; "
         f"{time.perf_counter() - t0:.1f} s")
     print_summary(rep.summary)
     if rep.failed:
         raise typer.Exit(1)
+
+
+#: At most this many failed jobs are named on stderr after a batch (the rest: summary.csv and results.sqlite).
+FAILURES_SHOWN = 20
+
+
+def report_failures(failures: list[tuple[str, str, str]]) -> None:
+    """Each failed job on stderr with its whole reason (a bug's traceback stays in results.sqlite)."""
+    for job, stage, message in failures[:FAILURES_SHOWN]:
+        lines = str(message).splitlines() or [""]
+        more = " (its traceback is in results.sqlite)" if len(lines) > 1 else ""
+        typer.echo(f"xo-fit: job {job!r} failed ({stage}): {lines[0]}{more}", err=True)
+    if len(failures) > FAILURES_SHOWN:
+        typer.echo(f"xo-fit: ... and {len(failures) - FAILURES_SHOWN} more failed jobs (see summary.csv)", err=True)
 
 
 @app.command()

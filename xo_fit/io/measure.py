@@ -11,6 +11,7 @@ naming the file, the line and what was wrong.
 
 from __future__ import annotations
 
+import hashlib
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -102,7 +103,34 @@ def read_curve(path: str | Path, kind: str) -> Curve:
         a non-positive frequency or impedance, fewer than two points.
     """
     path = Path(path)
-    text = _decode(read_user_bytes(path, f"{kind} file"), path, kind)
+    raw = read_user_bytes(path, f"{kind} file")
+    if _KEPT is None:
+        return _parse_curve(raw, path, kind)
+    key = (str(path), kind, hashlib.sha256(raw).digest())
+    curve = _KEPT.get(key)
+    if curve is None:
+        curve = _parse_curve(raw, path, kind)
+        if len(_KEPT) >= KEPT_CURVES:
+            _KEPT.clear()
+        _KEPT[key] = curve
+    return curve
+
+
+def keep_curves(on: bool = True) -> None:
+    """Keep parsed curves in this process (by path, kind and the file's bytes), so that reading an unchanged
+    file again costs a read and a hash, not a parse: a batch worker turns this on, as it loads many variants of
+    the same files. A curve's arrays are read-only, so sharing them is safe."""
+    global _KEPT
+    _KEPT = {} if on else None
+
+
+#: At most this many parsed curves are kept (:func:`keep_curves`); beyond, the memory starts afresh.
+KEPT_CURVES = 4096
+_KEPT: dict | None = None
+
+
+def _parse_curve(raw: bytes, path: Path, kind: str) -> Curve:
+    text = _decode(raw, path, kind)
 
     data: list[tuple[int, str]] = []
     for number, line in enumerate(text.splitlines(), start=1):

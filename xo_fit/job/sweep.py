@@ -2,16 +2,22 @@
 
 from __future__ import annotations
 
+import copy
 import dataclasses
+import itertools
+import math
 import re
 from pathlib import Path
-from typing import Any
-
+from typing import Any, Iterator
 
 from xo_fit.errors import XoFitError
-from xo_fit.job.model import (FrozenMap, Job)
-from xo_fit.job.reading import (Context)
-from xo_fit.job.reader import (read_document, build_job)
+from xo_fit.job.model import FrozenMap, Job
+from xo_fit.job.reading import Context
+from xo_fit.job.reader import read_document, build_job
+
+#: The most variants one [sweep] may stand for (the product of its lists' lengths); more is refused up front.
+MAX_VARIANTS = 100_000
+
 
 def has_sweep(path: str | Path) -> bool:
     """True when the job file has a [sweep] table; False also when it cannot be read (load_job then says why)."""
@@ -20,6 +26,89 @@ def has_sweep(path: str | Path) -> bool:
     except XoFitError:
         return False
     return "sweep" in data
+
+
+@dataclasses.dataclass(frozen=True)
+class Sweep:
+    """A job file read once, as the plan of its variants (none built yet).
+
+    ``data`` is the document without its [sweep]; ``axes`` holds (key, paths, values) per [sweep] entry, in the
+    file's order; a variant is a combination, one value per axis (``()`` for a file without a [sweep]).
+    """
+
+    data: dict
+    ctx: Context
+    base_name: str
+    axes: tuple
+
+    @property
+    def swept(self) -> bool:
+        return bool(self.axes)
+
+    def __len__(self) -> int:
+        return math.prod(len(a[2]) for a in self.axes)
+
+    def combos(self) -> Iterator[tuple]:
+        """Every variant's values, in the order the variants are named and run."""
+        return itertools.product(*[a[2] for a in self.axes])
+
+    def name(self, combo: tuple) -> str:
+        """The variant's name: ``<name>-<key><value>-...`` (the name itself without a [sweep])."""
+        if not self.axes:
+            return self.base_name
+        return f"{self.base_name}-" + "-".join(f"{paths[0].split('.')[-1]}{variant_label(value)}"
+                                               for (_, paths, _), value in zip(self.axes, combo))
+
+    def values(self, combo: tuple) -> dict:
+        """The swept values by the last segment of their path (the keys of ``Job.swept``)."""
+        return {paths[0].split(".")[-1]: value for (_, paths, _), value in zip(self.axes, combo)}
+
+    def touches(self, prefixes: tuple[str, ...]) -> bool:
+        """True when some swept path begins with one of ``prefixes`` (dotted, e.g. ``"driver."``)."""
+        return any(p == pre.rstrip(".") or p.startswith(pre) for _, paths, _ in self.axes for p in paths
+                   for pre in prefixes)
+
+    def variant(self, combo: tuple) -> tuple[Job, dict]:
+        """The variant built and checked: (job, its resolved document)."""
+        variant = copy.deepcopy(self.data)
+        if not self.axes:
+            return build_job(variant, self.ctx), variant
+        for (key, paths, _), value in zip(self.axes, combo):
+            for p in paths:
+                assign_path(variant, p, value, self.ctx, key)
+        variant["name"] = self.name(combo)
+        job = build_job(variant, self.ctx)
+        return dataclasses.replace(job, swept=FrozenMap(self.values(combo))), variant
+
+
+def read_sweep(path: str | Path) -> Sweep:
+    """Read a job file as its :class:`Sweep`, checking the [sweep] table's form and size (no variant built).
+
+    Raises
+    ------
+    JobError
+        The file cannot be read, the [sweep] is not a table of non-empty lists, or it stands for more than
+        :data:`MAX_VARIANTS` variants.
+    """
+    data, ctx = read_document(path)
+    base_name = data.get("name") if isinstance(data.get("name"), str) else ctx.stem
+    sweep = data.pop("sweep", None)
+    if sweep is None:
+        return Sweep(data, ctx, base_name, ())
+    if not isinstance(sweep, dict) or not sweep:
+        raise ctx.error(("sweep",), None, "expected a table of dotted paths to lists of values", "[sweep]")
+    axes = []
+    for key, values in sweep.items():
+        if not isinstance(values, list) or not values:
+            raise ctx.error(("sweep",), key, f"expected a non-empty list of values, got {values!r}", f"[sweep] {key}")
+        paths = [p.strip() for p in key.split(",") if p.strip()]
+        axes.append((key, tuple(paths), tuple(values)))
+    count = math.prod(len(a[2]) for a in axes)
+    if count > MAX_VARIANTS:
+        sizes = " x ".join(str(len(a[2])) for a in axes)
+        raise ctx.error(("sweep",), None, f"stands for {count:,} variants ({sizes}); at most {MAX_VARIANTS:,} are "
+                        "allowed: split the sweep over several job files or shorten its lists", "[sweep]")
+    return Sweep(data, ctx, base_name, tuple(axes))
 
 
 def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
@@ -31,37 +120,10 @@ def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
     (``"part.L1.max"``); a key holding several comma-separated paths sets all of
     them to each value together (``"target.way.woofer.fc, target.way.tweeter.fc"``).
     Variants are named ``<name>-<key><value>-...`` after the last segment of
-    each path. Returns (job, its resolved document) pairs; the document feeds
-    the batch store's hash.
+    each path; at most :data:`MAX_VARIANTS` of them. Returns (job, its resolved document) pairs.
     """
-    import copy
-    import itertools
-
-    data, ctx = read_document(path)
-    base_name = data.get("name") if isinstance(data.get("name"), str) else ctx.stem
-    sweep = data.pop("sweep", None)
-    if sweep is None:
-        return [(build_job(data, ctx), data)]
-    if not isinstance(sweep, dict) or not sweep:
-        raise ctx.error(("sweep",), None, "expected a table of dotted paths to lists of values", "[sweep]")
-    axes = []
-    for key, values in sweep.items():
-        if not isinstance(values, list) or not values:
-            raise ctx.error(("sweep",), key, f"expected a non-empty list of values, got {values!r}", f"[sweep] {key}")
-        paths = [p.strip() for p in key.split(",") if p.strip()]
-        axes.append((key, paths, values))
-    out = []
-    for combo in itertools.product(*[a[2] for a in axes]):
-        variant = copy.deepcopy(data)
-        label = []
-        for (key, paths, _), value in zip(axes, combo):
-            for p in paths:
-                assign_path(variant, p, value, ctx, key)
-            label.append(f"{paths[0].split('.')[-1]}{variant_label(value)}")
-        variant["name"] = f"{base_name}-" + "-".join(label)
-        swept = FrozenMap({paths[0].split(".")[-1]: value for (key, paths, _), value in zip(axes, combo)})
-        out.append((dataclasses.replace(build_job(variant, ctx), swept=swept), variant))
-    return out
+    sweep = read_sweep(path)
+    return [sweep.variant(combo) for combo in sweep.combos()]
 
 
 def variant_label(value: Any) -> str:
