@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-from conftest import ladder_job
+from conftest import ladder_job, need
 from test_batch import cli, make_jobs, rows
 
 
@@ -174,7 +174,7 @@ def test_a_full_disk_is_one_line_and_leaves_no_temp_file_and_no_running_row(tmp_
 def test_a_bogus_or_a_dead_scheduler_is_one_line(tmp_path):
     """--scheduler garbage:// is bad input (exit 2); a scheduler killed (-9) while its jobs run stops the batch:
     one line, exit 1, every unfinished stage interrupted."""
-    pytest.importorskip("distributed")
+    need("distributed")
     long_jobs(tmp_path, 3)
     r = cli("batch", tmp_path / "job0.toml", "--out", tmp_path / "g", "--scheduler", "garbage://x:1", "--no-plots",
             timeout=120)
