@@ -20,6 +20,7 @@ sound. What it multiplies (:func:`~xo_fit.model.system.load_system` applies it):
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -82,9 +83,18 @@ def driver_diffraction(job: Job, spec: DriverSpec, frequencies: np.ndarray, posi
     assert job.baffle is not None
     x, y = spec.position if spec.position is not None else (0.0, 0.0)
     radius = 0.0 if uses_point_source(spec) or spec.radius is None else spec.radius
-    return diffraction(np.asarray(frequencies, dtype=float), (x, y), orbit_directions(positions),
-                       rectangle(job.baffle.x, job.baffle.y), radius=radius, distance=job.distance,
-                       speed_of_sound=job.speed_of_sound)
+    f = np.ascontiguousarray(frequencies, dtype=float)
+    return _cached(f.tobytes(), (x, y), tuple(positions), (job.baffle.x, job.baffle.y), radius, job.distance,
+                   job.speed_of_sound).copy()
+
+
+@lru_cache(maxsize=8)
+def _cached(f: bytes, position: tuple, positions: tuple, edges: tuple, radius: float, distance: float,
+            c: float) -> np.ndarray:
+    """:func:`diffraction` remembered: every command of a process (the demo runs several) loads the job anew,
+    and 70 positions cost a few tenths of a second."""
+    return diffraction(np.frombuffer(f), position, orbit_directions(positions), rectangle(*edges), radius=radius,
+                       distance=distance, speed_of_sound=c)
 
 
 def baffled(job: Job, spec: DriverSpec, near: Curve | None, grid: np.ndarray, positions: tuple) -> Baffled | None:
