@@ -394,8 +394,9 @@ def write_scenario(folder: str | Path) -> Path:
     f = np.geomspace(10.0, 40000.0, 545)  # 1/48 octave
     # the woofer: a near field (no cabinet edges in it, the close microphone 22 dB up) and gated far fields
     fn = f[f <= NEAR_FIELD_TOP_HZ]
-    write_text(data / "woofer-near.txt", _curve_text(fn, woofer_halfspace(fn) * 10 ** (22 / 20) * _ripple(fn, 0.1, 1.1, 0.7),
-                                                      "response", "Wren woofer, near field (close to the cone), 2.83 V"))
+    near = woofer_halfspace(fn) * 10 ** (22 / 20) * _ripple(fn, 0.1, 1.1, 0.7)
+    write_text(data / "woofer-near.txt", _curve_text(fn, near, "response",
+                                                      "Wren woofer, near field (close to the cone), 2.83 V"))
     fw = f[f >= WOOFER_GATE_HZ]
     positions = [("h", 0)] + [("h", a) for a in H_ANGLES] + [("v", a) for a in V_ANGLES]
     woofer = woofer_halfspace(fw) * _ripple(fw, 0.25, 1.7, 0.3) * woofer_diffraction(fw, positions)  # (A, F)

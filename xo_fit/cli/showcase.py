@@ -22,7 +22,8 @@ def baffle_figures(job: Path) -> str:
 
     f = np.geomspace(40.0, 2000.0, 200)
     db = 20 * np.log10(np.abs(woofer_diffraction(f, [("h", 0)])[0]))
-    return f"on the axis {db[0]:+.1f} dB at 40 Hz, -3 dB at {f[np.argmax(db > -3.0103)]:.0f} Hz, {db.max():+.1f} dB at most"
+    half = f[np.argmax(db > -3.0103)]
+    return f"on the axis {db[0]:+.1f} dB at 40 Hz, -3 dB at {half:.0f} Hz, {db.max():+.1f} dB at most"
 
 
 @app.command()

@@ -112,5 +112,5 @@ def times(curve: Curve, d: np.ndarray) -> Curve:
     """A measured curve (dB SPL) times a complex factor ``d`` at its own frequencies (N,): its level plus
     20 log10 |d|, its phase column (if any) plus the angle of ``d``."""
     phase = None if curve.phase_deg is None else curve.phase_deg + np.degrees(np.unwrap(np.angle(d)))
-    return Curve(path=curve.path, frequency=curve.frequency, magnitude=curve.magnitude + 20 * np.log10(np.maximum(np.abs(d), 1e-10)),
-                 phase_deg=phase, lines=curve.lines)
+    level = curve.magnitude + 20 * np.log10(np.maximum(np.abs(d), 1e-10))
+    return Curve(path=curve.path, frequency=curve.frequency, magnitude=level, phase_deg=phase, lines=curve.lines)

@@ -46,22 +46,22 @@ class BaffleResponses:
         return Table(cols)
 
     def lines(self) -> list[str]:
-        """One line per driver for the command to print: where the step's halfway point and its end lie."""
+        """One line per driver for the command to print: its level at the grid's ends, where the step is halfway
+        (-3 dB), the ripple above 115/W, and which of its curves take the diffraction."""
         from xo_fit.units import format_value
 
         f = self.frequencies
-        width = self.job.baffle.x[1] - self.job.baffle.x[0]
+        step = STEP_HZ_M / (self.job.baffle.x[1] - self.job.baffle.x[0])
         out = []
         for k, spec in enumerate(self.job.drivers):
-            db = 20 * np.log10(np.abs(self.response[k, 0]))
-            half = f[np.argmax(db > -3.0103)] if np.any(db > -3.0103) else None
-            at = spec.position or (0.0, 0.0)
-            out.append(f"  {spec.name:<10} at ({at[0] * 1e3:g}, {at[1] * 1e3:g}) mm: {db[0]:+.2f} dB at "
-                       f"{format_value(f[0], 'Hz')}, -3 dB at "
-                       + (format_value(float(half), 'Hz', 3) if half is not None else "(not reached)")
-                       + f", {db[-1]:+.2f} dB at {format_value(f[-1], 'Hz')}; above 115/W "
-                       f"({format_value(STEP_HZ_M / width, 'Hz', 3)}) {np.min(db[f > STEP_HZ_M / width], initial=0):+.2f}"
-                       f" to {np.max(db[f > STEP_HZ_M / width], initial=0):+.2f} dB; " + applies_to(spec))
+            db = 20 * np.log10(np.maximum(np.abs(self.response[k, 0]), 1e-30))
+            half = format_value(float(f[np.argmax(db > -3.0103)]), "Hz", 3) if np.any(db > -3.0103) else "-"
+            above = db[f > step]
+            ripple = f"{above.min():+.2f} to {above.max():+.2f} dB" if above.size else "-"
+            x, y = spec.position or (0.0, 0.0)
+            out.append(f"  {spec.name:<10} at ({x * 1e3:g}, {y * 1e3:g}) mm: {db[0]:+.2f} dB at "
+                       f"{format_value(f[0], 'Hz')}, -3 dB at {half}, above 115/W ({format_value(step, 'Hz', 3)}) "
+                       f"{ripple}; {applies_to(spec)}")
         return out
 
     def save(self, folder: str | Path, plots: bool = True) -> list[Path]:
