@@ -156,8 +156,8 @@ def test_demo_end_to_end(demo_run):
     # the textbook hand design misses a flat sum by several dB: the problem the fit is for
     t = pd.read_csv(tmp_path / "demo" / "hand-design" / "response.csv")
     band = (t.frequency_hz > 150) & (t.frequency_hz < 16000)
-    assert t.sum_db[band].max() - t.sum_db[band].min() > 4.0
-    assert result["metrics"]["max_error_db"] > 4.0
+    assert t.sum_db[band].max() - t.sum_db[band].min() > 3.5
+    assert result["metrics"]["max_error_db"] > 3.5
     # ... and the fit brings it within about a dB
     fit = json.loads((tmp_path / "demo" / "fit" / "result.json").read_text())
     assert fit["stage"] == "fit" and fit["search"]["complete"]

@@ -139,16 +139,17 @@ def test_cost_preference_is_refused_where_the_score_cannot_be_had(tmp_path, cli,
 
 
 def test_a_fit_with_the_preference_term_scores_higher(tmp_path):
-    """The demo fitted twice on a small budget (2000 evaluations, seed 1), without and with
-    `[cost] preference = 10`: the second fit's predicted preference is the higher (measured: 6.62 against
-    6.84), paid for in the target's rms error."""
+    """The demo fitted twice on a small budget (4000 evaluations, seed 1), without and with
+    `[cost] preference = 10`: the second fit's predicted preference is the higher (measured: 5.45 against
+    6.53), paid for in the target's rms error (0.56 against 0.63 dB; at 2000 evaluations the fit without the
+    term had not yet reached its own rms, 0.66 dB, since the demo's woofer took the baffle's diffraction)."""
     import xo_fit
 
     scores, rms = {}, {}
     for label, extra in (("without", ""), ("with", "preference = 10\n")):
         job = write_scenario(tmp_path / label)
         _edit(job, {"[cost]\n": f"[cost]\n{extra}"})
-        design = xo_fit.fit(job, budget=2000, seed=1)
+        design = xo_fit.fit(job, budget=4000, seed=1)
         scores[label] = design.preference["score"]
         rms[label] = design.metrics["rms_error_db"]
         assert ("preference" in design.terms) == bool(extra)

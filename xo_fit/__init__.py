@@ -17,8 +17,8 @@ from xo_fit.errors import XoFitError
 
 __version__ = "0.2.0"
 
-_API = ("load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "fit_driver", "Design",
-        "Spread")
+_API = ("load_job", "simulate", "fit", "snap", "spread", "prune", "write_report", "load_result", "fit_driver", "baffle",
+        "Design", "Spread")
 __all__ = ["XoFitError", "__version__", *_API]
 
 

@@ -29,8 +29,8 @@ from xo_fit.errors import XoFitError
 from xo_fit.job.model import Job
 from xo_fit.job.reader import load_job as _load_job
 
-__all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "fit_driver", "write_report", "load_result",
-           "Design", "Spread"]
+__all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "fit_driver", "baffle", "write_report",
+           "load_result", "Design", "Spread"]
 
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
@@ -276,6 +276,23 @@ def fit_driver(path: str | Path, model: str = "ts", volume: float | None = None)
 
 #: The vented-box models ``fit_driver`` takes besides the free-air ones.
 VENTED_MODELS = ("vented", "vented-lossy")
+
+
+def baffle(job):
+    """Each driver's diffraction response on the job's ``[baffle]`` (docs/baffle.md), without reading any data:
+    an :class:`xo_fit.output.baffle.BaffleResponses` (``frequencies`` (F,) Hz, ``positions`` (A,), ``names``,
+    ``response`` complex (D, A, F), ``table()``, ``save(folder)`` writing baffle.csv and baffle.png). ``job`` is a
+    Job, a job file path or a System. Raises JobError when the job has no [baffle]."""
+    from xo_fit.model.system import System
+    from xo_fit.output.baffle import baffle_responses
+
+    if isinstance(job, System):
+        job = job.job
+    elif isinstance(job, (str, Path)):
+        job = _load_job(job)
+    if not isinstance(job, Job):
+        raise XoFitError(f"expected a job (xo_fit.load_job) or a job file path, got {type(job).__name__}")
+    return baffle_responses(job)
 
 
 def write_report(items: list, out: str | Path, command: list[str] | None = None) -> Path:

@@ -13,15 +13,21 @@ way a designer's own in-cabinet measurements would look:
   Small's closed-box relations fc = fs sqrt(1 + alpha), Qmc = Qms sqrt(1 +
   alpha), Qec = Qes sqrt(1 + alpha) with alpha = Vas/Vb = 2, and Sd the
   cone's radiating area (pi a^2, a = WOOFER_RADIUS);
-* woofer response: the sealed-box 2nd-order high-pass, the baffle-step shelf
-  (midpoint 115 / W Hz after H. F. Olson; a first-order shelf, docs/references.md),
-  the current roll-off of the voice-coil inductance, a cone breakup peak and
-  the cone's own low-pass;
+* woofer response: the sealed-box 2nd-order high-pass, the current roll-off of
+  the voice-coil inductance, a cone breakup peak and the cone's own low-pass,
+  on an infinite baffle (the half space); in the cabinet, times the diffraction
+  of its 190 x 330 mm front (xo_fit.physics.baffle, docs/baffle.md: the baffle
+  step and the edge ripple) at every position, the piston's directivity
+  included. Its files are a near field (the half-space response, 10-800 Hz,
+  louder for the close microphone) and far fields gated from 300 Hz, which the
+  job splices at 400 Hz with ``baffle = true``, so xo_fit puts the cabinet's
+  diffraction back into the near field;
 * tweeter: its own 2nd-order roll-off at resonance, a dome peak, and a top-end
   roll-off; the woofer's acoustic centre sits 18 mm behind the tweeter's; its
   response file is gated and starts at 300 Hz (the job extends it below);
 * a little measurement ripple (+-0.25 dB) on both responses;
-* off-axis responses on both orbits in 10 degree steps: each driver a rigid
+* off-axis responses on both orbits in 10 degree steps: the woofer's from the
+  diffraction model above; the tweeter a rigid
   circular piston, directivity 2 J1(ka sin t) / (ka sin t) in front (Kinsler,
   Frey, Coppens and Sanders, *Fundamentals of Acoustics*; L. Beranek,
   *Acoustics*), its 90 degree value behind, fading with frequency as the
@@ -49,6 +55,8 @@ from xo_fit.io.results import write_text
 
 #: Baffle width of the demo cabinet, m.
 BAFFLE_WIDTH = 0.19
+#: The cabinet's front from the reference point (the tweeter's centre), m: (left, right), (bottom, top).
+BAFFLE_EDGES = ((-BAFFLE_WIDTH / 2, BAFFLE_WIDTH / 2), (-0.26, 0.07))
 
 #: Radiating radii of the demo drivers (m): a 6.5-inch class cone and a 1-inch class dome.
 WOOFER_RADIUS = 0.066
@@ -62,6 +70,9 @@ V_ANGLES = tuple(a for a in range(-170, 171, 10) if a != 0)
 
 #: The tweeter's gated measurement starts here (Hz): a 3.3 ms reflection-free window.
 TWEETER_GATE_HZ = 300.0
+#: The woofer's far fields are gated alike; its near field is valid up to about ka = 1 (Hz).
+WOOFER_GATE_HZ = 300.0
+NEAR_FIELD_TOP_HZ = 800.0
 
 WOOFER = ThieleSmall(re=5.4, le=0.6e-3, fs=58.0, qms=3.4, qes=0.62, le_exponent=0.72)
 TWEETER = ThieleSmall(re=4.7, le=0.06e-3, fs=780.0, qms=1.6, qes=1.3, le_exponent=0.85)
@@ -84,24 +95,29 @@ def _peak(s: np.ndarray, f0: float, q: float, gain_db: float) -> np.ndarray:
     return (s**2 + s * w0 * a / q + w0**2) / (s**2 + s * w0 / (a * q) + w0**2)
 
 
-def _shelf(s: np.ndarray, width: float) -> np.ndarray:
-    """Baffle step: -6.02 dB below, 0 dB above, -3.01 dB at f3 = 115 / width (docs/references.md)."""
-    w3 = 2 * np.pi * 115.0 / width
-    return (s + w3 / np.sqrt(2)) / (s + np.sqrt(2) * w3)
-
-
 def _ripple(f: np.ndarray, depth_db: float, period_oct: float, phase: float) -> np.ndarray:
     return 10 ** (depth_db * np.sin(2 * np.pi * np.log2(f) / period_oct + phase) / 20.0)
 
 
-def woofer_response(f: np.ndarray) -> np.ndarray:
-    """Complex pressure (Pa at 2.83 V, 1 m) of the demo woofer in its cabinet."""
+def woofer_halfspace(f: np.ndarray) -> np.ndarray:
+    """Complex pressure (Pa at 2.83 V, 1 m) of the demo woofer on an infinite baffle (the half space)."""
     s = 2j * np.pi * f
     inductive = WOOFER.re / (WOOFER.re + _le(WOOFER, f))  # current roll-off of the voice coil
-    h = (_hp2(s, 62.0, 0.78) * _shelf(s, BAFFLE_WIDTH) * inductive * _peak(s, 5400.0, 4.5, 9.0)
-         * _lp2(s, 4300.0, 0.62))
-    level = 20e-6 * 10 ** (88.0 / 20)
-    return level * h * _ripple(f, 0.25, 1.7, 0.3)
+    h = _hp2(s, 62.0, 0.78) * inductive * _peak(s, 5400.0, 4.5, 9.0) * _lp2(s, 4300.0, 0.62)
+    return 20e-6 * 10 ** (88.0 / 20) * h
+
+
+def woofer_diffraction(f: np.ndarray, positions) -> np.ndarray:
+    """The demo cabinet's diffraction response of the woofer, complex (A, F) at ("h"|"v", deg) positions."""
+    from xo_fit.physics.baffle import diffraction, orbit_directions, rectangle
+
+    return diffraction(f, (0.0, WOOFER_HEIGHT), orbit_directions(positions), rectangle(*BAFFLE_EDGES),
+                       radius=WOOFER_RADIUS, speed_of_sound=SPEED_OF_SOUND)
+
+
+def woofer_response(f: np.ndarray) -> np.ndarray:
+    """Complex pressure (Pa at 2.83 V, 1 m) of the demo woofer in its cabinet, on the axis."""
+    return woofer_halfspace(f) * woofer_diffraction(f, [("h", 0)])[0] * _ripple(f, 0.25, 1.7, 0.3)
 
 
 def _le(ts: ThieleSmall, f: np.ndarray) -> np.ndarray:
@@ -175,12 +191,22 @@ points = 300
 voltage = 2.83
 resistance = 0.05
 
+# the cabinet's front, from the tweeter's centre (the reference point): 190 mm wide, 330 mm high
+[baffle]
+x = ["-95mm", "95mm"]
+y = ["-260mm", "70mm"]
+depth = "240mm"
+
+# the woofer: a near field (below 400 Hz; it holds no baffle step) spliced with the far fields gated from
+# 300 Hz; baffle = true multiplies the near field by this cabinet's diffraction at every position first
 [driver.woofer]
-response = "data/woofer-response.txt"
+response = { near = "data/woofer-near.txt", far = "data/woofer-response.txt", splice_hz = 400, baffle = true }
 impedance = "data/woofer-impedance.txt"
 reference_voltage = 2.83
 offset = "18mm"                       # 18 mm behind the tweeter's acoustic centre
 position = { x = 0, y = "-150mm" }    # 150 mm below it (the tweeter's centre is the reference point)
+phase = "minimum"                     # a splice takes its phase from the joined magnitude
+radius = "66mm"                       # the cone's effective radius: its directivity in the diffraction
 
 # off axis: both orbits in 10 degree steps; the horizontal one is symmetric. The files are measured about
 # the driver's own centre (time of flight removed), so xo_fit adds its path to every position
@@ -387,8 +413,20 @@ def write_scenario(folder: str | Path) -> Path:
     folder = Path(folder)
     data = folder / "data"
     f = np.geomspace(10.0, 40000.0, 545)  # 1/48 octave
-    write_text(data / "woofer-response.txt", _curve_text(f, woofer_response(f), "response",
-                                                          "Wren woofer, in cabinet, 2.83 V, 1 m, gated"))
+    # the woofer: a near field (no cabinet edges in it, the close microphone 22 dB up) and gated far fields
+    fn = f[f <= NEAR_FIELD_TOP_HZ]
+    near = woofer_halfspace(fn) * 10 ** (22 / 20) * _ripple(fn, 0.1, 1.1, 0.7)
+    write_text(data / "woofer-near.txt", _curve_text(fn, near, "response",
+                                                      "Wren woofer, near field (close to the cone), 2.83 V"))
+    fw = f[f >= WOOFER_GATE_HZ]
+    positions = [("h", 0)] + [("h", a) for a in H_ANGLES] + [("v", a) for a in V_ANGLES]
+    woofer = woofer_halfspace(fw) * _ripple(fw, 0.25, 1.7, 0.3) * woofer_diffraction(fw, positions)  # (A, F)
+    write_text(data / "woofer-response.txt", _curve_text(fw, woofer[0], "response",
+                                                          "Wren woofer, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
+    for (orbit, a), p in zip(positions[1:], woofer[1:]):
+        write_text(data / "polar" / f"woofer-{orbit}{a}.txt",
+                   _curve_text(fw, p, "response", f"Wren woofer, {'horizontal' if orbit == 'h' else 'vertical'} {a} "
+                               "deg, 2.83 V, 1 m, gated (from 300 Hz); about the driver's centre"))
     write_text(data / "woofer-impedance.txt", _curve_text(f, WOOFER.impedance(f), "impedance",
                                                            "Wren woofer, in cabinet"))
     # the tweeter's gate leaves nothing below 300 Hz: the job extends it (extend_low = "order2")
@@ -397,8 +435,7 @@ def write_scenario(folder: str | Path) -> Path:
                                                            "Wren tweeter, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
     write_text(data / "tweeter-impedance.txt", _curve_text(f, TWEETER.impedance(f), "impedance",
                                                             "Wren tweeter, in cabinet"))
-    for name, resp, radius, lo in (("woofer", woofer_response, WOOFER_RADIUS, 0.0),
-                                   ("tweeter", tweeter_response, TWEETER_RADIUS, TWEETER_GATE_HZ)):
+    for name, resp, radius, lo in (("tweeter", tweeter_response, TWEETER_RADIUS, TWEETER_GATE_HZ),):
         fd = f[f >= lo]
         axis = resp(fd)
         for orbit, angles in (("h", H_ANGLES), ("v", V_ANGLES)):

@@ -1,4 +1,4 @@
-"""Commands that look at a job or its data before a design exists: check, driver, demo."""
+"""Commands that look at a job or its data before a design exists: check, driver, baffle."""
 
 from __future__ import annotations
 
@@ -93,3 +93,23 @@ def driver(impedance: Path = typer.Argument(..., help="A measured impedance file
         "are the free-air values):" if vented else "# the impedance to paste into a job (replacing the driver's "
         "impedance = ...):")
     say(fit.toml(label).rstrip("\n"))
+
+
+@app.command()
+def baffle(job: Path = typer.Argument(..., help="The job file (TOML), with a [baffle] table."),
+           out: Path = typer.Option(..., "--out", "-o", help="Folder for baffle.csv and baffle.png.")) -> None:
+    """Each driver's diffraction response on the job's baffle (the baffle step and the edge ripple), on the axis
+    and at the job's angles: baffle.csv and baffle.png."""
+    from xo_fit.api import baffle as baffle_of
+    from xo_fit.units import format_value
+
+    result = baffle_of(job)
+    for w in result.job.warnings:
+        warn(w)
+    b = result.job.baffle
+    say(f"baffle   {format_value(b.x[1] - b.x[0], 'm')} wide, {format_value(b.y[1] - b.y[0], 'm')} high; diffraction "
+        f"re the half space on {len(result.frequencies)} points, at {len(result.positions)} position"
+        f"{'s' if len(result.positions) > 1 else ''} (docs/baffle.md)")
+    for line in result.lines():
+        say(line)
+    say("wrote " + ", ".join(str(p) for p in result.save(out)))

@@ -14,6 +14,18 @@ from xo_fit.cli.files import export
 from xo_fit.cli.prepare import check, driver
 
 
+def baffle_figures(job: Path) -> str:
+    """The demo woofer's baffle step in a few words: its diffraction on the axis at 40 Hz and where it is -3 dB."""
+    import numpy as np
+
+    from xo_fit.demo import woofer_diffraction
+
+    f = np.geomspace(40.0, 2000.0, 200)
+    db = 20 * np.log10(np.abs(woofer_diffraction(f, [("h", 0)])[0]))
+    half = f[np.argmax(db > -3.0103)]
+    return f"on the axis {db[0]:+.1f} dB at 40 Hz, -3 dB at {half:.0f} Hz, {db.max():+.1f} dB at most"
+
+
 @app.command()
 def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scenario and its results.")) -> None:
     """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design,
@@ -27,6 +39,8 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
         "positions are in the job (the woofer 150 mm below the tweeter, 18 mm deeper) and their angle files are "
         "measured about each driver (about = \"driver\"), so every sum adds each driver's path from its "
         "acoustic centre: the vertical lobing comes from the geometry (check):")
+    say(f"the woofer's near field holds no baffle step: spliced at 400 Hz with baffle = true, it takes the cabinet's "
+        f"diffraction at every position first ({baffle_figures(job)}; `xo-fit baffle` writes it):")
     check(job=job)
     say("an equivalent circuit fitted to the woofer's measured impedance (xo-fit driver FILE --model ts-lossy):")
     driver(impedance=job.parent / "data" / "woofer-impedance.txt", model="ts-lossy", name="woofer", volume=None)

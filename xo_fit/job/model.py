@@ -35,6 +35,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
                "impedance_phase": "measured", "extend_low": "none", "extend_high": "none",
                "impedance_extend_low": "none", "impedance_extend_high": "none"},
     "position": {"x": 0.0, "y": 0.0},
+    "splice": {"baffle": False},
     "thiele_small": {"le": 0.0, "le_exponent": 1.0, "l2": 0.0, "r2": 0.0},
     "box": {"ql": 7.0},
     "angles": {"mirror": False},
@@ -115,6 +116,16 @@ class SplicedResponse:
     def path(self) -> Path:
         """The far-field file (the one that names the curve in messages)."""
         return self.far
+
+
+@dataclass(frozen=True)
+class BaffleSpec:
+    """The cabinet's front (``[baffle]``): its edges from the reference point, m, and the box depth (m, or None;
+    read but not used by the thin-baffle model, docs/baffle.md)."""
+
+    x: tuple[float, float]  # left, right
+    y: tuple[float, float]  # bottom, top
+    depth: float | None = None
 
 
 @dataclass(frozen=True)
@@ -267,6 +278,8 @@ class DriverSpec:
     about: str | None = None  # what the files were measured about: "reference", "driver", None (not given)
     ts: Mapping[str, float] | None = None  # the [driver.NAME.ts] values given, SI (the rest is derived later)
     box: BoxSpec | None = None
+    radius: float | None = None  # effective piston radius, m (the baffle's diffraction); None: a point source
+    baffle: bool = False  # the response (a half-space curve or a near field) lacks the cabinet's edges
 
 
 @dataclass(frozen=True)
@@ -410,6 +423,7 @@ class Job:
     warnings: tuple[str, ...] = ()  # doubtful but legal values, one line each
     swept: Mapping[str, Any] = field(default_factory=lambda: FrozenMap())  # a [sweep] variant's values, by label
     distance: float = math.inf  # m from the reference point to every listening point; inf: the far field
+    baffle: BaffleSpec | None = None  # the cabinet's front ([baffle]), or None
 
     @property
     def data(self) -> dict:
@@ -440,18 +454,19 @@ class Job:
 
 #: Every key each table takes (what "did you mean" chooses from).
 KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) for k, v in {
-    "top": "name grid source acoustics driver part target cost search snap spread stress sweep",
+    "top": "name grid source acoustics driver part target cost search snap spread stress sweep baffle",
     "grid": "f_min f_max points per_octave",
     "source": "voltage resistance",
     "acoustics": "speed_of_sound distance",
     "driver": "response impedance reference_voltage offset position about phase impedance_phase extend_low "
-              "extend_high impedance_extend_low impedance_extend_high ts box",
+              "extend_high impedance_extend_low impedance_extend_high ts box radius",
     "position": "x y",
     "thiele_small": "re le fs qms qes le_exponent l2 r2",
     "ts": " ".join(TS_UNITS),
     "box": "type volume tuning ql",
     "angles": "horizontal vertical horizontal_angles vertical_angles mirror about",
-    "splice": "near far splice_hz",
+    "splice": "near far splice_hz file baffle",
+    "baffle": "x y depth",
     "part": "name type nodes driver value min max fixed dcr esr tolerance rating series keep",
     "target": "band level curve way reference",
     "way": "type alignment order fc fc_low fc_high polarity",

@@ -15,6 +15,7 @@ from xo_fit.job.model import (DEFAULTS, VOLTS, FrozenMap, Job)
 from xo_fit.job.reading import (Lines, Reader, Context)
 from xo_fit.job.parts import (read_part, check_plausible, check_parts)
 from xo_fit.job.tables import check_protection
+from xo_fit.job.baffle import read_baffle, check_baffle
 from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_distance, check_distance, read_target, read_cost, read_search, read_snap, read_spread)
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *, copy: bool = True) -> Job:
@@ -88,6 +89,8 @@ def build_job(data: dict, ctx: Context) -> Job:
     if not drivers:
         raise ctx.error((), None, "no drivers: add at least one [driver.NAME] table", "job")
     check_distance(ac, distance, drivers)
+    baffle = read_baffle(top.sub("baffle", "[baffle]")) if top.has("baffle") else None
+    check_baffle(ctx, baffle, drivers, distance)
     with_angles = [d for d in drivers if d.angles is not None]
     if with_angles:
         first = with_angles[0]
@@ -139,4 +142,4 @@ def build_job(data: dict, ctx: Context) -> Job:
                search=search, snap=snap, spread=spread, stress=stress, folder=ctx.folder,
                document=json.dumps(document, default=str),
                part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}),
-               warnings=tuple(ctx.warnings), distance=distance)
+               warnings=tuple(ctx.warnings), distance=distance, baffle=baffle)

@@ -14,6 +14,7 @@ from xo_fit.units import UnitsError, parse_percent, parse_value
 from xo_fit.job.model import (DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
 from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice)
+from xo_fit.job.baffle import read_radius
 
 def read_stress(r: Reader) -> StressSpec:
     d = DEFAULTS["stress"]
@@ -59,16 +60,17 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         raise r.error("impedance", "missing; expected a measurement file path, a resistance in ohm, "
                       "or a Thiele-Small table {re, le, fs, qms, qes}")
     resp = r.raw("response")
+    baffled = False
     if isinstance(resp, (int, float)) and not isinstance(resp, bool):
         if not (math.isfinite(resp) and -300 <= resp <= 300):
             raise r.error("response", f"a flat driver's level must be -300 to 300 dB SPL, got {short(resp)}")
         response: FileCurve | FlatResponse | SplicedResponse = FlatResponse(float(resp))
     elif isinstance(resp, dict):
         t = r.sub("response", f"[driver.{name}.response]")
-        response = SplicedResponse(near=t.path("near"), far=t.path("far"), splice_hz=t.value("splice_hz", "Hz",
-                                                                                               required=True))
+        response = response_table(t)
+        baffled = t.boolean("baffle", DEFAULTS["splice"]["baffle"])
         t.done()
-        if phase_choice(r, "phase") != "minimum":
+        if isinstance(response, SplicedResponse) and phase_choice(r, "phase") != "minimum":
             raise r.error("phase", "a spliced response must use phase = \"minimum\": the near and far fields' "
                                    "phases do not join, the spliced magnitude gives the phase")
     else:
@@ -120,6 +122,8 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         about=read_about(r, name, isinstance(response, (FileCurve, SplicedResponse))),
         ts=read_ts(r.sub("ts", f"[driver.{name}.ts]")) if r.has("ts") else None,
         box=read_box(r.sub("box", f"[driver.{name}.box]")) if r.has("box") else None,
+        radius=read_radius(r),
+        baffle=baffled,
     )
     if spec.box is not None and spec.ts is None:
         raise r.error("box", f"a box needs the driver's parameters: add a [driver.{name}.ts] table with vas (or sd "
@@ -135,6 +139,18 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
                                        "stops at the file's end, the extended magnitude gives the phase")
     r.done()
     return spec
+
+
+def response_table(t: Reader) -> FileCurve | SplicedResponse:
+    """``response = { file, baffle }`` (one file) or ``{ near, far, splice_hz, baffle }`` (a splice)."""
+    if t.has("file"):
+        if t.has("near") or t.has("far") or t.has("splice_hz"):
+            raise t.error("file", "give file (one curve), or near, far and splice_hz (a splice), not both")
+        return FileCurve(t.path("file"))
+    if not (t.has("near") or t.has("far")):
+        raise t.error(None, "expected file = PATH (one curve), or near, far and splice_hz (a splice)")
+    return SplicedResponse(near=t.path("near"), far=t.path("far"), splice_hz=t.value("splice_hz", "Hz",
+                                                                                     required=True))
 
 
 #: What a driver's files were measured about (``about``): the job's reference point, or the driver's own centre.

@@ -22,6 +22,7 @@ from xo_fit.job.model import ModelImpedance
 from xo_fit.constants import P_REF
 from xo_fit.io.measure import Curve, read_curve
 from xo_fit.physics.extension import extend_curve, splice_curves
+from xo_fit.model.diffraction import baffled, job_positions, times
 from xo_fit.physics.curves import on_grid
 from xo_fit.physics.geometry import Placement, acoustic_centres, placement_factors, placement_warnings
 from xo_fit.solver.netlist import check_topology
@@ -49,6 +50,7 @@ class DriverData:
     impedance_curve: Curve | None = None
     angle_responses: np.ndarray | None = None  # complex Pa at the reference voltage at System.positions, (A, F)
     splice: object = None  # a spliced response's join (xo_fit.physics.extension.Splice), else None
+    baffle: object = None  # the baffle's diffraction its data take (xo_fit.model.diffraction.Baffled), else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -139,10 +141,11 @@ def _angle_data(spec, positions: tuple, d: DriverData, grid: np.ndarray, warning
     out = np.empty((len(positions), grid.size), dtype=complex)
     out[0] = d.response
     near = read_curve(spec.response.near, "response") if d.splice is not None else None
+    per_position = near is not None and d.baffle is not None  # a near field times D at each position
     done: dict = {}  # a mirrored position is its file's data again
     for i, pos in enumerate(positions[1:], start=1):
         path, source = files[pos]
-        if path in done:
+        if path in done and not per_position:
             out[i] = out[done[path]]
             continue
         where = f"[driver.{spec.name}.angles] {pos[0]}{source}" + (f" (mirrored to {pos[0]}{pos[1]} too)"
@@ -150,12 +153,13 @@ def _angle_data(spec, positions: tuple, d: DriverData, grid: np.ndarray, warning
         try:
             curve = read_curve(path, "response")
             if near is not None:
-                curve = splice_curves(near, curve, d.splice.splice_hz, gain_db=d.splice.gain_db).curve
+                curve = splice_curves(times(near, d.baffle.response[i]) if per_position else near, curve,
+                                      d.splice.splice_hz, gain_db=d.splice.gain_db).curve
             out[i], w = on_grid(extend_curve(curve, grid, "response", spec.extend_low, spec.extend_high), grid,
                                 "response", spec.phase)
         except DataError as e:
             raise DataError(e.message, path=e.path, line=e.line, key=where) from None
-        warnings += w
+        warnings += w if path not in done else []
         done[path] = i
     _check_twins(spec, positions, out, grid, warnings)
     out.setflags(write=False)
@@ -185,15 +189,6 @@ def _check_twins(spec, positions: tuple, data: np.ndarray, grid: np.ndarray, war
         if not diff[k] <= TWIN_TOLERANCE_DB:
             warnings.append(f"[driver.{spec.name}.angles] {name} is the same position as {pos[0]}{pos[1]}, whose "
                             f"file is used: {path} differs from {used} by {diff[k]:.2f} dB at {grid[k]:.0f} Hz")
-
-
-def _positions(job: Job) -> tuple:
-    """The measuring positions of an off-axis job, the axis first (then horizontal, vertical, by angle)."""
-    first = next((d for d in job.drivers if d.angles is not None), None)
-    if first is None:
-        return ()
-    rest = sorted(first.angles.files(), key=lambda p: (p[0] != "h", p[1]))
-    return (("h", 0), *rest)
 
 
 def _check_curves(job: Job, positions: tuple) -> None:
@@ -237,13 +232,13 @@ def _check_preference(job: Job, positions: tuple) -> None:
         raise JobError(f"the predicted preference cannot be had on this grid: {name}: {why}", path=job.path, key=key)
 
 
-def _driver_data_of(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
+def _driver_data_of(job: Job, spec, grid: np.ndarray, warnings: list[str], positions: tuple = ()) -> DriverData:
     """:func:`_driver_data`, a missing or unreadable data file tied to the driver and the job line naming it
     (a bare "file not found" once named neither, with the path as written, ../ and all)."""
     import os
 
     try:
-        return _driver_data(job, spec, grid, warnings)
+        return _driver_data(job, spec, grid, warnings, positions)
     except DataError as e:
         access = ("not found", "cannot read", "not a regular file", "is a folder")
         if e.line is not None or e.path is None or not any(a in e.message for a in access):
@@ -267,14 +262,17 @@ def _paths_of(source) -> list:
     return []
 
 
-def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> DriverData:
-    resp_curve = imp_curve = splice = None
+def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str], positions: tuple = ()) -> DriverData:
+    resp_curve = imp_curve = splice = bd = None
     if isinstance(spec.response, FlatResponse):
         response = np.full(grid.size, P_REF * 10 ** (spec.response.level_db / 20.0), dtype=complex)
         rphase = "ideal"
     elif isinstance(spec.response, SplicedResponse):
         sp = spec.response
-        splice = splice_curves(read_curve(sp.near, "response"), read_curve(sp.far, "response"), sp.splice_hz)
+        near = read_curve(sp.near, "response")
+        bd = baffled(job, spec, near, grid, positions)
+        splice = splice_curves(times(near, bd.response[0]) if bd is not None else near, read_curve(sp.far, "response"),
+                               sp.splice_hz)
         resp_curve = splice.curve
         response, w = on_grid(extend_curve(resp_curve, grid, "response", spec.extend_low, spec.extend_high), grid,
                               "response", spec.phase)
@@ -287,6 +285,7 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> Drive
                               "response", spec.phase)
         warnings += w
         rphase = spec.phase
+        bd = baffled(job, spec, None, grid, positions)
     if isinstance(spec.impedance, Resistive):
         impedance = np.full(grid.size, spec.impedance.resistance, dtype=complex)
         iphase = "ideal"
@@ -311,7 +310,24 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str]) -> Drive
     for arr in (response, impedance):
         arr.setflags(write=False)
     return DriverData(name=spec.name, response=response, impedance=impedance, response_phase=rphase,
-                      impedance_phase=iphase, response_curve=resp_curve, impedance_curve=imp_curve, splice=splice)
+                      impedance_phase=iphase, response_curve=resp_curve, impedance_curve=imp_curve, splice=splice,
+                      baffle=bd)
+
+
+def _file_baffle(d: DriverData) -> DriverData:
+    """A baffle = true file (a half-space curve or a near field alone): its on-axis response and its angle files
+    times ``D`` at each position (a splice's near field took ``D`` before it was spliced)."""
+    if d.baffle is None or d.splice is not None:
+        return d
+    from dataclasses import replace
+
+    response = d.response * d.baffle.response[0]
+    response.setflags(write=False)
+    angles = None
+    if d.angle_responses is not None:
+        angles = d.angle_responses * d.baffle.response
+        angles.setflags(write=False)
+    return replace(d, response=response, angle_responses=angles)
 
 
 def branches_for(job: Job) -> list[Branch]:
@@ -350,18 +366,19 @@ def load_system(job: Job) -> System:
     check_netlist(job)
     grid = job.grid.frequencies
     warnings: list[str] = list(job.warnings)
-    positions = _positions(job)
+    positions = job_positions(job)
     _check_curves(job, positions)
     _check_preference(job, positions)
     from xo_fit.model.drivers import driver_models
 
     driver_models(job)  # every [driver.NAME.ts] and .box completed and checked before any file is read
-    drivers = tuple(_driver_data_of(job, d, grid, warnings) for d in job.drivers)
+    drivers = tuple(_driver_data_of(job, d, grid, warnings, positions) for d in job.drivers)
     if positions:
         from dataclasses import replace
 
         drivers = tuple(replace(d, angle_responses=_angle_data(spec, positions, d, grid, warnings))
                         for d, spec in zip(drivers, job.drivers))
+    drivers = tuple(_file_baffle(d) for d in drivers)
     zd = np.stack([d.impedance for d in drivers])
     network = compile_network(branches_for(job), [d.name for d in job.drivers], grid, zd,
                               job.source_voltage, job.source_resistance, context=str(job.path) if job.path else None)

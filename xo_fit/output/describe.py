@@ -50,6 +50,24 @@ def placement_lines(system) -> list[str]:
     return [f"placement {field}"] + [f"  {placement_line(p, d)}" for p in system.placements]
 
 
+def baffle_lines(system) -> list[str]:
+    """The job's baffle and which drivers' curves take its diffraction (``check``); none without a [baffle]."""
+    from xo_fit.output.baffle import applies_to
+    from xo_fit.units import format_value
+
+    b = system.job.baffle
+    if b is None:
+        return []
+    depth = (f"; depth {format_value(b.depth, 'm')} (not used: the model takes a thin baffle)"
+             if b.depth is not None else "")
+    out = [f"baffle   x {format_value(b.x[0], 'm')} to {format_value(b.x[1], 'm')}, y {format_value(b.y[0], 'm')} to "
+           f"{format_value(b.y[1], 'm')} from the reference point ({format_value(b.x[1] - b.x[0], 'm')} wide){depth}"]
+    for spec in system.job.drivers:
+        radius = f", piston radius {format_value(spec.radius, 'm')}" if spec.radius is not None else ", a point source"
+        out.append(f"  {spec.name:<10} diffraction {applies_to(spec)}{radius}")
+    return out
+
+
 def describe(system) -> list[str]:
     """What ``xo-fit check`` prints of a loaded system (:class:`~xo_fit.model.system.System`): the grid, each
     driver's data and how it is extended, the off-axis positions and curves, the parts, the target, the free
@@ -100,6 +118,7 @@ def describe(system) -> list[str]:
                 + (f"; each a far field spliced with the near field at {format_value(d.splice.splice_hz, 'Hz')} "
                    f"({d.splice.gain_db:+.2f} dB, as on the axis)" if d.splice is not None else ""))
     out += placement_lines(system)
+    out += baffle_lines(system)
     if system.positions:
         from xo_fit.model.acoustics import curve_weights, missing_positions
 

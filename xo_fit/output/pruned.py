@@ -62,7 +62,9 @@ class Pruning:
         for d in job.drivers:
             for key in ("response", "impedance"):
                 spec = getattr(d, key)
-                if isinstance(spec, FileCurve):
+                if isinstance(spec, FileCurve) and isinstance(doc["driver"][d.name][key], dict):
+                    doc["driver"][d.name][key].update(file=moved(spec.path))  # { file, baffle }
+                elif isinstance(spec, FileCurve):
                     doc["driver"][d.name][key] = moved(spec.path)
                 elif isinstance(spec, SplicedResponse):
                     doc["driver"][d.name][key].update(near=moved(spec.near), far=moved(spec.far))
