@@ -15,7 +15,7 @@ import numpy as np
 from xo_fit.errors import JobError
 from xo_fit.io.results import Table, atomic_path, write_csv
 from xo_fit.job.model import FileCurve, Job
-from xo_fit.model.diffraction import AXIS, driver_diffraction, job_positions, uses_point_source
+from xo_fit.model.diffraction import AXIS, driver_diffraction, job_positions
 
 #: Common practice's baffle-step frequency, Hz m: 115/W for a baffle W m wide (after H. F. Olson); in this model
 #: the step is complete near it, its -3 dB midpoint at 0.4-0.7 of it (docs/baffle.md).
