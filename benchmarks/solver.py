@@ -50,7 +50,9 @@ def reference_system(ideal: bool = False):
         text = text.replace(line, "")  # an ideal driver's response is not extended; the system target on axis
     if ideal:
         text = re.sub(r'\ndcr = "\d+awg"', "", text).replace("resistance = 0.05", "resistance = 0.0")
-    text = re.sub(r'response = "data/woofer-response.txt"\nimpedance = "data/woofer-impedance.txt"',
+    text = re.sub(r'\[baffle\].*?\n\n', "", text, flags=re.S)  # no diffraction: an ideal flat driver
+    text = re.sub(r'\nradius = [^\n]*', "", text)
+    text = re.sub(r'response = [^\n]*\nimpedance = "data/woofer-impedance.txt"',
                   "response = 88\nimpedance = { " + ", ".join(f"{k} = {float(v)!r}" for k, v in WOOFER.items()) + " }", text)
     text = re.sub(r'response = "data/tweeter-response.txt"\nimpedance = "data/tweeter-impedance.txt"',
                   "response = 91\nimpedance = { " + ", ".join(f"{k} = {float(v)!r}" for k, v in TWEETER.items()) + " }", text)
