@@ -336,3 +336,20 @@ def test_a_worker_keeps_parsed_curves_by_their_bytes_and_reads_supplied_files(tm
         assert list(measure.read_curve(gone, "response").magnitude) == [1.0, 2.0]
     with pytest.raises(Exception, match="not found"):
         measure.read_curve(gone, "response")
+
+
+def test_sweep_names_and_columns_keep_every_swept_path(tmp_path):
+    """Sweeping target.way.woofer.fc and target.way.tweeter.fc once named variants "fc300-fc2500" and kept only
+    the tweeter's value in summary.csv: each axis is named by the shortest end of its path that tells it apart."""
+    from xo_fit.job.sweep import read_sweep
+
+    text, _ = ladder_job("LR2")
+    text += '[sweep]\n"target.way.woofer.fc" = [1800, 2200]\n"target.way.tweeter.fc" = [2000, 2400]\n'
+    job = tmp_path / "job.toml"
+    job.write_text(text)
+    sweep = read_sweep(job)
+    names = [sweep.name(c) for c in sweep.combos()]
+    assert names[0].endswith("-woofer_fc1800-tweeter_fc2000") and len(set(names)) == 4
+    variant, _ = sweep.variant(next(iter(sweep.combos())))
+    assert dict(variant.swept) == {"woofer.fc": 1800, "tweeter.fc": 2000}
+    assert variant.target.ways[0].fc == 1800 and variant.target.ways[1].fc == 2000

@@ -52,16 +52,23 @@ class Sweep:
         """Every variant's values, in the order the variants are named and run."""
         return itertools.product(*[a[2] for a in self.axes])
 
+    def labels(self) -> list[str]:
+        """Each axis's label: the shortest end of its (first) path that no other axis's path ends with, so that
+        ``target.way.woofer.fc`` and ``target.way.tweeter.fc`` read ``woofer.fc`` and ``tweeter.fc`` (the last
+        segment alone once named both "fc", and the woofer's value was lost from summary.csv)."""
+        return distinguishing_labels([paths[0] for _, paths, _ in self.axes])
+
     def name(self, combo: tuple) -> str:
-        """The variant's name: ``<name>-<key><value>-...`` (the name itself without a [sweep])."""
+        """The variant's name: ``<name>-<label><value>-...`` (the name itself without a [sweep]); a label's dots
+        become underscores, so that the name is a file name."""
         if not self.axes:
             return self.base_name
-        return f"{self.base_name}-" + "-".join(f"{paths[0].split('.')[-1]}{variant_label(value)}"
-                                               for (_, paths, _), value in zip(self.axes, combo))
+        return f"{self.base_name}-" + "-".join(f"{label.replace('.', '_')}{variant_label(value)}"
+                                               for label, value in zip(self.labels(), combo))
 
     def values(self, combo: tuple) -> dict:
-        """The swept values by the last segment of their path (the keys of ``Job.swept``)."""
-        return {paths[0].split(".")[-1]: value for (_, paths, _), value in zip(self.axes, combo)}
+        """The swept values by their axis's label (the keys of ``Job.swept``)."""
+        return dict(zip(self.labels(), combo))
 
     def touches(self, prefixes: tuple[str, ...]) -> bool:
         """True when some swept path begins with one of ``prefixes`` (dotted, e.g. ``"driver."``)."""
@@ -124,6 +131,19 @@ def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
     """
     sweep = read_sweep(path)
     return [sweep.variant(combo) for combo in sweep.combos()]
+
+
+def distinguishing_labels(paths: list[str]) -> list[str]:
+    """For dotted ``paths``, the shortest end of each (whole segments) that is unique among them."""
+    segs = [p.split(".") for p in paths]
+    out = []
+    for i, s in enumerate(segs):
+        for k in range(1, len(s) + 1):
+            end = s[-k:]
+            if all(o[-k:] != end for j, o in enumerate(segs) if j != i):
+                break
+        out.append(".".join(end))
+    return out
 
 
 def variant_label(value: Any) -> str:
