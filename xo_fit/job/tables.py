@@ -51,6 +51,7 @@ def read_grid(r: Reader) -> Grid:
 
 
 def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
+    """``[driver.NAME]``: the driver's response and impedance, how they are read and placed, its tables."""
     if not NAME_PATTERN.match(name):
         raise r.error(None, "a driver name must start with a letter and hold only letters, digits, _ and -")
     d = DEFAULTS["driver"]
@@ -59,13 +60,43 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
     if not r.has("impedance"):
         raise r.error("impedance", "missing; expected a measurement file path, a resistance in ohm, "
                       "or a Thiele-Small table {re, le, fs, qms, qes}")
+    response, baffled = read_response(name, r)
+    impedance = read_impedance(name, r)
+    from_file = isinstance(response, (FileCurve, SplicedResponse))
+    spec = DriverSpec(
+        name=name,
+        response=response,
+        impedance=impedance,
+        reference_voltage=volts(r, "reference_voltage", d["reference_voltage"]),
+        offset=r.value("offset", "m", d["offset"], positive=False),
+        phase=phase_choice(r, "phase"),
+        impedance_phase=phase_choice(r, "impedance_phase"),
+        extend_low=r.choice("extend_low", ("none", "slope", "order2", "order4"), d["extend_low"]),
+        extend_high=r.choice("extend_high", ("none", "slope"), d["extend_high"]),
+        impedance_extend_low=r.choice("impedance_extend_low", ("none", "slope"), d["impedance_extend_low"]),
+        impedance_extend_high=r.choice("impedance_extend_high", ("none", "slope"), d["impedance_extend_high"]),
+        angles=read_angles(r.sub("angles", f"[driver.{name}.angles]"), from_file) if r.has("angles") else None,
+        position=read_position(r.sub("position", f"[driver.{name}.position]")) if r.has("position") else None,
+        about=read_about(r, name, from_file),
+        ts=read_ts(r.sub("ts", f"[driver.{name}.ts]")) if r.has("ts") else None,
+        box=read_box(r.sub("box", f"[driver.{name}.box]")) if r.has("box") else None,
+        radius=read_radius(r),
+        baffle=baffled,
+    )
+    check_driver(name, r, spec)
+    r.done()
+    return spec
+
+
+def read_response(name: str, r: Reader) -> tuple[FileCurve | FlatResponse | SplicedResponse, bool]:
+    """A driver's ``response``: a level (an ideal flat driver), a file, or a table (one file or a splice);
+    and whether it lacks the cabinet's edges (``baffle = true``)."""
     resp = r.raw("response")
-    baffled = False
     if isinstance(resp, (int, float)) and not isinstance(resp, bool):
         if not (math.isfinite(resp) and -300 <= resp <= 300):
             raise r.error("response", f"a flat driver's level must be -300 to 300 dB SPL, got {short(resp)}")
-        response: FileCurve | FlatResponse | SplicedResponse = FlatResponse(float(resp))
-    elif isinstance(resp, dict):
+        return FlatResponse(float(resp)), False
+    if isinstance(resp, dict):
         t = r.sub("response", f"[driver.{name}.response]")
         response = response_table(t)
         baffled = t.boolean("baffle", DEFAULTS["splice"]["baffle"])
@@ -73,16 +104,20 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         if isinstance(response, SplicedResponse) and phase_choice(r, "phase") != "minimum":
             raise r.error("phase", "a spliced response must use phase = \"minimum\": the near and far fields' "
                                    "phases do not join, the spliced magnitude gives the phase")
-    else:
-        response = FileCurve(r.path("response"))
+        return response, baffled
+    return FileCurve(r.path("response")), False
+
+
+def read_impedance(name: str, r: Reader) -> FileCurve | Resistive | ThieleSmall | ModelImpedance:
+    """A driver's ``impedance``: "model" (its [driver.NAME.ts] set in its box), a Thiele-Small table, a
+    resistance, or a file."""
     imp = r.raw("impedance")
-    impedance: FileCurve | Resistive | ThieleSmall | ModelImpedance
     if imp == "model":
         if not r.has("ts"):
             raise r.error("impedance", f"\"model\" needs the driver's parameters: add a [driver.{name}.ts] table "
                                        "(re, fs, qms, qes or a set that determines them)")
-        impedance = ModelImpedance()
-    elif isinstance(imp, dict):
+        return ModelImpedance()
+    if isinstance(imp, dict):
         t = r.sub("impedance", f"[driver.{name}.impedance]")
         impedance = ThieleSmall(
             re=t.value("re", "ohm", required=True),
@@ -98,33 +133,15 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
             raise t.error("l2" if impedance.r2 > 0 else "r2",
                           "the lossy-coil branch needs both l2 (H) and r2 (ohm) above zero, or neither")
         t.done()
-    elif isinstance(imp, str) and looks_numeric(imp):
-        impedance = Resistive(r.value("impedance", "ohm"))
-    elif isinstance(imp, (int, float)) and not isinstance(imp, bool):
-        impedance = Resistive(r.value("impedance", "ohm"))
-    else:
-        impedance = FileCurve(r.path("impedance"))
-    spec = DriverSpec(
-        name=name,
-        response=response,
-        impedance=impedance,
-        reference_voltage=volts(r, "reference_voltage", d["reference_voltage"]),
-        offset=r.value("offset", "m", d["offset"], positive=False),
-        phase=phase_choice(r, "phase"),
-        impedance_phase=phase_choice(r, "impedance_phase"),
-        extend_low=r.choice("extend_low", ("none", "slope", "order2", "order4"), d["extend_low"]),
-        extend_high=r.choice("extend_high", ("none", "slope"), d["extend_high"]),
-        impedance_extend_low=r.choice("impedance_extend_low", ("none", "slope"), d["impedance_extend_low"]),
-        impedance_extend_high=r.choice("impedance_extend_high", ("none", "slope"), d["impedance_extend_high"]),
-        angles=read_angles(r.sub("angles", f"[driver.{name}.angles]"), isinstance(response, (FileCurve, SplicedResponse)))
-        if r.has("angles") else None,
-        position=read_position(r.sub("position", f"[driver.{name}.position]")) if r.has("position") else None,
-        about=read_about(r, name, isinstance(response, (FileCurve, SplicedResponse))),
-        ts=read_ts(r.sub("ts", f"[driver.{name}.ts]")) if r.has("ts") else None,
-        box=read_box(r.sub("box", f"[driver.{name}.box]")) if r.has("box") else None,
-        radius=read_radius(r),
-        baffle=baffled,
-    )
+        return impedance
+    if (isinstance(imp, str) and looks_numeric(imp)) or (isinstance(imp, (int, float)) and not isinstance(imp, bool)):
+        return Resistive(r.value("impedance", "ohm"))
+    return FileCurve(r.path("impedance"))
+
+
+def check_driver(name: str, r: Reader, spec: DriverSpec) -> None:
+    """What a driver's keys must agree on: a box needs a parameter set; only file data are extended, and then
+    with derived phase."""
     if spec.box is not None and spec.ts is None:
         raise r.error("box", f"a box needs the driver's parameters: add a [driver.{name}.ts] table with vas (or sd "
                              "and a scale of the moving system)")
@@ -137,8 +154,6 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
                 if getattr(spec, phase_key) != "minimum":
                     raise r.error(key, f"an extended {what} must use {phase_key} = \"minimum\": the measured phase "
                                        "stops at the file's end, the extended magnitude gives the phase")
-    r.done()
-    return spec
 
 
 def response_table(t: Reader) -> FileCurve | SplicedResponse:
