@@ -141,6 +141,58 @@ def ngspice_rate(system, sweeps: tuple[int, int] = (50, 250)) -> float | None:
     return (sweeps[1] - sweeps[0]) / (times[1] - times[0])
 
 
+def flops_per_point(net) -> int:
+    """Floating-point operations of the generated code per (candidate, frequency) point: the arithmetic
+    operators and calls of the loop body (a division or a square root counted as one)."""
+    import re as _re
+
+    from xo_fit.solver.codegen import solver_code
+
+    code = solver_code(net)
+    lines = list(code.body) + [e for pair in code.volts + (code.zin,) for e in pair]
+    ops = 0
+    for line in lines:
+        rhs = line.split("=", 1)[1] if "=" in line else line
+        ops += len(_re.findall(r"(?<![eE])[-+*/](?!\*)", rhs)) + len(_re.findall(r"\b(abs|max|sqrt)\(", rhs))
+    return ops
+
+
+def peak_flops(seconds: float = 0.2) -> float:
+    """A core's fused multiply-add rate (flop/s), measured: independent chains over an L1-resident array in a
+    loop numba vectorises (the bound the generated kernel could reach were it only arithmetic)."""
+    import numba
+
+    @numba.njit(fastmath={"contract"})  # fused multiply-adds, no reassociation: the chain is not folded
+    def fma(x, y, n, c, d):
+        for _ in range(n):
+            for i in range(x.size):  # independent lanes: vectorised; 32 dependent FMAs each, in registers
+                v = x[i]
+                for _k in range(32):
+                    v = v * c + d
+                y[i] = v
+        return y[0]
+
+    x = np.random.default_rng(0).random(1024)
+    y = np.empty_like(x)
+    fma(x, y, 1, 0.999, 0.001)
+    n = 16
+    while True:
+        t = time.perf_counter()
+        fma(x, y, n, 0.999, 0.001)
+        dt = time.perf_counter() - t
+        if dt > seconds / 4:
+            break
+        n *= 2
+    best = min(_timed(fma, x, y, n, 0.999, 0.001) for _ in range(5))
+    return 32 * 2 * x.size * n / best
+
+
+def _timed(fn, *a) -> float:
+    t = time.perf_counter()
+    fn(*a)
+    return time.perf_counter() - t
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--repeats", type=int, default=7)
@@ -194,6 +246,12 @@ def run(system, repeats: int, batches: tuple = (1, 16, 256, 4096), sweeps: tuple
     if sp is None:
         print("ngspice: not installed or failed (apt-get install ngspice) - no ratio")
         return
+    ops = flops_per_point(net)
+    peak = peak_flops(0.02 if args.repeats == 1 else 0.2)
+    best = max(r[0] for r in rates.values())
+    print(f"flop bound: {ops} flops per point x {nf} points per sweep; the kernel's best {best * ops * nf / 1e9:.2f} "
+          f"GFLOP/s against a measured peak of {peak / 1e9:.2f} GFLOP/s (fused multiply-adds, one core): "
+          f"{best * ops * nf / peak:.0%} of the bound, which would be {peak / (ops * nf):,.0f} sweeps/s")
     print(f"ngspice .control loop (alter + ac, one process): {sp:,.0f} sweeps/s")
     for b in (16, 256):
         if b not in rates:
