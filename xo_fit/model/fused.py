@@ -465,12 +465,12 @@ class FusedCost:
             out[bad | ~np.isfinite(out[:, c]), c] = np.inf
         return out
 
-    def pair(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Cost (B,) and total violation of the [limits] (B,; zeros without limits) of designs (B, P)."""
+    def limited(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Cost (B,), total violation of the [limits] (B,) and each limit's signed excess (B, 4; in the order of
+        xo_fit.model.limits.NAMES) of designs (B, P); a job with limits only."""
         raw = self.evaluate_raw(values)
-        if self.limit_code is None:
-            return raw[:, 0], np.zeros(raw.shape[0])
-        return raw[:, 0], raw[:, self.col_limits]
+        c = self.col_limits
+        return raw[:, 0], raw[:, c], raw[:, c + 1:c + 1 + len(NAMES)]
 
     def __call__(self, values: np.ndarray) -> np.ndarray:
         """Cost (B,) of designs (B, P)."""

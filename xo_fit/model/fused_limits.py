@@ -101,10 +101,10 @@ class LimitCode:
         if self.row_z is not None:
             lines += ["lim_zz = " + repr(_HIGHEST), rng, i1 + f"lim_q = scratch[{self.row_z}, f]",
                       i1 + "if lim_q < lim_zz:", i2 + "lim_zz = lim_q",
-                      f"lim_vz = {lim.floor!r} / sqrt(lim_zz) - 1.0", "lim_vz = lim_vz if lim_vz > 0.0 else 0.0"]
+                      f"lim_vz = {lim.floor!r} / sqrt(lim_zz) - 1.0"]
         else:
             lines.append("lim_vz = 0.0")
-        lines.append("lim_vr = 0.0")
+        lines.append(f"lim_vr = {_LOWEST!r}" if lim.rated else "lim_vr = 0.0")
         rated = {j: m for m, (j, _, _, _) in enumerate(judged)}
         for j, _, kind, rating in lim.rated:
             m = rated[j]
@@ -115,7 +115,7 @@ class LimitCode:
             else:
                 lines.append(f"lim_e = sqrt(2.0 * mq{m} * {k2!r}) / {rating!r} - 1.0")
             lines.append("lim_vr = lim_e if lim_e > lim_vr else lim_vr")
-        lines.append("lim_vp = 0.0")
+        lines.append(f"lim_vp = {_LOWEST!r}" if self.excursions or self.powers else "lim_vp = 0.0")
         for k, _, srow in self.excursions:
             lines += ["lim_mx = 0.0", rng, i1 + f"lim_q = scratch[{srow}, f]", i1 + "if lim_q > lim_mx:",
                       i2 + "lim_mx = lim_q", "lim_e = sqrt(lim_mx) - 1.0",
@@ -128,9 +128,10 @@ class LimitCode:
             for k, row in self.ways:
                 lines += [rng, i1 + f"lim_q = scratch[{k}, f] if tgt[{row}, f] > 0.5 else {_LOWEST!r}",
                           i1 + "if lim_q > lim_mb:", i2 + "lim_mb = lim_q"]
-            lines += [f"lim_e = lim_mb - level + {lim.breakup_db!r}",
-                      f"lim_vb = lim_e * {LN10_20!r} if lim_e > 0.0 else 0.0"]
+            lines += [f"lim_vb = (lim_mb - level + {lim.breakup_db!r}) * {LN10_20!r}"]
         cols = dict(zip(NAMES, ("lim_vz", "lim_vr", "lim_vp", "lim_vb")))
-        lines.append(f"out[b, {out_col}] = lim_vz + lim_vr + lim_vp + lim_vb")
+        lines.append("lim_t = 0.0")
+        lines += [f"lim_t += {c} if {c} > 0.0 else 0.0" for c in cols.values()]
+        lines.append(f"out[b, {out_col}] = lim_t")
         lines += [f"out[b, {out_col + 1 + i}] = {cols[n]}" for i, n in enumerate(NAMES)]
         return lines

@@ -77,14 +77,16 @@ class LimitModel:
         return (np.isfinite(p.xmax) & np.all(np.isfinite(p.x_per_volt), axis=-1)), np.isfinite(p.rating)
 
     def violations(self, sim, values: np.ndarray | None, level: np.ndarray) -> dict[str, np.ndarray]:
-        """Each limit's violation (B,) and their ``total`` for simulated designs (a Simulation), their values
-        (B, P) (the ratings need the part currents) and their levels (B,, dB SPL)."""
+        """Each limit's signed excess (B,; > 0 by how much it is broken, <= 0 by how much room is left; 0 for a
+        limit with nothing to judge) and ``total``, the sum of the excesses above 0 (the total violation), for
+        simulated designs (a Simulation), their values (B, P) (the ratings need the part currents) and their
+        levels (B,, dB SPL)."""
         band = self.cm.band
         b = sim.impedance.shape[0]
         out = {n: np.zeros(b) for n in NAMES}
         if self.floor > 0:
             zmin = np.min(np.maximum(np.abs(sim.impedance[..., band]), Z_SHORT_OHM), axis=-1)
-            out["impedance_min"] = np.maximum(self.floor / zmin - 1.0, 0.0)
+            out["impedance_min"] = self.floor / zmin - 1.0
         if self.rated:
             out["ratings"] = self._ratings(values, b)
         if self.protection is not None:
@@ -95,8 +97,8 @@ class LimitModel:
             p_db = spl_db(sim.pressure[..., band])  # (B, D, Fb)
             loud = np.max(np.where(self.stop[None], p_db, -np.inf), axis=-1)  # (B, D); -inf: no stop band
             excess = np.max(loud, axis=-1) - level + self.breakup_db
-            out["breakup_db"] = np.maximum(excess, 0.0) * LN10_20
-        out["total"] = sum(out[n] for n in NAMES)
+            out["breakup_db"] = excess * LN10_20
+        out["total"] = sum(np.maximum(out[n], 0.0) for n in NAMES)
         return out
 
     def _ratings(self, values: np.ndarray | None, b: int) -> np.ndarray:
@@ -118,12 +120,14 @@ class LimitModel:
             else:
                 ratio = np.sqrt(2 * np.max(i2, axis=-1)) / rating
             worst = np.maximum(worst, ratio - 1.0)
-        return np.maximum(worst, 0.0)
+        return worst
 
     def _protection(self, voltages: np.ndarray) -> np.ndarray:
         p = self.protection
         use_x, use_p = self.judged_protection()
-        worst = np.zeros(voltages.shape[0])
+        if not (use_x.any() or use_p.any()):
+            return np.zeros(voltages.shape[0])
+        worst = np.full(voltages.shape[0], -np.inf)
         if use_x.any():
             x, _ = p.peaks(voltages)
             worst = np.maximum(worst, np.max(x[:, use_x] / p.xmax[use_x], axis=-1) - 1.0)
