@@ -185,7 +185,7 @@ class CostModel:
         if system.job.limits.active:
             from xo_fit.model.limits import LimitModel
 
-            self.limits = LimitModel(self)
+            self.limits = LimitModel(self, rated_parts(system))
 
     # ------------------------------------------------------------------ terms
 

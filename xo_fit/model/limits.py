@@ -42,22 +42,21 @@ LN10_20 = math.log(10.0) / 20.0
 
 
 class LimitModel:
-    """The limits of a job's cost model ``cm`` (a :class:`xo_fit.model.cost.CostModel`), for batches.
+    """The limits of a job's cost model ``cm`` (a :class:`xo_fit.model.cost.CostModel`; ``rated``: its system's
+    rated parts, :func:`xo_fit.model.cost.rated_parts`), for batches.
 
     ``floor``: ohm (0: none); ``rated``: (branch, column, kind, rating) of the rated parts judged (ratings);
     ``protection``: the :class:`~xo_fit.model.protection.Protection` judged, or None; ``breakup_db``: dB (0:
     none); ``stop``: bool (D, Fb), each way's stop band for the breakup rule.
     """
 
-    def __init__(self, cm) -> None:
-        from xo_fit.model.cost import rated_parts
-
+    def __init__(self, cm, rated: list) -> None:
         system = cm.system
         spec = system.job.limits
         self.cm = cm
         self.floor = spec.impedance_min
         drive = system.job.stress
-        self.rated = rated_parts(system) if spec.ratings and drive.power else []
+        self.rated = list(rated) if spec.ratings and drive.power else []
         self.drive_scale = (math.sqrt(drive.power * drive.rated_impedance) / system.network.source_voltage
                             if drive.power else 1.0)
         self.protection = None
