@@ -91,7 +91,8 @@ def _ratings(design) -> dict:
         allowed = s["rating"] / 2 if "programme_w" in s else s["rating"]
         shares[name] = judged / allowed
     name = max(shares, key=shares.get)
-    e.update(worst=shares[name], at_hz=rated[name]["at_hz"], part=name,
+    at = None if "programme_w" in rated[name] else rated[name]["at_hz"]  # a resistor's programme: a band mean
+    e.update(worst=shares[name], at_hz=at, part=name,
              met=all(s["within_rating"] for s in rated.values()), excess=shares[name] - 1)
     return e
 
