@@ -174,3 +174,53 @@ def _toml(doc: dict) -> str:
     import tomli_w
 
     return tomli_w.dumps(doc)
+
+
+@pytest.mark.parametrize("case", ["stress weight", "off axis"])
+def test_the_kernel_agrees_with_the_stress_term_and_off_axis(case, tmp_path):
+    """The ratings limit sharing its part currents with a [cost] stress term; and an off-axis job (the demo, its
+    sum on the listening window, the preference's wider frequency loop) with every limit it can take."""
+    if case == "stress weight":
+        doc = _doc(LIMITED)
+        doc["cost"]["stress"] = 2.0
+        system = load_system(_job(doc))
+    else:
+        from xo_fit.demo import write_scenario
+
+        path = write_scenario(tmp_path)
+        text = path.read_text().replace("[cost]\n", "[cost]\npreference = 1.0\n")
+        path.write_text(text + "\n[limits]\nimpedance_min = 3.2\nratings = true\nbreakup_db = 20\n")
+        system = load_system(load_job(path))
+    cm, _ = cost_model(system)
+    fused = FusedCost(cm)
+    space = make_space(system.job)
+    values = space.values(np.random.default_rng(5).random((24, space.dims)))
+    raw = fused.evaluate_raw(values)
+    ev = cm.evaluate(values)
+    np.testing.assert_allclose(raw[:, 0], ev.cost, rtol=1e-9)
+    for i, name in enumerate(("total",) + NAMES):
+        np.testing.assert_allclose(raw[:, fused.col_limits + i], ev.violations[name], rtol=1e-9, atol=1e-9)
+
+
+def test_the_reference_cost_path_and_the_robust_fit_keep_the_floor():
+    """[cost] protection (a term the kernel lacks: every candidate on the numpy reference) and a robust fit (the
+    mean cost over tolerance draws, the limits judged on the nominal design, as result.json judges them)."""
+    doc = _doc(LIMITED, {"impedance_min": 2.9, "breakup_db": 0})
+    doc["cost"]["protection"] = 1.0
+    d = api.fit(_job(doc), budget=800)
+    assert d.hard_limits["impedance_min"]["met"]
+    doc = _doc(HARD, {"impedance_min": 2.9, "breakup_db": 0})
+    doc["search"] = {"robust": {"samples": 8}}
+    d = api.fit(_job(doc), budget=3000)
+    assert d.hard_limits["impedance_min"]["met"] and d.sections["search"]["robust"]["samples"] == 8
+
+
+@pytest.mark.parametrize("optimizer, budget", [("scipy-de", 6000), ("ng-TwoPointsDE", 1500)])
+def test_other_engines_are_feasibility_first(optimizer, budget, plain_fit):
+    """scipy's DE and a nevergrad optimiser see the key of Deb's order: their result meets a floor the plain
+    fit breaks."""
+    if optimizer.startswith("ng-"):
+        pytest.importorskip("nevergrad")
+    floor = round(plain_fit.metrics["impedance_min_ohm"] * 1.03, 3)
+    d = api.fit(_job(_doc(HARD, {"impedance_min": floor, "breakup_db": 0})), budget=budget, optimizer=optimizer)
+    assert d.hard_limits["impedance_min"]["met"] and d.sections["search"]["violation"] == 0.0
