@@ -34,10 +34,13 @@ one number per design that keeps exactly this order (:func:`feasibility_key`:
 the cost where feasible, LIMIT_KEY (1 + violation) above every feasible cost
 where not), so JADE's selection, archive, p-best ranking and best-so-far, the
 restarts' basins, scipy's DE and nevergrad all follow it; the best design kept
-is the best by it. The polish minimises the exact penalty cost + mu violation
-instead (its gradients need a continuous function), raises mu while it ends
-infeasible, and projects an infeasible end back to feasibility by bisection
-toward the best feasible point (:func:`xo_fit.search.feasibility.polish_limited`).
+is the best by it. Inside a JADE run the comparisons count violations up to an
+epsilon as none, epsilon falling to 0 over half of the run
+(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish needs a
+continuous function for its gradients: it minimises an augmented Lagrangian of
+each limit's signed excess and projects an infeasible end back to feasibility
+by bisection toward the best feasible point
+(:func:`xo_fit.search.feasibility.polish_limited`).
 
 The same seed gives the same result bit for bit (numpy's SeedSequence feeds
 every random draw). A time limit or Ctrl-C stops the search between
@@ -59,6 +62,7 @@ from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL
 from xo_fit.errors import XoFitError
 from xo_fit.search.feasibility import EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.lbfgsb import minimize_box
+
 
 @dataclass(frozen=True)
 class Space:
@@ -113,8 +117,9 @@ _Stop = Stop  # raised inside an engine when the budget or the time is used up
 class Objective:
     """Counts evaluations, keeps the best point, and stops the engine at the budget or the deadline.
 
-    fn maps cube points (B, n) to costs (B,); with ``constrained`` to a pair (costs (B,), total violations (B,)),
-    and calling the objective returns :func:`feasibility_key` of them (the best kept is the best by it).
+    fn maps cube points (B, n) to costs (B,); with ``constrained`` to (costs (B,), total violations (B,)[, each
+    limit's signed excess (B, L)]), and calling the objective returns :func:`feasibility_key` of the first two
+    (the best kept is the best by it).
     """
 
     fn: Callable[[np.ndarray], np.ndarray]

@@ -4,9 +4,10 @@ Under ``[limits]`` every design has a cost and a total violation (0: every limit
 limits`). Designs are ranked by Deb's rules (K. Deb, "An efficient constraint handling method for genetic
 algorithms", Comput. Methods Appl. Mech. Engrg. 186, 2000): a feasible design beats every infeasible one, of two
 infeasible ones the smaller violation wins, of two feasible ones the lower cost. :func:`feasibility_key` writes
-that order as one number per design, which every engine of :mod:`xo_fit.search.engines` compares; the polish
-(:func:`polish_limited`) needs a continuous function for its gradients and minimises an exact penalty instead,
-then projects back to feasibility.
+that order as one number per design, which every engine of :mod:`xo_fit.search.engines` compares;
+:class:`EpsilonLevel` relaxes it inside a JADE run by an epsilon that falls to 0; the polish
+(:func:`polish_limited`) needs a continuous function for its gradients and minimises an augmented Lagrangian
+instead, then projects back to feasibility.
 """
 
 from __future__ import annotations
