@@ -105,7 +105,7 @@ def test_job_format_doc_has_every_default():
              "position": "[driver.NAME.position]", "box": "[driver.NAME.box]", "part": "[[part]]",
              "target": "[target]",
              "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
-             "spread": "[spread]", "stress": "[stress]", "splice": "[driver.NAME.response]"}
+             "spread": "[spread]", "stress": "[stress]", "splice": "[driver.NAME.response]", "limits": "[limits]"}
     assert set(where) == set(DEFAULTS)
     docs = _doc_sections()
     for table, keys in DEFAULTS.items():
@@ -170,7 +170,7 @@ def test_job_format_doc_lists_every_key():
              "splice": "[driver.NAME.response]", "position": "[driver.NAME.position]", "ts": "[driver.NAME.ts]",
              "box": "[driver.NAME.box]", "part": "[[part]]", "target": "[target]",
              "way": "[target.way.NAME]", "cost": "[cost]", "search": "[search]", "snap": "[snap]",
-             "spread": "[spread]", "stress": "[stress]", "baffle": "[baffle]"}
+             "spread": "[spread]", "stress": "[stress]", "baffle": "[baffle]", "limits": "[limits]"}
     docs = _doc_sections()
     for kind, keys in KEYS.items():
         if kind in ("top", "robust"):

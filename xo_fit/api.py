@@ -115,6 +115,8 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
     search = {"optimizer": r.optimizer, "evaluations": r.evaluations, "seconds": round(r.seconds, 4),
               "seed": r.seed, "complete": r.complete, "stopped_by": r.stopped_by, "restarts": r.restarts,
               "best_restart": r.best_restart, "basins": list(r.basins), "kernel": outcome.kernel}
+    if j.limits.active:  # the feasibility-first search's total violation of the result (0: every limit met)
+        search["violation"] = r.violation
     if runs is not None:  # --workers: the processes shared the budget; the winner's derived seed is "seed"
         search["workers"] = runs
         search["evaluations"] = sum(x["evaluations"] for x in runs)

@@ -97,6 +97,14 @@ def preference_text(p: dict) -> str:
             f"{fig('nbd_pir', '.3f')} dB, LFX {lfx}, SM in room {fig('sm_pir', '.3f')}{note}")
 
 
+def print_limits(design) -> None:
+    """The design against the job's [limits], one line each (first, before the scores)."""
+    from xo_fit.output.limits import limit_lines
+
+    for line in limit_lines(design.hard_limits):
+        say(f"  limit {line}")
+
+
 def print_findings(design) -> None:
     b = design.breakdown
     if b is not None:

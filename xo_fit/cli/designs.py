@@ -18,6 +18,7 @@ from xo_fit.cli.console import (
     part_info_of,
     print_cautions,
     print_findings,
+    print_limits,
     print_score,
     say,
     warn,
@@ -45,6 +46,7 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
     s = d.scored
     say(f"simulated {j.name}: {len(s.values)} part values, {system.frequencies.size} points "
         f"in {time.perf_counter() - t0:.2f} s")
+    print_limits(d)
     print_score(s)
     print_findings(d)
     print_cautions(system, s)
@@ -84,6 +86,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     total = st.document.get("search", {}).get("evaluations", r.evaluations)  # all processes together
     say(f"fit {j.name}: {total} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
         f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
+    print_limits(st.info["design"])
     print_score(outcome.scored, outcome.start_cost)
     if runs is not None:
         say(f"  {len(runs)} processes shared the budget; seed {r.seed} won: "
@@ -170,6 +173,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
         f"{sr.evaluations if sr else 0} designs scored ({'exhaustive' if sr and sr.exhaustive else 'searched'}) "
         f"in {outcome.seconds:.2f} s, {time.perf_counter() - t0:.2f} s in all")
+    print_limits(st.info["design"])
     say(f"  {'part':<8} {'continuous':>12} {'snapped':>22} {'change':>8}  source")
     for sp in outcome.parts:
         unit = PART_UNIT[sp.kind]
@@ -279,6 +283,10 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
             f"{r['rms_error_db']:>7.2f} {r['max_error_db']:>8.2f}{mark}")
     say(f"  chosen: {pr.steps[pr.chosen]['parts']} parts, within {max_increase:g} % of step 0's cost; "
         f"{pr.evaluations} evaluations in {time.perf_counter() - t0:.1f} s")
+    for t in pr.trials:
+        if t.get("refused"):
+            say(f"  refused at step {t['step']}: {t['removed']} ({t['how']}) breaks {', '.join(t['refused'])}")
+    print_limits(pr.design)
     print_findings(pr.design)
     print_cautions(pr.design.system, pr.design.scored)
     say("wrote " + ", ".join(str(p) for p in files))

@@ -48,6 +48,7 @@ DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "search": {"optimizer": "auto", "budget": 20000, "seed": 1, "time_limit": None, "polish": True},
     "snap": {"series": {"L": "E12", "C": "E12", "R": "E24"}, "inventory": None, "combine": 1, "top_up": None},
     "stress": {"power": None, "rated_impedance": None},
+    "limits": {"impedance_min": 0.0, "ratings": False, "protection": False, "breakup_db": 20.0},
     "spread": {"samples": 2000, "seed": 1, "distribution": "uniform", "band_db": 1.0, "qmc": False, "rms_limit_db": 1.0,
                "tolerance": {"R": 0.05, "L": 0.05, "C": 0.05}},
 })
@@ -393,6 +394,27 @@ class StressSpec:
 
 
 @dataclass(frozen=True)
+class LimitsSpec:
+    """The ``[limits]`` table: constraints every design must meet before its cost counts (feasibility first).
+
+    ``present``: the job has the table (without it nothing is constrained and ``breakup_db`` is not a limit);
+    ``impedance_min``: ohm, 0 for none; ``ratings``/``protection``: every rated part / protected driver within
+    its rating at the [stress] drive; ``breakup_db``: dB each way's stop-band output stays under the level, 0 for
+    none."""
+
+    present: bool = False
+    impedance_min: float = DEFAULTS["limits"]["impedance_min"]
+    ratings: bool = DEFAULTS["limits"]["ratings"]
+    protection: bool = DEFAULTS["limits"]["protection"]
+    breakup_db: float = DEFAULTS["limits"]["breakup_db"]
+
+    @property
+    def active(self) -> bool:
+        """Whether any limit constrains the search."""
+        return self.present and (self.impedance_min > 0 or self.ratings or self.protection or self.breakup_db > 0)
+
+
+@dataclass(frozen=True)
 class Job:
     """A validated job. Every value is SI; every path is absolute.
 
@@ -417,6 +439,7 @@ class Job:
     snap: SnapSpec
     spread: SpreadSpec
     stress: StressSpec = StressSpec()
+    limits: LimitsSpec = LimitsSpec()
     folder: Path = Path(".")
     document: str = "{}"
     part_lines: Mapping[str, int] = field(default_factory=lambda: FrozenMap())  # line of each part's nodes
@@ -454,7 +477,7 @@ class Job:
 
 #: Every key each table takes (what "did you mean" chooses from).
 KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) for k, v in {
-    "top": "name grid source acoustics driver part target cost search snap spread stress sweep baffle",
+    "top": "name grid source acoustics driver part target cost search snap spread stress limits sweep baffle",
     "grid": "f_min f_max points per_octave",
     "source": "voltage resistance",
     "acoustics": "speed_of_sound distance",
@@ -477,6 +500,7 @@ KEYS: Mapping[str, frozenset[str]] = MappingProxyType({k: frozenset(v.split()) f
     "snap": "series inventory combine top_up",
     "spread": "samples seed distribution band_db qmc rms_limit_db tolerance",
     "stress": "power rated_impedance",
+    "limits": "impedance_min ratings protection breakup_db",
 }.items()})
 
 

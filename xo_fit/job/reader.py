@@ -16,6 +16,7 @@ from xo_fit.job.reading import (Lines, Reader, Context)
 from xo_fit.job.parts import (read_part, check_plausible, check_parts)
 from xo_fit.job.tables import check_protection
 from xo_fit.job.baffle import read_baffle, check_baffle
+from xo_fit.job.limits import check_limits, read_limits
 from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_distance, check_distance, read_target, read_cost, read_search, read_snap, read_spread)
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *, copy: bool = True) -> Job:
@@ -133,13 +134,15 @@ def build_job(data: dict, ctx: Context) -> Job:
     if cost.stress > 0 and not any(p.rating for p in parts):
         ctx.warn(("cost",), "stress", "[cost] stress is set but no part has a rating: the term is always 0")
     check_protection(cost, stress, drivers, ctx)
+    limits = read_limits(top.sub("limits", "[limits]"), "limits" in data)
+    check_limits(limits, stress, parts, drivers, bool(target.ways), ctx)
     top.done()
     document = dict(data)
     document["name"] = name
     lines = {p.name: ctx.lines.find(("part", i), "nodes") for i, p in enumerate(parts)}
     return Job(name=name, path=ctx.path, grid=grid, source_voltage=voltage, source_resistance=resistance,
                speed_of_sound=c, drivers=tuple(drivers), parts=parts, target=target, cost=cost,
-               search=search, snap=snap, spread=spread, stress=stress, folder=ctx.folder,
+               search=search, snap=snap, spread=spread, stress=stress, limits=limits, folder=ctx.folder,
                document=json.dumps(document, default=str),
                part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}),
                warnings=tuple(ctx.warnings), distance=distance, baffle=baffle)

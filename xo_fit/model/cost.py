@@ -120,11 +120,13 @@ def phase_error_deg(ratio: np.ndarray, target_diff_deg: np.ndarray) -> np.ndarra
 
 @dataclass(frozen=True, eq=False)
 class Evaluation:
-    """Cost of a batch of designs: total (B,), each term (B,), the level used (B,, dB SPL)."""
+    """Cost of a batch of designs: total (B,), each term (B,), the level used (B,, dB SPL); with [limits], each
+    limit's violation (B,) and their ``total`` (:mod:`xo_fit.model.limits`; inf for a singular design)."""
 
     cost: np.ndarray
     terms: dict
     level_db: np.ndarray
+    violations: dict | None = None
 
 
 class CostModel:
@@ -178,6 +180,12 @@ class CostModel:
             if region.any():
                 target_diff = np.rad2deg(np.angle(targets.ways[a, band] / targets.ways[b, band]))
                 self.pairs.append((a, b, region, target_diff))
+        #: the hard limits ([limits]), or None: a search ranks by them first (feasibility first)
+        self.limits = None
+        if system.job.limits.active:
+            from xo_fit.model.limits import LimitModel
+
+            self.limits = LimitModel(self, rated_parts(system))
 
     # ------------------------------------------------------------------ terms
 
@@ -214,7 +222,13 @@ class CostModel:
         finite = (np.all(np.isfinite(sim.impedance[..., band]), axis=-1)
                   & np.all(np.isfinite(sim.pressure[..., band]), axis=(-2, -1)))
         cost = np.where(np.isfinite(cost) & finite, cost, np.inf)  # a singular point (a short): infeasible
-        return Evaluation(cost=cost, terms=terms, level_db=level)
+        violations = None
+        if self.limits is not None:
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                violations = self.limits.violations(sim, values, level)
+            violations["total"] = np.where(np.isfinite(cost) & np.isfinite(violations["total"]),
+                                           violations["total"], np.inf)
+        return Evaluation(cost=cost, terms=terms, level_db=level, violations=violations)
 
     def curves(self, sim) -> dict[str, np.ndarray]:
         """The ANSI/CTA-2034-A curves the cost weighs (Pa^2, (B, F) each; from the positions they need only) of

@@ -28,6 +28,7 @@ import numpy as np
 from xo_fit.constants import P_REF, PIVOT_TOLERANCE, SPL_FLOOR_DB, Z_SHORT_OHM
 from xo_fit.model.acoustics import used_positions
 from xo_fit.model.cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
+from xo_fit.model.limits import NAMES
 from xo_fit.model.cta2034 import IN_ROOM_WEIGHTS
 from xo_fit.model.preference import (COEF_LFX, COEF_NBD_ON, COEF_NBD_PIR, COEF_SM_PIR, FLAT_RMS_DB, INTERCEPT,
                                      LFX_DROP_DB)
@@ -39,7 +40,8 @@ from xo_fit.solver.kernels import KERNEL_VERSION, load_kernel
 _P2_FLOOR = (P_REF * 10 ** (SPL_FLOOR_DB / 20)) ** 2
 _PREF_DB = 20 * math.log10(P_REF)
 #: Columns of evaluate_raw's output: cost, the terms, then the level and the flag; with [cost] preference, the
-#: preference term after them (a job without it keeps the kernel it had).
+#: preference term after them; with [limits], the total violation and each limit's (xo_fit.model.limits.NAMES)
+#: after those (a job without them keeps the kernel it had).
 LEVEL = 1 + len(TERMS)
 FLAG = LEVEL + 1
 PREFERENCE = FLAG + 1
@@ -138,12 +140,22 @@ class FusedCost:
         self.flo, self.fhi = self.lo, self.hi  # the solve's frequency range: the band, or what the preference reads
         if self.plan is not None:
             rows += self._preference_rows(nf)
-        self.tgt = np.ascontiguousarray(np.vstack(rows))
+        # the rated parts whose currents the kernel reduces: the stress term's, or the ratings limit's (the same
+        # parts when both are asked for)
+        self.judged = cm.rated or (cm.limits.rated if cm.limits is not None else [])
         # scratch rows per frequency: driver dB (D), sum dB, impedance shortfall, peak stresses, the early
         # reflections' and sound power's dB, driver voltages (2D), the three position sums; with the preference,
-        # the on-axis, listening window, sound power and in-room dB
-        n_peaks = sum(kind != "R" for _, _, kind, _ in cm.rated)
+        # the on-axis, listening window, sound power and in-room dB; then the limits' rows
+        n_peaks = sum(kind != "R" for _, _, kind, _ in self.judged)
         self.scratch_rows = d + 4 + n_peaks + 2 * d + 3 + (4 if self.plan is not None else 0)
+        self.limit_code = None
+        self.col_limits = FLAG + (2 if self.plan is not None else 1)  # the total violation's column, with limits
+        if cm.limits is not None:
+            from xo_fit.model.fused_limits import LimitCode
+
+            self.limit_code = LimitCode(cm, rows, self.scratch_rows, self.lo, self.hi, nf)
+            self.scratch_rows += self.limit_code.scratch_rows
+        self.tgt = np.ascontiguousarray(np.vstack(rows))
         self._kernel = None
 
     def _preference_rows(self, nf: int) -> list[np.ndarray]:
@@ -162,7 +174,7 @@ class FusedCost:
 
     def source(self) -> str:
         cm, net = self.cm, self.net
-        code = solver_code(net, currents=tuple(j for j, _, _, _ in cm.rated))
+        code = solver_code(net, currents=tuple(j for j, _, _, _ in self.judged))
         d = len(net.driver_names)
         ways = [k for k in range(d) if cm.has_way[k]]
         nb = self.hi - self.lo
@@ -171,7 +183,7 @@ class FusedCost:
         w = cm.weights
         lines = list(code.loads) + list(code.body)
         need = self.need
-        n_peaks = sum(kind != "R" for _, _, kind, _ in cm.rated)
+        n_peaks = sum(kind != "R" for _, _, kind, _ in self.judged)
         row_e, row_p = d + 2 + n_peaks, d + 3 + n_peaks  # scratch rows of the early reflections', sound power's dB
         row_v = d + 4 + n_peaks  # the driver voltages (re, im per driver), then |p|^2 of LW, ER, SP
         row_q = row_v + 2 * d
@@ -206,7 +218,8 @@ class FusedCost:
                 angle_post += [f"spd = DB10 * ln_floored(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
                                f"scratch[{row_p}, f] = spd", "acc_sp += spd"]
         pref = self.plan is not None
-        assert self.scratch_rows == row_q + 3 + (4 if pref else 0)
+        lim = self.limit_code
+        assert self.scratch_rows == row_q + 3 + (4 if pref else 0) + (lim.scratch_rows if lim else 0)
         inband = f"tgt[{self.row_inband}, f] * " if pref else ""  # the band's sums, when the loop runs wider
         lines += angle_pre
         for k, (vr, vi) in enumerate(code.volts):
@@ -232,7 +245,7 @@ class FusedCost:
                       f"sh = DB10 * ln_floored(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
                       f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
         peaks = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
-        for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(cm.rated, code.currents)):
+        for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(self.judged, code.currents)):
             lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
             if kind == "R":
                 lines.append(f"acc_r{m} += {inband}qq{m}")
@@ -240,6 +253,8 @@ class FusedCost:
                 row = d + 2 + len(peaks)
                 lines.append(f"scratch[{row}, f] = qq{m} * iw * iw" if kind == "C" else f"scratch[{row}, f] = qq{m}")
                 peaks.append((row, m))
+        if lim:
+            lines += lim.loop_lines(code, inband)
         lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
 
         second = []
@@ -285,7 +300,8 @@ class FusedCost:
         ]
         src += [i1 + s for s in code.prep]
         src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0", i1 + "acc_e = 0.0", i1 + "acc_sp = 0.0"]
-        src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(cm.rated) if kind == "R"]
+        src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(self.judged) if kind == "R"]
+        src += [i1 + s for s in (lim.start_lines() if lim else [])]
         src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
         src += [i1 + f"for f in range({self.flo}, {self.fhi}):"] + [i2 + s for s in lines]
         if angle_loop:
@@ -334,6 +350,7 @@ class FusedCost:
             i1 + "out[b, 5] = t_stress", i1 + "out[b, 6] = t_er", i1 + "out[b, 7] = t_sp",
             i1 + f"out[b, {LEVEL}] = level", i1 + f"out[b, {FLAG}] = acc_bad",
             *([i1 + f"out[b, {PREFERENCE}] = t_pref"] if pref else []),
+            *([i1 + s for s in lim.end_lines(self.judged, cm.limits.drive_scale ** 2, self.col_limits)] if lim else []),
             i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
             "    return nbad",
         ]
@@ -420,7 +437,7 @@ class FusedCost:
         return (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
                 float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw,
                 np.empty((self.scratch_rows, self.net.frequencies.size)),
-                np.empty((v.shape[0], FLAG + (2 if self.plan is not None else 1))))
+                np.empty((v.shape[0], self.col_limits + (5 if self.limit_code is not None else 0))))
 
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
         """(B, 10): cost, the TERMS (way, sum, phase, impedance, stress, early_reflections, sound_power), level,
@@ -437,8 +454,23 @@ class FusedCost:
             out[redo, LEVEL] = ev.level_db
             if self.plan is not None:
                 out[redo, PREFERENCE] = ev.terms["preference"]
-        out[~np.isfinite(out[:, 0]), 0] = np.inf  # as the reference: a design with a singular point is infeasible
+            if self.limit_code is not None:
+                out[redo, self.col_limits] = ev.violations["total"]
+                for i, name in enumerate(NAMES, start=1):
+                    out[redo, self.col_limits + i] = ev.violations[name]
+        bad = ~np.isfinite(out[:, 0])
+        out[bad, 0] = np.inf  # as the reference: a design with a singular point is infeasible
+        if self.limit_code is not None:
+            c = self.col_limits
+            out[bad | ~np.isfinite(out[:, c]), c] = np.inf
         return out
+
+    def limited(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Cost (B,), total violation of the [limits] (B,) and each limit's signed excess (B, 4; in the order of
+        xo_fit.model.limits.NAMES) of designs (B, P); a job with limits only."""
+        raw = self.evaluate_raw(values)
+        c = self.col_limits
+        return raw[:, 0], raw[:, c], raw[:, c + 1:c + 1 + len(NAMES)]
 
     def __call__(self, values: np.ndarray) -> np.ndarray:
         """Cost (B,) of designs (B, P)."""

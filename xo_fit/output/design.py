@@ -105,11 +105,23 @@ class Design:
         return out
 
     @property
+    def hard_limits(self) -> dict | None:
+        """result.json's ``limits``: each [limits] limit against this design (:mod:`xo_fit.output.limits`), or
+        None without a [limits] table."""
+        if "hard_limits" not in self.info:
+            from xo_fit.output.limits import limit_figures
+
+            self.info["hard_limits"] = limit_figures(self)
+        return self.info["hard_limits"]
+
+    @property
     def findings(self) -> list[dict]:
-        """What a designer should look at: parts resting on a range limit, a load below the floor."""
+        """What a designer should look at: unmet limits first, parts resting on a range limit, a load below the
+        floor, breakup within 20 dB of the level."""
+        from xo_fit.output.limits import breakup_findings, limit_findings
         from xo_fit.units import format_value
 
-        out = []
+        out = limit_findings(self.hard_limits, self.job)
         for name, side in self.limits.items():
             p = self.job.part(name)
             bound = p.min if side == "min" else p.max
@@ -137,6 +149,8 @@ class Design:
             out.append({"kind": "low_impedance", "part": None,
                         "text": f"the load dips to {zmin:.2f} ohm at {self.scored.metrics['impedance_min_hz']:.0f} Hz, "
                                 f"below the floor of {floor:g} ohm"})
+        if self.scored.level_db is not None:
+            out += breakup_findings(self)
         return out
 
     def _phase_edges(self) -> list[dict]:
@@ -281,8 +295,10 @@ class Design:
             st = self.info["stress_report"]
             metrics["epdr_min_ohm"] = st.epdr_min_ohm
             metrics["epdr_min_hz"] = st.epdr_min_hz
-        doc: dict = {"xo_fit_version": _version(), "format": RESULT_FORMAT, "job": job.name, "stage": self.stage,
-                     "parts": parts, "cost": s.cost, "cost_terms": dict(s.terms), "metrics": metrics}
+        doc: dict = {"xo_fit_version": _version(), "format": RESULT_FORMAT, "job": job.name, "stage": self.stage}
+        if self.hard_limits is not None:
+            doc["limits"] = self.hard_limits
+        doc.update({"parts": parts, "cost": s.cost, "cost_terms": dict(s.terms), "metrics": metrics})
         if s.level_db is not None:
             doc["level_db"] = s.level_db
         if s.preference is not None:
@@ -402,7 +418,7 @@ class Spread:
 
 #: Sections recomputed when a result is loaded (everything else is kept as the stage wrote it).
 _RECOMPUTED = {"xo_fit_version", "format", "job", "stage", "parts", "cost", "cost_terms", "metrics", "level_db",
-               "findings", "stress", "source", "error_breakdown", "protection"}
+               "findings", "stress", "source", "error_breakdown", "protection", "limits"}
 #: Entries of parts.NAME recomputed when a result is loaded.
 PART_RECOMPUTED = {"value", "unit", "text", "limit"}
 

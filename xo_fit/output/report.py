@@ -335,6 +335,7 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
     import html
 
     from xo_fit.output.cautions import GENERAL, design_cautions, load_cautions, protection_cautions
+    from xo_fit.output.limits import limits_html
     from xo_fit.stages.snapping import combination_text
     from xo_fit.io.results import write_text
     from xo_fit.model.stress import epdr
@@ -463,6 +464,7 @@ figure {{ margin: 0.8em 0; }} img {{ max-width: 100%; height: auto; }}
 <p>Results: {esc(', '.join(x[0] for x in entries))}. Made by xo_fit from simulations of the measured drivers in the network;
 check the built speaker by measurement.</p>
 <p class="made">{esc(made)}</p>
+{limits_html(last.hard_limits, esc)}
 <h2>Metrics</h2>
 <table><tr><th>result</th><th>cost</th><th>rms error (dB)</th><th>worst error (dB)</th><th>phase mismatch (deg)</th>
 <th>|Z| minimum (Ω)</th><th>EPDR minimum (Ω)</th></tr>{''.join(metric_rows)}</table>

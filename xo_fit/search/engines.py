@@ -25,6 +25,23 @@ Then ``polish`` (unless ``[search] polish = false``): L-BFGS-B from the best
 point in u-space, with gradients by forward differences evaluated as one batch
 of n + 1 designs.
 
+Hard limits (``[limits]``): feasibility first. The objective then returns each
+design's cost and its total violation (0: every limit met), and the search
+ranks designs by Deb's rules (K. Deb, Comput. Methods Appl. Mech. Engrg. 186,
+2000): a feasible design beats every infeasible one, of two infeasible ones the
+smaller violation wins, of two feasible ones the lower cost. Every engine sees
+one number per design that keeps exactly this order (:func:`feasibility_key`:
+the cost where feasible, LIMIT_KEY (1 + violation) above every feasible cost
+where not), so JADE's selection, archive, p-best ranking and best-so-far, the
+restarts' basins, scipy's DE and nevergrad all follow it; the best design kept
+is the best by it. Inside a JADE run the comparisons count violations up to an
+epsilon as none, epsilon falling to 0 over half of the run
+(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish needs a
+continuous function for its gradients: it minimises an augmented Lagrangian of
+each limit's signed excess and projects an infeasible end back to feasibility
+by bisection toward the best feasible point
+(:func:`xo_fit.search.feasibility.polish_limited`).
+
 The same seed gives the same result bit for bit (numpy's SeedSequence feeds
 every random draw). A time limit or Ctrl-C stops the search between
 generations (the first population is always evaluated) and the best design so
@@ -43,6 +60,7 @@ import numpy as np
 from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
                            POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
+from xo_fit.search.feasibility import EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.lbfgsb import minimize_box
 
 
@@ -92,15 +110,16 @@ def make_space(job) -> Space:
     return Space(names=tuple(parts[i].name for i in free), columns=np.array(free), lo=lo, hi=hi, base=base, u0=u0)
 
 
-class _Stop(Exception):
-    """Raised inside an engine when the budget or the time is used up."""
+_Stop = Stop  # raised inside an engine when the budget or the time is used up
 
 
 @dataclass
 class Objective:
     """Counts evaluations, keeps the best point, and stops the engine at the budget or the deadline.
 
-    fn maps cube points (B, n) to costs (B,).
+    fn maps cube points (B, n) to costs (B,); with ``constrained`` to (costs (B,), total violations (B,)[, each
+    limit's signed excess (B, L)]), and calling the objective returns :func:`feasibility_key` of the first two
+    (the best kept is the best by it).
     """
 
     fn: Callable[[np.ndarray], np.ndarray]
@@ -113,8 +132,18 @@ class Objective:
     stopped_by: str | None = None
     history: list = field(default_factory=list)
     basins: list = field(default_factory=list)  # (best cost, best point) of each restart, in order
+    constrained: bool = False
+    best_violation: float = 0.0
+    best_key: float = math.inf  # the best's feasibility key (its cost when not constrained)
+    last_excess: np.ndarray | None = None  # constrained: each limit's signed excess (B, L) of the last batch
 
     def __call__(self, u: np.ndarray) -> np.ndarray:
+        cost, violation = self.evaluate(u)
+        return feasibility_key(cost, violation) if self.constrained else cost
+
+    def evaluate(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Costs (B,) and total violations (B,; zeros when not constrained) of cube points u (B, n), counted.
+        A constrained fn may also return each limit's signed excess (B, L): kept as ``last_excess``."""
         u = np.atleast_2d(np.asarray(u, dtype=float))
         if self.evaluations >= self.budget:
             self.stopped_by = self.stopped_by or "budget"
@@ -124,17 +153,31 @@ class Objective:
             raise _Stop
         take = min(u.shape[0], self.budget - self.evaluations)
         cost = np.full(u.shape[0], np.inf)
-        cost[:take] = np.asarray(self.fn(u[:take]), dtype=float)
+        violation = np.zeros(u.shape[0])
+        if self.constrained:
+            violation[:] = np.inf
+            out = self.fn(u[:take])
+            cost[:take] = np.asarray(out[0], dtype=float)
+            violation[:take] = np.asarray(out[1], dtype=float)
+            g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
+            self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
+            self.last_excess[:take] = g
+        else:
+            cost[:take] = np.asarray(self.fn(u[:take]), dtype=float)
         cost = np.where(np.isfinite(cost), cost, np.inf)
         self.evaluations += take
-        i = int(np.argmin(cost))
-        if cost[i] < self.best_cost:
+        key = feasibility_key(cost, violation) if self.constrained else cost
+        i = int(np.argmin(key))
+        if key[i] < self.best_key:
+            self.best_key = float(key[i])
             self.best_cost = float(cost[i])
+            self.best_violation = float(violation[i])
             self.best_u = u[i].copy()
-        self.history.append((self.evaluations, self.best_cost))
+        self.history.append((self.evaluations, self.best_cost, self.best_violation) if self.constrained
+                            else (self.evaluations, self.best_cost))
         if self.progress is not None:
             self.progress(self.evaluations, self.budget, self.best_cost)
-        return cost
+        return cost, violation
 
 
 @dataclass(frozen=True)
@@ -147,10 +190,12 @@ class SearchResult:
     seed: int
     complete: bool
     stopped_by: str | None
-    history: tuple = ()  # (evaluations, best cost so far) after each batch
+    history: tuple = ()  # (evaluations, best cost so far[, its total violation with limits]) after each batch
     restarts: int = 1  # searches run inside the budget (JADE restarts; 1 for other engines)
     best_restart: int = 0  # which of them led to the result, counting from 0
     basins: tuple = ()  # the best cost each restart reached before the polish
+    violation: float = 0.0  # the result's total violation of the [limits] (0: every limit met, or none)
+    basin_violations: tuple = ()  # with limits: the total violation of each restart's best
 
 
 def population_size(n: int) -> int:
@@ -175,14 +220,17 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
     pop = latin_hypercube(npop, n, rng)
     if u0 is not None:
         pop[0] = u0
-    fit = obj(pop)
+    rank = EpsilonLevel(obj) if obj.constrained else None  # under limits: epsilon-level comparisons
+    fit = obj(pop) if rank is None else rank.first(pop)
     i = int(np.argmin(fit))
-    best[:] = [float(fit[i]), pop[i].copy()]
+    best[:] = [float(fit[i]), pop[i].copy()] if rank is None else rank.best(pop)
     archive = np.empty((0, n))
     mu_f, mu_cr, c, p_best = 0.5, 0.5, 0.1, 0.1
     top = max(2, int(round(p_best * npop)))
     trace = [best[0]]
     while True:
+        if rank is not None:
+            fit = rank.population()
         f = mu_f + 0.1 * rng.standard_cauchy(npop)
         while np.any(f <= 0):  # JADE: regenerate non-positive F
             bad = f <= 0
@@ -201,7 +249,7 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         cross = rng.random((npop, n)) < cr[:, None]
         cross[np.arange(npop), rng.integers(0, n, npop)] = True
         trial = np.where(cross, mutant, pop)
-        tfit = obj(trial)
+        tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
         if better.any():
             archive = np.vstack([archive, pop[better]])
@@ -212,10 +260,18 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
             mu_cr = (1 - c) * mu_cr + c * float(np.mean(scr))
         pop = np.where(better[:, None], trial, pop)
         fit = np.where(better, tfit, fit)
-        i = int(np.argmin(fit))
-        if fit[i] < best[0]:
-            best[:] = [float(fit[i]), pop[i].copy()]
+        if rank is None:
+            i = int(np.argmin(fit))
+            if fit[i] < best[0]:
+                best[:] = [float(fit[i]), pop[i].copy()]
+        else:
+            rank.accept(better)
+            run_best = rank.best(pop)
+            if run_best[0] < best[0]:
+                best[:] = run_best
         trace.append(best[0])
+        if rank is not None and not rank.settled:
+            continue  # epsilon still falling: the run goes on
         if np.ptp(fit) <= CONVERGED * (abs(float(fit.min())) + CONVERGED) and np.ptp(pop, axis=0).max() < 1e-6:
             return
         if len(trace) > STAGNATION and trace[-1] >= trace[-1 - STAGNATION] - STAGNATION_TOL * abs(trace[-1]):
@@ -312,12 +368,13 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
                  gtol=POLISH_GTOL)
 
 
-def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: str = "auto", budget: int = 20000,
+def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int = 20000,
            seed: int = 1, time_limit: float | None = None, polish: bool = True,
-           progress: Callable[[int, int, float], None] | None = None) -> SearchResult:
+           progress: Callable[[int, int, float], None] | None = None, constrained: bool = False) -> SearchResult:
     """Minimise fn over the space's unit cube within ``budget`` evaluations.
 
-    fn: cube points (B, n) -> costs (B,). Returns the best point found, whether the
+    fn: cube points (B, n) -> costs (B,); with ``constrained``, -> (costs (B,), total violations (B,)) and the
+    search is feasibility first (see the module's docstring). Returns the best point found, whether the
     search ran to its end (``complete``), and what stopped it otherwise.
     """
     run = engine(optimizer)
@@ -326,7 +383,7 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
     deadline = t0 + time_limit if time_limit is not None else None
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
-    obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress)
+    obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress, constrained=constrained)
     interrupted = False
     failed = False
     try:
@@ -359,16 +416,16 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
         for m, i in enumerate(distinct):
             obj.budget = obj.evaluations + left // len(distinct) if m < len(distinct) - 1 else budget
             obj.stopped_by = None
-            before = obj.best_cost
+            before = obj.best_key
             try:
-                _polish(obj, space.dims, basins[i][1])
+                (polish_limited if constrained else _polish)(obj, space.dims, basins[i][1])
             except _Stop:
                 pass
             except KeyboardInterrupt:
                 interrupted = True
                 obj.stopped_by = "interrupted"
                 break
-            if obj.best_cost < before:
+            if obj.best_key < before:
                 winner = i
             left = budget - obj.evaluations
         if not interrupted:
@@ -376,7 +433,12 @@ def search(fn: Callable[[np.ndarray], np.ndarray], space: Space, *, optimizer: s
     if obj.best_u is None:
         raise XoFitError("the search evaluated no design (budget or time limit too small)")
     complete = obj.stopped_by in (None, "budget", "converged")
+    costs, violations = [float(b[0]) for b in basins], []
+    if constrained and basins:  # the basins' keys as costs and violations (one uncounted batch, for the report)
+        c, v = fn(np.stack([b[1] for b in basins]))[:2]
+        costs, violations = [float(x) for x in c], [float(x) for x in v]
     return SearchResult(u=obj.best_u, cost=obj.best_cost, evaluations=obj.evaluations,
                         seconds=time.monotonic() - t0, optimizer=name, seed=seed, complete=complete,
                         stopped_by=obj.stopped_by, history=tuple(obj.history), restarts=max(len(basins), 1),
-                        best_restart=winner, basins=tuple(float(b[0]) for b in basins))
+                        best_restart=winner, basins=tuple(costs), violation=obj.best_violation,
+                        basin_violations=tuple(violations))

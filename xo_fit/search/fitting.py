@@ -89,6 +89,22 @@ def cost_function(cm: CostModel):
     return FusedCost(cm)
 
 
+def limited_cost_function(cm: CostModel):
+    """With [limits], the batch function a feasibility-first search calls: values (B, P) -> (cost (B,), total
+    violation (B,), each limit's signed excess (B, L)), through the fused kernel (or the reference cost, as
+    :func:`cost_function` chooses); None without limits."""
+    if cm.limits is None:
+        return None
+    if cm.needs_reference:
+        from xo_fit.model.limits import NAMES
+
+        def triple(values):
+            ev = cm.evaluate(np.atleast_2d(values))
+            return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in NAMES], axis=-1)
+        return triple
+    return FusedCost(cm).limited
+
+
 def robust_factors(job) -> np.ndarray | None:
     """The fixed tolerance draws (N, P) of a robust fit ([search] robust = { samples = N }), or None.
 
@@ -120,24 +136,30 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
     model = require_cost_model(system, "fit to")
     cm, _ = model
     space = make_space(job)
-    fused = cost_function(cm)
+    limited = limited_cost_function(cm)
+    fused = cost_function(cm) if limited is None else (lambda values: limited(values)[0])
     robust = robust_factors(job)
 
-    def fn(u: np.ndarray) -> np.ndarray:
+    def fn(u: np.ndarray):
         values = space.values(u)
         if robust is None:
-            return fused(values)
+            return fused(values) if limited is None else limited(values)
         # the mean cost over the same tolerance draws for every candidate: one batch of B x N designs
         b, n = values.shape[0], robust.shape[0]
-        return fused((values[:, None, :] * robust[None, :, :]).reshape(b * n, -1)).reshape(b, n).mean(axis=1)
+        cost = fused((values[:, None, :] * robust[None, :, :]).reshape(b * n, -1)).reshape(b, n).mean(axis=1)
+        # the limits are judged on the nominal design, as result.json judges them
+        return cost if limited is None else (cost, *limited(values)[1:])
 
-    start = float(fn(space.u0[None])[0]) if space.u0 is not None else None
+    start = None
+    if space.u0 is not None:
+        first = fn(space.u0[None])
+        start = float((first if limited is None else first[0])[0])
     result = search(fn, space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,
                     seed=spec.seed if seed is None else seed,
                     time_limit=time_limit if time_limit is not None else spec.time_limit,
-                    polish=spec.polish, progress=progress)
+                    polish=spec.polish, progress=progress, constrained=limited is not None)
     return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start,
-                      kernel=backend_of(fused))
+                      kernel=backend_of(getattr(limited, "__self__", None) if limited is not None else fused))
 
 
 def backend_of(cost) -> str:
@@ -184,7 +206,9 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
         results = list(pool.map(_fit_worker, [(system, optimizer, budget, s_, time_limit) for s_ in seeds]))
     runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
              "restarts": r.restarts, "kernel": k} for s_, r, _, k in results]
-    best = min(range(len(results)), key=lambda i: (results[i][1].cost, i))
+    # feasibility first (a run's violation is 0 without limits): the feasible, then the smaller violation, cost
+    best = min(range(len(results)), key=lambda i: (results[i][1].violation > 0, results[i][1].violation,
+                                                   results[i][1].cost, i))
     _, search_result, values, kernel = results[best]
     model = cost_model(system)
     space = make_space(system.job)

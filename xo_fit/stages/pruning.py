@@ -9,6 +9,11 @@ cheapest removal is taken and the step repeated until nothing is left to
 remove. The chosen design is the one with the fewest parts whose cost stays
 within ``max_increase`` of step 0's (the starting design refitted).
 
+Under ``[limits]`` the refits are feasibility first, and a removal whose
+refitted design breaks a limit the current design meets (a larger total
+violation) is refused: it is listed among the trials with the limits it breaks
+and never taken.
+
 Trial removals are independent: with ``workers`` > 1 they run in processes.
 """
 
@@ -20,6 +25,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
+from xo_fit.model.limits import NAMES as LIMIT_NAMES
 from xo_fit.stages.removal import removals
 
 PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
@@ -37,12 +43,28 @@ def refit(system, budget: int, seed: int):
         return score(system, system.values(), model), 0
     space = make_space(system.job)
 
-    def fn(u: np.ndarray) -> np.ndarray:
+    def fn(u: np.ndarray):
         v = space.values(u)
-        return cm.evaluate_simulation(system.simulate(v, dense=True), v).cost
+        ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)
+        if ev.violations is None:
+            return ev.cost
+        return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
 
-    r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True)
+    r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True, constrained=cm.limits is not None)
     return score(system, space.values(r.u)[0], model), r.evaluations
+
+
+def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
+    """The total violation of the job's [limits] by design ``values`` (P,) and the limits it breaks (0, []
+    without limits or targets)."""
+    from xo_fit.search.fitting import cost_model
+
+    model = cost_model(system)
+    if model is None or model[0].limits is None:
+        return 0.0, []
+    v = np.asarray(values, dtype=float)[None]
+    ev = model[0].evaluate_simulation(system.simulate(v, dense=True), v)
+    return float(ev.violations["total"][0]), [n for n in LIMIT_NAMES if ev.violations[n][0] > 0]
 
 
 def _trial(args):
@@ -101,10 +123,19 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
                 break
             args = [(name, how, s, budget, seed) for name, how, s in options]
             results = list(pool.map(_trial, args)) if pool else [_trial(a) for a in args]
-            for name, how, sc, _, n in results:
+            allowed, _ = broken_limits(last_system, last_scored.values)
+            feasible = []
+            for r in results:
+                name, how, sc, s, n = r
                 evaluations += n
                 trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
-            feasible = [r for r in results if r[2].cost is not None and math.isfinite(r[2].cost)]
+                if sc.cost is None or not math.isfinite(sc.cost):
+                    continue
+                violation, broken = broken_limits(s, sc.values)
+                if violation > allowed + 1e-12:  # it breaks a limit the current design meets: refused
+                    trials[-1]["refused"] = broken
+                    continue
+                feasible.append(r)
             if not feasible:
                 break
             name, how, sc, s, _ = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))

@@ -114,14 +114,19 @@ def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
         return []
     targets = model[1]  # the same grid and targets for every variant
     by_name = dict(zip(system.part_names, np.asarray(values, dtype=float)))
+    allowed = 0.0  # [limits]: a removal that breaks one the design meets is not negligible
+    if model[0].limits is not None:
+        v = np.asarray(values, dtype=float)[None]
+        allowed = float(model[0].evaluate_simulation(system.simulate(v, dense=True), v).violations["total"][0])
     best: dict[str, tuple[float, str]] = {}
     for name, how, s in removals(system, by_name, protect=False, check_dead=False):
         vals = np.array([by_name[n] for n in s.part_names])[None]
         sim = s.simulate(vals, dense=True)  # one dense solve serves the check and the cost
         if dead_driver(s, sim.voltages):
             continue
-        other = float(CostModel(s, targets).evaluate_simulation(sim, vals).cost[0])
-        if not math.isfinite(other):
+        ev = CostModel(s, targets).evaluate_simulation(sim, vals)
+        other = float(ev.cost[0])
+        if not math.isfinite(other) or (ev.violations is not None and ev.violations["total"][0] > allowed + 1e-12):
             continue
         change = relative_change(other, cost)
         if abs(change) < NEGLIGIBLE and (name not in best or abs(change) < abs(best[name][0])):

@@ -16,6 +16,9 @@ whole batches of complete designs through the fused kernel:
 
 The search starts from log-nearest rounding and only ever accepts an
 improvement, so the snapped design is never worse than log-nearest rounding.
+Under ``[limits]`` every comparison is feasibility first
+(:func:`xo_fit.search.feasibility.feasibility_key`): a snapped design that
+breaks a limit is chosen only when no snapped design the search meets does.
 A part in the drawer is never used more times than the drawer holds. Parts
 left continuous (series "none") are then re-optimised with the others held.
 
@@ -28,7 +31,7 @@ from __future__ import annotations
 import math
 
 import itertools
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -332,8 +335,9 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     """Snap design ``continuous`` (P,) of ``system`` to purchasable values with the job's cost."""
     import time
 
-    from xo_fit.search.fitting import cost_function, require_cost_model
+    from xo_fit.search.fitting import cost_function, limited_cost_function, require_cost_model
     from xo_fit.search.engines import Space, search
+    from xo_fit.search.feasibility import feasibility_key
 
     t0 = time.monotonic()
     job = system.job
@@ -341,7 +345,10 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     top_up = job.snap.top_up if top_up is None else check_name(top_up)
     seed = job.search.seed if seed is None else seed
     cm, _ = require_cost_model(system, "score the snap with")
-    cost_fn = cost_function(cm)
+    limited = limited_cost_function(cm)
+    plain_cost = cost_function(cm) if limited is None else (lambda v: limited(v)[0])
+    # the snap's comparisons: the cost, or under [limits] the feasibility-first key
+    cost_fn = plain_cost if limited is None else (lambda v: feasibility_key(*limited(v)[:2]))
     sources = part_sources(job, series_override, inventory)
     parts = job.valued_parts
     continuous = np.asarray(continuous, dtype=float)
@@ -369,6 +376,12 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
         result = search_choices(ev, base, seed)
         for j, i in enumerate(snap_idx):
             values[i] = options[j][result.assignment[j]].value
+        if limited is not None:  # report costs, not keys
+            base_values = continuous.copy()
+            for j, i in enumerate(snap_idx):
+                base_values[i] = options[j][result.baseline[j]].value
+            real = plain_cost(np.stack([values, base_values]))
+            result = replace(result, cost=float(real[0]), baseline_cost=float(real[1]))
     # parts left continuous: re-optimise them with the snapped ones held
     cont = [i for i, p in enumerate(parts) if sources[p.name] == "none" and p.free]
     if cont and snap_idx:
@@ -376,7 +389,8 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
         hi = np.log([parts[i].max for i in cont])
         space = Space(names=tuple(parts[i].name for i in cont), columns=np.array(cont), lo=lo, hi=hi,
                       base=values.copy(), u0=np.clip((np.log(values[cont]) - lo) / (hi - lo), 0, 1))
-        r = search(lambda u: cost_fn(space.values(u)), space, budget=min(job.search.budget, 4000), seed=seed)
+        r = search((lambda u: cost_fn(space.values(u))) if limited is None else (lambda u: limited(space.values(u))),
+                   space, budget=min(job.search.budget, 4000), seed=seed, constrained=limited is not None)
         cand = space.values(r.u)[0]
         if cost_fn(cand[None])[0] <= cost_fn(values[None])[0]:
             values = cand
