@@ -18,7 +18,8 @@ import threading
 import time
 from collections import deque
 from dataclasses import dataclass, field
-from multiprocessing.connection import wait
+from multiprocessing.connection import Connection, wait
+from multiprocessing.process import BaseProcess
 
 from xo_fit.batch.worker import THREAD_VARS, single_threaded, work
 
@@ -77,8 +78,8 @@ class Slot:
     """A worker process and the jobs sent to it, (item, stages, payload, attempt) each: the one it runs, and the
     one it will run next (sent ahead, so that the worker never waits for the coordinator)."""
 
-    proc: object
-    conn: object
+    proc: BaseProcess
+    conn: Connection
     jobs: deque = field(default_factory=deque)
     recorded: list[str] = field(default_factory=list)  # the running job's stages recorded so far
     last_values: dict | None = None
@@ -94,7 +95,7 @@ class Pool:
             os.environ.setdefault(var, "1")
         self.ctx = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else mp.get_context()
         self.size, self.close_fds = size, close_fds
-        self.slots: dict = {}  # connection -> Slot
+        self.slots: dict[Connection, Slot] = {}
 
     def free(self, queued: int) -> Slot | None:
         """A worker for the next job: an idle one, a new one, or (while more jobs wait than there are workers)

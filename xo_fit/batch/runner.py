@@ -103,7 +103,8 @@ def plan_job(it: Item, rows: dict, out: Path, stages: list[str]) -> tuple[list[s
     finished stage counts when its row is done for this hash and its result.json is there; the one continued
     from must be readable, else it is redone (and so on back)."""
     folder = out / folder_name(it.name)
-    finished, need = [], []
+    finished: list[str] = []
+    need: list[str] = []
     for st in stages:
         r = rows.get((it.name, st))
         if (not need and r is not None and r["status"] == "done" and r["hash"] == it.hash

@@ -98,7 +98,8 @@ def read_sweep(path: str | Path) -> Sweep:
         :data:`MAX_VARIANTS` variants.
     """
     data, ctx = read_document(path)
-    base_name = data.get("name") if isinstance(data.get("name"), str) else ctx.stem
+    name = data.get("name")
+    base_name = name if isinstance(name, str) else ctx.stem
     sweep = data.pop("sweep", None)
     if sweep is None:
         return Sweep(data, ctx, base_name, ())

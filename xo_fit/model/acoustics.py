@@ -141,8 +141,9 @@ def directivity(p2: np.ndarray, weights: dict[str, np.ndarray | None]) -> dict[s
     early_reflections, sound_power, estimated_in_room whose positions are all there."""
     out = {"on_axis": p2[:, 0]}
     for name in ("listening_window", "early_reflections", "sound_power"):
-        if weights.get(name) is not None:
-            out[name] = np.einsum("baf,a->bf", p2, weights[name])
+        w = weights.get(name)
+        if w is not None:
+            out[name] = np.einsum("baf,a->bf", p2, w)
     if all(k in out for k in ("listening_window", "early_reflections", "sound_power")):
         a, b, c = IN_ROOM_WEIGHTS
         out["estimated_in_room"] = a * out["listening_window"] + b * out["early_reflections"] + c * out["sound_power"]
@@ -176,6 +177,6 @@ def preference_of(plan: PreferencePlan, curves: dict[str, np.ndarray], *, bound_
         The six figures, arrays of the batch shape (...), with a reason for each null.
     """
     db = {k: power_db(curves[k]) if k in curves else None
-          for k in ("on_axis", "listening_window", "early_reflections", "sound_power")}
-    return evaluate(plan, db["on_axis"], db["listening_window"], db["early_reflections"], db["sound_power"],
-                    bound_lfx=bound_lfx)
+          for k in ("listening_window", "early_reflections", "sound_power")}
+    return evaluate(plan, power_db(curves["on_axis"]), db["listening_window"], db["early_reflections"],
+                    db["sound_power"], bound_lfx=bound_lfx)

@@ -46,10 +46,10 @@ class Baffled:
 def job_positions(job: Job) -> tuple:
     """The measuring positions of an off-axis job, the axis first (then horizontal, vertical, by angle); ()
     for an on-axis job. (The order of :attr:`~xo_fit.model.system.System.positions`.)"""
-    first = next((d for d in job.drivers if d.angles is not None), None)
-    if first is None:
+    angles = next((d.angles for d in job.drivers if d.angles is not None), None)
+    if angles is None:
         return ()
-    rest = sorted(first.angles.files(), key=lambda p: (p[0] != "h", p[1]))
+    rest = sorted(angles.files(), key=lambda p: (p[0] != "h", p[1]))
     return (("h", 0), *rest)
 
 

@@ -299,7 +299,7 @@ def low_frequency_extension(plan: PreferencePlan, lw_db: np.ndarray, sp_db: np.n
     return np.where(found, lfx, plan.log_f[0] if bound else np.nan)
 
 
-def score_from(nbd_on: np.ndarray, nbd_pir: np.ndarray, lfx: np.ndarray, sm_pir: np.ndarray) -> np.ndarray:
+def score_from(nbd_on: np.ndarray, nbd_pir: np.ndarray, lfx: np.ndarray | float, sm_pir: np.ndarray) -> np.ndarray:
     """Olive's predicted preference: 12.69 - 2.49 NBD_ON - 2.99 NBD_PIR - 4.31 LFX + 2.32 SM_PIR.
 
     Parameters
@@ -311,9 +311,7 @@ def score_from(nbd_on: np.ndarray, nbd_pir: np.ndarray, lfx: np.ndarray, sm_pir:
     return INTERCEPT - COEF_NBD_ON * nbd_on - COEF_NBD_PIR * nbd_pir - COEF_LFX * lfx + COEF_SM_PIR * sm_pir
 
 
-def _curve(x: np.ndarray | None, n_freq: int, name: str) -> np.ndarray | None:
-    if x is None:
-        return None
+def _curve(x: np.ndarray, n_freq: int, name: str) -> np.ndarray:
     x = np.asarray(x, dtype=float)
     if x.ndim < 1 or x.shape[-1] != n_freq:
         raise ValueError(f"{name} must have the grid's {n_freq} points on its last axis, not shape {x.shape}")
@@ -343,7 +341,8 @@ def evaluate(plan: PreferencePlan, on_db: np.ndarray, lw_db: np.ndarray | None =
     """
     n = plan.frequencies.size
     on = _curve(on_db, n, "on_db")
-    lw, er, sp = (_curve(x, n, k) for x, k in ((lw_db, "lw_db"), (er_db, "er_db"), (sp_db, "sp_db")))
+    lw, er, sp = (None if x is None else _curve(x, n, k)
+                  for x, k in ((lw_db, "lw_db"), (er_db, "er_db"), (sp_db, "sp_db")))
     shape = np.broadcast_shapes(*(c.shape for c in (on, lw, er, sp) if c is not None))[:-1]
     nan = np.full(shape, np.nan)
     reasons = dict(plan.reasons)
@@ -356,11 +355,12 @@ def evaluate(plan: PreferencePlan, on_db: np.ndarray, lw_db: np.ndarray | None =
     if lw is None or sp is None:
         reasons.setdefault("lfx", f"no {'listening window' if lw is None else 'sound power'} curve: "
                            "its positions are not all measured")
-    pir = None if absent else in_room_db(lw, er, sp)
+    # a curve that is absent has put its figures in reasons above
+    pir = None if lw is None or er is None or sp is None else in_room_db(lw, er, sp)
     out = {"nbd_on": nan if "nbd_on" in reasons else np.broadcast_to(nbd(plan, on), shape),
-           "nbd_pir": nan if "nbd_pir" in reasons else np.broadcast_to(nbd(plan, pir), shape),
-           "sm_pir": nan if "sm_pir" in reasons else np.broadcast_to(smoothness(plan, pir), shape)}
-    lfx = nan if "lfx" in reasons else np.broadcast_to(
+           "nbd_pir": nan if "nbd_pir" in reasons or pir is None else np.broadcast_to(nbd(plan, pir), shape),
+           "sm_pir": nan if "sm_pir" in reasons or pir is None else np.broadcast_to(smoothness(plan, pir), shape)}
+    lfx = nan if "lfx" in reasons or lw is None or sp is None else np.broadcast_to(
         low_frequency_extension(plan, lw, sp, bound=bound_lfx), shape)
     if "lfx" not in reasons and np.any(np.isnan(lfx)):
         count = f" ({int(np.isnan(lfx).sum())} of {lfx.size} curve sets)" if lfx.ndim else ""

@@ -108,10 +108,10 @@ def way_shape(way: WayTarget, f: np.ndarray) -> np.ndarray:
     """The way's complex target (unit passband, no polarity) on frequencies f (Hz), shape (F,)."""
     if way.type == "fullrange":
         return np.ones(np.shape(f), dtype=complex)
-    if way.type == "lowpass":
-        return slope(way.alignment, way.order, "low", way.fc, f)
-    if way.type == "highpass":
-        return slope(way.alignment, way.order, "high", way.fc, f)
+    if way.type in ("lowpass", "highpass"):
+        assert way.fc is not None  # the job reader requires fc of a low- or highpass
+        return slope(way.alignment, way.order, "low" if way.type == "lowpass" else "high", way.fc, f)
+    assert way.fc_low is not None and way.fc_high is not None  # the reader requires both of a bandpass
     return slope(way.alignment, way.order, "high", way.fc_low, f) * slope(way.alignment, way.order, "low", way.fc_high, f)
 
 

@@ -33,6 +33,13 @@ class BaffleResponses:
     names: tuple[str, ...]
     response: np.ndarray
 
+    @property
+    def width(self) -> float:
+        """The baffle's width x[1] - x[0], m."""
+        baffle = self.job.baffle
+        assert baffle is not None  # baffle_responses needs the job's [baffle]
+        return baffle.x[1] - baffle.x[0]
+
     def table(self) -> Table:
         """baffle.csv: ``frequency_hz``, each driver's ``<driver>_db`` and ``<driver>_deg`` on the axis, then at
         each other position ``<driver>_<orbit><angle>_db`` and ``_deg`` (docs/outputs.md)."""
@@ -51,7 +58,7 @@ class BaffleResponses:
         from xo_fit.units import format_value
 
         f = self.frequencies
-        step = STEP_HZ_M / (self.job.baffle.x[1] - self.job.baffle.x[0])
+        step = STEP_HZ_M / self.width
         out = []
         for k, spec in enumerate(self.job.drivers):
             db = 20 * np.log10(np.maximum(np.abs(self.response[k, 0]), 1e-30))
@@ -121,7 +128,7 @@ def plot_baffle(path: str | Path, b: BaffleResponses) -> None:
             i = b.positions.index(("h", 30))
             ax.semilogx(f, 20 * np.log10(np.abs(b.response[k, i])), lw=0.8, ls="--", color=line.get_color(),
                         label=f"{name} at h30")
-    width = b.job.baffle.x[1] - b.job.baffle.x[0]
+    width = b.width
     for a in (ax, axp):
         a.axvline(STEP_HZ_M / width, color="0.5", ls=":", lw=1)
     ax.axhline(-6.02, color="0.6", lw=0.8)

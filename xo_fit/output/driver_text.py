@@ -44,13 +44,19 @@ def model_lines(job, spec) -> list[str]:
         s = summary(ts, box, key=f"[driver.{spec.name}.box]")
         f3 = f"f3 {format_value(s['f3'], 'Hz', 3)}"
     except XoFitError as e:  # a response that never crosses -3 dB near fs (a strongly peaked alignment)
-        s = {"alpha": alpha(ts, box), **({"fc": closed_box(ts, box.volume)[0], "qtc": closed_box(ts, box.volume)[1]}
-                                         if box.kind == "closed" else {"h": (box.tuning or 0) / ts.fs})}
+        s = {"alpha": alpha(ts, box)}
+        if box.kind == "closed":
+            assert box.volume is not None  # a closed box has its volume
+            s["fc"], s["qtc"] = closed_box(ts, box.volume)
+        else:
+            s["h"] = (box.tuning or 0) / ts.fs
         f3 = f"f3 undetermined ({e.message})"
     if box.kind == "closed":
+        assert box.volume is not None  # a closed box has its volume
         what = (f"closed, {box.volume * 1e3:.4g} L: alpha {s['alpha']:.3g}, fc {format_value(s['fc'], 'Hz', 3)}, "
                 f"Qtc {s['qtc']:.3g}, {f3} (Small 1972)")
     elif box.kind == "vented":
+        assert box.volume is not None and box.tuning is not None  # a vented box has both
         what = (f"vented, {box.volume * 1e3:.4g} L tuned to {format_value(box.tuning, 'Hz', 3)}, QL {box.ql:g}: "
                 f"alpha {s['alpha']:.3g}, h = fb/fs {s['h']:.3g}, {f3} (Small 1973)")
     else:

@@ -47,8 +47,8 @@ def ladders(job) -> list[dict] | None:
             return None
         series = []
         n = hot
-        while prev[n] is not None:
-            name, frm = prev[n]
+        while (step := prev[n]) is not None:
+            name, frm = step
             series.append((name, frm, n))
             n = frm
         series.reverse()

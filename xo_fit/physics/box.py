@@ -95,6 +95,7 @@ def alpha(ts: ThieleSmallSet, box: Box, key: str | None = None) -> float:
     if box.kind == "none":
         return 0.0
     ts.need(("vas",), f"a {box.kind} box", key=key)
+    assert ts.vas is not None and box.volume is not None  # need() has raised; a closed or vented box has a volume
     return ts.vas / box.volume
 
 
@@ -114,6 +115,7 @@ def _elements(ts: ThieleSmallSet, box: Box, f: np.ndarray, key: str | None):
     if box.kind == "closed":
         y = y + a / (s * lces)
     elif box.kind == "vented":
+        assert box.tuning is not None  # a vented box has its tuning
         wb = 2 * math.pi * box.tuning
         lceb = lces / a
         y = y + 1.0 / (s * lceb + wb * lceb / box.ql + wb * wb * lceb / s)
@@ -137,6 +139,7 @@ def circuit(ts: ThieleSmallSet, box: Box, *, key: str | None = None) -> dict[str
         lceb = lces / alpha(ts, box, key)
         out["lceb"] = lceb
         if box.kind == "vented":
+            assert box.tuning is not None  # a vented box has its tuning
             wb = 2 * math.pi * box.tuning
             out.update(rel=wb * lceb / box.ql, cmep=1.0 / (wb * wb * lceb))
     return out
@@ -249,8 +252,10 @@ def summary(ts: ThieleSmallSet, box: Box, *, key: str | None = None) -> dict[str
     fb with h = fb/fs and QL (vented)."""
     out = {"alpha": alpha(ts, box, key)}
     if box.kind == "closed":
+        assert box.volume is not None  # a closed box has its volume
         out["fc"], out["qtc"] = closed_box(ts, box.volume)
     elif box.kind == "vented":
+        assert box.tuning is not None  # a vented box has its tuning
         out.update(fb=box.tuning, h=box.tuning / ts.fs, ql=box.ql)
     out["f3"] = f3(ts, box, key=key)
     return out

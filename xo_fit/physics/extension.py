@@ -116,7 +116,7 @@ def _highpass_extension(u: np.ndarray, db: np.ndarray, ue: np.ndarray, order: in
         sel = slice(0, min(3, u.size))
     us, ds = u[sel], db[sel]
 
-    def shape(x_u: np.ndarray, log_fc: float) -> np.ndarray:  # 20 log10 |H|, |H|^2 = x^2N / (1 + x^2N)
+    def shape(x_u: np.ndarray, log_fc: np.ndarray | float) -> np.ndarray:  # 20 log10 |H|, |H|^2 = x^2N / (1 + x^2N)
         x2 = np.exp(2 * order * (x_u - log_fc))
         return 10 * np.log10(x2 / (1 + x2))
 

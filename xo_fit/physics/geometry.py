@@ -88,10 +88,10 @@ def acoustic_centres(x: Sequence[float], y: Sequence[float], offset: Sequence[fl
     x, y: position in the baffle plane from the reference point, m (x to the right facing the front, y up),
     (Dr,) each; offset: depth behind the reference plane, m (negative: in front), (Dr,).
     """
-    x, y, offset = (np.asarray(v, dtype=float).reshape(-1) for v in (x, y, offset))
-    if not x.size == y.size == offset.size:
+    xs, ys, depth = (np.asarray(v, dtype=float).reshape(-1) for v in (x, y, offset))
+    if not xs.size == ys.size == depth.size:
         raise ValueError("x, y and offset need one value per driver")
-    return np.stack([x, y, -offset], axis=1)
+    return np.stack([xs, ys, -depth], axis=1)
 
 
 def _paths(u: np.ndarray, p: np.ndarray, distance: float) -> tuple[np.ndarray, np.ndarray]:
@@ -210,8 +210,8 @@ def placement_factors(positions: Sequence[tuple[str, float]], centres: np.ndarra
         (A, Dr, F) complex.
     """
     p = np.asarray(centres, dtype=float)
-    adds = np.asarray(adds, dtype=bool).reshape(-1)
-    if adds.size != p.shape[0]:
+    added = np.asarray(adds, dtype=bool).reshape(-1)
+    if added.size != p.shape[0]:
         raise ValueError("adds needs one flag per driver")
     f = np.asarray(frequencies, dtype=float)
     w = 2 * np.pi * f
@@ -219,8 +219,8 @@ def placement_factors(positions: Sequence[tuple[str, float]], centres: np.ndarra
     offset = -p[:, 2]
     offset_delay = np.exp(-1j * w[None, :] * offset[:, None] / speed_of_sound)  # (Dr, F): as before, bit for bit
     out[:] = offset_delay[None]
-    if adds.any():
-        out[:, adds] = propagation(directions(positions), p[adds], f, speed_of_sound=speed_of_sound,
+    if added.any():
+        out[:, added] = propagation(directions(positions), p[added], f, speed_of_sound=speed_of_sound,
                                    distance=distance)
     return out
 

@@ -180,6 +180,7 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
     for split in ((1.0, None),) if model == "ts" else ((0.5, 1.0), (0.2, 3.0), (0.8, 0.3)):
         s = dict(start)
         if model == "ts-lossy":
+            assert split[1] is not None  # the lossy model's splits all scale r2
             s["le"] = start["le"] * split[0]
             s["l2"] = start["le"] * 2.0
             s["r2"] = max(float(mag[-1]) * split[1], 0.1)

@@ -313,7 +313,10 @@ def complete(given: Mapping[str, float], *, key: str | None = None, rho: float =
         have = ", ".join(sorted(values)) or "none"
         raise XoFitError(f"{', '.join(missing)} not determined by the given keys ({have}); "
                          + "; ".join(f"{k}: give {_HINTS[k]}" for k in missing), key=key)
-    return ThieleSmallSet(**{k: known.get(k) for k in _RELATED}, le=values.get("le", 0.0),
+    # with re, fs, qms and qes known, the propagation has derived qts = 1/(1/qms + 1/qes)
+    return ThieleSmallSet(re=known["re"], fs=known["fs"], qms=known["qms"], qes=known["qes"], qts=known["qts"],
+                          vas=known.get("vas"), sd=known.get("sd"), bl=known.get("bl"), mms=known.get("mms"),
+                          cms=known.get("cms"), rms=known.get("rms"), le=values.get("le", 0.0),
                           xmax=values.get("xmax"), power=values.get("power"), l2=values.get("l2", 0.0),
                           r2=values.get("r2", 0.0), given=frozenset(values), rho=rho, c=c)
 

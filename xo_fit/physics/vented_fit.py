@@ -101,6 +101,7 @@ class VentedFit:
             ts += [f'l2 = "{self.l2 * 1e3:.4g}mH"', f"r2 = {self.r2:.4g}"]
         box = ['type = "vented"']
         if self.vas is not None:
+            assert self.volume is not None  # vas is alpha volume, known only with the volume
             ts.append(f'vas = "{self.vas * 1e3:.4g}L"')
             box.append(f'volume = "{self.volume * 1e3:.4g}L"')
         else:

@@ -126,7 +126,7 @@ def _edge_constants(b: _Build) -> list[str]:
     return prep
 
 
-def _series_sums(prep: list[str], edge, brs, ei: int) -> list:
+def _series_sums(prep: list[str], edge, brs, ei: int) -> list[str | None]:
     """The series resistance, inductance and elastance sums of a chain edge, as names (or None)."""
     zr, ls, ss = [], [], []
     for j, br in zip(edge.members, brs):
@@ -140,7 +140,7 @@ def _series_sums(prep: list[str], edge, brs, ei: int) -> list:
             ss.append(f"1.0 / x_{j}")
             if br.r_coef:
                 zr.append(f"r_{j}")
-    names = []
+    names: list[str | None] = []
     for tag, terms in (("zr", zr), ("ls", ls), ("ss", ss)):
         if terms:
             prep.append(f"{tag}_{ei} = {' + '.join(terms)}")
@@ -236,7 +236,7 @@ def _eliminate(b: _Build) -> None:
     """Symbolic elimination with fill-in in ``b.order``; the pivots of one elimination-tree level share one
     division (Montgomery's trick)."""
     e, nodes, a, rhs = b.e, b.nodes, b.a, b.rhs
-    struct = {k: set() for k in range(len(nodes))}
+    struct: dict[int, set[int]] = {k: set() for k in range(len(nodes))}
     for (i, k) in a:
         if i != k:
             struct[i].add(k)
@@ -359,7 +359,7 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
     body_y = e.lines
     e.lines = []
     dissipative = _assemble(b)
-    adj = {n: set() for n in b.nodes}
+    adj: dict[str, set[str]] = {n: set() for n in b.nodes}
     for (i, k) in b.a:
         if i != k:
             adj[b.nodes[i]].add(b.nodes[k])

@@ -331,6 +331,7 @@ class _Writer:
                 raise ValueError(f"'{tgt.id}' may be updated before it is set on this path (line {node.lineno})")
             int_target = isinstance(tgt, ast.Name) and tgt.id in self.ints
             if int_target and isinstance(node.op, ast.Div):
+                assert isinstance(tgt, ast.Name)  # int_target says so
                 raise ValueError(f"'{tgt.id}' /= on an integer (line {node.lineno})")
             if isinstance(node.op, ast.Div) and not self.divide:
                 raise ValueError("a division in a kernel without error_model=\"numpy\" (numba would raise)")
@@ -439,7 +440,7 @@ def _to_c(source: str, entry: str, args: list[tuple[str, int]], fixed: dict[str,
         if isinstance(node, ast.Assign) and len(node.targets) == 1 and isinstance(node.targets[0], ast.Name):
             v = node.value
             neg = isinstance(v, ast.UnaryOp) and isinstance(v.op, ast.USub)
-            c = v.operand if neg else v
+            c = v.operand if neg and isinstance(v, ast.UnaryOp) else v
             if not (isinstance(c, ast.Constant) and isinstance(c.value, float)):
                 raise ValueError("module-level value other than a float")
             constants[node.targets[0].id] = _double(-c.value if neg else c.value)

@@ -119,6 +119,7 @@ def _numba_kernel(folder: Path, source: str, entry: str):
             raise
     name = f"xo_fit_kernels.k_{digest}"
     spec = importlib.util.spec_from_file_location(name, path)
+    assert spec is not None and spec.loader is not None  # a .py path always has a source loader
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
     spec.loader.exec_module(module)

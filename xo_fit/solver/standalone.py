@@ -46,6 +46,7 @@ import sys
 import tempfile
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -267,7 +268,7 @@ class LazyKernel:
         self.names = _parameters(source, entry)
         self.multi = [i for i, k in enumerate(self.dims) if k > 1]  # the arguments with inner dimensions
         self.fallback = fallback
-        self.builds: dict[tuple, object] = {}
+        self.builds: dict[tuple, Callable[..., int]] = {}
         self.backends: dict[tuple, str] = {}  # per build: "c" or "numba"
 
     @property
