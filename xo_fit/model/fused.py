@@ -173,113 +173,44 @@ class FusedCost:
     # ------------------------------------------------------------------ code
 
     def source(self) -> str:
+        """The kernel's Python source (the subset :mod:`xo_fit.solver.ctranslate` writes as C): per candidate
+        the frequency loop (solve, levels, pressures, phase chords, impedance shortfall, currents), the
+        positions' sums, the preference, then the second pass (way and sum errors, roughness) and the terms."""
         cm, net = self.cm, self.net
         code = solver_code(net, currents=tuple(j for j, _, _, _ in self.judged))
         d = len(net.driver_names)
-        ways = [k for k in range(d) if cm.has_way[k]]
-        nb = self.hi - self.lo
-        floor = cm.impedance_floor
-        level = cm.targets.level_db
-        w = cm.weights
-        lines = list(code.loads) + list(code.body)
-        need = self.need
         n_peaks = sum(kind != "R" for _, _, kind, _ in self.judged)
-        row_e, row_p = d + 2 + n_peaks, d + 3 + n_peaks  # scratch rows of the early reflections', sound power's dB
-        row_v = d + 4 + n_peaks  # the driver voltages (re, im per driver), then |p|^2 of LW, ER, SP
-        row_q = row_v + 2 * d
-        angle_pre, angle_loop, angle_post = [], [], []
-        if self.n_angles:
-            # the voltages are kept per frequency; the positions are summed after the frequency loop, position by
-            # position over frequency (unit stride: the loop vectorises), and their levels taken in a third pass
-            for k, (vr, vi) in enumerate(code.volts):
-                angle_pre += [f"scratch[{row_v + 2 * k}, f] = {vr}", f"scratch[{row_v + 2 * k + 1}, f] = {vi}"]
-            qr = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k}, f] - scratch[{row_v + 2 * k + 1}, f] * "
-                            f"ang[a, {2 * k + 1}, f]" for k in range(d))
-            qi = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k + 1}, f] + scratch[{row_v + 2 * k + 1}, f] * "
-                            f"ang[a, {2 * k}, f]" for k in range(d))
-            angle_loop = []
-            for first in (True, False):  # the first position sets the sums (no zeroing pass), the others add
-                op = "=" if first else "+="
-                angle_loop += [("a = 0" if first else f"for a in range(1, {self.n_angles}):")]
-                ind = "" if first else "    "
-                angle_loop += [ind + "wa0 = angw[a, 0]", ind + "wa1 = angw[a, 1]", ind + "wa2 = angw[a, 2]",
-                               ind + f"for f in range({self.flo}, {self.fhi}):", ind + f"    qr = {qr}",
-                               ind + f"    qi = {qi}", ind + "    q2 = qr * qr + qi * qi",
-                               ind + f"    scratch[{row_q}, f] {op} wa0 * q2",
-                               ind + f"    scratch[{row_q + 1}, f] {op} wa1 * q2",
-                               ind + f"    scratch[{row_q + 2}, f] {op} wa2 * q2"]
-            if need["listening_window"]:
-                angle_post += [f"sd = DB10 * ln_floored(max(scratch[{row_q}, f], P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
-                               f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
-            if need["early_reflections"]:
-                angle_post += [f"ed = DB10 * ln_floored(max(scratch[{row_q + 1}, f], P2F)) - PREF_DB",
-                               f"scratch[{row_e}, f] = ed", "acc_e += ed"]
-            if need["sound_power"]:
-                angle_post += [f"spd = DB10 * ln_floored(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
-                               f"scratch[{row_p}, f] = spd", "acc_sp += spd"]
+        rows = {"e": d + 2 + n_peaks, "p": d + 3 + n_peaks,  # scratch rows of the early reflections', sound power's dB
+                "v": d + 4 + n_peaks}  # the driver voltages (re, im per driver), then |p|^2 of LW, ER, SP
+        rows["q"] = rows["v"] + 2 * d
         pref = self.plan is not None
         lim = self.limit_code
-        assert self.scratch_rows == row_q + 3 + (4 if pref else 0) + (lim.scratch_rows if lim else 0)
-        inband = f"tgt[{self.row_inband}, f] * " if pref else ""  # the band's sums, when the loop runs wider
-        lines += angle_pre
-        for k, (vr, vi) in enumerate(code.volts):
-            lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
-                      f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
-                      f"pd{k} = DB10 * ln_floored(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
-                      f"scratch[{k}, f] = pd{k}"]
-        lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}"]
-        if pref:  # the on-axis level, whatever the sum's reference
-            lines += [f"scratch[{row_q + 3}, f] = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB"]
-        if not need["listening_window"]:  # else the listening window's level, after the positions are summed
-            lines += ["sd = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
-                      f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
-        for j, (a, b, _, _) in enumerate(cm.pairs):
-            base = self.row_pairs + 3 * j
-            lines += [f"qr{j} = pr{a} * pr{b} + pi{a} * pi{b}", f"qi{j} = pi{a} * pr{b} - pr{a} * pi{b}",
-                      f"cr{j} = qr{j} * tgt[{base + 1}, f] - qi{j} * tgt[{base + 2}, f]",
-                      f"ci{j} = qr{j} * tgt[{base + 2}, f] + qi{j} * tgt[{base + 1}, f]",
-                      f"acc_p{j} += tgt[{base}, f] * (1.0 - cr{j} / sqrt(cr{j} * cr{j} + ci{j} * ci{j} + 1e-300))"]
-        if floor > 0:
-            zr, zi = code.zin
-            lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
-                      f"sh = DB10 * ln_floored(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
-                      f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
-        peaks = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
-        for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(self.judged, code.currents)):
-            lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
-            if kind == "R":
-                lines.append(f"acc_r{m} += {inband}qq{m}")
-            else:
-                row = d + 2 + len(peaks)
-                lines.append(f"scratch[{row}, f] = qq{m} * iw * iw" if kind == "C" else f"scratch[{row}, f] = qq{m}")
-                peaks.append((row, m))
-        if lim:
-            lines += lim.loop_lines(code, inband)
-        lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
+        assert self.scratch_rows == rows["q"] + 3 + (4 if pref else 0) + (lim.scratch_rows if lim else 0)
+        angle_pre, angle_loop, angle_post = self._angle_code(code, d, rows)
+        lines, peaks = self._loop_lines(code, d, rows, angle_pre)
+        i1, i2 = " " * 8, " " * 12
+        src = self._header(code)
+        src += [i1 + s for s in code.prep]
+        src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0", i1 + "acc_e = 0.0", i1 + "acc_sp = 0.0"]
+        src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(self.judged) if kind == "R"]
+        src += [i1 + s for s in (lim.start_lines() if lim else [])]
+        src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
+        src += [i1 + f"for f in range({self.flo}, {self.fhi}):"] + [i2 + s for s in lines]
+        if angle_loop:
+            src += [i1 + s for s in angle_loop]
+            if angle_post:
+                src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in angle_post]
+        if pref:
+            src += [i1 + s for s in self._preference_source(rows["q"])]
+        src += self._second_pass(d, rows)
+        src += self._terms(d, peaks)
+        return "\n".join(src) + "\n"
 
-        second = []
-        for k in ways:
-            second += [f"y{k} = scratch[{k}, f] - level - tgt[{self.row_tway + k}, f]",
-                       f"x{k} = scratch[{k}, f] - level + {BREAKUP_FLOOR_DB!r}",
-                       f"x{k} = x{k} if x{k} > 0.0 else 0.0",
-                       f"e{k} = x{k} if tgt[{self.row_stop + k}, f] > 0.5 else y{k}",
-                       f"acc_w += e{k} * e{k}"]
-        second += [f"s = scratch[{d}, f] - level - tgt[{self.row_tsys}, f]",
-                   f"u = scratch[{d}, f] - level - {NULL_DB!r}",  # at a null of the target: only output above it
-                   "u = u if u > 0.0 else 0.0",
-                   f"s = s if tgt[{self.row_keep}, f] > 0.5 else u", "acc_s += s * s"]
-        # roughness: the curve's deviation from its least-squares line on log2 f (xc: log2 f less its mean)
-        if need["early_reflections"]:
-            second += [f"de = scratch[{row_e}, f] - mean_e", "acc_ee += de * de",
-                       f"acc_ex += de * tgt[{self.row_xc}, f]"]
-        if need["sound_power"]:
-            second += [f"dp = scratch[{row_p}, f] - mean_p", "acc_pp += dp * dp",
-                       f"acc_px += dp * tgt[{self.row_xc}, f]"]
-
-        phase_expr = " + ".join(f"acc_p{j} / {self.pair_counts[j]}.0" for j in range(len(cm.pairs)))
-        phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
-        i1, i2, i3 = " " * 8, " " * 12, " " * 16
-        src = [
+    def _header(self, code) -> list[str]:
+        """The module's head and the kernel's signature, down to the candidate loop."""
+        cm = self.cm
+        ways = [k for k in range(len(self.net.driver_names)) if cm.has_way[k]]
+        return [
             "# generated by xo_fit.fused.FusedCost.source; do not edit",
             f"# kernel version {KERNEL_VERSION}; band [{self.lo}, {self.hi}); ways {ways}; "
             f"pairs {[(a, b) for a, b, _, _ in cm.pairs]}",
@@ -298,28 +229,135 @@ class FusedCost:
             "    nbad = 0",
             "    for b in range(nb):",
         ]
-        src += [i1 + s for s in code.prep]
-        src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0", i1 + "acc_e = 0.0", i1 + "acc_sp = 0.0"]
-        src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(self.judged) if kind == "R"]
-        src += [i1 + s for s in (lim.start_lines() if lim else [])]
-        src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
-        src += [i1 + f"for f in range({self.flo}, {self.fhi}):"] + [i2 + s for s in lines]
-        if angle_loop:
-            src += [i1 + s for s in angle_loop]
-            if angle_post:
-                src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in angle_post]
-        if pref:
-            src += [i1 + s for s in self._preference_source(row_q)]
-        src += [i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
-                i1 + "acc_w = 0.0", i1 + "acc_s = 0.0", i1 + f"mean_e = acc_e / {nb}.0",
-                i1 + f"mean_p = acc_sp / {nb}.0", i1 + "acc_ee = 0.0", i1 + "acc_ex = 0.0", i1 + "acc_pp = 0.0",
-                i1 + "acc_px = 0.0"]
-        src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in second]
-        src += [i1 + "mz = 0.0"]
+
+    def _angle_code(self, code, d: int, rows: dict) -> tuple[list[str], list[str], list[str]]:
+        """The off-axis positions: the voltages kept per frequency (pre), the positions summed after the
+        frequency loop, position by position over frequency (unit stride: the loop vectorises), and their levels
+        taken in a third pass (post)."""
+        angle_pre: list[str] = []
+        angle_loop: list[str] = []
+        angle_post: list[str] = []
+        if not self.n_angles:
+            return angle_pre, angle_loop, angle_post
+        need, row_v, row_q = self.need, rows["v"], rows["q"]
+        for k, (vr, vi) in enumerate(code.volts):
+            angle_pre += [f"scratch[{row_v + 2 * k}, f] = {vr}", f"scratch[{row_v + 2 * k + 1}, f] = {vi}"]
+        qr = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k}, f] - scratch[{row_v + 2 * k + 1}, f] * "
+                        f"ang[a, {2 * k + 1}, f]" for k in range(d))
+        qi = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k + 1}, f] + scratch[{row_v + 2 * k + 1}, f] * "
+                        f"ang[a, {2 * k}, f]" for k in range(d))
+        for first in (True, False):  # the first position sets the sums (no zeroing pass), the others add
+            op = "=" if first else "+="
+            angle_loop += [("a = 0" if first else f"for a in range(1, {self.n_angles}):")]
+            ind = "" if first else "    "
+            angle_loop += [ind + "wa0 = angw[a, 0]", ind + "wa1 = angw[a, 1]", ind + "wa2 = angw[a, 2]",
+                           ind + f"for f in range({self.flo}, {self.fhi}):", ind + f"    qr = {qr}",
+                           ind + f"    qi = {qi}", ind + "    q2 = qr * qr + qi * qi",
+                           ind + f"    scratch[{row_q}, f] {op} wa0 * q2",
+                           ind + f"    scratch[{row_q + 1}, f] {op} wa1 * q2",
+                           ind + f"    scratch[{row_q + 2}, f] {op} wa2 * q2"]
+        if need["listening_window"]:
+            angle_post += [f"sd = DB10 * ln_floored(max(scratch[{row_q}, f], P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                           f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
+        if need["early_reflections"]:
+            angle_post += [f"ed = DB10 * ln_floored(max(scratch[{row_q + 1}, f], P2F)) - PREF_DB",
+                           f"scratch[{rows['e']}, f] = ed", "acc_e += ed"]
+        if need["sound_power"]:
+            angle_post += [f"spd = DB10 * ln_floored(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
+                           f"scratch[{rows['p']}, f] = spd", "acc_sp += spd"]
+        return angle_pre, angle_loop, angle_post
+
+    def _loop_lines(self, code, d: int, rows: dict, angle_pre: list[str]) -> tuple[list[str], list[tuple]]:
+        """The frequency loop's body after the solve: each way's pressure and level, the sum, the phase chords of
+        the crossover pairs, the impedance shortfall, the rated parts' currents; and the (row, m) of the rated
+        C and L parts whose maxima are taken after the loop."""
+        cm = self.cm
+        floor = cm.impedance_floor
+        pref = self.plan is not None
+        lim = self.limit_code
+        inband = f"tgt[{self.row_inband}, f] * " if pref else ""  # the band's sums, when the loop runs wider
+        lines = list(code.loads) + list(code.body) + angle_pre
+        for k, (vr, vi) in enumerate(code.volts):
+            lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
+                      f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
+                      f"pd{k} = DB10 * ln_floored(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
+                      f"scratch[{k}, f] = pd{k}"]
+        lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}"]
+        if pref:  # the on-axis level, whatever the sum's reference
+            lines += [f"scratch[{rows['q'] + 3}, f] = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB"]
+        if not self.need["listening_window"]:  # else the listening window's level, after the positions are summed
+            lines += ["sd = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
+                      f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
+        for j, (a, b, _, _) in enumerate(cm.pairs):
+            base = self.row_pairs + 3 * j
+            lines += [f"qr{j} = pr{a} * pr{b} + pi{a} * pi{b}", f"qi{j} = pi{a} * pr{b} - pr{a} * pi{b}",
+                      f"cr{j} = qr{j} * tgt[{base + 1}, f] - qi{j} * tgt[{base + 2}, f]",
+                      f"ci{j} = qr{j} * tgt[{base + 2}, f] + qi{j} * tgt[{base + 1}, f]",
+                      f"acc_p{j} += tgt[{base}, f] * (1.0 - cr{j} / sqrt(cr{j} * cr{j} + ci{j} * ci{j} + 1e-300))"]
+        if floor > 0:
+            zr, zi = code.zin
+            lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
+                      f"sh = DB10 * ln_floored(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
+                      f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
+        peaks: list[tuple] = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
+        for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(self.judged, code.currents)):
+            lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
+            if kind == "R":
+                lines.append(f"acc_r{m} += {inband}qq{m}")
+            else:
+                row = d + 2 + len(peaks)
+                lines.append(f"scratch[{row}, f] = qq{m} * iw * iw" if kind == "C" else f"scratch[{row}, f] = qq{m}")
+                peaks.append((row, m))
+        if lim:
+            lines += lim.loop_lines(code, inband)
+        lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
+        return lines, peaks
+
+    def _second_pass(self, d: int, rows: dict) -> list[str]:
+        """After the level is known: each way's and the sum's error, and the roughness of the off-axis curves
+        about their least-squares line on log2 f (xc: log2 f less its mean)."""
+        cm, need = self.cm, self.need
+        level = cm.targets.level_db
+        nb = self.hi - self.lo
+        i1, i2 = " " * 8, " " * 12
+        second = []
+        for k in (k for k in range(d) if cm.has_way[k]):
+            second += [f"y{k} = scratch[{k}, f] - level - tgt[{self.row_tway + k}, f]",
+                       f"x{k} = scratch[{k}, f] - level + {BREAKUP_FLOOR_DB!r}",
+                       f"x{k} = x{k} if x{k} > 0.0 else 0.0",
+                       f"e{k} = x{k} if tgt[{self.row_stop + k}, f] > 0.5 else y{k}",
+                       f"acc_w += e{k} * e{k}"]
+        second += [f"s = scratch[{d}, f] - level - tgt[{self.row_tsys}, f]",
+                   f"u = scratch[{d}, f] - level - {NULL_DB!r}",  # at a null of the target: only output above it
+                   "u = u if u > 0.0 else 0.0",
+                   f"s = s if tgt[{self.row_keep}, f] > 0.5 else u", "acc_s += s * s"]
+        if need["early_reflections"]:
+            second += [f"de = scratch[{rows['e']}, f] - mean_e", "acc_ee += de * de",
+                       f"acc_ex += de * tgt[{self.row_xc}, f]"]
+        if need["sound_power"]:
+            second += [f"dp = scratch[{rows['p']}, f] - mean_p", "acc_pp += dp * dp",
+                       f"acc_px += dp * tgt[{self.row_xc}, f]"]
+        return ([i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
+                 i1 + "acc_w = 0.0", i1 + "acc_s = 0.0", i1 + f"mean_e = acc_e / {nb}.0",
+                 i1 + f"mean_p = acc_sp / {nb}.0", i1 + "acc_ee = 0.0", i1 + "acc_ex = 0.0", i1 + "acc_pp = 0.0",
+                 i1 + "acc_px = 0.0"]
+                + [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in second])
+
+    def _terms(self, d: int, peaks: list[tuple]) -> list[str]:
+        """The impedance's worst point, the stress term (each rated part's excess over its rating in dB,
+        cost.stress_excess_db, squared), the terms, the weighted cost and the outputs of one candidate."""
+        cm, need = self.cm, self.need
+        floor = cm.impedance_floor
+        w = cm.weights
+        nb = self.hi - self.lo
+        pref = self.plan is not None
+        lim = self.limit_code
+        ways = [k for k in range(d) if cm.has_way[k]]
+        i1, i2, i3 = " " * 8, " " * 12, " " * 16
+        src = [i1 + "mz = 0.0"]
         if floor > 0:
             src += [i1 + f"for f in range({self.lo}, {self.hi}):", i2 + f"shv = scratch[{d + 1}, f]",
                     i2 + "if shv > mz:", i3 + "mz = shv"]
-        # the stress term: each rated part's excess over its rating in dB (cost.stress_excess_db), squared
         k2 = cm.drive_scale**2
         for row, m in peaks:
             src += [i1 + f"mq{m} = 0.0", i1 + f"for f in range({self.lo}, {self.hi}):",
@@ -334,6 +372,8 @@ class FusedCost:
                 ratio = f"2.0 * mq{m} * {k2!r} / {rating * rating!r}"
             src += [i1 + f"ex{m} = DB10 * ln_floored(max({ratio}, 1.0))", i1 + f"acc_st += ex{m} * ex{m}"]
         src.append(i1 + (f"t_stress = acc_st / {len(cm.rated)}.0" if cm.rated else "t_stress = 0.0"))
+        phase_expr = " + ".join(f"acc_p{j} / {self.pair_counts[j]}.0" for j in range(len(cm.pairs)))
+        phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
         src += [
             i1 + (f"t_way = acc_w / {nb * len(ways)}.0" if ways else "t_way = 0.0"),
             i1 + f"t_sum = acc_s / {nb}.0",
@@ -354,7 +394,7 @@ class FusedCost:
             i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
             "    return nbad",
         ]
-        return "\n".join(src) + "\n"
+        return src
 
     def _preference_source(self, row_q: int) -> list[str]:
         """Per candidate, after the position sums: Olive's score from the on-axis, listening window, early
