@@ -15,6 +15,8 @@ import xo_fit
 from conftest import flat_curve, ladder_job
 
 STRESS = "[stress]\npower = 50\nrated_impedance = 8\n"
+#: matplotlib's "No artists with labels" (an empty legend box) must never reach the user: an error in every test here.
+pytestmark = pytest.mark.filterwarnings("error:No artists with labels:UserWarning")
 
 
 @pytest.fixture
@@ -121,6 +123,9 @@ def test_variants_keep_their_names_and_targets(write_job, tmp_path):
         x, y = woofer.get_data()
         level = float(np.interp(np.log(fc), np.log(x), y))
         assert level == pytest.approx(float(y[0]) - 6.02, abs=0.05)
+    import matplotlib.pyplot as plt
+
+    plt.close(fig)
 
 
 def test_reference_lines_are_labelled_and_one_where_they_coincide(write_job):
@@ -141,6 +146,9 @@ def test_reference_lines_are_labelled_and_one_where_they_coincide(write_job):
         assert sorted(t.get_text() for t in ax.texts) == sorted(want.values())  # beside the line too
         assert sorted(t.get_text() for t in ax.get_legend().get_texts() if "|Z|" not in t.get_text()) \
             == sorted(want.values())
+        import matplotlib.pyplot as plt
+
+        plt.close(fig)
 
 
 def test_no_curve_hides_another(write_job, tmp_path):
@@ -206,7 +214,6 @@ LW_ANGLES = ('[driver.{d}.angles]\nhorizontal = "{d}-h{{angle}}.txt"\nhorizontal
              'mirror = true\nvertical = "{d}-v{{angle}}.txt"\nvertical_angles = [10, -10]\n')
 
 
-@pytest.mark.filterwarnings("error:No artists with labels:UserWarning")
 def test_no_empty_legend_when_only_the_listening_window_is_measured(write_job, tmp_path):
     """Angles for the listening window only (ANSI/CTA-2034-A: on axis, +-10 deg vertical, +-10..30 deg
     horizontal) give no sound power or early reflections, hence no DI to label: no legend there, and no
