@@ -255,6 +255,9 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, demo_r
     # the spread's part list still says what to buy (it once said "continuous" for every snapped part)
     part_list = page.split("<h2>Part list", 1)[1].split("</table>", 1)[0]
     assert "E12" in part_list and "E24" in part_list and "continuous" not in part_list
+    # what to buy comes first, from the snap (the last one given), and is in bom.csv beside the page
+    assert re.findall(r"<h2>([^<]+)", page)[0] == "What to buy" and "(the last snap given)" in page
+    assert (demo / "report" / "bom.csv").read_text() == (demo / "snap" / "bom.csv").read_text()
     if CHROMIUM is None:
         if os.environ.get("XO_FIT_REQUIRE_CHROMIUM") == "1":
             raise RuntimeError("chromium is required (XO_FIT_REQUIRE_CHROMIUM=1)")
@@ -282,8 +285,8 @@ def test_report_is_self_contained_and_renders_in_a_real_browser(tmp_path, demo_r
                           (demo / "report" / "report.html").as_uri()],
                          capture_output=True, text=True, timeout=120).stdout
     heads = re.findall(r"<h2>([^<(]+)", dom)
-    for want in ("Metrics", "Where the error lies", "Values", "Targets", "Curves", "Part list", "Network", "Findings",
-                 "Cautions"):
+    for want in ("What to buy", "Metrics", "Where the error lies", "Tolerance", "Values", "Targets", "Curves",
+                 "Part list", "Network", "Findings", "Cautions"):
         assert any(h.strip() == want for h in heads), (want, heads)
 
 

@@ -297,11 +297,27 @@ def baffle(job):
     return baffle_responses(job)
 
 
-def write_report(items: list, out: str | Path, command: list[str] | None = None) -> Path:
-    """report.html (self-contained) and its PNGs for designs and spreads (or result.json paths), overlaid."""
+def write_report(items: list, out: str | Path, command: list[str] | None = None, *, buy=None,
+                 speakers: int | None = None) -> Path:
+    """report.html (self-contained), its PNGs and bom.csv for designs and spreads (or result.json paths), overlaid.
+
+    ``buy`` names the result whose parts are listed to buy and written to bom.csv: one of ``items``, a result
+    path (one of theirs, or another result, then added to the report) or a Design/Spread; default the last snap
+    among ``items``, else none (continuous values are never listed to buy unasked). ``speakers``: the
+    quantities of bom.csv (default 2, a stereo pair)."""
     from xo_fit.output.report import write_report as _write
 
     loaded = [load_result(x) if isinstance(x, (str, Path)) else x for x in items]
     if not loaded:
         raise XoFitError("nothing to report: give at least one design or result")
-    return _write(loaded, Path(out), command)
+    if isinstance(buy, (str, Path)):
+        where = [_result_file(x) if isinstance(x, (str, Path)) else None for x in items]
+        wanted = _result_file(buy)
+        buy = loaded[len(where) - 1 - where[::-1].index(wanted)] if wanted in where else load_result(buy)
+    return _write(loaded, Path(out), command, buy=buy, speakers=speakers)
+
+
+def _result_file(path: str | Path) -> Path:
+    """A result path (the file or its folder) as its result.json, resolved: two spellings of one result match."""
+    p = Path(path)
+    return (p / "result.json" if p.is_dir() else p).resolve()

@@ -88,14 +88,25 @@ def report_failures(failures: list[tuple[str, str, str]]) -> None:
 
 @app.command()
 def report(results: list[Path] = typer.Argument(..., help="result.json files (or their folders); overlaid."),
-           out: Path = typer.Option(..., "--out", "-o", help="Folder for report.html and its PNGs.")) -> None:
-    """A self-contained HTML page: curves against the targets, phase, group delay, impedance, metrics, part list with
-    stresses, cautions."""
+           out: Path = typer.Option(..., "--out", "-o", help="Folder for report.html, its PNGs and bom.csv."),
+           buy: Optional[Path] = typer.Option(None, "--buy", help="The result whose parts to buy (bom.csv; default: "
+                                                                  "the last snap given)."),
+           speakers: int = typer.Option(2, "--speakers", min=1, max=10000,
+                                        help="Speakers to buy parts for: the quantities of bom.csv."),
+           ) -> None:
+    """A self-contained HTML page: what to buy, curves against each result's targets, phase, group delay,
+    impedance, metrics, the tolerance summary, part list with stresses, cautions; bom.csv of the parts to buy."""
     from xo_fit.api import write_report
 
     t0 = time.perf_counter()
-    page = write_report(list(results), out, ["xo-fit", *sys.argv[1:]])
+    page = write_report(list(results), out, ["xo-fit", *sys.argv[1:]], buy=buy, speakers=speakers)
     say(f"report of {len(results)} result(s) in {time.perf_counter() - t0:.2f} s: {page}")
+    bom = Path(out) / "bom.csv"
+    if bom.is_file():
+        say(f"parts to buy for {speakers} speaker{'s' if speakers != 1 else ''}: {bom}")
+    else:
+        say("  no parts listed to buy: no result given is snapped (continuous values are not buyable as they are); "
+             "`xo-fit snap` a design and report it, or name the result to buy from with --buy")
 
 
 @app.command()

@@ -128,4 +128,10 @@ def draw(job, values: dict[str, float]) -> bytes | None:
         d.add(elm.Speaker().at((x + 0.6, y)).right().label(f"{drv.name}\n{'(inverted)' if inverted else ''}",
                                                             "right"))
         y -= 2.5 * depth + 3.5
-    return d.get_imagedata("png")
+    data = d.get_imagedata("png")
+    figure = getattr(getattr(d, "fig", None), "fig", None)  # schemdraw's matplotlib figure, kept by pyplot
+    if figure is not None:
+        import matplotlib.pyplot as plt
+
+        plt.close(figure)  # else every report leaves one open (matplotlib warns after 20)
+    return data
