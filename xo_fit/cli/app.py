@@ -40,7 +40,10 @@ def main(argv: list[str] | None = None) -> int:
         app(args=argv, prog_name="xo-fit")
     except XoFitError as e:
         typer.echo(f"xo-fit: error: {e}", err=True)
-        return 2
+        return e.exit_code
+    except KeyboardInterrupt:  # Ctrl-C or SIGTERM outside a search (which keeps its best design itself)
+        typer.echo("xo-fit: interrupted", err=True)
+        return 130
     except SystemExit as e:  # typer's own exits: --help (0), usage errors (2)
         if e.code is None:
             return 0

@@ -22,6 +22,7 @@ from xo_fit.cli.console import (
     say,
 )
 from xo_fit.errors import XoFitError
+from xo_fit.io.results import check_folder
 from xo_fit.job.model import DEFAULTS
 
 
@@ -34,6 +35,7 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
     from xo_fit import api
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system, values = load_design(job, from_)
     j = system.job
@@ -65,6 +67,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     """Search the free part values that best meet the job's acoustic target, then polish locally."""
     from xo_fit.batch.tasks import fit_stage
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system = load_checked(job)
     j = system.job
@@ -118,17 +121,20 @@ def series_option(text: str | None) -> dict | None:
         return None
     from xo_fit.series import check_name
 
-    if "=" not in text:
-        name = check_name(text)
-        return {"R": name, "L": name, "C": name}
-    out = {}
-    for item in text.split(","):
-        kind, _, name = item.partition("=")
-        kind = kind.strip().upper()
-        if kind not in ("R", "L", "C") or not name.strip():
-            raise XoFitError(f"--series: expected a series name or KIND=NAME pairs such as L=E12,C=E24, got '{text}'")
-        out[kind] = check_name(name.strip())
-    return out
+    try:
+        if "=" not in text:
+            name = check_name(text)
+            return {"R": name, "L": name, "C": name}
+        out = {}
+        for item in text.split(","):
+            kind, _, name = item.partition("=")
+            kind = kind.strip().upper()
+            if kind not in ("R", "L", "C") or not name.strip():
+                raise XoFitError(f"expected a series name or KIND=NAME pairs such as L=E12,C=E24, got {text!r}")
+            out[kind] = check_name(name.strip())
+        return out
+    except XoFitError as e:
+        raise XoFitError(e.message, key="--series") from None
 
 
 @app.command()
@@ -151,12 +157,21 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     from xo_fit.io.inventory import read_inventory
     from xo_fit.units import format_value
 
+    check_folder(out, "--out")
+    overrides = series_option(series)
+    if top_up is not None:
+        from xo_fit.series import check_name
+
+        try:
+            top_up = check_name(top_up)
+        except XoFitError as e:
+            raise XoFitError(e.message, key="--top-up") from None
     t0 = time.perf_counter()
     system, continuous = load_design(job, from_)
     j = system.job
     inv_path = inventory if inventory is not None else j.snap.inventory
     inv = read_inventory(inv_path) if inv_path is not None else None
-    st = snap_stage(system, out, continuous, series_override=series_option(series), inventory=inv, combine=combine,
+    st = snap_stage(system, out, continuous, series_override=overrides, inventory=inv, combine=combine,
                     plots=not no_plots, source_from=str(from_) if from_ else None, top_up=top_up)
     outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
     sr = outcome.search
@@ -192,6 +207,7 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
     from xo_fit.batch.tasks import spread_stage
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system, nominal = load_design(job, from_)
     j = system.job
@@ -246,6 +262,7 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     smallest design within --max-increase of the start."""
     from xo_fit import api
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system, values = load_design(job, from_)
     j = system.job

@@ -12,6 +12,7 @@ import typer
 from xo_fit.cli.base import app
 from xo_fit.cli.console import OUT, print_summary, say
 from xo_fit.errors import XoFitError
+from xo_fit.io.results import check_folder, check_target
 
 
 @app.command()
@@ -68,6 +69,7 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
     stresses, cautions."""
     from xo_fit.api import write_report
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     page = write_report(list(results), out, ["xo-fit", *sys.argv[1:]])
     say(f"report of {len(results)} result(s) in {time.perf_counter() - t0:.2f} s: {page}")
@@ -80,6 +82,7 @@ def export(result: Path = typer.Argument(..., help="A result.json (or its folder
     from xo_fit.output.design import load_result
     from xo_fit.output.spice import export as write_spice
 
+    check_target(spice, "--spice")
     d = load_result(result)
     d = getattr(d, "design", d)
     system = d.system

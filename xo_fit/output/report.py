@@ -298,8 +298,9 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
     _check_alike(entries)
     job = entries[0][1].system.job
     figs = _figures(entries)
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    from xo_fit.io.results import make_folder
+
+    out = make_folder(out)
     for name, data in figs.items():
         with atomic_path(out / f"{name}.png", suffix=".png") as tmp:
             tmp.write_bytes(data)
@@ -349,9 +350,13 @@ def write_report(items: list, out: Path, command: list[str] | None = None) -> Pa
     pruned = [d for _, d, _ in entries if "prune" in d.sections]
     if pruned:
         sec = pruned[0].sections["prune"]
-        rows_html = "".join(
-            f"<tr><td>{r['step']}</td><td>{r['parts']}</td><td>{esc(r['removed'])}</td><td>{esc(r['how'])}</td>"
-            f"<td>{r['cost']:.4g}</td><td>{r['rms_error_db']:.2f}</td><td>{r['max_error_db']:.2f}</td>"
+        def num(x, fmt: str) -> str:  # a step's figure, or "-" where the result holds none
+            return format(x, fmt) if isinstance(x, (int, float)) and not isinstance(x, bool) else "-"
+
+        rows_html = "".join(  # every cell escaped: the steps come from a result file, which may be edited
+            f"<tr><td>{esc(r['step'])}</td><td>{esc(r['parts'])}</td><td>{esc(r['removed'])}</td><td>{esc(r['how'])}"
+            f"</td><td>{num(r['cost'], '.4g')}</td><td>{num(r['rms_error_db'], '.2f')}</td>"
+            f"<td>{num(r['max_error_db'], '.2f')}</td>"
             f"<td>{'chosen' if r['step'] == sec['chosen_step'] else ''}</td></tr>" for r in sec["steps"])
         prune_table = (f"<h2>Pruning</h2><p>Each step removes the part whose removal costs least (the rest refitted); "
                        f"the chosen design has the fewest parts within {sec['max_increase'] * 100:g} % of step 0's "

@@ -298,15 +298,20 @@ DEFAULT_ENGINE = "de"
 
 
 def engine(name: str) -> Callable:
-    """The engine for an optimizer name (``auto``, ``de``, ``scipy-de`` or ``ng-NAME``)."""
+    """The engine for an optimizer name (``auto``, ``de``, ``scipy-de`` or ``ng-NAME``); a name that is none of
+    them (a job's was checked when it was read, so it came from --optimizer) is an XoFitError naming the option."""
+    from xo_fit.job.tables import optimizer_problem
+
+    problem = None if name in ENGINES else optimizer_problem(name)
+    if problem:
+        raise XoFitError(problem, key="--optimizer")
     if name == "auto":
         name = DEFAULT_ENGINE
     if name in ENGINES:
         return ENGINES[name]
     if name.startswith("ng-"):
         return _nevergrad(name[3:])
-    raise XoFitError(f"unknown optimizer '{name}'; expected auto, {', '.join(ENGINES)} or ng-NAME "
-                     "(a nevergrad optimizer such as ng-TwoPointsDE or ng-CMA)", key="optimizer")
+    raise XoFitError(f"unknown optimizer {name!r}", key="--optimizer")
 
 
 def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
