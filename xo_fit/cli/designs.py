@@ -23,6 +23,7 @@ from xo_fit.cli.console import (
 )
 from xo_fit.errors import XoFitError
 from xo_fit.io.results import check_folder
+from xo_fit.search.interrupt import sigterm_interrupts
 from xo_fit.job.model import DEFAULTS
 
 
@@ -73,8 +74,9 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     j = system.job
     progress = Progress(f"fit {j.name}") if workers == 1 else None
     try:
-        st = fit_stage(system, out, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
-                       workers=workers, plots=not no_plots, progress=progress)
+        with sigterm_interrupts():
+            st = fit_stage(system, out, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
+                           workers=workers, plots=not no_plots, progress=progress)
     finally:
         if progress is not None:
             progress.close()
@@ -109,6 +111,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     print_cautions(system, outcome.scored)
     say("wrote " + ", ".join(str(p) for p in files))
     if not r.complete and r.stopped_by == "interrupted":
+        typer.echo(f"xo-fit: interrupted; the best design so far is in {out / 'result.json'}", err=True)
         raise typer.Exit(130)
     if not r.complete and r.stopped_by and r.stopped_by.startswith("optimizer failed"):
         typer.echo(f"xo-fit: {r.stopped_by}; the best design so far is in {out / 'result.json'}", err=True)
@@ -271,9 +274,10 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
         say(f"  step {step}: without {name} ({how}), cost {cost:.4g}")
 
     say(f"prune {j.name}: {len(j.valued_parts)} parts, refits of {budget or 600} evaluations")
-    pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
-                   max_increase=max_increase / 100, workers=workers, progress=progress)
-    files = pr.save(out, plots=not no_plots)
+    with sigterm_interrupts():
+        pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
+                       max_increase=max_increase / 100, workers=workers, progress=progress)
+        files = pr.save(out, plots=not no_plots)
     if len(pr.steps) == 1:
         say("  nothing to remove: every removal leaves no legal netlist, or every part has keep = true")
     say(f"  {'step':>4} {'parts':>5} {'removed':<10} {'how':<6} {'cost':>10} {'rms dB':>7} {'worst dB':>8}")
@@ -286,3 +290,7 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     print_findings(pr.design)
     print_cautions(pr.design.system, pr.design.scored)
     say("wrote " + ", ".join(str(p) for p in files))
+    if pr.interrupted:
+        typer.echo(f"xo-fit: interrupted after step {len(pr.steps) - 1}; the best design so far is in "
+                   f"{out / 'result.json'}", err=True)
+        raise typer.Exit(130)

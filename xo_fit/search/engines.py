@@ -41,6 +41,7 @@ from typing import Callable
 import numpy as np
 
 from xo_fit.errors import XoFitError
+from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.lbfgsb import minimize_box
 
 #: The population has converged when its costs agree to this relative spread (and its points to 1e-6).
@@ -141,6 +142,9 @@ class Objective:
         if self.deadline is not None and self.evaluations and time.monotonic() > self.deadline:
             self.stopped_by = "time limit"
             raise _Stop
+        if self.evaluations and stop_requested():  # a worker process asked to stop (Ctrl-C, SIGTERM, its parent)
+            self.stopped_by = "interrupted"
+            raise KeyboardInterrupt
         take = min(u.shape[0], self.budget - self.evaluations)
         cost = np.full(u.shape[0], np.inf)
         cost[:take] = np.asarray(self.fn(u[:take]), dtype=float)

@@ -45,13 +45,23 @@ def refit(system, budget: int, seed: int):
         return cm.evaluate_simulation(system.simulate(v, dense=True), v).cost
 
     r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True)
-    return score(system, space.values(r.u)[0], model), r.evaluations
+    scored = score(system, space.values(r.u)[0], model)
+    if r.stopped_by == "interrupted":
+        raise Interrupted(scored, r.evaluations)
+    return scored, r.evaluations
+
+
+class Interrupted(KeyboardInterrupt):
+    """A refit stopped by Ctrl-C or SIGTERM: ``args`` = (its best design so far as Scored, evaluations)."""
 
 
 def _trial(args):
     """One trial removal, refitted (in a worker process or here): (name, how, Scored, system, evaluations)."""
     name, how, system, budget, seed = args
-    scored, n = refit(system, budget, seed)
+    try:
+        scored, n = refit(system, budget, seed)
+    except Interrupted:
+        raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
     return name, how, scored, system, n
 
 
@@ -68,6 +78,7 @@ class PruneRun:
     section: dict
     trials: list[dict] = field(default_factory=list)
     evaluations: int = 0
+    interrupted: bool = False
 
 
 def _row(step: int, system, scored, removed: str, how: str) -> dict:
@@ -89,13 +100,39 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     values = dict(zip(system.part_names, np.asarray(start, dtype=float)))
     doc = removal_document(system.job, None, "none", values)
     current = derive_system(system, load_job(doc, base=system.job.folder))
-    scored, evaluations = refit(current, budget, seed)
+    interrupted = False
+    try:
+        scored, evaluations = refit(current, budget, seed)
+    except Interrupted as e:  # step 0 stopped early: its best so far is the only step
+        (scored, evaluations), interrupted = e.args, True
     steps, states, trials = [_row(0, current, scored, "", "")], [(current, scored)], []
-    pool = None
-    if workers > 1:
-        from concurrent.futures import ProcessPoolExecutor
+    spent = [evaluations]
+    if not interrupted:
+        try:
+            _eliminate(steps, states, trials, spent, budget, seed, workers, progress)
+        except KeyboardInterrupt:  # Ctrl-C or SIGTERM: the steps taken so far are kept, the step under way is not
+            interrupted = True
+    evaluations = spent[0]
+    limit = steps[0]["cost"] * (1 + max_increase) if steps[0]["cost"] is not None else math.inf
+    within = [i for i, r in enumerate(steps) if r["cost"] is not None and r["cost"] <= limit]
+    chosen = min(within, key=lambda i: (steps[i]["parts"], steps[i]["cost"])) if within else 0
+    section = {"steps": steps, "chosen_step": chosen, "max_increase": max_increase, "refit_budget": budget,
+               "seed": seed, "evaluations": evaluations, "trials": trials}
+    if interrupted:
+        section["interrupted"] = True
+    return PruneRun(steps=steps, states=states, chosen=chosen, max_increase=max_increase, section=section,
+                    trials=trials, evaluations=evaluations, interrupted=interrupted)
 
-        pool = ProcessPoolExecutor(max_workers=workers)
+
+def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int, seed: int, workers: int,
+               progress) -> None:
+    """The elimination steps after step 0, appended to ``steps``, ``states`` and ``trials``; the evaluations of
+    each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1."""
+    pool = stop = None
+    if workers > 1:
+        from xo_fit.search.interrupt import stopping_pool
+
+        pool, stop = stopping_pool(workers)
     try:
         while True:
             last_system, last_scored = states[-1]
@@ -105,7 +142,7 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
             args = [(name, how, s, budget, seed) for name, how, s in options]
             results = list(pool.map(_trial, args)) if pool else [_trial(a) for a in args]
             for name, how, sc, _, n in results:
-                evaluations += n
+                spent[0] += n
                 trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
             feasible = [r for r in results if r[2].cost is not None and math.isfinite(r[2].cost)]
             if not feasible:
@@ -115,13 +152,10 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
             states.append((s, sc))
             if progress:
                 progress(len(steps) - 1, name, how, sc.cost)
+    except KeyboardInterrupt:
+        if stop is not None:
+            stop.set()  # the workers' refits stop at their next batch
+        raise
     finally:
         if pool:
-            pool.shutdown()
-    limit = steps[0]["cost"] * (1 + max_increase) if steps[0]["cost"] is not None else math.inf
-    within = [i for i, r in enumerate(steps) if r["cost"] is not None and r["cost"] <= limit]
-    chosen = min(within, key=lambda i: (steps[i]["parts"], steps[i]["cost"])) if within else 0
-    section = {"steps": steps, "chosen_step": chosen, "max_increase": max_increase, "refit_budget": budget,
-               "seed": seed, "evaluations": evaluations, "trials": trials}
-    return PruneRun(steps=steps, states=states, chosen=chosen, max_increase=max_increase, section=section,
-                    trials=trials, evaluations=evaluations)
+            pool.shutdown(wait=True, cancel_futures=True)
