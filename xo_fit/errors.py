@@ -10,6 +10,7 @@ other exception is a bug and keeps its traceback.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 
@@ -54,8 +55,17 @@ class XoFitError(Exception):
                 where += f":{self.line}"
             where += ": "
         key = f"{self.key}: " if self.key else ""
-        # one line, always
-        return (where + key + self.message).replace("\n", " ")
+        # one line, always, and no control character (an escape sequence in a name) reaches the terminal
+        return printable((where + key + self.message).replace("\n", " "))
+
+
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def printable(text: str) -> str:
+    """``text`` for a terminal: control characters other than line breaks and tabs (an ESC sequence, a carriage
+    return, a NUL) written as escapes such as ``\\x1b``, so that user text cannot move the cursor or recolour it."""
+    return _CONTROL.sub(lambda m: repr(m[0])[1:-1], str(text))
 
 
 class JobError(XoFitError):

@@ -13,6 +13,7 @@ import typer
 
 from xo_fit.cli import designs, files, prepare, showcase  # noqa: F401  (they register their commands on the app)
 from xo_fit.cli.base import app
+from xo_fit.cli.console import OUT
 from xo_fit.errors import XoFitError
 
 
@@ -35,17 +36,21 @@ def run() -> None:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the command line; return the exit code (0 done, 1 failure, 2 bad input)."""
+    """Run the command line; return the exit code (0 done, 1 failure, 2 bad input, 130 interrupted)."""
+    OUT.noted = False
     try:
         app(args=argv, prog_name="xo-fit")
+        return 0
     except XoFitError as e:
         typer.echo(f"xo-fit: error: {e}", err=True)
         return e.exit_code
     except KeyboardInterrupt:  # Ctrl-C or SIGTERM outside a search (which keeps its best design itself)
-        typer.echo("xo-fit: interrupted", err=True)
-        return 130
-    except SystemExit as e:  # typer's own exits: --help (0), usage errors (2)
+        pass
+    except SystemExit as e:  # typer's own exits: --help (0), usage errors (2); 130: it caught a KeyboardInterrupt
         if e.code is None:
             return 0
-        return e.code if isinstance(e.code, int) else 1
-    return 0
+        if e.code != 130:
+            return e.code if isinstance(e.code, int) else 1
+    if not OUT.noted:  # fit and prune have said where the best design so far is; otherwise say this much
+        typer.echo("xo-fit: interrupted", err=True)
+    return 130

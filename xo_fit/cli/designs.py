@@ -54,7 +54,7 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-        budget: Optional[int] = typer.Option(None, "--budget", min=1, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
+        budget: Optional[int] = typer.Option(None, "--budget", min=1, max=10**9, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
         seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
         optimizer: Optional[str] = typer.Option(None, "--optimizer",
                                                 help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
@@ -112,6 +112,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     say("wrote " + ", ".join(str(p) for p in files))
     if not r.complete and r.stopped_by == "interrupted":
         typer.echo(f"xo-fit: interrupted; the best design so far is in {out / 'result.json'}", err=True)
+        OUT.noted = True
         raise typer.Exit(130)
     if not r.complete and r.stopped_by and r.stopped_by.startswith("optimizer failed"):
         typer.echo(f"xo-fit: {r.stopped_by}; the best design so far is in {out / 'result.json'}", err=True)
@@ -203,7 +204,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, spread.csv and plots."),
            from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
-           samples: Optional[int] = typer.Option(None, "--samples", min=1, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
+           samples: Optional[int] = typer.Option(None, "--samples", min=1, max=10**8, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
            seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[spread] seed, else {DEFAULTS['spread']['seed']})."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
@@ -253,7 +254,7 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
 def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
           from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
-          budget: Optional[int] = typer.Option(None, "--budget", min=1,
+          budget: Optional[int] = typer.Option(None, "--budget", min=1, max=10**9,
                                                help="Cost evaluations per refit (default 600)."),
           seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
           max_increase: float = typer.Option(10.0, "--max-increase", min=0.0,
@@ -293,4 +294,5 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     if pr.interrupted:
         typer.echo(f"xo-fit: interrupted after step {len(pr.steps) - 1}; the best design so far is in "
                    f"{out / 'result.json'}", err=True)
+        OUT.noted = True
         raise typer.Exit(130)

@@ -41,7 +41,7 @@ def check_target(path: str | Path, option: str | None = None) -> None:
     key = option
     try:
         mode = os.lstat(path).st_mode
-    except FileNotFoundError:
+    except (FileNotFoundError, NotADirectoryError):  # nothing there, or a file above it (said below)
         mode = None
     except (OSError, ValueError) as e:
         raise WriteError(f"cannot write it: {getattr(e, 'strerror', None) or e}", path=_shown(path), key=key) from None
