@@ -677,3 +677,39 @@ def test_any_edit_of_a_result_gives_exit_0_or_one_line(results, tmp_path_factory
             assert str(tmp / "r") in _one_line(err.getvalue())
         elif args[0] == "report":
             assert "<script" not in (tmp / "report" / "report.html").read_text()
+
+
+def test_sigterm_while_a_result_is_written_leaves_no_temporary_file(tmp_path, write_job):
+    """SIGTERM killed every command outright: one that came while a file was being written left its temporary
+    file (`.result.json.XXXX`) behind. Now it is taken as Ctrl-C: the temporary file goes, one line, exit 130."""
+    text, _ = ladder_job("LR2")
+    job = write_job(text)
+    out = tmp_path / "o"
+    script = textwrap.dedent(f'''
+        import os, pathlib, signal, sys
+        original = pathlib.Path.write_text
+
+        def write_text(self, data, *a, **k):
+            original(self, data[: len(data) // 2], *a, **k)
+            os.kill(os.getpid(), signal.SIGTERM)
+            return original(self, data, *a, **k)
+
+        pathlib.Path.write_text = write_text
+        from xo_fit.cli.app import run
+        sys.argv = ["xo-fit", "simulate", {str(job)!r}, "--out", {str(out)!r}, "--no-plots"]
+        run()
+    ''')
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=120, env=env)
+    assert proc.returncode == 130 and _one_line(proc.stderr) == "xo-fit: interrupted", proc.stderr
+    assert list(out.iterdir()) == []
+
+
+@pytest.mark.slow
+def test_the_fuzz_harness_finds_no_traceback_and_no_hang():
+    """A short run of tests/fuzz_harness.py (XO_FIT_FUZZ_RUNS runs, 80 by default; the script runs thousands):
+    every command ends in exit 0, 1, 2 or 130, none in a traceback or a hang."""
+    import fuzz_harness
+
+    stats = fuzz_harness.fuzz(int(os.environ.get("XO_FIT_FUZZ_RUNS", "80")), seed=11, quiet=True)
+    assert not stats["tracebacks"] and not stats["hangs"], fuzz_harness.report(stats)

@@ -37,9 +37,12 @@ def run() -> None:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; return the exit code (0 done, 1 failure, 2 bad input, 130 interrupted)."""
+    from xo_fit.search.interrupt import sigterm_interrupts
+
     OUT.noted = False
     try:
-        app(args=argv, prog_name="xo-fit")
+        with sigterm_interrupts():  # SIGTERM as Ctrl-C: searches keep their best, temporary files are removed
+            app(args=argv, prog_name="xo-fit")
         return 0
     except XoFitError as e:
         typer.echo(f"xo-fit: error: {e}", err=True)

@@ -23,7 +23,6 @@ from xo_fit.cli.console import (
 )
 from xo_fit.errors import XoFitError
 from xo_fit.io.results import check_folder
-from xo_fit.search.interrupt import sigterm_interrupts
 from xo_fit.job.model import DEFAULTS
 
 
@@ -74,9 +73,8 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     j = system.job
     progress = Progress(f"fit {j.name}") if workers == 1 else None
     try:
-        with sigterm_interrupts():
-            st = fit_stage(system, out, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
-                           workers=workers, plots=not no_plots, progress=progress)
+        st = fit_stage(system, out, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit,
+                       workers=workers, plots=not no_plots, progress=progress)
     finally:
         if progress is not None:
             progress.close()
@@ -275,10 +273,9 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
         say(f"  step {step}: without {name} ({how}), cost {cost:.4g}")
 
     say(f"prune {j.name}: {len(j.valued_parts)} parts, refits of {budget or 600} evaluations")
-    with sigterm_interrupts():
-        pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
-                       max_increase=max_increase / 100, workers=workers, progress=progress)
-        files = pr.save(out, plots=not no_plots)
+    pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
+                   max_increase=max_increase / 100, workers=workers, progress=progress)
+    files = pr.save(out, plots=not no_plots)
     if len(pr.steps) == 1:
         say("  nothing to remove: every removal leaves no legal netlist, or every part has keep = true")
     say(f"  {'step':>4} {'parts':>5} {'removed':<10} {'how':<6} {'cost':>10} {'rms dB':>7} {'worst dB':>8}")

@@ -70,7 +70,7 @@ def _prune(c: _Check, pr: dict) -> None:
         c.want(r.get("how") in (("",) if i == 0 else ("open", "short")), f"{key}.how",
                '"" (step 0)' if i == 0 else '"open" or "short"')
         for k in ("cost", "rms_error_db", "max_error_db", "phase_mismatch_deg", "impedance_min_ohm"):
-            c.want(r.get(k) is None or _num(r[k]), f"{key}.{k}", "a number or null")
+            c.want(k in r and (r[k] is None or _num(r[k])), f"{key}.{k}", "a number or null")
     chosen = pr.get("chosen_step")
     c.want(isinstance(chosen, int) and not isinstance(chosen, bool) and 0 <= chosen < len(steps), "prune.chosen_step",
            f"a step number from 0 to {len(steps) - 1}")
