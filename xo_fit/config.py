@@ -33,8 +33,11 @@ POLISH_GTOL = 1e-8
 
 # ----------------------------------------------------------------------------- batches of designs
 
-#: Designs solved per batch by the snap's search and the tolerance spread (memory: B x F x parts).
+#: Designs solved per batch by the snap's search and the tolerance spread (memory: B x F x parts), at most ...
 CHUNK = 2048
+#: ... and at most this many complex values per batch of the spread (2^25: 512 MiB an array), counting per
+#: design every curve, driver and (off axis) position at every grid point: a large grid solves fewer at a time.
+CHUNK_VALUES = 2**25
 
 # ----------------------------------------------------------------------------- snap (xo_fit.stages.snapping)
 
@@ -55,9 +58,14 @@ FAR_COST = 0.5
 
 # ----------------------------------------------------------------------------- spread (xo_fit.stages.tolerance)
 
-#: Histogram of level deviations from nominal: bin width and range (dB).
+#: Histogram of level deviations from nominal: bin width and range (dB) ...
 HIST_STEP_DB = 0.01
 HIST_RANGE_DB = 30.0
+#: ... and its largest size (bytes, int32 counts): on a grid whose curves x points x 6,001 bins would exceed it,
+#: the bins widen to fit (at 100,000 points and three curves: 223 bins of 0.27 dB; percentiles exact to half a bin).
+HIST_BYTES = 256 * 2**20
+#: The tolerance draws (samples x parts, 8 bytes each) are made up front: at most this many bytes of them.
+DRAWS_BYTES = 2 * 2**30
 #: Up to this many toleranced parts, every corner is evaluated.
 CORNERS_MAX = 12
 #: Relative step of the sensitivity's central difference (1 %).

@@ -11,6 +11,7 @@ other exception is a bug and keeps its traceback.
 from __future__ import annotations
 
 from contextlib import contextmanager
+import re
 from pathlib import Path
 from typing import Iterator, Mapping
 
@@ -30,6 +31,9 @@ class XoFitError(Exception):
         The key, table or part the error is about (``"[grid] points"``,
         ``"part L1"``), if any.
     """
+
+    #: The command line's exit status for this error (2: bad input).
+    exit_code = 2
 
     def __init__(
         self,
@@ -53,8 +57,17 @@ class XoFitError(Exception):
                 where += f":{self.line}"
             where += ": "
         key = f"{self.key}: " if self.key else ""
-        # one line, always
-        return (where + key + self.message).replace("\n", " ")
+        # one line, always, and no control character (an escape sequence in a name) reaches the terminal
+        return printable((where + key + self.message).replace("\n", " "))
+
+
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def printable(text: str) -> str:
+    """``text`` for a terminal: control characters other than line breaks and tabs (an ESC sequence, a carriage
+    return, a NUL) written as escapes such as ``\\x1b``, so that user text cannot move the cursor or recolour it."""
+    return _CONTROL.sub(lambda m: repr(m[0])[1:-1], str(text))
 
 
 class JobError(XoFitError):
@@ -63,6 +76,12 @@ class JobError(XoFitError):
 
 class DataError(XoFitError):
     """A measurement, curve, inventory or result file is malformed."""
+
+
+class WriteError(XoFitError):
+    """An output could not be written (a full disk, no permission, a folder where a file should go): exit 1."""
+
+    exit_code = 1
 
 
 class NetworkError(XoFitError):
@@ -90,6 +109,12 @@ def supplied_files(files: Mapping[str, bytes] | None) -> Iterator[None]:
             _SUPPLIED.pop(key, None)
 
 
+def shown_path(path: str | Path) -> str:
+    """A path as a message shows it: control characters (a line break, an escape sequence) as escapes."""
+    text = str(path)
+    return text if text.isprintable() else repr(text)[1:-1]
+
+
 def read_user_bytes(path: str | Path, what: str, error: type = DataError) -> bytes:
     """The bytes of a regular file the user named, at most MAX_USER_FILE of them.
 
@@ -103,19 +128,25 @@ def read_user_bytes(path: str | Path, what: str, error: type = DataError) -> byt
     if _SUPPLIED and str(path) in _SUPPLIED:
         return _SUPPLIED[str(path)]
     try:
-        with open(path, "rb") as fh:
-            mode = os.fstat(fh.fileno()).st_mode
-            if not stat.S_ISREG(mode):
-                raise error(f"the {what} is not a regular file", path=path)
+        # the kind of file is checked before it is opened: opening a FIFO blocks until a writer comes
+        mode = os.stat(path).st_mode
+        if stat.S_ISDIR(mode):
+            raise IsADirectoryError
+        if not stat.S_ISREG(mode):
+            raise error(f"the {what} is not a regular file (a pipe, device or socket)", path=shown_path(path))
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOCTTY", 0))
+        with open(fd, "rb") as fh:
+            if not stat.S_ISREG(os.fstat(fh.fileno()).st_mode):  # swapped between the two looks
+                raise error(f"the {what} is not a regular file (a pipe, device or socket)", path=shown_path(path))
             raw = fh.read(MAX_USER_FILE + 1)
     except FileNotFoundError:
-        raise error(f"{what} not found", path=path) from None
+        raise error(f"{what} not found", path=shown_path(path)) from None
     except IsADirectoryError:
-        raise error(f"the {what} is a folder, not a file", path=path) from None
+        raise error(f"the {what} is a folder, not a file", path=shown_path(path)) from None
     except (OSError, ValueError) as e:  # ValueError: a NUL in the path
-        raise error(f"cannot read the {what}: {getattr(e, 'strerror', None) or e}", path=repr(str(path))[1:-1]) from None
+        raise error(f"cannot read the {what}: {getattr(e, 'strerror', None) or e}", path=shown_path(path)) from None
     if len(raw) > MAX_USER_FILE:
-        raise error(f"the {what} is larger than {MAX_USER_FILE // 2**20} MiB", path=path)
+        raise error(f"the {what} is larger than {MAX_USER_FILE // 2**20} MiB", path=shown_path(path))
     return raw
 
 
@@ -126,4 +157,4 @@ def read_user_text(path: str | Path, what: str, error: type = DataError, encodin
         return raw.decode(encoding)
     except UnicodeDecodeError as e:
         raise error(f"cannot read the {what}: not {encoding.split('-sig')[0].upper()} text ({e.reason} at byte "
-                    f"{e.start})", path=path) from None
+                    f"{e.start})", path=shown_path(path)) from None

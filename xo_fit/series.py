@@ -54,7 +54,7 @@ def check_name(name: str) -> str:
         return "none"
     up = name.upper()
     if up not in SERIES:
-        raise XoFitError(f"unknown series '{name}'; expected one of {', '.join(SERIES)} or none")
+        raise XoFitError(f"unknown series {name!r}; expected one of {', '.join(SERIES)} or none")
     return up
 
 

@@ -205,24 +205,30 @@ def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: 
     return result
 
 
-def parse_percent(value: object) -> float:
+def parse_percent(value: object, below: float | None = None) -> float:
     """Read ``"5%"`` (or a plain fraction such as 0.05) as a fraction: 0.05.
 
-    A bare number above 1 is refused as ambiguous; write ``"5%"``.
+    A bare number above 1 is refused as ambiguous; write ``"5%"``. ``below``: a fraction the value must stay
+    under (1.0 for a tolerance: a part 100 % low would have no value at all).
     """
     if isinstance(value, bool):
         raise UnitsError(f"expected a percentage such as \"5%\", got {value!r}")
     if isinstance(value, (int, float)):
         if not 0 <= value <= 1:
             raise UnitsError(f"{value!r}: write a percentage as a string such as \"5%\", or a fraction 0..1")
-        return float(value)
-    if isinstance(value, str):
+        out = float(value)
+    elif isinstance(value, str):
         text = value.strip()
         m = re.fullmatch(r"([+]?(\d+\.?\d*|\.\d+))\s*%", text)
-        if m:
-            return float(m[1]) / 100.0
-        raise UnitsError(f"cannot read '{text}' as a percentage; expected a form such as \"5%\"")
-    raise UnitsError(f"expected a percentage such as \"5%\", got {value!r}")
+        if not m:
+            raise UnitsError(f"cannot read '{text[:60]}' as a percentage; expected a form such as \"5%\"")
+        out = float(m[1]) / 100.0
+    else:
+        raise UnitsError(f"expected a percentage such as \"5%\", got {value!r}"[:200])
+    if below is not None and not out < below:
+        raise UnitsError(f"{out * 100:g} % is too much: a tolerance must stay below {below * 100:g} % "
+                         "(a part that far off would have no value)")
+    return out
 
 
 def format_value(value: float, unit: str, prec: int = 3) -> str:

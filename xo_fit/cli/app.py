@@ -13,6 +13,7 @@ import typer
 
 from xo_fit.cli import designs, files, prepare, showcase  # noqa: F401  (they register their commands on the app)
 from xo_fit.cli.base import app
+from xo_fit.cli.console import OUT
 from xo_fit.errors import XoFitError
 
 
@@ -46,15 +47,25 @@ def common_first(argv: list[str]) -> list[str]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Run the command line; return the exit code (0 done, 1 failure, 2 bad input)."""
+    """Run the command line; return the exit code (0 done, 1 failure, 2 bad input, 130 interrupted)."""
+    from xo_fit.search.interrupt import sigterm_interrupts
+
+    OUT.noted = False
     args = common_first(list(sys.argv[1:] if argv is None else argv))
     try:
-        app(args=args, prog_name="xo-fit")
+        with sigterm_interrupts():  # SIGTERM as Ctrl-C: searches keep their best, temporary files are removed
+            app(args=args, prog_name="xo-fit")
+        return 0
     except XoFitError as e:
         typer.echo(f"xo-fit: error: {e}", err=True)
-        return 2
-    except SystemExit as e:  # typer's own exits: --help (0), usage errors (2)
+        return e.exit_code
+    except KeyboardInterrupt:  # Ctrl-C or SIGTERM outside a search (which keeps its best design itself)
+        pass
+    except SystemExit as e:  # typer's own exits: --help (0), usage errors (2); 130: it caught a KeyboardInterrupt
         if e.code is None:
             return 0
-        return e.code if isinstance(e.code, int) else 1
-    return 0
+        if e.code != 130:
+            return e.code if isinstance(e.code, int) else 1
+    if not OUT.noted:  # fit and prune have said where the best design so far is; otherwise say this much
+        typer.echo("xo-fit: interrupted", err=True)
+    return 130

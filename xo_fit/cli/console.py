@@ -8,10 +8,13 @@ from pathlib import Path
 
 import typer
 
+from xo_fit.errors import printable
+
 
 class Output:
     quiet = False
     verbose = False
+    noted = False  # the command has said on stderr that it was interrupted, and what it kept
 
 
 OUT = Output()
@@ -19,11 +22,11 @@ OUT = Output()
 
 def say(text: str = "") -> None:
     if not OUT.quiet:
-        typer.echo(text)
+        typer.echo(printable(text))
 
 
 def warn(text: str) -> None:
-    typer.echo(f"warning: {text}", err=True)
+    typer.echo(f"warning: {printable(text)}", err=True)
 
 
 def load_design(job_path: Path, from_: Path | None):

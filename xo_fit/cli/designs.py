@@ -25,6 +25,7 @@ from xo_fit.cli.console import (
 )
 from xo_fit.config import MAX_INCREASE
 from xo_fit.errors import XoFitError
+from xo_fit.io.results import check_folder
 from xo_fit.job.model import DEFAULTS
 
 
@@ -37,6 +38,7 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
     from xo_fit import api
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system, values = load_design(job, from_)
     j = system.job
@@ -56,7 +58,7 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-        budget: Optional[int] = typer.Option(None, "--budget", min=1, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
+        budget: Optional[int] = typer.Option(None, "--budget", min=1, max=10**9, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
         seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
         optimizer: Optional[str] = typer.Option(None, "--optimizer",
                                                 help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
@@ -70,6 +72,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     """Search the free part values that best meet the job's acoustic target, then polish locally."""
     from xo_fit.batch.tasks import fit_stage
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system = load_checked(job)
     j = system.job
@@ -113,6 +116,8 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     print_cautions(system, outcome.scored)
     say("wrote " + ", ".join(str(p) for p in files))
     if not r.complete and r.stopped_by == "interrupted":
+        typer.echo(f"xo-fit: interrupted; the best design so far is in {out / 'result.json'}", err=True)
+        OUT.noted = True
         raise typer.Exit(130)
     if not r.complete and r.stopped_by and r.stopped_by.startswith("optimizer failed"):
         typer.echo(f"xo-fit: {r.stopped_by}; the best design so far is in {out / 'result.json'}", err=True)
@@ -125,17 +130,20 @@ def series_option(text: str | None) -> dict | None:
         return None
     from xo_fit.series import check_name
 
-    if "=" not in text:
-        name = check_name(text)
-        return {"R": name, "L": name, "C": name}
-    out = {}
-    for item in text.split(","):
-        kind, _, name = item.partition("=")
-        kind = kind.strip().upper()
-        if kind not in ("R", "L", "C") or not name.strip():
-            raise XoFitError(f"--series: expected a series name or KIND=NAME pairs such as L=E12,C=E24, got '{text}'")
-        out[kind] = check_name(name.strip())
-    return out
+    try:
+        if "=" not in text:
+            name = check_name(text)
+            return {"R": name, "L": name, "C": name}
+        out = {}
+        for item in text.split(","):
+            kind, _, name = item.partition("=")
+            kind = kind.strip().upper()
+            if kind not in ("R", "L", "C") or not name.strip():
+                raise XoFitError(f"expected a series name or KIND=NAME pairs such as L=E12,C=E24, got {text!r}")
+            out[kind] = check_name(name.strip())
+        return out
+    except XoFitError as e:
+        raise XoFitError(e.message, key="--series") from None
 
 
 @app.command()
@@ -160,12 +168,21 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     from xo_fit.io.inventory import read_inventory
     from xo_fit.units import format_value
 
+    check_folder(out, "--out")
+    overrides = series_option(series)
+    if top_up is not None:
+        from xo_fit.series import check_name
+
+        try:
+            top_up = check_name(top_up)
+        except XoFitError as e:
+            raise XoFitError(e.message, key="--top-up") from None
     t0 = time.perf_counter()
     system, continuous = load_design(job, from_)
     j = system.job
     inv_path = inventory if inventory is not None else j.snap.inventory
     inv = read_inventory(inv_path) if inv_path is not None else None
-    st = snap_stage(system, out, continuous, series_override=series_option(series), inventory=inv, combine=combine,
+    st = snap_stage(system, out, continuous, series_override=overrides, inventory=inv, combine=combine,
                     plots=not no_plots, source_from=str(from_) if from_ else None, top_up=top_up,
                     speakers=speakers)
     outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
@@ -200,13 +217,14 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, spread.csv and plots."),
            from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
-           samples: Optional[int] = typer.Option(None, "--samples", min=1, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
+           samples: Optional[int] = typer.Option(None, "--samples", min=1, max=10**8, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
            seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[spread] seed, else {DEFAULTS['spread']['seed']})."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
     from xo_fit.batch.tasks import spread_stage
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system, nominal = load_design(job, from_)
     j = system.job
@@ -251,7 +269,7 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
 def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
           from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
-          budget: Optional[int] = typer.Option(None, "--budget", min=1,
+          budget: Optional[int] = typer.Option(None, "--budget", min=1, max=10**9,
                                                help="Cost evaluations per refit (default 600)."),
           seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
           max_increase: float = typer.Option(100 * MAX_INCREASE, "--max-increase", min=0.0,
@@ -263,6 +281,7 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     smallest design within --max-increase of the start."""
     from xo_fit import api
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     system, values = load_design(job, from_)
     j = system.job
@@ -290,3 +309,8 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     print_findings(pr.design)
     print_cautions(pr.design.system, pr.design.scored)
     say("wrote " + ", ".join(str(p) for p in files))
+    if pr.interrupted:
+        typer.echo(f"xo-fit: interrupted after step {len(pr.steps) - 1}; the best design so far is in "
+                   f"{out / 'result.json'}", err=True)
+        OUT.noted = True
+        raise typer.Exit(130)

@@ -12,6 +12,7 @@ import typer
 from xo_fit.cli.base import app
 from xo_fit.cli.console import OUT, print_summary, say, warn
 from xo_fit.errors import XoFitError
+from xo_fit.io.results import check_folder, check_target
 
 
 @app.command()
@@ -98,6 +99,7 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
     impedance, metrics, the tolerance summary, part list with stresses, cautions; bom.csv of the parts to buy."""
     from xo_fit.api import write_report
 
+    check_folder(out, "--out")
     t0 = time.perf_counter()
     page = write_report(list(results), out, ["xo-fit", *sys.argv[1:]], buy=buy, speakers=speakers)
     say(f"report of {len(results)} result(s) in {time.perf_counter() - t0:.2f} s: {page}")
@@ -116,6 +118,7 @@ def export(result: Path = typer.Argument(..., help="A result.json (or its folder
     from xo_fit.output.design import load_result
     from xo_fit.output.spice import export as write_spice
 
+    check_target(spice, "--spice")
     d = load_result(result)
     d = getattr(d, "design", d)
     system = d.system

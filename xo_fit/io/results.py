@@ -9,9 +9,11 @@ finished one.
 from __future__ import annotations
 
 import csv
+import errno
 import json
 import math
 import os
+import stat
 import tempfile
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -20,28 +22,91 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from xo_fit.errors import DataError, XoFitError, read_user_text
+from xo_fit.errors import DataError, WriteError, XoFitError, read_user_text, shown_path as _shown
 from xo_fit.units import format_value
 
 _UMASK = os.umask(0)
 os.umask(_UMASK)
 
 
+def _failed(path: Path, e: OSError) -> WriteError:
+    return WriteError(f"cannot write it: {e.strerror or e}" + (" (the disk is full)" if e.errno == errno.ENOSPC else ""),
+                      path=_shown(path))
+
+
+def check_target(path: str | Path, option: str | None = None) -> None:
+    """Refuse an output file where a folder, device, pipe or socket stands, or below a file: a :class:`WriteError`
+    naming it (and the ``option`` that gave it). A regular file or a symbolic link is replaced by the rename."""
+    path = Path(path)
+    key = option
+    try:
+        mode = os.lstat(path).st_mode
+    except (FileNotFoundError, NotADirectoryError):  # nothing there, or a file above it (said below)
+        mode = None
+    except (OSError, ValueError) as e:
+        raise WriteError(f"cannot write it: {getattr(e, 'strerror', None) or e}", path=_shown(path), key=key) from None
+    if mode is not None and stat.S_ISDIR(mode):
+        raise WriteError("a folder stands there: name a file", path=_shown(path), key=key)
+    if mode is not None and not (stat.S_ISREG(mode) or stat.S_ISLNK(mode)):
+        raise WriteError("a device, pipe or socket stands there: xo_fit writes only regular files (it never replaces "
+                         "such a node)", path=_shown(path), key=key)
+    for parent in path.parents:
+        if parent.exists() or parent.is_symlink():
+            if not parent.is_dir():
+                raise WriteError(f"{_shown(parent)} is a file, not a folder", path=_shown(path), key=key)
+            break
+
+
+def check_folder(path: str | Path, option: str | None = None) -> None:
+    """Refuse an output folder that is a file, a device or a pipe, or lies below a file (a :class:`WriteError`)."""
+    path = Path(path)
+    for p in (path, *path.parents):
+        if p.exists() or p.is_symlink():
+            if not p.is_dir():
+                what = "a file" if p.is_file() else "a device, pipe or socket"
+                raise WriteError(f"{_shown(p)} is {what}, not a folder", path=_shown(path), key=option)
+            return
+
+
+def make_folder(path: str | Path, option: str | None = None) -> Path:
+    """Create the output folder ``path`` (and its parents); a file in the way or a failed mkdir is a WriteError."""
+    path = Path(path)
+    check_folder(path, option)
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as e:
+        raise _failed(path, e) from None
+    return path
+
+
 @contextmanager
 def atomic_path(path: str | Path, suffix: str = "") -> Iterator[Path]:
-    """Yield a temporary path beside ``path``; on success rename it over ``path``, else remove it."""
+    """Yield a temporary path beside ``path``; on success rename it over ``path``, else remove it.
+
+    A folder, device or pipe at ``path`` is refused (never replaced); a write that fails (a full disk, no
+    permission) is a :class:`WriteError` naming the file, and no temporary file is left behind.
+    """
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=suffix or path.suffix)
-    os.close(fd)
+    check_target(path)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=suffix or path.suffix)
+        os.close(fd)
+    except OSError as e:
+        raise _failed(path, e) from None
     tmp_path = Path(tmp)
     try:
         yield tmp_path
         os.chmod(tmp_path, 0o666 & ~_UMASK)  # mkstemp makes 0600; a result is an ordinary file
+        check_target(path)  # again: something may have been put there meanwhile
         os.replace(tmp_path, path)
+    except OSError as e:
+        raise _failed(path, e) from None
     finally:
-        if tmp_path.exists():
+        try:
             tmp_path.unlink()
+        except FileNotFoundError:
+            pass
 
 
 def write_text(path: str | Path, text: str) -> None:
@@ -109,25 +174,60 @@ def write_rows(path: str | Path, rows: list[dict], columns: list[str] | None = N
                 w.writerow({k: (f"{v:.6g}" if isinstance(v, float) else v) for k, v in row.items()})
 
 
+#: The most digits of a whole number in a result (beyond, it is no measurement; float() would overflow).
+_MAX_DIGITS = 30
+
+
+def _number_text(text: str) -> float | int:
+    """json's parse_int: a whole number, or inf (refused by :func:`_finite`) when it has too many digits."""
+    return int(text) if len(text.lstrip("-")) <= _MAX_DIGITS else math.inf
+
+
+def _finite(data: Any, path: Path) -> None:
+    """Refuse a non-finite number anywhere in a result (Infinity, NaN, 1e999, a 400-digit integer), naming its key.
+    Walked without recursion: json.loads has already refused documents nested too deeply for Python."""
+    stack: list[tuple[str, Any]] = [("", data)]
+    while stack:
+        key, x = stack.pop()
+        if isinstance(x, dict):
+            stack.extend((f"{key}.{k}" if key else str(k), v) for k, v in x.items())
+        elif isinstance(x, list):
+            stack.extend((f"{key}[{i}]", v) for i, v in enumerate(x))
+        elif isinstance(x, float) and not math.isfinite(x):
+            raise DataError("not a finite number: JSON holds no Infinity or NaN, and numbers must stay within "
+                            f"+-1e308 and {_MAX_DIGITS} digits", path=_shown(path), key=_shown(key[:200]))
+
+
 def read_result(path: str | Path) -> dict:
-    """Read a result.json; raise DataError naming the file for anything malformed."""
+    """Read a result.json; raise DataError naming the file (and the key) for anything malformed.
+
+    Beyond valid JSON with a "parts" table of positive values, the sections that the report, the export and
+    --from read (stage, source, each part's series and combination, prune, spread, search, snap) must have the
+    shapes xo_fit writes (:func:`check_sections`), and every number must be finite.
+    """
     path = Path(path)
     if path.is_dir():
         path = path / "result.json"
     text = read_user_text(path, "result file")
     try:
-        data = json.loads(text)
+        data = json.loads(text, parse_int=_number_text, parse_constant=float)
     except RecursionError:
-        raise DataError("not an xo_fit result: nested too deeply", path=path) from None
+        raise DataError("not an xo_fit result: nested too deeply", path=_shown(path)) from None
     except json.JSONDecodeError as e:
-        raise DataError(f"not valid JSON: {e.msg}", path=path, line=e.lineno) from None
+        raise DataError(f"not valid JSON: {e.msg}", path=_shown(path), line=e.lineno) from None
+    except ValueError as e:  # a number json cannot take
+        raise DataError(f"not valid JSON: {e}"[:200], path=_shown(path)) from None
     if not isinstance(data, dict) or not isinstance(data.get("parts"), dict):
-        raise DataError("not an xo_fit result: expected an object with a \"parts\" table", path=path)
+        raise DataError("not an xo_fit result: expected an object with a \"parts\" table", path=_shown(path))
+    _finite(data, path)
     for name, entry in data["parts"].items():
         if not isinstance(entry, dict) or not isinstance(entry.get("value"), (int, float)) \
                 or isinstance(entry.get("value"), bool) or not entry["value"] > 0:
-            raise DataError(f"part {name}: expected {{\"value\": <number above 0 in SI units>, ...}}", path=path,
-                            key="parts")
+            raise DataError(f"part {_shown(name)[:80]}: expected {{\"value\": <number above 0 in SI units>, ...}}",
+                            path=_shown(path), key="parts")
+    from xo_fit.io.sections import check_sections
+
+    check_sections(data, path)
     return data
 
 

@@ -7,13 +7,19 @@ from __future__ import annotations
 from xo_fit.constants import PART_TYPES, PART_UNIT, RATING_UNIT
 from xo_fit.errors import XoFitError
 from xo_fit.units import UnitsError, parse_percent, parse_value, parse_wire
-from xo_fit.job.model import (DEFAULTS, NAME_PATTERN, NODE_PATTERN, DriverSpec, PartSpec, PLAUSIBLE, SOLVABLE)
+from xo_fit.job.model import (DEFAULTS, is_name, NAME_PATTERN, NODE_PATTERN, DriverSpec, PartSpec, PLAUSIBLE, SOLVABLE, RATING, OHMS)
 from xo_fit.job.reading import (Reader, Context, is_length)
+
+def format_ohms(v: float) -> str:
+    from xo_fit.units import format_value
+
+    return format_value(v, "ohm")
+
 
 def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
     name = r.text("name", required=True)
-    if not NAME_PATTERN.match(name):
-        raise r.error("name", f"'{name}' is not a valid part name: start with a letter, then letters, digits, _ or -")
+    if not is_name(name, NAME_PATTERN):
+        raise r.error("name", f"{name!r} is not a valid part name: start with a letter, then letters, digits, _ or -")
     r.label = f"part {name}"
     ptype = r.choice("type", PART_TYPES, None)
     if ptype is None:
@@ -24,8 +30,8 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
         raise r.error("nodes", f"expected two node names such as [\"in\", \"w1\"], got {nodes!r}")
     nodes_t = (str(nodes[0]).strip(), str(nodes[1]).strip())
     for n in nodes_t:
-        if not NODE_PATTERN.match(n):
-            raise r.error("nodes", f"'{n}' is not a valid node name (letters, digits, _ - + .)")
+        if not is_name(n, NODE_PATTERN):
+            raise r.error("nodes", f"{n!r} is not a valid node name (letters, digits, _ - + .)")
     if nodes_t[0] == nodes_t[1]:
         raise r.error("nodes", f"both ends on node '{nodes_t[0]}': the part is shorted onto one node")
 
@@ -57,7 +63,10 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
         if ptype != "L":
             raise r.error("dcr", "only a coil (type L) has dcr; a capacitor has esr")
         raw = r.raw("dcr")
-        wire = parse_wire(raw) if isinstance(raw, str) else None
+        try:
+            wire = parse_wire(raw) if isinstance(raw, str) else None
+        except UnitsError as e:
+            raise r.error("dcr", e.message) from None
         if wire is not None:
             dcr, dcr_wire = wire, True
         elif isinstance(raw, str) and is_length(raw):
@@ -65,6 +74,8 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
         else:
             try:
                 dcr = parse_value(raw, "ohm", allow_zero=True)
+                if dcr > OHMS[1]:
+                    raise UnitsError(f"{format_ohms(dcr)} is out of range: expected at most {format_ohms(OHMS[1])}")
             except UnitsError as e:
                 raise r.error("dcr", f"{e.message.rstrip('.')}; expected ohms or a wire such as \"18awg\" "
                               "(or a bare copper diameter such as \"1.2mm\")") from None
@@ -72,16 +83,16 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
     if r.has("esr"):
         if ptype != "C":
             raise r.error("esr", "only a capacitor (type C) has esr; a coil has dcr")
-        esr = r.value("esr", "ohm", allow_zero=True)
+        esr = r.value("esr", "ohm", allow_zero=True, limits=OHMS)
     tol = None
     if r.has("tolerance"):
         try:
-            tol = parse_percent(r.raw("tolerance"))
+            tol = parse_percent(r.raw("tolerance"), below=1.0)
         except UnitsError as e:
             raise r.error("tolerance", e.message) from None
     rating = None
     if r.has("rating"):
-        rating = r.value("rating", RATING_UNIT[ptype])
+        rating = r.value("rating", RATING_UNIT[ptype], limits=RATING)
     series = r.text("series")
     if series is not None:
         from xo_fit.series import check_name

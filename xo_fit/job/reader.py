@@ -11,7 +11,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from xo_fit.errors import JobError, read_user_text
-from xo_fit.job.model import (DEFAULTS, VOLTS, FrozenMap, Job)
+from xo_fit.job.model import (is_name, JOB_NAME_PATTERN, DEFAULTS, MAX_PARTS, OHMS, VOLTS, FrozenMap, Job)
 from xo_fit.job.reading import (Lines, Reader, Context)
 from xo_fit.job.parts import (read_part, check_plausible, check_parts)
 from xo_fit.job.tables import check_protection
@@ -66,7 +66,7 @@ def read_document(source: str | Path | Mapping[str, Any], base: str | Path | Non
 def build_job(data: dict, ctx: Context) -> Job:
     top = Reader(data, (), "job", ctx)
     name = top.text("name", ctx.stem)
-    if name in (".", "..") or re.search(r"[/\\\x00-\x1f\x7f\u2028\u2029\x85]", name):
+    if not is_name(name, JOB_NAME_PATTERN):
         raise top.error("name", f"{name!r} cannot name files and folders: no '/', '\\', control characters "
                                 "(a line break), and not '.' or '..'")
 
@@ -75,7 +75,7 @@ def build_job(data: dict, ctx: Context) -> Job:
     voltage = src.value("voltage", "V", DEFAULTS["source"]["voltage"])
     if not VOLTS[0] <= voltage <= VOLTS[1]:
         raise src.error("voltage", f"{voltage:g} V is outside {VOLTS[0]:g} to {VOLTS[1]:g} V")
-    resistance = src.value("resistance", "ohm", DEFAULTS["source"]["resistance"], allow_zero=True)
+    resistance = src.value("resistance", "ohm", DEFAULTS["source"]["resistance"], allow_zero=True, limits=OHMS)
     src.done()
     ac = top.sub("acoustics", "[acoustics]")
     c = ac.value("speed_of_sound", "m/s", DEFAULTS["acoustics"]["speed_of_sound"])
@@ -110,6 +110,9 @@ def build_job(data: dict, ctx: Context) -> Job:
     raw_parts = data.get("part", [])
     if not isinstance(raw_parts, list) or not raw_parts:
         raise ctx.error((), "part", "no parts: the network needs [[part]] tables", "job")
+    if len(raw_parts) > MAX_PARTS:
+        raise ctx.error((), "part", f"{len(raw_parts)} parts: a network may have at most {MAX_PARTS} [[part]] tables "
+                        "(drivers included)", "job")
     driver_names = {d.name for d in drivers}
     parts = tuple(read_part(Reader(p, ("part", i), f"[[part]] #{i + 1}", ctx), driver_names)
                   for i, p in enumerate(raw_parts))

@@ -82,16 +82,24 @@ class Reader:
         return self.data.get(key, default)
 
     def value(self, key: str, unit: str, default: Any = None, *, required: bool = False,
-              positive: bool = True, allow_zero: bool = False) -> float | None:
+              positive: bool = True, allow_zero: bool = False, limits: tuple[float, float] | None = None
+              ) -> float | None:
+        """A value with a unit; ``limits``: the (lowest, highest) value allowed, SI."""
         self.used.add(key)
         if key not in self.data:
             if required:
                 raise self.error(key, f"missing; expected {unit_text(unit)}")
             return default
         try:
-            return parse_value(self.data[key], unit, positive=positive, allow_zero=allow_zero)
+            v = parse_value(self.data[key], unit, positive=positive, allow_zero=allow_zero)
         except UnitsError as e:
             raise self.error(key, e.message) from None
+        if limits is not None and not limits[0] <= v <= limits[1]:
+            from xo_fit.units import format_value
+
+            raise self.error(key, f"{format_value(v, unit)} is out of range: expected {format_value(limits[0], unit)} "
+                                  f"to {format_value(limits[1], unit)}")
+        return v
 
     def number(self, key: str, default: Any, *, integer: bool = False, minimum: float | None = None,
                maximum: float | None = None) -> Any:

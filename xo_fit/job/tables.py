@@ -11,15 +11,15 @@ import numpy as np
 from xo_fit.errors import XoFitError
 from xo_fit.grid import Grid
 from xo_fit.units import UnitsError, parse_percent, parse_value
-from xo_fit.job.model import (DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
+from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
 from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
-from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice)
+from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice, close_match)
 from xo_fit.job.baffle import read_radius
 
 def read_stress(r: Reader) -> StressSpec:
     d = DEFAULTS["stress"]
-    power = r.value("power", "W", d["power"])
-    rated = r.value("rated_impedance", "ohm", d["rated_impedance"])
+    power = r.value("power", "W", d["power"], limits=POWER_W)
+    rated = r.value("rated_impedance", "ohm", d["rated_impedance"], limits=OHMS)
     if (power is None) != (rated is None):
         raise r.error("rated_impedance" if rated is None else "power",
                       "give both power (W) and rated_impedance (ohm): power is quoted into the rated impedance")
@@ -52,8 +52,8 @@ def read_grid(r: Reader) -> Grid:
 
 def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
     """``[driver.NAME]``: the driver's response and impedance, how they are read and placed, its tables."""
-    if not NAME_PATTERN.match(name):
-        raise r.error(None, "a driver name must start with a letter and hold only letters, digits, _ and -")
+    if not is_name(name, NAME_PATTERN):
+        raise r.error(None, f"{name!r}: a driver name must start with a letter and hold only letters, digits, _ and -")
     d = DEFAULTS["driver"]
     if not r.has("response"):
         raise r.error("response", "missing; expected a measurement file path, or a level in dB SPL for an ideal flat driver")
@@ -68,7 +68,7 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         response=response,
         impedance=impedance,
         reference_voltage=volts(r, "reference_voltage", d["reference_voltage"]),
-        offset=r.value("offset", "m", d["offset"], positive=False),
+        offset=r.value("offset", "m", d["offset"], positive=False, limits=OFFSET_M),
         phase=phase_choice(r, "phase"),
         impedance_phase=phase_choice(r, "impedance_phase"),
         extend_low=r.choice("extend_low", ("none", "slope", "order2", "order4"), d["extend_low"]),
@@ -373,14 +373,14 @@ def read_way(name: str, r: Reader) -> WayTarget:
         raise r.error("order", f"a Linkwitz-Riley alignment has an even order (2, 4, 6, 8), got {order}")
     fc = fc_low = fc_high = None
     if wtype == "bandpass":
-        fc_low = r.value("fc_low", "Hz", required=True)
-        fc_high = r.value("fc_high", "Hz", required=True)
+        fc_low = r.value("fc_low", "Hz", required=True, limits=GRID_HZ)
+        fc_high = r.value("fc_high", "Hz", required=True, limits=GRID_HZ)
         if fc_high <= fc_low:
             raise r.error("fc_high", "must be above fc_low")
         if r.has("fc"):
             raise r.error("fc", "a bandpass takes fc_low and fc_high, not fc")
     elif wtype != "fullrange":
-        fc = r.value("fc", "Hz", required=True)
+        fc = r.value("fc", "Hz", required=True, limits=GRID_HZ)
     polarity = r.choice("polarity", ("auto", "normal", "inverted"), d["polarity"])
     r.done()
     return WayTarget(driver=name, type=wtype, alignment=alignment, order=order, fc=fc, fc_low=fc_low,
@@ -394,7 +394,7 @@ def read_cost(r: Reader) -> CostSpec:
         sum=r.number("sum", d["sum"], minimum=0.0, maximum=MAX_WEIGHT),
         phase=r.number("phase", d["phase"], minimum=0.0, maximum=MAX_WEIGHT),
         impedance=r.number("impedance", d["impedance"], minimum=0.0, maximum=MAX_WEIGHT),
-        impedance_min=r.value("impedance_min", "ohm", d["impedance_min"], allow_zero=True),
+        impedance_min=r.value("impedance_min", "ohm", d["impedance_min"], allow_zero=True, limits=OHMS),
         stress=r.number("stress", d["stress"], minimum=0.0, maximum=MAX_WEIGHT),
         early_reflections=r.number("early_reflections", d["early_reflections"], minimum=0.0, maximum=MAX_WEIGHT),
         sound_power=r.number("sound_power", d["sound_power"], minimum=0.0, maximum=MAX_WEIGHT),
@@ -405,6 +405,36 @@ def read_cost(r: Reader) -> CostSpec:
     return spec
 
 
+#: The search engines by name (xo_fit.search.engines.ENGINES, and "auto"), besides ng-NAME.
+OPTIMIZERS = ("auto", "de", "scipy-de")
+
+
+def optimizer_problem(name: str) -> str | None:
+    """What is wrong with an optimizer name (``auto``, ``de``, ``scipy-de`` or ``ng-NAME``), or None."""
+    if name in OPTIMIZERS:
+        return None
+    if not name.startswith("ng-"):
+        return (f"unknown optimizer {name!r}; expected {', '.join(OPTIMIZERS)} or ng-NAME (a nevergrad optimizer "
+                "such as ng-TwoPointsDE or ng-CMA)")
+    try:
+        import nevergrad
+    except ImportError:
+        return f"{name!r} needs nevergrad, which is not installed (pip install nevergrad)"
+    known = list(nevergrad.optimizers.registry)
+    if name[3:] in known:
+        return None
+    hint = close_match(name[3:], known)
+    return f"unknown nevergrad optimizer {name[3:]!r}" + (f" (did you mean 'ng-{hint}'?)" if hint else "")
+
+
+def optimizer_of(r: Reader) -> str:
+    name = r.text("optimizer", DEFAULTS["search"]["optimizer"])
+    problem = optimizer_problem(name)
+    if problem:
+        raise r.error("optimizer", problem)
+    return name
+
+
 def read_search(r: Reader) -> SearchSpec:
     d = DEFAULTS["search"]
     robust = 0
@@ -413,7 +443,7 @@ def read_search(r: Reader) -> SearchSpec:
         robust = rr.number("samples", 0, integer=True, minimum=1, maximum=100000)
         rr.done()
     spec = SearchSpec(
-        optimizer=r.text("optimizer", d["optimizer"]),
+        optimizer=optimizer_of(r),
         budget=r.number("budget", d["budget"], integer=True, minimum=1, maximum=10**9),
         seed=r.number("seed", d["seed"], integer=True, minimum=0),
         time_limit=r.value("time_limit", "s", d["time_limit"]),
@@ -472,7 +502,7 @@ def read_spread(r: Reader) -> SpreadSpec:
             if k not in tol:
                 raise r.error("tolerance", f"unknown part kind '{k}'; expected R, L or C")
             try:
-                tol[k] = parse_percent(v)
+                tol[k] = parse_percent(v, below=1.0)
             except UnitsError as e:
                 raise r.error("tolerance", f"{k}: {e.message}") from None
     spec = SpreadSpec(

@@ -17,7 +17,7 @@ import numpy as np
 from xo_fit.model import acoustics
 from xo_fit.physics.coils import DCR_EXPONENT, dcr_coefficient
 from xo_fit.errors import DataError, JobError, NetworkError, XoFitError
-from xo_fit.job.model import FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
+from xo_fit.job.model import MAX_ANGLE_VALUES, FileCurve, FlatResponse, Job, Resistive, SplicedResponse, ThieleSmall
 from xo_fit.job.model import ModelImpedance
 from xo_fit.constants import P_REF
 from xo_fit.io.measure import Curve, read_curve
@@ -367,6 +367,10 @@ def load_system(job: Job) -> System:
     grid = job.grid.frequencies
     warnings: list[str] = list(job.warnings)
     positions = job_positions(job)
+    if len(positions) * len(job.drivers) * grid.size > MAX_ANGLE_VALUES:  # memory, checked before any file is read
+        raise JobError(f"{len(positions)} positions x {len(job.drivers)} drivers x {grid.size} points is more off-axis "
+                       f"data than xo_fit holds (at most {MAX_ANGLE_VALUES:,}): fewer angles or grid points",
+                       path=job.path, key="[driver.NAME.angles]")
     _check_curves(job, positions)
     _check_preference(job, positions)
     from xo_fit.model.drivers import driver_models

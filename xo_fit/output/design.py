@@ -326,10 +326,9 @@ class Design:
         ``home`` is the folder the files will finally live in, when it is not ``folder`` (a batch worker
         writes into a private folder whose files the coordinator moves).
         """
-        from xo_fit.io.results import write_csv, write_json, write_rows
+        from xo_fit.io.results import make_folder, write_csv, write_json, write_rows
 
-        folder = Path(folder)
-        folder.mkdir(parents=True, exist_ok=True)
+        folder = make_folder(folder)
         write_json(folder / "result.json", self.to_json(home if home is not None else folder))
         write_csv(folder / "response.csv", self.response_table())
         written = [folder / "result.json", folder / "response.csv"]
@@ -455,14 +454,47 @@ def job_of_result(doc: dict, folder: Path, path: Path):
                     f"{' and '.join(str(b) for b in dict.fromkeys(bases))})", path=path, key="source") from None
 
 
+def spread_columns(table: Path, f: np.ndarray) -> dict[str, np.ndarray]:
+    """The columns of a spread.csv (each (F,)), checked against the result's grid ``f`` (F,) in Hz: a DataError
+    naming the file for a missing or short table, a cell that is no finite number, a column the report needs."""
+    import csv
+
+    from xo_fit.errors import read_user_text
+
+    if not table.exists():
+        raise DataError("a spread result needs its spread.csv beside it", path=table)
+    rows = list(csv.reader(read_user_text(table, "spread table").splitlines()))
+    if len(rows) < 2:
+        raise DataError("spread.csv holds no rows", path=table)
+    head, body = rows[0], rows[1:]
+    need = ["frequency_hz", "sum_p05_db", "sum_p50_db", "sum_p95_db"]
+    if [h for h in need if h not in head] or len(set(head)) != len(head):
+        raise DataError(f"spread.csv: expected the columns {', '.join(need)}, ... once each, got {head[:12]!r}",
+                        path=table, line=1)
+    if len(body) != f.size:
+        raise DataError(f"spread.csv holds {len(body)} rows; the result's grid has {f.size} points", path=table)
+    data = np.full((len(body), len(head)), np.nan)
+    for i, r in enumerate(body):
+        if len(r) != len(head):
+            raise DataError(f"expected {len(head)} cells, got {len(r)}", path=table, line=i + 2)
+        for k, x in enumerate(r):
+            try:
+                data[i, k] = float(x) if x != "" else np.nan
+            except ValueError:
+                raise DataError(f"{head[k]}: {x[:40]!r} is not a number", path=table, line=i + 2) from None
+            if np.isinf(data[i, k]):
+                raise DataError(f"{head[k]}: {x[:40]!r} is not a finite number", path=table, line=i + 2)
+    if not np.allclose(data[:, 0], f, rtol=1e-4, atol=0):
+        raise DataError("spread.csv's frequencies are not the result's grid", path=table)
+    return {h: data[:, k] for k, h in enumerate(head)}
+
+
 def load_result(path: str | Path, *, system=None) -> Design | Spread:
     """A result.json (or its folder) as a :class:`Design`, or a :class:`Spread` for a spread result.
 
     The design is rebuilt and re-scored from the result alone (see :func:`job_of_result`); ``system``
     reuses an already loaded job instead.
     """
-    import csv
-
     from xo_fit.search.fitting import score
     from xo_fit.io.results import read_result, result_values
 
@@ -481,15 +513,5 @@ def load_result(path: str | Path, *, system=None) -> Design | Spread:
                     part_info=part_info, label=str(doc.get("stage", "result")))
     if design.stage != "spread":
         return design
-    table = folder / "spread.csv"
-    if not table.exists():
-        raise DataError("a spread result needs its spread.csv beside it", path=table)
-    with open(table, newline="", encoding="utf-8") as fh:
-        rows = list(csv.DictReader(fh))
-    if not rows:
-        raise DataError("spread.csv holds no rows", path=table)
-    try:
-        columns = {k: np.array([float(r[k]) if r[k] != "" else np.nan for r in rows]) for k in rows[0]}
-    except (TypeError, ValueError) as e:
-        raise DataError(f"spread.csv: not a number ({e})", path=table) from None
+    columns = spread_columns(folder / "spread.csv", system.frequencies)
     return Spread(design=design, section=dict(doc.get("spread") or {}), columns=columns)

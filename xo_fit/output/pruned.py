@@ -24,6 +24,7 @@ class Pruning:
     max_increase: float
     trials: list[dict] = field(default_factory=list)
     evaluations: int = 0
+    interrupted: bool = False  # Ctrl-C or SIGTERM stopped it: the steps so far
 
     @classmethod
     def of_run(cls, run: PruneRun) -> "Pruning":
@@ -32,7 +33,7 @@ class Pruning:
                    for i, (s, sc) in enumerate(run.states)]
         designs[run.chosen].label = "pruned"
         return cls(steps=run.steps, designs=designs, chosen=run.chosen, max_increase=run.max_increase,
-                   trials=run.trials, evaluations=run.evaluations)
+                   trials=run.trials, evaluations=run.evaluations, interrupted=run.interrupted)
 
     @property
     def design(self) -> Design:

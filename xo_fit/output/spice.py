@@ -47,7 +47,7 @@ from xo_fit.job.model import ModelImpedance, Resistive, ThieleSmall
 from xo_fit.io.results import write_text
 
 #: Node and element names the deck itself uses; a job's node of the same name is renamed.
-_RESERVED = ("src", "src_a", "0", "in")
+_RESERVED = ("src", "src_a", "0", "in", "gnd")  # ngspice takes a node "gnd" (any case) as ground
 
 
 @dataclass(frozen=True)

@@ -78,6 +78,33 @@ def minimum_phase(frequency: np.ndarray, magnitude_db_: np.ndarray, at: np.ndarr
     after = np.concatenate((slopes, [s_hi]))
     jump = before - after
     at = np.asarray(at, dtype=float)
+    lat = np.log(at)
+    if at.size * n <= KERNEL_CELLS or at.size <= FINE * n:
+        acc = _kernel_sum(u_nodes, jump, lat, at)
+    else:
+        # a grid finer than the data's own resolution (MINPHASE_PER_OCTAVE): the phase at FINE points per node
+        # interval, interpolated in log frequency (the magnitude is piecewise linear between nodes anyway: the
+        # phase differs from the exact sum by at most 0.03 deg on the demo woofer at 50,000 points); beyond the
+        # nodes, exactly
+        inside = (lat >= u_nodes[0]) & (lat <= u_nodes[-1])
+        fine = np.linspace(u_nodes[0], u_nodes[-1], FINE * (n - 1) + 1)
+        acc = np.empty(at.size)
+        acc[inside] = np.interp(lat[inside], fine, _kernel_sum(u_nodes, jump, fine, np.exp(fine)))
+        if not inside.all():
+            acc[~inside] = _kernel_sum(u_nodes, jump, lat[~inside], at[~inside])
+    return ((s_lo + s_hi) * np.pi**2 / 4.0 + acc) / np.pi
+
+
+def _kernel_sum(u_nodes: np.ndarray, jump: np.ndarray, lat: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """The Bode kernel (M, n) at log frequencies ``lat`` (M,) times the slope jumps (n,): (M,). A kernel of at most
+    KERNEL_CELLS is computed whole and kept for the next file of the same range; a larger one in blocks of rows."""
+    n = u_nodes.size
+    if lat.size * n > KERNEL_CELLS:
+        rows = max(1, KERNEL_CELLS // n)
+        acc = np.empty(lat.size)
+        for i in range(0, lat.size, rows):
+            acc[i:i + rows] = _bode_kernel(u_nodes[None, :] - lat[i:i + rows, None]) @ jump
+        return acc
     key = (float(u_nodes[0]), float(u_nodes[-1]), n, at.tobytes())
     kernel = _KERNELS.get(key)
     if kernel is None:  # the same for every file of one range on one grid (a driver's off-axis set): kept
@@ -85,9 +112,15 @@ def minimum_phase(frequency: np.ndarray, magnitude_db_: np.ndarray, at: np.ndarr
         if len(_KERNELS) >= _KERNEL_CACHE:
             _KERNELS.pop(next(iter(_KERNELS)))
         _KERNELS[key] = kernel
-    return ((s_lo + s_hi) * np.pi**2 / 4.0 + kernel @ jump) / np.pi
+    return kernel @ jump
 
 
+#: The largest Bode kernel (grid points x nodes) computed whole and kept, 8 M cells (64 MiB): a grid of up to
+#: 8,000 points for a 20 Hz - 20 kHz file; beyond, the grid is finer than the nodes and the phase is
+#: interpolated (see FINE); memory stays under about 6 x 64 MiB for a grid of any size.
+KERNEL_CELLS = 8_000_000
+#: On a grid finer than the nodes, the phase is computed exactly at this many points per node interval.
+FINE = 4
 #: Bode kernels (M, n) by (first node, last node, n, grid): a few, for the files of one job.
 _KERNELS: dict = {}
 

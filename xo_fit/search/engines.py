@@ -61,6 +61,7 @@ from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL
                            POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
 from xo_fit.search.feasibility import EpsilonLevel, Stop, feasibility_key, polish_limited
+from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.lbfgsb import minimize_box
 
 
@@ -151,6 +152,9 @@ class Objective:
         if self.deadline is not None and self.evaluations and time.monotonic() > self.deadline:
             self.stopped_by = "time limit"
             raise _Stop
+        if self.evaluations and stop_requested():  # a worker process asked to stop (Ctrl-C, SIGTERM, its parent)
+            self.stopped_by = "interrupted"
+            raise KeyboardInterrupt
         take = min(u.shape[0], self.budget - self.evaluations)
         cost = np.full(u.shape[0], np.inf)
         violation = np.zeros(u.shape[0])
@@ -335,15 +339,20 @@ DEFAULT_ENGINE = "de"
 
 
 def engine(name: str) -> Callable:
-    """The engine for an optimizer name (``auto``, ``de``, ``scipy-de`` or ``ng-NAME``)."""
+    """The engine for an optimizer name (``auto``, ``de``, ``scipy-de`` or ``ng-NAME``); a name that is none of
+    them (a job's was checked when it was read, so it came from --optimizer) is an XoFitError naming the option."""
+    from xo_fit.job.tables import optimizer_problem
+
+    problem = None if name in ENGINES else optimizer_problem(name)
+    if problem:
+        raise XoFitError(problem, key="--optimizer")
     if name == "auto":
         name = DEFAULT_ENGINE
     if name in ENGINES:
         return ENGINES[name]
     if name.startswith("ng-"):
         return _nevergrad(name[3:])
-    raise XoFitError(f"unknown optimizer '{name}'; expected auto, {', '.join(ENGINES)} or ng-NAME "
-                     "(a nevergrad optimizer such as ng-TwoPointsDE or ng-CMA)", key="optimizer")
+    raise XoFitError(f"unknown optimizer {name!r}", key="--optimizer")
 
 
 def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:

@@ -174,10 +174,6 @@ def backend_of(cost) -> str:
 
 def _fit_worker(args):
     """One restart in a worker process: (system, optimizer, budget, seed, time_limit) -> (seed, cost, u)."""
-    import os
-
-    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
-        os.environ.setdefault(var, "1")
     system, optimizer, budget, seed, time_limit = args
     out = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit)
     return seed, out.search, out.scored.values, out.kernel
@@ -196,20 +192,43 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     Whole searches are distributed, never single evaluations (those cost more to ship than to compute).
     Returns the winner and one summary per restart (seed, cost, evaluations, complete).
     """
-    from concurrent.futures import ProcessPoolExecutor
+    import dataclasses
+    from concurrent.futures import wait
+
+    from xo_fit.search.interrupt import stopping_pool
 
     base = system.job.search.seed if seed is None else seed
     seeds = restart_seeds(base, workers)
     total = budget or system.job.search.budget
     budget = max(1, total // workers)  # the processes share one budget
-    with ProcessPoolExecutor(max_workers=workers) as pool:
-        results = list(pool.map(_fit_worker, [(system, optimizer, budget, s_, time_limit) for s_ in seeds]))
+    pool, stop = stopping_pool(workers)
+    interrupted = False
+    with pool:
+        futures = [pool.submit(_fit_worker, (system, optimizer, budget, s_, time_limit)) for s_ in seeds]
+        try:
+            wait(futures)
+        except KeyboardInterrupt:  # Ctrl-C or SIGTERM: every worker stops and returns its best so far
+            interrupted = True
+            stop.set()
+        results = []
+        for fut in futures:
+            try:
+                results.append(fut.result())
+            except Exception:
+                if not interrupted:
+                    raise
+                # a worker stopped before its first evaluation (or died): the others' designs are kept
+    if not results:
+        raise KeyboardInterrupt
+    interrupted = interrupted or any(r.stopped_by == "interrupted" for _, r, _, _ in results)
     runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
              "restarts": r.restarts, "kernel": k} for s_, r, _, k in results]
     # feasibility first (a run's violation is 0 without limits): the feasible, then the smaller violation, cost
     best = min(range(len(results)), key=lambda i: (results[i][1].violation > 0, results[i][1].violation,
                                                    results[i][1].cost, i))
     _, search_result, values, kernel = results[best]
+    if interrupted:
+        search_result = dataclasses.replace(search_result, complete=False, stopped_by="interrupted")
     model = cost_model(system)
     space = make_space(system.job)
     start = score(system, space.values(space.u0)[0], model).cost if space.u0 is not None else None

@@ -51,7 +51,14 @@ def refit(system, budget: int, seed: int):
         return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
 
     r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True, constrained=cm.limits is not None)
-    return score(system, space.values(r.u)[0], model), r.evaluations
+    scored = score(system, space.values(r.u)[0], model)
+    if r.stopped_by == "interrupted":
+        raise Interrupted(scored, r.evaluations)
+    return scored, r.evaluations
+
+
+class Interrupted(KeyboardInterrupt):
+    """A refit stopped by Ctrl-C or SIGTERM: ``args`` = (its best design so far as Scored, evaluations)."""
 
 
 def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
@@ -70,7 +77,10 @@ def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
 def _trial(args):
     """One trial removal, refitted (in a worker process or here): (name, how, Scored, system, evaluations)."""
     name, how, system, budget, seed = args
-    scored, n = refit(system, budget, seed)
+    try:
+        scored, n = refit(system, budget, seed)
+    except Interrupted:
+        raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
     return name, how, scored, system, n
 
 
@@ -87,6 +97,7 @@ class PruneRun:
     section: dict
     trials: list[dict] = field(default_factory=list)
     evaluations: int = 0
+    interrupted: bool = False
 
 
 def _row(step: int, system, scored, removed: str, how: str) -> dict:
@@ -108,13 +119,39 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     values = dict(zip(system.part_names, np.asarray(start, dtype=float)))
     doc = removal_document(system.job, None, "none", values)
     current = derive_system(system, load_job(doc, base=system.job.folder))
-    scored, evaluations = refit(current, budget, seed)
+    interrupted = False
+    try:
+        scored, evaluations = refit(current, budget, seed)
+    except Interrupted as e:  # step 0 stopped early: its best so far is the only step
+        (scored, evaluations), interrupted = e.args, True
     steps, states, trials = [_row(0, current, scored, "", "")], [(current, scored)], []
-    pool = None
-    if workers > 1:
-        from concurrent.futures import ProcessPoolExecutor
+    spent = [evaluations]
+    if not interrupted:
+        try:
+            _eliminate(steps, states, trials, spent, budget, seed, workers, progress)
+        except KeyboardInterrupt:  # Ctrl-C or SIGTERM: the steps taken so far are kept, the step under way is not
+            interrupted = True
+    evaluations = spent[0]
+    limit = steps[0]["cost"] * (1 + max_increase) if steps[0]["cost"] is not None else math.inf
+    within = [i for i, r in enumerate(steps) if r["cost"] is not None and r["cost"] <= limit]
+    chosen = min(within, key=lambda i: (steps[i]["parts"], steps[i]["cost"])) if within else 0
+    section = {"steps": steps, "chosen_step": chosen, "max_increase": max_increase, "refit_budget": budget,
+               "seed": seed, "evaluations": evaluations, "trials": trials}
+    if interrupted:
+        section["interrupted"] = True
+    return PruneRun(steps=steps, states=states, chosen=chosen, max_increase=max_increase, section=section,
+                    trials=trials, evaluations=evaluations, interrupted=interrupted)
 
-        pool = ProcessPoolExecutor(max_workers=workers)
+
+def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int, seed: int, workers: int,
+               progress) -> None:
+    """The elimination steps after step 0, appended to ``steps``, ``states`` and ``trials``; the evaluations of
+    each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1."""
+    pool = stop = None
+    if workers > 1:
+        from xo_fit.search.interrupt import stopping_pool
+
+        pool, stop = stopping_pool(workers)
     try:
         while True:
             last_system, last_scored = states[-1]
@@ -127,7 +164,7 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
             feasible = []
             for r in results:
                 name, how, sc, s, n = r
-                evaluations += n
+                spent[0] += n
                 trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
                 if sc.cost is None or not math.isfinite(sc.cost):
                     continue
@@ -143,13 +180,10 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
             states.append((s, sc))
             if progress:
                 progress(len(steps) - 1, name, how, sc.cost)
+    except KeyboardInterrupt:
+        if stop is not None:
+            stop.set()  # the workers' refits stop at their next batch
+        raise
     finally:
         if pool:
-            pool.shutdown()
-    limit = steps[0]["cost"] * (1 + max_increase) if steps[0]["cost"] is not None else math.inf
-    within = [i for i, r in enumerate(steps) if r["cost"] is not None and r["cost"] <= limit]
-    chosen = min(within, key=lambda i: (steps[i]["parts"], steps[i]["cost"])) if within else 0
-    section = {"steps": steps, "chosen_step": chosen, "max_increase": max_increase, "refit_budget": budget,
-               "seed": seed, "evaluations": evaluations, "trials": trials}
-    return PruneRun(steps=steps, states=states, chosen=chosen, max_increase=max_increase, section=section,
-                    trials=trials, evaluations=evaluations)
+            pool.shutdown(wait=True, cancel_futures=True)

@@ -372,7 +372,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
         base = np.array(baseline, dtype=np.int64)
         if stock and not ev.feasible(base[None])[0]:
             # log-nearest would use a drawer part more often than it holds: start from a feasible design
-            base = _first_feasible(ev, base)
+            base = _first_feasible(ev, base, inventory.path if inventory is not None else None)
         result = search_choices(ev, base, seed)
         for j, i in enumerate(snap_idx):
             values[i] = options[j][result.assignment[j]].value
@@ -404,7 +404,7 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
                        seconds=time.monotonic() - t0)
 
 
-def _first_feasible(ev: _Evaluator, base: np.ndarray) -> np.ndarray:
+def _first_feasible(ev: _Evaluator, base: np.ndarray, path=None) -> np.ndarray:
     """A feasible assignment near ``base``: walk the parts, moving each to its nearest choice still in stock."""
     a = base.copy()
     for j in range(len(a)):
@@ -419,7 +419,7 @@ def _first_feasible(ev: _Evaluator, base: np.ndarray) -> np.ndarray:
             if _feasible_partial(ev, trial):
                 break
     if not ev.feasible(a[None])[0]:
-        raise XoFitError(_shortfall(ev))
+        raise XoFitError(_shortfall(ev), path=path)
     return a
 
 

@@ -33,7 +33,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from xo_fit.config import CHUNK, CORNERS_MAX, HIST_RANGE_DB, HIST_STEP_DB, SENS_STEP
+from xo_fit.config import (CHUNK, CHUNK_VALUES, CORNERS_MAX, DRAWS_BYTES, HIST_BYTES, HIST_RANGE_DB, HIST_STEP_DB,
+                           SENS_STEP)
 from xo_fit.model.acoustics import spl_db
 from xo_fit.model.draws import draw_factors, part_tolerances
 
@@ -77,27 +78,29 @@ class _Hist:
 
     def __init__(self, curves: int, nf: int) -> None:
         self.nb = int(round(2 * HIST_RANGE_DB / HIST_STEP_DB)) + 1
-        self.counts = np.zeros((curves, nf, self.nb), dtype=np.int64)
+        self.nb = max(min(self.nb, HIST_BYTES // (4 * curves * nf)) // 2 * 2 + 1, 3)  # odd: a bin centred on 0
+        self.step = 2 * HIST_RANGE_DB / (self.nb - 1)
+        self.counts = np.zeros((curves, nf, self.nb), dtype=np.int32)
         self.low = np.full((curves, nf), np.inf)
         self.high = np.full((curves, nf), -np.inf)
         self.n = 0
 
     def add(self, dev: np.ndarray) -> None:
         """dev: (B, C, F) deviations in dB."""
-        _accumulate(self.counts, np.ascontiguousarray(dev, dtype=float), HIST_RANGE_DB, 1.0 / HIST_STEP_DB)
+        _accumulate(self.counts, np.ascontiguousarray(dev, dtype=float), HIST_RANGE_DB, 1.0 / self.step)
         self.low = np.minimum(self.low, dev.min(axis=0))
         self.high = np.maximum(self.high, dev.max(axis=0))
         self.n += dev.shape[0]
 
     def percentile(self, q: float) -> np.ndarray:
         """The q-th percentile (0..100) of the deviation, (C, F) dB, interpolated within bins."""
-        cum = np.cumsum(self.counts, axis=-1)
+        cum = np.cumsum(self.counts, axis=-1, dtype=np.int32)  # at most 10^8 draws: no overflow
         target = q / 100.0 * self.n
         k = np.argmax(cum >= target - 1e-9, axis=-1)  # first bin reaching the target
         below = np.where(k > 0, np.take_along_axis(cum, np.maximum(k - 1, 0)[..., None], -1)[..., 0], 0)
         here = np.take_along_axis(self.counts, k[..., None], -1)[..., 0]
         frac = np.where(here > 0, (target - below) / np.maximum(here, 1), 0.5)
-        p = (k - 0.5 + np.clip(frac, 0, 1)) * HIST_STEP_DB - HIST_RANGE_DB
+        p = (k - 0.5 + np.clip(frac, 0, 1)) * self.step - HIST_RANGE_DB
         # never outside the deviations seen: zero tolerance gives exactly zero spread, not half a bin
         return np.clip(p, self.low, self.high)
 
@@ -135,6 +138,14 @@ def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray
     return (db[0::2] - db[1::2]) / 2.0 * (0.01 / SENS_STEP)
 
 
+def batch_size(system) -> int:
+    """Designs solved at a time: CHUNK, fewer on a large grid (CHUNK_VALUES complex values per batch, counting per
+    design the sum, each driver's voltage and level and, off axis, each driver at each position)."""
+    d = len(system.job.drivers)
+    per_design = system.frequencies.size * (1 + d * (2 + len(system.positions)))
+    return int(np.clip(CHUNK_VALUES // per_design, 1, CHUNK))
+
+
 def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed: int | None = None,
                distribution: str | None = None, qmc: bool | None = None, rms_limit_db: float | None = None,
                crossovers: list[float] | None = None, progress=None) -> SpreadResult:
@@ -152,6 +163,12 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
     band = band_mask(f, job.target.band)
     tol = part_tolerances(job)
     nominal = np.asarray(nominal, dtype=float)
+    if samples * max(tol.size, 1) * 8 > DRAWS_BYTES:
+        from xo_fit.errors import JobError
+
+        raise JobError(f"{samples} tolerance draws of {tol.size} parts need {samples * tol.size * 8 / 2**30:.1f} GiB; "
+                       f"at most {DRAWS_BYTES // 2**30} GiB ({DRAWS_BYTES // (8 * max(tol.size, 1)):,} draws of "
+                       f"{tol.size} parts)", path=job.path, key="[spread] samples (or --samples)")
     nom = system.simulate(nominal)
     nom_db = np.concatenate([system.reference_db(nom), spl_db(nom.pressure[0])], axis=0)  # (C, F)
     hist = _Hist(nom_db.shape[0], f.size)
@@ -163,8 +180,9 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
     worst = (-1.0, 0.0, None)
     pair_diffs = []
     carry = None
-    for lo in range(0, samples, CHUNK):
-        fac = factors[lo:lo + CHUNK]
+    chunk = batch_size(system)
+    for lo in range(0, samples, chunk):
+        fac = factors[lo:lo + chunk]
         sim = system.simulate(nominal[None, :] * fac)
         db = np.concatenate([system.reference_db(sim)[:, None, :], spl_db(sim.pressure)], axis=1)  # (B, C, F)
         dev = db - nom_db[None]
@@ -192,7 +210,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
         if sums.shape[0]:
             pair_diffs.append(np.abs(sums[0::2] - sums[1::2]).max(axis=1))
         if progress is not None:
-            progress(min(lo + CHUNK, samples), samples, within / min(lo + CHUNK, samples))
+            progress(min(lo + chunk, samples), samples, within / min(lo + chunk, samples))
     pairs = np.concatenate(pair_diffs) if pair_diffs else np.zeros(1)
     sens = sensitivities(system, nominal, band, tol)
     names = system.part_names
@@ -234,9 +252,10 @@ def worst_corners(system, nominal, tol, sens, band, nominal_sum_db) -> dict:
     vals = np.repeat(nominal[None, :], signs.shape[0], axis=0)
     vals[:, idx] *= 1 + signs * tol[idx][None, :]
     dev_max = np.zeros(signs.shape[0])
-    for lo in range(0, signs.shape[0], CHUNK):
-        sim = system.simulate(vals[lo:lo + CHUNK])
-        dev_max[lo:lo + CHUNK] = np.abs(system.reference_db(sim)[:, band] - nominal_sum_db[band]).max(axis=1)
+    chunk = batch_size(system)
+    for lo in range(0, signs.shape[0], chunk):
+        sim = system.simulate(vals[lo:lo + chunk])
+        dev_max[lo:lo + chunk] = np.abs(system.reference_db(sim)[:, band] - nominal_sum_db[band]).max(axis=1)
     w = int(np.argmax(dev_max))
     names = system.part_names
     return {"method": method, "worst_deviation_db": float(dev_max[w]),

@@ -153,8 +153,9 @@ def write_report(items: list, out: Path, command: list[str] | None = None, *, bu
         rep.stress = rep.build.design.info["stress_report"]
     rep.figures = figures(rep.items)
     rep.drawing = draw(rep.build.job, rep.build.design.values)
-    out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
+    from xo_fit.io.results import make_folder
+
+    out = make_folder(out)  # a file, device or pipe in the way is refused in one line, never replaced
     _write_files(rep, out, BOM_COLUMNS)
     body = join(header(rep), *(make(rep) for make in SECTIONS))
     page = PAGE.format(title=esc(f"{_names(rep)}: crossover report"), style=STYLE, body=body)

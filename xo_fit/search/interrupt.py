@@ -1,0 +1,69 @@
+"""Stopping searches on Ctrl-C or SIGTERM and keeping the best design so far, here and in worker processes.
+
+In the main process Ctrl-C raises KeyboardInterrupt, which a search catches between two batches of
+evaluations (:func:`xo_fit.search.engines.search`); :func:`sigterm_interrupts` makes SIGTERM do the same while a
+command runs. A worker process (:func:`stopping_pool`) instead notes either signal, or the parent setting the
+pool's event, and its search stops at the next batch and returns its best so far; the parent then gathers what
+the workers found.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import signal
+import threading
+from typing import Iterator
+
+_STOP = {"flag": False, "event": None}
+
+
+def stop_requested() -> bool:
+    """Whether this worker process was asked to stop (a signal, or its parent through the pool's event)."""
+    event = _STOP["event"]
+    return bool(_STOP["flag"] or (event is not None and event.is_set()))
+
+
+def _note(signum, frame) -> None:
+    _STOP["flag"] = True
+
+
+def worker_init(event) -> None:
+    """Pool initializer: Ctrl-C or SIGTERM in a worker, or ``event`` set by the parent, stops its search (which
+    returns its best so far); the worker's numerical libraries use one thread each."""
+    _STOP["flag"] = False
+    _STOP["event"] = event
+    signal.signal(signal.SIGINT, _note)
+    signal.signal(signal.SIGTERM, _note)
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, "1")
+
+
+def stopping_pool(workers: int):
+    """A ProcessPoolExecutor of ``workers`` processes whose searches stop when the returned event is set, and the
+    event: (pool, event)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    ctx = multiprocessing.get_context()
+    event = ctx.Event()
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_init, initargs=(event,))
+    return pool, event
+
+
+@contextlib.contextmanager
+def sigterm_interrupts() -> Iterator[None]:
+    """Inside, SIGTERM raises KeyboardInterrupt in the main thread as Ctrl-C does (a search then keeps its best
+    design so far); the previous handler comes back afterwards. Elsewhere than the main thread: nothing changes."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def interrupt(signum, frame) -> None:
+        raise KeyboardInterrupt
+
+    old = signal.signal(signal.SIGTERM, interrupt)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
