@@ -261,9 +261,11 @@ def result(rng: random.Random, made: dict) -> Case:
 
 def cli(rng: random.Random) -> Case:
     extremes = {
-        "fit": [["--budget", rng.choice(["0", "1", "3", "1000000000", "10000000000", "-5", "x"])],
+        # a budget of 10^9 runs as long as it is asked to: only with a time limit (or it is no hang but a long job)
+        "fit": [rng.choice([["--budget", rng.choice(["0", "1", "3", "10000000000", "-5", "x"])],
+                            ["--budget", "1000000000", "--time-limit", "3"],
+                            ["--time-limit", rng.choice(["0", "nan", "inf", "-1", "1e-9", "1e300"])]]),
                 ["--seed", rng.choice(["-1", "0", str(2**64), str(2**70), "1e3"])],
-                ["--time-limit", rng.choice(["0", "nan", "inf", "-1", "1e-9", "1e300"])],
                 ["--workers", rng.choice(["0", "1", "2", "65", "1000"])],
                 ["--optimizer", rng.choice(["de", "scipy-de", "ng-Nope", "garbage", "", "auto", "ng-"])]],
         "spread": [["--samples", rng.choice(["0", "1", "2", str(2**40), "100000001", "-1"])],
@@ -489,6 +491,7 @@ def fuzz(runs: int, seed: int, only: list[str] | None = None, keep: Path | None 
             elif o.code in (1, 2) and o.lines != 1 and cmd[0] != "batch" and not o.detail.startswith("Usage:"):
                 stats["long"].append((label, str(folder), o.detail))
         if bad and keep is not None:
+            (folder / "commands.txt").write_text("\n".join(" ".join(c) for c in case.prepare + case.commands) + "\n")
             shutil.copytree(folder, keep / folder.name, symlinks=True, ignore_dangling_symlinks=True,
                             ignore=lambda d, names: [x for x in names if (Path(d) / x).is_fifo()])
         shutil.rmtree(folder, ignore_errors=True)

@@ -713,3 +713,13 @@ def test_the_fuzz_harness_finds_no_traceback_and_no_hang():
 
     stats = fuzz_harness.fuzz(int(os.environ.get("XO_FIT_FUZZ_RUNS", "80")), seed=11, quiet=True)
     assert not stats["tracebacks"] and not stats["hangs"], fuzz_harness.report(stats)
+
+
+def test_a_top_up_of_none_means_no_top_up(tmp_path, cli):
+    """`--top-up none` (continuous values, no series) ended in KeyError: 'none' (found by tests/fuzz_harness.py)."""
+    (tmp_path / "drawer.csv").write_text("L,1mH,4\nC,10uF,4\nC,6.8uF,4\nR,2R2,4\n")
+    code, _, err = cli("snap", _job(tmp_path), "--inventory", tmp_path / "drawer.csv", "--top-up", "none", "--out",
+                       tmp_path / "o", "--no-plots")
+    assert code == 0, err
+    parts = json.loads((tmp_path / "o" / "result.json").read_text())["parts"]
+    assert {e.get("source") for e in parts.values()} <= {"inventory", "fixed", "continuous"}

@@ -1,3 +1,11 @@
-from xo_fit.cli.app import run
+import os
+import sys
+
+try:
+    from xo_fit.cli.app import run
+except KeyboardInterrupt:  # Ctrl-C while the program is still being imported: nothing begun, nothing lost
+    sys.stderr.write("xo-fit: interrupted\n")
+    sys.stderr.flush()
+    os._exit(130)
 
 run()

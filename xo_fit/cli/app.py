@@ -30,7 +30,9 @@ def run() -> None:
     stray = [t for t in threading.enumerate() if t is not threading.main_thread() and t.is_alive() and not t.daemon]
     sys.stdout.flush()
     sys.stderr.flush()
-    if stray:
+    if stray or code == 130:
+        # 130: an interrupt that met a library's C code can leave Python's "unhandled Ctrl-C" mark set, and the
+        # interpreter would then end by killing itself with SIGINT (-2) instead of the exit code said
         os._exit(code)
     sys.exit(code)
 
@@ -44,6 +46,17 @@ def common_first(argv: list[str]) -> list[str]:
     cut = argv.index("--") if "--" in argv else len(argv)
     common = [a for a in argv[:cut] if a in COMMON_OPTIONS]
     return common + [a for a in argv[:cut] if a not in COMMON_OPTIONS] + argv[cut:]
+
+
+def _from_interrupt(e: BaseException) -> bool:
+    """Whether a KeyboardInterrupt is among the causes of ``e``."""
+    seen = set()
+    while e is not None and id(e) not in seen:
+        if isinstance(e, KeyboardInterrupt):
+            return True
+        seen.add(id(e))
+        e = e.__cause__ or e.__context__
+    return False
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -61,6 +74,9 @@ def main(argv: list[str] | None = None) -> int:
         return e.exit_code
     except KeyboardInterrupt:  # Ctrl-C or SIGTERM outside a search (which keeps its best design itself)
         pass
+    except Exception as e:  # an interrupt inside an import or a class body comes wrapped (a RuntimeError)
+        if not _from_interrupt(e):
+            raise
     except SystemExit as e:  # typer's own exits: --help (0), usage errors (2); 130: it caught a KeyboardInterrupt
         if e.code is None:
             return 0

@@ -343,6 +343,8 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     job = system.job
     combine = job.snap.combine if combine is None else combine
     top_up = job.snap.top_up if top_up is None else check_name(top_up)
+    if top_up == "none":  # "none" (continuous values) is no series to buy from: no top-up
+        top_up = None
     seed = job.search.seed if seed is None else seed
     cm, _ = require_cost_model(system, "score the snap with")
     limited = limited_cost_function(cm)
