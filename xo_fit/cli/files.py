@@ -62,6 +62,7 @@ def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or gl
         if enabled:
             sys.stderr.write("\n")
         typer.echo(f"xo-fit: {e}", err=True)
+        OUT.noted = True  # the one line is said: main adds no "interrupted"
         raise typer.Exit(e.code)
     if enabled:
         sys.stderr.write("\n")

@@ -295,7 +295,9 @@ class LazyKernel:
         try:
             fn = load_built(self.folder, self.source, self.entry, self.signature, self.cc, fixed)
         except Exception as exc:  # whatever fails here, numba can still run the kernel  # noqa: BLE001
-            level = logging.INFO if isinstance(exc, KnownFailure) else logging.WARNING
+            # a known failure, or one that may pass (an interrupted compiler, a full disk), is no news: INFO
+            quiet = isinstance(exc, KnownFailure) or getattr(exc, "transient", False)
+            level = logging.INFO if quiet else logging.WARNING
             _log.log(level, "kernel %s runs on numba: the C build failed (%s: %s)", self.entry,
                      type(exc).__name__, exc)
             fn = None
