@@ -13,7 +13,7 @@ from __future__ import annotations
 from contextlib import contextmanager
 import re
 from pathlib import Path
-from typing import Iterator, Mapping
+from collections.abc import Iterator, Mapping
 
 
 class XoFitError(Exception):

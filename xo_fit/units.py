@@ -31,7 +31,7 @@ from xo_fit.errors import XoFitError
 
 #: Unit spellings accepted for each base unit. An empty unit is always accepted.
 UNIT_SPELLINGS: dict[str, frozenset[str]] = {
-    "ohm": frozenset({"ohm", "ohms", "Ohm", "Ohms", "Ω", "Ω"}),  # U+03A9 and U+2126
+    "ohm": frozenset({"ohm", "ohms", "Ohm", "Ohms", "Ω"}),  # U+03A9 and U+2126
     "H": frozenset({"H"}),
     "F": frozenset({"F"}),
     "Hz": frozenset({"Hz"}),

@@ -17,7 +17,7 @@ import re
 import time
 import uuid
 from contextlib import contextmanager
-from typing import Iterator
+from collections.abc import Iterator
 
 from xo_fit.batch.collect import Collection, folder_name
 from xo_fit.batch.store import BatchStopped

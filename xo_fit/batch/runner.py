@@ -39,7 +39,7 @@ import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Iterator
+from collections.abc import Iterator
 
 from xo_fit.batch.collect import Collection, Item, collect, folder_name
 from xo_fit.batch.store import BatchStopped, Lock, Store

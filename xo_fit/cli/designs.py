@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import time
 from pathlib import Path
-from typing import Optional
 
 import numpy as np
 import typer
@@ -32,7 +31,7 @@ from xo_fit.job.model import DEFAULTS
 @app.command()
 def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
              out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-             from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (or its folder) whose values to use."),
+             from_: Path | None = typer.Option(None, "--from", help="A result.json (or its folder) whose values to use."),
              no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
              ) -> None:
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
@@ -58,11 +57,11 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-        budget: Optional[int] = typer.Option(None, "--budget", min=1, max=10**9, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
-        seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
-        optimizer: Optional[str] = typer.Option(None, "--optimizer",
+        budget: int | None = typer.Option(None, "--budget", min=1, max=10**9, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
+        seed: int | None = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
+        optimizer: str | None = typer.Option(None, "--optimizer",
                                                 help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
-        time_limit: Optional[float] = typer.Option(None, "--time-limit", min=0.0,
+        time_limit: float | None = typer.Option(None, "--time-limit", min=0.0,
                                                    help="Stop after this many seconds and keep the best so far."),
         workers: int = typer.Option(1, "--workers", min=1, max=64,
                                     help="Processes sharing the budget, each from a seed derived from the job's; "
@@ -149,12 +148,12 @@ def series_option(text: str | None) -> dict | None:
 @app.command()
 def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv, parts.csv, plots."),
-         from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) whose values to snap."),
-         series: Optional[str] = typer.Option(None, "--series", help='A series for every kind ("E24"), or "L=E12,C=E24".'),
-         inventory: Optional[Path] = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value \\[, count] (default: the job's \\[snap] inventory)."),
-         combine: Optional[int] = typer.Option(None, "--combine", min=1, max=2,
+         from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) whose values to snap."),
+         series: str | None = typer.Option(None, "--series", help='A series for every kind ("E24"), or "L=E12,C=E24".'),
+         inventory: Path | None = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value \\[, count] (default: the job's \\[snap] inventory)."),
+         combine: int | None = typer.Option(None, "--combine", min=1, max=2,
                                                help="2: allow two parts to make one value."),
-         top_up: Optional[str] = typer.Option(None, "--top-up",
+         top_up: str | None = typer.Option(None, "--top-up",
                                               help="With an inventory: a series to buy from where the drawer lacks "
                                                    "a value (default: the job's \\[snap] top_up)."),
          speakers: int = typer.Option(2, "--speakers", min=1, max=10000,
@@ -216,9 +215,9 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, spread.csv and plots."),
-           from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
-           samples: Optional[int] = typer.Option(None, "--samples", min=1, max=10**8, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
-           seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[spread] seed, else {DEFAULTS['spread']['seed']})."),
+           from_: Path | None = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
+           samples: int | None = typer.Option(None, "--samples", min=1, max=10**8, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
+           seed: int | None = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[spread] seed, else {DEFAULTS['spread']['seed']})."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
@@ -268,10 +267,10 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
-          from_: Optional[Path] = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
-          budget: Optional[int] = typer.Option(None, "--budget", min=1, max=10**9,
+          from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
+          budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
                                                help="Cost evaluations per refit (default 600)."),
-          seed: Optional[int] = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
+          seed: int | None = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
           max_increase: float = typer.Option(100 * MAX_INCREASE, "--max-increase", min=0.0,
                                              help="Largest cost increase over step 0 for the chosen design, %."),
           workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),

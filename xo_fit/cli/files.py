@@ -5,7 +5,6 @@ from __future__ import annotations
 import sys
 import time
 from pathlib import Path
-from typing import Optional
 
 import typer
 
@@ -16,12 +15,12 @@ from xo_fit.io.results import check_folder, check_target
 
 
 @app.command()
-def batch(jobs: Optional[list[str]] = typer.Argument(None, help="Job files or globs (quote globs)."),
-          out: Optional[Path] = typer.Option(None, "--out", "-o", help="Folder for results.sqlite and one folder per job."),
+def batch(jobs: list[str] | None = typer.Argument(None, help="Job files or globs (quote globs)."),
+          out: Path | None = typer.Option(None, "--out", "-o", help="Folder for results.sqlite and one folder per job."),
           stages: str = typer.Option("fit,snap,spread", "--stages", help="Comma-separated: fit, snap, spread."),
-          workers: Optional[int] = typer.Option(None, "--workers", min=1, help="Local worker processes (default: cores)."),
-          scheduler: Optional[str] = typer.Option(None, "--scheduler", help="A running Dask scheduler, tcp://HOST:PORT."),
-          summary: Optional[Path] = typer.Option(None, "--summary", help="Only print (and rewrite) the summary of DIR."),
+          workers: int | None = typer.Option(None, "--workers", min=1, help="Local worker processes (default: cores)."),
+          scheduler: str | None = typer.Option(None, "--scheduler", help="A running Dask scheduler, tcp://HOST:PORT."),
+          summary: Path | None = typer.Option(None, "--summary", help="Only print (and rewrite) the summary of DIR."),
           no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNGs."),
           ) -> None:
     """Run many jobs unattended and resumably: results.sqlite, one folder per job, summary.csv."""
@@ -91,7 +90,7 @@ def report_failures(failures: list[tuple[str, str, str]]) -> None:
 @app.command()
 def report(results: list[Path] = typer.Argument(..., help="result.json files (or their folders); overlaid."),
            out: Path = typer.Option(..., "--out", "-o", help="Folder for report.html, its PNGs and bom.csv."),
-           buy: Optional[Path] = typer.Option(None, "--buy", help="The result whose parts to buy (bom.csv; default: "
+           buy: Path | None = typer.Option(None, "--buy", help="The result whose parts to buy (bom.csv; default: "
                                                                   "the last snap given)."),
            speakers: int = typer.Option(2, "--speakers", min=1, max=10000,
                                         help="Speakers to buy parts for: the quantities of bom.csv."),

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Optional
 
 import typer
 
@@ -44,9 +43,9 @@ def driver(impedance: Path = typer.Argument(..., help="A measured impedance file
            model: str = typer.Option("ts", "--model", help="ts (Small's model), ts-lossy (with L2 || R2), vented (the "
                                                            "driver in its vented box: the twin-peak impedance) or "
                                                            "vented-lossy."),
-           name: Optional[str] = typer.Option(None, "--name", help="The driver's name in the TOML printed "
+           name: str | None = typer.Option(None, "--name", help="The driver's name in the TOML printed "
                                                                   "(default: from the file name)."),
-           volume: Optional[str] = typer.Option(None, "--volume", help="vented: the box's net volume (\"40L\"), "
+           volume: str | None = typer.Option(None, "--volume", help="vented: the box's net volume (\"40L\"), "
                                                                       "which gives vas.")) -> None:
     """Fit an equivalent circuit to a measured impedance; print its parameters, the fit error and the TOML to paste."""
     import re

@@ -6,7 +6,8 @@ import json
 import re
 import tomllib
 from pathlib import Path
-from typing import Any, Mapping
+from typing import Any
+from collections.abc import Mapping
 
 import numpy as np
 
@@ -40,7 +41,7 @@ def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = N
 
 
 def read_document(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *,
-          copy: bool = True) -> tuple[dict, "Context"]:
+          copy: bool = True) -> tuple[dict, Context]:
     if isinstance(source, Mapping):
         import copy as copying
 

@@ -57,7 +57,7 @@ class Lines:
 class Reader:
     """Reads one table of the job: typed getters, then ``done()`` refuses unknown keys."""
 
-    def __init__(self, data: Any, table: tuple, label: str, ctx: "Context") -> None:
+    def __init__(self, data: Any, table: tuple, label: str, ctx: Context) -> None:
         self.ctx = ctx
         self.table = table
         self.label = label
@@ -154,7 +154,7 @@ class Reader:
         p = Path(v)
         return p if p.is_absolute() else (self.ctx.folder / p)
 
-    def sub(self, key: str, label: str | None = None) -> "Reader":
+    def sub(self, key: str, label: str | None = None) -> Reader:
         self.used.add(key)
         return Reader(self.data.get(key, {}), self.table + (key,), label or f"[{'.'.join(map(str, self.table + (key,)))}]", self.ctx)
 

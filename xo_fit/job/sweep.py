@@ -8,7 +8,8 @@ import itertools
 import math
 import re
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
+from collections.abc import Iterator
 
 from xo_fit.errors import XoFitError
 from xo_fit.job.model import FrozenMap, Job
@@ -119,7 +120,7 @@ def read_sweep(path: str | Path) -> Sweep:
     return Sweep(data, ctx, base_name, tuple(axes))
 
 
-def expand_job(path: str | Path) -> list[tuple["Job", dict]]:
+def expand_job(path: str | Path) -> list[tuple[Job, dict]]:
     """A job file as the list of jobs it stands for: itself, or one per variant of its [sweep].
 
     [sweep] maps dotted paths to lists of values; every combination of the lists
@@ -152,7 +153,7 @@ def variant_label(value: Any) -> str:
     return re.sub(r"[^\w.=+-]+", "_", str(value))[:40]
 
 
-def assign_path(data: dict, path: str, value: Any, ctx: "Context", key: str) -> None:
+def assign_path(data: dict, path: str, value: Any, ctx: Context, key: str) -> None:
     segs = path.split(".")
     node: Any = data
     for i, seg in enumerate(segs[:-1]):

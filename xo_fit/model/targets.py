@@ -44,7 +44,7 @@ from xo_fit.io.measure import read_curve
 
 
 
-def shipped_curves() -> dict[str, "importlib.resources.abc.Traversable"]:
+def shipped_curves() -> dict[str, importlib.resources.abc.Traversable]:
     """The ready-made system target curves (frequency, dB) shipped as package data, by stem."""
     folder = importlib.resources.files("xo_fit").joinpath("data", "targets")
     return {Path(x.name).stem: x for x in folder.iterdir() if x.name.endswith(".txt")}

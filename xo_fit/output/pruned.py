@@ -27,7 +27,7 @@ class Pruning:
     interrupted: bool = False  # Ctrl-C or SIGTERM stopped it: the steps so far
 
     @classmethod
-    def of_run(cls, run: PruneRun) -> "Pruning":
+    def of_run(cls, run: PruneRun) -> Pruning:
         """The designs of a computed prune (stage "prune"; the chosen one labelled "pruned")."""
         designs = [Design(system=s, scored=sc, stage="prune", label=f"prune step {i}", sections={"prune": run.section})
                    for i, (s, sc) in enumerate(run.states)]

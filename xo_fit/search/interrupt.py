@@ -13,7 +13,7 @@ import contextlib
 import os
 import signal
 import threading
-from typing import Iterator
+from collections.abc import Iterator
 
 _STOP = {"flag": False, "event": None}
 

@@ -58,8 +58,8 @@ class SolverCode:
 class _Build:
     """The state of one generation, passed from step to step of :func:`solver_code`."""
 
-    e: "Emitter"
-    net: "Network"
+    e: Emitter
+    net: Network
     edges: list
     forms: list = field(default_factory=list)   # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss, k)
     ys: list = field(default_factory=list)      # per edge: its admittance (re, im) names

@@ -80,7 +80,7 @@ def elimination_order(nodes: list[str], adj: dict[str, set[str]], rhs: set[str],
     return order
 
 
-def batch_reciprocal(e: "Emitter", dens: list[str], traps: list[str], stem: str) -> list[str]:
+def batch_reciprocal(e: Emitter, dens: list[str], traps: list[str], stem: str) -> list[str]:
     """Reciprocals of several independent reals with one division (Montgomery's trick, tree-shaped).
 
     The values are multiplied pairwise up a balanced tree, the root is

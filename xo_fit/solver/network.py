@@ -48,7 +48,7 @@ __all__ = ["Branch", "Network", "Solution", "compile_network"]
 
 def compile_network(branches: list[Branch], driver_names: list[str], frequencies: np.ndarray,
                     driver_impedance: np.ndarray, source_voltage: float, source_resistance: float,
-                    *, context: str | None = None) -> "Network":
+                    *, context: str | None = None) -> Network:
     """Check a netlist and build its solver.
 
     Parameters

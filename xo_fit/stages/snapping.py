@@ -425,7 +425,7 @@ def _first_feasible(ev: _Evaluator, base: np.ndarray, path=None) -> np.ndarray:
     return a
 
 
-def _shortfall(ev: "_Evaluator") -> str:
+def _shortfall(ev: _Evaluator) -> str:
     """Which kinds the drawer lacks, with counts: "coils: 6 needed, 5 held"."""
     names = {"R": "resistors", "L": "coils", "C": "capacitors"}
     needed: dict[str, int] = {}
@@ -474,7 +474,7 @@ def parts_table(outcome: SnapOutcome, job, tolerance_defaults: dict) -> list[dic
     return rows
 
 
-def snap_warnings(outcome: "SnapOutcome", continuous_cost: float | None, snapped_cost: float | None,
+def snap_warnings(outcome: SnapOutcome, continuous_cost: float | None, snapped_cost: float | None,
                   inventory: bool) -> list[str]:
     """One-line warnings for a snap that moved parts far from their continuous values or raised the cost by more
     than half, each with what usually helps (--top-up, --combine 2, a finer series)."""

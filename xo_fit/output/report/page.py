@@ -17,6 +17,7 @@ import xo_fit.output.report.parts as parts
 import xo_fit.output.report.sections as sections
 from xo_fit.output.report.markup import Markup, esc, join, para, tag
 from xo_fit.output.report.results import ReportItem, check_alike, choose_buy, report_items
+from datetime import UTC
 
 
 @dataclass(eq=False)
@@ -103,11 +104,11 @@ def _names(rep: Report) -> str:
 
 
 def _made(command: list[str] | None) -> str:
-    from datetime import datetime, timezone
+    from datetime import datetime
 
     from xo_fit import __version__
 
-    return (f"xo_fit {__version__}, {datetime.now(timezone.utc).strftime('%Y-%m-%d %H:%M UTC')}, from: "
+    return (f"xo_fit {__version__}, {datetime.now(UTC).strftime('%Y-%m-%d %H:%M UTC')}, from: "
             f"{' '.join(command) if command else 'the Python API'}")
 
 
