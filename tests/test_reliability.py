@@ -299,10 +299,10 @@ def results(tmp_path_factory):
 
 
 _PRUNE = {"steps": [{"step": 0, "parts": 6, "removed": "", "how": "", "cost": 1.0, "rms_error_db": 0.5,
-                     "max_error_db": 1.0, "phase_mismatch_deg": 3.0, "impedance_min_ohm": 4.1},
+                     "max_error_db": 1.0, "phase_mismatch_deg": 4.0, "impedance_min_ohm": 5.1},
                     {"step": 1, "parts": 5, "removed": "R1", "how": "short", "cost": 1.05, "rms_error_db": 0.52,
-                     "max_error_db": 1.1, "phase_mismatch_deg": 3.2, "impedance_min_ohm": None}],
-          "chosen_step": 1, "max_increase": 0.1}
+                     "max_error_db": 1.1, "phase_mismatch_deg": 4.5, "impedance_min_ohm": 5.0}], "chosen_step": 1,
+          "max_increase": 0.1}
 
 
 def _set(doc: dict, path: str, value) -> None:

@@ -96,7 +96,8 @@ def check_sections(doc: dict, path: str | Path) -> None:
     ``doc`` is a parsed result whose "parts" is a table of tables, each with a positive "value".
     """
     c = _Check(Path(path))
-    c.want(doc.get("stage") is None or _text(doc["stage"]), "stage", 'a text such as "fit"')
+    c.want(doc.get("stage") is None or (_text(doc["stage"]) and doc["stage"].isprintable()), "stage",
+           'a text such as "fit"')
     src = c.table(doc, "source")
     if src is not None:
         for k in ("job", "folder", "job_folder", "from", "inventory"):
