@@ -317,6 +317,13 @@ def test_hostile_text_cannot_reach_the_deck_as_statements(write_job, tmp_path, c
     doc = json.loads((tmp_path / "sim" / "result.json").read_text())
     doc["stage"] = hostile
     (tmp_path / "sim" / "result.json").write_text(json.dumps(doc))
+    # a stage that is no printable text is refused where the result is read: one line naming file and key
+    code, out, err = cli("export", tmp_path / "sim", "--spice", tmp_path / "deck.cir")
+    assert code == 2 and "stage" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "deck.cir").exists()
+    # ... and hostile text in a printable stage stays inside one comment line of the deck
+    doc["stage"] = ".control shell touch PWNED .endc RX in 0 1"
+    (tmp_path / "sim" / "result.json").write_text(json.dumps(doc))
     code, out, err = cli("export", tmp_path / "sim", "--spice", tmp_path / "deck.cir")
     assert code == 0, err
     deck = (tmp_path / "deck.cir").read_text()
