@@ -156,7 +156,8 @@ class Reader:
 
     def sub(self, key: str, label: str | None = None) -> Reader:
         self.used.add(key)
-        return Reader(self.data.get(key, {}), self.table + (key,), label or f"[{'.'.join(map(str, self.table + (key,)))}]", self.ctx)
+        table = self.table + (key,)
+        return Reader(self.data.get(key, {}), table, label or f"[{'.'.join(map(str, table))}]", self.ctx)
 
     def done(self, allowed_extra: tuple[str, ...] = ()) -> None:
         unknown = [k for k in self.data if k not in self.used and k not in allowed_extra]

@@ -1,4 +1,5 @@
-"""The job's tables other than [[part]]: grid, drivers and their angles, target and ways, cost, search, snap, spread, stress."""
+"""The job's tables other than [[part]]: grid, drivers and their angles, target and ways, cost, search, snap, spread,
+stress."""
 
 from __future__ import annotations
 
@@ -11,7 +12,10 @@ import numpy as np
 from xo_fit.errors import XoFitError
 from xo_fit.grid import Grid
 from xo_fit.units import UnitsError, parse_percent, parse_value
-from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
+from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN,
+                              FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec,
+                              position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec,
+                              StressSpec)
 from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice, close_match)
 from xo_fit.job.baffle import read_radius
@@ -57,7 +61,8 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         raise r.error(None, f"{name!r}: a driver name must start with a letter and hold only letters, digits, _ and -")
     d = DEFAULTS["driver"]
     if not r.has("response"):
-        raise r.error("response", "missing; expected a measurement file path, or a level in dB SPL for an ideal flat driver")
+        raise r.error("response", "missing; expected a measurement file path, or a level in dB SPL "
+                                  "for an ideal flat driver")
     if not r.has("impedance"):
         raise r.error("impedance", "missing; expected a measurement file path, a resistance in ohm, "
                       "or a Thiele-Small table {re, le, fs, qms, qes}")
@@ -225,8 +230,8 @@ def read_angles(r: Reader, measured: bool) -> AngleSpec:
         if r.has(key):
             v = r.text(key)
             if v.count("{angle}") != 1 or re.search(r"[\x00-\x1f\x7f]", v):
-                raise r.error(key, f"expected a file pattern holding {{angle}} once (e.g. \"polar/woofer-h{{angle}}.txt\"), "
-                                   f"got {short(v)}")
+                raise r.error(key, "expected a file pattern holding {angle} once "
+                                   f"(e.g. \"polar/woofer-h{{angle}}.txt\"), got {short(v)}")
             p = Path(v)
             patterns[key] = str(p if p.is_absolute() else (r.ctx.folder / p))
         lists_key = f"{key}_angles"

@@ -299,7 +299,8 @@ class CostModel:
         v = np.atleast_2d(np.asarray(values, dtype=float))
         amps = branch_currents(self.system.network, v)[..., self.band] * self.drive_scale  # (B, branches, Fb)
         w = 2 * np.pi * self.system.frequencies[self.band]
-        e = [stress_excess_db(kind, np.abs(amps[:, j]) ** 2, v[:, col], w, rating) for j, col, kind, rating in self.rated]
+        e = [stress_excess_db(kind, np.abs(amps[:, j]) ** 2, v[:, col], w, rating)
+             for j, col, kind, rating in self.rated]
         return np.mean(np.square(e), axis=0)
 
     def _impedance(self, z: np.ndarray) -> np.ndarray:
