@@ -116,12 +116,12 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
 def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
            spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
     """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
-    from xo_fit.output.design import load_result
+    from xo_fit.output.design import Spread, load_result
     from xo_fit.output.spice import export as write_spice
 
     check_target(spice, "--spice")
-    d = load_result(result)
-    d = getattr(d, "design", d)
+    loaded = load_result(result)
+    d = loaded.design if isinstance(loaded, Spread) else loaded
     system = d.system
     deck = write_spice(system, d.array, spice, f"{system.job.name} ({d.stage})")
     say(f"wrote {spice}; `ngspice -b {spice.name}` runs it, prints the driver voltages and input impedance and "

@@ -71,7 +71,7 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
         if wire is not None:
             dcr, dcr_wire = wire, True
         elif isinstance(raw, str) and is_length(raw):
-            dcr, dcr_wire = r.value("dcr", "m"), True
+            dcr, dcr_wire = r.value("dcr", "m", required=True), True
         else:
             try:
                 dcr = parse_value(raw, "ohm", allow_zero=True)
@@ -84,7 +84,7 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
     if r.has("esr"):
         if ptype != "C":
             raise r.error("esr", "only a capacitor (type C) has esr; a coil has dcr")
-        esr = r.value("esr", "ohm", allow_zero=True, limits=OHMS)
+        esr = r.value("esr", "ohm", required=True, allow_zero=True, limits=OHMS)
     tol = None
     if r.has("tolerance"):
         try:

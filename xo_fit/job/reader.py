@@ -98,6 +98,7 @@ def build_job(data: dict, ctx: Context) -> Job:
     with_angles = [d for d in drivers if d.angles is not None]
     if with_angles:
         first = with_angles[0]
+        assert first.angles is not None  # with_angles holds the drivers that have angles
         for d in drivers:
             if d.angles is None:
                 raise ctx.error(("driver", d.name), None, f"driver '{d.name}' has no [driver.{d.name}.angles] but "

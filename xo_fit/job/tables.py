@@ -3,6 +3,7 @@ stress."""
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 import math
 import re
 from pathlib import Path
@@ -141,7 +142,7 @@ def read_impedance(name: str, r: Reader) -> FileCurve | Resistive | ThieleSmall 
         t.done()
         return impedance
     if (isinstance(imp, str) and looks_numeric(imp)) or (isinstance(imp, (int, float)) and not isinstance(imp, bool)):
-        return Resistive(r.value("impedance", "ohm"))
+        return Resistive(r.value("impedance", "ohm", required=True))
     return FileCurve(r.path("impedance"))
 
 
@@ -177,10 +178,10 @@ def response_table(t: Reader) -> FileCurve | SplicedResponse:
 def read_ts(r: Reader) -> FrozenMap:
     """[driver.NAME.ts]: the Thiele-Small values given, SI (which of them determine the rest is worked out
     when the job's drivers are modelled, :mod:`xo_fit.model.drivers`)."""
-    out = {}
+    out: dict[str, float] = {}
     for key in r.data:
         if key in TS_UNITS:
-            out[key] = r.value(key, TS_UNITS[key], allow_zero=key == "le")
+            out[key] = r.value(key, TS_UNITS[key], required=True, allow_zero=key == "le")
     r.done()
     if ("l2" in out) != ("r2" in out):
         raise r.error("l2" if "r2" in out else "r2", "the lossy coil needs both l2 (H) and r2 (ohm, across l2)")
@@ -190,7 +191,7 @@ def read_ts(r: Reader) -> FrozenMap:
     return FrozenMap(out)
 
 
-def plausible(r: Reader, values: dict, units: dict) -> None:
+def plausible(r: Reader, values: Mapping[str, float], units: Mapping[str, str]) -> None:
     """A one-line warning for each value outside what drivers and boxes have (TS_PLAUSIBLE): a unit slip."""
     for key, v in values.items():
         lo, hi = TS_PLAUSIBLE[key]

@@ -235,7 +235,12 @@ class CostModel:
         a Simulation; {} when it weighs none."""
         if not self.needed:
             return {}
-        return curve_sums(sim.voltages, self.system.angle_factors, {n: self.curve_weights[n] for n in self.needed})
+        weights = {}
+        for n in self.needed:
+            w = self.curve_weights[n]
+            assert w is not None  # load_system refuses a job whose positions lack a curve the cost weighs
+            weights[n] = w
+        return curve_sums(sim.voltages, self.system.angle_factors, weights)
 
     def all_curves(self, sim) -> dict[str, np.ndarray]:
         """Every ANSI/CTA-2034-A curve the job's positions allow (Pa^2, (B, F)); {} on axis."""
@@ -247,6 +252,7 @@ class CostModel:
     def preference_term(self, sim) -> np.ndarray:
         """The preference term (B,) of a Simulation, unweighted: max(0, 10 - score)^2 / 100 of each design's
         predicted preference (LFX bounded by the grid's lowest frequency, so it stays finite)."""
+        assert self.preference_plan is not None  # asked only of a cost that weighs the preference
         pref = preference_of(self.preference_plan, self.all_curves(sim), bound_lfx=True)
         return cost_term(pref.score, 1.0)
 
