@@ -431,8 +431,9 @@ def write_scenario(folder: str | Path) -> Path:
                                                            "Wren woofer, in cabinet"))
     # the tweeter's gate leaves nothing below 300 Hz: the job extends it (extend_low = "order2")
     ft = f[f >= TWEETER_GATE_HZ]
-    write_text(data / "tweeter-response.txt", _curve_text(ft, tweeter_response(ft), "response",
-                                                           "Wren tweeter, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
+    write_text(data / "tweeter-response.txt",
+               _curve_text(ft, tweeter_response(ft), "response",
+                           "Wren tweeter, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
     write_text(data / "tweeter-impedance.txt", _curve_text(f, TWEETER.impedance(f), "impedance",
                                                             "Wren tweeter, in cabinet"))
     for name, resp, radius, lo in (("tweeter", tweeter_response, TWEETER_RADIUS, TWEETER_GATE_HZ),):

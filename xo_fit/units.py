@@ -189,12 +189,13 @@ def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: 
         if "," in text:
             raise UnitsError(f"'{text}': a comma in a value; write a decimal point (\"4.2mH\", not \"4,2mH\") "
                              "and no thousands separator")
-        result = _letter_code(text, unit)
-        if result is None:
-            if _NUMBER.match(text):
-                result = float(text)
-            else:
-                result = _scaled(text, unit)
+        code = _letter_code(text, unit)
+        if code is not None:
+            result = code
+        elif _NUMBER.match(text):
+            result = float(text)
+        else:
+            result = _scaled(text, unit)
     else:
         raise UnitsError(f"expected {_describe(unit)}, got {type(value).__name__} {value!r}")
     if not math.isfinite(result):

@@ -51,11 +51,12 @@ def common_first(argv: list[str]) -> list[str]:
 def _from_interrupt(e: BaseException) -> bool:
     """Whether a KeyboardInterrupt is among the causes of ``e``."""
     seen = set()
-    while e is not None and id(e) not in seen:
-        if isinstance(e, KeyboardInterrupt):
+    cause: BaseException | None = e
+    while cause is not None and id(cause) not in seen:
+        if isinstance(cause, KeyboardInterrupt):
             return True
-        seen.add(id(e))
-        e = e.__cause__ or e.__context__
+        seen.add(id(cause))
+        cause = cause.__cause__ or cause.__context__
     return False
 
 

@@ -114,7 +114,8 @@ def print_findings(design) -> None:
         parts = [f"{w['way']} {w['rms_db']:.2f} dB rms, worst {w['worst_db']:+.2f} dB at {w['worst_hz']:.0f} Hz"
                  for w in b["ways"]]
         parts += [f"crossover {c['ways']} ({c['from_hz']:.0f}-{c['to_hz']:.0f} Hz): sum {c['sum_rms_db']:.2f} dB rms, "
-                  f"phase worst {c['phase_worst_deg']:+.1f} deg at {c['phase_worst_hz']:.0f} Hz" for c in b["crossovers"]]
+                  f"phase worst {c['phase_worst_deg']:+.1f} deg at {c['phase_worst_hz']:.0f} Hz"
+                  for c in b["crossovers"]]
         say("  where the error lies: " + "; ".join(parts))
     for f in design.findings:
         say(f"  finding ({f['kind']}): {f['text']}")
@@ -203,4 +204,5 @@ def print_summary(rows: list[dict]) -> None:
         yld = f"{r['yield_band'] * 100:5.1f}%" if isinstance(r.get("yield_band"), (int, float)) else "-"
         say(f"  {r['job'][:36]:<36} {r['status']:<8} {r['stage'] or '-':<7} {num(r['cost'], '9.4g'):>9} "
             f"{num(r['rms_error_db'], '7.2f'):>7} {num(r['max_error_db'], '8.2f'):>8} "
-            f"{num(r['impedance_min_ohm'], '8.2f'):>8} {yld:>6}  {swept}" + (f"  {r['error'][:60]}" if r["error"] else ""))
+            f"{num(r['impedance_min_ohm'], '8.2f'):>8} {yld:>6}  {swept}"
+            + (f"  {r['error'][:60]}" if r["error"] else ""))

@@ -31,7 +31,8 @@ from xo_fit.job.model import DEFAULTS
 @app.command()
 def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
              out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-             from_: Path | None = typer.Option(None, "--from", help="A result.json (or its folder) whose values to use."),
+             from_: Path | None = typer.Option(None, "--from",
+                                               help="A result.json (or its folder) whose values to use."),
              no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
              ) -> None:
     """Evaluate the job's own values (a hand design), or those of a result, and write the curves."""
@@ -57,8 +58,12 @@ def simulate(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv and plots."),
-        budget: int | None = typer.Option(None, "--budget", min=1, max=10**9, help=f"Cost evaluations (default: the job's \\[search] budget, else {DEFAULTS['search']['budget']})."),
-        seed: int | None = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
+        budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
+                                          help="Cost evaluations (default: the job's \\[search] budget, "
+                                               f"else {DEFAULTS['search']['budget']})."),
+        seed: int | None = typer.Option(None, "--seed", min=0,
+                                        help="Random seed (default: the job's \\[search] seed, "
+                                             f"else {DEFAULTS['search']['seed']})."),
         optimizer: str | None = typer.Option(None, "--optimizer",
                                                 help="auto, de, scipy-de or ng-NAME (a nevergrad optimizer)."),
         time_limit: float | None = typer.Option(None, "--time-limit", min=0.0,
@@ -150,7 +155,9 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
          out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, response.csv, parts.csv, plots."),
          from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) whose values to snap."),
          series: str | None = typer.Option(None, "--series", help='A series for every kind ("E24"), or "L=E12,C=E24".'),
-         inventory: Path | None = typer.Option(None, "--inventory", help="A CSV of parts on hand: kind, value \\[, count] (default: the job's \\[snap] inventory)."),
+         inventory: Path | None = typer.Option(None, "--inventory",
+                                               help="A CSV of parts on hand: kind, value \\[, count] "
+                                                    "(default: the job's \\[snap] inventory)."),
          combine: int | None = typer.Option(None, "--combine", min=1, max=2,
                                                help="2: allow two parts to make one value."),
          top_up: str | None = typer.Option(None, "--top-up",
@@ -197,8 +204,8 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
         change = (sp.value / sp.continuous - 1) * 100
         say(f"  {sp.name:<8} {format_value(sp.continuous, unit):>12} {shown:>22} {change:>+7.1f}%  {sp.source}")
     if before.cost is not None:
-        say(f"  cost: continuous {before.cost:.4g}, log-nearest rounding {st.document['snap']['log_nearest_cost']:.4g}, "
-            f"snapped {after.cost:.4g}")
+        say(f"  cost: continuous {before.cost:.4g}, "
+            f"log-nearest rounding {st.document['snap']['log_nearest_cost']:.4g}, snapped {after.cost:.4g}")
         for label, sc in (("continuous", before), ("snapped", after)):
             m = sc.metrics
             say(f"  {label:<10} rms {m['rms_error_db']:.2f} dB, worst {m['max_error_db']:.2f} dB, "
@@ -216,8 +223,12 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
            out: Path = typer.Option(..., "--out", "-o", help="Folder for result.json, spread.csv and plots."),
            from_: Path | None = typer.Option(None, "--from", help="A result.json (fit or snap) whose design to use."),
-           samples: int | None = typer.Option(None, "--samples", min=1, max=10**8, help=f"Tolerance draws (default: the job's \\[spread] samples, else {DEFAULTS['spread']['samples']})."),
-           seed: int | None = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[spread] seed, else {DEFAULTS['spread']['seed']})."),
+           samples: int | None = typer.Option(None, "--samples", min=1, max=10**8,
+                                              help="Tolerance draws (default: the job's \\[spread] samples, "
+                                                   f"else {DEFAULTS['spread']['samples']})."),
+           seed: int | None = typer.Option(None, "--seed", min=0,
+                                           help="Random seed (default: the job's \\[spread] seed, "
+                                                f"else {DEFAULTS['spread']['seed']})."),
            no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG."),
            ) -> None:
     """Tolerance Monte Carlo of a design: level percentiles, yield, sensitivity per part, worst cases, pair matching."""
@@ -248,7 +259,8 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
     if m.get("rms_error_db") is not None and m["rms_error_db"] > r.limits["rms_error_db"]:
         misses.append(f"its rms error is {m['rms_error_db']:.2f} dB (limit {r.limits['rms_error_db']:g} dB)")
     if r.limits["impedance_min_ohm"] > 0 and m["impedance_min_ohm"] < r.limits["impedance_min_ohm"]:
-        misses.append(f"its |Z| falls to {m['impedance_min_ohm']:.2f} ohm (floor {r.limits['impedance_min_ohm']:g} ohm)")
+        misses.append(f"its |Z| falls to {m['impedance_min_ohm']:.2f} ohm "
+                      f"(floor {r.limits['impedance_min_ohm']:g} ohm)")
     if misses:
         say("  the nominal design itself misses the limits: " + "; ".join(misses)
             + (" (so few builds or none can meet them: fit or snap the design first, or relax [spread] rms_limit_db)"
@@ -270,7 +282,9 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
           budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
                                                help="Cost evaluations per refit (default 600)."),
-          seed: int | None = typer.Option(None, "--seed", min=0, help=f"Random seed (default: the job's \\[search] seed, else {DEFAULTS['search']['seed']})."),
+          seed: int | None = typer.Option(None, "--seed", min=0,
+                                          help="Random seed (default: the job's \\[search] seed, "
+                                               f"else {DEFAULTS['search']['seed']})."),
           max_increase: float = typer.Option(100 * MAX_INCREASE, "--max-increase", min=0.0,
                                              help="Largest cost increase over step 0 for the chosen design, %."),
           workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),

@@ -16,7 +16,8 @@ from xo_fit.io.results import check_folder, check_target
 
 @app.command()
 def batch(jobs: list[str] | None = typer.Argument(None, help="Job files or globs (quote globs)."),
-          out: Path | None = typer.Option(None, "--out", "-o", help="Folder for results.sqlite and one folder per job."),
+          out: Path | None = typer.Option(None, "--out", "-o",
+                                          help="Folder for results.sqlite and one folder per job."),
           stages: str = typer.Option("fit,snap,spread", "--stages", help="Comma-separated: fit, snap, spread."),
           workers: int | None = typer.Option(None, "--workers", min=1, help="Local worker processes (default: cores)."),
           scheduler: str | None = typer.Option(None, "--scheduler", help="A running Dask scheduler, tcp://HOST:PORT."),
@@ -33,7 +34,7 @@ def batch(jobs: list[str] | None = typer.Argument(None, help="Job files or globs
             rows = write_summary(summary)
         except BatchStopped as e:
             typer.echo(f"xo-fit: {e}", err=True)
-            raise typer.Exit(e.code)
+            raise typer.Exit(e.code) from None
         say(f"batch {summary}: {len(rows)} jobs, sorted by cost (also in {summary / 'summary.csv'})")
         print_summary(rows)
         return
@@ -62,7 +63,7 @@ def batch(jobs: list[str] | None = typer.Argument(None, help="Job files or globs
             sys.stderr.write("\n")
         typer.echo(f"xo-fit: {e}", err=True)
         OUT.noted = True  # the one line is said: main adds no "interrupted"
-        raise typer.Exit(e.code)
+        raise typer.Exit(e.code) from None
     if enabled:
         sys.stderr.write("\n")
     report_failures(rep.failures)
@@ -115,12 +116,12 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
 def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
            spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
     """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
-    from xo_fit.output.design import load_result
+    from xo_fit.output.design import Spread, load_result
     from xo_fit.output.spice import export as write_spice
 
     check_target(spice, "--spice")
-    d = load_result(result)
-    d = getattr(d, "design", d)
+    loaded = load_result(result)
+    d = loaded.design if isinstance(loaded, Spread) else loaded
     system = d.system
     deck = write_spice(system, d.array, spice, f"{system.job.name} ({d.stage})")
     say(f"wrote {spice}; `ngspice -b {spice.name}` runs it, prints the driver voltages and input impedance and "

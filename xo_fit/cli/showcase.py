@@ -29,8 +29,8 @@ def baffle_figures(job: Path) -> str:
 @app.command()
 def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scenario and its results.")) -> None:
     """The invented two-way scenario end to end: write its measurement files and job, simulate the hand design,
-    fit (with the predicted preference score of both), snap the fit to purchasable values, spread the snapped design over 5 % part tolerances, and write the
-    report (DIR/report/report.html)."""
+    fit (with the predicted preference score of both), snap the fit to purchasable values, spread the snapped design
+    over 5 % part tolerances, and write the report (DIR/report/report.html)."""
     from xo_fit.demo import write_scenario
 
     job = write_scenario(out / "scenario")
@@ -63,8 +63,8 @@ def demo(out: Path = typer.Option(..., "--out", "-o", help="Folder for the scena
             f"{e['unit']}): add `stress = 10` to the job's [cost] and fit again to keep it within, at some cost "
             "in accuracy")
     say("snap to purchasable values (E12 coils and capacitors, E24 resistors):")
-    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, top_up=None, speakers=2,
-         no_plots=False)
+    snap(job=job, out=out / "snap", from_=out / "fit", series=None, inventory=None, combine=None, top_up=None,
+         speakers=2, no_plots=False)
     say("tolerance spread of the snapped design:")
     spread(job=job, out=out / "spread", from_=out / "snap", samples=None, seed=None, no_plots=False)
     say("SPICE deck of the snapped design (measured drivers as circuits fitted to their impedance):")

@@ -31,8 +31,8 @@ os.umask(_UMASK)
 
 
 def _failed(path: Path, e: OSError) -> WriteError:
-    return WriteError(f"cannot write it: {e.strerror or e}" + (" (the disk is full)" if e.errno == errno.ENOSPC else ""),
-                      path=_shown(path))
+    full = " (the disk is full)" if e.errno == errno.ENOSPC else ""
+    return WriteError(f"cannot write it: {e.strerror or e}{full}", path=_shown(path))
 
 
 def check_target(path: str | Path, option: str | None = None) -> None:

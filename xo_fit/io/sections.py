@@ -58,6 +58,7 @@ def _parts(c: _Check, parts: dict) -> None:
 def _prune(c: _Check, pr: dict) -> None:
     steps = pr.get("steps")
     c.want(isinstance(steps, list) and len(steps) >= 1, "prune.steps", "a list of steps, step 0 first")
+    assert isinstance(steps, list)  # want() raised otherwise
     for i, r in enumerate(steps):
         key = f"prune.steps[{i}]"
         c.want(isinstance(r, dict), key, "a table")
@@ -81,10 +82,12 @@ def _prune(c: _Check, pr: dict) -> None:
 def _spread(c: _Check, sp: dict) -> None:
     y = sp.get("yield")
     c.want(isinstance(y, dict), "spread.yield", "a table")
+    assert isinstance(y, dict)  # want() raised otherwise
     for k in ("within_band", "meeting_limits"):
         c.want(_num(y.get(k)) and 0 <= y[k] <= 1, f"spread.yield.{k}", "a share from 0 to 1")
     sens = sp.get("sensitivity")
     c.want(isinstance(sens, list), "spread.sensitivity", "a list")
+    assert isinstance(sens, list)  # want() raised otherwise
     for i, r in enumerate(sens):
         c.want(isinstance(r, dict) and is_name(r.get("part"), NAME_PATTERN) and _num(r.get("db_per_pct")),
                f"spread.sensitivity[{i}]", '{"part": <name>, "db_per_pct": <number>, ...}')
@@ -113,4 +116,5 @@ def check_sections(doc: dict, path: str | Path) -> None:
     sp = c.table(doc, "spread")
     if sp is not None or doc.get("stage") == "spread":
         c.want(sp is not None, "spread", "a table (a spread result)")
+        assert sp is not None  # want() raised otherwise
         _spread(c, sp)

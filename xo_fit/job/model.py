@@ -65,7 +65,7 @@ class FrozenMap(dict):
     def _readonly(self, *args, **kwargs):
         raise TypeError("a job's tables are read-only")
 
-    __setitem__ = __delitem__ = clear = pop = popitem = setdefault = update = _readonly  # type: ignore[assignment]
+    __setitem__ = __delitem__ = clear = pop = popitem = setdefault = update = _readonly
 
     def __reduce__(self):
         return (FrozenMap, (dict(self),))

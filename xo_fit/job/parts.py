@@ -7,7 +7,8 @@ from __future__ import annotations
 from xo_fit.constants import PART_TYPES, PART_UNIT, RATING_UNIT
 from xo_fit.errors import XoFitError
 from xo_fit.units import UnitsError, parse_percent, parse_value, parse_wire
-from xo_fit.job.model import (DEFAULTS, is_name, NAME_PATTERN, NODE_PATTERN, DriverSpec, PartSpec, PLAUSIBLE, SOLVABLE, RATING, OHMS)
+from xo_fit.job.model import (DEFAULTS, is_name, NAME_PATTERN, NODE_PATTERN, DriverSpec, PartSpec, PLAUSIBLE,
+                              SOLVABLE, RATING, OHMS)
 from xo_fit.job.reading import (Reader, Context, is_length)
 
 def format_ohms(v: float) -> str:
@@ -70,7 +71,7 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
         if wire is not None:
             dcr, dcr_wire = wire, True
         elif isinstance(raw, str) and is_length(raw):
-            dcr, dcr_wire = r.value("dcr", "m"), True
+            dcr, dcr_wire = r.value("dcr", "m", required=True), True
         else:
             try:
                 dcr = parse_value(raw, "ohm", allow_zero=True)
@@ -83,7 +84,7 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
     if r.has("esr"):
         if ptype != "C":
             raise r.error("esr", "only a capacitor (type C) has esr; a coil has dcr")
-        esr = r.value("esr", "ohm", allow_zero=True, limits=OHMS)
+        esr = r.value("esr", "ohm", required=True, allow_zero=True, limits=OHMS)
     tol = None
     if r.has("tolerance"):
         try:

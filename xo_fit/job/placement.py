@@ -61,7 +61,7 @@ def read_distance(r: Reader) -> float:
     if bare_milli(raw):
         raise r.error("distance", f"{short(raw)} reads as milli (a bare m is the prefix in this format): write the "
                                   f"metres as a number ({raw.strip()[:-1].strip()}) or in mm, or \"far\"")
-    return r.value("distance", "m")
+    return r.value("distance", "m", required=True)  # present: an absent key reads as "far" above
 
 
 def bare_milli(raw: object) -> bool:

@@ -19,7 +19,8 @@ from xo_fit.job.tables import check_protection
 from xo_fit.job.baffle import read_baffle, check_baffle
 from xo_fit.job.limits import check_limits, read_limits
 from xo_fit.job.placement import check_distance, read_distance
-from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_target, read_cost, read_search, read_snap, read_spread)
+from xo_fit.job.tables import (read_stress, read_grid, read_driver, read_target, read_cost, read_search, read_snap,
+                               read_spread)
 
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *, copy: bool = True) -> Job:
     """Read and validate a job: a TOML file, or a mapping with the TOML's structure.
@@ -97,6 +98,7 @@ def build_job(data: dict, ctx: Context) -> Job:
     with_angles = [d for d in drivers if d.angles is not None]
     if with_angles:
         first = with_angles[0]
+        assert first.angles is not None  # with_angles holds the drivers that have angles
         for d in drivers:
             if d.angles is None:
                 raise ctx.error(("driver", d.name), None, f"driver '{d.name}' has no [driver.{d.name}.angles] but "

@@ -6,7 +6,7 @@ import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal, overload
 
 
 from xo_fit.errors import JobError
@@ -81,10 +81,26 @@ class Reader:
         self.used.add(key)
         return self.data.get(key, default)
 
-    def value(self, key: str, unit: str, default: Any = None, *, required: bool = False,
+    @overload
+    def value(self, key: str, unit: str, default: float, *, required: bool = ..., positive: bool = ...,
+              allow_zero: bool = ..., limits: tuple[float, float] | None = ...) -> float: ...
+
+    @overload
+    def value(self, key: str, unit: str, default: None = ..., *, required: Literal[True], positive: bool = ...,
+              allow_zero: bool = ..., limits: tuple[float, float] | None = ...) -> float: ...
+
+    @overload
+    def value(self, key: str, unit: str, default: None = ..., *, required: bool = ..., positive: bool = ...,
+              allow_zero: bool = ..., limits: tuple[float, float] | None = ...) -> float | None: ...
+
+    def value(self, key: str, unit: str, default: float | None = None, *, required: bool = False,
               positive: bool = True, allow_zero: bool = False, limits: tuple[float, float] | None = None
               ) -> float | None:
-        """A value with a unit; ``limits``: the (lowest, highest) value allowed, SI."""
+        """A value with a unit; ``limits``: the (lowest, highest) value allowed, SI.
+
+        The value is a float when the key is ``required`` or the ``default`` is one; ``None`` only when the key
+        is absent and the default is ``None``.
+        """
         self.used.add(key)
         if key not in self.data:
             if required:
@@ -156,7 +172,8 @@ class Reader:
 
     def sub(self, key: str, label: str | None = None) -> Reader:
         self.used.add(key)
-        return Reader(self.data.get(key, {}), self.table + (key,), label or f"[{'.'.join(map(str, self.table + (key,)))}]", self.ctx)
+        table = self.table + (key,)
+        return Reader(self.data.get(key, {}), table, label or f"[{'.'.join(map(str, table))}]", self.ctx)
 
     def done(self, allowed_extra: tuple[str, ...] = ()) -> None:
         unknown = [k for k in self.data if k not in self.used and k not in allowed_extra]

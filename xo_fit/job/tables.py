@@ -1,7 +1,9 @@
-"""The job's tables other than [[part]]: grid, drivers and their angles, target and ways, cost, search, snap, spread, stress."""
+"""The job's tables other than [[part]]: grid, drivers and their angles, target and ways, cost, search, snap, spread,
+stress."""
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 import math
 import re
 from pathlib import Path
@@ -11,7 +13,10 @@ import numpy as np
 from xo_fit.errors import XoFitError
 from xo_fit.grid import Grid
 from xo_fit.units import UnitsError, parse_percent, parse_value
-from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN, FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec, StressSpec)
+from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN,
+                              FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec,
+                              position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec,
+                              StressSpec)
 from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice, close_match)
 from xo_fit.job.baffle import read_radius
@@ -57,7 +62,8 @@ def read_driver(name: str, r: Reader, voltage: float) -> DriverSpec:
         raise r.error(None, f"{name!r}: a driver name must start with a letter and hold only letters, digits, _ and -")
     d = DEFAULTS["driver"]
     if not r.has("response"):
-        raise r.error("response", "missing; expected a measurement file path, or a level in dB SPL for an ideal flat driver")
+        raise r.error("response", "missing; expected a measurement file path, or a level in dB SPL "
+                                  "for an ideal flat driver")
     if not r.has("impedance"):
         raise r.error("impedance", "missing; expected a measurement file path, a resistance in ohm, "
                       "or a Thiele-Small table {re, le, fs, qms, qes}")
@@ -136,7 +142,7 @@ def read_impedance(name: str, r: Reader) -> FileCurve | Resistive | ThieleSmall 
         t.done()
         return impedance
     if (isinstance(imp, str) and looks_numeric(imp)) or (isinstance(imp, (int, float)) and not isinstance(imp, bool)):
-        return Resistive(r.value("impedance", "ohm"))
+        return Resistive(r.value("impedance", "ohm", required=True))
     return FileCurve(r.path("impedance"))
 
 
@@ -172,10 +178,10 @@ def response_table(t: Reader) -> FileCurve | SplicedResponse:
 def read_ts(r: Reader) -> FrozenMap:
     """[driver.NAME.ts]: the Thiele-Small values given, SI (which of them determine the rest is worked out
     when the job's drivers are modelled, :mod:`xo_fit.model.drivers`)."""
-    out = {}
+    out: dict[str, float] = {}
     for key in r.data:
         if key in TS_UNITS:
-            out[key] = r.value(key, TS_UNITS[key], allow_zero=key == "le")
+            out[key] = r.value(key, TS_UNITS[key], required=True, allow_zero=key == "le")
     r.done()
     if ("l2" in out) != ("r2" in out):
         raise r.error("l2" if "r2" in out else "r2", "the lossy coil needs both l2 (H) and r2 (ohm, across l2)")
@@ -185,7 +191,7 @@ def read_ts(r: Reader) -> FrozenMap:
     return FrozenMap(out)
 
 
-def plausible(r: Reader, values: dict, units: dict) -> None:
+def plausible(r: Reader, values: Mapping[str, float], units: Mapping[str, str]) -> None:
     """A one-line warning for each value outside what drivers and boxes have (TS_PLAUSIBLE): a unit slip."""
     for key, v in values.items():
         lo, hi = TS_PLAUSIBLE[key]
@@ -225,8 +231,8 @@ def read_angles(r: Reader, measured: bool) -> AngleSpec:
         if r.has(key):
             v = r.text(key)
             if v.count("{angle}") != 1 or re.search(r"[\x00-\x1f\x7f]", v):
-                raise r.error(key, f"expected a file pattern holding {{angle}} once (e.g. \"polar/woofer-h{{angle}}.txt\"), "
-                                   f"got {short(v)}")
+                raise r.error(key, "expected a file pattern holding {angle} once "
+                                   f"(e.g. \"polar/woofer-h{{angle}}.txt\"), got {short(v)}")
             p = Path(v)
             patterns[key] = str(p if p.is_absolute() else (r.ctx.folder / p))
         lists_key = f"{key}_angles"

@@ -235,7 +235,12 @@ class CostModel:
         a Simulation; {} when it weighs none."""
         if not self.needed:
             return {}
-        return curve_sums(sim.voltages, self.system.angle_factors, {n: self.curve_weights[n] for n in self.needed})
+        weights = {}
+        for n in self.needed:
+            w = self.curve_weights[n]
+            assert w is not None  # load_system refuses a job whose positions lack a curve the cost weighs
+            weights[n] = w
+        return curve_sums(sim.voltages, self.system.angle_factors, weights)
 
     def all_curves(self, sim) -> dict[str, np.ndarray]:
         """Every ANSI/CTA-2034-A curve the job's positions allow (Pa^2, (B, F)); {} on axis."""
@@ -247,6 +252,7 @@ class CostModel:
     def preference_term(self, sim) -> np.ndarray:
         """The preference term (B,) of a Simulation, unweighted: max(0, 10 - score)^2 / 100 of each design's
         predicted preference (LFX bounded by the grid's lowest frequency, so it stays finite)."""
+        assert self.preference_plan is not None  # asked only of a cost that weighs the preference
         pref = preference_of(self.preference_plan, self.all_curves(sim), bound_lfx=True)
         return cost_term(pref.score, 1.0)
 
@@ -299,7 +305,8 @@ class CostModel:
         v = np.atleast_2d(np.asarray(values, dtype=float))
         amps = branch_currents(self.system.network, v)[..., self.band] * self.drive_scale  # (B, branches, Fb)
         w = 2 * np.pi * self.system.frequencies[self.band]
-        e = [stress_excess_db(kind, np.abs(amps[:, j]) ** 2, v[:, col], w, rating) for j, col, kind, rating in self.rated]
+        e = [stress_excess_db(kind, np.abs(amps[:, j]) ** 2, v[:, col], w, rating)
+             for j, col, kind, rating in self.rated]
         return np.mean(np.square(e), axis=0)
 
     def _impedance(self, z: np.ndarray) -> np.ndarray:

@@ -100,7 +100,7 @@ class FusedCost:
         self.n_keep = int(cm.keep.sum())
         self.row_pairs = len(rows)
         self.pair_counts = []
-        for a, b, region, target_diff in cm.pairs:
+        for _a, _b, region, target_diff in cm.pairs:
             reg = np.zeros(nf)
             reg[self.lo:self.hi] = region
             w = np.zeros(nf, dtype=complex)
@@ -298,7 +298,7 @@ class FusedCost:
                       f"sh = DB10 * ln_floored(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
                       f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
         peaks: list[tuple] = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
-        for m, ((j, _, kind, _), (ir, ii)) in enumerate(zip(self.judged, code.currents)):
+        for m, ((_j, _, kind, _), (ir, ii)) in enumerate(zip(self.judged, code.currents)):
             lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
             if kind == "R":
                 lines.append(f"acc_r{m} += {inband}qq{m}")

@@ -116,7 +116,7 @@ class LimitCode:
                 lines.append(f"lim_e = sqrt(2.0 * mq{m} * {k2!r}) / {rating!r} - 1.0")
             lines.append("lim_vr = lim_e if lim_e > lim_vr else lim_vr")
         lines.append(f"lim_vp = {_LOWEST!r}" if self.excursions or self.powers else "lim_vp = 0.0")
-        for k, _, srow in self.excursions:
+        for _k, _, srow in self.excursions:
             lines += ["lim_mx = 0.0", rng, i1 + f"lim_q = scratch[{srow}, f]", i1 + "if lim_q > lim_mx:",
                       i2 + "lim_mx = lim_q", "lim_e = sqrt(lim_mx) - 1.0",
                       "lim_vp = lim_e if lim_e > lim_vp else lim_vp"]

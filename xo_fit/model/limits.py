@@ -71,8 +71,10 @@ class LimitModel:
                                                      self.breakup_db > 0)) if on)
 
     def judged_protection(self) -> tuple[np.ndarray, np.ndarray]:
-        """Which protected drivers' excursion and power are judged: two bool arrays (N,)."""
+        """Which protected drivers' excursion and power are judged: two bool arrays (N,); only where the job's
+        protection is modelled (``protection`` not None)."""
         p = self.protection
+        assert p is not None  # the callers ask only where protection is modelled
         return (np.isfinite(p.xmax) & np.all(np.isfinite(p.x_per_volt), axis=-1)), np.isfinite(p.rating)
 
     def violations(self, sim, values: np.ndarray | None, level: np.ndarray) -> dict[str, np.ndarray]:
@@ -97,7 +99,10 @@ class LimitModel:
             loud = np.max(np.where(self.stop[None], p_db, -np.inf), axis=-1)  # (B, D); -inf: no stop band
             excess = np.max(loud, axis=-1) - level + self.breakup_db
             out["breakup_db"] = excess * LN10_20
-        out["total"] = sum(np.maximum(out[n], 0.0) for n in NAMES)
+        total = np.zeros(b)
+        for n in NAMES:
+            total = total + np.maximum(out[n], 0.0)
+        out["total"] = total
         return out
 
     def _ratings(self, values: np.ndarray | None, b: int) -> np.ndarray:
@@ -123,6 +128,7 @@ class LimitModel:
 
     def _protection(self, voltages: np.ndarray) -> np.ndarray:
         p = self.protection
+        assert p is not None  # called only where protection is modelled
         use_x, use_p = self.judged_protection()
         if not (use_x.any() or use_p.any()):
             return np.zeros(voltages.shape[0])

@@ -21,8 +21,8 @@ from xo_fit.job.model import MAX_ANGLE_VALUES, FileCurve, FlatResponse, Job, Res
 from xo_fit.job.model import ModelImpedance
 from xo_fit.constants import P_REF
 from xo_fit.io.measure import Curve, read_curve
-from xo_fit.physics.extension import extend_curve, splice_curves
-from xo_fit.model.diffraction import baffled, job_positions, times
+from xo_fit.physics.extension import Splice, extend_curve, splice_curves
+from xo_fit.model.diffraction import Baffled, baffled, job_positions, times
 from xo_fit.physics.curves import on_grid
 from xo_fit.physics.geometry import Placement, acoustic_centres, placement_factors, placement_warnings
 from xo_fit.solver.netlist import check_topology
@@ -49,8 +49,8 @@ class DriverData:
     response_curve: Curve | None = None
     impedance_curve: Curve | None = None
     angle_responses: np.ndarray | None = None  # complex Pa at the reference voltage at System.positions, (A, F)
-    splice: object = None  # a spliced response's join (xo_fit.physics.extension.Splice), else None
-    baffle: object = None  # the baffle's diffraction its data take (xo_fit.model.diffraction.Baffled), else None
+    splice: Splice | None = None  # a spliced response's join, else None
+    baffle: Baffled | None = None  # the baffle's diffraction its data take, else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -116,17 +116,19 @@ class System:
         """
         sol = self.network.solve_reference(values) if dense else self.network.solve(values)
         p = acoustics.pressures(sol.voltages, self.factors)
-        angles = (acoustics.angle_pressures(sol.voltages, self.angle_factors)
-                  if angles and self.angle_factors is not None else None)
+        at_angles = (acoustics.angle_pressures(sol.voltages, self.angle_factors)
+                     if angles and self.angle_factors is not None else None)
         return Simulation(voltages=sol.voltages, impedance=sol.impedance, pressure=p, total=acoustics.total(p),
-                          angles=angles)
+                          angles=at_angles)
 
     def reference_db(self, sim: Simulation) -> np.ndarray:
         """dB SPL (B, F) of the curve the system target applies to, for a Simulation: the on-axis sum, or (with
         ``[target] reference = "listening_window"``) the listening window, from its positions alone."""
         if self.job.target.reference != "listening_window" or self.angle_factors is None:
             return acoustics.spl_db(sim.total)
-        lw = {"listening_window": acoustics.curve_weights(self.positions)["listening_window"]}
+        w = acoustics.curve_weights(self.positions)["listening_window"]
+        assert w is not None  # load_system refuses this reference where the window's positions are missing
+        lw = {"listening_window": w}
         return acoustics.power_db(acoustics.curve_sums(sim.voltages, self.angle_factors, lw)["listening_window"])
 
 
@@ -140,8 +142,10 @@ def _angle_data(spec, positions: tuple, d: DriverData, grid: np.ndarray, warning
     files = spec.angles.files()
     out = np.empty((len(positions), grid.size), dtype=complex)
     out[0] = d.response
-    near = read_curve(spec.response.near, "response") if d.splice is not None else None
-    per_position = near is not None and d.baffle is not None  # a near field times D at each position
+    splice = d.splice
+    near = read_curve(spec.response.near, "response") if splice is not None else None
+    baffle = d.baffle if near is not None else None  # a near field times D at each position
+    per_position = baffle is not None
     done: dict = {}  # a mirrored position is its file's data again
     for i, pos in enumerate(positions[1:], start=1):
         path, source = files[pos]
@@ -152,9 +156,9 @@ def _angle_data(spec, positions: tuple, d: DriverData, grid: np.ndarray, warning
                                                                   if source != pos[1] else "")
         try:
             curve = read_curve(path, "response")
-            if near is not None:
-                curve = splice_curves(times(near, d.baffle.response[i]) if per_position else near, curve,
-                                      d.splice.splice_hz, gain_db=d.splice.gain_db).curve
+            if near is not None and splice is not None:
+                curve = splice_curves(times(near, baffle.response[i]) if baffle is not None else near, curve,
+                                      splice.splice_hz, gain_db=splice.gain_db).curve
             out[i], w = on_grid(extend_curve(curve, grid, "response", spec.extend_low, spec.extend_high), grid,
                                 "response", spec.phase)
         except DataError as e:
@@ -336,6 +340,7 @@ def branches_for(job: Job) -> list[Branch]:
     out = []
     for p in job.parts:
         if p.type == "driver":
+            assert p.driver is not None  # the reader requires a driver part to name its driver
             out.append(Branch(p.name, "D", p.nodes[0], p.nodes[1], driver=index[p.driver]))
         elif p.type == "L" and p.dcr_wire:
             out.append(Branch(p.name, "L", p.nodes[0], p.nodes[1], r_coef=dcr_coefficient(p.dcr), r_exp=DCR_EXPONENT))

@@ -73,7 +73,8 @@ def _bessel_lowpass(order: int, x: np.ndarray) -> np.ndarray:
     """
     from math import factorial
 
-    coef = [factorial(2 * order - k) / (2 ** (order - k) * factorial(k) * factorial(order - k)) for k in range(order + 1)]
+    coef = [factorial(2 * order - k) / (2 ** (order - k) * factorial(k) * factorial(order - k))
+            for k in range(order + 1)]
     a0 = coef[0]
     y = x * a0 ** (1.0 / order)
     den = np.zeros_like(y)
@@ -112,7 +113,8 @@ def way_shape(way: WayTarget, f: np.ndarray) -> np.ndarray:
         assert way.fc is not None  # the job reader requires fc of a low- or highpass
         return slope(way.alignment, way.order, "low" if way.type == "lowpass" else "high", way.fc, f)
     assert way.fc_low is not None and way.fc_high is not None  # the reader requires both of a bandpass
-    return slope(way.alignment, way.order, "high", way.fc_low, f) * slope(way.alignment, way.order, "low", way.fc_high, f)
+    return (slope(way.alignment, way.order, "high", way.fc_low, f)
+            * slope(way.alignment, way.order, "low", way.fc_high, f))
 
 
 def _low_edge(way: WayTarget) -> float:
@@ -154,8 +156,8 @@ def load_curve(name: str, job: Job, f: np.ndarray) -> np.ndarray:
     if name in shipped:
         with importlib.resources.as_file(shipped[name]) as path:
             return _curve_on_grid(path, f)
-    raise JobError(f"no target curve '{name}': give a file path or one of {', '.join(sorted(shipped)) or '(none shipped)'}",
-                   path=job.path, key="[target] curve")
+    names = ", ".join(sorted(shipped)) or "(none shipped)"
+    raise JobError(f"no target curve '{name}': give a file path or one of {names}", path=job.path, key="[target] curve")
 
 
 def _curve_on_grid(path: Path, f: np.ndarray) -> np.ndarray:

@@ -61,7 +61,8 @@ class _Build:
     e: Emitter
     net: Network
     edges: list
-    forms: list = field(default_factory=list)   # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss, k)
+    # per edge: ("D", driver) | ("G", name) | ("jwC", name) | ("L0", name) | ("Z", zr, ls, ss, k)
+    forms: list = field(default_factory=list)
     ys: list = field(default_factory=list)      # per edge: its admittance (re, im) names
     traps: list = field(default_factory=list)   # names whose NaN/inf marks the point for the dense path
     nodes: list = field(default_factory=list)
@@ -171,7 +172,12 @@ def _edge_admittances(b: _Build) -> list[str]:
         else:
             _, zr, ls, ss, k = form
             parts = ([f"w * {ls}"] if ls else []) + ([f"- iw * {ss}"] if ss else [])
-            zi = e.let(" ".join(parts).lstrip("+ ").replace("- ", "-", 1) if parts[0].startswith("-") else " ".join(parts), "zi") if parts else None
+            zi = None
+            if parts:
+                text = " ".join(parts)
+                if parts[0].startswith("-"):
+                    text = text.lstrip("+ ").replace("- ", "-", 1)
+                zi = e.let(text, "zi")
             if zr and zi:
                 den = e.let(f"zr2_{k} + {zi} * {zi}", "zd")
             elif zr:
@@ -441,7 +447,8 @@ def generate_kernel_source(net: Network) -> str:
     src += [ind2 + s for s in code.loads + code.body + tuple(outs)]
     src.append(ind1 + "for f in range(nf):")
     for i in range(d + 1):  # into the complex result seen as float64 (B, D + 1, 2 F): 6 % faster than complex()
-        src += [ind2 + f"out[b, {i}, 2 * f] = scratch[{2 * i}, f]", ind2 + f"out[b, {i}, 2 * f + 1] = scratch[{2 * i + 1}, f]"]
+        src += [ind2 + f"out[b, {i}, 2 * f] = scratch[{2 * i}, f]",
+                ind2 + f"out[b, {i}, 2 * f + 1] = scratch[{2 * i + 1}, f]"]
     src += [ind2 + f"bv = scratch[{2 * d + 2}, f]", ind2 + "out_bad[b, f] = bv", ind2 + "if not bv <= 0.0:",
             ind2 + "    nbad += 1"]
     src.append("    return nbad")

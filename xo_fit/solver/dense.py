@@ -91,9 +91,9 @@ def _solve_points(mat: np.ndarray, rhs: np.ndarray, scale: np.ndarray) -> np.nda
 
     A point whose matrix is exactly singular (an ideal series resonance that leaves a node with no admittance
     at all: the limit of a vanishing resistance) is solved with the diagonal raised by 1e-13 of the largest
-    branch admittance there (``scale``, (M,) siemens), which gives that limit to within rounding and matches the compiled kernel, which meets the same
-    point through the merged series chain; a point that stays unsolvable gets NaN (the design then scores as
-    infeasible).
+    branch admittance there (``scale``, (M,) siemens), which gives that limit to within rounding and matches the
+    compiled kernel, which meets the same point through the merged series chain; a point that stays unsolvable gets
+    NaN (the design then scores as infeasible).
     """
     with np.errstate(all="ignore"):
         try:
