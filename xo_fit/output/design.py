@@ -15,12 +15,15 @@ import math
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from xo_fit.constants import RESULT_FORMAT
 from xo_fit.errors import DataError, XoFitError
+
+if TYPE_CHECKING:
+    from xo_fit.model.stress import StressReport
 
 #: A stress this far over its limit (0.5 %, 0.02 dB) still counts as within the rating: the fit's quadratic
 #: stress term approaches a limit from outside, and no part rating is that exact.
@@ -172,7 +175,8 @@ class Design:
                 # an extended end reaches the grid's: the phase is derived from the extended magnitude there
                 lo = min(lo, float(f[0])) if ext[0] != "none" else lo
                 hi = max(hi, float(f[-1])) if ext[1] != "none" else hi
-                ends = [f"{lo:.0f} Hz" for _ in [0] if band[0] < 2 * lo] + [f"{hi:.0f} Hz" for _ in [0] if band[1] > hi / 2]
+                ends = ([f"{lo:.0f} Hz" for _ in [0] if band[0] < 2 * lo]
+                        + [f"{hi:.0f} Hz" for _ in [0] if band[1] > hi / 2])
                 if ends:
                     out.append({"kind": "phase_edge", "part": None,
                                 "text": f"{d.name}'s {what} phase is derived (minimum phase) within an octave of its "
@@ -191,9 +195,8 @@ class Design:
             self.info["breakdown"] = model[0].breakdown(self.scored.values) if model else None
         return self.info["breakdown"]
 
-    @property
-    def stress(self) -> dict | None:
-        """Part stresses at the job's [stress] drive (sine worst case; programme power for resistors), or None."""
+    def stress_report(self) -> StressReport | None:
+        """The stress report at the job's [stress] drive (computed once, then kept in ``info``), or None."""
         spec = self.job.stress
         if not spec.power:
             return None
@@ -203,6 +206,14 @@ class Design:
         if st is None:
             st = stresses(self.system, self.scored.values, spec.power, spec.rated_impedance)
             self.info["stress_report"] = st
+        return st
+
+    @property
+    def stress(self) -> dict | None:
+        """Part stresses at the job's [stress] drive (sine worst case; programme power for resistors), or None."""
+        st = self.stress_report()
+        if st is None:
+            return None
         out = {}
         for p in st.parts:
             e = {"figure": p.sine_worst, "unit": p.unit, "at_hz": p.at_hz}
@@ -210,8 +221,11 @@ class Design:
                 e["programme_w"] = p.programme
             if p.rating is not None:
                 e["rating"] = p.rating
-                judged = p.programme if p.kind == "R" else p.sine_worst
-                limit = p.rating / 2 if p.kind == "R" else p.rating
+                if p.kind == "R":
+                    assert p.programme is not None, "a resistor's stress has its programme figure"
+                    judged, limit = p.programme, p.rating / 2
+                else:
+                    judged, limit = p.sine_worst, p.rating
                 e["within_rating"] = bool(judged <= limit * (1 + RATING_TOLERANCE))
             out[p.name] = e
         return out
