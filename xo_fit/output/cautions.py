@@ -51,20 +51,20 @@ def design_cautions(stress, rated_ohm: float | None) -> list[str]:
     if rated_ohm:
         floor = RATED_FRACTION * rated_ohm
         if stress.impedance_min_ohm < floor:
-            out.append(f"|Z| falls to {stress.impedance_min_ohm:.2f} ohm at {stress.impedance_min_hz:.0f} Hz, below 80 % "
-                       f"of the {rated_ohm:g} ohm rating ({floor:.2f} ohm; IEC 60268-5): rate the speaker lower or "
-                       "raise the impedance there")
+            out.append(f"|Z| falls to {stress.impedance_min_ohm:.2f} ohm at {stress.impedance_min_hz:.0f} Hz, "
+                       f"below 80 % of the {rated_ohm:g} ohm rating ({floor:.2f} ohm; IEC 60268-5): "
+                       "rate the speaker lower or raise the impedance there")
     out.append(f"EPDR (equivalent peak dissipation resistance) falls to {stress.epdr_min_ohm:.2f} ohm at "
-               f"{stress.epdr_min_hz:.0f} Hz: the amplifier's output stage heats as if it drove a {stress.epdr_min_ohm:.2f} "
-               "ohm resistor; make sure it is specified for that load")
+               f"{stress.epdr_min_hz:.0f} Hz: the amplifier's output stage heats as if it drove a "
+               f"{stress.epdr_min_ohm:.2f} ohm resistor; make sure it is specified for that load")
     hot = False
     for p in stress.parts:
         if p.kind != "R":
             continue
         programme = p.programme if p.programme is not None else p.sine_worst
         need = round_up(RESISTOR_MARGIN * programme)
-        figures = (f"{programme:.3g} W programme, {p.sine_worst:.3g} W sine worst case at {p.at_hz:.0f} Hz; a sustained "
-                   f"sine at full drive would need {RESISTOR_MARGIN * p.sine_worst:.3g} W")
+        figures = (f"{programme:.3g} W programme, {p.sine_worst:.3g} W sine worst case at {p.at_hz:.0f} Hz; "
+                   f"a sustained sine at full drive would need {RESISTOR_MARGIN * p.sine_worst:.3g} W")
         if p.rating is not None and p.rating < need:
             out.append(f"{p.name} is rated {p.rating:g} W, less than 2x its programme power ({figures}): use at least "
                        f"{need:g} W (2x margin, common practice)")

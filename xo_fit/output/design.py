@@ -39,13 +39,11 @@ def _version() -> str:
 class Design:
     """One design of a job: part values, their simulation and score, and what its stage adds.
 
-    ``system`` is the loaded job (:class:`~xo_fit.model.system.System`), ``scored`` the
-    simulation and cost (:class:`~xo_fit.search.fitting.Scored`), ``stage`` one of
-    "simulate", "fit", "snap", "spread"; ``sections`` are the stage's own
-    result.json sections (``search``, ``snap``, ...) and ``source`` the
-    provenance extras (``from``, ``inventory``); ``part_info`` adds entries per
-    part (a snap's series, source and combination); ``info`` holds objects for
-    the console and is never saved.
+    ``system`` is the loaded job (:class:`~xo_fit.model.system.System`), ``scored`` the simulation and cost
+    (:class:`~xo_fit.search.fitting.Scored`), ``stage`` one of "simulate", "fit", "snap", "spread"; ``sections``
+    are the stage's own result.json sections (``search``, ``snap``, ...) and ``source`` the provenance extras
+    (``from``, ``inventory``); ``part_info`` adds entries per part (a snap's series, source and combination);
+    ``info`` holds objects for the console and is never saved.
     """
 
     system: Any
@@ -172,7 +170,7 @@ class Design:
                 # an extended end reaches the grid's: the phase is derived from the extended magnitude there
                 lo = min(lo, float(f[0])) if ext[0] != "none" else lo
                 hi = max(hi, float(f[-1])) if ext[1] != "none" else hi
-                ends = [f"{lo:.0f} Hz" for _ in [0] if band[0] < 2 * lo] + [f"{hi:.0f} Hz" for _ in [0] if band[1] > hi / 2]
+                ends = [f"{x:.0f} Hz" for x, near in ((lo, band[0] < 2 * lo), (hi, band[1] > hi / 2)) if near]
                 if ends:
                     out.append({"kind": "phase_edge", "part": None,
                                 "text": f"{d.name}'s {what} phase is derived (minimum phase) within an octave of its "
@@ -193,7 +191,8 @@ class Design:
 
     @property
     def stress(self) -> dict | None:
-        """Part stresses at the job's [stress] drive (sine worst case; programme power for resistors), or None."""
+        """Part stresses at the job's [stress] drive (sine worst case; programme power for resistors), or None;
+        the stress report itself is kept in ``info["stress_report"]``."""
         spec = self.job.stress
         if not spec.power:
             return None
@@ -210,8 +209,9 @@ class Design:
                 e["programme_w"] = p.programme
             if p.rating is not None:
                 e["rating"] = p.rating
-                judged = p.programme if p.kind == "R" else p.sine_worst
-                limit = p.rating / 2 if p.kind == "R" else p.rating
+                r = p.kind == "R"  # a resistor: its programme power against half its rating
+                judged = p.programme if r and p.programme is not None else p.sine_worst
+                limit = p.rating / 2 if r else p.rating
                 e["within_rating"] = bool(judged <= limit * (1 + RATING_TOLERANCE))
             out[p.name] = e
         return out

@@ -85,12 +85,12 @@ def _ratings(design) -> dict:
     if not rated:
         e["note"] = "no part has a rating"
         return e
-    shares = {}
+    shares: dict[str, float] = {}
     for name, s in rated.items():
         judged = s["programme_w"] if "programme_w" in s else s["figure"]
         allowed = s["rating"] / 2 if "programme_w" in s else s["rating"]
         shares[name] = judged / allowed
-    name = max(shares, key=shares.get)
+    name = max(shares, key=shares.__getitem__)
     at = None if "programme_w" in rated[name] else rated[name]["at_hz"]  # a resistor's programme: a band mean
     e.update(worst=shares[name], at_hz=at, part=name,
              met=all(s["within_rating"] for s in rated.values()), excess=shares[name] - 1)
@@ -125,7 +125,8 @@ def limit_findings(figures: dict | None, job) -> list[dict]:
             continue
         pct = 100 * e.get("excess", 0.0)
         if name == "impedance_min":
-            text = (f"the load dips to {e['worst']:.2f} ohm at {e['at_hz']:.0f} Hz, {100 * (1 - e['worst'] / e['limit']):.1f} % "
+            under = 100 * (1 - e["worst"] / e["limit"])
+            text = (f"the load dips to {e['worst']:.2f} ohm at {e['at_hz']:.0f} Hz, {under:.1f} % "
                     f"under the [limits] floor of {e['limit']:g} ohm: widen the range of a part that rests on its "
                     "limit, add a Zobel (R + C across the driver whose impedance dips) or a larger series "
                     "resistance there, or lower the floor")

@@ -116,7 +116,8 @@ def draw(job, values: dict[str, float]) -> bytes | None:
             for chain in way["shunts"].get(node, []):
                 yy = y
                 for part in chain:
-                    d.add(kinds[parts[part].type]().endpoints((x, yy), (x, yy - 2.5)).label(label(part), "bot", ofst=0.3))
+                    element = kinds[parts[part].type]().endpoints((x, yy), (x, yy - 2.5))
+                    d.add(element.label(label(part), "bot", ofst=0.3))
                     yy -= 2.5
                 d.add(elm.Ground().at((x, yy)))
                 depth = max(depth, len(chain))

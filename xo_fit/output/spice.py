@@ -232,6 +232,7 @@ def _fit(kind: str, f: np.ndarray, z: np.ndarray, band: np.ndarray) -> tuple:
         best = c if best is None or c[3][0] < best[3][0] else best
         if best[3][0] <= 2.0:
             break
+    assert best is not None, "the loop fits at least the plain coil"
     return best
 
 
@@ -271,6 +272,7 @@ def _driver_subckt(spec, data, system) -> tuple[list[str], str, list[str]]:
         from xo_fit.physics.box import circuit
 
         m = driver_model(system.job, spec)
+        assert m is not None, "impedance = model needs a [driver.NAME.ts] table (the reader checks)"
         kind = {"none": "an infinite baffle", "closed": "a closed box", "vented": "a vented box"}[m.box.kind]
         out += [comment(f"driver '{spec.name}': its [driver.{spec.name}.ts] model in {kind} (Small 1972, 1973)"),
                 *_box_lines(circuit(m.ts, m.box))]

@@ -107,7 +107,8 @@ def make_space(job) -> Space:
     starts = [parts[i].value for i in free]
     u0 = None
     if any(s is not None for s in starts):
-        u0 = np.array([(math.log(s) - l) / (h - l) if s is not None else 0.5 for s, l, h in zip(starts, lo, hi)])
+        u0 = np.array([(math.log(s) - low) / (high - low) if s is not None else 0.5
+                       for s, low, high in zip(starts, lo, hi)])
     return Space(names=tuple(parts[i].name for i in free), columns=np.array(free), lo=lo, hi=hi, base=base, u0=u0)
 
 

@@ -86,7 +86,8 @@ def _augmented(obj, n: int, u: np.ndarray, lowest: list) -> None:
         cache: dict[bytes, tuple[float, np.ndarray, np.ndarray]] = {}
         lowest[0] = np.inf
 
-        def fun(x: np.ndarray, rho: float = rho, lam: np.ndarray = lam):
+        def fun(x: np.ndarray, rho: float = rho, lam: np.ndarray = lam,
+                cache: dict[bytes, tuple[float, np.ndarray, np.ndarray]] = cache):
             key = x.tobytes()
             if key not in cache:
                 h = np.where(x + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
@@ -160,8 +161,10 @@ class EpsilonLevel:
         self.span = max(EPSILON_SHARE * (obj.budget - obj.evaluations), 1.0)
         self.eps0 = 0.0
         self.eps = 0.0
-        self.cost = self.violation = None
-        self.trial_cost = self.trial_violation = None
+        self.cost: np.ndarray | None = None  # the population's (N,), set by first()
+        self.violation: np.ndarray | None = None
+        self.trial_cost: np.ndarray | None = None  # the last trials' (N,), set by trial()
+        self.trial_violation: np.ndarray | None = None
 
     def first(self, pop: np.ndarray) -> np.ndarray:
         """Evaluate the run's first population (N, n); its keys (N,)."""
@@ -179,6 +182,7 @@ class EpsilonLevel:
         """This generation's epsilon (from the evaluations used so far) and the population's keys under it."""
         t = (self.obj.evaluations - self.start) / self.span
         self.eps = 0.0 if t >= 1.0 else self.eps0 * (1.0 - t) ** EPSILON_POWER
+        assert self.cost is not None and self.violation is not None, "first() evaluates the population"
         return self.keys(self.cost, self.violation)
 
     def trial(self, trial: np.ndarray) -> np.ndarray:
@@ -188,11 +192,14 @@ class EpsilonLevel:
 
     def accept(self, better: np.ndarray) -> None:
         """The trials that replace their parents (bool (N,))."""
+        assert self.cost is not None and self.violation is not None, "first() evaluates the population"
+        assert self.trial_cost is not None and self.trial_violation is not None, "trial() evaluates the trials"
         self.cost = np.where(better, self.trial_cost, self.cost)
         self.violation = np.where(better, self.trial_violation, self.violation)
 
     def best(self, pop: np.ndarray) -> list:
         """[true key, point] of the population's best by the feasibility-first order."""
+        assert self.cost is not None and self.violation is not None, "first() evaluates the population"
         key = feasibility_key(self.cost, self.violation)
         i = int(np.argmin(key))
         return [float(key[i]), pop[i].copy()]

@@ -14,8 +14,18 @@ import os
 import signal
 import threading
 from collections.abc import Iterator
+from typing import TYPE_CHECKING, TypedDict
 
-_STOP = {"flag": False, "event": None}
+if TYPE_CHECKING:
+    from multiprocessing.synchronize import Event
+
+
+class _StopState(TypedDict):
+    flag: bool  # a signal arrived in this worker
+    event: Event | None  # the pool's event, set by the parent to stop every worker
+
+
+_STOP: _StopState = {"flag": False, "event": None}
 
 
 def stop_requested() -> bool:
@@ -28,7 +38,7 @@ def _note(signum, frame) -> None:
     _STOP["flag"] = True
 
 
-def worker_init(event) -> None:
+def worker_init(event: Event | None) -> None:
     """Pool initializer: Ctrl-C or SIGTERM in a worker, or ``event`` set by the parent, stops its search (which
     returns its best so far); the worker's numerical libraries use one thread each."""
     _STOP["flag"] = False

@@ -103,7 +103,7 @@ def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: in
     last_x = x.copy()
     f_last, g_last = fun(last_x.copy())
     nfev = 1
-    f = np.array(0.0, dtype=np.float64)
+    f: float | np.ndarray = np.array(0.0, dtype=np.float64)  # a float once evaluated, as scipy does
     g = np.zeros(n, dtype=np.float64)
     iterations = 0
     while True:

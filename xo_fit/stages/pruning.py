@@ -70,8 +70,9 @@ def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
     if model is None or model[0].limits is None:
         return 0.0, []
     v = np.asarray(values, dtype=float)[None]
-    ev = model[0].evaluate_simulation(system.simulate(v, dense=True), v)
-    return float(ev.violations["total"][0]), [n for n in LIMIT_NAMES if ev.violations[n][0] > 0]
+    violations = model[0].evaluate_simulation(system.simulate(v, dense=True), v).violations
+    assert violations is not None, "a cost model with limits reports their violations"
+    return float(violations["total"][0]), [n for n in LIMIT_NAMES if violations[n][0] > 0]
 
 
 def _trial(args):
@@ -118,13 +119,15 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     seed = system.job.search.seed if seed is None else seed
     values = dict(zip(system.part_names, np.asarray(start, dtype=float)))
     doc = removal_document(system.job, None, "none", values)
+    assert doc is not None, "with no part removed there is always a document"
     current = derive_system(system, load_job(doc, base=system.job.folder))
     interrupted = False
     try:
         scored, evaluations = refit(current, budget, seed)
     except Interrupted as e:  # step 0 stopped early: its best so far is the only step
         (scored, evaluations), interrupted = e.args, True
-    steps, states, trials = [_row(0, current, scored, "", "")], [(current, scored)], []
+    steps, states = [_row(0, current, scored, "", "")], [(current, scored)]
+    trials: list[dict] = []
     spent = [evaluations]
     if not interrupted:
         try:

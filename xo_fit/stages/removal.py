@@ -10,12 +10,16 @@ less than 1 % of it (the ``negligible`` finding).
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from xo_fit.config import COST_FLOOR, NEGLIGIBLE
 from xo_fit.constants import GROUND_NODE, SOURCE_NODE
 from xo_fit.errors import XoFitError
+
+if TYPE_CHECKING:
+    from xo_fit.model.system import System
 
 #: The two ways a part can leave a netlist.
 HOWS = ("open", "short")
@@ -57,7 +61,8 @@ def removal_document(job, name: str | None, how: str, values: dict[str, float]) 
     return doc
 
 
-def variant(system, name: str, how: str, values: dict[str, float] | None = None, *, check_dead: bool = True):
+def variant(system: System, name: str, how: str, values: dict[str, float] | None = None, *,
+            check_dead: bool = True) -> System | None:
     """The system without part ``name`` (opened or shorted), or None when that is no legal netlist: a node left
     hanging, the source or a driver shorted, or (``check_dead``; else see :func:`dead_driver`) a driver that no
     longer sees any voltage (it hangs from ground alone)."""
@@ -82,8 +87,8 @@ def dead_driver(system, voltages: np.ndarray) -> bool:
     return bool(np.any(np.max(np.abs(voltages[0]), axis=-1) < DEAD_DRIVER * abs(system.job.source_voltage)))
 
 
-def removals(system, values: dict[str, float], *, protect: bool = True,
-             check_dead: bool = True) -> list[tuple[str, str, object]]:
+def removals(system: System, values: dict[str, float], *, protect: bool = True,
+             check_dead: bool = True) -> list[tuple[str, str, System]]:
     """Every legal removal of an R, L or C part: (name, how, system without it). ``protect`` skips parts with
     ``keep = true``; ``check_dead`` as in :func:`variant`."""
     out = []
@@ -128,7 +133,9 @@ def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
     allowed = 0.0  # [limits]: a removal that breaks one the design meets is not negligible
     if model[0].limits is not None:
         v = np.asarray(values, dtype=float)[None]
-        allowed = float(model[0].evaluate_simulation(system.simulate(v, dense=True), v).violations["total"][0])
+        violations = model[0].evaluate_simulation(system.simulate(v, dense=True), v).violations
+        assert violations is not None, "a cost model with limits reports their violations"
+        allowed = float(violations["total"][0])
     best: dict[str, tuple[float, str]] = {}
     for name, how, s in removals(system, by_name, protect=False, check_dead=False):
         vals = np.array([by_name[n] for n in s.part_names])[None]
@@ -145,7 +152,8 @@ def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
     out = []
     for name, (change, how) in best.items():
         p = system.job.part(name)
+        verb = "removing" if how == "open" else "shorting"
         out.append({"kind": "negligible", "part": name,
-                    "text": f"{name} ({format_value(by_name[name], p.unit)}) does little: {'removing' if how == 'open' else 'shorting'} "
+                    "text": f"{name} ({format_value(by_name[name], p.unit)}) does little: {verb} "
                             f"it changes the cost by {change * 100:+.2f} % (no refit); consider leaving it out"})
     return out

@@ -31,6 +31,7 @@ from __future__ import annotations
 import math
 
 import itertools
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -83,6 +84,7 @@ def _combine(kind: str, a: float, b: float) -> list[tuple[float, str]]:
 def _pool(kind: str, target: float, source: str, inventory: Inventory | None) -> list[float]:
     """Candidate single values near ``target``: series values or drawer values, within a factor 4."""
     if source == "inventory":
+        assert inventory is not None, "a part takes its values from the drawer only when there is one"
         return [v for v, _ in inventory.values(kind) if target / 4 <= v <= target * 4]
     return neighbours(target, source, 6)
 
@@ -95,6 +97,7 @@ def choices_for(kind: str, target: float, source: str, *, inventory: Inventory |
     lacks them (they count against no stock)."""
     out: list[Choice] = []
     if source == "inventory":
+        assert inventory is not None, "a part takes its values from the drawer only when there is one"
         avail = sorted(v for v, _ in inventory.values(kind))
         if not avail:
             raise XoFitError(f"the inventory has no parts of kind {kind}", path=inventory.path)
@@ -135,7 +138,7 @@ def log_nearest_index(choices: list[Choice], target: float) -> int:
 class _Evaluator:
     """Cost of assignments (rows of choice indices), with the drawer's counts enforced."""
 
-    cost_fn: object
+    cost_fn: Callable[[np.ndarray], np.ndarray]  # (M, P) values -> (M,) costs or keys
     base: np.ndarray  # (P,) values of every part
     columns: list[int]  # column of each snapped part
     options: list[list[Choice]]
@@ -176,7 +179,8 @@ class _Evaluator:
         return out
 
 
-def _exhaustive(ev: _Evaluator, sizes: list[int]) -> tuple[np.ndarray, float]:
+def _exhaustive(ev: _Evaluator, sizes: list[int]) -> tuple[np.ndarray | None, float]:
+    """The best of every assignment and its cost; None when none has a finite cost."""
     best, best_cost = None, np.inf
     grids = itertools.product(*[range(n) for n in sizes])
     while True:
@@ -399,7 +403,10 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     out_parts = []
     for i, p in enumerate(parts):
         src = sources[p.name]
-        choice = options[snap_idx.index(i)][result.assignment[snap_idx.index(i)]] if i in snap_idx else None
+        choice = None
+        if i in snap_idx:
+            assert result is not None, "the choice search ran since some part snaps"
+            choice = options[snap_idx.index(i)][result.assignment[snap_idx.index(i)]]
         out_parts.append(SnappedPart(p.name, p.type, float(continuous[i]), float(values[i]),
                                      "continuous" if src == "none" else (choice.source if choice else src), choice))
     return SnapOutcome(parts=tuple(out_parts), values=values, continuous=continuous, search=result,
@@ -490,8 +497,8 @@ def snap_warnings(outcome: SnapOutcome, continuous_cost: float | None, snapped_c
     helps = ("--top-up E12 (or [snap] top_up) buys what the drawer lacks, --combine 2 makes a value of two parts"
              if inventory else "--combine 2 makes a value of two parts, or a finer series (--series E24)")
     if far:
-        out.append(f"the snap moved {len(far)} part(s) more than {FAR_STEPS} E12 steps from the fit ({', '.join(far)}): "
-                   f"{helps}")
+        out.append(f"the snap moved {len(far)} part(s) more than {FAR_STEPS} E12 steps from the fit "
+                   f"({', '.join(far)}): {helps}")
     if continuous_cost is not None and snapped_cost is not None and continuous_cost > 0 \
             and snapped_cost > continuous_cost * (1 + FAR_COST):
         out.append(f"the snap raised the cost from {continuous_cost:.4g} to {snapped_cost:.4g} "

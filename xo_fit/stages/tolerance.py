@@ -177,7 +177,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     factors = draw_factors(samples, tol, distribution, rng, qmc)
     within = meeting = 0
-    worst = (-1.0, 0.0, None)
+    worst: tuple[float, float, np.ndarray | None] = (-1.0, 0.0, None)  # deviation dB, where Hz, factors (P,)
     pair_diffs = []
     carry = None
     chunk = batch_size(system)
@@ -224,6 +224,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
                         "at_crossover": at, "tolerance_pct": float(tol[i] * 100)})
     ranking.sort(key=lambda r: -abs(r["db_per_pct"]))
     corners = worst_corners(system, nominal, tol, sens, band, nom_db[0])
+    assert worst[2] is not None, "some build has a finite deviation"
     return SpreadResult(
         samples=samples, nominal_db=nom_db, p05=nom_db + hist.percentile(5), p50=nom_db + hist.percentile(50),
         p95=nom_db + hist.percentile(95), yield_band=within / samples, yield_limits=meeting / samples,

@@ -103,7 +103,8 @@ def ways_figure(items: list[ReportItem]):
         for i, n in enumerate(names):
             if s.targets.has_way[i]:
                 ax.semilogx(f, s.level_db + 20 * np.log10(np.abs(s.targets.ways[i])), color=colors[i % len(colors)],
-                            ls=TARGET_DASH, lw=0.9, alpha=0.8, label=plain(_target_label(f"{n} target", g, len(groups))))
+                            ls=TARGET_DASH, lw=0.9, alpha=0.8,
+                            label=plain(_target_label(f"{n} target", g, len(groups))))
     finish_axes(ax, "SPL (dB)", "Each way against its way target", f, top=_top(items))
     return fig
 

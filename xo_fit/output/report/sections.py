@@ -128,18 +128,20 @@ def values_section(rep) -> Markup:
     """Part values side by side, one column per result, with each part's range; a value on a bound marked."""
     rows = []
     for p in rep.job.valued_parts:
-        ranges = {}
+        ranges: dict[str, list[str]] = {}  # range text -> the labels of the results with that range
         for it in rep.items:
             q = next((x for x in it.job.valued_parts if x.name == p.name), None)
             if q is not None:
                 rng = f"{format_value(q.min, q.unit)} .. {format_value(q.max, q.unit)}" if q.free else "fixed"
                 ranges.setdefault(rng, []).append(it.label)
-        rng = next(iter(ranges)) if len(ranges) == 1 else "; ".join(f"{r} ({', '.join(x)})" for r, x in ranges.items())
+        rng = (next(iter(ranges)) if len(ranges) == 1
+               else "; ".join(f"{r} ({', '.join(x)})" for r, x in ranges.items()))
         cells = []
         for it in rep.items:
             v = it.design.values.get(p.name)
             at = it.design.limits.get(p.name)
-            cells.append("removed" if v is None else join(format_value(v, p.unit), " " if at else "", bold(f"(at its {at})") if at else ""))
+            cells.append("removed" if v is None
+                         else join(format_value(v, p.unit), " " if at else "", bold(f"(at its {at})") if at else ""))
         rows.append([p.name, p.type, rng, *cells])
     return section("Values", table(["part", "kind", "range", *(it.label for it in rep.items)], rows))
 
@@ -181,8 +183,9 @@ def curves_section(rep) -> Markup:
     m = last.design.scored.metrics
     parts = []
     if "listening_window_rms_db" in m:
-        di = (f"; the sound power DI runs from {m['sound_power_di_min_db']:.1f} to {m['sound_power_di_max_db']:.1f} dB "
-              f"over the band (a range of {m['sound_power_di_range_db']:.1f} dB)" if "sound_power_di_min_db" in m else "")
+        di = (f"; the sound power DI runs from {m['sound_power_di_min_db']:.1f} to "
+              f"{m['sound_power_di_max_db']:.1f} dB over the band (a range of {m['sound_power_di_range_db']:.1f} dB)"
+              if "sound_power_di_min_db" in m else "")
         parts.append(para(f"Off axis ({last.label}): the listening window strays {m['listening_window_rms_db']:.2f} dB "
                           f"rms from the target{di}. The colour maps show each orbit's level against the axis: "
                           "lobing reads as dark bands."))
