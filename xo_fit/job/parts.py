@@ -18,6 +18,8 @@ def format_ohms(v: float) -> str:
 
 
 def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
+    """A `[[part]]` table: name, type, nodes; a driver part names its driver, an R, L or C its value or range,
+    coil DCR or wire, capacitor ESR, tolerance, rating, series and flags."""
     name = r.text("name", required=True)
     if not is_name(name, NAME_PATTERN):
         raise r.error("name", f"{name!r} is not a valid part name: start with a letter, then letters, digits, _ or -")
@@ -25,16 +27,7 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
     ptype = r.choice("type", PART_TYPES, None)
     if ptype is None:
         raise r.error("type", f"missing; expected one of {', '.join(PART_TYPES)}")
-    nodes = r.raw("nodes")
-    if (not isinstance(nodes, list) or len(nodes) != 2
-            or not all(isinstance(n, (str, int)) and not isinstance(n, bool) for n in nodes)):
-        raise r.error("nodes", f"expected two node names such as [\"in\", \"w1\"], got {nodes!r}")
-    nodes_t = (str(nodes[0]).strip(), str(nodes[1]).strip())
-    for n in nodes_t:
-        if not is_name(n, NODE_PATTERN):
-            raise r.error("nodes", f"{n!r} is not a valid node name (letters, digits, _ - + .)")
-    if nodes_t[0] == nodes_t[1]:
-        raise r.error("nodes", f"both ends on node '{nodes_t[0]}': the part is shorted onto one node")
+    nodes_t = read_nodes(r)
 
     if ptype == "driver":
         drv = r.text("driver", required=True)
@@ -59,27 +52,7 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
             raise r.error("value", "the start value lies outside min..max")
     if value is None and (lo is None or fixed):
         raise r.error("value", "missing; a fixed part needs a value (or give min and max to let the search set it)")
-    dcr, dcr_wire = 0.0, False
-    if r.has("dcr"):
-        if ptype != "L":
-            raise r.error("dcr", "only a coil (type L) has dcr; a capacitor has esr")
-        raw = r.raw("dcr")
-        try:
-            wire = parse_wire(raw) if isinstance(raw, str) else None
-        except UnitsError as e:
-            raise r.error("dcr", e.message) from None
-        if wire is not None:
-            dcr, dcr_wire = wire, True
-        elif isinstance(raw, str) and is_length(raw):
-            dcr, dcr_wire = r.value("dcr", "m", required=True), True
-        else:
-            try:
-                dcr = parse_value(raw, "ohm", allow_zero=True)
-                if dcr > OHMS[1]:
-                    raise UnitsError(f"{format_ohms(dcr)} is out of range: expected at most {format_ohms(OHMS[1])}")
-            except UnitsError as e:
-                raise r.error("dcr", f"{e.message.rstrip('.')}; expected ohms or a wire such as \"18awg\" "
-                              "(or a bare copper diameter such as \"1.2mm\")") from None
+    dcr, dcr_wire = read_dcr(r, ptype)
     esr = 0.0
     if r.has("esr"):
         if ptype != "C":
@@ -107,6 +80,47 @@ def read_part(r: Reader, driver_names: set[str]) -> PartSpec:
     r.done()
     return PartSpec(name=name, type=ptype, nodes=nodes_t, value=value, min=lo, max=hi, fixed=fixed,
                     dcr=dcr, dcr_wire=dcr_wire, esr=esr, tolerance=tol, series=series, rating=rating, keep=keep)
+
+
+def read_nodes(r: Reader) -> tuple[str, str]:
+    """A part's ``nodes``: two node names, different, each by the node rule."""
+    nodes = r.raw("nodes")
+    if (not isinstance(nodes, list) or len(nodes) != 2
+            or not all(isinstance(n, (str, int)) and not isinstance(n, bool) for n in nodes)):
+        raise r.error("nodes", f"expected two node names such as [\"in\", \"w1\"], got {nodes!r}")
+    nodes_t = (str(nodes[0]).strip(), str(nodes[1]).strip())
+    for n in nodes_t:
+        if not is_name(n, NODE_PATTERN):
+            raise r.error("nodes", f"{n!r} is not a valid node name (letters, digits, _ - + .)")
+    if nodes_t[0] == nodes_t[1]:
+        raise r.error("nodes", f"both ends on node '{nodes_t[0]}': the part is shorted onto one node")
+    return nodes_t
+
+
+def read_dcr(r: Reader, ptype: str) -> tuple[float, bool]:
+    """A coil's ``dcr``: ohm, or a wire (a gauge such as "18awg", or a bare copper diameter); (value, is_wire)."""
+    dcr, dcr_wire = 0.0, False
+    if r.has("dcr"):
+        if ptype != "L":
+            raise r.error("dcr", "only a coil (type L) has dcr; a capacitor has esr")
+        raw = r.raw("dcr")
+        try:
+            wire = parse_wire(raw) if isinstance(raw, str) else None
+        except UnitsError as e:
+            raise r.error("dcr", e.message) from None
+        if wire is not None:
+            dcr, dcr_wire = wire, True
+        elif isinstance(raw, str) and is_length(raw):
+            dcr, dcr_wire = r.value("dcr", "m", required=True), True
+        else:
+            try:
+                dcr = parse_value(raw, "ohm", allow_zero=True)
+                if dcr > OHMS[1]:
+                    raise UnitsError(f"{format_ohms(dcr)} is out of range: expected at most {format_ohms(OHMS[1])}")
+            except UnitsError as e:
+                raise r.error("dcr", f"{e.message.rstrip('.')}; expected ohms or a wire such as \"18awg\" "
+                              "(or a bare copper diameter such as \"1.2mm\")") from None
+    return dcr, dcr_wire
 
 
 def part_value(r: Reader, key: str, unit: str) -> float | None:

@@ -67,6 +67,7 @@ def read_document(source: str | Path | Mapping[str, Any], base: str | Path | Non
 
 
 def build_job(data: dict, ctx: Context) -> Job:
+    """The frozen :class:`Job` of a read document: every table read and checked, then checked across tables."""
     top = Reader(data, (), "job", ctx)
     name = top.text("name", ctx.stem)
     if not is_name(name, JOB_NAME_PATTERN):
@@ -95,36 +96,11 @@ def build_job(data: dict, ctx: Context) -> Job:
     check_distance(ac, distance, drivers)
     baffle = read_baffle(top.sub("baffle", "[baffle]")) if top.has("baffle") else None
     check_baffle(ctx, baffle, drivers, distance)
-    with_angles = [d for d in drivers if d.angles is not None]
-    if with_angles:
-        first = with_angles[0]
-        assert first.angles is not None  # with_angles holds the drivers that have angles
-        for d in drivers:
-            if d.angles is None:
-                raise ctx.error(("driver", d.name), None, f"driver '{d.name}' has no [driver.{d.name}.angles] but "
-                                f"'{first.name}' has: every driver of an off-axis job needs the same angles",
-                                f"[driver.{d.name}]")
-            if set(d.angles.files()) != set(first.angles.files()):
-                diff = sorted(set(d.angles.files()) ^ set(first.angles.files()))
-                raise ctx.error(("driver", d.name, "angles"), None, f"covers other angles than driver "
-                                f"'{first.name}' ({', '.join(f'{o}{a}' for o, a in diff[:6])} in one only); every "
-                                "driver must cover the same angles", f"[driver.{d.name}.angles]")
+    check_same_angles(drivers, ctx)
 
-    top.used.add("part")
-    raw_parts = data.get("part", [])
-    if not isinstance(raw_parts, list) or not raw_parts:
-        raise ctx.error((), "part", "no parts: the network needs [[part]] tables", "job")
-    if len(raw_parts) > MAX_PARTS:
-        raise ctx.error((), "part", f"{len(raw_parts)} parts: a network may have at most {MAX_PARTS} [[part]] tables "
-                        "(drivers included)", "job")
-    driver_names = {d.name for d in drivers}
-    parts = tuple(read_part(Reader(p, ("part", i), f"[[part]] #{i + 1}", ctx), driver_names)
-                  for i, p in enumerate(raw_parts))
-    for i, p in enumerate(parts):
-        check_plausible(p, ctx, ("part", i))
-    check_parts(parts, drivers, ctx)
+    parts = read_parts(top, data, drivers, ctx)
 
-    target = read_target(top.sub("target", "[target]"), driver_names)
+    target = read_target(top.sub("target", "[target]"), {d.name for d in drivers})
     if target.band is not None:
         f = grid.frequencies
         if not np.any((f >= target.band[0]) & (f <= target.band[1])):
@@ -153,3 +129,39 @@ def build_job(data: dict, ctx: Context) -> Job:
                document=json.dumps(document, default=str),
                part_lines=FrozenMap({k: v for k, v in lines.items() if v is not None}),
                warnings=tuple(ctx.warnings), distance=distance, baffle=baffle)
+
+
+def check_same_angles(drivers: list, ctx: Context) -> None:
+    """Every driver of an off-axis job covers the same angles (or none has angle files)."""
+    with_angles = [d for d in drivers if d.angles is not None]
+    if with_angles:
+        first = with_angles[0]
+        assert first.angles is not None  # with_angles holds the drivers that have angles
+        for d in drivers:
+            if d.angles is None:
+                raise ctx.error(("driver", d.name), None, f"driver '{d.name}' has no [driver.{d.name}.angles] but "
+                                f"'{first.name}' has: every driver of an off-axis job needs the same angles",
+                                f"[driver.{d.name}]")
+            if set(d.angles.files()) != set(first.angles.files()):
+                diff = sorted(set(d.angles.files()) ^ set(first.angles.files()))
+                raise ctx.error(("driver", d.name, "angles"), None, f"covers other angles than driver "
+                                f"'{first.name}' ({', '.join(f'{o}{a}' for o, a in diff[:6])} in one only); every "
+                                "driver must cover the same angles", f"[driver.{d.name}.angles]")
+
+
+def read_parts(top: Reader, data: dict, drivers: list, ctx: Context) -> tuple:
+    """The [[part]] tables, each read and checked, then checked together."""
+    top.used.add("part")
+    raw_parts = data.get("part", [])
+    if not isinstance(raw_parts, list) or not raw_parts:
+        raise ctx.error((), "part", "no parts: the network needs [[part]] tables", "job")
+    if len(raw_parts) > MAX_PARTS:
+        raise ctx.error((), "part", f"{len(raw_parts)} parts: a network may have at most {MAX_PARTS} [[part]] tables "
+                        "(drivers included)", "job")
+    driver_names = {d.name for d in drivers}
+    parts = tuple(read_part(Reader(p, ("part", i), f"[[part]] #{i + 1}", ctx), driver_names)
+                  for i, p in enumerate(raw_parts))
+    for i, p in enumerate(parts):
+        check_plausible(p, ctx, ("part", i))
+    check_parts(parts, drivers, ctx)
+    return parts
