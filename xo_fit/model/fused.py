@@ -74,59 +74,9 @@ class FusedCost:
         if self.hi - self.lo != band_idx.size:
             raise ValueError("the target band must be a contiguous range of the grid")
         d = len(net.driver_names)
-        rows: list[np.ndarray] = []
-        factors = cm.system.factors
-        for k in range(d):
-            rows += [factors[k].real, factors[k].imag]
-        self.row_tway = len(rows)
         nf = f.size
-        for k in range(d):
-            r = np.zeros(nf)
-            r[self.lo:self.hi] = cm.t_way_db[k]
-            rows.append(r)
-        self.row_stop = len(rows)
-        for k in range(d):
-            r = np.zeros(nf)
-            r[self.lo:self.hi] = cm.stop[k] & cm.has_way[k]
-            rows.append(r)
-        self.row_tsys = len(rows)
-        r = np.zeros(nf)
-        r[self.lo:self.hi] = cm.t_sys_db
-        rows.append(r)
-        self.row_keep = len(rows)
-        r = np.zeros(nf)
-        r[self.lo:self.hi] = cm.keep
-        rows.append(r)
-        self.n_keep = int(cm.keep.sum())
-        self.row_pairs = len(rows)
-        self.pair_counts = []
-        for _a, _b, region, target_diff in cm.pairs:
-            reg = np.zeros(nf)
-            reg[self.lo:self.hi] = region
-            w = np.zeros(nf, dtype=complex)
-            w[self.lo:self.hi] = np.exp(-1j * np.deg2rad(target_diff))
-            rows += [reg, w.real, w.imag]
-            self.pair_counts.append(int(region.sum()))
-        # off axis: the per-volt factors of each driver at the positions the cost reads, (A, 2D, F), with each
-        # position's weight in the listening window, early reflections and sound power (A, 3)
-        names = ("listening_window", "early_reflections", "sound_power")
-        self.need = {n: n in cm.needed for n in names}
-        # [cost] preference: every curve summed (all 70 positions), the frequency loops widened to what it reads
-        self.plan = cm.preference_plan
-        self.n_angles = 0
-        ang = np.zeros((1, 2 * d, nf))
-        angw = np.zeros((1, 3))
-        if cm.needed or self.plan is not None:
-            none = np.zeros(len(cm.system.positions))
-            active, angw = used_positions([cm.curve_weights[n] if self.need[n] or self.plan is not None else none
-                                           for n in names])
-            g = cm.system.angle_factors[active]  # (A', D, F)
-            if self.plan is not None:  # positions with the same data (a mirrored file) summed once, weights added
-                g, angw = _merge_alike(g, angw)
-            ang = np.empty((g.shape[0], 2 * d, nf))
-            ang[:, 0::2] = g.real
-            ang[:, 1::2] = g.imag
-            self.n_angles = int(g.shape[0])
+        rows = self._target_rows(d, nf)
+        ang, angw = self._positions(d, nf)
         self.ang = np.ascontiguousarray(ang)
         self.angw = np.ascontiguousarray(angw)
         self.row_xc = len(rows)
@@ -155,6 +105,69 @@ class FusedCost:
             self.scratch_rows += self.limit_code.scratch_rows
         self.tgt = np.ascontiguousarray(np.vstack(rows))
         self._kernel = None
+
+    def _target_rows(self, d: int, nf: int) -> list[np.ndarray]:
+        """The rows of ``tgt`` the frequency loop reads: each driver's per-volt factor (re, im), each way's
+        target and stop band, the system target, the points the level is kept on, and each crossover pair's
+        region and target phase difference; their first rows are noted on ``self``."""
+        cm = self.cm
+        rows: list[np.ndarray] = []
+        factors = cm.system.factors
+        for k in range(d):
+            rows += [factors[k].real, factors[k].imag]
+        self.row_tway = len(rows)
+        for k in range(d):
+            r = np.zeros(nf)
+            r[self.lo:self.hi] = cm.t_way_db[k]
+            rows.append(r)
+        self.row_stop = len(rows)
+        for k in range(d):
+            r = np.zeros(nf)
+            r[self.lo:self.hi] = cm.stop[k] & cm.has_way[k]
+            rows.append(r)
+        self.row_tsys = len(rows)
+        r = np.zeros(nf)
+        r[self.lo:self.hi] = cm.t_sys_db
+        rows.append(r)
+        self.row_keep = len(rows)
+        r = np.zeros(nf)
+        r[self.lo:self.hi] = cm.keep
+        rows.append(r)
+        self.n_keep = int(cm.keep.sum())
+        self.row_pairs = len(rows)
+        self.pair_counts = []
+        for _a, _b, region, target_diff in cm.pairs:
+            reg = np.zeros(nf)
+            reg[self.lo:self.hi] = region
+            w = np.zeros(nf, dtype=complex)
+            w[self.lo:self.hi] = np.exp(-1j * np.deg2rad(target_diff))
+            rows += [reg, w.real, w.imag]
+            self.pair_counts.append(int(region.sum()))
+        return rows
+
+    def _positions(self, d: int, nf: int) -> tuple[np.ndarray, np.ndarray]:
+        """Off axis: the per-volt factors of each driver at the positions the cost reads, (A, 2D, F), with each
+        position's weight in the listening window, early reflections and sound power (A, 3)."""
+        cm = self.cm
+        names = ("listening_window", "early_reflections", "sound_power")
+        self.need = {n: n in cm.needed for n in names}
+        # [cost] preference: every curve summed (all 70 positions), the frequency loops widened to what it reads
+        self.plan = cm.preference_plan
+        self.n_angles = 0
+        ang = np.zeros((1, 2 * d, nf))
+        angw = np.zeros((1, 3))
+        if cm.needed or self.plan is not None:
+            none = np.zeros(len(cm.system.positions))
+            active, angw = used_positions([cm.curve_weights[n] if self.need[n] or self.plan is not None else none
+                                           for n in names])
+            g = cm.system.angle_factors[active]  # (A', D, F)
+            if self.plan is not None:  # positions with the same data (a mirrored file) summed once, weights added
+                g, angw = _merge_alike(g, angw)
+            ang = np.empty((g.shape[0], 2 * d, nf))
+            ang[:, 0::2] = g.real
+            ang[:, 1::2] = g.imag
+            self.n_angles = int(g.shape[0])
+        return ang, angw
 
     def _preference_rows(self, nf: int) -> list[np.ndarray]:
         """The preference's rows of ``tgt`` (in band 1 else 0; log10 f; SM's centred log10 f) and its range."""
