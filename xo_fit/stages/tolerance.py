@@ -163,12 +163,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
     band = band_mask(f, job.target.band)
     tol = part_tolerances(job)
     nominal = np.asarray(nominal, dtype=float)
-    if samples * max(tol.size, 1) * 8 > DRAWS_BYTES:
-        from xo_fit.errors import JobError
-
-        raise JobError(f"{samples} tolerance draws of {tol.size} parts need {samples * tol.size * 8 / 2**30:.1f} GiB; "
-                       f"at most {DRAWS_BYTES // 2**30} GiB ({DRAWS_BYTES // (8 * max(tol.size, 1)):,} draws of "
-                       f"{tol.size} parts)", path=job.path, key="[spread] samples (or --samples)")
+    _check_draws(job, samples, tol)
     nom = system.simulate(nominal)
     nom_db = np.concatenate([system.reference_db(nom), spl_db(nom.pressure[0])], axis=0)  # (C, F)
     hist = _Hist(nom_db.shape[0], f.size)
@@ -213,16 +208,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
             progress(min(lo + chunk, samples), samples, within / min(lo + chunk, samples))
     pairs = np.concatenate(pair_diffs) if pair_diffs else np.zeros(1)
     sens = sensitivities(system, nominal, band, tol)
-    names = system.part_names
-    xo = crossovers if crossovers is not None else _crossovers(job)
-    ranking = []
-    for i, name in enumerate(names):
-        s_band = sens[i, band]
-        k = int(np.argmax(np.abs(s_band)))
-        at = {f"{fc:g}": float(np.interp(np.log(fc), np.log(f), sens[i])) for fc in xo}
-        ranking.append({"part": name, "db_per_pct": float(s_band[k]), "worst_at_hz": float(f[band][k]),
-                        "at_crossover": at, "tolerance_pct": float(tol[i] * 100)})
-    ranking.sort(key=lambda r: -abs(r["db_per_pct"]))
+    ranking = _ranking(system, sens, band, tol, crossovers if crossovers is not None else _crossovers(job))
     corners = worst_corners(system, nominal, tol, sens, band, nom_db[0])
     assert worst[2] is not None, "some build has a finite deviation"
     return SpreadResult(
@@ -232,6 +218,31 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
         worst_deviation_db=worst[0], worst_at_hz=worst[1], worst_factors=worst[2],
         pair_p50_db=float(np.percentile(pairs, 50)), pair_p95_db=float(np.percentile(pairs, 95)),
         sensitivity=ranking, corners=corners, tolerances=tol)
+
+
+def _check_draws(job, samples: int, tol: np.ndarray) -> None:
+    """The tolerance draws (samples x parts, 8 bytes each) are made up front: refuse more than DRAWS_BYTES."""
+    if samples * max(tol.size, 1) * 8 > DRAWS_BYTES:
+        from xo_fit.errors import JobError
+
+        raise JobError(f"{samples} tolerance draws of {tol.size} parts need {samples * tol.size * 8 / 2**30:.1f} GiB; "
+                       f"at most {DRAWS_BYTES // 2**30} GiB ({DRAWS_BYTES // (8 * max(tol.size, 1)):,} draws of "
+                       f"{tol.size} parts)", path=job.path, key="[spread] samples (or --samples)")
+
+
+def _ranking(system, sens: np.ndarray, band: np.ndarray, tol: np.ndarray, xo: list[float]) -> list[dict]:
+    """Each part's sensitivity (dB per +1 %, sens (P, F)): its worst in the band and where, its value at each
+    crossover frequency ``xo`` (Hz) and its tolerance; the most sensitive first."""
+    f = system.frequencies
+    ranking = []
+    for i, name in enumerate(system.part_names):
+        s_band = sens[i, band]
+        k = int(np.argmax(np.abs(s_band)))
+        at = {f"{fc:g}": float(np.interp(np.log(fc), np.log(f), sens[i])) for fc in xo}
+        ranking.append({"part": name, "db_per_pct": float(s_band[k]), "worst_at_hz": float(f[band][k]),
+                        "at_crossover": at, "tolerance_pct": float(tol[i] * 100)})
+    ranking.sort(key=lambda r: -abs(r["db_per_pct"]))
+    return ranking
 
 
 def worst_corners(system, nominal, tol, sens, band, nominal_sum_db) -> dict:
