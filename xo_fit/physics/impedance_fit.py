@@ -143,15 +143,8 @@ def _start(f: np.ndarray, mag: np.ndarray, path) -> tuple[dict, str | None]:
     return {"re": re, "le": le, "fs": fs, "qms": qms, "qes": qes}, second
 
 
-def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
-    """Fit ``model`` (one of :data:`MODELS`) to a measured impedance ``curve`` (as read by
-    :func:`xo_fit.io.measure.read_curve` with kind "impedance").
-
-    Raises DataError (one line naming the file) when the file holds no resonance peak or the fit does not
-    converge.
-    """
-    from scipy.optimize import least_squares
-
+def _check_fittable(curve: Curve, model: str) -> None:
+    """Refuse an unknown model, too few points or a non-positive impedance, naming the file (and line)."""
     if model not in MODELS:
         raise DataError(f"unknown model {model!r}; expected one of {', '.join(MODELS)}", path=curve.path)
     if curve.frequency.size < 8:
@@ -161,6 +154,18 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
         i = int(np.argmax(curve.magnitude <= 0))
         raise DataError("impedance must be above 0 ohm to fit a driver model", path=curve.path,
                         line=int(curve.lines[i]))
+
+
+def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
+    """Fit ``model`` (one of :data:`MODELS`) to a measured impedance ``curve`` (as read by
+    :func:`xo_fit.io.measure.read_curve` with kind "impedance").
+
+    Raises DataError (one line naming the file) when the file holds no resonance peak or the fit does not
+    converge.
+    """
+    from scipy.optimize import least_squares
+
+    _check_fittable(curve, model)
     f, z, phase = _resampled(curve)
     mag = np.abs(z)
     start, second = _start(f, mag, curve.path)
