@@ -166,3 +166,25 @@ def test_a_stress_weight_keeps_a_rated_part_within_its_rating(tmp_path):
     assert a["within_rating"] is False and a["programme_w"] > 10.0
     assert b["within_rating"] is True and b["programme_w"] <= 5.0 * 1.005
     assert stressed.terms["stress"] < 1e-3 and plain.cost < stressed.cost  # the rating costs some accuracy
+
+
+def test_the_pruned_job_keeps_values_inside_their_ranges(write_job, tmp_path):
+    """A refit's value can land a hair outside its range (exp of a log: 5.000000000000002 mH against max 5 mH);
+    the pruned job.toml clamps it, so that the job it writes loads again."""
+    import tomllib
+
+    import xo_fit
+    from conftest import ladder_job
+    from xo_fit.output.pruned import Pruning
+
+    text, truth = ladder_job("LR2", spread=2.0)
+    job = xo_fit.load_job(write_job(text))
+    hi = truth["wL0"] * 2.0
+    d = xo_fit.simulate(job, {"wL0": hi * (1 + 4e-16)})
+    assert d.values["wL0"] > hi
+    pr = Pruning(steps=[{"step": 0, "parts": 4}], designs=[d], chosen=0, max_increase=0.1)
+    doc = tomllib.loads(pr.job_toml(tmp_path))
+    value = next(p["value"] for p in doc["part"] if p["name"] == "wL0")
+    assert value == hi
+    (tmp_path / "pruned.toml").write_text(pr.job_toml(tmp_path))
+    xo_fit.load_job(tmp_path / "pruned.toml")

@@ -54,7 +54,11 @@ class Pruning:
         values = self.design.values
         for p in doc.get("part", []):
             if p.get("name") in values:
-                p["value"] = values[p["name"]]
+                spec = job.part(p["name"])
+                v = values[p["name"]]
+                if spec.min is not None and spec.max is not None:  # the search's exp(log) can land a hair outside
+                    v = min(max(v, spec.min), spec.max)  # (5.000000000000002 mH against max 5 mH once: refused)
+                p["value"] = v
         here = Path(folder).resolve()
 
         def moved(path: Path) -> str:
