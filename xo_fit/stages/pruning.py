@@ -4,7 +4,11 @@ From a starting design, every R, L and C without ``keep = true`` is tried
 removed, opened (deleted) and shorted (its nodes merged), skipping removals
 that are no legal netlist (:mod:`xo_fit.stages.removal`). After each trial removal the
 remaining free values are refitted from the current ones (a short search and
-polish on the dense solve, so that no topology waits for a compiler). The
+polish). The refits search on the starting design's compiled cost kernel
+(:class:`Family`: a removed part stands in as an extreme value, so no removal
+waits for a compiler) and the design found is scored on the reduced netlist
+itself, so every reported cost is exact; where stand-ins would not be faithful
+(part ratings judged, the reference cost) they search on the dense solve. The
 cheapest removal is taken and the step repeated until nothing is left to
 remove. The chosen design is the one with the fewest parts whose cost stays
 within ``max_increase`` of step 0's (the starting design refitted).
@@ -25,6 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
+from xo_fit.model.fused import FusedCost
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
 from xo_fit.stages.removal import removals
 
@@ -67,14 +72,10 @@ class Family:
         cm = model[0]
         if cm.needs_reference or cm.rated or (cm.limits is not None and cm.limits.rated):
             return None
-        from xo_fit.model.fused import FusedCost
-
         kinds = tuple(system.job.part(n).type for n in system.part_names)
         if any(k not in ("R", "L", "C") for k in kinds):
             return None
-        fused = FusedCost(cm)
-        fused.__class__ = type("StandInCost", (FusedCost,), {"kernel_args": _relaxed_args})
-        return cls(fused=fused, names=tuple(system.part_names), values=np.asarray(system.values(), float),
+        return cls(fused=StandInCost(cm), names=tuple(system.part_names), values=np.asarray(system.values(), float),
                    kinds=kinds, limited=cm.limits is not None)
 
     def embed(self, system, removed: dict):
@@ -100,13 +101,13 @@ class Family:
 STAND_IN_PIVOT = 1e-11
 
 
-def _relaxed_args(self, values: np.ndarray) -> tuple:
-    """FusedCost.kernel_args with the pivot check at STAND_IN_PIVOT."""
-    from xo_fit.model.fused import FusedCost
+class StandInCost(FusedCost):
+    """The fused cost with its pivot check at STAND_IN_PIVOT (the family's kernel; same text, same build)."""
 
-    args = list(FusedCost.kernel_args(self, values))
-    args[6] = float(STAND_IN_PIVOT**2)
-    return tuple(args)
+    def kernel_args(self, values: np.ndarray) -> tuple:
+        args = list(super().kernel_args(values))
+        args[6] = float(STAND_IN_PIVOT**2)
+        return tuple(args)
 
 
 def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None):
