@@ -48,7 +48,8 @@ def main() -> None:
         times.append(time.perf_counter() - t0)
     print(f"{job.name}: {len(job.valued_parts)} parts, fit cost {best.cost:.4g}; prune with refits of "
           f"{100 if smoke else 600} evaluations "
-          f"(the fit's kernel, stand-ins for removed parts; one thread): {len(pr.steps) - 1} steps, {len(pr.trials)} trial refits, "
+          f"(the fit's kernel, stand-ins for removed parts; one thread): {len(pr.steps) - 1} steps, "
+          f"{len(pr.trials)} trial refits, "
           f"{pr.evaluations} evaluations; seconds {', '.join(f'{t:.1f}' for t in times)}, median "
           f"{statistics.median(times):.2f} (goal <= 60); the fit {fit_s:.2f} s, prune / fit "
           f"{statistics.median(times) / fit_s:.1f} (goal <= 4)")
