@@ -110,12 +110,14 @@ class StandInCost(FusedCost):
         return tuple(args)
 
 
-def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None):
+def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None,
+          light: bool = False):
     """The system's free values refitted from its job's values (the start): (Scored, evaluations).
 
     With ``family`` (and ``removed``, the parts the system lacks against the family's: {name: how}) the search
     runs on the family's compiled kernel; else on the dense solve. Either way the design found is scored on
-    the system's own netlist, so the costs reported are exact."""
+    the system's own netlist, so the costs reported are exact (``light``: its cost alone, no metrics: a
+    Scored with ``sim`` None, to be scored in full if taken)."""
     from xo_fit.search.fitting import require_cost_model, score
     from xo_fit.search.engines import make_space, search
 
@@ -141,7 +143,15 @@ def refit(system, budget: int, seed: int, family: Family | None = None, removed:
             return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
 
     r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True, constrained=cm.limits is not None)
-    scored = score(system, space.values(r.u)[0], model)
+    if light:
+        from xo_fit.search.fitting import Scored
+
+        v = space.values(r.u)[:1]
+        ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)  # what score() computes the cost with
+        scored = Scored(values=v[0], sim=None, cost=float(ev.cost[0]), terms={}, metrics={}, targets=None,
+                        level_db=None)
+    else:
+        scored = score(system, space.values(r.u)[0], model)
     if r.stopped_by == "interrupted":
         raise Interrupted(scored, r.evaluations)
     return scored, r.evaluations
@@ -169,7 +179,7 @@ def _trial(args):
     """One trial removal, refitted (in a worker process or here): (name, how, Scored, system, evaluations)."""
     name, how, system, budget, seed, family, removed = args
     try:
-        scored, n = refit(system, budget, seed, family, removed)
+        scored, n = refit(system, budget, seed, family, removed, light=True)
     except Interrupted:
         raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
     return name, how, scored, system, n
@@ -242,6 +252,8 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
     """The elimination steps after step 0, appended to ``steps``, ``states`` and ``trials``; the evaluations of
     each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1;
     their refits search on ``family``'s kernel where given (see :class:`Family`)."""
+    from xo_fit.search.fitting import score
+
     pool = stop = None
     if workers > 1:
         from xo_fit.search.interrupt import stopping_pool
@@ -272,6 +284,7 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             if not feasible:
                 break
             name, how, sc, s, _ = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))
+            sc = score(s, sc.values)  # the trial's cost, its terms and metrics
             steps.append(_row(len(steps), s, sc, name, how))
             states.append((s, sc))
             if progress:
