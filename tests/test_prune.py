@@ -188,3 +188,26 @@ def test_the_pruned_job_keeps_values_inside_their_ranges(write_job, tmp_path):
     assert value == hi
     (tmp_path / "pruned.toml").write_text(pr.job_toml(tmp_path))
     xo_fit.load_job(tmp_path / "pruned.toml")
+def test_a_removal_as_a_stand_in_value_costs_what_the_reduced_netlist_costs(write_job):
+    """Prune's refits search on the starting design's kernel with a removed part at a stand-in value (open: R 1e8
+    ohm, L 1e5 H, C 1 pF; short: R 1 uohm, L 0.1 nH, C 1 kF). An impedance Z in place of an open (short) part
+    changes the node voltages by about |Z_load / Z| (|Z / Z_load|) relative [DER, Thevenin: the part's terminals
+    see a source of about 10 ohm], i.e. under 1e-5 here; so the cost the kernel gives every legal removal of the
+    LR2 ladder with its idle shunt matches the dense solve of the reduced netlist to 1e-4 relative (1e-6 absolute:
+    the ladder is exact, its cost about 0)."""
+    from xo_fit.search.fitting import score
+    from xo_fit.stages.pruning import Family
+    from xo_fit.stages.removal import removals
+
+    path, _ = _with_shunt(write_job)
+    system = load_system(load_job(path))
+    family = Family.of(system)
+    assert family is not None
+    values = dict(zip(system.part_names, system.values()))
+    options = removals(system, values)
+    assert {how for _, how, _ in options} == {"open", "short"}
+    for name, how, s in options:
+        v = np.array([values[n] for n in s.part_names])
+        exact = score(s, v).cost
+        stand_in = float(family.fused(family.embed(s, {name: how})(v[None]))[0])
+        assert stand_in == pytest.approx(exact, rel=1e-4, abs=1e-6), (name, how)

@@ -4,7 +4,11 @@ From a starting design, every R, L and C without ``keep = true`` is tried
 removed, opened (deleted) and shorted (its nodes merged), skipping removals
 that are no legal netlist (:mod:`xo_fit.stages.removal`). After each trial removal the
 remaining free values are refitted from the current ones (a short search and
-polish on the dense solve, so that no topology waits for a compiler). The
+polish). The refits search on the starting design's compiled cost kernel
+(:class:`Family`: a removed part stands in as an extreme value, so no removal
+waits for a compiler) and the design found is scored on the reduced netlist
+itself, so every reported cost is exact; where stand-ins would not be faithful
+(part ratings judged, the reference cost) they search on the dense solve. The
 cheapest removal is taken and the step repeated until nothing is left to
 remove. The chosen design is the one with the fewest parts whose cost stays
 within ``max_increase`` of step 0's (the starting design refitted).
@@ -25,6 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
+from xo_fit.model.fused import FusedCost
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
 from xo_fit.stages.removal import removals
 
@@ -32,8 +37,87 @@ PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max
                  "impedance_min_ohm"]
 
 
-def refit(system, budget: int, seed: int):
-    """The system's free values refitted from its job's values (the start): (Scored, evaluations)."""
+#: Values that stand for a removed part inside the starting design's compiled cost kernel (SI: ohm, henry,
+#: farad): over 20 Hz..20 kHz an opened part's impedance stays above ~1e7 ohm and a shorted one's below ~1e-5
+#: ohm (a coil's DCR, a L**0.6, with it), so the responses differ from the reduced netlist's by ~1e-6 relative
+#: (~1e-5 dB) while the matrix stays far from singular in double precision.
+STAND_IN = {"open": {"R": 1e8, "L": 1e5, "C": 1e-12}, "short": {"R": 1e-6, "L": 1e-10, "C": 1e3}}
+
+
+@dataclass(eq=False)
+class Family:
+    """The starting system's fused cost kernel, shared by every trial removal of a prune: a reduced design is
+    written into the starting topology with each removed part at its stand-in value (:data:`STAND_IN`), so one
+    compiled kernel serves all trials and steps (each removal's own topology would need its own C build).
+
+    ``fused``: the :class:`xo_fit.model.fused.FusedCost` of the starting system; ``names`` its part order;
+    ``values`` (P,) its part values (SI; the fixed parts keep theirs); ``kinds`` each part's type."""
+
+    fused: FusedCost
+    names: tuple
+    values: np.ndarray
+    kinds: tuple
+    limited: bool
+
+    @classmethod
+    def of(cls, system):
+        """The family of ``system`` (the starting design), or None where the stand-ins would not be faithful:
+        no fused kernel for the job (the reference cost), or part ratings judged (a shorted coil would still
+        carry the current its rating is judged on)."""
+        from xo_fit.search.fitting import cost_model
+
+        model = cost_model(system)
+        if model is None or not system.job.free_parts:
+            return None
+        cm = model[0]
+        if cm.needs_reference or cm.rated or (cm.limits is not None and cm.limits.rated):
+            return None
+        kinds = tuple(system.job.part(n).type for n in system.part_names)
+        if any(k not in ("R", "L", "C") for k in kinds):
+            return None
+        return cls(fused=StandInCost(cm), names=tuple(system.part_names), values=np.asarray(system.values(), float),
+                   kinds=kinds, limited=cm.limits is not None)
+
+    def embed(self, system, removed: dict):
+        """A map of ``system``'s designs (B, P') into the family's (B, P): its parts in their columns, the
+        ``removed`` ones ({name: "open" | "short"}) at their stand-ins."""
+        col = {n: i for i, n in enumerate(self.names)}
+        if set(system.part_names) | set(removed) != set(self.names) or set(system.part_names) & set(removed):
+            return None
+        idx = np.array([col[n] for n in system.part_names], dtype=int)
+        base = self.values.copy()
+        for name, how in removed.items():
+            base[col[name]] = STAND_IN[how][self.kinds[col[name]]]
+
+        def full(v: np.ndarray) -> np.ndarray:
+            out = np.repeat(base[None], v.shape[0], axis=0)
+            out[:, idx] = v
+            return out
+        return full
+
+
+#: The pivot check of the family's kernel (relative to the node's summed admittance): a shorted stand-in is
+#: ~1e8 times its neighbours by design, which the default 1e-3 would send to the dense path on every point.
+STAND_IN_PIVOT = 1e-11
+
+
+class StandInCost(FusedCost):
+    """The fused cost with its pivot check at STAND_IN_PIVOT (the family's kernel; same text, same build)."""
+
+    def kernel_args(self, values: np.ndarray) -> tuple:
+        args = list(super().kernel_args(values))
+        args[6] = float(STAND_IN_PIVOT**2)
+        return tuple(args)
+
+
+def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None,
+          light: bool = False):
+    """The system's free values refitted from its job's values (the start): (Scored, evaluations).
+
+    With ``family`` (and ``removed``, the parts the system lacks against the family's: {name: how}) the search
+    runs on the family's compiled kernel; else on the dense solve. Either way the design found is scored on
+    the system's own netlist, so the costs reported are exact (``light``: its cost alone, no metrics: a
+    Scored with ``sim`` None, to be scored in full if taken)."""
     from xo_fit.search.fitting import require_cost_model, score
     from xo_fit.search.engines import make_space, search
 
@@ -42,16 +126,33 @@ def refit(system, budget: int, seed: int):
     if not system.job.free_parts:
         return score(system, system.values(), model), 0
     space = make_space(system.job)
+    full = family.embed(system, removed or {}) if family is not None else None
 
-    def fn(u: np.ndarray):
-        v = space.values(u)
-        ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)
-        if ev.violations is None:
-            return ev.cost
-        return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
+    if full is not None:
+        assert family is not None  # full comes from the family
+        fused, limited = family.fused, family.limited
+
+        def fn(u: np.ndarray):
+            v = full(space.values(u))
+            return fused.limited(v) if limited else fused(v)
+    else:
+        def fn(u: np.ndarray):
+            v = space.values(u)
+            ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)
+            if ev.violations is None:
+                return ev.cost
+            return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
 
     r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True, constrained=cm.limits is not None)
-    scored = score(system, space.values(r.u)[0], model)
+    if light:
+        from xo_fit.search.fitting import Scored
+
+        v = space.values(r.u)[:1]
+        ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)  # what score() computes the cost with
+        scored = Scored(values=v[0], sim=None, cost=float(ev.cost[0]), terms={}, metrics={}, targets=None,
+                        level_db=None)
+    else:
+        scored = score(system, space.values(r.u)[0], model)
     if r.stopped_by == "interrupted":
         raise Interrupted(scored, r.evaluations)
     return scored, r.evaluations
@@ -77,9 +178,9 @@ def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
 
 def _trial(args):
     """One trial removal, refitted (in a worker process or here): (name, how, Scored, system, evaluations)."""
-    name, how, system, budget, seed = args
+    name, how, system, budget, seed, family, removed = args
     try:
-        scored, n = refit(system, budget, seed)
+        scored, n = refit(system, budget, seed, family, removed, light=True)
     except Interrupted:
         raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
     return name, how, scored, system, n
@@ -122,8 +223,9 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     assert doc is not None, "with no part removed there is always a document"
     current = derive_system(system, load_job(doc, base=system.job.folder))
     interrupted = False
+    family = Family.of(current)
     try:
-        scored, evaluations = refit(current, budget, seed)
+        scored, evaluations = refit(current, budget, seed, family, {})
     except Interrupted as e:  # step 0 stopped early: its best so far is the only step
         (scored, evaluations), interrupted = e.args, True
     steps, states = [_row(0, current, scored, "", "")], [(current, scored)]
@@ -131,7 +233,7 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     spent = [evaluations]
     if not interrupted:
         try:
-            _eliminate(steps, states, trials, spent, budget, seed, workers, progress)
+            _eliminate(steps, states, trials, spent, budget, seed, workers, progress, family)
         except KeyboardInterrupt:  # Ctrl-C or SIGTERM: the steps taken so far are kept, the step under way is not
             interrupted = True
     evaluations = spent[0]
@@ -147,9 +249,12 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
 
 
 def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int, seed: int, workers: int,
-               progress) -> None:
+               progress, family: Family | None = None) -> None:
     """The elimination steps after step 0, appended to ``steps``, ``states`` and ``trials``; the evaluations of
-    each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1."""
+    each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1;
+    their refits search on ``family``'s kernel where given (see :class:`Family`)."""
+    from xo_fit.search.fitting import score
+
     pool = stop = None
     if workers > 1:
         from xo_fit.search.interrupt import stopping_pool
@@ -161,7 +266,8 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             options = removals(last_system, dict(zip(last_system.part_names, last_scored.values)))
             if not options:
                 break
-            args = [(name, how, s, budget, seed) for name, how, s in options]
+            gone = {r["removed"]: r["how"] for r in steps[1:]}
+            args = [(name, how, s, budget, seed, family, {**gone, name: how}) for name, how, s in options]
             results = list(pool.map(_trial, args)) if pool else [_trial(a) for a in args]
             allowed, _ = broken_limits(last_system, last_scored.values)
             feasible = []
@@ -179,6 +285,7 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             if not feasible:
                 break
             name, how, sc, s, _ = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))
+            sc = score(s, sc.values)  # the trial's cost, its terms and metrics
             steps.append(_row(len(steps), s, sc, name, how))
             states.append((s, sc))
             if progress:
