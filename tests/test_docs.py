@@ -115,52 +115,6 @@ def test_job_format_doc_has_every_default():
             assert section[key] == _render(table, key, value), (where[table], key, section[key])
 
 
-def test_the_package_has_no_import_cycle():
-    """Imports (module level and inside functions) of xo_fit's modules form no cycle: the tree reads top-down."""
-    import ast
-
-    pkg = ROOT / "xo_fit"
-    modules = {".".join(p.relative_to(ROOT).with_suffix("").parts).removesuffix(".__init__"): p
-               for p in pkg.rglob("*.py")}
-    graph: dict[str, set[str]] = {m: set() for m in modules}
-    for mod, path in modules.items():
-        is_pkg = path.name == "__init__.py"
-        here = mod.split(".") if is_pkg else mod.split(".")[:-1]
-        tree = ast.parse(path.read_text(encoding="utf-8"))
-        typing_only = {id(n) for block in ast.walk(tree) if isinstance(block, ast.If)
-                       and getattr(block.test, "id", None) == "TYPE_CHECKING" for n in ast.walk(block)}
-        for node in ast.walk(tree):
-            if id(node) in typing_only:
-                continue
-            targets = []
-            if isinstance(node, ast.ImportFrom):
-                base = here[: len(here) - node.level + 1] if node.level else []
-                stem = ".".join(base + ([node.module] if node.module else [])) if node.level else (node.module or "")
-                targets = [stem] + [f"{stem}.{a.name}" for a in node.names]
-            elif isinstance(node, ast.Import):
-                targets = [a.name for a in node.names]
-            for t in targets:
-                if t in modules and t != mod and t != "xo_fit":
-                    graph[mod].add(t)
-    seen: dict[str, int] = {}
-    stack: list[str] = []
-
-    def visit(m: str) -> None:
-        seen[m] = 1
-        stack.append(m)
-        for n in sorted(graph[m]):
-            if seen.get(n) == 1:
-                raise AssertionError("import cycle: " + " -> ".join(stack[stack.index(n):] + [n]))
-            if n not in seen:
-                visit(n)
-        stack.pop()
-        seen[m] = 2
-
-    for m in sorted(graph):
-        if m not in seen:
-            visit(m)
-
-
 def test_job_format_doc_lists_every_key():
     """Every key a table takes (the set "did you mean" chooses from) has its row in docs/job-format.md."""
     from xo_fit.job.model import KEYS
