@@ -9,12 +9,13 @@ import numpy as np
 import pytest
 
 from xo_fit.errors import XoFitError
-from xo_fit.physics.baffle import diffraction, orbit_directions, rectangle, regular_polygon
+from xo_fit.physics.baffle import diffraction, rectangle, regular_polygon
+from xo_fit.physics.geometry import directions
 
 C = 343.0
 #: The 70 positions of ANSI/CTA-2034-A: both orbits in 10 degree steps, axis and rear once.
 CTA = [("h", a) for a in range(-170, 181, 10)] + [("v", a) for a in range(-170, 171, 10) if a != 0]
-AXIS = orbit_directions([("h", 0)])
+AXIS = directions([("h", 0)])
 #: (outline, driver position) of assorted baffles: tall, square, off-centre, a hexagon
 BAFFLES = [
     (rectangle((-0.12, 0.12), (-0.85, 0.15)), (0.0, -0.15)),
@@ -53,7 +54,7 @@ def test_far_below_the_step_the_level_is_half_the_half_space(outline, pos, radiu
     # [DER] far below the step the baffle is small against the wavelength: the driver radiates into 4 pi as a
     # free monopole, the half space doubles the pressure (2 pi): 1/2, 20 log10(1/2) = -6.02 dB, in every
     # direction, behind the baffle too
-    d = diffraction(np.array([0.01, 0.05]), pos, orbit_directions(CTA), outline, radius=radius)
+    d = diffraction(np.array([0.01, 0.05]), pos, directions(CTA), outline, radius=radius)
     assert np.max(np.abs(db(d) - 20 * math.log10(0.5))) < 0.01
 
 
@@ -73,7 +74,7 @@ def test_in_the_baffle_plane_beyond_the_edges_the_level_is_half():
     # at grazing, 1/2 at every frequency, far and at 2 m
     outline, pos = BAFFLES[0]
     f = np.geomspace(20, 20000, 50)
-    grazing = orbit_directions([("h", 90), ("h", -90), ("v", 90), ("v", -90)])
+    grazing = directions([("h", 90), ("h", -90), ("v", 90), ("v", -90)])
     for distance in (math.inf, 2.0):
         assert np.max(np.abs(diffraction(f, pos, grazing, outline, distance=distance) - 0.5)) < 1e-12
     # and the response runs on smoothly through it (front and back of the baffle meet there)
@@ -160,7 +161,7 @@ def test_the_edge_integral_is_the_kirchhoff_surface_integral(distance):
     # the driver, a point-in-polygon mask), on an L-shaped (non-convex) baffle, in front, aside and behind
     outline = np.array([[-0.2, -0.3], [0.25, -0.3], [0.25, 0.0], [0.0, 0.0], [0.0, 0.35], [-0.2, 0.35]])
     src = np.array([-0.1, -0.1])
-    u = orbit_directions([("h", 40), ("v", -70), ("h", 130)])
+    u = directions([("h", 40), ("v", -70), ("h", 130)])
     f = np.array([700.0, 2000.0])
     k = 2 * np.pi * f / C
     n_phi, n_rho, top = 720, 700, 0.6
@@ -221,8 +222,8 @@ def test_mirror_symmetry():
     # at v+a and v-a; a driver moved to -x gives at h-a what it gave at h+a
     f = np.geomspace(20, 20000, 60)
     angles = [10, 30, 60, 90, 120, 170]
-    plus = orbit_directions([("h", a) for a in angles])
-    minus = orbit_directions([("h", -a) for a in angles])
+    plus = directions([("h", a) for a in angles])
+    minus = directions([("h", -a) for a in angles])
     outline = rectangle((-0.15, 0.15), (-0.6, 0.2))
     for distance in (math.inf, 2.0):
         def d(u, x=0.0, distance=distance):
@@ -231,8 +232,8 @@ def test_mirror_symmetry():
         assert np.allclose(d(plus), d(minus), atol=1e-9)
         assert np.allclose(d(plus, 0.07), d(minus, -0.07), atol=1e-9)
     sym = rectangle((-0.2, 0.1), (-0.25, 0.25))
-    up = orbit_directions([("v", a) for a in angles])
-    down = orbit_directions([("v", -a) for a in angles])
+    up = directions([("v", a) for a in angles])
+    down = directions([("v", -a) for a in angles])
     assert np.allclose(diffraction(f, (0.0, 0.0), up, sym), diffraction(f, (0.0, 0.0), down, sym), atol=1e-9)
 
 
@@ -256,7 +257,7 @@ def test_a_distant_listener_hears_the_far_field():
     # k R^2 / 2D goes to 0)
     outline, pos = BAFFLES[1]
     f = np.geomspace(20, 2000, 40)
-    u = orbit_directions(CTA[::5])
+    u = directions(CTA[::5])
     far = diffraction(f, pos, u, outline)
     assert np.max(np.abs(diffraction(f, pos, u, outline, distance=500.0) - far)) < 5e-3
     assert np.max(np.abs(diffraction(f, pos, u, outline, distance=2.0) - far)) > 0.02  # and 2 m is not far
@@ -268,7 +269,7 @@ def test_the_edge_division_has_converged(distance):
     # at the 70 CTA-2034-A directions: within 2e-3 of the half-space level (about 1e-3 seen)
     outline, pos = BAFFLES[0]
     f = np.geomspace(20, 20000, 60)
-    u = orbit_directions(CTA)
+    u = directions(CTA)
     coarse = diffraction(f, pos, u, outline, distance=distance)
     fine = diffraction(f, pos, u, outline, distance=distance, element_angle=math.radians(1 / 8))
     assert np.max(np.abs(coarse - fine)) < 2e-3
@@ -280,7 +281,7 @@ def test_the_edge_division_has_converged(distance):
 def test_orbit_directions_follow_the_job_format():
     # the job format: horizontal angles positive toward the listener's right facing the speaker (+x),
     # vertical ones upward (+y), 180 behind
-    u = orbit_directions([("h", 0), ("h", 90), ("h", -90), ("v", 90), ("h", 180), ("v", 180), ("v", 30)])
+    u = directions([("h", 0), ("h", 90), ("h", -90), ("v", 90), ("h", 180), ("v", 180), ("v", 30)])
     assert u[:6].tolist() == [[0, 0, 1], [1, 0, 0], [-1, 0, 0], [0, 1, 0], [0, 0, -1], [0, 0, -1]]
     assert u[6] == pytest.approx([0.0, 0.5, math.sqrt(3) / 2])
 
@@ -299,4 +300,4 @@ def test_user_errors_are_one_line_errors():
     with pytest.raises(XoFitError, match="not negative"):
         diffraction(f, (0.0, 0.0), AXIS, outline, radius=-0.01)
     with pytest.raises(XoFitError, match="orbit"):
-        orbit_directions([("x", 10)])
+        directions([("x", 10)])

@@ -19,7 +19,8 @@ import pytest
 from xo_fit.errors import JobError
 from xo_fit.job.reader import load_job
 from xo_fit.model.system import load_system
-from xo_fit.physics.baffle import diffraction, orbit_directions, rectangle
+from xo_fit.physics.baffle import diffraction, rectangle
+from xo_fit.physics.geometry import directions
 
 EDGES = ((-0.15, 0.15), (-0.35, 0.12))  # an invented front, 300 x 470 mm
 WOOFER = (0.03, -0.1)  # m, off the centre
@@ -91,7 +92,7 @@ def test_the_half_space_curve_is_multiplied_by_the_complex_diffraction(tmp_path)
     system = load_system(load_job(job))
     f = system.frequencies
     p90 = 20e-6 * 10 ** (90 / 20)
-    d = diffraction(f, WOOFER, orbit_directions(system.positions), rectangle(*EDGES))  # a point source
+    d = diffraction(f, WOOFER, directions(system.positions), rectangle(*EDGES))  # a point source
     assert np.allclose(system.drivers[0].response, p90 * d[0], rtol=1e-9)
     for i, pos in enumerate(system.positions[1:], start=1):
         assert np.allclose(system.drivers[0].angle_responses[i], p90 * 10 ** (-pos[1] / 600) * d[i], rtol=1e-9)
@@ -99,7 +100,7 @@ def test_the_half_space_curve_is_multiplied_by_the_complex_diffraction(tmp_path)
     (tmp_path / "axis").mkdir()
     job = halfspace_job(tmp_path / "axis")
     system = load_system(load_job(job))
-    d_piston = diffraction(f, WOOFER, orbit_directions([("h", 0)]), rectangle(*EDGES), radius=0.05)[0]
+    d_piston = diffraction(f, WOOFER, directions([("h", 0)]), rectangle(*EDGES), radius=0.05)[0]
     assert np.allclose(system.drivers[0].response, p90 * d_piston, rtol=1e-9)
     assert np.max(np.abs(d_piston - d[0])) > 0.05  # and it is not the point source's
 
@@ -138,7 +139,7 @@ def test_a_spliced_near_field_takes_the_diffraction_at_each_position_before_the_
     system = load_system(load_job(job))
     d = system.drivers[0]
     dist = math.inf if distance is None else distance
-    dn = diffraction(FILES_F, WOOFER, orbit_directions(system.positions), rectangle(*EDGES), radius=0.06,
+    dn = diffraction(FILES_F, WOOFER, directions(system.positions), rectangle(*EDGES), radius=0.06,
                      distance=dist)
     near_d = near + 20 * np.log10(np.abs(dn))  # (A, N)
     u = np.linspace(math.log(400) - math.log(2) / 6, math.log(400) + math.log(2) / 6, 33)
@@ -179,7 +180,7 @@ def test_xo_fit_baffle_writes_each_drivers_diffraction(tmp_path, cli):
     assert head == ["frequency_hz", "w_db", "w_deg", "w_h60_db", "w_h60_deg", "w_h150_db", "w_h150_deg"]
     f = load_job(job).grid.frequencies
     assert np.allclose(data[:, 0], f, rtol=1e-5)
-    d = diffraction(f, WOOFER, orbit_directions([("h", 0), ("h", 60), ("h", 150)]), rectangle(*EDGES),
+    d = diffraction(f, WOOFER, directions([("h", 0), ("h", 60), ("h", 150)]), rectangle(*EDGES),
                     radius=0.06, distance=2.5)
     for i, tag in enumerate(("w", "w_h60", "w_h150")):
         assert np.allclose(data[:, head.index(f"{tag}_db")], 20 * np.log10(np.abs(d[i])), atol=1e-4, rtol=1e-5)

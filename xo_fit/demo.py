@@ -109,9 +109,10 @@ def woofer_halfspace(f: np.ndarray) -> np.ndarray:
 
 def woofer_diffraction(f: np.ndarray, positions) -> np.ndarray:
     """The demo cabinet's diffraction response of the woofer, complex (A, F) at ("h"|"v", deg) positions."""
-    from xo_fit.physics.baffle import diffraction, orbit_directions, rectangle
+    from xo_fit.physics.baffle import diffraction, rectangle
+    from xo_fit.physics.geometry import directions
 
-    return diffraction(f, (0.0, WOOFER_HEIGHT), orbit_directions(positions), rectangle(*BAFFLE_EDGES),
+    return diffraction(f, (0.0, WOOFER_HEIGHT), directions(positions), rectangle(*BAFFLE_EDGES),
                        radius=WOOFER_RADIUS, speed_of_sound=SPEED_OF_SOUND)
 
 

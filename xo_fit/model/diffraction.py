@@ -26,7 +26,8 @@ import numpy as np
 
 from xo_fit.io.measure import Curve
 from xo_fit.job.model import DriverSpec, FileCurve, Job
-from xo_fit.physics.baffle import diffraction, orbit_directions, rectangle
+from xo_fit.physics.baffle import diffraction, rectangle
+from xo_fit.physics.geometry import directions
 
 #: The positions of a job without angles: the axis alone.
 AXIS = (("h", 0),)
@@ -93,7 +94,7 @@ def _cached(f: bytes, position: tuple, positions: tuple, edges: tuple, radius: f
             c: float) -> np.ndarray:
     """:func:`diffraction` remembered: every command of a process (the demo runs several) loads the job anew,
     and 70 positions cost a few tenths of a second."""
-    return diffraction(np.frombuffer(f), position, orbit_directions(positions), rectangle(*edges), radius=radius,
+    return diffraction(np.frombuffer(f), position, directions(positions), rectangle(*edges), radius=radius,
                        distance=distance, speed_of_sound=c)
 
 

@@ -42,34 +42,6 @@ ELEMENT_ANGLE = math.radians(1.0)
 PHASE_CURVATURE = 0.05
 
 
-def orbit_directions(positions: Sequence[tuple[str, float]]) -> np.ndarray:
-    """Unit vectors toward the job's measuring positions, (A, 3).
-
-    Parameters
-    ----------
-    positions:
-        (orbit, angle) pairs: orbit ``"h"`` (horizontal: rotation about the vertical axis) or ``"v"`` (vertical:
-        rotation about the horizontal axis), angle in degrees. Horizontal angles are positive toward the
-        listener's right facing the speaker (+x), vertical ones upward (+y), as in the job format; 180 on either
-        orbit is the point behind (-z).
-
-    Returns
-    -------
-    numpy.ndarray
-        (A, 3) unit vectors (x, y, z): ``("h", t)`` is (sin t, 0, cos t), ``("v", t)`` is (0, sin t, cos t).
-        Components of whole multiples of 90 degrees are exact (cos 90 deg is 0, not 6e-17).
-    """
-    out = np.zeros((len(positions), 3))
-    for i, (orbit, angle) in enumerate(positions):
-        if orbit not in ("h", "v"):
-            raise XoFitError(f"orbit must be 'h' or 'v', not {orbit!r}")
-        a = float(angle) % 360.0
-        quarter = {0.0: (0.0, 1.0), 90.0: (1.0, 0.0), 180.0: (0.0, -1.0), 270.0: (-1.0, 0.0)}
-        s, c = quarter.get(a, (math.sin(math.radians(a)), math.cos(math.radians(a))))
-        out[i] = (s, 0.0, c) if orbit == "h" else (0.0, s, c)
-    return out
-
-
 def rectangle(x: Sequence[float], y: Sequence[float]) -> np.ndarray:
     """The outline of a rectangular baffle, (4, 2) corners counter-clockwise (m).
 
@@ -115,7 +87,8 @@ def diffraction(frequencies: np.ndarray, position: Sequence[float], directions: 
         (x, y) of the driver's acoustic centre in the baffle plane, m from the reference point; strictly inside
         ``outline``.
     directions:
-        (A, 3) unit vectors from the reference point toward the listening points (see :func:`orbit_directions`).
+        (A, 3) unit vectors from the reference point toward the listening points
+        (:func:`xo_fit.physics.geometry.directions`).
     outline:
         (V, 2) corners of the baffle, m, in order around it (either sense); any simple polygon with the driver
         inside (:func:`rectangle`, :func:`regular_polygon`).

@@ -38,11 +38,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import XoFitError
-from ..units import format_value
+from xo_fit.errors import XoFitError
+from xo_fit.units import format_value
 
 #: The orbits of a measuring position: "h" horizontal, "v" vertical (the names of the job's positions).
 ORBITS = ("h", "v")
+#: (sin, cos) of the whole quarter turns, exact.
+_QUARTERS = {0.0: (0.0, 1.0), 90.0: (1.0, 0.0), 180.0: (0.0, -1.0), 270.0: (-1.0, 0.0)}
 #: Where a driver's response phase came from (the loaded data's own words): measured, derived from the
 #: magnitude ("minimum"), or a stand-in without delay ("ideal": a flat level).
 PHASES = ("measured", "minimum", "ideal")
@@ -67,11 +69,10 @@ def direction(orbit: str, angle_deg: float) -> np.ndarray:
         (3,) float, unit length.
     """
     if orbit not in ORBITS:
-        raise ValueError(f"orbit must be one of {ORBITS}, got {orbit!r}")
-    a = math.radians(float(angle_deg))
-    s, c = math.sin(a), math.cos(a)
-    if abs(s) < 1e-15:  # the axis and the point behind exactly, whatever the orbit
-        s = 0.0
+        raise XoFitError(f"orbit must be 'h' or 'v', not {orbit!r}")
+    a = float(angle_deg) % 360.0
+    # whole multiples of 90 degrees exactly (cos 90 deg is 0, not 6e-17): the axis, the sides, the point behind
+    s, c = _QUARTERS.get(a, (math.sin(math.radians(a)), math.cos(math.radians(a))))
     return np.array([s, 0.0, c]) if orbit == "h" else np.array([0.0, s, c])
 
 
