@@ -22,12 +22,9 @@ DEFAULT_SPEAKERS = 2
 
 def _needs(design) -> dict[str, tuple[float, str]]:
     """Rating each part needs (value, unit) at the job's drive level; empty without [stress] power."""
-    spec = design.job.stress
-    if not spec.power:
+    if design.stress is None:  # no [stress] power; else the design's stress report, computed once and kept
         return {}
-    from xo_fit.model.stress import stresses
-
-    st = stresses(design.system, design.array, spec.power, spec.rated_impedance)
+    st = design.info["stress_report"]
     out = {}
     for p in st.parts:
         if p.kind == "R":
