@@ -38,6 +38,28 @@ def epdr(z: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class PartStress:
+    """One part's stress at the drive level, over the target band.
+
+    Attributes
+    ----------
+    name : str
+        The part's name.
+    kind : str
+        ``"R"``, ``"C"`` or ``"L"``.
+    figure : str
+        What is judged: ``"power"`` (a resistor), ``"peak voltage"`` (a capacitor, on the capacitor itself, ESR
+        excluded) or ``"peak current"`` (a coil).
+    unit : str
+        The figure's unit: ``"W"``, ``"V"`` or ``"A"``.
+    sine_worst : float
+        The figure for a sine at the drive voltage at the worst frequency in the band, in ``unit`` (W, V or A).
+    at_hz : float
+        That worst frequency, in Hz.
+    programme : float or None
+        Resistors only: the power in W when the same RMS voltage is spread as pink noise over the band.
+    rating : float or None
+        The part's own rating from the job, in ``unit`` (W, V or A), if it gives one.
+    """
     name: str
     kind: str
     figure: str  # "power", "peak voltage", "peak current"
@@ -50,6 +72,27 @@ class PartStress:
 
 @dataclass(frozen=True)
 class StressReport:
+    """The stresses of one design at ``[stress] power`` into ``rated_impedance``.
+
+    Attributes
+    ----------
+    drive_w : float
+        The drive power, in W.
+    rated_ohm : float
+        The rated impedance the power is quoted into, in ohm.
+    source_v_rms : float
+        The source voltage sqrt(P R), in V RMS.
+    parts : tuple of PartStress
+        Each valued part's stress, in network order.
+    epdr_min_ohm : float
+        The lowest equivalent peak dissipation resistance over the band, in ohm.
+    epdr_min_hz : float
+        Where it lies, in Hz.
+    impedance_min_ohm : float
+        The lowest |Z| of the input impedance over the band, in ohm.
+    impedance_min_hz : float
+        Where it lies, in Hz.
+    """
     drive_w: float
     rated_ohm: float
     source_v_rms: float
