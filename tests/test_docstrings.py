@@ -199,6 +199,59 @@ def test_the_public_api_is_numpydoc_with_units_and_shapes():
     assert not problems, f"{len(problems)} problems:\n" + "\n".join(problems)
 
 
+def _package_modules():
+    """Every module of the package outside PENDING, imported (``__main__`` is PENDING: importing it runs the
+    command line)."""
+    import importlib
+
+    out = []
+    for path in sorted((ROOT / "xo_fit").rglob("*.py")):
+        rel = path.relative_to(ROOT).as_posix()
+        if not _pending(rel):
+            name = rel.removesuffix(".py").removesuffix("/__init__").replace("/", ".")
+            out.append((rel, importlib.import_module(name)))
+    return out
+
+
+def test_numpydoc_sections_are_well_formed():
+    """Wherever a docstring has numpydoc sections, they parse as the standard writes them: each entry
+    ``name : type`` (a bare ``name:`` is not numpydoc), and a function's Parameters name exactly its
+    parameters."""
+    problems, seen = [], 0
+    for rel, mod in _package_modules():
+        for name, obj in vars(mod).items():
+            if name.startswith("_") or getattr(obj, "__module__", None) != mod.__name__:
+                continue
+            members = [(name, obj)]
+            if inspect.isclass(obj):
+                members += [(f"{name}.{k}", v) for k, v in vars(obj).items()
+                            if not k.startswith("_") and inspect.isfunction(v)]
+            for qual, member in members:
+                doc = member.__doc__ or ""
+                if not re.search(r"^\s*(Parameters|Returns|Attributes)\n\s*-{3,}", doc, re.M):
+                    continue
+                seen += 1
+                where = f"{rel} {qual}"
+                if inspect.isclass(member):
+                    parsed = ClassDoc(member, config={"show_class_members": False})
+                    entries = [*parsed["Parameters"], *parsed["Attributes"]]
+                else:
+                    parsed = FunctionDoc(member)
+                    entries = list(parsed["Parameters"])
+                    params = [p for p in inspect.signature(member).parameters.values()
+                              if p.name not in ("self", "cls")]
+                    documented = {n.strip().lstrip("*") for e in entries for n in e.name.split(",")}
+                    names = {p.name for p in params}
+                    if entries or any(p.kind not in (p.VAR_POSITIONAL, p.VAR_KEYWORD) for p in params):
+                        problems += [f"{where}: parameter {n} not documented" for n in sorted(names - documented)]
+                        problems += [f"{where}: documents {n!r}, which is no parameter"
+                                     for n in sorted(documented - names)]
+                problems += [f"{where}: entry {e.name!r} has no type (write 'name : type')"
+                             for e in entries if not e.type]
+    assert seen > 50, f"found only {seen} docstrings with numpydoc sections"
+    assert not problems, f"{len(problems)} problems:\n" + "\n".join(problems)
+
+
 @pytest.mark.parametrize("text, numeric, array, ok", [
     # the checks themselves, on hand-written entries (the numpydoc standard's own form: name : type, description)
     ("f : float\n    The corner frequency in Hz.", True, False, True),

@@ -160,12 +160,14 @@ def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: 
 
     Parameters
     ----------
-    value:
-        A TOML number (int or float, already in the base unit) or a string.
-    unit:
+    value : int, float or str
+        A TOML number (already in the base unit) or a string in engineering notation (``"4.7uF"``).
+    unit : str
         The base unit expected: one of the keys of :data:`UNIT_SPELLINGS`.
-    positive:
+    positive : bool
         Require a value above zero (``allow_zero`` admits zero too).
+    allow_zero : bool
+        With ``positive``, admit zero as well.
 
     Returns
     -------

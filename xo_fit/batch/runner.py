@@ -298,13 +298,26 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
 
     Parameters
     ----------
-    patterns: job files or globs.
-    out: the batch folder (results.sqlite, summary.csv, one folder per job).
-    stages: some of fit, snap, spread, in order.
-    workers: local worker processes (default: the cores); ignored with ``scheduler``.
-    scheduler: a running Dask scheduler's address (tcp://HOST:PORT) to run the jobs on instead.
-    plots: write the PNGs.
-    progress: called as progress(done, failed, running, total, t0) as jobs end.
+    patterns : list of str
+        Job files or globs.
+    out : Path
+        The batch folder (results.sqlite, summary.csv, one folder per job).
+    stages : list of str
+        Some of fit, snap, spread, in order.
+    workers : int, optional
+        Local worker processes (dimensionless; default: the cores); ignored with ``scheduler``.
+    scheduler : str, optional
+        A running Dask scheduler's address (tcp://HOST:PORT) to run the jobs on instead.
+    plots : bool
+        Write the PNGs.
+    progress : callable, optional
+        Called as ``progress(done, failed, running, total, t0)`` as jobs end (t0 the start, in s since the
+        epoch).
+
+    Returns
+    -------
+    BatchReport
+        The counts, the summary rows (also written to summary.csv) and the failures.
 
     Raises
     ------

@@ -99,8 +99,15 @@ def read_curve(path: str | Path, kind: str) -> Curve:
 
     Parameters
     ----------
-    path: the file (any name or extension).
-    kind: ``"response"`` (magnitude in dB SPL) or ``"impedance"`` (magnitude in ohm).
+    path : str or Path
+        The file (any name or extension).
+    kind : str
+        ``"response"`` (magnitude in dB SPL) or ``"impedance"`` (magnitude in ohm).
+
+    Returns
+    -------
+    Curve
+        The points: frequency in Hz, magnitude (dB SPL or ohm), phase in degrees where the file has it.
 
     Raises
     ------

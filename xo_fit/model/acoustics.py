@@ -295,13 +295,13 @@ def preference_of(plan: PreferencePlan, curves: dict[str, np.ndarray], *, bound_
 
     Parameters
     ----------
-    plan:
+    plan : PreferencePlan
         :func:`xo_fit.model.preference.make_plan` of the curves' grid.
-    curves:
-        Mean squared pressure, Pa^2 (..., F) each, by name: ``on_axis`` and those of ``listening_window``,
+    curves : dict
+        Mean squared pressure, in Pa^2, shape (..., F) each, by name: ``on_axis`` and those of ``listening_window``,
         ``early_reflections``, ``sound_power`` whose positions are measured (a curve not given makes the figures
         that need it null, with the reason). Levels are taken with :func:`power_db` (floored).
-    bound_lfx:
+    bound_lfx : bool
         As :func:`xo_fit.model.preference.evaluate`: a bound instead of NaN where the sound power never falls
         6 dB (for a cost).
 
