@@ -30,7 +30,18 @@ from xo_fit.solver.dense import branch_states
 
 
 def epdr(z: np.ndarray) -> np.ndarray:
-    """Equivalent peak dissipation resistance (ohm) of impedances z (complex ohm), same shape."""
+    """Equivalent peak dissipation resistance of impedances (K. Howard, 2006; see the module).
+
+    Parameters
+    ----------
+    z : ndarray
+        Impedances, complex, in ohm, any shape (..., F).
+
+    Returns
+    -------
+    ndarray
+        EPDR in ohm, the same shape (..., F).
+    """
     phi = np.minimum(np.abs(np.angle(z)), np.pi / 2)
     den = (1 - np.sin(np.pi / 6 - 2 * phi / 3)) * np.sin(np.pi / 6 + phi / 3)
     return np.abs(z) * 0.25 / den
@@ -104,7 +115,24 @@ class StressReport:
 
 
 def stresses(system, values: np.ndarray, power_w: float, rated_ohm: float) -> StressReport:
-    """Stresses of design ``values`` (P,) at ``power_w`` W into ``rated_ohm`` ohm."""
+    """The stresses of one design at a drive of ``power_w`` W into ``rated_ohm`` ohm, over the target band.
+
+    Parameters
+    ----------
+    system : System
+        The loaded system.
+    values : ndarray
+        The design's part values in SI units (ohm, H, F), shape (P,).
+    power_w : float
+        The drive power, in W.
+    rated_ohm : float
+        The rated impedance the power is quoted into, in ohm.
+
+    Returns
+    -------
+    StressReport
+        Each part's stress, the source voltage, and the lowest EPDR and |Z| over the band.
+    """
     net = system.network
     f = system.frequencies
     band = band_mask(f, system.job.target.band)
