@@ -109,8 +109,7 @@ def simulate(job, values: Mapping[str, float] | Design | None = None) -> Design:
     Parameters
     ----------
     job : Job, str, Path or System
-        The job: a :class:`~xo_fit.job.model.Job` from :func:`load_job`, a job file's path, or a loaded
-        :class:`~xo_fit.model.system.System` (used as it is, without reading the data again).
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
     values : Mapping or Design, optional
         Part values replacing the job's own: a mapping part name -> value in ohm, H or F by the part's
         kind (each above 0), or a Design of the same job's parts (all its values). Default: the job's values.
@@ -123,8 +122,7 @@ def simulate(job, values: Mapping[str, float] | Design | None = None) -> Design:
     Raises
     ------
     XoFitError
-        When ``values`` names a part the job lacks, gives a value that is not a finite number above 0, or is a
-        Design of another job's parts.
+        For a part the job lacks, a value not a finite number above 0, or a Design of another job's parts.
     """
     from xo_fit.search.fitting import score
 
@@ -140,8 +138,7 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
     Parameters
     ----------
     job : Job, str, Path or System
-        The job: a :class:`~xo_fit.job.model.Job` from :func:`load_job`, a job file's path, or a loaded
-        :class:`~xo_fit.model.system.System` (used as it is, without reading the data again).
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
     budget : int, optional
         Cost evaluations for the search (dimensionless); default the job's ``[search] budget``.
     seed : int, optional
@@ -201,8 +198,7 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
     Parameters
     ----------
     job : Job, str, Path or System
-        The job: a :class:`~xo_fit.job.model.Job` from :func:`load_job`, a job file's path, or a loaded
-        :class:`~xo_fit.model.system.System` (used as it is, without reading the data again).
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
     design : Design or Mapping, optional
         The continuous design to snap: a Design (or Spread) of the job, or a mapping part name -> value in ohm,
         H or F by the part's kind. Default: the job's own values.
@@ -297,8 +293,7 @@ def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: 
     Parameters
     ----------
     job : Job, str, Path or System
-        The job: a :class:`~xo_fit.job.model.Job` from :func:`load_job`, a job file's path, or a loaded
-        :class:`~xo_fit.model.system.System` (used as it is, without reading the data again).
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
     design : Design or Mapping, optional
         The nominal design: a Design (or Spread) of the job, or a mapping part name -> value in ohm, H or F
         by the part's kind. Default: the job's own values.
@@ -353,8 +348,7 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
     Parameters
     ----------
     job : Job, str, Path or System
-        The job: a :class:`~xo_fit.job.model.Job` from :func:`load_job`, a job file's path, or a loaded
-        :class:`~xo_fit.model.system.System` (used as it is, without reading the data again).
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
     design : Design or Mapping, optional
         The starting design: a Design (or Spread) of the job, or a mapping part name -> value in ohm, H or F
         by the part's kind. Default: the job's own values.
