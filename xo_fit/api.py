@@ -37,8 +37,25 @@ __all__ = ["load_job", "simulate", "fit", "snap", "spread", "prune", "fit_driver
 def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = None) -> Job:
     """A validated job from a TOML file, or from a mapping with the TOML's structure.
 
-    ``base`` is the folder relative data paths are taken from (default: the job file's folder; for a
-    mapping, the current folder). Raises :class:`~xo_fit.errors.JobError` naming the file, line and key.
+    Parameters
+    ----------
+    source : str, Path or Mapping
+        The job file's path, or a mapping with the TOML's structure (tables as dicts, values as TOML gives
+        them, e.g. ``"4.7uF"`` or ``4.7e-6``); a mapping is copied, never changed.
+    base : str or Path, optional
+        The folder relative data paths are taken from (default: the job file's folder; for a mapping, the
+        current folder).
+
+    Returns
+    -------
+    Job
+        The job, every default filled in and every value in SI units (docs/job-format.md).
+
+    Raises
+    ------
+    JobError
+        For anything wrong with the job (a ``[sweep]`` too: that is for ``xo-fit batch``), naming the file,
+        line and key.
     """
     return _load_job(source, base)
 
@@ -87,7 +104,26 @@ def _reuse(job, design):
 
 
 def simulate(job, values: Mapping[str, float] | Design | None = None) -> Design:
-    """The job's own values (a hand design), some replaced by ``values`` (SI by part name), simulated and scored."""
+    """The job's own values (a hand design), some replaced by ``values``, simulated and scored.
+
+    Parameters
+    ----------
+    job : Job, str, Path or System
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
+    values : Mapping or Design, optional
+        Part values replacing the job's own: a mapping part name -> value in ohm, H or F by the part's
+        kind (each above 0), or a Design of the same job's parts (all its values). Default: the job's values.
+
+    Returns
+    -------
+    Design
+        The design (stage ``"simulate"``): its responses, cost and metrics.
+
+    Raises
+    ------
+    XoFitError
+        For a part the job lacks, a value not a finite number above 0, or a Design of another job's parts.
+    """
     from xo_fit.search.fitting import score
 
     system = _reuse(job, values)
@@ -97,9 +133,35 @@ def simulate(job, values: Mapping[str, float] | Design | None = None) -> Design:
 
 def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: str | None = None,
         time_limit: float | None = None, workers: int = 1, progress=None) -> Design:
-    """Global search and polish of the job's free values; arguments override the job's [search].
+    """Global search and polish of the job's free values; the arguments override the job's ``[search]``.
 
-    ``workers`` > 1 runs that many independent searches from derived seeds in processes; the best wins.
+    Parameters
+    ----------
+    job : Job, str, Path or System
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
+    budget : int, optional
+        Cost evaluations for the search (dimensionless); default the job's ``[search] budget``.
+    seed : int, optional
+        The random seed (dimensionless); default the job's ``[search] seed``.
+    optimizer : str, optional
+        The search engine (``"auto"``, ``"de"``, ``"scipy-de"`` or ``"ng-NAME"``); default the job's.
+    time_limit : float, optional
+        Stop after this long, in s, and keep the best so far; default the job's (none: no limit).
+    workers : int
+        Processes (dimensionless). Above 1, that many independent searches from seeds derived from ``seed``
+        share the budget and the best wins; ``progress`` is then not called. Default 1.
+    progress : callable, optional
+        Called as ``progress(evaluations, budget, best_cost)`` while a single search runs.
+
+    Returns
+    -------
+    Design
+        The fitted design (stage ``"fit"``), with the search's figures in its ``"search"`` section.
+
+    Raises
+    ------
+    XoFitError
+        When the job cannot be fitted (no way targets, no free values) or ``optimizer`` is unknown.
     """
     from xo_fit.search.fitting import run_fit, run_fit_restarts
 
@@ -131,11 +193,30 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
 
 def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Mapping[str, str] | None = None,
          inventory=None, combine: int | None = None, top_up: str | None = None) -> Design:
-    """Every snappable value moved to a purchasable one (series, or the parts on hand) and re-scored.
+    """Every snappable value moved to a purchasable one (a series, or the parts on hand) and re-scored.
 
-    ``design``: the continuous design to snap (default: the job's own values). ``series`` maps a kind
-    (R, L, C) to a series name and overrides the job's [snap] series; ``inventory`` is a path to a drawer
-    CSV (or a read :class:`~xo_fit.io.inventory.Inventory`), by default the job's own.
+    Parameters
+    ----------
+    job : Job, str, Path or System
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
+    design : Design or Mapping, optional
+        The continuous design to snap: a Design (or Spread) of the job, or a mapping part name -> value in ohm,
+        H or F by the part's kind. Default: the job's own values.
+    series : Mapping, optional
+        Kind (``"R"``, ``"L"``, ``"C"``) -> series name (``"E12"``, ...), overriding the job's ``[snap] series``.
+    inventory : str, Path or Inventory, optional
+        A drawer CSV's path (or a read :class:`~xo_fit.io.inventory.Inventory`) to take parts from; default the
+        job's own, if any.
+    combine : int, optional
+        Parts that may make one value (dimensionless): 1 or 2; default the job's ``[snap] combine``.
+    top_up : str, optional
+        With an inventory, a series to buy from where the drawer lacks a value; default the job's.
+
+    Returns
+    -------
+    Design
+        The snapped design (stage ``"snap"``), scored with the parts that will be built (a drawer's own DCR,
+        ESR and ratings where it gives them), with the continuous cost in its ``"snap"`` section and parts.csv.
     """
     from xo_fit.search.fitting import cost_model, score
     from xo_fit.io.inventory import Inventory, read_inventory
@@ -207,7 +288,28 @@ def _with_drawer_parts(system, outcome, inventory):
 
 def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: int | None = None,
            seed: int | None = None, progress=None) -> Spread:
-    """Tolerance Monte Carlo of a design (default: the job's own values): yields, sensitivity, percentiles."""
+    """Tolerance Monte Carlo of a design: yields, sensitivity, percentile curves.
+
+    Parameters
+    ----------
+    job : Job, str, Path or System
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
+    design : Design or Mapping, optional
+        The nominal design: a Design (or Spread) of the job, or a mapping part name -> value in ohm, H or F
+        by the part's kind. Default: the job's own values.
+    samples : int, optional
+        Tolerance draws (dimensionless); default the job's ``[spread] samples``.
+    seed : int, optional
+        The random seed (dimensionless); default the job's ``[spread] seed``.
+    progress : callable, optional
+        Called as ``progress(done, samples, fraction_within_band)`` after each chunk of draws.
+
+    Returns
+    -------
+    Spread
+        The nominal design (stage ``"spread"``) with the ``"spread"`` section (yields, worst draw, sensitivity,
+        corners, pair matching) and the p05/p50/p95 curves in dB of the sum and of each driver on the grid.
+    """
     from xo_fit.search.fitting import score
     from xo_fit.stages.tolerance import run_spread
 
@@ -241,10 +343,32 @@ def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: 
 
 def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: int | None = None,
           seed: int | None = None, max_increase: float = MAX_INCREASE, workers: int = 1, progress=None):
-    """Greedy backward elimination of parts with refits, from ``design`` (default: the job's own values).
+    """Greedy backward elimination of parts, with a refit after each removal.
 
-    Returns a :class:`~xo_fit.output.pruned.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),
-    ``design`` (the chosen one: the fewest parts within ``max_increase`` of step 0's cost), ``save(folder)``.
+    Parameters
+    ----------
+    job : Job, str, Path or System
+        A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
+    design : Design or Mapping, optional
+        The starting design: a Design (or Spread) of the job, or a mapping part name -> value in ohm, H or F
+        by the part's kind. Default: the job's own values.
+    budget : int, optional
+        Cost evaluations for each refit (dimensionless); default ``xo_fit.config.REFIT_BUDGET``.
+    seed : int, optional
+        The random seed of the refits (dimensionless); default the job's ``[search] seed``.
+    max_increase : float
+        The largest cost increase over step 0 (the starting design refitted) that the chosen design may have,
+        as a fraction (dimensionless): 0.10 is 10 %.
+    workers : int
+        Processes the trial removals of a step run in (dimensionless); default 1.
+    progress : callable, optional
+        Called as ``progress(step, removed, how, cost)`` after each step.
+
+    Returns
+    -------
+    Pruning
+        A :class:`~xo_fit.output.pruned.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),
+        ``design`` (the chosen one: the fewest parts within ``max_increase`` of step 0's cost), ``save(folder)``.
     """
     from xo_fit.output.pruned import Pruning
     from xo_fit.stages.pruning import run_prune
@@ -255,12 +379,32 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
 
 
 def fit_driver(path: str | Path, model: str = "ts", volume: float | None = None):
-    """An equivalent circuit fitted to a measured impedance file (``"ts"``: Small's model; ``"ts-lossy"``: with
-    L2 || R2): an :class:`xo_fit.physics.impedance_fit.ImpedanceFit` (``params``, ``rms_error_pct``,
-    ``max_error_pct``, ``toml(name)``). ``"vented"`` (``"vented-lossy"``: with L2 || R2) fits a driver in its
-    vented box to the twin-peak impedance: a :class:`xo_fit.physics.vented_fit.VentedFit` (re, le, fs, qms, qes,
-    alpha = Vas/Vb, fb, ql, the same error figures, ``toml(name)`` with the ts and box tables); ``volume``
-    (m^3), the box's net volume where known, gives vas. Bad files and fits that fail raise XoFitError."""
+    """An equivalent circuit fitted to a measured impedance file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The impedance file (frequency in Hz, magnitude in ohm, phase in degrees where given).
+    model : str
+        ``"ts"``: Small's model of a driver in free air; ``"ts-lossy"``: with L2 || R2 for the voice coil;
+        ``"vented"``: a driver in its vented box, fitted to the twin-peak impedance; ``"vented-lossy"``: that
+        with L2 || R2.
+    volume : float, optional
+        For the vented models only: the box's net volume in m^3, where known; it gives the driver's vas.
+
+    Returns
+    -------
+    ImpedanceFit or VentedFit
+        For ``"ts"`` and ``"ts-lossy"`` an :class:`xo_fit.physics.impedance_fit.ImpedanceFit` (``params``,
+        ``rms_error_pct``, ``max_error_pct``, ``toml(name)``); for the vented models a
+        :class:`xo_fit.physics.vented_fit.VentedFit` (re, le, fs, qms, qes, alpha = Vas/Vb, fb, ql, the same
+        error figures, ``toml(name)`` with the ts and box tables).
+
+    Raises
+    ------
+    XoFitError
+        For an unknown model, a volume with a free-air model, a bad file or a fit that fails.
+    """
     from xo_fit.io.measure import read_curve
     from xo_fit.physics.impedance_fit import MODELS, fit_impedance
 
@@ -282,10 +426,25 @@ VENTED_MODELS = ("vented", "vented-lossy")
 
 
 def baffle(job):
-    """Each driver's diffraction response on the job's ``[baffle]`` (docs/baffle.md), without reading any data:
-    an :class:`xo_fit.output.baffle.BaffleResponses` (``frequencies`` (F,) Hz, ``positions`` (A,), ``names``,
-    ``response`` complex (D, A, F), ``table()``, ``save(folder)`` writing baffle.csv and baffle.png). ``job`` is a
-    Job, a job file path or a System. Raises JobError when the job has no [baffle]."""
+    """Each driver's diffraction response on the job's ``[baffle]`` (docs/baffle.md), without reading any data.
+
+    Parameters
+    ----------
+    job : Job, str, Path or System
+        The job: a :class:`~xo_fit.job.model.Job`, a job file's path or a loaded System (its job is used).
+
+    Returns
+    -------
+    BaffleResponses
+        An :class:`xo_fit.output.baffle.BaffleResponses`: ``frequencies`` (F,) in Hz, ``positions`` (A,) (the
+        axis first), ``names`` (D,), ``response`` complex (D, A, F) dimensionless (the baffle's pressure over
+        the free-field pressure), ``table()``, ``save(folder)`` writing baffle.csv and baffle.png.
+
+    Raises
+    ------
+    JobError
+        When the job has no ``[baffle]``.
+    """
     from xo_fit.model.system import System
     from xo_fit.output.baffle import baffle_responses
 
@@ -300,12 +459,35 @@ def baffle(job):
 
 def write_report(items: list, out: str | Path, command: list[str] | None = None, *, buy=None,
                  speakers: int | None = None) -> Path:
-    """report.html (self-contained), its PNGs and bom.csv for designs and spreads (or result.json paths), overlaid.
+    """report.html (self-contained), its PNGs and bom.csv for designs and spreads, overlaid.
 
-    ``buy`` names the result whose parts are listed to buy and written to bom.csv: one of ``items``, a result
-    path (one of theirs, or another result, then added to the report) or a Design/Spread; default the last snap
-    among ``items``, else none (continuous values are never listed to buy unasked). ``speakers``: the
-    quantities of bom.csv (default 2, a stereo pair)."""
+    Parameters
+    ----------
+    items : list of Design, Spread, str or Path
+        The results, overlaid in the order given: designs, spreads, or result paths (a result.json or its
+        folder). They must share one grid and one set of drivers.
+    out : str or Path
+        The folder to write into (made where missing).
+    command : list of str, optional
+        The command line that made the report, shown with the version and date (default: "the Python API").
+    buy : Design, Spread, str or Path, optional
+        The result whose parts are listed to buy and written to bom.csv: one of ``items``, a result path (one of
+        theirs, or another result, then added to the report) or a Design/Spread. Default: the last snap among
+        ``items``, else the last result whose parts all come from a series or a drawer, else none (continuous
+        values are never listed to buy unasked).
+    speakers : int, optional
+        Speakers the quantities of bom.csv are for (dimensionless); default 2, a stereo pair.
+
+    Returns
+    -------
+    Path
+        The report.html written.
+
+    Raises
+    ------
+    XoFitError
+        When ``items`` is empty, a result file cannot be read, or the results do not share a grid and drivers.
+    """
     from xo_fit.output.report import write_report as _write
 
     loaded = [load_result(x) if isinstance(x, (str, Path)) else x for x in items]

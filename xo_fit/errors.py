@@ -21,13 +21,13 @@ class XoFitError(Exception):
 
     Parameters
     ----------
-    message:
+    message : str
         What is wrong and what was expected, in one sentence.
-    path:
+    path : str or Path, optional
         The file the error is in, if any.
-    line:
-        1-based line number in ``path``, if known.
-    key:
+    line : int, optional
+        1-based line number in ``path`` (dimensionless), if known.
+    key : str, optional
         The key, table or part the error is about (``"[grid] points"``,
         ``"part L1"``), if any.
     """

@@ -9,7 +9,17 @@ import numpy as np
 
 @dataclass(frozen=True)
 class Grid:
-    """The log-spaced frequency axis every curve is put on (Hz)."""
+    """The log-spaced frequency axis every curve is put on.
+
+    Attributes
+    ----------
+    f_min : float
+        The lowest frequency, in Hz.
+    f_max : float
+        The highest frequency, in Hz (above ``f_min``).
+    points : int
+        The number of points F (dimensionless), at least 2.
+    """
 
     f_min: float
     f_max: float
@@ -24,9 +34,21 @@ class Grid:
 
 
 def band_mask(frequencies: np.ndarray, band: tuple[float, float] | None) -> np.ndarray:
-    """Boolean mask (F,) of the grid points inside ``band`` (Hz, inclusive); all points when band is None.
+    """The grid points inside a band.
 
     A band that holds no grid point selects the point nearest its geometric centre.
+
+    Parameters
+    ----------
+    frequencies : ndarray
+        The grid, in Hz, shape (F,).
+    band : tuple of float or None
+        (low, high) in Hz, inclusive; None selects every point.
+
+    Returns
+    -------
+    ndarray
+        A boolean mask, shape (F,).
     """
     if band is None:
         return np.ones(frequencies.shape, dtype=bool)

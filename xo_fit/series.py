@@ -49,7 +49,23 @@ CONTINUOUS = ("none",)
 
 
 def check_name(name: str) -> str:
-    """Normalise a series name ("e12" -> "E12"); raise XoFitError for an unknown one."""
+    """A series name normalised (``"e12"`` -> ``"E12"``; ``"none"`` for a continuous part).
+
+    Parameters
+    ----------
+    name : str
+        A series name (E6 to E192, any case) or ``"none"``.
+
+    Returns
+    -------
+    str
+        The name as :data:`SERIES` spells it, or ``"none"``.
+
+    Raises
+    ------
+    XoFitError
+        For an unknown name.
+    """
     if name.lower() in CONTINUOUS:
         return "none"
     up = name.upper()
@@ -59,14 +75,42 @@ def check_name(name: str) -> str:
 
 
 def values_around(value: float, name: str, decades: int = 1) -> np.ndarray:
-    """All values of the series within ``decades`` decades of ``value``, ascending (SI units as given)."""
+    """Every value of a series in the decades around ``value``, ascending.
+
+    Parameters
+    ----------
+    value : float
+        A value above 0, in its SI unit (ohm, H or F).
+    name : str
+        The series (a key of :data:`SERIES`).
+    decades : int
+        How many decades below and above the decade of ``value`` to cover (dimensionless).
+
+    Returns
+    -------
+    ndarray
+        The series values in the unit of ``value``, shape (N,) with N = (2 decades + 1) x the series' length.
+    """
     d = math.floor(math.log10(value))
     mant = np.array(SERIES[name])
     return np.concatenate([mant * 10.0 ** k for k in range(d - decades, d + decades + 1)])
 
 
 def nearest(value: float, name: str) -> float:
-    """The series value nearest to ``value`` in log distance (ties go to the larger value)."""
+    """The series value nearest to ``value`` in log distance (ties go to the larger value).
+
+    Parameters
+    ----------
+    value : float
+        A value above 0, in its SI unit (ohm, H or F).
+    name : str
+        The series (a key of :data:`SERIES`).
+
+    Returns
+    -------
+    float
+        The nearest series value, in the unit of ``value``.
+    """
     vals = values_around(value, name)
     dist = np.abs(np.log(vals / value))
     i = int(np.flatnonzero(dist <= dist.min() * (1 + 1e-12) + 1e-15)[-1])
@@ -77,6 +121,22 @@ def neighbours(value: float, name: str, k: int, lo: float | None = None, hi: flo
     """The log-nearest series value and ``k`` values on each side of it, within [lo, hi] when given.
 
     When no series value lies inside [lo, hi], the nearest ones outside are taken.
+
+    Parameters
+    ----------
+    value : float
+        A value above 0, in its SI unit (ohm, H or F).
+    name : str
+        The series (a key of :data:`SERIES`).
+    k : int
+        Values on each side (dimensionless).
+    lo, hi : float, optional
+        The part's allowed range, in the unit of ``value``.
+
+    Returns
+    -------
+    list of float
+        Up to 2 k + 1 series values, ascending, in the unit of ``value``.
     """
     vals = values_around(value, name, decades=2)
     near = nearest(value, name)

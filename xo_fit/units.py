@@ -160,12 +160,14 @@ def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: 
 
     Parameters
     ----------
-    value:
-        A TOML number (int or float, already in the base unit) or a string.
-    unit:
+    value : int, float or str
+        A TOML number (already in the base unit) or a string in engineering notation (``"4.7uF"``).
+    unit : str
         The base unit expected: one of the keys of :data:`UNIT_SPELLINGS`.
-    positive:
+    positive : bool
         Require a value above zero (``allow_zero`` admits zero too).
+    allow_zero : bool
+        With ``positive``, admit zero as well.
 
     Returns
     -------
@@ -209,8 +211,25 @@ def parse_value(value: object, unit: str, *, positive: bool = True, allow_zero: 
 def parse_percent(value: object, below: float | None = None) -> float:
     """Read ``"5%"`` (or a plain fraction such as 0.05) as a fraction: 0.05.
 
-    A bare number above 1 is refused as ambiguous; write ``"5%"``. ``below``: a fraction the value must stay
-    under (1.0 for a tolerance: a part 100 % low would have no value at all).
+    A bare number above 1 is refused as ambiguous; write ``"5%"``.
+
+    Parameters
+    ----------
+    value : str, int or float
+        ``"N%"``, or a fraction 0..1.
+    below : float, optional
+        A fraction the value must stay under (dimensionless; 1.0 for a tolerance: a part 100 % low would have no
+        value at all).
+
+    Returns
+    -------
+    float
+        The fraction (dimensionless).
+
+    Raises
+    ------
+    UnitsError
+        For anything else, or a value not under ``below``.
     """
     if isinstance(value, bool):
         raise UnitsError(f"expected a percentage such as \"5%\", got {value!r}")
@@ -233,7 +252,22 @@ def parse_percent(value: object, below: float | None = None) -> float:
 
 
 def format_value(value: float, unit: str, prec: int = 3) -> str:
-    """Print ``value`` (SI) in engineering notation: ``format_value(0.00147, "H") == "1.47 mH"``."""
+    """``value`` in engineering notation with its unit's symbol: ``format_value(0.00147, "H") == "1.47 mH"``.
+
+    Parameters
+    ----------
+    value : float
+        The value in SI units (in ``unit``).
+    unit : str
+        The unit's name (``"ohm"``, ``"H"``, ``"F"``, ``"Hz"``, ...), shown by its symbol.
+    prec : int
+        Digits after the first (dimensionless).
+
+    Returns
+    -------
+    str
+        The text (micro written as µ); a non-finite value as ``"inf Ω"`` and the like.
+    """
     if not math.isfinite(value):
         return f"{value} {UNIT_SYMBOL.get(unit, unit)}".strip()
     text = Quantity(value, UNIT_SYMBOL.get(unit, unit)).render(prec=prec)
@@ -241,7 +275,18 @@ def format_value(value: float, unit: str, prec: int = 3) -> str:
 
 
 def awg_diameter(gauge: int) -> float:
-    """Bare diameter in m of American Wire Gauge ``gauge`` (ASTM B258: d = 0.127 mm x 92^((36-n)/39))."""
+    """The bare diameter of an American Wire Gauge (ASTM B258: d = 0.127 mm x 92^((36-n)/39)).
+
+    Parameters
+    ----------
+    gauge : int
+        The gauge n (dimensionless).
+
+    Returns
+    -------
+    float
+        The diameter, in m.
+    """
     return 0.127e-3 * 92.0 ** ((36 - gauge) / 39.0)
 
 
@@ -249,7 +294,23 @@ _WIRE = re.compile(r"^\s*(?:awg\s*(\d+)|(\d+)\s*awg)\s*$", re.IGNORECASE)
 
 
 def parse_wire(value: str) -> float | None:
-    """Read a wire gauge such as ``"18awg"`` or ``"AWG 16"``; return its bare diameter in m, or None."""
+    """Read a wire gauge such as ``"18awg"`` or ``"AWG 16"``.
+
+    Parameters
+    ----------
+    value : str
+        The text.
+
+    Returns
+    -------
+    float or None
+        The bare diameter in m, or None when the text is no wire gauge.
+
+    Raises
+    ------
+    UnitsError
+        For a gauge outside 0 to 40 AWG.
+    """
     m = _WIRE.match(value)
     if not m:
         return None

@@ -72,6 +72,8 @@ def pass_on(files: dict) -> dict:
 
 
 def lost(address: str, e: BaseException) -> BatchStopped:
+    """The batch-stopping error for a lost connection to the scheduler at ``address``, with the cause ``e``
+    in a few words."""
     what = f"{type(e).__name__}: {str(e)[:120]}" if str(e) else type(e).__name__
     return BatchStopped(f"lost the Dask scheduler at {address} ({what}); the unfinished stages are marked "
                         "interrupted: run the batch again to finish them", key="--scheduler")
@@ -134,6 +136,8 @@ def quiet_dask() -> Iterator[None]:
 
 
 def run_on(address: str, jobs: list, recorder, collection: Collection) -> None:
+    """Submit ``jobs`` to the scheduler at ``address`` and record each result as it finishes, those that
+    finish together in one store transaction; a broken connection stops the batch with :func:`lost`."""
     from distributed import as_completed
 
     client = connect(address)

@@ -112,14 +112,18 @@ class Pool:
         return slot
 
     def busy(self) -> list:
+        """The pipes of the workers that hold a job (sent and not yet finished)."""
         return [c for c, s in self.slots.items() if s.jobs]
 
     def drop(self, slot: Slot) -> None:
+        """Forget a worker: its pipe closed, its process joined (up to 5 s)."""
         del self.slots[slot.conn]
         slot.conn.close()
         slot.proc.join(timeout=5)
 
     def close(self) -> None:
+        """Stop every worker: idle ones are told to end, busy ones killed; then all are joined (killed after
+        5 s) and their pipes closed."""
         for slot in list(self.slots.values()):
             if not slot.jobs:
                 try:
@@ -172,6 +176,8 @@ def died(pool: Pool, slot: Slot, queue: deque):
 
 
 def send(pool: Pool, slot: Slot, job: tuple, queue: deque, recorder) -> None:
+    """Send ``job`` ((item, stages, payload, attempt)) to the worker of ``slot``; a worker already gone is
+    handled as dead (its job requeued once, or recorded failed)."""
     slot.jobs.append(job)
     try:
         slot.conn.send(job[2])

@@ -159,6 +159,7 @@ class Recorder:
         self.t0 = time.time()
 
     def batch(self):
+        """A block whose store changes are committed together, once, at its end (:meth:`Store.batch`)."""
         return self.store.batch()
 
     def stage(self, it: Item, res: dict) -> None:
@@ -202,12 +203,15 @@ class Recorder:
         self.report()
 
     def report(self) -> None:
+        """Call the progress callback, if any, with (done, failed, running, total, start time in s since the
+        epoch)."""
         if self.progress:
             left = self.total - self.done - self.failed
             self.progress(self.done, self.failed, min(self.workers, left), self.total, self.t0)
 
 
 def check_stages(stages: list[str]) -> None:
+    """Raise XoFitError (key ``--stages``) for a stage name that is not one of fit, snap, spread."""
     for st in stages:
         if st not in STAGES:
             raise XoFitError(f"unknown stage '{st}'; expected fit, snap, spread", key="--stages")
@@ -241,6 +245,8 @@ def execute(jobs: list, recorder: Recorder, collection: Collection, workers: int
 
 
 def interrupted(e: BaseException) -> BatchStopped:
+    """The batch-stopping error for an interruption: exit 130 for Ctrl-C, 128 + SIGTERM for a
+    :class:`Terminated`."""
     name, code = ("SIGTERM", 128 + signal.SIGTERM) if isinstance(e, Terminated) else ("Ctrl-C", 130)
     return BatchStopped(f"the batch was interrupted ({name}); the unfinished stages are marked interrupted: run "
                         "the batch again to finish them", code=code)
@@ -292,13 +298,26 @@ def run_batch(patterns: list[str], out: Path, stages: list[str], *, workers: int
 
     Parameters
     ----------
-    patterns: job files or globs.
-    out: the batch folder (results.sqlite, summary.csv, one folder per job).
-    stages: some of fit, snap, spread, in order.
-    workers: local worker processes (default: the cores); ignored with ``scheduler``.
-    scheduler: a running Dask scheduler's address (tcp://HOST:PORT) to run the jobs on instead.
-    plots: write the PNGs.
-    progress: called as progress(done, failed, running, total, t0) as jobs end.
+    patterns : list of str
+        Job files or globs.
+    out : Path
+        The batch folder (results.sqlite, summary.csv, one folder per job).
+    stages : list of str
+        Some of fit, snap, spread, in order.
+    workers : int, optional
+        Local worker processes (dimensionless; default: the cores); ignored with ``scheduler``.
+    scheduler : str, optional
+        A running Dask scheduler's address (tcp://HOST:PORT) to run the jobs on instead.
+    plots : bool
+        Write the PNGs.
+    progress : callable, optional
+        Called as ``progress(done, failed, running, total, t0)`` as jobs end (t0 the start, in s since the
+        epoch).
+
+    Returns
+    -------
+    BatchReport
+        The counts, the summary rows (also written to summary.csv) and the failures.
 
     Raises
     ------

@@ -96,10 +96,13 @@ class Store:
                          error=None, folder=folder, source=source)
 
     def done(self, job: str, stage: str, h: str, *, started: float, finished: float, cost, metrics: dict) -> None:
+        """Set the row (job, stage) done, with its hash, start and end times (s since the epoch), cost and
+        metrics."""
         self.set(job, stage, hash=h, status="done", started=started, finished=finished, cost=cost, metrics=metrics,
                  error=None)
 
     def failed(self, job: str, stage: str, h: str, error: str, **fields) -> None:
+        """Set the row (job, stage) failed now with its hash and error message; ``fields`` sets other columns."""
         self.set(job, stage, hash=h, status="failed", finished=time.time(), error=error, **fields)
 
     def forget_load_failures(self, jobs: Iterable[str]) -> None:
@@ -141,6 +144,7 @@ class Store:
             raise BatchStopped(f"cannot write the results store: {e}", path=self.path) from None
 
     def close(self) -> None:
+        """Close the database (errors on closing are ignored)."""
         try:
             self.db.close()
         except sqlite3.Error:
@@ -169,9 +173,12 @@ class Lock:
         self.fh.flush()
 
     def fileno(self) -> int:
+        """The lock file's descriptor (the local pool's forked workers close it: the lock is the
+        coordinator's alone)."""
         return self.fh.fileno()
 
     def release(self) -> None:
+        """Unlock the folder and close the lock file."""
         import fcntl
 
         fcntl.flock(self.fh, fcntl.LOCK_UN)

@@ -29,10 +29,12 @@ class StageOutput:
 
     @property
     def cost(self) -> float | None:
+        """The result's cost (dimensionless), or None where the stage scored none."""
         return self.document.get("cost")
 
     @property
     def metrics(self) -> dict:
+        """The result's metrics by name (result.json's ``metrics``; empty where it has none)."""
         return self.document.get("metrics", {})
 
 
@@ -43,6 +45,11 @@ def _output(design, out: Path, files: list[Path], **info) -> StageOutput:
 
 def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time_limit=None, workers: int = 1,
               plots: bool = True, progress=None, home: Path | None = None) -> StageOutput:
+    """Fit ``system`` (:func:`xo_fit.api.fit`) and save the result into folder ``out``.
+
+    The keyword arguments are those of :func:`xo_fit.api.fit` and of ``Design.save`` (``plots``, ``home``).
+    Returns the stage's :class:`StageOutput` (result.json as written, the files, the design).
+    """
     d = api.fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit, workers=workers,
                 progress=progress)
     files = d.save(out, plots=plots, title=f"{system.job.name}: fit", home=home)

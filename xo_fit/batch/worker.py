@@ -112,6 +112,12 @@ def start_values(system, payload: dict) -> tuple[list[float] | None, list[str]]:
 
 
 def run_stage(st: str, system, folder: Path, values, info: dict, payload: dict, inventory):
+    """Run stage ``st`` (fit, snap or spread) of a job in a worker, into ``folder``.
+
+    Snap and spread start from ``values`` (the previous stage's part values, SI) or the job's own; ``info`` is
+    the part information handed on to the spread, ``inventory`` the drawer for the snap. Returns the stage's
+    :class:`~xo_fit.batch.tasks.StageOutput`.
+    """
     import numpy as np
 
     from xo_fit.batch import tasks

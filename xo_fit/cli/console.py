@@ -12,6 +12,9 @@ from xo_fit.errors import printable
 
 
 class Output:
+    """The command line's output state, set by the global options: ``quiet`` (``-q``: say nothing but
+    warnings and errors), ``verbose`` (``-v``: timings and paths) and ``noted`` (the command has already said on
+    stderr that it was interrupted and what it kept)."""
     quiet = False
     verbose = False
     noted = False  # the command has said on stderr that it was interrupted, and what it kept
@@ -21,11 +24,13 @@ OUT = Output()
 
 
 def say(text: str = "") -> None:
+    """Print ``text`` on stdout, control characters escaped, unless ``-q`` is given."""
     if not OUT.quiet:
         typer.echo(printable(text))
 
 
 def warn(text: str) -> None:
+    """Print ``warning: text`` on stderr (also under ``-q``), control characters escaped."""
     typer.echo(f"warning: {printable(text)}", err=True)
 
 
@@ -52,6 +57,11 @@ def part_info_of(from_: Path | None) -> dict:
 
 
 def load_checked(job_path: Path):
+    """The job at ``job_path`` read and its data loaded into a System, its load warnings printed (with
+    ``-v``, also the load time and the kernel cache folder).
+
+    Raises XoFitError for a bad job or bad data (the command then exits 2).
+    """
     from xo_fit.job.reader import load_job
     from xo_fit.model.system import load_system
 
@@ -70,6 +80,9 @@ def load_checked(job_path: Path):
 
 
 def print_score(s, start_cost: float | None = None) -> None:
+    """Print a scored design's cost and its terms (with ``start_cost``, the cost before the search), its
+    error against the target in dB, the phase mismatch in degrees, its level in dB SPL, its impedance minimum in
+    ohm and Hz, the off-axis figures and the predicted preference where they were computed."""
     m = s.metrics
     if s.cost is not None:
         terms = ", ".join(f"{k} {v:.4g}" for k, v in s.terms.items())
@@ -109,6 +122,8 @@ def print_limits(design) -> None:
 
 
 def print_findings(design) -> None:
+    """Print where the design's error lies (each way's and each crossover's rms and worst error, dB and
+    Hz) and its findings, one line each."""
     b = design.breakdown
     if b is not None:
         parts = [f"{w['way']} {w['rms_db']:.2f} dB rms, worst {w['worst_db']:+.2f} dB at {w['worst_hz']:.0f} Hz"
@@ -122,6 +137,8 @@ def print_findings(design) -> None:
 
 
 def print_cautions(system, s) -> None:
+    """Print the design's part stresses at the job's ``[stress]`` drive (W into ohm) with the drivers'
+    protection, and the cautions that follow; without ``[stress]`` only the cautions on the impedance minimum."""
     from xo_fit.output.cautions import design_cautions, load_cautions
 
     spec = system.job.stress
@@ -188,12 +205,15 @@ class Progress:
         self.shown = True
 
     def close(self) -> None:
+        """End the progress line (a line break) if one was shown."""
         if self.shown:
             sys.stderr.write("\n")
             sys.stderr.flush()
 
 
 def print_summary(rows: list[dict]) -> None:
+    """Print a batch summary table: one row per job (status, stage, cost, rms and worst error in dB, impedance
+    minimum in ohm, yield in %, the swept values and the start of any error)."""
     say(f"  {'job':<36} {'status':<8} {'stage':<7} {'cost':>9} {'rms dB':>7} {'worst dB':>8} {'|Z| min':>8} "
         f"{'yield':>6}  swept")
     for r in rows:

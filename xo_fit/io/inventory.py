@@ -26,6 +26,8 @@ class Inventory:
     extras: dict = field(default_factory=dict)  # (kind, value) -> {"dcr": ohm, "esr": ohm, "rating": W/V/A}
 
     def values(self, kind: str) -> list[tuple[float, int]]:
+        """The drawer's parts of ``kind`` (``"R"``, ``"L"`` or ``"C"``): (value in ohm, H or F, count) pairs;
+        empty where it has none."""
         return list(self.parts.get(kind, ()))
 
     def extra(self, kind: str, value: float) -> dict:

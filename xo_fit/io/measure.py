@@ -41,11 +41,16 @@ class Curve:
 
     Attributes
     ----------
-    path: the file.
-    frequency: Hz, shape (N,), strictly rising.
-    magnitude: shape (N,), dB SPL (response) or ohm (impedance).
-    phase_deg: shape (N,) or None when the file has no phase column.
-    lines: the 1-based line number of each point, shape (N,).
+    path : Path
+        The file.
+    frequency : ndarray
+        Frequencies in Hz, shape (N,), strictly rising.
+    magnitude : ndarray
+        Magnitudes, shape (N,): in dB SPL (a response) or in ohm (an impedance).
+    phase_deg : ndarray or None
+        Phases in degrees, shape (N,); None when the file has no phase column.
+    lines : ndarray
+        The 1-based line number of each point in the file, shape (N,).
     """
 
     path: Path
@@ -56,6 +61,7 @@ class Curve:
 
     @property
     def f_range(self) -> tuple[float, float]:
+        """The first and last frequencies of the curve, in Hz."""
         return float(self.frequency[0]), float(self.frequency[-1])
 
 
@@ -93,8 +99,15 @@ def read_curve(path: str | Path, kind: str) -> Curve:
 
     Parameters
     ----------
-    path: the file (any name or extension).
-    kind: ``"response"`` (magnitude in dB SPL) or ``"impedance"`` (magnitude in ohm).
+    path : str or Path
+        The file (any name or extension).
+    kind : str
+        ``"response"`` (magnitude in dB SPL) or ``"impedance"`` (magnitude in ohm).
+
+    Returns
+    -------
+    Curve
+        The points: frequency in Hz, magnitude (dB SPL or ohm), phase in degrees where the file has it.
 
     Raises
     ------

@@ -135,6 +135,8 @@ def _clean(x: Any) -> Any:
 
 
 def write_json(path: str | Path, data: dict) -> None:
+    """Write ``data`` to ``path`` as indented UTF-8 JSON, atomically: numpy scalars and arrays as Python
+    numbers and lists, non-finite floats as null."""
     write_text(path, json.dumps(_clean(data), indent=2, ensure_ascii=False) + "\n")
 
 
@@ -151,6 +153,8 @@ class Table:
     columns: dict
 
     def write(self, path: str | Path, fmt: str = "%.6g") -> None:
+        """Write the table to ``path`` as CSV, atomically: a header of the column names, then one row per
+        index, each number in printf format ``fmt`` (a non-finite one as an empty field)."""
         names = list(self.columns)
         data = np.column_stack([np.asarray(self.columns[n], dtype=float) for n in names])
         with atomic_path(path) as tmp:
@@ -162,6 +166,7 @@ class Table:
 
 
 def write_csv(path: str | Path, table: Table) -> None:
+    """Write ``table`` to ``path`` as CSV, atomically (:meth:`Table.write` with its default format)."""
     table.write(path)
 
 

@@ -12,6 +12,7 @@ from xo_fit.job.model import (DEFAULTS, is_name, NAME_PATTERN, NODE_PATTERN, Dri
 from xo_fit.job.reading import (Reader, Context, is_length)
 
 def format_ohms(v: float) -> str:
+    """A resistance ``v`` in ohm as engineering text with its unit (``"2.2 Ω"``)."""
     from xo_fit.units import format_value
 
     return format_value(v, "ohm")
@@ -124,6 +125,8 @@ def read_dcr(r: Reader, ptype: str) -> tuple[float, bool]:
 
 
 def part_value(r: Reader, key: str, unit: str) -> float | None:
+    """A part's value under ``key`` in ``unit`` (SI), None where absent; a value outside the range the
+    solver handles raises JobError."""
     v = r.value(key, unit)
     if v is not None and not SOLVABLE[0] <= v <= SOLVABLE[1]:
         from xo_fit.units import format_value
@@ -134,6 +137,8 @@ def part_value(r: Reader, key: str, unit: str) -> float | None:
 
 
 def check_plausible(p: PartSpec, ctx: Context, table: tuple) -> None:
+    """Warn (one line) for a value, min or max of part ``p`` outside what crossovers use for its type
+    (often a wrong unit)."""
     from xo_fit.units import format_value
 
     if p.type not in PLAUSIBLE:
@@ -147,6 +152,8 @@ def check_plausible(p: PartSpec, ctx: Context, table: tuple) -> None:
 
 
 def check_parts(parts: tuple[PartSpec, ...], drivers: list[DriverSpec], ctx: Context) -> None:
+    """Refuse (JobError) duplicate part names, a driver wired in by two parts, and a driver defined but
+    wired in by no part."""
     seen: dict[str, int] = {}
     used: dict[str, str] = {}
     for i, p in enumerate(parts):

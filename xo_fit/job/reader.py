@@ -43,6 +43,28 @@ def load_job(source: str | Path | Mapping[str, Any], base: str | Path | None = N
 
 def read_document(source: str | Path | Mapping[str, Any], base: str | Path | None = None, *,
           copy: bool = True) -> tuple[dict, Context]:
+    """A job document and its reading context, before any table is read.
+
+    Parameters
+    ----------
+    source : str, Path or Mapping
+        A TOML file's path, or a mapping with the TOML's structure.
+    base : str or Path, optional
+        The folder relative data paths are taken from (default: the file's folder; for a mapping, the current
+        folder).
+    copy : bool
+        Deep-copy a mapping (False: the caller gives it away).
+
+    Returns
+    -------
+    tuple of (dict, Context)
+        The document and its context (file, folder, line finder, stem).
+
+    Raises
+    ------
+    JobError
+        For a file that cannot be read or is not valid TOML (with the line where TOML gives one).
+    """
     if isinstance(source, Mapping):
         import copy as copying
 

@@ -43,6 +43,8 @@ class Lines:
                     self.index.setdefault(table + tuple(key.split(".")), number)
 
     def find(self, table: tuple, key: str | None = None) -> int | None:
+        """The 1-based line of ``key`` in ``table`` (a path of table names and array indices), else of the
+        nearest enclosing table that has a line; None where nothing is found (a job given as a mapping)."""
         if key is not None:
             for probe in (table + (key,), table[:-1] + (key,) if table else (key,)):
                 if probe in self.index:
@@ -67,6 +69,8 @@ class Reader:
         self.used: set[str] = set()
 
     def error(self, key: str | None, message: str) -> JobError:
+        """A JobError on ``key`` of this table (or the table itself, key None) with its file and line; a
+        "missing" message names an unread key of the table that looks like a typo for ``key``."""
         if key is not None and message.startswith("missing") and key not in self.data:
             typo = close_match(key, [k for k in self.data if k not in self.used and isinstance(k, str)])
             if typo is not None:
@@ -75,9 +79,12 @@ class Reader:
         return self.ctx.error(self.table, key, message, where)
 
     def has(self, key: str) -> bool:
+        """Whether the table gives ``key``."""
         return key in self.data
 
     def raw(self, key: str, default: Any = None) -> Any:
+        """The value of ``key`` as TOML gave it, unchecked (``default`` where absent); the key counts as
+        read."""
         self.used.add(key)
         return self.data.get(key, default)
 
@@ -119,6 +126,8 @@ class Reader:
 
     def number(self, key: str, default: Any, *, integer: bool = False, minimum: float | None = None,
                maximum: float | None = None) -> Any:
+        """A plain number (no unit): ``default`` where the key is absent, else an int (``integer``) or a
+        float within ``minimum`` to ``maximum``; a boolean, a text or a non-finite number raises JobError."""
         self.used.add(key)
         if key not in self.data:
             return default
@@ -137,6 +146,8 @@ class Reader:
         return int(v) if integer else float(v)
 
     def choice(self, key: str, options: tuple[str, ...], default: Any) -> Any:
+        """One of ``options`` (a text), or ``default`` where the key is absent; anything else raises
+        JobError."""
         self.used.add(key)
         if key not in self.data:
             return default
@@ -146,6 +157,7 @@ class Reader:
         return v
 
     def text(self, key: str, default: Any = None, *, required: bool = False) -> Any:
+        """A non-empty text, or ``default`` where the key is absent (JobError if it is ``required``)."""
         self.used.add(key)
         if key not in self.data:
             if required:
@@ -157,6 +169,7 @@ class Reader:
         return v
 
     def boolean(self, key: str, default: bool) -> bool:
+        """true or false (``default`` where the key is absent); anything else raises JobError."""
         self.used.add(key)
         v = self.data.get(key, default)
         if not isinstance(v, bool):
@@ -164,6 +177,8 @@ class Reader:
         return v
 
     def path(self, key: str) -> Path:
+        """A required file path, taken relative to the job's folder unless absolute; control characters
+        in it raise JobError."""
         v = self.text(key, required=True)
         if re.search(r"[\x00-\x1f\x7f]", v):
             raise self.error(key, f"a file path cannot hold control characters (got {v!r})")
@@ -171,11 +186,15 @@ class Reader:
         return p if p.is_absolute() else (self.ctx.folder / p)
 
     def sub(self, key: str, label: str | None = None) -> Reader:
+        """A Reader of the sub-table ``key`` (an empty one where absent), labelled ``label`` or by its
+        path (``[driver.woofer.ts]``)."""
         self.used.add(key)
         table = self.table + (key,)
         return Reader(self.data.get(key, {}), table, label or f"[{'.'.join(map(str, table))}]", self.ctx)
 
     def done(self, allowed_extra: tuple[str, ...] = ()) -> None:
+        """Raise JobError on the first key the getters did not read (other than ``allowed_extra``), with a
+        close match among the table's known keys where there is one."""
         unknown = [k for k in self.data if k not in self.used and k not in allowed_extra]
         if unknown:
             key = unknown[0]
@@ -190,6 +209,8 @@ class Reader:
 
 @dataclass
 class Context:
+    """What the reading of one job document shares: its file (None for a mapping) and folder (for
+    relative data paths), the line finder, the file's stem, and the warnings gathered so far (one line each)."""
     path: Path | None
     folder: Path
     lines: Lines
@@ -197,11 +218,14 @@ class Context:
     warnings: list = field(default_factory=list)
 
     def warn(self, table: tuple, key: str | None, message: str) -> None:
+        """Add a one-line warning on ``key`` of ``table``, prefixed with the file and line where known."""
         line = self.lines.find(table, key)
         where = f"{self.path}:{line}: " if self.path and line else (f"{self.path}: " if self.path else "")
         self.warnings.append(where + message)
 
     def error(self, table: tuple, key: str | None, message: str, where: str | None = None) -> JobError:
+        """A JobError on ``key`` of ``table`` with the file and line; ``where`` is the key shown (a table
+        or part label)."""
         return JobError(message, path=self.path, line=self.lines.find(table, key), key=where)
 
 
@@ -220,6 +244,7 @@ def table_kind(table: tuple) -> str:
 
 
 def kind_of(v: Any) -> str:
+    """What a TOML value is, for a message: "a table", "a list", "a text", "a boolean", "a number"."""
     return {dict: "a table", list: "a list", str: "a text", bool: "a boolean",
             int: "a number", float: "a number"}.get(type(v), type(v).__name__)
 
@@ -231,21 +256,26 @@ def short(v: Any) -> str:
 
 
 def unit_text(unit: str) -> str:
+    """What a value of ``unit`` is, for a message: "a value in Ω" (its symbol), or "a number" without a
+    unit."""
     from xo_fit.units import UNIT_SYMBOL
     return f"a value in {UNIT_SYMBOL.get(unit, unit)}" if unit else "a number"
 
 
 def close_match(key: str, known: list[str]) -> str | None:
+    """The entry of ``known`` closest to ``key`` (a likely typo), or None where none is close."""
     import difflib
     m = difflib.get_close_matches(key, known, n=1, cutoff=0.6)
     return m[0] if m else None
 
 
 def phase_choice(r: Reader, key: str) -> str:
+    """A driver's phase key (``"measured"`` or ``"minimum"``; default the driver table's)."""
     return r.choice(key, ("measured", "minimum"), DEFAULTS["driver"][key])
 
 
 def volts(r: Reader, key: str, default: float) -> float:
+    """A voltage in V under ``key`` (``default`` where absent), within the drive levels a job may give (``VOLTS``)."""
     v = r.value(key, "V", default)
     if not VOLTS[0] <= v <= VOLTS[1]:
         raise r.error(key, f"{v:g} V is outside {VOLTS[0]:g} to {VOLTS[1]:g} V")
@@ -253,10 +283,13 @@ def volts(r: Reader, key: str, default: float) -> float:
 
 
 def missing(r: Reader, key: str):
+    """Raise JobError: ``key`` is missing and a number was expected."""
     raise r.error(key, "missing; expected a number")
 
 
 def looks_numeric(text: str) -> bool:
+    """Whether ``text`` reads as a value in ohm (engineering notation such as ``"0.35"`` or
+    ``"350m"``)."""
     try:
         parse_value(text, "ohm")
         return True
@@ -265,6 +298,7 @@ def looks_numeric(text: str) -> bool:
 
 
 def is_length(text: str) -> bool:
+    """Whether ``text`` is a length written with its metre unit (``"1.2mm"``), not ohm."""
     try:
         parse_value(text, "m")
     except UnitsError:

@@ -44,6 +44,7 @@ class Sweep:
 
     @property
     def swept(self) -> bool:
+        """Whether the file has a [sweep] (at least one axis)."""
         return bool(self.axes)
 
     def __len__(self) -> int:
@@ -154,6 +155,9 @@ def variant_label(value: Any) -> str:
 
 
 def assign_path(data: dict, path: str, value: Any, ctx: Context, key: str) -> None:
+    """Set the dotted ``path`` in document ``data`` to ``value`` for a variant, making the tables on the
+    way; ``part.NAME.key`` addresses the ``[[part]]`` named NAME. A path that names no part or runs into a value
+    raises JobError on the [sweep] entry ``key``."""
     segs = path.split(".")
     node: Any = data
     for i, seg in enumerate(segs[:-1]):

@@ -23,6 +23,7 @@ from xo_fit.job.baffle import read_radius
 from xo_fit.job.placement import ABOUTS, read_about, read_position
 
 def read_stress(r: Reader) -> StressSpec:
+    """``[stress]``: the drive power in W and the rated impedance in ohm, both or neither."""
     d = DEFAULTS["stress"]
     power = r.value("power", "W", d["power"], limits=POWER_W)
     rated = r.value("rated_impedance", "ohm", d["rated_impedance"], limits=OHMS)
@@ -34,6 +35,8 @@ def read_stress(r: Reader) -> StressSpec:
 
 
 def read_grid(r: Reader) -> Grid:
+    """``[grid]``: f_min and f_max in Hz and the number of points (given, or from ``per_octave``), each
+    within its limits."""
     d = DEFAULTS["grid"]
     f_min = r.value("f_min", "Hz", d["f_min"])
     f_max = r.value("f_max", "Hz", d["f_max"])
@@ -264,6 +267,8 @@ def read_angles(r: Reader, measured: bool) -> AngleSpec:
 
 
 def read_target(r: Reader, driver_names: set[str]) -> TargetSpec:
+    """``[target]``: the band in Hz, the level (dB SPL or ``"auto"``), the curve, the reference, and
+    each ``[target.way.NAME]`` of a defined driver."""
     d = DEFAULTS["target"]
     band = None
     if r.has("band"):
@@ -300,6 +305,8 @@ def read_target(r: Reader, driver_names: set[str]) -> TargetSpec:
 
 
 def read_way(name: str, r: Reader) -> WayTarget:
+    """``[target.way.NAME]``: the way's type, alignment and order, its crossover frequencies in Hz (fc,
+    or fc_low and fc_high for a bandpass) and its polarity."""
     d = DEFAULTS["way"]
     wtype = r.choice("type", ("lowpass", "highpass", "bandpass", "fullrange"), None)
     if wtype is None:
@@ -325,6 +332,8 @@ def read_way(name: str, r: Reader) -> WayTarget:
 
 
 def read_cost(r: Reader) -> CostSpec:
+    """``[cost]``: the weights of the cost terms (dimensionless, 0 up to the largest weight allowed) and
+    the impedance floor in ohm."""
     d = DEFAULTS["cost"]
     spec = CostSpec(
         way=r.number("way", d["way"], minimum=0.0, maximum=MAX_WEIGHT),
@@ -365,6 +374,7 @@ def optimizer_problem(name: str) -> str | None:
 
 
 def optimizer_of(r: Reader) -> str:
+    """``[search] optimizer``, checked (:func:`optimizer_problem`); a bad name raises JobError."""
     name = r.text("optimizer", DEFAULTS["search"]["optimizer"])
     problem = optimizer_problem(name)
     if problem:
@@ -373,6 +383,8 @@ def optimizer_of(r: Reader) -> str:
 
 
 def read_search(r: Reader) -> SearchSpec:
+    """``[search]``: optimizer, budget (cost evaluations), seed, time limit in s, polish, and
+    ``[search.robust] samples``."""
     d = DEFAULTS["search"]
     robust = 0
     if r.has("robust"):
@@ -392,6 +404,8 @@ def read_search(r: Reader) -> SearchSpec:
 
 
 def read_snap(r: Reader) -> SnapSpec:
+    """``[snap]``: the series of each kind (one name for all, or a table by kind), the inventory's path,
+    ``combine`` (1 or 2) and ``top_up`` (a series name)."""
     d = DEFAULTS["snap"]
     series = dict(d["series"])
     if r.has("series"):
@@ -429,6 +443,8 @@ def read_snap(r: Reader) -> SnapSpec:
 
 
 def read_spread(r: Reader) -> SpreadSpec:
+    """``[spread]``: the Monte Carlo's samples, seed, distribution, quasi-random draws (qmc), the yield's
+    limits in dB (band_db, rms_limit_db) and the default tolerance of each kind (a fraction below 1)."""
     d = DEFAULTS["spread"]
     tol = dict(d["tolerance"])
     if r.has("tolerance"):

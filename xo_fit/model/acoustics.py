@@ -23,10 +23,25 @@ from xo_fit.model.preference import Preference, PreferencePlan, evaluate
 
 def driver_factors(response: np.ndarray, reference_voltage: np.ndarray, offset: np.ndarray,
                    frequencies: np.ndarray, speed_of_sound: float) -> np.ndarray:
-    """Per-volt complex pressure of each driver including its offset delay, Pa/V, shape (D, F).
+    """Per-volt complex pressure of each driver, its offset delay included.
 
-    response: complex Pa at the reference voltage, (D, F); reference_voltage: V, (D,);
-    offset: m, (D,); frequencies: Hz, (F,).
+    Parameters
+    ----------
+    response : ndarray
+        Each driver's response, complex, in Pa at its reference voltage, shape (D, F).
+    reference_voltage : ndarray
+        The voltage each response was measured at, in V, shape (D,).
+    offset : ndarray
+        Each acoustic centre's distance behind the reference plane, in m, shape (D,).
+    frequencies : ndarray
+        The grid, in Hz, shape (F,).
+    speed_of_sound : float
+        The speed of sound, in m/s.
+
+    Returns
+    -------
+    ndarray
+        Complex pressure per volt at the terminals, in Pa/V, shape (D, F).
     """
     w = 2 * np.pi * np.asarray(frequencies)
     delay = np.exp(-1j * w[None, :] * np.asarray(offset)[:, None] / speed_of_sound)
@@ -34,17 +49,52 @@ def driver_factors(response: np.ndarray, reference_voltage: np.ndarray, offset: 
 
 
 def pressures(voltages: np.ndarray, factors: np.ndarray) -> np.ndarray:
-    """Each driver's pressure in Pa, (B, D, F), from terminal voltages (B, D, F) and factors (D, F)."""
+    """Each driver's pressure from its terminal voltage.
+
+    Parameters
+    ----------
+    voltages : ndarray
+        Driver terminal voltages, complex, in V, shape (B, D, F).
+    factors : ndarray
+        Per-volt pressures (:func:`driver_factors`), complex, in Pa/V, shape (D, F).
+
+    Returns
+    -------
+    ndarray
+        Each driver's pressure, complex, in Pa, shape (B, D, F).
+    """
     return voltages * factors
 
 
 def total(pressure: np.ndarray) -> np.ndarray:
-    """Complex sum over the driver axis: (..., D, F) -> (..., F), Pa."""
+    """The complex sum over the driver axis.
+
+    Parameters
+    ----------
+    pressure : ndarray
+        Per-driver pressures, complex, in Pa, shape (..., D, F).
+
+    Returns
+    -------
+    ndarray
+        The summed pressure, complex, in Pa, shape (..., F).
+    """
     return pressure.sum(axis=-2)
 
 
 def spl_db(pressure: np.ndarray) -> np.ndarray:
-    """Sound pressure level in dB SPL re 20 uPa; levels below SPL_FLOOR_DB are clipped to it."""
+    """Sound pressure level re 20 uPa, clipped below at ``SPL_FLOOR_DB``.
+
+    Parameters
+    ----------
+    pressure : ndarray
+        Pressures (complex or real), in Pa, any shape (..., F).
+
+    Returns
+    -------
+    ndarray
+        Levels in dB SPL, the same shape (..., F).
+    """
     mag = np.abs(pressure)
     with np.errstate(divide="ignore"):
         db = 20.0 * np.log10(mag / P_REF)
@@ -52,7 +102,18 @@ def spl_db(pressure: np.ndarray) -> np.ndarray:
 
 
 def phase_deg(x: np.ndarray) -> np.ndarray:
-    """Phase in degrees, wrapped to (-180, 180]."""
+    """Phase of complex values in degrees, wrapped to (-180, 180].
+
+    Parameters
+    ----------
+    x : ndarray
+        Complex values (a pressure, an impedance, a ratio), any shape (..., F).
+
+    Returns
+    -------
+    ndarray
+        Phases in degrees, the same shape (..., F).
+    """
     return np.rad2deg(np.angle(x))
 
 
@@ -80,9 +141,20 @@ CURVES = ("on_axis", "listening_window", "early_reflections", "sound_power", "es
 
 
 def curve_weights(positions: tuple[Position, ...]) -> dict[str, np.ndarray | None]:
-    """For positions (A,) in the order of the data: the weight of each in the listening window, the early
-    reflections and the sound power, (A,) each summing to 1; None for a curve whose positions are not all
-    there. ``positions[0]`` must be the axis."""
+    """The weight of each position in the listening window, the early reflections and the sound power.
+
+    Parameters
+    ----------
+    positions : tuple
+        The positions of the data, ``("h" | "v", degrees)`` each, in the data's order (A positions);
+        ``positions[0]`` must be the axis.
+
+    Returns
+    -------
+    dict
+        ``"listening_window"``, ``"early_reflections"``, ``"sound_power"`` -> weights (dimensionless), shape (A,),
+        each summing to 1; None for a curve whose positions are not all there.
+    """
     index = {p: i for i, p in enumerate(positions)}
     n = len(positions)
 
@@ -114,21 +186,60 @@ def missing_positions(positions: tuple[Position, ...], curve: str) -> list[Posit
 
 
 def angle_pressures(voltages: np.ndarray, factors: np.ndarray) -> np.ndarray:
-    """The summed pressure at every position, Pa (B, A, F), from terminal voltages (B, D, F) and the
-    per-volt factors of each driver at each position (A, D, F)."""
+    """The summed pressure at every position.
+
+    Parameters
+    ----------
+    voltages : ndarray
+        Driver terminal voltages, complex, in V, shape (B, D, F).
+    factors : ndarray
+        Per-volt pressure of each driver at each position, complex, in Pa/V, shape (A, D, F).
+
+    Returns
+    -------
+    ndarray
+        The summed pressure at each position, complex, in Pa, shape (B, A, F).
+    """
     return np.einsum("bdf,adf->baf", voltages, factors)
 
 
 def used_positions(weights: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
-    """The positions some of ``weights`` (each (A,)) count, and their weights: indices (A',), weights (A', K)."""
+    """The positions some of ``weights`` count, and their weights.
+
+    Parameters
+    ----------
+    weights : list of ndarray
+        K weight vectors (dimensionless), each of shape (A,).
+
+    Returns
+    -------
+    index : ndarray
+        The indices of the positions with a weight above 0 in any vector, shape (A',).
+    w : ndarray
+        Their weights (dimensionless), shape (A', K).
+    """
     w = np.stack(weights, axis=1)
     index = np.nonzero(np.any(w > 0, axis=1))[0]
     return index, w[index]
 
 
 def curve_sums(voltages: np.ndarray, factors: np.ndarray, weights: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-    """Mean squared pressure (Pa^2, (B, F)) of each curve in ``weights`` (name -> (A,) weights, e.g. from
-    :func:`curve_weights`), summing only the positions they count: voltages (B, D, F), factors (A, D, F)."""
+    """Mean squared pressure of each weighted curve, summing only the positions the weights count.
+
+    Parameters
+    ----------
+    voltages : ndarray
+        Driver terminal voltages, complex, in V, shape (B, D, F).
+    factors : ndarray
+        Per-volt pressure of each driver at each position, complex, in Pa/V, shape (A, D, F).
+    weights : dict
+        Curve name -> position weights (dimensionless), shape (A,) each (e.g. from :func:`curve_weights`).
+
+    Returns
+    -------
+    dict
+        Curve name -> mean squared pressure, in Pa^2, shape (B, F).
+    """
     names = list(weights)
     index, w = used_positions([weights[n] for n in names])
     p2 = np.abs(angle_pressures(voltages, factors[index])) ** 2  # (B, A', F)
@@ -136,9 +247,21 @@ def curve_sums(voltages: np.ndarray, factors: np.ndarray, weights: dict[str, np.
 
 
 def directivity(p2: np.ndarray, weights: dict[str, np.ndarray | None]) -> dict[str, np.ndarray]:
-    """The ANSI/CTA-2034-A curves as mean squared pressure, Pa^2 (B, F) each, from |p|^2 at every position
-    (B, A, F; position 0 the axis) and :func:`curve_weights`: on_axis, and those of listening_window,
-    early_reflections, sound_power, estimated_in_room whose positions are all there."""
+    """The ANSI/CTA-2034-A curves as mean squared pressure.
+
+    Parameters
+    ----------
+    p2 : ndarray
+        |p|^2 at every position, in Pa^2, shape (B, A, F); position 0 the axis.
+    weights : dict
+        The weights of :func:`curve_weights` (dimensionless), shape (A,) each, or None.
+
+    Returns
+    -------
+    dict
+        ``on_axis`` and those of ``listening_window``, ``early_reflections``, ``sound_power`` and
+        ``estimated_in_room`` whose positions are all there -> mean squared pressure, in Pa^2, shape (B, F).
+    """
     out = {"on_axis": p2[:, 0]}
     for name in ("listening_window", "early_reflections", "sound_power"):
         w = weights.get(name)
@@ -151,7 +274,18 @@ def directivity(p2: np.ndarray, weights: dict[str, np.ndarray | None]) -> dict[s
 
 
 def power_db(p2: np.ndarray) -> np.ndarray:
-    """Level in dB SPL of a mean squared pressure (Pa^2), floored at SPL_FLOOR_DB."""
+    """Level of a mean squared pressure, floored at ``SPL_FLOOR_DB``.
+
+    Parameters
+    ----------
+    p2 : ndarray
+        Mean squared pressure, in Pa^2, any shape (..., F).
+
+    Returns
+    -------
+    ndarray
+        Levels in dB SPL re 20 uPa, the same shape (..., F).
+    """
     with np.errstate(divide="ignore"):
         return np.maximum(10.0 * np.log10(np.asarray(p2) / P_REF**2), SPL_FLOOR_DB)
 
@@ -161,13 +295,13 @@ def preference_of(plan: PreferencePlan, curves: dict[str, np.ndarray], *, bound_
 
     Parameters
     ----------
-    plan:
+    plan : PreferencePlan
         :func:`xo_fit.model.preference.make_plan` of the curves' grid.
-    curves:
-        Mean squared pressure, Pa^2 (..., F) each, by name: ``on_axis`` and those of ``listening_window``,
+    curves : dict
+        Mean squared pressure, in Pa^2, shape (..., F) each, by name: ``on_axis`` and those of ``listening_window``,
         ``early_reflections``, ``sound_power`` whose positions are measured (a curve not given makes the figures
         that need it null, with the reason). Levels are taken with :func:`power_db` (floored).
-    bound_lfx:
+    bound_lfx : bool
         As :func:`xo_fit.model.preference.evaluate`: a bound instead of NaN where the sound power never falls
         6 dB (for a cost).
 

@@ -120,8 +120,21 @@ def phase_error_deg(ratio: np.ndarray, target_diff_deg: np.ndarray) -> np.ndarra
 
 @dataclass(frozen=True, eq=False)
 class Evaluation:
-    """Cost of a batch of designs: total (B,), each term (B,), the level used (B,, dB SPL); with [limits], each
-    limit's violation (B,) and their ``total`` (:mod:`xo_fit.model.limits`; inf for a singular design)."""
+    """The cost of a batch of B designs.
+
+    Attributes
+    ----------
+    cost : ndarray
+        The total cost (dimensionless), shape (B,); inf for a singular design (a short).
+    terms : dict
+        Term name -> the term's value before its weight (dimensionless), shape (B,) each; the cost is the
+        weighted sum.
+    level_db : ndarray
+        The level the targets were placed at, in dB SPL, shape (B,).
+    violations : dict or None
+        With [limits]: each limit's violation (a relative excess, dimensionless, 0 when met), shape (B,) each,
+        and their ``total`` (:mod:`xo_fit.model.limits`; inf for a singular design); None without.
+    """
 
     cost: np.ndarray
     terms: dict
@@ -404,12 +417,29 @@ def rated_parts(system) -> list[tuple[int, int, str, float]]:
 
 
 def stress_excess_db(kind: str, i2: np.ndarray, x: np.ndarray, w: np.ndarray, rating: float) -> np.ndarray:
-    """How far a part's stress exceeds what its rating allows, dB, 0 within it; (B,).
+    """How far a part's stress exceeds what its rating allows, 0 within it.
 
-    i2: |I|^2 of the part's RMS current over the band, A^2 (B, Fb), at the stress drive; x: its value (B,);
-    w: rad/s (Fb,). A resistor's programme power (the band's mean: equal power per log-spaced point, pink)
-    against half its rating (the 2x margin of common practice), 10 log10; a capacitor's peak voltage and a
-    coil's peak current against their ratings, 20 log10.
+    A resistor's programme power (the band's mean: equal power per log-spaced point, pink) is judged against
+    half its rating (the 2x margin of common practice), as 10 log10; a capacitor's peak voltage and a coil's
+    peak current against their ratings, as 20 log10.
+
+    Parameters
+    ----------
+    kind : str
+        ``"R"``, ``"C"`` or ``"L"``.
+    i2 : ndarray
+        |I|^2 of the part's RMS current over the band at the stress drive, in A^2, shape (B, Fb).
+    x : ndarray
+        The part's value in ohm, F or H (by kind), shape (B,).
+    w : ndarray
+        Angular frequencies of the band, in rad/s, shape (Fb,).
+    rating : float
+        The part's rating: in W (R), V (C) or A (L).
+
+    Returns
+    -------
+    ndarray
+        The excess in dB (0 within the rating), shape (B,).
     """
     if kind == "R":
         ratio = np.mean(i2, axis=-1) * x / (rating / 2)

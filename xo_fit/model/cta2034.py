@@ -41,7 +41,7 @@ def polar_angle(position: Position) -> int:
 
     Parameters
     ----------
-    position:
+    position : tuple
         ``(orbit, angle)`` with orbit "h" or "v" and angle in degrees, (-180, 180].
 
     Returns
@@ -60,8 +60,8 @@ def table_weight(theta_deg: int) -> float:
 
     Parameters
     ----------
-    theta_deg:
-        Polar angle from the axis, degrees, a multiple of 10 in 0..180.
+    theta_deg : int
+        Polar angle from the axis, in degrees, a multiple of 10 in 0..180.
 
     Returns
     -------

@@ -65,21 +65,21 @@ def driver_diffraction(job: Job, spec: DriverSpec, frequencies: np.ndarray, posi
 
     Parameters
     ----------
-    job:
+    job : Job
         The job; its ``[baffle]`` must be given.
-    spec:
+    spec : DriverSpec
         The driver: its ``position`` ((0, 0) when not given) and ``radius`` (a point source when not given, or
         when :func:`uses_point_source`).
-    frequencies:
-        (F,) Hz.
-    positions:
+    frequencies : ndarray
+        Frequencies, in Hz, shape (F,).
+    positions : tuple
         (A,) ("h"|"v", degrees) pairs, the axis as ("h", 0).
 
     Returns
     -------
-    numpy.ndarray
-        (A, F) complex ``p_with_edges / p_halfspace`` (1/2 far below the baffle step, about 1 far above it in
-        front).
+    ndarray
+        Complex (dimensionless), shape (A, F): ``p_with_edges / p_halfspace`` (1/2 far below the baffle
+        step, about 1 far above it in front).
     """
     assert job.baffle is not None
     x, y = spec.position if spec.position is not None else (0.0, 0.0)

@@ -11,13 +11,43 @@ import numpy as np
 
 
 def part_tolerances(job) -> np.ndarray:
-    """Tolerance of every valued part as a fraction, (P,): its own, else the [spread] default for its kind."""
+    """Tolerance of every valued part: its own, else the [spread] default for its kind.
+
+    Parameters
+    ----------
+    job : Job
+        The job.
+
+    Returns
+    -------
+    ndarray
+        Tolerances as fractions (dimensionless), shape (P,).
+    """
     defaults = dict(job.spread.tolerance)
     return np.array([p.tolerance if p.tolerance is not None else defaults.get(p.type, 0.0) for p in job.valued_parts])
 
 
 def draw_factors(n: int, tol: np.ndarray, distribution: str, rng: np.random.Generator, qmc: bool = False) -> np.ndarray:
-    """Relative factors (n, P) = 1 + deviation; uniform within +-tol, or normal with sigma = tol / 2."""
+    """Relative factors 1 + deviation by which built parts differ from their nominal values.
+
+    Parameters
+    ----------
+    n : int
+        The number of draws (dimensionless).
+    tol : ndarray
+        Each part's tolerance as a fraction (dimensionless), shape (P,).
+    distribution : str
+        ``"uniform"`` (within +-tol) or ``"normal"`` (sigma = tol / 2).
+    rng : numpy.random.Generator
+        The random source (it also seeds the scrambled Sobol sequence).
+    qmc : bool
+        Draw from a scrambled Sobol sequence (quasi-random) instead of pseudo-random numbers.
+
+    Returns
+    -------
+    ndarray
+        The factors (dimensionless), shape (n, P), at least 1e-3.
+    """
     p = tol.size
     if qmc:
         from scipy.stats import norm, qmc as q

@@ -90,19 +90,23 @@ class PreferencePlan:
 
     Attributes
     ----------
-    frequencies, log_f:
-        The grid, Hz, and its log10, (F,).
-    band_edges_hz:
-        NBD's band edges, Hz, (B + 1,), B = 14.
-    band_start, band_stop:
-        Each band's index range, int (B,).
-    sm_start, sm_stop, sm_xc, sm_sxx:
-        SM's index range; log10 f minus its mean over that range, (sm_stop - sm_start,); sum of sm_xc**2.
-    ref_start, ref_stop:
+    frequencies, log_f : ndarray
+        The grid in Hz, and its log10, shape (F,).
+    band_edges_hz : ndarray
+        NBD's band edges in Hz, shape (B + 1,), B = 14.
+    band_start, band_stop : ndarray
+        Each band's index range, int, shape (B,).
+    sm_start, sm_stop : int
+        SM's index range.
+    sm_xc : ndarray
+        log10 f minus its mean over that range, shape (sm_stop - sm_start,).
+    sm_sxx : float
+        The sum of sm_xc**2.
+    ref_start, ref_stop : int
         The index range of the listening window's LFX reference, 300 Hz..10 kHz.
-    lfx_top:
+    lfx_top : int
         Index of the highest grid point at or under 300 Hz, where LFX's search starts (-1: none).
-    reasons:
+    reasons : dict
         Figure -> one-line reason, for the figures the grid cannot give.
     """
 
@@ -202,8 +206,8 @@ def make_plan(frequencies: np.ndarray) -> PreferencePlan:
 
     Parameters
     ----------
-    frequencies:
-        The grid, Hz, shape (F,), positive and strictly rising.
+    frequencies : ndarray
+        The grid, in Hz, shape (F,), positive and strictly rising.
 
     Returns
     -------
@@ -241,8 +245,13 @@ def in_room_db(lw_db: np.ndarray, er_db: np.ndarray, sp_db: np.ndarray) -> np.nd
 
     Parameters
     ----------
-    lw_db, er_db, sp_db:
-        Listening window, early reflections and sound power, dB, broadcastable shapes (..., F).
+    lw_db, er_db, sp_db : ndarray
+        Listening window, early reflections and sound power, in dB, broadcastable shapes (..., F).
+
+    Returns
+    -------
+    ndarray
+        The estimated in-room response, in dB, shape (..., F).
     """
     a, b, c = IN_ROOM_WEIGHTS
     p2 = (a * 10.0 ** (np.asarray(lw_db) / 10) + b * 10.0 ** (np.asarray(er_db) / 10)
@@ -281,8 +290,17 @@ def low_frequency_extension(plan: PreferencePlan, lw_db: np.ndarray, sp_db: np.n
 
     Parameters
     ----------
-    lw_db, sp_db:
-        Listening window and sound power, dB, broadcastable shapes (..., F).
+    plan : PreferencePlan
+        From :func:`make_plan` on the curves' grid.
+    lw_db, sp_db : ndarray
+        Listening window and sound power, in dB, broadcastable shapes (..., F).
+    bound : bool
+        Take log10 of the grid's lowest frequency instead of NaN where the sound power never falls 6 dB.
+
+    Returns
+    -------
+    ndarray
+        LFX, in log10 Hz, shape (...).
     """
     lw_db, sp_db = np.broadcast_arrays(lw_db, sp_db)
     top = plan.lfx_top
@@ -304,9 +322,17 @@ def score_from(nbd_on: np.ndarray, nbd_pir: np.ndarray, lfx: np.ndarray | float,
 
     Parameters
     ----------
-    nbd_on, nbd_pir:
-        Narrow-band deviations, dB. lfx: log10 of the -6 dB frequency in Hz. sm_pir: r^2, 0..1.
-        Broadcastable arrays (...).
+    nbd_on, nbd_pir : ndarray
+        Narrow-band deviations on axis and of the in-room response, in dB, broadcastable shapes (...,).
+    lfx : ndarray or float
+        log10 of the -6 dB frequency in Hz, shape (...,) or a number.
+    sm_pir : ndarray
+        The in-room response's smoothness r^2, 0..1 (dimensionless), shape (...,).
+
+    Returns
+    -------
+    ndarray
+        The predicted preference (dimensionless), shape (...,).
     """
     return INTERCEPT - COEF_NBD_ON * nbd_on - COEF_NBD_PIR * nbd_pir - COEF_LFX * lfx + COEF_SM_PIR * sm_pir
 
@@ -325,12 +351,12 @@ def evaluate(plan: PreferencePlan, on_db: np.ndarray, lw_db: np.ndarray | None =
 
     Parameters
     ----------
-    plan:
+    plan : PreferencePlan
         From :func:`make_plan` on the curves' grid.
-    on_db, lw_db, er_db, sp_db:
+    on_db, lw_db, er_db, sp_db : ndarray or None
         On axis, listening window, early reflections and sound power, dB SPL, broadcastable shapes
         (..., F); None for a curve whose positions are not all measured (the figures needing it are NaN).
-    bound_lfx:
+    bound_lfx : bool
         Where the sound power stays within 6 dB down to the grid's lowest point, take LFX as log10 of that
         frequency (a bound, keeping a cost finite) instead of NaN.
 
@@ -385,10 +411,16 @@ def cost_term(score: np.ndarray, weight: float) -> np.ndarray:
 
     Parameters
     ----------
-    score:
-        Predicted preference, array (...); use ``evaluate(..., bound_lfx=True)`` so it stays finite.
-    weight:
-        W, the job's ``[cost] preference``.
+    score : ndarray
+        Predicted preference (dimensionless), shape (...,); use ``evaluate(..., bound_lfx=True)`` so it stays
+        finite.
+    weight : float
+        W, the job's ``[cost] preference`` (dimensionless).
+
+    Returns
+    -------
+    ndarray
+        The term (dimensionless), shape (...,).
     """
     short = np.maximum(0.0, 10.0 - np.asarray(score, dtype=float))
     return weight * short * short / 100.0

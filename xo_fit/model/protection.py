@@ -137,7 +137,20 @@ def protection_model(system) -> Protection | None:
 
 
 def protection(system, voltages: np.ndarray) -> dict[str, dict] | None:
-    """result.json's ``protection`` of one design from its driver voltages (D, F) or (1, D, F) at the job's
-    source voltage (see :meth:`Protection.figures`); None where nothing is judged."""
+    """result.json's ``protection`` of one design at the job's ``[stress]`` drive (:meth:`Protection.figures`).
+
+    Parameters
+    ----------
+    system : System
+        The loaded system.
+    voltages : ndarray
+        The design's driver voltages at the network's source voltage, complex, in V, shape (D, F) or (1, D, F).
+
+    Returns
+    -------
+    dict or None
+        Driver name -> its figures (excursion in mm and where, xmax in mm, programme power and rating in W,
+        within); None where nothing is judged (no drive, or no driver with xmax or power).
+    """
     model = protection_model(system)
     return None if model is None else model.figures(voltages)

@@ -30,7 +30,18 @@ from xo_fit.solver.dense import branch_states
 
 
 def epdr(z: np.ndarray) -> np.ndarray:
-    """Equivalent peak dissipation resistance (ohm) of impedances z (complex ohm), same shape."""
+    """Equivalent peak dissipation resistance of impedances (K. Howard, 2006; see the module).
+
+    Parameters
+    ----------
+    z : ndarray
+        Impedances, complex, in ohm, any shape (..., F).
+
+    Returns
+    -------
+    ndarray
+        EPDR in ohm, the same shape (..., F).
+    """
     phi = np.minimum(np.abs(np.angle(z)), np.pi / 2)
     den = (1 - np.sin(np.pi / 6 - 2 * phi / 3)) * np.sin(np.pi / 6 + phi / 3)
     return np.abs(z) * 0.25 / den
@@ -38,6 +49,28 @@ def epdr(z: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class PartStress:
+    """One part's stress at the drive level, over the target band.
+
+    Attributes
+    ----------
+    name : str
+        The part's name.
+    kind : str
+        ``"R"``, ``"C"`` or ``"L"``.
+    figure : str
+        What is judged: ``"power"`` (a resistor), ``"peak voltage"`` (a capacitor, on the capacitor itself, ESR
+        excluded) or ``"peak current"`` (a coil).
+    unit : str
+        The figure's unit: ``"W"``, ``"V"`` or ``"A"``.
+    sine_worst : float
+        The figure for a sine at the drive voltage at the worst frequency in the band, in ``unit`` (W, V or A).
+    at_hz : float
+        That worst frequency, in Hz.
+    programme : float or None
+        Resistors only: the power in W when the same RMS voltage is spread as pink noise over the band.
+    rating : float or None
+        The part's own rating from the job, in ``unit`` (W, V or A), if it gives one.
+    """
     name: str
     kind: str
     figure: str  # "power", "peak voltage", "peak current"
@@ -50,6 +83,27 @@ class PartStress:
 
 @dataclass(frozen=True)
 class StressReport:
+    """The stresses of one design at ``[stress] power`` into ``rated_impedance``.
+
+    Attributes
+    ----------
+    drive_w : float
+        The drive power, in W.
+    rated_ohm : float
+        The rated impedance the power is quoted into, in ohm.
+    source_v_rms : float
+        The source voltage sqrt(P R), in V RMS.
+    parts : tuple of PartStress
+        Each valued part's stress, in network order.
+    epdr_min_ohm : float
+        The lowest equivalent peak dissipation resistance over the band, in ohm.
+    epdr_min_hz : float
+        Where it lies, in Hz.
+    impedance_min_ohm : float
+        The lowest |Z| of the input impedance over the band, in ohm.
+    impedance_min_hz : float
+        Where it lies, in Hz.
+    """
     drive_w: float
     rated_ohm: float
     source_v_rms: float
@@ -61,7 +115,24 @@ class StressReport:
 
 
 def stresses(system, values: np.ndarray, power_w: float, rated_ohm: float) -> StressReport:
-    """Stresses of design ``values`` (P,) at ``power_w`` W into ``rated_ohm`` ohm."""
+    """The stresses of one design at a drive of ``power_w`` W into ``rated_ohm`` ohm, over the target band.
+
+    Parameters
+    ----------
+    system : System
+        The loaded system.
+    values : ndarray
+        The design's part values in SI units (ohm, H, F), shape (P,).
+    power_w : float
+        The drive power, in W.
+    rated_ohm : float
+        The rated impedance the power is quoted into, in ohm.
+
+    Returns
+    -------
+    StressReport
+        Each part's stress, the source voltage, and the lowest EPDR and |Z| over the band.
+    """
     net = system.network
     f = system.frequencies
     band = band_mask(f, system.job.target.band)

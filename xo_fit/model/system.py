@@ -71,6 +71,30 @@ class Simulation:
 
 @dataclass(frozen=True, eq=False)
 class System:
+    """A job with its data loaded: the grid, every driver on it and the compiled network (see the module).
+
+    Attributes
+    ----------
+    job : Job
+        The validated job.
+    frequencies : ndarray
+        The grid, in Hz, shape (F,).
+    drivers : tuple of DriverData
+        Each driver on the grid, in job order (D drivers).
+    network : Network
+        The compiled crossover network.
+    factors : ndarray
+        Pa per V at each driver's terminals on the axis, placement included, complex, shape (D, F).
+    warnings : tuple of str
+        One-line warnings from loading the data (doubtful but legal values).
+    positions : tuple
+        An off-axis job's measuring positions, ``("h" | "v", degrees)`` each, the axis first (A positions);
+        empty otherwise.
+    angle_factors : ndarray or None
+        Pa per V of each driver at each position, complex, shape (A, D, F); None for an on-axis job.
+    placements : tuple
+        Each driver's :class:`~xo_fit.physics.geometry.Placement` (position, phase, about).
+    """
     job: Job
     frequencies: np.ndarray
     drivers: tuple[DriverData, ...]
@@ -105,6 +129,8 @@ class System:
         return np.array(out, dtype=float)
 
     def solve(self, values: np.ndarray) -> Solution:
+        """The network solved for part values (B, P) or (P,) in SI units with the compiled kernel: driver
+        voltages (B, D, F) in V and input impedance (B, F) in ohm, complex."""
         return self.network.solve(values)
 
     def simulate(self, values: np.ndarray, *, dense: bool = False, angles: bool = False) -> Simulation:

@@ -84,13 +84,37 @@ def _bessel_lowpass(order: int, x: np.ndarray) -> np.ndarray:
 
 
 def slope(alignment: str, order: int, btype: str, fc: float, f: np.ndarray) -> np.ndarray:
-    """Complex response of one slope, "low" or "high" at fc (Hz), on frequencies f (Hz).
+    """Complex response of one filter slope on a frequency grid.
 
     The analog prototypes are evaluated in closed form (Butterworth poles, the
     Bessel polynomial); tests/test_targets.py holds them to
     ``scipy.signal.butter`` / ``bessel(norm="phase")`` (importing scipy.signal
     would cost 0.6 s of every command's start-up). A high-pass is the low-pass
     at wc / s.
+
+    Parameters
+    ----------
+    alignment : str
+        ``"BW"`` (Butterworth), ``"LR"`` (Linkwitz-Riley: a Butterworth of half the order, squared) or
+        ``"Bessel"`` (phase-normalised).
+    order : int
+        The filter order (dimensionless); even for ``"LR"``.
+    btype : str
+        ``"low"`` or ``"high"``.
+    fc : float
+        The corner frequency, in Hz.
+    f : ndarray
+        Frequencies, in Hz, shape (F,).
+
+    Returns
+    -------
+    ndarray
+        The complex response (dimensionless, unit passband), shape (F,).
+
+    Raises
+    ------
+    ValueError
+        For an odd Linkwitz-Riley order or an unknown alignment (the job reader refuses both first).
     """
     s = 1j * np.asarray(f, dtype=float) / fc
     x = s if btype == "low" else 1.0 / s
@@ -106,7 +130,21 @@ def slope(alignment: str, order: int, btype: str, fc: float, f: np.ndarray) -> n
 
 
 def way_shape(way: WayTarget, f: np.ndarray) -> np.ndarray:
-    """The way's complex target (unit passband, no polarity) on frequencies f (Hz), shape (F,)."""
+    """The way's complex target: unit passband, no polarity.
+
+    Parameters
+    ----------
+    way : WayTarget
+        The way's target (type, alignment, order, crossover frequencies).
+    f : ndarray
+        Frequencies, in Hz, shape (F,).
+
+    Returns
+    -------
+    ndarray
+        The complex target (dimensionless), shape (F,): ones for a full-range way, a bandpass the product of its
+        high-pass at fc_low and low-pass at fc_high.
+    """
     if way.type == "fullrange":
         return np.ones(np.shape(f), dtype=complex)
     if way.type in ("lowpass", "highpass"):
@@ -143,7 +181,30 @@ TILTS = {"flat": 0.0, "tilt-1db-decade": 1.0, "tilt-2db-decade": 2.0}
 
 
 def load_curve(name: str, job: Job, f: np.ndarray) -> np.ndarray:
-    """A shaping curve in dB on the grid: a shipped curve by stem, or a path (relative to the job's folder)."""
+    """A shaping curve in dB on the grid.
+
+    Parameters
+    ----------
+    name : str
+        A shipped curve's stem (``"flat"``, ``"tilt-1db-decade"``, ...) or a file path (relative to the job's
+        folder).
+    job : Job
+        The job (its folder, and its file for messages).
+    f : ndarray
+        The grid, in Hz, shape (F,).
+
+    Returns
+    -------
+    ndarray
+        The curve in dB (relative), shape (F,), interpolated linearly in log frequency.
+
+    Raises
+    ------
+    JobError
+        For a missing file or an unknown name.
+    DataError
+        For a curve file that does not cover the grid.
+    """
     p = Path(name)
     shipped = shipped_curves()
     if p.suffix or os.sep in name or "/" in name:
@@ -173,12 +234,24 @@ def _curve_on_grid(path: Path, f: np.ndarray) -> np.ndarray:
 class Targets:
     """All targets of a job on its grid.
 
-    ways: complex (D, F) way targets including polarity, unit passband, one row per
-        driver in job order (a row of NaN for a driver without a way target);
-    has_way: bool (D,);
-    system: complex (F,) the system target at unit level (sum of ways times the curve);
-    curve_db: (F,) the shaping curve; band: bool (F,) points inside the target band;
-    level_db: the fixed level in dB SPL, or None for "auto".
+    Attributes
+    ----------
+    ways : ndarray
+        Way targets, polarity and the shaping curve included, unit passband, complex (dimensionless), shape (D, F):
+        one row per driver
+        in job order (a row of NaN for a driver without a way target).
+    has_way : ndarray
+        Whether each driver has a way target, bool, shape (D,).
+    system : ndarray
+        The system target at unit level (the sum of the ways times the curve), complex (dimensionless), shape (F,).
+    curve_db : ndarray
+        The shaping curve in dB, shape (F,).
+    band : ndarray
+        The grid points inside the target band, bool, shape (F,).
+    level_db : float or None
+        The fixed level in dB SPL, or None for ``"auto"``.
+    polarity : dict
+        Driver name -> +1.0 or -1.0 (dimensionless).
     """
 
     ways: np.ndarray
@@ -191,7 +264,25 @@ class Targets:
 
 
 def build_targets(job: Job, f: np.ndarray) -> Targets:
-    """Targets of ``job`` on grid ``f`` (Hz). Raises JobError when the job has no way targets."""
+    """The targets of ``job`` on grid ``f``.
+
+    Parameters
+    ----------
+    job : Job
+        The job.
+    f : ndarray
+        The grid, in Hz, shape (F,).
+
+    Returns
+    -------
+    Targets
+        The way targets, the system target, the curve, the band and the level.
+
+    Raises
+    ------
+    JobError
+        When the job has no way targets.
+    """
     spec = job.target
     if not spec.ways:
         raise JobError("no way targets: add a [target.way.NAME] table for each driver", path=job.path,

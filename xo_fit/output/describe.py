@@ -20,6 +20,8 @@ def extension_text(spec, what: str, lo: float, hi: float, f: np.ndarray) -> str:
 
 
 def describe_ideal(src) -> str:
+    """One line describing a driver's modelled data: a flat response (level in dB SPL), a resistor
+    (ohm), a Thiele-Small model (Re, Le, fs, Qms, Qes) or a model in its box."""
     from xo_fit.job.model import FlatResponse, ModelImpedance, Resistive, ThieleSmall
     from xo_fit.units import format_value
 

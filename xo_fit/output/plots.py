@@ -206,6 +206,8 @@ def plot_pruning(path: str | Path, steps: list[dict], chosen: int, *, title: str
 
 
 def pruning_figure(plt, steps: list[dict], chosen: int, title: str):
+    """The prune plot on pyplot ``plt``: cost (log scale where every cost is above 0) and rms error in dB
+    against the number of R, L and C parts, each removal annotated and the chosen step circled."""
     parts = [r["parts"] for r in steps]
     cost = [r["cost"] if r["cost"] is not None else np.nan for r in steps]
     rms = [r["rms_error_db"] if r["rms_error_db"] is not None else np.nan for r in steps]
@@ -236,6 +238,7 @@ def pruning_figure(plt, steps: list[dict], chosen: int, title: str):
 
 
 def png_bytes(fig) -> bytes:
+    """The figure as PNG bytes (100 dpi); the figure is closed."""
     import io
 
     buf = io.BytesIO()
@@ -247,10 +250,14 @@ def png_bytes(fig) -> bytes:
 
 
 def spl_db_of(p: np.ndarray) -> np.ndarray:
+    """Sound pressure level in dB SPL re 20 uPa of complex pressures ``p`` in Pa (any shape, the same
+    shape back; :func:`xo_fit.model.acoustics.spl_db`)."""
     return acoustics.spl_db(p)
 
 
 def finish_axes(ax, ylabel: str, title: str, f: np.ndarray, top: float | None = None) -> None:
+    """Label and finish a frequency plot: x from f[0] to f[-1] in Hz, ``ylabel``, ``title``, a grid and a
+    legend; with ``top`` (dB) the y range is top - 50 to top + 6."""
     if top is not None:
         set_ylim(ax, top - 50, top + 6)
     ax.set_xlim(f[0], f[-1])

@@ -47,8 +47,19 @@ def rectangle(x: Sequence[float], y: Sequence[float]) -> np.ndarray:
 
     Parameters
     ----------
-    x, y:
-        (left, right) and (bottom, top) edges, m from the reference point (the job's ``[baffle] x`` and ``y``).
+    x, y : sequence of float
+        (left, right) and (bottom, top) edges, in m from the reference point (the job's ``[baffle] x`` and
+        ``y``), shape (2,) each.
+
+    Returns
+    -------
+    ndarray
+        The corners, in m, shape (4, 2).
+
+    Raises
+    ------
+    XoFitError
+        Unless x and y are two edges each, left < right and bottom < top.
     """
     if len(x) != 2 or len(y) != 2:
         raise XoFitError(f"a baffle's x and y are two edges each, not {list(x)}, {list(y)}")
@@ -63,12 +74,17 @@ def regular_polygon(radius: float, sides: int, centre: Sequence[float] = (0.0, 0
 
     Parameters
     ----------
-    radius:
-        The circumscribed circle's radius, m; many sides stand for a circular baffle.
-    sides:
-        Number of sides, 3 or more.
-    centre:
-        (x, y) of the centre, m.
+    radius : float
+        The circumscribed circle's radius, in m; many sides stand for a circular baffle.
+    sides : int
+        Number of sides, 3 or more (dimensionless).
+    centre : sequence of float
+        (x, y) of the centre, in m, shape (2,).
+
+    Returns
+    -------
+    ndarray
+        The corners, in m, shape (sides, 2).
     """
     t = 2 * np.pi * np.arange(sides) / sides
     return np.column_stack([centre[0] + radius * np.cos(t), centre[1] + radius * np.sin(t)])
@@ -81,35 +97,35 @@ def diffraction(frequencies: np.ndarray, position: Sequence[float], directions: 
 
     Parameters
     ----------
-    frequencies:
-        (F,) Hz.
-    position:
-        (x, y) of the driver's acoustic centre in the baffle plane, m from the reference point; strictly inside
-        ``outline``.
-    directions:
-        (A, 3) unit vectors from the reference point toward the listening points
+    frequencies : ndarray
+        Frequencies, in Hz, shape (F,).
+    position : sequence of float
+        (x, y) of the driver's acoustic centre in the baffle plane, in m from the reference point, shape (2,);
+        strictly inside ``outline``.
+    directions : ndarray
+        Unit vectors (dimensionless), shape (A, 3), from the reference point toward the listening points
         (:func:`xo_fit.physics.geometry.directions`).
-    outline:
-        (V, 2) corners of the baffle, m, in order around it (either sense); any simple polygon with the driver
+    outline : ndarray
+        Corners of the baffle, in m, shape (V, 2), in order around it (either sense); any simple polygon with the driver
         inside (:func:`rectangle`, :func:`regular_polygon`).
-    radius:
-        Effective piston radius a, m; 0 for a point source. The piston's far-field directivity 2 J1(x)/x,
+    radius : float
+        Effective piston radius a, in m; 0 for a point source. The piston's far-field directivity 2 J1(x)/x,
         x = ka sin(theta), scales the direct wave toward each listening point and, at grazing incidence
         (x = ka), the wave arriving at the edges.
-    distance:
-        Distance of the listening points from the reference point, m, or ``math.inf`` (far field). A finite one
+    distance : float
+        Distance of the listening points from the reference point, in m, or ``math.inf`` (far field). A finite one
         must lie beyond every corner of the baffle.
-    speed_of_sound:
-        m/s.
-    element_angle:
-        Largest angle an edge element subtends at the driver, rad.
+    speed_of_sound : float
+        The speed of sound, in m/s.
+    element_angle : float
+        Largest angle an edge element subtends at the driver, in rad.
 
     Returns
     -------
-    numpy.ndarray
-        (A, F) complex: 1/2 (times the piston's directivity) at 0 Hz in the far field, 1 (the half-space) plus
-        decaying edge waves far above the baffle step in front, the diffracted sound alone behind. It is
-        complex pressure, so its phase is the physical one (no minimum-phase step).
+    ndarray
+        Complex (dimensionless), shape (A, F): 1/2 (times the piston's directivity) at 0 Hz in the far
+        field, 1 (the half-space) plus decaying edge waves far above the baffle step in front, the diffracted
+        sound alone behind. It is complex pressure, so its phase is the physical one (no minimum-phase step).
     """
     f = np.asarray(frequencies, dtype=float)
     u = np.asarray(directions, dtype=float).reshape(-1, 3)

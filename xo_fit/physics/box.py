@@ -46,10 +46,14 @@ class Box:
 
     Attributes
     ----------
-    kind: ``"none"`` (infinite baffle), ``"closed"`` or ``"vented"``.
-    volume: net internal volume Vb, m^3 (None for ``"none"``).
-    tuning: the vented box's resonance fb, Hz (None otherwise).
-    ql: the vented box's leakage quality QL (dimensionless).
+    kind : str
+        ``"none"`` (infinite baffle), ``"closed"`` or ``"vented"``.
+    volume : float or None
+        The net internal volume Vb, in m^3 (None for ``"none"``).
+    tuning : float or None
+        The vented box's resonance fb, in Hz (None otherwise).
+    ql : float
+        The vented box's leakage quality QL (dimensionless).
     """
 
     kind: str = "none"
@@ -150,14 +154,19 @@ def impedance(ts: ThieleSmallSet, box: Box, f: np.ndarray, *, key: str | None = 
 
     Parameters
     ----------
-    ts: the driver (Re, fs, Qms, Qes, Le or the lossy coil; Vas for a box).
-    box: the box (``Box()`` for an infinite baffle).
-    f: frequencies, Hz, shape (F,).
-    key: the job table, for error messages.
+    ts : ThieleSmallSet
+        The driver (Re, fs, Qms, Qes, Le or the lossy coil; Vas for a box), SI units.
+    box : Box
+        The box (``Box()`` for an infinite baffle).
+    f : ndarray
+        Frequencies, in Hz, shape (F,).
+    key : str, optional
+        The job table, for error messages.
 
     Returns
     -------
-    Complex impedance, ohm, shape (F,).
+    ndarray
+        The complex impedance, in ohm, shape (F,).
     """
     _, zmot, _ = _elements(ts, box, f, key)
     return ts.re + ts.coil_impedance(f) + zmot
@@ -169,11 +178,19 @@ def pressure(ts: ThieleSmallSet, box: Box, f: np.ndarray, *, key: str | None = N
 
     Parameters
     ----------
-    ts, box, f, key: as for :func:`impedance`; f in Hz, shape (F,).
+    ts : ThieleSmallSet
+        The driver (Re, fs, Qms, Qes, Le or the lossy coil; Vas for a box), SI units.
+    box : Box
+        The box (``Box()`` for an infinite baffle).
+    f : ndarray
+        Frequencies, in Hz, shape (F,).
+    key : str, optional
+        The job table, for error messages.
 
     Returns
     -------
-    Complex transfer function, dimensionless, shape (F,).
+    ndarray
+        The complex transfer function (dimensionless), shape (F,).
     """
     s, zmot, shape = _elements(ts, box, f, key)
     z = ts.re + ts.coil_impedance(f) + zmot
@@ -187,12 +204,19 @@ def excursion(ts: ThieleSmallSet, box: Box, f: np.ndarray, *, key: str | None = 
 
     Parameters
     ----------
-    ts: the driver; needs the mechanical set (Sd and a scale: Bl, Mms, Cms, Rms follow).
-    box, f, key: as for :func:`impedance`; f in Hz, shape (F,).
+    ts : ThieleSmallSet
+        The driver; needs the mechanical set (Sd and a scale: Bl, Mms, Cms, Rms follow), SI units.
+    box : Box
+        The box (``Box()`` for an infinite baffle).
+    f : ndarray
+        Frequencies, in Hz, shape (F,).
+    key : str, optional
+        The job table, for error messages.
 
     Returns
     -------
-    Complex excursion per volt, m/V, shape (F,) (peak metres per peak volt).
+    ndarray
+        The complex excursion per volt, in m/V (peak metres per peak volt), shape (F,).
     """
     ts.need(("bl", "mms", "cms", "rms"), "the cone excursion", key=key)
     s, zmot, shape = _elements(ts, box, f, key)
@@ -207,14 +231,20 @@ def peak_excursion(f: np.ndarray, x_per_volt: np.ndarray, volts_rms: float | np.
 
     Parameters
     ----------
-    f: frequencies, Hz, shape (F,).
-    x_per_volt: excursion per volt at the terminals, m/V, shape (F,) (:func:`excursion`, times the crossover's
-        voltage transfer to the driver where there is one).
-    volts_rms: the RMS voltage at the input, V (a number, or shape (F,)).
+    f : ndarray
+        Frequencies, in Hz, shape (F,).
+    x_per_volt : ndarray
+        The excursion per volt at the terminals, complex, in m/V, shape (F,) (:func:`excursion`, times the
+        crossover's voltage transfer to the driver where there is one).
+    volts_rms : float or ndarray
+        The RMS voltage at the input, in V: a number, or shape (F,).
 
     Returns
     -------
-    (peak excursion m, the frequency where it lies Hz).
+    peak : float
+        The peak excursion, in m.
+    at_hz : float
+        The frequency where it lies, in Hz.
     """
     x = math.sqrt(2.0) * np.abs(np.asarray(x_per_volt)) * np.asarray(volts_rms, dtype=float)
     i = int(np.argmax(x))

@@ -36,10 +36,34 @@ DCR_EXPONENT = 0.6
 
 
 def dcr_coefficient(diameter: float) -> float:
-    """Coefficient a of DCR = a * L**0.6 (ohm / H^0.6) for bare copper wire of ``diameter`` m."""
+    """Coefficient a of DCR = a * L**0.6 for bare copper wire.
+
+    Parameters
+    ----------
+    diameter : float
+        The bare wire diameter, in m.
+
+    Returns
+    -------
+    float
+        a, in ohm / H^0.6.
+    """
     return 12.0 * RHO_COPPER * K_BROOKS ** (-DCR_EXPONENT) * diameter ** (-1.6)
 
 
 def coil_dcr(inductance: np.ndarray | float, diameter: float) -> np.ndarray | float:
-    """DC resistance in ohm of an air-core Brooks coil of ``inductance`` H wound with ``diameter`` m wire."""
+    """The DC resistance of an air-core coil of Brooks proportions.
+
+    Parameters
+    ----------
+    inductance : float or ndarray
+        The inductance, in H, any shape (...,).
+    diameter : float
+        The bare wire diameter, in m.
+
+    Returns
+    -------
+    float or ndarray
+        The DC resistance, in ohm, the shape of ``inductance``.
+    """
     return dcr_coefficient(diameter) * np.asarray(inductance, dtype=float) ** DCR_EXPONENT

@@ -40,16 +40,20 @@ def on_grid(curve: Curve, grid: np.ndarray, kind: str, phase: str = "measured") 
 
     Parameters
     ----------
-    curve: as read by :func:`read_curve`.
-    grid: frequencies in Hz, shape (F,), inside the curve's range.
-    kind: ``"response"`` or ``"impedance"``.
-    phase: ``"measured"`` (the file's phase column) or ``"minimum"`` (derived from the magnitude).
+    curve : Curve
+        As read by :func:`~xo_fit.io.measure.read_curve`.
+    grid : ndarray
+        Frequencies in Hz, shape (F,), inside the curve's range.
+    kind : str
+        ``"response"`` or ``"impedance"``.
+    phase : str
+        ``"measured"`` (the file's phase column) or ``"minimum"`` (derived from the magnitude).
 
     Returns
     -------
-    values:
-        complex (F,): sound pressure in Pa (response; |p| = 20 uPa 10^(dB/20)) or impedance in ohm.
-    warnings:
+    values : ndarray
+        Complex, shape (F,): sound pressure in Pa (response; |p| = 20 uPa 10^(dB/20)) or impedance in ohm.
+    warnings : list of str
         Human-readable remarks about the data (e.g. phase that steps too fast to interpolate).
     """
     check_coverage(curve, grid, kind)

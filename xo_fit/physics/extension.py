@@ -20,10 +20,30 @@ EXTEND_PER_OCTAVE = 48
 
 
 def extend_curve(curve: Curve, grid: np.ndarray, kind: str, low: str = "none", high: str = "none") -> Curve:
-    """The curve with its magnitude continued to cover ``grid`` (Hz): "slope" continues the dB-per-octave
-    slope fitted over the data's last third of an octave; "order2"/"order4" (low end only) fit a second- or
-    fourth-order Butterworth high-pass to the data's lowest octave, joined at the file's first point without a
-    step. The phase column is dropped: an extended curve takes minimum phase from its whole magnitude."""
+    """The curve with its magnitude continued to cover the grid.
+
+    ``"slope"`` continues the dB-per-octave slope fitted over the data's outer third of an octave;
+    ``"order2"``/``"order4"`` (low end only) fit a second- or fourth-order Butterworth high-pass to the data's
+    lowest octave, joined at the file's first point without a step. The phase column is dropped: an extended
+    curve takes minimum phase from its whole magnitude.
+
+    Parameters
+    ----------
+    curve : Curve
+        The curve as read (frequency in Hz, magnitude in dB SPL or ohm).
+    grid : ndarray
+        The grid to cover, in Hz, shape (F,).
+    kind : str
+        ``"response"`` (magnitude in dB SPL) or ``"impedance"`` (in ohm).
+    low, high : str
+        How to extend each end: ``"none"``, ``"slope"``, and at the low end also ``"order2"`` or ``"order4"``.
+
+    Returns
+    -------
+    Curve
+        The extended curve (``curve`` itself when both ends are ``"none"``), EXTEND_PER_OCTAVE points per
+        octave in the extensions, whose points have line 0; no phase.
+    """
     if low == "none" and high == "none":
         return curve
     u = np.log(curve.frequency)
@@ -63,8 +83,17 @@ SPLICE_PER_OCTAVE = 48
 
 @dataclass(frozen=True)
 class Splice:
-    """A near-field and a far-field response joined: ``curve`` (magnitude only, dB SPL), the ``gain_db``
-    added to the near field to match the far field around ``splice_hz``."""
+    """A near-field and a far-field response joined.
+
+    Attributes
+    ----------
+    curve : Curve
+        The joined response (magnitude only, in dB SPL).
+    gain_db : float
+        The shift added to the near field, in dB, to match the far field around ``splice_hz``.
+    splice_hz : float
+        The splice frequency, in Hz.
+    """
 
     curve: Curve
     gain_db: float
@@ -72,18 +101,34 @@ class Splice:
 
 
 def splice_curves(near: Curve, far: Curve, splice_hz: float, gain_db: float | None = None) -> Splice:
-    """Join a near-field response (below ``splice_hz``) to a far-field one (above), both dB SPL.
+    """Join a near-field response (below ``splice_hz``) to a far-field one (above).
 
     The near field is shifted by the mean dB difference over the third of an octave centred on the splice
     (means over log frequency), then faded into the far field over that same third of an octave (weights
     linear in log frequency), so the join has neither a step nor a kink worse than the data's. The result
     covers the near file's start to the far file's end, at SPLICE_PER_OCTAVE points per octave; it has no
-    phase (it takes minimum phase from its whole magnitude). Raises DataError when either file does not
-    cover the splice's third of an octave.
+    phase (it takes minimum phase from its whole magnitude).
 
-    ``gain_db`` (dB), when given, is the near field's shift instead of the one matched here: an off-axis far
-    field spliced with the on-axis splice's shift, so that the near field is the same at every angle
-    (omnidirectional below the splice).
+    Parameters
+    ----------
+    near, far : Curve
+        The near-field and far-field responses, magnitudes in dB SPL.
+    splice_hz : float
+        The splice frequency, in Hz.
+    gain_db : float, optional
+        The near field's shift in dB instead of the one matched here: an off-axis far field spliced with the
+        on-axis splice's shift, so that the near field is the same at every angle (omnidirectional below the
+        splice).
+
+    Returns
+    -------
+    Splice
+        The joined curve and the shift used.
+
+    Raises
+    ------
+    DataError
+        When either file does not cover the splice's third of an octave.
     """
     half = SPLICE_OCTAVES / 2 * np.log(2.0)
     u0 = float(np.log(splice_hz))

@@ -77,17 +77,43 @@ def direction(orbit: str, angle_deg: float) -> np.ndarray:
 
 
 def directions(positions: Sequence[tuple[str, float]]) -> np.ndarray:
-    """Unit vectors of measuring positions ("h"|"v", degrees), shape (A, 3) in the order given."""
+    """Unit vectors from the reference point towards measuring positions, in the order given.
+
+    Parameters
+    ----------
+    positions : sequence of tuple
+        ``("h" | "v", angle in degrees)`` pairs, A of them.
+
+    Returns
+    -------
+    ndarray
+        Unit vectors (dimensionless; x right, y up, z forward), shape (A, 3).
+    """
     if len(positions) == 0:
         return np.zeros((0, 3))
     return np.stack([direction(o, a) for o, a in positions])
 
 
 def acoustic_centres(x: Sequence[float], y: Sequence[float], offset: Sequence[float]) -> np.ndarray:
-    """Acoustic centres p = (x, y, -offset) of Dr drivers, m, shape (Dr, 3).
+    """Acoustic centres p = (x, y, -offset) of Dr drivers.
 
-    x, y: position in the baffle plane from the reference point, m (x to the right facing the front, y up),
-    (Dr,) each; offset: depth behind the reference plane, m (negative: in front), (Dr,).
+    Parameters
+    ----------
+    x, y : sequence of float
+        Position in the baffle plane from the reference point, in m (x to the right facing the front, y up),
+        shape (Dr,) each.
+    offset : sequence of float
+        Depth behind the reference plane, in m (negative: in front), shape (Dr,).
+
+    Returns
+    -------
+    ndarray
+        The centres, in m, shape (Dr, 3).
+
+    Raises
+    ------
+    ValueError
+        Unless x, y and offset hold one value per driver.
     """
     xs, ys, depth = (np.asarray(v, dtype=float).reshape(-1) for v in (x, y, offset))
     if not xs.size == ys.size == depth.size:

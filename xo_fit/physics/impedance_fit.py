@@ -50,14 +50,24 @@ class ImpedanceFit:
 
     Attributes
     ----------
-    model: ``"ts"`` or ``"ts-lossy"``.
-    params: the fitted model (``le_exponent`` 1; ``l2``/``r2`` zero for ``ts``).
-    rms_error_pct: rms of |Z_model - Z| / |Z| over the fitted points, % (of |Z| alone without phase).
-    max_error_pct: the largest such error, % ; ``max_error_hz`` where it lies (Hz).
-    f_range: the fitted frequency range (Hz).
-    points: number of fitted points.
-    used_phase: whether the file's phase took part.
-    warnings: remarks on the fit (a second peak, a large error).
+    model : str
+        ``"ts"`` or ``"ts-lossy"``.
+    params : ThieleSmall
+        The fitted model in SI units (``le_exponent`` 1; ``l2``/``r2`` zero for ``ts``).
+    rms_error_pct : float
+        The rms of |Z_model - Z| / |Z| over the fitted points, in % (of |Z| alone without phase).
+    max_error_pct : float
+        The largest such error, in %.
+    max_error_hz : float
+        Where it lies, in Hz.
+    f_range : tuple of float
+        The fitted frequency range (low, high), in Hz.
+    points : int
+        The number of fitted points (dimensionless).
+    used_phase : bool
+        Whether the file's phase took part.
+    warnings : tuple of str
+        Remarks on the fit (a second peak, a large error).
     """
 
     model: str

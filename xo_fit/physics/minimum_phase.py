@@ -57,14 +57,18 @@ def minimum_phase(frequency: np.ndarray, magnitude_db_: np.ndarray, at: np.ndarr
 
     Parameters
     ----------
-    frequency: Hz, shape (N,), strictly rising.
-    magnitude_db_: dB, shape (N,).
-    at: Hz, shape (M,).
+    frequency : ndarray
+        Frequencies in Hz, shape (N,), strictly rising.
+    magnitude_db_ : ndarray
+        The magnitude in dB, shape (N,).
+    at : ndarray
+        Frequencies in Hz, shape (M,).
 
     Returns
     -------
-    phase: radians, shape (M,). A rising magnitude slope of 6.02 dB/octave
-    everywhere gives +pi/2.
+    ndarray
+        The phase in rad, shape (M,). A rising magnitude slope of 6.02 dB/octave
+        everywhere gives +pi/2.
     """
     logf = np.log(np.asarray(frequency, dtype=float))
     n = max(int(np.ceil((logf[-1] - logf[0]) / np.log(2.0) * MINPHASE_PER_OCTAVE)) + 1, 2)

@@ -75,18 +75,18 @@ class ThieleSmallSet:
 
     Attributes
     ----------
-    re, le, fs, qms, qes, qts:
+    re, le, fs, qms, qes, qts : float
         Voice-coil resistance (ohm), inductance (H; 0 when not given), resonance (Hz) and the Q factors.
-    vas, sd, bl, mms, cms, rms:
+    vas, sd, bl, mms, cms, rms : float or None
         Equivalent volume (m^3), piston area (m^2), force factor (T m), moving mass (kg), suspension compliance
         (m/N) and mechanical resistance (kg/s); None where the given keys do not determine them.
-    xmax, power:
+    xmax, power : float or None
         Linear one-way excursion (m) and thermal (programme) power rating (W); None when not given.
-    l2, r2:
+    l2, r2 : float
         The lossy coil's second inductance (H) and the resistance across it (ohm); both 0 without it.
-    given:
+    given : frozenset of str
         The keys that were given.
-    rho, c:
+    rho, c : float
         The air density (kg/m^3) and speed of sound (m/s) used for Vas.
     """
 
@@ -120,11 +120,13 @@ class ThieleSmallSet:
 
         Parameters
         ----------
-        f: frequencies, Hz, shape (F,).
+        f : ndarray
+            Frequencies, in Hz, shape (F,).
 
         Returns
         -------
-        Complex impedance, ohm, shape (F,).
+        ndarray
+            The complex impedance, in ohm, shape (F,).
         """
         s = 2j * np.pi * np.asarray(f, dtype=float)
         z = s * self.le
@@ -137,9 +139,12 @@ class ThieleSmallSet:
 
         Parameters
         ----------
-        keys: the parameter names needed (from :data:`UNITS`).
-        purpose: what needs them, for the message ("a vented box", "the cone excursion").
-        key: the job table the set came from, for the message (``"[driver.woofer.ts]"``).
+        keys : tuple of str
+            The parameter names needed (from :data:`UNITS`).
+        purpose : str
+            What needs them, for the message ("a vented box", "the cone excursion").
+        key : str, optional
+            The job table the set came from, for the message (``"[driver.woofer.ts]"``).
         """
         missing = [k for k in keys if getattr(self, k) is None]
         if not missing:
@@ -281,11 +286,11 @@ def complete(given: Mapping[str, float], *, key: str | None = None, rho: float =
 
     Parameters
     ----------
-    given:
+    given : Mapping
         Key -> value in SI units (ohm, H, Hz, m^3, m^2, T m, kg, m/N, kg/s, m, W): any of :data:`UNITS`.
-    key:
+    key : str, optional
         The job table it came from (``"[driver.woofer.ts]"``), for error messages.
-    rho, c:
+    rho, c : float
         Air density (kg/m^3) and speed of sound (m/s) relating Vas to Cms.
 
     Returns

@@ -50,18 +50,22 @@ def tag(name: str, *parts, attrs: str = "") -> Markup:
 
 
 def heading(title) -> Markup:
+    """An ``<h2>`` heading, its text escaped."""
     return tag("h2", title)
 
 
 def para(*parts) -> Markup:
+    """A ``<p>`` paragraph of the parts (each escaped unless it is Markup)."""
     return tag("p", *parts)
 
 
 def bold(x) -> Markup:
+    """``<b>x</b>``, x escaped unless it is Markup."""
     return tag("b", x)
 
 
 def code(x) -> Markup:
+    """``<code>x</code>``, x escaped unless it is Markup."""
     return tag("code", x)
 
 

@@ -39,10 +39,13 @@ class Report:
 
     @property
     def build(self) -> ReportItem:
+        """The result whose network the page shows as the one to build: the one to buy from, else the last
+        given."""
         return self.buy if self.buy is not None else self.items[-1]
 
     @property
     def job(self):
+        """The first result's job (every result of a report shares its grid and drivers)."""
         return self.items[0].job
 
 

@@ -18,6 +18,7 @@ BUY_COLUMNS = (("part", "name"), ("kind", "kind"), ("value", "text"), ("quantity
 
 
 def caution(*parts) -> Markup:
+    """A caution box: ``<div class="caution">`` of the parts (each escaped unless it is Markup)."""
     return tag("div", *parts, attrs='class="caution"')
 
 
@@ -138,6 +139,7 @@ def prune_section(rep) -> Markup:
 
 
 def findings_section(rep) -> Markup:
+    """The findings of the result to build, as a bulleted list ("none" where it has none)."""
     return section(f"Findings ({rep.build.label})", bullets([x["text"] for x in rep.build.design.findings], "none"))
 
 

@@ -36,6 +36,7 @@ class ReportItem:
 
     @property
     def job(self):
+        """The job of the item's design."""
         return self.design.system.job
 
 
