@@ -9,11 +9,11 @@ import numpy as np
 
 @dataclass(frozen=True)
 class Grid:
-    """The log-spaced frequency axis every curve is put on (Hz)."""
+    """The log-spaced frequency axis every curve is put on (Hz); the defaults are ``[grid]``'s."""
 
-    f_min: float
-    f_max: float
-    points: int
+    f_min: float = 20.0
+    f_max: float = 20000.0
+    points: int = 320
 
     @property
     def frequencies(self) -> np.ndarray:
