@@ -201,7 +201,7 @@ def test_bad_numbers_and_files_are_input_errors(tmp_path, replace, add, files, m
 
 
 def test_doubtful_values_warn_on_one_line_each(tmp_path):
-    """Legal but implausible part values (common practice for crossover parts; ranges in job.PLAUSIBLE) warn."""
+    """Legal but implausible part values (common practice for crossover parts; ranges in job.ranges.PLAUSIBLE) warn."""
     text = _job({'value = "10uF"': "value = 10", 'value = "0.4mH"': 'value = "1MH"'})
     code, err = _cli(tmp_path, text)
     assert code == 0, err

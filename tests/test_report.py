@@ -187,7 +187,7 @@ def test_measured_drivers_export_as_fitted_circuits_that_ngspice_agrees_with(tmp
                                                          deck, re.M)]
     assert len(stated) == 2 and "fit error" in out
     data = _run_deck(ngspice, deck, tmp_path, "x")
-    from xo_fit.output.design import load_result
+    from xo_fit.output.loading import load_result
 
     d = load_result(demo / "snap")
     s = d.system

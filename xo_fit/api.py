@@ -25,7 +25,8 @@ import numpy as np
 
 from xo_fit.config import MAX_INCREASE
 from xo_fit.constants import PART_UNIT
-from xo_fit.output.design import Design, Spread, load_result
+from xo_fit.output.design import Design, Spread
+from xo_fit.output.loading import load_result
 from xo_fit.errors import XoFitError
 from xo_fit.job.model import Job
 from xo_fit.job.reader import load_job as _load_job
@@ -188,7 +189,7 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
                             "note": "cost = mean over fixed tolerance draws; each evaluation solves one design "
                                     "per draw"}
     return Design(system=system, scored=outcome.scored, stage="fit", sections={"search": search},
-                  info={"outcome": outcome, "runs": runs}, label="fit")
+                  outcome=outcome, runs=runs, label="fit")
 
 
 def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Mapping[str, str] | None = None,
@@ -258,8 +259,7 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
     return Design(system=system, scored=after, stage="snap", sections=sections,
                   source={"from": None, "inventory": str(inventory.path) if inventory else None},
                   part_info=part_info, tables={"parts.csv": parts_table(outcome, j, dict(j.spread.tolerance))},
-                  info={"outcome": outcome, "before": before, "after": after, "compare": ("continuous", before)},
-                  label="snap")
+                  outcome=outcome, before=before, label="snap")
 
 
 def _with_drawer_parts(system, outcome, inventory):

@@ -1,6 +1,7 @@
 """Every tunable of the search and the stages, in one place: the knobs that trade time for thoroughness.
 
-What a user sets per job lives in the job's tables (their defaults in :data:`xo_fit.job.model.DEFAULTS`);
+What a user sets per job lives in the job's tables (their defaults on the fields of :mod:`xo_fit.job.model`'s
+dataclasses, by table and key in :data:`~xo_fit.job.model.DEFAULTS`);
 physical and format constants live in :mod:`xo_fit.constants` and beside the models that define them. The
 values here are chosen by measurement (``benchmarks/``); changing one changes results, so each says what it
 does and what it trades.

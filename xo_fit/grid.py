@@ -9,7 +9,7 @@ import numpy as np
 
 @dataclass(frozen=True)
 class Grid:
-    """The log-spaced frequency axis every curve is put on.
+    """The log-spaced frequency axis every curve is put on; the defaults are ``[grid]``'s.
 
     Attributes
     ----------
@@ -21,9 +21,9 @@ class Grid:
         The number of points F (dimensionless), at least 2.
     """
 
-    f_min: float
-    f_max: float
-    points: int
+    f_min: float = 20.0
+    f_max: float = 20000.0
+    points: int = 320
 
     @property
     def frequencies(self) -> np.ndarray:

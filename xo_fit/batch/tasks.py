@@ -10,22 +10,29 @@ that the result's provenance points at the job from there.
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from xo_fit import api
 
+if TYPE_CHECKING:
+    from xo_fit.output.design import Design, Spread
+
 
 @dataclass
 class StageOutput:
-    """What a stage produced: its result document, the files it wrote, and objects for the console."""
+    """What a stage produced: its result document, the files it wrote, and for the console the design (with
+    what its stage adds: a fit's or a snap's ``outcome``, a fit's ``runs``, a snap's ``before``) and, for a
+    spread, the :class:`~xo_fit.output.design.Spread` (its full ``result``)."""
 
     stage: str
     document: dict
     files: list[Path]
-    info: dict = field(default_factory=dict)
+    design: Design
+    spread: Spread | None = None
 
     @property
     def cost(self) -> float | None:
@@ -38,9 +45,9 @@ class StageOutput:
         return self.document.get("metrics", {})
 
 
-def _output(design, out: Path, files: list[Path], **info) -> StageOutput:
+def _output(design: Design, out: Path, files: list[Path], spread: Spread | None = None) -> StageOutput:
     doc = json.loads((out / "result.json").read_text(encoding="utf-8"))
-    return StageOutput(design.stage, doc, files, {**design.info, "design": design, **info})
+    return StageOutput(design.stage, doc, files, design, spread)
 
 
 def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time_limit=None, workers: int = 1,
@@ -81,4 +88,4 @@ def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=N
     sp.design.source["from"] = source_from
     sp.design.part_info = dict(part_info or {})
     files = sp.save(out, plots=plots, home=home)
-    return _output(sp.design, out, files, result=sp.result, spread=sp)
+    return _output(sp.design, out, files, spread=sp)

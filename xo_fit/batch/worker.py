@@ -154,6 +154,8 @@ def work(payload: dict, emit=None, files: dict | None = None) -> dict:
     "values"}], "error": None or {"stage", "message"}, "seconds"}. ``emit``, when given, receives each stage's
     entry as soon as the stage ends (so that a worker that dies later loses no finished stage).
     """
+    from xo_fit.output.loading import part_extras
+
     single_threaded()
     t0 = time.time()
     if files is not None:
@@ -177,8 +179,7 @@ def work(payload: dict, emit=None, files: dict | None = None) -> dict:
                 break
             done.append(stage_entry(st, o, system, tmp / st, started))
             values = [done[-1]["values"][n] for n in system.part_names]
-            info = {n: {k: v for k, v in e.items() if k not in ("value", "unit", "text", "limit")}
-                    for n, e in o.document["parts"].items()}
+            info = part_extras(o.document["parts"])
             if emit is not None:
                 emit({"stage_done": done[-1]})
     finally:

@@ -50,10 +50,9 @@ def part_info_of(from_: Path | None) -> dict:
     if from_ is None:
         return {}
     from xo_fit.io.results import read_result
-    from xo_fit.output.design import PART_RECOMPUTED
+    from xo_fit.output.loading import part_extras
 
-    return {n: {k: v for k, v in e.items() if k not in PART_RECOMPUTED}
-            for n, e in read_result(from_)["parts"].items() if isinstance(e, dict)}
+    return part_extras(read_result(from_)["parts"])
 
 
 def load_checked(job_path: Path):

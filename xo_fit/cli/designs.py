@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING, cast
 
 import numpy as np
 import typer
@@ -26,6 +27,10 @@ from xo_fit.config import MAX_INCREASE
 from xo_fit.errors import XoFitError
 from xo_fit.io.results import check_folder
 from xo_fit.job.model import DEFAULTS
+
+if TYPE_CHECKING:
+    from xo_fit.search.fitting import FitOutcome
+    from xo_fit.stages.snapping import SnapOutcome
 
 
 @app.command()
@@ -87,13 +92,13 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
     finally:
         if progress is not None:
             progress.close()
-    outcome, runs, files = st.info["outcome"], st.info["runs"], st.files
+    outcome, runs, files = cast("FitOutcome", st.design.outcome), st.design.runs, st.files
     r = outcome.search
     state = "" if r.complete else f" - INCOMPLETE ({r.stopped_by}): the best design so far"
     total = st.document.get("search", {}).get("evaluations", r.evaluations)  # all processes together
     say(f"fit {j.name}: {total} evaluations with {r.optimizer} (seed {r.seed}) in {r.seconds:.2f} s "
         f"of search, {time.perf_counter() - t0:.2f} s in all{state}")
-    print_limits(st.info["design"])
+    print_limits(st.design)
     print_score(outcome.scored, outcome.start_cost)
     if runs is not None:
         say(f"  {len(runs)} processes shared the budget; seed {r.seed} won: "
@@ -116,7 +121,7 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
             if p.free:
                 start = f" (start {format_value(p.value, p.unit)})" if p.value is not None else ""
                 say(f"    {p.name:<8} {format_value(float(v), p.unit)}{start}")
-    print_findings(st.info["design"])
+    print_findings(st.design)
     print_cautions(system, outcome.scored)
     say("wrote " + ", ".join(str(p) for p in files))
     if not r.complete and r.stopped_by == "interrupted":
@@ -191,12 +196,13 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
     st = snap_stage(system, out, continuous, series_override=overrides, inventory=inv, combine=combine,
                     plots=not no_plots, source_from=str(from_) if from_ else None, top_up=top_up,
                     speakers=speakers)
-    outcome, before, after, files = st.info["outcome"], st.info["before"], st.info["after"], st.files
+    outcome, before, after, files = cast("SnapOutcome", st.design.outcome), st.design.before, st.design.scored, st.files
+    assert before is not None  # a snap keeps the continuous design it started from
     sr = outcome.search
     say(f"snapped {j.name}: {sum(p.source not in ('fixed', 'continuous') for p in outcome.parts)} parts, "
         f"{sr.evaluations if sr else 0} designs scored ({'exhaustive' if sr and sr.exhaustive else 'searched'}) "
         f"in {outcome.seconds:.2f} s, {time.perf_counter() - t0:.2f} s in all")
-    print_limits(st.info["design"])
+    print_limits(st.design)
     say(f"  {'part':<8} {'continuous':>12} {'snapped':>22} {'change':>8}  source")
     for sp in outcome.parts:
         unit = PART_UNIT[sp.kind]
@@ -214,7 +220,7 @@ def snap(job: Path = typer.Argument(..., help="The job file (TOML)."),
 
     for w in snap_warnings(outcome, before.cost, after.cost, inv is not None):
         warn(w)
-    print_findings(st.info["design"])
+    print_findings(st.design)
     print_cautions(system, after)
     say("wrote " + ", ".join(str(p) for p in files))
 
@@ -248,13 +254,14 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
                           source_from=str(from_) if from_ else None, progress=progress, part_info=part_info_of(from_))
     finally:
         bar.close()
-    r, files = st.info["result"], st.files
+    assert st.spread is not None and st.spread.result is not None  # a spread computed here
+    r, files = st.spread.result, st.files
     say(f"spread {j.name}: {r.samples} builds ({j.spread.distribution}"
         f"{', quasi-random' if j.spread.qmc else ''}) in {time.perf_counter() - t0:.2f} s")
     say(f"  yield: {r.yield_band * 100:.1f} % within +-{r.limits['band_db']:g} dB of the nominal sum; "
         f"{r.yield_limits * 100:.1f} % meet rms <= {r.limits['rms_error_db']:g} dB"
         + (f" and |Z| >= {r.limits['impedance_min_ohm']:g} ohm" if r.limits["impedance_min_ohm"] > 0 else ""))
-    m = st.info["design"].metrics
+    m = st.design.metrics
     misses = []
     if m.get("rms_error_db") is not None and m["rms_error_db"] > r.limits["rms_error_db"]:
         misses.append(f"its rms error is {m['rms_error_db']:.2f} dB (limit {r.limits['rms_error_db']:g} dB)")

@@ -116,7 +116,8 @@ def report(results: list[Path] = typer.Argument(..., help="result.json files (or
 def export(result: Path = typer.Argument(..., help="A result.json (or its folder)."),
            spice: Path = typer.Option(..., "--spice", help="The SPICE netlist file to write.")) -> None:
     """Write a design as a SPICE netlist (drivers as subcircuits) for any circuit simulator."""
-    from xo_fit.output.design import Spread, load_result
+    from xo_fit.output.design import Spread
+    from xo_fit.output.loading import load_result
     from xo_fit.output.spice import export as write_spice
 
     check_target(spice, "--spice")

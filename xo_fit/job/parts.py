@@ -7,8 +7,8 @@ from __future__ import annotations
 from xo_fit.constants import PART_TYPES, PART_UNIT, RATING_UNIT
 from xo_fit.errors import XoFitError
 from xo_fit.units import UnitsError, parse_percent, parse_value, parse_wire
-from xo_fit.job.model import (DEFAULTS, is_name, NAME_PATTERN, NODE_PATTERN, DriverSpec, PartSpec, PLAUSIBLE,
-                              SOLVABLE, RATING, OHMS)
+from xo_fit.job.model import (DEFAULTS, is_name, NAME_PATTERN, NODE_PATTERN, DriverSpec, PartSpec, RATING, OHMS)
+from xo_fit.job.ranges import PLAUSIBLE, SOLVABLE
 from xo_fit.job.reading import (Reader, Context, is_length)
 
 def format_ohms(v: float) -> str:

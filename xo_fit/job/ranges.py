@@ -4,6 +4,8 @@ holds, and the name rule (docs/job-format.md gives each)."""
 from __future__ import annotations
 
 import re
+from collections.abc import Mapping
+from types import MappingProxyType
 
 
 #: The frequency range a grid may span, Hz (beyond it the arithmetic of a loudspeaker model loses meaning).
@@ -39,6 +41,27 @@ RATING = (1e-6, 1e6)
 
 #: Plausible ranges of a voltage (V) and of a flat driver's level (dB SPL).
 VOLTS = (1e-6, 1e4)
+
+
+#: What drivers and boxes have, SI (common practice, from a tweeter's dome to a large woofer's cone): a value
+#: outside is legal but earns a warning, since it is usually a slip of the unit (``vas = 60`` is 60 m^3).
+TS_PLAUSIBLE: Mapping[str, tuple[float, float]] = MappingProxyType({
+    "re": (0.5, 100.0), "le": (0.0, 0.05), "fs": (5.0, 20000.0), "qms": (0.3, 100.0), "qes": (0.05, 20.0),
+    "qts": (0.05, 5.0), "vas": (1e-6, 3.0), "sd": (1e-5, 0.5), "bl": (0.5, 50.0), "mms": (1e-5, 1.0),
+    "cms": (1e-6, 0.01), "rms": (0.01, 100.0), "xmax": (1e-5, 0.05), "power": (0.1, 1e4), "l2": (0.0, 0.05),
+    "r2": (0.01, 1e4), "volume": (1e-4, 3.0), "tuning": (5.0, 1000.0), "ql": (1.0, 100.0)})
+
+
+#: What the parts of a loudspeaker crossover take, by type (SI): resistors from a fraction of an ohm (a
+#: coil's copper, a series pad) to some kilohms; coils from a few microhenry to tens of millihenry; capacitors
+#: from a few nanofarad (a tweeter's bypass) to some millifarad (a woofer's bass-shelf network). A value
+#: outside is legal but usually a slip of the unit ("10" for a capacitor is 10 F).
+PLAUSIBLE = {"R": (0.01, 1e5), "L": (1e-6, 0.1), "C": (1e-9, 0.01)}
+
+
+#: Part values the arithmetic can take (SI): far outside what any part is, and inside what float64 divides
+#: without overflow (a denormal resistance would make an infinite admittance).
+SOLVABLE = (1e-12, 1e12)
 
 
 #: The name rule, one for each kind of name. The patterns are anchored with \A and \Z (``$`` would match before a

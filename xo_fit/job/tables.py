@@ -17,7 +17,8 @@ from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_H
                               FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec,
                               position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec,
                               StressSpec)
-from xo_fit.job.model import TS_PLAUSIBLE, TS_UNITS, BoxSpec, ModelImpedance
+from xo_fit.job.model import TS_UNITS, BoxSpec, ModelImpedance
+from xo_fit.job.ranges import TS_PLAUSIBLE
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice, close_match)
 from xo_fit.job.baffle import read_radius
 from xo_fit.job.placement import ABOUTS, read_about, read_position

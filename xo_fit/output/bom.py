@@ -22,9 +22,9 @@ DEFAULT_SPEAKERS = 2
 
 def _needs(design) -> dict[str, tuple[float, str]]:
     """Rating each part needs (value, unit) at the job's drive level; empty without [stress] power."""
-    if design.stress is None:  # no [stress] power; else the design's stress report, computed once and kept
+    st = design.stress_report  # computed once and kept by the design
+    if st is None:  # no [stress] power
         return {}
-    st = design.info["stress_report"]
     out = {}
     for p in st.parts:
         if p.kind == "R":

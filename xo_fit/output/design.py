@@ -1,26 +1,31 @@
 """Designs as values: a scored design (:class:`Design`) and a tolerance spread (:class:`Spread`).
 
 A :class:`Design` is one set of part values of a job, simulated and scored,
-with what the stage that made it adds (search figures, snap choices). It knows
-how to become its result.json document (:meth:`Design.to_json`) and how to
-write what the command line writes (:meth:`Design.save`). :func:`load_result`
-rebuilds a design from a result.json alone: the result carries the resolved
-job document and the job's folder (relative to the result and absolute), so a
-moved result folder or a batch variant's result loads like any other.
+with what the stage that made it adds (search figures, snap choices) as typed
+fields. What is worked out of it (the stresses, the protection, the limits,
+the error breakdown, the findings, the off-axis curves) is computed on first
+use and kept: a design is a value, its analysis a function of it.
+Turning it into files lives beside it: :mod:`xo_fit.output.saving` writes a
+design's result.json and tables (:meth:`Design.to_json` and :meth:`Design.save`
+call it), and :mod:`xo_fit.output.loading` rebuilds a design from a result.json
+(:func:`~xo_fit.output.loading.load_result`).
 """
 
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from xo_fit.constants import RESULT_FORMAT
-from xo_fit.errors import DataError, XoFitError
+if TYPE_CHECKING:
+    from xo_fit.model.stress import StressReport
+    from xo_fit.search.fitting import FitOutcome, Scored
+    from xo_fit.stages.snapping import SnapOutcome
+    from xo_fit.stages.tolerance import SpreadResult
 
 #: A stress this far over its limit (0.5 %, 0.02 dB) still counts as within the rating: the fit's quadratic
 #: stress term approaches a limit from outside, and no part rating is that exact.
@@ -29,21 +34,35 @@ RATING_TOLERANCE = 0.005
 LIMIT_LOG_DISTANCE = math.log(1.01)
 
 
-def _version() -> str:
-    from xo_fit import __version__
-
-    return __version__
-
-
 @dataclass(eq=False)
 class Design:
     """One design of a job: part values, their simulation and score, and what its stage adds.
 
-    ``system`` is the loaded job (:class:`~xo_fit.model.system.System`), ``scored`` the simulation and cost
-    (:class:`~xo_fit.search.fitting.Scored`), ``stage`` one of "simulate", "fit", "snap", "spread"; ``sections``
-    are the stage's own result.json sections (``search``, ``snap``, ...) and ``source`` the provenance extras
-    (``from``, ``inventory``); ``part_info`` adds entries per part (a snap's series, source and combination);
-    ``info`` holds objects for the console and is never saved.
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    scored : Scored
+        The simulation and cost of the values (:class:`~xo_fit.search.fitting.Scored`).
+    stage : str
+        "simulate", "fit", "snap", "spread" or "prune" (a loaded result: the stage it names).
+    sections : dict
+        The stage's own result.json sections (``search``, ``snap``, ...).
+    source : dict
+        Provenance extras for result.json's ``source`` (``from``, ``inventory``).
+    part_info : dict
+        Entries added to result.json's ``parts.NAME`` (a snap's series, source and combination).
+    label : str or None
+        The design's name in a report.
+    tables : dict
+        Extra CSV files written with the design: file name -> rows (dicts).
+    outcome : FitOutcome or SnapOutcome or None
+        A fit's search (:class:`~xo_fit.search.fitting.FitOutcome`) or a snap's choices
+        (:class:`~xo_fit.stages.snapping.SnapOutcome`), for the console; never saved.
+    runs : list of dict or None
+        A fit with several worker processes: each process's seed, evaluations and cost.
+    before : Scored or None
+        A snap's continuous design, scored (drawn in grey under the snapped one in response.png).
     """
 
     system: Any
@@ -52,9 +71,11 @@ class Design:
     sections: dict = field(default_factory=dict)
     source: dict = field(default_factory=dict)
     part_info: dict = field(default_factory=dict)
-    info: dict = field(default_factory=dict)
     label: str | None = None
-    tables: dict = field(default_factory=dict)  # extra CSV files written with the design: name -> rows (dicts)
+    tables: dict = field(default_factory=dict)
+    outcome: FitOutcome | SnapOutcome | None = None
+    runs: list[dict] | None = None
+    before: Scored | None = None
 
     # ------------------------------------------------------------------ figures
 
@@ -102,20 +123,34 @@ class Design:
                 out[p.name] = "max"
         return out
 
-    @property
+    @cached_property
     def hard_limits(self) -> dict | None:
         """result.json's ``limits``: each [limits] limit against this design (:mod:`xo_fit.output.limits`), or
         None without a [limits] table."""
-        if "hard_limits" not in self.info:
-            from xo_fit.output.limits import limit_figures
+        from xo_fit.output.limits import limit_figures
 
-            self.info["hard_limits"] = limit_figures(self)
-        return self.info["hard_limits"]
+        return limit_figures(self)
+
+    @cached_property
+    def breakup(self) -> list[tuple[str, float, float]]:
+        """(way, Hz, dB under the level) of each way's loudest stop-band point under the job's breakup rule
+        (:func:`xo_fit.output.limits.rule_db`); empty without way targets."""
+        from xo_fit.output.limits import breakup_points_of, rule_db
+
+        return breakup_points_of(self, rule_db(self.job))
+
+    @cached_property
+    def idle(self) -> list[dict]:
+        """``idle`` findings: parts whose removal costs (almost) nothing (:func:`xo_fit.stages.removal.idle_parts`)."""
+        from xo_fit.stages.removal import idle_parts
+
+        return idle_parts(self.system, self.scored.values, self.scored.cost)
 
     @property
     def findings(self) -> list[dict]:
         """What a designer should look at: unmet limits first, parts resting on a range limit, a load below the
         floor, breakup within 20 dB of the level."""
+        from xo_fit.output.cautions import protection_findings
         from xo_fit.output.limits import breakup_findings, limit_findings
         from xo_fit.units import format_value
 
@@ -133,13 +168,7 @@ class Design:
                                 "a short across the source or a driver): give the parts their resistance (dcr, esr) "
                                 "or move the values"})
         if self.stage in ("simulate", "fit", "snap", "prune"):
-            if "idle" not in self.info:
-                from xo_fit.stages.removal import idle_parts
-
-                self.info["idle"] = idle_parts(self.system, self.scored.values, self.scored.cost)
-            out += self.info["idle"]
-        from xo_fit.output.cautions import protection_findings
-
+            out += self.idle
         out += protection_findings(self.protection, self.job.stress)
         floor = self.job.cost.impedance_min
         zmin = self.scored.metrics.get("impedance_min_ohm")
@@ -178,30 +207,33 @@ class Design:
                                         "degrees of error there; measure further out, or extend the data"})
         return out
 
-    @property
+    @cached_property
     def breakdown(self) -> dict | None:
         """Where the error lies: per way, per crossover region and for the sum (rms, worst and where), or None
         without way targets (see :meth:`xo_fit.model.cost.CostModel.breakdown`)."""
-        if "breakdown" not in self.info:
-            from xo_fit.search.fitting import cost_model
+        from xo_fit.search.fitting import cost_model
 
-            model = cost_model(self.system)
-            self.info["breakdown"] = model[0].breakdown(self.scored.values) if model else None
-        return self.info["breakdown"]
+        model = cost_model(self.system)
+        return model[0].breakdown(self.scored.values) if model else None
 
-    @property
-    def stress(self) -> dict | None:
-        """Part stresses at the job's [stress] drive (sine worst case; programme power for resistors), or None;
-        the stress report itself is kept in ``info["stress_report"]``."""
+    @cached_property
+    def stress_report(self) -> StressReport | None:
+        """The part stresses at the job's [stress] drive (:func:`xo_fit.model.stress.stresses`: each part's sine
+        worst case and where, a resistor's programme power, the lowest EPDR), or None without [stress] power."""
         spec = self.job.stress
         if not spec.power:
             return None
         from xo_fit.model.stress import stresses
 
-        st = self.info.get("stress_report")
+        return stresses(self.system, self.scored.values, spec.power, spec.rated_impedance)
+
+    @property
+    def stress(self) -> dict | None:
+        """result.json's ``stress``: per part its figure (W, V or A), where, a resistor's programme power and,
+        with a rating, whether it is within it; None without [stress] power (see :attr:`stress_report`)."""
+        st = self.stress_report
         if st is None:
-            st = stresses(self.system, self.scored.values, spec.power, spec.rated_impedance)
-            self.info["stress_report"] = st
+            return None
         out = {}
         for p in st.parts:
             e = {"figure": p.sine_worst, "unit": p.unit, "at_hz": p.at_hz}
@@ -216,15 +248,13 @@ class Design:
             out[p.name] = e
         return out
 
-    @property
+    @cached_property
     def protection(self) -> dict | None:
         """Each protected driver's peak excursion and programme power at the job's [stress] drive against its
         xmax and rating (:func:`xo_fit.model.protection.protection`), or None where nothing is judged."""
-        if "protection" not in self.info:
-            from xo_fit.model.protection import protection
+        from xo_fit.model.protection import protection
 
-            self.info["protection"] = protection(self.system, self.scored.sim.voltages)
-        return self.info["protection"]
+        return protection(self.system, self.scored.sim.voltages)
 
     @property
     def response(self):
@@ -234,6 +264,7 @@ class Design:
         return pd.DataFrame(self.response_table().columns)
 
     def response_table(self):
+        """The response.csv table (:func:`xo_fit.output.tables.response_table`) of this design."""
         from xo_fit.search.fitting import target_db
         from xo_fit.output.tables import response_table
 
@@ -242,18 +273,20 @@ class Design:
         return response_table(self.system.frequencies, names, s.sim.pressure[0], s.sim.total[0], s.sim.impedance[0],
                               target_db(s))
 
+    @cached_property
+    def _off_axis(self) -> tuple | None:
+        if not self.system.positions:
+            return None
+        from xo_fit.model.acoustics import angle_pressures, curve_weights, directivity
+
+        p = angle_pressures(self.scored.sim.voltages[:1], self.system.angle_factors)  # (1, A, F)
+        curves = directivity(np.abs(p) ** 2, curve_weights(self.system.positions))
+        return self.system.positions, p[0], {k: v[0] for k, v in curves.items()}
+
     def off_axis(self) -> tuple | None:
         """An off-axis job's curves of this design: (positions, summed pressure at each, complex Pa (A, F),
         the ANSI/CTA-2034-A curves in Pa^2 (F,) each); None on axis."""
-        if not self.system.positions:
-            return None
-        if "off_axis" not in self.info:
-            from xo_fit.model.acoustics import angle_pressures, curve_weights, directivity
-
-            p = angle_pressures(self.scored.sim.voltages[:1], self.system.angle_factors)  # (1, A, F)
-            curves = directivity(np.abs(p) ** 2, curve_weights(self.system.positions))
-            self.info["off_axis"] = (self.system.positions, p[0], {k: v[0] for k, v in curves.items()})
-        return self.info["off_axis"]
+        return self._off_axis
 
     @property
     def directivity(self):
@@ -276,76 +309,25 @@ class Design:
         f = self.system.frequencies
         return {"directivity.csv": directivity_table(f, curves), "angles.csv": angles_table(f, positions, p)}
 
-    # ------------------------------------------------------------------ files
+    # ------------------------------------------------------------------ files (xo_fit.output.saving)
 
     def to_json(self, folder: str | Path | None = None) -> dict:
         """The result.json document; ``folder`` is where it will live (for the job folder relative to it)."""
-        from xo_fit.io.results import part_entries
+        from xo_fit.output.saving import result_document
 
-        job = self.job
-        s = self.scored
-        parts = part_entries(self.system.part_names, tuple(p.unit for p in job.valued_parts), s.values)
-        for name, side in self.limits.items():
-            parts[name]["limit"] = side
-        for name, extra in self.part_info.items():
-            parts[name].update(extra)
-        metrics = dict(s.metrics)
-        stress = self.stress
-        if stress is not None:
-            st = self.info["stress_report"]
-            metrics["epdr_min_ohm"] = st.epdr_min_ohm
-            metrics["epdr_min_hz"] = st.epdr_min_hz
-        doc: dict = {"xo_fit_version": _version(), "format": RESULT_FORMAT, "job": job.name, "stage": self.stage}
-        if self.hard_limits is not None:
-            doc["limits"] = self.hard_limits
-        doc.update({"parts": parts, "cost": s.cost, "cost_terms": dict(s.terms), "metrics": metrics})
-        if s.level_db is not None:
-            doc["level_db"] = s.level_db
-        if s.preference is not None:
-            doc["preference"] = s.preference
-        doc["findings"] = self.findings
-        if self.breakdown is not None:
-            doc["error_breakdown"] = self.breakdown
-        if stress is not None:
-            doc["stress"] = stress
-        if self.protection is not None:
-            doc["protection"] = self.protection
-        doc.update(self.sections)
-        source = {"job": str(job.path) if job.path else None, "folder": str(job.folder)}
-        if folder is not None:
-            source["job_folder"] = os.path.relpath(job.folder, Path(folder).resolve())
-        source.update(self.source)
-        source["document"] = job.data
-        doc["source"] = source
-        return doc
+        return result_document(self, folder)
 
     def save(self, folder: str | Path, *, plots: bool = True, title: str | None = None,
              home: str | Path | None = None) -> list[Path]:
         """Write result.json, response.csv and (with plots) response.png into ``folder``; returns the paths.
 
         ``home`` is the folder the files will finally live in, when it is not ``folder`` (a batch worker
-        writes into a private folder whose files the coordinator moves).
+        writes into a private folder whose files the coordinator moves). See
+        :func:`xo_fit.output.saving.save_design`.
         """
-        from xo_fit.io.results import make_folder, write_csv, write_json, write_rows
+        from xo_fit.output.saving import save_design
 
-        folder = make_folder(folder)
-        write_json(folder / "result.json", self.to_json(home if home is not None else folder))
-        write_csv(folder / "response.csv", self.response_table())
-        written = [folder / "result.json", folder / "response.csv"]
-        for name, table in self.directivity_tables().items():
-            write_csv(folder / name, table)
-            written.append(folder / name)
-        for name, rows in self.tables.items():
-            write_rows(folder / name, rows)
-            written.append(folder / name)
-        if plots:
-            from xo_fit.output.plots import plot_design
-
-            compare = self.info.get("compare")
-            plot_design(folder / "response.png", self.system, self.scored,
-                        title=title or f"{self.job.name}: {self.stage}", compare=compare)
-            written.append(folder / "response.png")
-        return written
+        return save_design(self, folder, plots=plots, title=title, home=home)
 
 
 @dataclass(eq=False)
@@ -361,7 +343,7 @@ class Spread:
     design: Design
     section: dict
     columns: dict
-    result: Any = None
+    result: SpreadResult | None = None
 
     @property
     def yield_band(self) -> float:
@@ -395,123 +377,8 @@ class Spread:
         return self.design.to_json(folder)
 
     def save(self, folder: str | Path, *, plots: bool = True, home: str | Path | None = None) -> list[Path]:
-        """Write result.json, response.csv, spread.csv and (with plots and a computed result) spread.png."""
-        from xo_fit.io.results import Table, write_csv
+        """Write result.json, response.csv, spread.csv and (with plots and a computed result) spread.png (see
+        :func:`xo_fit.output.saving.save_spread`)."""
+        from xo_fit.output.saving import save_spread
 
-        folder = Path(folder)
-        files = self.design.save(folder, plots=False, home=home)
-        write_csv(folder / "spread.csv", Table(self.columns))
-        files.append(folder / "spread.csv")
-        if plots and self.result is not None:
-            from xo_fit.output.plots import plot_spread
-
-            job = self.design.job
-            plot_spread(folder / "spread.png", self.design.system, self.design.scored, self.result,
-                        title=f"{job.name}: p05-p95 over {self.result.samples} builds")
-            files.append(folder / "spread.png")
-        return files
-
-
-# ----------------------------------------------------------------------------- loading results
-
-
-#: Sections recomputed when a result is loaded (everything else is kept as the stage wrote it).
-_RECOMPUTED = {"xo_fit_version", "format", "job", "stage", "parts", "cost", "cost_terms", "metrics", "level_db",
-               "findings", "stress", "source", "error_breakdown", "protection", "limits"}
-#: Entries of parts.NAME recomputed when a result is loaded.
-PART_RECOMPUTED = {"value", "unit", "text", "limit"}
-
-
-def job_of_result(doc: dict, folder: Path, path: Path):
-    """The job a result was made from: rebuilt from its resolved document, data found relative to the result
-    (as the folders stood when it was written) or at the job folder's absolute path; or, for a result written
-    before format 2, read from the job file it names."""
-    from xo_fit.job.reader import load_job
-    from xo_fit.model.system import load_system
-
-    src = doc.get("source") or {}
-    document = src.get("document")
-    if not isinstance(document, dict):
-        job_file = src.get("job")
-        if not job_file:
-            raise DataError("the result names no job (source.document or source.job); make it with xo-fit",
-                            path=path, key="source")
-        return load_system(load_job(job_file))
-    bases = []
-    if isinstance(src.get("job_folder"), str):
-        bases.append((folder / src["job_folder"]).resolve())
-    if isinstance(src.get("folder"), str):
-        bases.append(Path(src["folder"]))
-    if not bases:
-        bases.append(folder)
-    first: XoFitError | None = None
-    for base in dict.fromkeys(bases):
-        try:
-            return load_system(load_job(document, base=base))
-        except XoFitError as e:
-            first = first or e
-    raise DataError(f"cannot rebuild the result's job: {first} (looked for its data in "
-                    f"{' and '.join(str(b) for b in dict.fromkeys(bases))})", path=path, key="source") from None
-
-
-def spread_columns(table: Path, f: np.ndarray) -> dict[str, np.ndarray]:
-    """The columns of a spread.csv (each (F,)), checked against the result's grid ``f`` (F,) in Hz: a DataError
-    naming the file for a missing or short table, a cell that is no finite number, a column the report needs."""
-    import csv
-
-    from xo_fit.errors import read_user_text
-
-    if not table.exists():
-        raise DataError("a spread result needs its spread.csv beside it", path=table)
-    rows = list(csv.reader(read_user_text(table, "spread table").splitlines()))
-    if len(rows) < 2:
-        raise DataError("spread.csv holds no rows", path=table)
-    head, body = rows[0], rows[1:]
-    need = ["frequency_hz", "sum_p05_db", "sum_p50_db", "sum_p95_db"]
-    if [h for h in need if h not in head] or len(set(head)) != len(head):
-        raise DataError(f"spread.csv: expected the columns {', '.join(need)}, ... once each, got {head[:12]!r}",
-                        path=table, line=1)
-    if len(body) != f.size:
-        raise DataError(f"spread.csv holds {len(body)} rows; the result's grid has {f.size} points", path=table)
-    data = np.full((len(body), len(head)), np.nan)
-    for i, r in enumerate(body):
-        if len(r) != len(head):
-            raise DataError(f"expected {len(head)} cells, got {len(r)}", path=table, line=i + 2)
-        for k, x in enumerate(r):
-            try:
-                data[i, k] = float(x) if x != "" else np.nan
-            except ValueError:
-                raise DataError(f"{head[k]}: {x[:40]!r} is not a number", path=table, line=i + 2) from None
-            if np.isinf(data[i, k]):
-                raise DataError(f"{head[k]}: {x[:40]!r} is not a finite number", path=table, line=i + 2)
-    if not np.allclose(data[:, 0], f, rtol=1e-4, atol=0):
-        raise DataError("spread.csv's frequencies are not the result's grid", path=table)
-    return {h: data[:, k] for k, h in enumerate(head)}
-
-
-def load_result(path: str | Path, *, system=None) -> Design | Spread:
-    """A result.json (or its folder) as a :class:`Design`, or a :class:`Spread` for a spread result.
-
-    The design is rebuilt and re-scored from the result alone (see :func:`job_of_result`); ``system``
-    reuses an already loaded job instead.
-    """
-    from xo_fit.search.fitting import score
-    from xo_fit.io.results import read_result, result_values
-
-    path = Path(path)
-    doc = read_result(path)
-    folder = path if path.is_dir() else path.parent
-    file = folder / "result.json" if path.is_dir() else path
-    system = system if system is not None else job_of_result(doc, folder, file)
-    values = system.values(result_values(doc, system.part_names, file))
-    part_info = {n: {k: v for k, v in e.items() if k not in PART_RECOMPUTED}
-                 for n, e in doc["parts"].items() if isinstance(e, dict)}
-    part_info = {n: e for n, e in part_info.items() if e}
-    source = {k: v for k, v in (doc.get("source") or {}).items() if k in ("from", "inventory")}
-    design = Design(system=system, scored=score(system, values), stage=str(doc.get("stage", "result")),
-                    sections={k: v for k, v in doc.items() if k not in _RECOMPUTED}, source=source,
-                    part_info=part_info, label=str(doc.get("stage", "result")))
-    if design.stage != "spread":
-        return design
-    columns = spread_columns(folder / "spread.csv", system.frequencies)
-    return Spread(design=design, section=dict(doc.get("spread") or {}), columns=columns)
+        return save_spread(self, folder, plots=plots, home=home)

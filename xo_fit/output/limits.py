@@ -23,25 +23,23 @@ MET_TOLERANCE = 1e-6
 MET_TOLERANCE_DB = 1e-4
 
 
-def _breakup(design, rule_db: float) -> list[tuple[str, float, float]]:
-    """(way, Hz, dB under the level) of each way's loudest stop-band point under the rule ``rule_db``."""
-    key = ("breakup", rule_db)
-    if key not in design.info:
-        from xo_fit.model.acoustics import spl_db
-        from xo_fit.model.limits import breakup_points
-        from xo_fit.search.fitting import cost_model
+def breakup_points_of(design, rule_db: float) -> list[tuple[str, float, float]]:
+    """(way, Hz, dB under the level) of each way's loudest stop-band point under the rule ``rule_db`` (dB), for a
+    :class:`~xo_fit.output.design.Design`; empty without way targets. The design keeps its own under the job's
+    rule as :attr:`~xo_fit.output.design.Design.breakup`."""
+    from xo_fit.model.acoustics import spl_db
+    from xo_fit.model.limits import breakup_points
+    from xo_fit.search.fitting import cost_model
 
-        model = cost_model(design.system) if design.scored.level_db is not None else None
-        out = []
-        if model is not None:
-            cm = model[0]
-            p_db = spl_db(design.scored.sim.pressure[0][:, cm.band])
-            names = [d.name for d in design.job.drivers]
-            out = [(names[k], f, under) for k, f, under in
-                   breakup_points(cm.t_way_db, cm.has_way, p_db, design.scored.level_db,
-                                  design.system.frequencies[cm.band], rule_db)]
-        design.info[key] = out
-    return design.info[key]
+    model = cost_model(design.system) if design.scored.level_db is not None else None
+    if model is None:
+        return []
+    cm = model[0]
+    p_db = spl_db(design.scored.sim.pressure[0][:, cm.band])
+    names = [d.name for d in design.job.drivers]
+    return [(names[k], f, under) for k, f, under in
+            breakup_points(cm.t_way_db, cm.has_way, p_db, design.scored.level_db,
+                           design.system.frequencies[cm.band], rule_db)]
 
 
 def rule_db(job) -> float:
@@ -66,8 +64,8 @@ def limit_figures(design) -> dict | None:
         out["ratings"] = _ratings(design)
     if lim.protection:
         out["protection"] = _protection(design)
-    if lim.breakup_db > 0:
-        ways = _breakup(design, lim.breakup_db)
+    if lim.breakup_db > 0:  # the job's rule (:func:`rule_db`), the one the design keeps its breakup points for
+        ways = design.breakup
         e = {"limit": lim.breakup_db, "worst": None, "at_hz": None, "met": True, "unit": "dB under the level"}
         if ways:
             way, f, under = min(ways, key=lambda w: w[2])
@@ -153,7 +151,7 @@ def breakup_findings(design) -> list[dict]:
     and the margin (common practice: breakup more than 20 dB under the average level is inaudible)."""
     rule = rule_db(design.job)
     out = []
-    for way, f, under in _breakup(design, rule):
+    for way, f, under in design.breakup:  # under the rule ``rule``
         if under < rule - MET_TOLERANCE_DB:
             out.append({"kind": "breakup", "part": None, "way": way, "at_hz": f, "margin_db": under - rule,
                         "text": f"{way}'s output outside its pass band comes within {under:.1f} dB of the level at "

@@ -31,13 +31,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import XoFitError
+from xo_fit.job.model import BoxSpec
 from .thiele_small import ThieleSmallSet
 
 #: Box kinds.
 KINDS = ("none", "closed", "vented")
-#: Leakage quality of a vented box when none is given: 7, common practice (Small 1973 reports QL of about 5 to 20
-#: for real boxes; the range is recalled, not checked against the text).
-DEFAULT_QL = 7.0
+#: Leakage quality of a vented box when none is given: the job's ``[driver.NAME.box] ql`` default
+#: (:class:`xo_fit.job.model.BoxSpec`, where it is declared and sourced).
+DEFAULT_QL: float = BoxSpec.ql
 
 
 @dataclass(frozen=True)

@@ -222,18 +222,43 @@ def fit_vented(frequency: np.ndarray, impedance_ohm: np.ndarray, *, lossy: bool 
         No peak or one peak (not a vented box), a fit that does not converge, ends with fs, fb, alpha or the
         Q factors on the limit of what a driver can have, or misses by more than RMS_FAIL_PCT rms.
     """
-    from scipy.optimize import least_squares
-
     f0, z0, phase = _inputs(frequency, impedance_ohm, path)
     if volume is not None and not (isinstance(volume, (int, float)) and math.isfinite(volume) and volume > 0):
         raise DataError(f"the box volume must be above zero, got {volume!r}", path=path)
     f, z, weight = _grid(f0, z0, phase)
-    mag = np.abs(z)
-    start, remark = _start(f, mag, path)
-    remarks = [remark] if remark else []
+    start, remark = _start(f, np.abs(z), path)
     names = _NAMES + (_LOSSY if lossy else ())
-    lo = np.log([_BOUNDS[n][0] for n in names])
-    hi = np.log([_BOUNDS[n][1] for n in names])
+    best = _solve(names, start, f, z, weight, phase, lossy, path)
+    x = best.x
+    v = dict(zip(names, np.exp(x).tolist()))
+    err = _errors(names, x, f, z, phase)
+    rms = 100.0 * float(np.sqrt(np.mean((weight * err) ** 2)))
+    i = int(np.argmax(err))
+    at_bound = _at_bound(names, x, v, f, rms, path)
+    remarks = ([remark] if remark else []) + _remarks(at_bound, rms, lossy)
+    where = f"{path}: " if path else ""
+    return VentedFit(re=v["re"], le=v["le"], fs=v["fs"], qms=v["qms"], qes=v["qes"], alpha=v["alpha"],
+                     fb=v["fb"], ql=v["ql"], l2=v.get("l2", 0.0), r2=v.get("r2", 0.0), volume=volume,
+                     vas=None if volume is None else v["alpha"] * volume, rms_error_pct=rms,
+                     max_error_pct=100.0 * float(err[i]), max_error_hz=float(f[i]),
+                     f_range=(float(f[0]), float(f[-1])), points=int(f.size), used_phase=phase,
+                     warnings=tuple(where + r for r in remarks))
+
+
+def _log_bounds(names: tuple[str, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """The fit's bounds on the log parameters ``names`` (lower, upper), each (N,)."""
+    return np.log([_BOUNDS[n][0] for n in names]), np.log([_BOUNDS[n][1] for n in names])
+
+
+def _solve(names: tuple[str, ...], start: dict, f: np.ndarray, z: np.ndarray, weight: np.ndarray, phase: bool,
+           lossy: bool, path):
+    """The least-squares fit of the log parameters ``names`` to ``z`` (F,) at ``f`` (F,) Hz, weighted by
+    ``weight`` (F,): the best of three starts (QL 7, 30 and 3; with the lossy coil, three splits of the start's
+    Le into Le and L2), as scipy's OptimizeResult. Raises DataError when none converges."""
+    from scipy.optimize import least_squares
+
+    mag = np.abs(z)
+    lo, hi = _log_bounds(names)
 
     def residual(x: np.ndarray) -> np.ndarray:
         zm = _model(names, x, f)
@@ -257,12 +282,22 @@ def fit_vented(frequency: np.ndarray, impedance_ohm: np.ndarray, *, lossy: bool 
         why = "no finite result" if best is None else best.message
         raise DataError(f"the vented fit did not converge ({why}); is the file a driver's impedance in ohm, in a "
                         "vented box, with both peaks inside?", path=path)
-    v = dict(zip(names, np.exp(best.x).tolist()))
-    zm = _model(names, best.x, f)
-    err = np.abs(zm - z) / mag if phase else np.abs(np.abs(zm) - mag) / mag
-    rms = 100.0 * float(np.sqrt(np.mean((weight * err) ** 2)))
-    i = int(np.argmax(err))
-    at_bound = [n for n, x, a, b in zip(names, best.x, lo, hi) if x - a < 1e-3 or b - x < 1e-3]
+    return best
+
+
+def _errors(names: tuple[str, ...], x: np.ndarray, f: np.ndarray, z: np.ndarray, phase: bool) -> np.ndarray:
+    """The fitted model's relative error at each point (F,): |Z_model - Z|/|Z| (| |Z_model| - |Z| |/|Z| without
+    phase)."""
+    mag = np.abs(z)
+    zm = _model(names, x, f)
+    return np.abs(zm - z) / mag if phase else np.abs(np.abs(zm) - mag) / mag
+
+
+def _at_bound(names: tuple[str, ...], x: np.ndarray, v: dict, f: np.ndarray, rms: float, path) -> list[str]:
+    """The parameters that ended on a bound; a DataError where one of them must fit (:data:`_MUST_FIT`), the
+    tuning lies outside the file or the rms error (%) is above :data:`RMS_FAIL_PCT`."""
+    lo, hi = _log_bounds(names)
+    at_bound = [n for n, xn, a, b in zip(names, x, lo, hi) if xn - a < 1e-3 or b - xn < 1e-3]
     pinned = [n for n in at_bound if n in _MUST_FIT]
     if pinned or not f[0] <= v["fb"] <= f[-1]:
         why = (f"{', '.join(pinned)} ended on the limit of what a driver can have" if pinned
@@ -270,16 +305,16 @@ def fit_vented(frequency: np.ndarray, impedance_ohm: np.ndarray, *, lossy: bool 
         raise DataError(f"no vented-box model fits this file: {why}", path=path)
     if rms > RMS_FAIL_PCT:
         raise DataError(f"no vented-box model fits this file (rms error {rms:.0f} % of |Z| at best)", path=path)
+    return at_bound
+
+
+def _remarks(at_bound: list[str], rms: float, lossy: bool) -> list[str]:
+    """The warnings of a fit that holds: parameters on a bound, an rms error (%) above :data:`RMS_WARN_PCT`."""
+    remarks = []
     if at_bound:
         remarks.append(f"the fit ended on the limit of {', '.join(at_bound)}; the data say little of it "
                        "(a nearly lossless box leaves ql undetermined)")
     if rms > RMS_WARN_PCT:
         remarks.append(f"the vented model fits with {rms:.1f} % rms error (above {RMS_WARN_PCT:g} %); it does "
                        "not describe this driver well" + ("" if lossy else "; try the lossy coil"))
-    where = f"{path}: " if path else ""
-    return VentedFit(re=v["re"], le=v["le"], fs=v["fs"], qms=v["qms"], qes=v["qes"], alpha=v["alpha"],
-                     fb=v["fb"], ql=v["ql"], l2=v.get("l2", 0.0), r2=v.get("r2", 0.0), volume=volume,
-                     vas=None if volume is None else v["alpha"] * volume, rms_error_pct=rms,
-                     max_error_pct=100.0 * float(err[i]), max_error_hz=float(f[i]),
-                     f_range=(float(f[0]), float(f[-1])), points=int(f.size), used_phase=phase,
-                     warnings=tuple(where + r for r in remarks))
+    return remarks

@@ -152,8 +152,7 @@ def write_report(items: list, out: Path, command: list[str] | None = None, *, bu
     rep.buy, rep.buy_reason = choose_buy(rep.items, buy)
     if rep.buy is not None:
         rep.bom = bom_rows(rep.buy.design, rep.speakers)
-    if rep.build.design.stress is not None:  # with [stress] power: computes and keeps the stress report
-        rep.stress = rep.build.design.info["stress_report"]
+    rep.stress = rep.build.design.stress_report  # None without [stress] power
     rep.figures = figures(rep.items)
     rep.drawing = draw(rep.build.job, rep.build.design.values)
     from xo_fit.io.results import make_folder
