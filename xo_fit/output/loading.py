@@ -105,8 +105,26 @@ def load_result(path: str | Path, *, system=None) -> Design | Spread:
     """A result.json (or its folder) as a :class:`~xo_fit.output.design.Design`, or a
     :class:`~xo_fit.output.design.Spread` for a spread result.
 
-    The design is rebuilt and re-scored from the result alone (see :func:`job_of_result`); ``system``
-    reuses an already loaded job instead.
+    The design is rebuilt and re-scored from the result alone (see :func:`job_of_result`).
+
+    Parameters
+    ----------
+    path : str or Path
+        The result.json file, or the folder that holds it.
+    system : System, optional
+        An already loaded job (:class:`~xo_fit.model.system.System`) to score the values on instead of the
+        job the result carries.
+
+    Returns
+    -------
+    Design or Spread
+        The design with its part values (SI: ohm, H, F) re-scored; a ``Spread`` (its design, the spread
+        section and spread.csv's curves on the job's grid, (F,) each) when the result's stage is "spread".
+
+    Raises
+    ------
+    XoFitError
+        The file is missing, not a result, damaged, or names parts the job does not have.
     """
     from xo_fit.search.fitting import score
     from xo_fit.io.results import read_result, result_values
