@@ -9,7 +9,6 @@ that the result's provenance points at the job from there.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -17,6 +16,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from xo_fit import api
+from xo_fit.output.saving import write_design, write_spread
 
 if TYPE_CHECKING:
     from xo_fit.output.design import Design, Spread
@@ -45,11 +45,6 @@ class StageOutput:
         return self.document.get("metrics", {})
 
 
-def _output(design: Design, out: Path, files: list[Path], spread: Spread | None = None) -> StageOutput:
-    doc = json.loads((out / "result.json").read_text(encoding="utf-8"))
-    return StageOutput(design.stage, doc, files, design, spread)
-
-
 def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time_limit=None, workers: int = 1,
               plots: bool = True, progress=None, home: Path | None = None) -> StageOutput:
     """Fit ``system`` (:func:`xo_fit.api.fit`) and save the result into folder ``out``.
@@ -59,8 +54,8 @@ def fit_stage(system, out: Path, *, optimizer=None, budget=None, seed=None, time
     """
     d = api.fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit, workers=workers,
                 progress=progress)
-    files = d.save(out, plots=plots, title=f"{system.job.name}: fit", home=home)
-    return _output(d, out, files)
+    doc, files = write_design(d, out, plots=plots, title=f"{system.job.name}: fit", home=home)
+    return StageOutput(d.stage, doc, files, d)
 
 
 def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=None, inventory=None, combine=None,
@@ -74,8 +69,9 @@ def snap_stage(system, out: Path, continuous: np.ndarray, *, series_override=Non
                  top_up=top_up)
     d.source["from"] = source_from
     d.tables["bom.csv"] = bom_rows(d, speakers)
-    files = d.save(out, plots=plots, title=f"{system.job.name}: snapped (grey: continuous)", home=home)
-    return _output(d, out, files)
+    doc, files = write_design(d, out, plots=plots, title=f"{system.job.name}: snapped (grey: continuous)",
+                              home=home)
+    return StageOutput(d.stage, doc, files, d)
 
 
 def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=None, plots: bool = True,
@@ -87,5 +83,5 @@ def spread_stage(system, out: Path, nominal: np.ndarray, *, samples=None, seed=N
     sp = api.spread(system, values, samples=samples, seed=seed, progress=progress)
     sp.design.source["from"] = source_from
     sp.design.part_info = dict(part_info or {})
-    files = sp.save(out, plots=plots, home=home)
-    return _output(sp.design, out, files, spread=sp)
+    doc, files = write_spread(sp, out, plots=plots, home=home)
+    return StageOutput(sp.design.stage, doc, files, sp.design, spread=sp)

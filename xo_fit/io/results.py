@@ -134,10 +134,13 @@ def _clean(x: Any) -> Any:
     return x
 
 
-def write_json(path: str | Path, data: dict) -> None:
+def write_json(path: str | Path, data: dict) -> dict:
     """Write ``data`` to ``path`` as indented UTF-8 JSON, atomically: numpy scalars and arrays as Python
-    numbers and lists, non-finite floats as null."""
-    write_text(path, json.dumps(_clean(data), indent=2, ensure_ascii=False) + "\n")
+    numbers and lists, non-finite floats as null. Returns the document as written (what reading the file
+    back would give), so a caller never needs to read it back."""
+    clean = _clean(data)
+    write_text(path, json.dumps(clean, indent=2, ensure_ascii=False) + "\n")
+    return clean
 
 
 def part_entries(names: tuple[str, ...], units: tuple[str, ...], values: np.ndarray) -> dict:

@@ -1,8 +1,8 @@
 """A design to files: its result.json document, and what a command writes for a design or a spread.
 
 :func:`result_document` is the result.json of a :class:`~xo_fit.output.design.Design` (docs/outputs.md);
-:func:`save_design` writes it with response.csv, an off-axis job's directivity.csv and angles.csv, the stage's
-own tables (a snap's parts.csv, bom.csv) and response.png; :func:`save_spread` adds a spread's spread.csv and
+:func:`write_design` writes it with response.csv, an off-axis job's directivity.csv and angles.csv, the stage's
+own tables (a snap's parts.csv, bom.csv) and response.png; :func:`write_spread` adds a spread's spread.csv and
 spread.png. :meth:`Design.to_json <xo_fit.output.design.Design.to_json>`, :meth:`Design.save
 <xo_fit.output.design.Design.save>` and :meth:`Spread.save <xo_fit.output.design.Spread.save>` call these.
 """
@@ -68,10 +68,11 @@ def result_document(design: Design, folder: str | Path | None = None) -> dict:
     return doc
 
 
-def save_design(design: Design, folder: str | Path, *, plots: bool = True, title: str | None = None,
-                home: str | Path | None = None) -> list[Path]:
+def write_design(design: Design, folder: str | Path, *, plots: bool = True, title: str | None = None,
+                 home: str | Path | None = None) -> tuple[dict, list[Path]]:
     """Write result.json, response.csv, an off-axis job's directivity.csv and angles.csv, the design's own
-    tables and (with ``plots``) response.png into ``folder``; returns the paths written.
+    tables and (with ``plots``) response.png into ``folder``; returns result.json's document as written and
+    the paths written.
 
     ``title`` heads the plot (default "JOB: STAGE"); a snap's continuous design (``design.before``) is drawn
     in grey under it. ``home`` is the folder the files will finally live in, when it is not ``folder`` (a
@@ -80,7 +81,7 @@ def save_design(design: Design, folder: str | Path, *, plots: bool = True, title
     from xo_fit.io.results import make_folder, write_csv, write_json, write_rows
 
     folder = make_folder(folder)
-    write_json(folder / "result.json", result_document(design, home if home is not None else folder))
+    doc = write_json(folder / "result.json", result_document(design, home if home is not None else folder))
     write_csv(folder / "response.csv", design.response_table())
     written = [folder / "result.json", folder / "response.csv"]
     for name, table in design.directivity_tables().items():
@@ -96,17 +97,24 @@ def save_design(design: Design, folder: str | Path, *, plots: bool = True, title
         plot_design(folder / "response.png", design.system, design.scored,
                     title=title or f"{design.job.name}: {design.stage}", compare=compare)
         written.append(folder / "response.png")
-    return written
+    return doc, written
 
 
-def save_spread(spread: Spread, folder: str | Path, *, plots: bool = True,
+def save_design(design: Design, folder: str | Path, *, plots: bool = True, title: str | None = None,
                 home: str | Path | None = None) -> list[Path]:
+    """What :func:`write_design` writes; returns the paths written (the public ``Design.save``)."""
+    return write_design(design, folder, plots=plots, title=title, home=home)[1]
+
+
+def write_spread(spread: Spread, folder: str | Path, *, plots: bool = True,
+                 home: str | Path | None = None) -> tuple[dict, list[Path]]:
     """Write the nominal design's files (no plot), spread.csv and (with ``plots`` and a computed result)
-    spread.png into ``folder``; returns the paths written (``home`` as in :func:`save_design`)."""
+    spread.png into ``folder``; returns result.json's document as written and the paths written (``home`` as in
+    :func:`write_design`)."""
     from xo_fit.io.results import Table, write_csv
 
     folder = Path(folder)
-    files = save_design(spread.design, folder, plots=False, home=home)
+    doc, files = write_design(spread.design, folder, plots=False, home=home)
     write_csv(folder / "spread.csv", Table(spread.columns))
     files.append(folder / "spread.csv")
     if plots and spread.result is not None:
@@ -116,4 +124,10 @@ def save_spread(spread: Spread, folder: str | Path, *, plots: bool = True,
         plot_spread(folder / "spread.png", spread.design.system, spread.design.scored, spread.result,
                     title=f"{job.name}: p05-p95 over {spread.result.samples} builds")
         files.append(folder / "spread.png")
-    return files
+    return doc, files
+
+
+def save_spread(spread: Spread, folder: str | Path, *, plots: bool = True,
+                home: str | Path | None = None) -> list[Path]:
+    """What :func:`write_spread` writes; returns the paths written (the public ``Spread.save``)."""
+    return write_spread(spread, folder, plots=plots, home=home)[1]
