@@ -24,13 +24,9 @@ ROOT = Path(__file__).resolve().parents[1]
 #: Files whose docstrings are still being written (by whoever edits them now): the checks skip exactly these.
 #: Empty this set as each is finished; a path ending in "/" stands for every file in that folder.
 PENDING = {
-    "xo_fit/__main__.py",
-    "xo_fit/job/model.py",
-    "xo_fit/physics/vented_fit.py",
     "xo_fit/model/fused.py",
     "xo_fit/model/fused_limits.py",
     "xo_fit/model/fused_preference.py",
-    "xo_fit/output/design.py",  # also holds the API's Design, Spread and load_result
     "xo_fit/search/",
     "xo_fit/solver/",
     "xo_fit/stages/",
@@ -199,15 +195,19 @@ def test_the_public_api_is_numpydoc_with_units_and_shapes():
     assert not problems, f"{len(problems)} problems:\n" + "\n".join(problems)
 
 
+#: Modules the import-based checks leave out: importing ``xo_fit.__main__`` runs the command line (it defines
+#: nothing public; the AST-based check above still reads it).
+NOT_IMPORTED = {"xo_fit/__main__.py"}
+
+
 def _package_modules():
-    """Every module of the package outside PENDING, imported (``__main__`` is PENDING: importing it runs the
-    command line)."""
+    """Every module of the package outside PENDING and NOT_IMPORTED, imported."""
     import importlib
 
     out = []
     for path in sorted((ROOT / "xo_fit").rglob("*.py")):
         rel = path.relative_to(ROOT).as_posix()
-        if not _pending(rel):
+        if not _pending(rel) and rel not in NOT_IMPORTED:
             name = rel.removesuffix(".py").removesuffix("/__init__").replace("/", ".")
             out.append((rel, importlib.import_module(name)))
     return out

@@ -1,3 +1,8 @@
+"""``python -m xo_fit``: the ``xo-fit`` command line (:func:`xo_fit.cli.app.run`).
+
+Importing this module runs the command line on ``sys.argv``; it defines nothing public.
+"""
+
 import os
 import sys
 

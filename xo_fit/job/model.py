@@ -1,18 +1,15 @@
-"""Job files: TOML in, a frozen and validated :class:`Job` out.
+"""Job files: TOML in, a frozen and validated :class:`Job` out; the dataclasses a job is made of.
 
-The format is specified in ``docs/job-format.md``. Every default is declared
-once, on the field of the dataclass that holds it (``CostSpec.phase = 0.5``);
-:data:`DEFAULTS`, the defaults by table and key as the readers and the docs
-take them, is derived from those fields. One table has no field of its own:
-``[driver.NAME.position]``'s x and y (a driver's position is the tuple (x, y),
-a key left out 0 m) are declared in :data:`DEFAULTS` itself. Validation is strict:
-an unknown key, a value of the wrong kind or unit, or a part that cannot exist
-is a :class:`~xo_fit.errors.JobError` that names the file, the line (found in
+The format, every key with its type, unit and default, is specified in ``docs/job-format.md``. Every default is
+declared once, on the field of the dataclass that holds it (``CostSpec.phase = 0.5``); :data:`DEFAULTS`, the
+defaults by table and key as the readers and the docs take them, is derived from those fields. One table has no
+field of its own: ``[driver.NAME.position]``'s x and y (a driver's position is the tuple (x, y), a key left out
+0 m) are declared in :data:`DEFAULTS` itself. Validation is strict: an unknown key, a value of the wrong kind or
+unit, or a part that cannot exist is a :class:`~xo_fit.errors.JobError` that names the file, the line (found in
 the file's text where it can be), the key and what was expected.
 
-Values in the file are SI numbers or engineering-notation strings
-(:mod:`xo_fit.units`); inside the :class:`Job` they are floats in SI units.
-Relative paths are taken from the job file's folder.
+Values in the file are SI numbers or engineering-notation strings (:mod:`xo_fit.units`), inside a :class:`Job`
+floats in SI units (ohm, H, F, Hz, V, m, s; levels in dB); relative paths are taken from the job file's folder.
 """
 
 from __future__ import annotations
@@ -97,15 +94,14 @@ class Resistive:
 
 @dataclass(frozen=True)
 class ThieleSmall:
-    """A driver impedance from its small-signal parameters (R. H. Small, JAES 20(5), 1972).
+    """A driver impedance from its small-signal parameters (R. H. Small, JAES 20(5), 1972): ``re`` (ohm),
+    ``le`` (H), ``fs`` (Hz), ``qms`` and ``qes`` (dimensionless).
 
-    Z = Re + Z_Le + Res / (1 + Qms (s/ws + ws/s)), Res = Re Qms / Qes, where
-    the voice-coil inductance is Z_Le = le * (j w)^n * w_ref^(1-n) with
-    w_ref = 2 pi 1 kHz (W. M. Leach, JAES 50(6), 2002): n = 1 is an ideal
-    inductor, n < 1 a lossy one whose |Z_Le| at 1 kHz is still w_ref * le.
-    A second lossy-coil form adds an inductance ``l2`` (H) with ``r2`` (ohm)
-    across it in series (Z_L2 = j w L2 R2 / (R2 + j w L2); W. M. Leach, JAES
-    2002; J. R. Wright, JAES 38(10), 1990); both zero leave it out.
+    Z = Re + Z_Le + Res / (1 + Qms (s/ws + ws/s)), Res = Re Qms / Qes, where the voice-coil inductance is
+    Z_Le = le * (j w)^n * w_ref^(1-n) with w_ref = 2 pi 1 kHz and n = ``le_exponent`` (W. M. Leach, JAES 50(6),
+    2002): n = 1 is an ideal inductor, n < 1 a lossy one whose |Z_Le| at 1 kHz is still w_ref * le. A second
+    lossy-coil form adds an inductance ``l2`` (H) with ``r2`` (ohm) across it in series (Z_L2 = j w L2 R2 /
+    (R2 + j w L2); W. M. Leach, JAES 2002; J. R. Wright, JAES 38(10), 1990); both zero leave it out.
     """
 
     re: float
@@ -213,7 +209,8 @@ def position(orbit: str, angle: int) -> tuple[str, int]:
 
 @dataclass(frozen=True)
 class DriverSpec:
-    """One measured driver: where its response and impedance come from, and how to place it."""
+    """One measured driver: where its response and impedance come from (measured at ``reference_voltage``, V),
+    and how to place it (``offset``: its acoustic centre's depth behind the reference plane, m)."""
 
     name: str
     response: FileCurve | FlatResponse | SplicedResponse
@@ -237,12 +234,12 @@ class DriverSpec:
 
 @dataclass(frozen=True)
 class PartSpec:
-    """One part of the netlist.
+    """One part of the netlist (a ``[[part]]`` table).
 
-    ``value``, ``min`` and ``max`` are SI (ohm, H, F) or None. A part is free
-    when it has a range and is not ``fixed``; otherwise it holds ``value``.
-    ``dcr`` is a coil's series resistance: a float in ohm, or the bare wire
-    diameter in m when ``dcr_wire`` is True (see :mod:`xo_fit.physics.coils`).
+    ``value``, ``min`` and ``max`` are SI (ohm, H, F) or None. A part is free when it has a range and is not
+    ``fixed``; otherwise it holds ``value``. ``dcr`` is a coil's series resistance: a float in ohm, or the bare
+    wire diameter in m when ``dcr_wire`` is True (see :mod:`xo_fit.physics.coils`); ``esr`` a capacitor's, in
+    ohm. ``tolerance`` is a fraction (0.05 for 5 %; None: the [spread] default of its kind).
     """
 
     name: str
@@ -268,12 +265,14 @@ class PartSpec:
 
     @property
     def unit(self) -> str:
+        """The unit of the part's value: "ohm", "H" or "F" ("" for a driver)."""
         return PART_UNIT.get(self.type, "")
 
 
 @dataclass(frozen=True)
 class WayTarget:
-    """The acoustic target of one way (one driver)."""
+    """The acoustic target of one way (one driver): its filter ``type``, ``alignment`` and ``order``, its
+    crossover ``fc`` (a band-pass's ``fc_low`` and ``fc_high``) in Hz, and its ``polarity``."""
 
     driver: str
     type: str
@@ -287,6 +286,9 @@ class WayTarget:
 
 @dataclass(frozen=True)
 class TargetSpec:
+    """The ``[target]`` table: ``band`` (low, high) in Hz (None: the grid's), ``level`` in dB SPL or "auto", the
+    shaping ``curve``, the ``ways``' targets and the ``reference`` curve ("on_axis" or "listening_window")."""
+
     band: tuple[float, float] | None = None
     level: float | str = "auto"
     curve: str = "flat"
@@ -296,6 +298,8 @@ class TargetSpec:
 
 @dataclass(frozen=True)
 class CostSpec:
+    """The ``[cost]`` weights (dimensionless; 0 leaves a term out) and ``impedance_min``, the floor in ohm."""
+
     way: float = 1.0
     sum: float = 1.0
     phase: float = 0.5
@@ -310,6 +314,9 @@ class CostSpec:
 
 @dataclass(frozen=True)
 class SearchSpec:
+    """The ``[search]`` table: ``budget`` in cost evaluations, ``time_limit`` in s (None: none), and
+    ``robust_samples``, the tolerance draws each evaluation's cost is the mean over (0: a plain fit)."""
+
     optimizer: str = "auto"
     budget: int = 20000
     seed: int = 1
@@ -320,6 +327,8 @@ class SearchSpec:
 
 @dataclass(frozen=True)
 class SnapSpec:
+    """The ``[snap]`` table: each kind's ``series``, the ``inventory`` file, ``combine`` and ``top_up``."""
+
     series: Mapping[str, str] = field(default_factory=lambda: FrozenMap({"L": "E12", "C": "E12", "R": "E24"}))
     inventory: Path | None = None
     combine: int = 1
@@ -328,6 +337,8 @@ class SnapSpec:
 
 @dataclass(frozen=True)
 class SpreadSpec:
+    """The ``[spread]`` table; ``band_db`` and ``rms_limit_db`` in dB, each kind's ``tolerance`` a fraction."""
+
     samples: int = 2000
     seed: int = 1
     distribution: str = "uniform"
@@ -370,11 +381,9 @@ class LimitsSpec:
 class Job:
     """A validated job. Every value is SI; every path is absolute.
 
-    ``path`` is the job file (None for a job built from a mapping), ``folder``
-    the folder its relative paths were resolved against, ``document`` the
-    resolved job document (after [sweep] expansion) as JSON text, from which
-    :func:`load_job` rebuilds the same job, and ``part_lines`` the line of each
-    part's table in the file (for error messages found later).
+    ``path`` is the job file (None for one built from a mapping), ``folder`` the folder its relative paths were
+    resolved against, ``document`` the resolved document (after [sweep] expansion) as JSON text, from which
+    :func:`load_job` rebuilds the same job, ``part_lines`` each part's line in the file (for later messages).
     """
 
     name: str
@@ -406,12 +415,14 @@ class Job:
         return json.loads(self.document)
 
     def driver(self, name: str) -> DriverSpec:
+        """The driver named ``name``; a KeyError when the job has none."""
         for d in self.drivers:
             if d.name == name:
                 return d
         raise KeyError(name)
 
     def part(self, name: str) -> PartSpec:
+        """The part named ``name`` (a driver's part too); a KeyError when the job has none."""
         for p in self.parts:
             if p.name == name:
                 return p
@@ -424,6 +435,7 @@ class Job:
 
     @property
     def free_parts(self) -> tuple[PartSpec, ...]:
+        """The parts the search moves (:attr:`PartSpec.free`), in file order."""
         return tuple(p for p in self.parts if p.free)
 
 
@@ -443,8 +455,7 @@ def _defaults(cls: type, keys: str = "", **renamed: str) -> dict[str, Any]:
     return out
 
 
-#: Every default of the job format, by table and key, derived from the dataclasses' fields (see the module's
-#: docstring; only ``position`` is declared here).
+#: Every default of the job format by table and key, derived from the fields (the module's docstring).
 DEFAULTS: Mapping[str, Mapping[str, Any]] = MappingProxyType({
     "grid": _defaults(Grid, "f_min f_max points"),
     "source": _defaults(Job, voltage="source_voltage", resistance="source_resistance"),

@@ -81,6 +81,7 @@ class Design:
 
     @property
     def job(self):
+        """The design's :class:`~xo_fit.job.model.Job` (its system's)."""
         return self.system.job
 
     @property
@@ -95,14 +96,20 @@ class Design:
 
     @property
     def cost(self) -> float | None:
+        """The design's cost, the sum of its :attr:`terms` times their ``[cost]`` weights (0 on target); None
+        without way targets, inf where the response is not finite somewhere."""
         return self.scored.cost
 
     @property
     def terms(self) -> dict:
+        """result.json's ``cost_terms``: each cost term by name before its ``[cost]`` weight (mostly mean squares
+        in dB^2; :mod:`xo_fit.model.cost`); empty without way targets."""
         return dict(self.scored.terms)
 
     @property
     def metrics(self) -> dict:
+        """result.json's ``metrics`` (each name carries its unit: ``rms_error_db``, ``impedance_min_ohm``, ...;
+        docs/outputs.md), without the [stress] EPDR figures the result adds."""
         return dict(self.scored.metrics)
 
     @property
@@ -141,15 +148,18 @@ class Design:
 
     @cached_property
     def idle(self) -> list[dict]:
-        """``idle`` findings: parts whose removal costs (almost) nothing (:func:`xo_fit.stages.removal.idle_parts`)."""
+        """``negligible`` findings: parts whose removal changes the cost by (almost) nothing
+        (:func:`xo_fit.stages.removal.idle_parts`)."""
         from xo_fit.stages.removal import idle_parts
 
         return idle_parts(self.system, self.scored.values, self.scored.cost)
 
     @property
     def findings(self) -> list[dict]:
-        """What a designer should look at: unmet limits first, parts resting on a range limit, a load below the
-        floor, breakup within 20 dB of the level."""
+        """result.json's ``findings``, what a designer should look at, as ``{"kind", "part", "text"}`` dicts:
+        unmet [limits] first, then parts resting on a range limit, phase derived near a file's end, no finite
+        response, parts that may not be needed, drivers past their xmax or rating, a load below the floor, and
+        breakup within 20 dB (or [limits] breakup_db) of the level (docs/outputs.md)."""
         from xo_fit.output.cautions import protection_findings
         from xo_fit.output.limits import breakup_findings, limit_findings
         from xo_fit.units import format_value
@@ -264,7 +274,15 @@ class Design:
         return pd.DataFrame(self.response_table().columns)
 
     def response_table(self):
-        """The response.csv table (:func:`xo_fit.output.tables.response_table`) of this design."""
+        """The response.csv table of this design (:func:`xo_fit.output.tables.response_table`).
+
+        Returns
+        -------
+        Table
+            The columns ``frequency_hz`` (Hz), each driver's ``<driver>_db`` (dB SPL) and ``<driver>_deg``
+            (degrees), ``sum_db``, ``sum_deg``, ``target_db``, ``impedance_ohm`` (ohm) and ``impedance_deg``,
+            each an ndarray of shape (F,).
+        """
         from xo_fit.search.fitting import target_db
         from xo_fit.output.tables import response_table
 
@@ -284,8 +302,15 @@ class Design:
         return self.system.positions, p[0], {k: v[0] for k, v in curves.items()}
 
     def off_axis(self) -> tuple | None:
-        """An off-axis job's curves of this design: (positions, summed pressure at each, complex Pa (A, F),
-        the ANSI/CTA-2034-A curves in Pa^2 (F,) each); None on axis."""
+        """An off-axis job's curves of this design.
+
+        Returns
+        -------
+        tuple or None
+            (positions, pressure, curves): the measuring positions, ``("h" | "v", degrees)`` each, the axis
+            first (A positions); the summed pressure at each, complex, in Pa, shape (A, F); and the
+            ANSI/CTA-2034-A curves by name, mean squared pressure in Pa^2, shape (F,) each. None on axis.
+        """
         return self._off_axis
 
     @property
@@ -299,7 +324,14 @@ class Design:
         return pd.DataFrame(tables["directivity.csv"].columns)
 
     def directivity_tables(self) -> dict:
-        """{"directivity.csv": Table, "angles.csv": Table} of an off-axis job; {} otherwise."""
+        """The directivity.csv and angles.csv tables of an off-axis job.
+
+        Returns
+        -------
+        dict
+            ``{"directivity.csv": Table, "angles.csv": Table}`` (docs/outputs.md), each column an ndarray of
+            shape (F,) in Hz, dB SPL or dB; ``{}`` for an on-axis job.
+        """
         data = self.off_axis()
         if data is None:
             return {}
@@ -312,18 +344,46 @@ class Design:
     # ------------------------------------------------------------------ files (xo_fit.output.saving)
 
     def to_json(self, folder: str | Path | None = None) -> dict:
-        """The result.json document; ``folder`` is where it will live (for the job folder relative to it)."""
+        """The result.json document (:func:`xo_fit.output.saving.result_document`).
+
+        Parameters
+        ----------
+        folder : str or Path, optional
+            Where the document will live (``source.job_folder`` is the job's folder relative to it); None
+            leaves ``source.job_folder`` out.
+
+        Returns
+        -------
+        dict
+            The document, as docs/outputs.md describes it (values SI, levels in dB).
+        """
         from xo_fit.output.saving import result_document
 
         return result_document(self, folder)
 
     def save(self, folder: str | Path, *, plots: bool = True, title: str | None = None,
              home: str | Path | None = None) -> list[Path]:
-        """Write result.json, response.csv and (with plots) response.png into ``folder``; returns the paths.
+        """Write the design's files into ``folder`` (:func:`xo_fit.output.saving.save_design`).
 
-        ``home`` is the folder the files will finally live in, when it is not ``folder`` (a batch worker
-        writes into a private folder whose files the coordinator moves). See
-        :func:`xo_fit.output.saving.save_design`.
+        Writes result.json, response.csv, an off-axis job's directivity.csv and angles.csv, the stage's own
+        tables (a snap's parts.csv; bom.csv is the command's) and, with ``plots``, response.png.
+
+        Parameters
+        ----------
+        folder : str or Path
+            The folder to write into (made if missing).
+        plots : bool
+            Also draw response.png. Default True.
+        title : str, optional
+            The plot's title (default "JOB: STAGE").
+        home : str or Path, optional
+            The folder the files will finally live in, when it is not ``folder`` (a batch worker writes into a
+            private folder whose files the coordinator moves); result.json's job folder is relative to it.
+
+        Returns
+        -------
+        list of Path
+            The files written.
         """
         from xo_fit.output.saving import save_design
 
@@ -334,10 +394,18 @@ class Design:
 class Spread:
     """A tolerance spread of a design: yields, sensitivity ranking, percentile curves.
 
-    ``design`` is the nominal design (stage "spread"), ``section`` the result.json
-    "spread" section, ``columns`` the spread.csv columns (frequency_hz, then
-    ``<x>_p05_db``, ``<x>_p50_db``, ``<x>_p95_db`` for the sum and each driver),
-    ``result`` the full :class:`~xo_fit.stages.tolerance.SpreadResult` when computed here.
+    Parameters
+    ----------
+    design : Design
+        The nominal design (stage "spread").
+    section : dict
+        result.json's ``spread`` section (samples, yield, sensitivity, ...; docs/outputs.md).
+    columns : dict of str to ndarray
+        The spread.csv columns, each of shape (F,): ``frequency_hz`` (Hz), then ``<x>_p05_db``, ``<x>_p50_db``
+        and ``<x>_p95_db`` (dB SPL) for the sum (``x`` = ``sum``) and each driver.
+    result : SpreadResult or None
+        The full :class:`~xo_fit.stages.tolerance.SpreadResult` when computed here (drawn in spread.png);
+        None for a loaded result.
     """
 
     design: Design
@@ -347,15 +415,20 @@ class Spread:
 
     @property
     def yield_band(self) -> float:
+        """The share of builds whose sum stays within ``[spread] band_db`` of the nominal over the target band
+        (dimensionless, 0 to 1)."""
         return float(self.section["yield"]["within_band"])
 
     @property
     def yield_limits(self) -> float:
+        """The share of builds meeting the limits: rms error against the target at most ``[spread]
+        rms_limit_db``, the load at least the impedance floor (dimensionless, 0 to 1)."""
         return float(self.section["yield"]["meeting_limits"])
 
     @property
     def sensitivity(self) -> list[tuple[str, float]]:
-        """(part, dB per +1 %) ranked, most sensitive first."""
+        """(part, dB per +1 %): each part's worst change of the sum in the band per +1 % of its value, signed,
+        the most sensitive first."""
         return [(r["part"], float(r["db_per_pct"])) for r in self.section["sensitivity"]]
 
     @property
@@ -367,18 +440,47 @@ class Spread:
 
     @property
     def stage(self) -> str:
+        """Always "spread"."""
         return "spread"
 
     @property
     def label(self) -> str | None:
+        """The nominal design's name in a report (or None)."""
         return self.design.label
 
     def to_json(self, folder: str | Path | None = None) -> dict:
+        """The result.json document of the nominal design, its ``spread`` section included.
+
+        Parameters
+        ----------
+        folder : str or Path, optional
+            Where the document will live (as for :meth:`Design.to_json`).
+
+        Returns
+        -------
+        dict
+            The document (docs/outputs.md).
+        """
         return self.design.to_json(folder)
 
     def save(self, folder: str | Path, *, plots: bool = True, home: str | Path | None = None) -> list[Path]:
-        """Write result.json, response.csv, spread.csv and (with plots and a computed result) spread.png (see
-        :func:`xo_fit.output.saving.save_spread`)."""
+        """Write the nominal design's files (no response.png), spread.csv and, with ``plots`` and a computed
+        ``result``, spread.png into ``folder`` (:func:`xo_fit.output.saving.save_spread`).
+
+        Parameters
+        ----------
+        folder : str or Path
+            The folder to write into.
+        plots : bool
+            Also draw spread.png (only where ``result`` is set). Default True.
+        home : str or Path, optional
+            The folder the files will finally live in, when it is not ``folder`` (as for :meth:`Design.save`).
+
+        Returns
+        -------
+        list of Path
+            The files written.
+        """
         from xo_fit.output.saving import save_spread
 
         return save_spread(self, folder, plots=plots, home=home)

@@ -27,9 +27,10 @@ def job_of_result(doc: dict, folder: Path, path: Path):
     """The job a result was made from, loaded (a :class:`~xo_fit.model.system.System`).
 
     Rebuilt from the result's resolved document, its data found relative to the result (as the folders stood
-    when it was written) or at the job folder's absolute path; or, for a result written before format 2, read
-    from the job file it names. ``doc`` is the read result.json, ``folder`` the folder it lies in, ``path`` the
-    file (for messages). Raises DataError when neither way finds the job.
+    when it was written) or at the job folder's absolute path (the result's own folder where it names neither);
+    or, for a result without the document (written before format 2), read from the job file it names. ``doc``
+    is the read result.json, ``folder`` the folder it lies in, ``path`` the file (for messages). Raises
+    DataError when the result names no job or no folder rebuilds it.
     """
     from xo_fit.job.reader import load_job
     from xo_fit.model.system import load_system
@@ -60,8 +61,10 @@ def job_of_result(doc: dict, folder: Path, path: Path):
 
 
 def spread_columns(table: Path, f: np.ndarray) -> dict[str, np.ndarray]:
-    """The columns of a spread.csv (each (F,)), checked against the result's grid ``f`` (F,) in Hz: a DataError
-    naming the file for a missing or short table, a cell that is no finite number, a column the report needs."""
+    """The columns of a spread.csv (each (F,); an empty cell is NaN), checked against the result's grid ``f``
+    (F,) in Hz: a DataError naming the file (and the line) for a missing or empty table, a column the report
+    needs missing or one named twice, a row of the wrong length, a cell that is not a finite number, or rows
+    other than the grid's frequencies."""
     import csv
 
     from xo_fit.errors import read_user_text
@@ -124,7 +127,8 @@ def load_result(path: str | Path, *, system=None) -> Design | Spread:
     Raises
     ------
     XoFitError
-        The file is missing, not a result, damaged, or names parts the job does not have.
+        The file is missing, not a result, damaged, names parts the job does not have, or its job cannot be
+        rebuilt; a spread result whose spread.csv is missing or damaged.
     """
     from xo_fit.search.fitting import score
     from xo_fit.io.results import read_result, result_values

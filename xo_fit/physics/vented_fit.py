@@ -11,9 +11,9 @@ every octave weighs alike.
 
 Start values from the magnitude: the two peaks fL < fH and the minimum between them, fb; Small 1973's
 relations for a lossless box fs = fL fH / fb and alpha = (fH^2 - fb^2)(fb^2 - fL^2)/(fH^2 fL^2); Re from the
-minimum above fH; Res from the peak height; and Cmes from the width of the upper peak, where the motional
-susceptance Cmes b(w), b(w) = w - ws^2/w - alpha ws^2 w/(w^2 - wb^2), equals the conductance 1/Res
-(Cmes = 2/(Res |b'(wH)| dw)); then Qes = ws Cmes Re and Qms = ws Cmes Res.
+minimum above fH (or at fb, where lower); Res from the higher peak's height above Re; and Cmes from the width
+of the upper peak, where the motional susceptance Cmes b(w), b(w) = w - ws^2/w - alpha ws^2 w/(w^2 - wb^2),
+equals the conductance 1/Res (Cmes = 2/(Res |b'(wH)| dw)); then Qes = ws Cmes Re and Qms = ws Cmes Res.
 """
 
 from __future__ import annotations
@@ -50,14 +50,41 @@ class VentedFit:
 
     Attributes
     ----------
-    re, le, fs, qms, qes: the driver (ohm, H, Hz, Q); fs, qms, qes are its free-air values.
-    alpha: Vas / Vb. fb: the box tuning, Hz. ql: the box's leakage quality.
-    l2, r2: the lossy coil's second inductance (H) and resistance across it (ohm); 0 without it.
-    volume: the box volume if it was given, m^3; vas then is alpha volume (m^3), else None.
-    rms_error_pct: the fit's rms error over log frequency, % of |Z| (of |Z| alone without phase).
-    max_error_pct, max_error_hz: its largest error at any fitted point, % of |Z|, and where (Hz).
-    f_range: the fitted range, Hz. points: fitted points. used_phase: whether the phase took part.
-    warnings: remarks on the fit.
+    re : float
+        The voice coil's resistance, in ohm.
+    le : float
+        Its inductance, in H.
+    fs : float
+        The driver's free-air resonance, in Hz.
+    qms, qes : float
+        Its free-air mechanical and electrical Q (dimensionless).
+    alpha : float
+        The compliance ratio Vas / Vb (dimensionless).
+    fb : float
+        The box's tuning, in Hz.
+    ql : float
+        The box's leakage Q (dimensionless).
+    l2, r2 : float
+        The lossy coil's second inductance, in H, and the resistance across it, in ohm; 0 without it.
+    volume : float or None
+        The box's net volume if it was given, in m^3; else None.
+    vas : float or None
+        alpha * volume, in m^3, when the volume was given; else None.
+    rms_error_pct : float
+        The fit's rms error over log frequency, in % of |Z| (of |Z| alone without phase).
+    max_error_pct : float
+        Its largest error at any fitted point, in % of |Z|.
+    max_error_hz : float
+        Where that error lies, in Hz.
+    f_range : tuple of float
+        The fitted frequency range (low, high), in Hz.
+    points : int
+        The number of fitted points (dimensionless).
+    used_phase : bool
+        Whether the file's phase took part.
+    warnings : tuple of str
+        Remarks on the fit (more than two peaks, a parameter on its bound, a large error), each prefixed with
+        the file where one was given.
     """
 
     re: float
@@ -206,21 +233,29 @@ def fit_vented(frequency: np.ndarray, impedance_ohm: np.ndarray, *, lossy: bool 
 
     Parameters
     ----------
-    frequency: Hz, shape (F,), rising.
-    impedance_ohm: complex impedance, ohm, shape (F,); a real array is read as |Z| alone (no phase).
-    lossy: add the lossy coil's L2 with R2 across it.
-    volume: the box's net volume, m^3, if known (gives vas = alpha volume).
-    path: the file, for messages.
+    frequency : ndarray
+        The measured frequencies, in Hz, rising, shape (F,).
+    impedance_ohm : ndarray
+        The measured impedance, complex, in ohm, shape (F,); a real array is read as |Z| alone (no phase).
+    lossy : bool
+        Add the lossy coil's L2 with R2 across it (ten parameters instead of eight). Default False.
+    volume : float, optional
+        The box's net volume, in m^3, if known (gives ``vas`` = alpha * volume); default None.
+    path : Path or str, optional
+        The file the data came from, for messages.
 
     Returns
     -------
     VentedFit
+        The fitted driver and box, the fit's errors and its warnings.
 
     Raises
     ------
     DataError
-        No peak or one peak (not a vented box), a fit that does not converge, ends with fs, fb, alpha or the
-        Q factors on the limit of what a driver can have, or misses by more than RMS_FAIL_PCT rms.
+        Data that cannot be fitted (arrays of unlike shapes, under 16 points, frequencies not finite, positive
+        and rising, |Z| not above 0, a volume not above 0); no peak or one peak (not a vented box); a fit that
+        does not converge, ends with re, fs, qms, qes, alpha or fb on the limit of what a driver can have,
+        puts fb outside the file, or misses by more than :data:`RMS_FAIL_PCT` % rms.
     """
     f0, z0, phase = _inputs(frequency, impedance_ohm, path)
     if volume is not None and not (isinstance(volume, (int, float)) and math.isfinite(volume) and volume > 0):
