@@ -366,7 +366,8 @@ class Design:
         """Write the design's files into ``folder`` (:func:`xo_fit.output.saving.save_design`).
 
         Writes result.json, response.csv, an off-axis job's directivity.csv and angles.csv, the stage's own
-        tables (a snap's parts.csv; bom.csv is the command's) and, with ``plots``, response.png.
+        tables (:attr:`tables`: a snap's parts.csv, and bom.csv where the command adds it) and, with ``plots``,
+        response.png.
 
         Parameters
         ----------

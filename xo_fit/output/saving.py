@@ -2,9 +2,12 @@
 
 :func:`result_document` is the result.json of a :class:`~xo_fit.output.design.Design` (docs/outputs.md);
 :func:`write_design` writes it with response.csv, an off-axis job's directivity.csv and angles.csv, the stage's
-own tables (a snap's parts.csv, bom.csv) and response.png; :func:`write_spread` adds a spread's spread.csv and
-spread.png. :meth:`Design.to_json <xo_fit.output.design.Design.to_json>`, :meth:`Design.save
-<xo_fit.output.design.Design.save>` and :meth:`Spread.save <xo_fit.output.design.Spread.save>` call these.
+own tables (a snap's parts.csv; the snap command adds bom.csv to them) and response.png; :func:`write_spread`
+adds a spread's spread.csv and spread.png. Both return result.json's document as written with the paths;
+:func:`save_design` and :func:`save_spread` return the paths alone. :meth:`Design.to_json
+<xo_fit.output.design.Design.to_json>`, :meth:`Design.save <xo_fit.output.design.Design.save>` and
+:meth:`Spread.save <xo_fit.output.design.Spread.save>` call :func:`result_document`, :func:`save_design` and
+:func:`save_spread`; a batch's tasks call the ``write_`` ones.
 """
 
 from __future__ import annotations
