@@ -7,7 +7,7 @@ import pytest
 import scipy.signal as sig
 
 from xo_fit.errors import JobError
-from xo_fit.job.model import WayTarget
+from xo_fit.job.settings import WayTarget
 from xo_fit.job.reader import load_job
 from xo_fit.model.targets import build_targets, polarities, shipped_curves, way_shape
 

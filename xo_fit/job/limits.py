@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from xo_fit.job.model import DEFAULTS, DriverSpec, LimitsSpec, PartSpec, StressSpec
+from xo_fit.job.model import DEFAULTS, DriverSpec, PartSpec
+from xo_fit.job.settings import LimitsSpec, StressSpec
 from xo_fit.job.reading import Reader
 
 

@@ -12,7 +12,8 @@ from collections.abc import Mapping
 import numpy as np
 
 from xo_fit.errors import JobError, read_user_text
-from xo_fit.job.model import (is_name, JOB_NAME_PATTERN, DEFAULTS, MAX_PARTS, OHMS, VOLTS, FrozenMap, Job)
+from xo_fit.job.model import (is_name, JOB_NAME_PATTERN, DEFAULTS, MAX_PARTS, OHMS, VOLTS, Job)
+from xo_fit.job.settings import FrozenMap
 from xo_fit.job.reading import (Lines, Reader, Context)
 from xo_fit.job.parts import (read_part, check_plausible, check_parts)
 from xo_fit.job.tables import check_protection

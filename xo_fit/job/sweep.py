@@ -12,7 +12,8 @@ from typing import Any
 from collections.abc import Iterator
 
 from xo_fit.errors import XoFitError
-from xo_fit.job.model import FrozenMap, Job
+from xo_fit.job.model import Job
+from xo_fit.job.settings import FrozenMap
 from xo_fit.job.reading import Context
 from xo_fit.job.reader import read_document, build_job
 

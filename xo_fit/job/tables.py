@@ -14,9 +14,10 @@ from xo_fit.errors import XoFitError
 from xo_fit.grid import Grid
 from xo_fit.units import UnitsError, parse_percent, parse_value
 from xo_fit.job.model import (is_name, OHMS, OFFSET_M, POWER_W, DEFAULTS, GRID_HZ, MAX_POINTS, MAX_WEIGHT, NAME_PATTERN,
-                              FrozenMap, FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec,
-                              position, DriverSpec, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec,
-                              StressSpec)
+                              FileCurve, FlatResponse, SplicedResponse, Resistive, ThieleSmall, AngleSpec, position,
+                              DriverSpec)
+from xo_fit.job.settings import (FrozenMap, WayTarget, TargetSpec, CostSpec, SearchSpec, SnapSpec, SpreadSpec,
+                                 StressSpec)
 from xo_fit.job.model import TS_UNITS, BoxSpec, ModelImpedance
 from xo_fit.job.ranges import TS_PLAUSIBLE
 from xo_fit.job.reading import (Reader, short, volts, missing, looks_numeric, phase_choice, close_match)

@@ -39,7 +39,8 @@ from pathlib import Path
 import numpy as np
 
 from xo_fit.errors import DataError, JobError
-from xo_fit.job.model import Job, WayTarget
+from xo_fit.job.model import Job
+from xo_fit.job.settings import WayTarget
 from xo_fit.io.measure import read_curve
 
 
