@@ -30,9 +30,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import XoFitError
+from xo_fit.errors import XoFitError
 from xo_fit.job.model import BoxSpec
-from .thiele_small import ThieleSmallSet
+from xo_fit.physics.thiele_small import ThieleSmallSet
 
 #: Box kinds.
 KINDS = ("none", "closed", "vented")

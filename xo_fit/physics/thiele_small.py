@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from xo_fit.constants import SPEED_OF_SOUND
-from ..errors import XoFitError
+from xo_fit.errors import XoFitError
 
 #: Density of dry air at 20 C and 101.325 kPa, kg/m^3: the ideal-gas law rho = p / (R T) with the specific gas
 #: constant of dry air R = 287.05 J/(kg K) (the ISO 2533 standard atmosphere's value) and T = 293.15 K.

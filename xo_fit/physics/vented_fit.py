@@ -23,9 +23,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import DataError
-from .box import Box, impedance
-from .thiele_small import ThieleSmallSet
+from xo_fit.errors import DataError
+from xo_fit.physics.box import Box, impedance
+from xo_fit.physics.thiele_small import ThieleSmallSet
 
 #: A file of more points than this is resampled to FIT_PER_OCTAVE points per octave before the fit.
 MAX_POINTS = 2000
