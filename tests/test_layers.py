@@ -133,3 +133,12 @@ def test_no_module_is_too_long():
     """No hand-written module over ~500 lines (DEVELOPERS.md: small modules with one job each)."""
     long = {m: n for m, p in _modules().items() if (n := len(p.read_text(encoding="utf-8").splitlines())) > 520}
     assert not long, long
+
+
+def test_imports_are_absolute():
+    """Every import names its module from ``xo_fit`` (DEVELOPERS.md): a relative import hides the layer it
+    reaches into from a reader and from grep."""
+    relative = [f"{m}:{node.lineno}" for m, p in _modules().items()
+                for node in ast.walk(ast.parse(p.read_text(encoding="utf-8")))
+                if isinstance(node, ast.ImportFrom) and node.level]
+    assert not relative, relative
