@@ -1,9 +1,12 @@
-"""Pruning the demo two-way (13 parts) with refits: steps, seconds, the trade-off table.
+"""Pruning with refits against a fit of the same job: the demo two-way (13 parts) and the 16-part hard three-way.
 
-Goal (issue 12): the whole prune in at most 60 s on one core; issue 29: at most 4x a fit of the same job.
-Run: .venv/bin/python benchmarks/prune.py [--smoke].
-The fit and three prunes are timed; the median is quoted (the machine is shared). --smoke prunes the 4-part handbook
-LR2 ladder with refits of 100 evaluations instead, once (the test suite's run).
+Goals: issue 12, the demo's whole prune in at most 60 s on one core; issue 29, every prune at most 4x a fit of the
+same job (the fit at its job's default budget), on one core and with --workers 2.
+Run: python benchmarks/prune.py [--runs 3] [--workers 2] [--smoke].
+Each job is loaded once and fitted once untimed (the kernels built or loaded from the cache); then fit, prune and
+prune with workers are timed in turn, --runs times each, and the medians quoted side by side (the machine is
+shared: the ratios are taken from runs interleaved in one process). --smoke prunes the 4-part handbook LR2 ladder
+with refits of 100 evaluations instead, once (the test suite's run).
 """
 
 from __future__ import annotations
@@ -19,44 +22,74 @@ from pathlib import Path
 os.environ.setdefault("OMP_NUM_THREADS", "1")  # one core
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "tests"))
 
 import xo_fit  # noqa: E402
 from xo_fit.demo import write_scenario  # noqa: E402
+
+HARD = ROOT / "tests" / "data" / "hard-three-way.toml"
+
+
+def timed(fn):
+    t0 = time.perf_counter()
+    out = fn()
+    return time.perf_counter() - t0, out
+
+
+def bench(job, runs: int, workers: int, fit_budget: int | None, budget: int | None) -> dict:
+    """Fit, prune and prune with ``workers`` of one job, each timed ``runs`` times in turn (seconds)."""
+    best = xo_fit.fit(job, seed=1, budget=fit_budget)  # warm: kernels built or loaded, untimed
+    fits, prunes, pooled = [], [], []
+    pr = None
+    for _ in range(runs):
+        fits.append(timed(lambda: xo_fit.fit(job, seed=1, budget=fit_budget))[0])
+        t, pr = timed(lambda: xo_fit.prune(job, best, budget=budget))
+        prunes.append(t)
+        if workers > 1:
+            pooled.append(timed(lambda: xo_fit.prune(job, best, budget=budget, workers=workers))[0])
+    return {"job": job, "best": best, "pr": pr, "fit": fits, "prune": prunes, "pooled": pooled}
+
+
+def show(r: dict, workers: int, budget: int | None) -> None:
+    job, pr, best = r["job"], r["pr"], r["best"]
+    fit_s, prune_s = statistics.median(r["fit"]), statistics.median(r["prune"])
+    evals = best.sections["search"]["evaluations"]
+    line = (f"{job.name}: {len(job.valued_parts)} parts; fit {fit_s:.3f} s ({evals} evaluations, cost {best.cost:.4g});"
+            f" prune {prune_s:.3f} s ({len(pr.steps) - 1} steps, {len(pr.trials)} trial refits of "
+            f"{budget or 600} evaluations, {pr.evaluations} evaluations), prune / fit {prune_s / fit_s:.1f}")
+    if r["pooled"]:
+        pooled = statistics.median(r["pooled"])
+        line += f"; with --workers {workers} {pooled:.3f} s, {pooled / fit_s:.1f}x the fit"
+    print(line + " (goal <= 4)")
+    print("  seconds: fit " + ", ".join(f"{t:.3f}" for t in r["fit"]) + "; prune "
+          + ", ".join(f"{t:.3f}" for t in r["prune"])
+          + ("; pooled " + ", ".join(f"{t:.3f}" for t in r["pooled"]) if r["pooled"] else ""))
+    print(f"  {'step':>4} {'parts':>5} {'removed':<8} {'how':<6} {'cost':>9} {'rms dB':>7} {'worst dB':>8}")
+    for s in pr.steps:
+        print(f"  {s['step']:>4} {s['parts']:>5} {s['removed']:<8} {s['how']:<6} {s['cost']:>9.4g} "
+              f"{s['rms_error_db']:>7.2f} {s['max_error_db']:>8.2f}" + ("  <- chosen" if s["step"] == pr.chosen else ""))
 
 
 def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--smoke", action="store_true", help="a 4-part ladder, refits of 100 evaluations, one run")
-    smoke = ap.parse_args().smoke
+    ap.add_argument("--runs", type=int, default=3, help="timed runs of each (median quoted)")
+    ap.add_argument("--workers", type=int, default=2, help="the pooled prune's processes (1: none)")
+    args = ap.parse_args()
     folder = Path(tempfile.mkdtemp(prefix="xo_fit-bench-prune-"))
-    if smoke:
+    if args.smoke:
         from conftest import ladder_job
 
         (folder / "ladder.toml").write_text(ladder_job("LR2", start=1.5, spread=4.0)[0])
-        job = xo_fit.load_job(folder / "ladder.toml")
-    else:
-        job = xo_fit.load_job(write_scenario(folder / "scenario"))
-    t0 = time.perf_counter()
-    best = xo_fit.fit(job, seed=1, budget=300 if smoke else None)
-    fit_s = time.perf_counter() - t0
-    times = []
-    for _ in range(1 if smoke else 3):
-        t0 = time.perf_counter()
-        pr = xo_fit.prune(job, best, budget=100 if smoke else None)
-        times.append(time.perf_counter() - t0)
-    print(f"{job.name}: {len(job.valued_parts)} parts, fit cost {best.cost:.4g}; prune with refits of "
-          f"{100 if smoke else 600} evaluations "
-          f"(the fit's kernel, stand-ins for removed parts; one thread): {len(pr.steps) - 1} steps, "
-          f"{len(pr.trials)} trial refits, "
-          f"{pr.evaluations} evaluations; seconds {', '.join(f'{t:.1f}' for t in times)}, median "
-          f"{statistics.median(times):.2f} (goal <= 60); the fit {fit_s:.2f} s, prune / fit "
-          f"{statistics.median(times) / fit_s:.1f} (goal <= 4)")
-    print(f"{'step':>4} {'parts':>5} {'removed':<8} {'how':<6} {'cost':>9} {'rms dB':>7} {'worst dB':>8}")
-    for r in pr.steps:
-        print(f"{r['step']:>4} {r['parts']:>5} {r['removed']:<8} {r['how']:<6} {r['cost']:>9.4g} "
-              f"{r['rms_error_db']:>7.2f} {r['max_error_db']:>8.2f}" + ("  <- chosen" if r["step"] == pr.chosen else ""))
+        r = bench(xo_fit.load_job(folder / "ladder.toml"), 1, 1, 300, 100)
+        show(r, 1, 100)
+        return
+    jobs = [xo_fit.load_job(write_scenario(folder / "scenario")), xo_fit.load_job(HARD)]
+    print(f"one thread; medians of {args.runs} runs")
+    for job in jobs:
+        show(bench(job, args.runs, args.workers, None, None), args.workers, None)
 
 
 if __name__ == "__main__":
