@@ -32,7 +32,7 @@ import numpy as np
 from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
 from xo_fit.model.fused import FusedCost
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
-from xo_fit.stages.removal import removals
+from xo_fit.stages.removal import HOWS, JobDocument, variant
 
 PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
                  "impedance_min_ohm"]
@@ -216,27 +216,43 @@ def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list
 
 
 #: What every trial of a prune shares in a worker process (:func:`_share`): the starting system (its driver data,
-#: grid and off-axis data serve every reduced job), the family and the targets; handed over once per worker.
+#: grid and off-axis data serve every reduced job), the family and the targets, handed over once per worker; and
+#: the step's system and document (``step``: derived once per step, from the first of its trials the worker runs).
 _SHARED: dict = {}
 
 
 def _share(base, family: Family | None, targets) -> None:
     """Pool initializer: what the trials of this prune share (see :data:`_SHARED`)."""
-    _SHARED.update(base=base, family=family, targets=targets)
+    _SHARED.update(base=base, family=family, targets=targets, step=None)
 
 
 def _trial(args):
-    """One trial removal, refitted in a worker process: (name, how, Scored, evaluations). ``args``: (name, how,
-    the reduced job, budget, seed, removed); its system is derived from the shared starting system."""
+    """One trial removal in a worker process: (Scored, evaluations) of its refit, or None where the removal is no
+    legal netlist. ``args``: (the step's job, its design {name: value}, name, how, budget, seed, removed); the
+    step's system is derived from the shared starting system."""
     from xo_fit.model.system import derive_system
+    from xo_fit.stages.removal import JobDocument
 
-    name, how, job, budget, seed, removed = args
-    system = derive_system(_SHARED["base"], job)
+    job, values, name, how, budget, seed, removed = args
+    step = _SHARED["step"]
+    if step is None or step[0] != job.document:
+        step = _SHARED["step"] = (job.document, derive_system(_SHARED["base"], job), JobDocument(job))
     try:
-        scored, n = refit(system, budget, seed, _SHARED["family"], removed, light=True, targets=_SHARED["targets"])
+        return trial(step[1], values, name, how, budget, seed, _SHARED["family"], removed, _SHARED["targets"],
+                     step[2])
     except Interrupted:
         raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
-    return name, how, scored, n
+
+
+def trial(system, values: dict, name: str, how: str, budget: int, seed: int, family: Family | None, removed: dict,
+          targets, source=None):
+    """One trial removal from ``system`` at design ``values`` ({name: value}): (Scored, evaluations) of the reduced
+    system's refit (``light``, see :func:`refit`), or None where the removal is no legal netlist (see
+    :func:`xo_fit.stages.removal.variant`; ``source``: the system's job's JobDocument)."""
+    s = variant(system, name, how, values, source=source)
+    if s is None:
+        return None
+    return refit(s, budget, seed, family, removed, light=True, targets=targets)
 
 
 @dataclass(eq=False)
@@ -305,8 +321,9 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
                progress, family: Family | None = None, targets=None) -> None:
     """The elimination steps after step 0, appended to ``steps``, ``states`` and ``trials``; the evaluations of
     each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1
-    (each gets the starting system, ``family`` and ``targets`` once, and per trial the reduced job alone); their
-    refits search on ``family``'s kernel where given (see :class:`Family`)."""
+    (each gets the starting system, ``family`` and ``targets`` once, and per trial the step's job, its design and
+    the removal, whose system it derives and checks itself); their refits search on ``family``'s kernel where
+    given (see :class:`Family`)."""
     from xo_fit.search.fitting import score
 
     pool = stop = None
@@ -317,31 +334,43 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
     try:
         while True:
             last_system, last_scored = states[-1]
-            options = removals(last_system, dict(zip(last_system.part_names, last_scored.values)))
-            if not options:
-                break
+            values = dict(zip(last_system.part_names, last_scored.values))
+            source = JobDocument(last_system.job)
             gone = {r["removed"]: r["how"] for r in steps[1:]}
-            if pool:
-                args = [(name, how, s.job, budget, seed, {**gone, name: how}) for name, how, s in options]
-                found = [r[2:] for r in pool.map(_trial, args)]
+            options = [(p.name, how) for p in last_system.job.valued_parts if not p.keep for how in HOWS]
+            if pool:  # each worker derives the removal's system and checks it too
+                args = [(last_system.job, values, name, how, budget, seed, {**gone, name: how})
+                        for name, how in options]
+                found = list(pool.map(_trial, args))
             else:
-                found = [refit(s, budget, seed, family, {**gone, name: how}, light=True, targets=targets)
-                         for name, how, s in options]
+                found = [trial(last_system, values, name, how, budget, seed, family, {**gone, name: how}, targets,
+                               source) for name, how in options]
+            if not any(f is not None for f in found):
+                break
             allowed, _ = broken_limits(last_system, last_scored.values, targets)
             feasible = []
-            for (name, how, s), (sc, n) in zip(options, found):
+            for (name, how), got in zip(options, found):
+                if got is None:
+                    continue
+                sc, n = got
                 spent[0] += n
                 trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
                 if sc.cost is None or not math.isfinite(sc.cost):
                     continue
-                violation, broken = broken_limits(s, sc.values, targets)
-                if violation > allowed + 1e-12:  # it breaks a limit the current design meets: refused
-                    trials[-1]["refused"] = broken
-                    continue
+                s = None
+                if last_system.job.limits.active:
+                    s = variant(last_system, name, how, values, check_dead=False, source=source)
+                    assert s is not None, "a removal refitted is a legal one"
+                    violation, broken = broken_limits(s, sc.values, targets)
+                    if violation > allowed + 1e-12:  # it breaks a limit the current design meets: refused
+                        trials[-1]["refused"] = broken
+                        continue
                 feasible.append((name, how, sc, s))
             if not feasible:
                 break
             name, how, sc, s = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))
+            s = s if s is not None else variant(last_system, name, how, values, check_dead=False, source=source)
+            assert s is not None, "a removal refitted is a legal one"
             sc = score(s, sc.values, model_of(s, targets))  # the trial's cost, its terms and metrics
             steps.append(_row(len(steps), s, sc, name, how))
             states.append((s, sc))
