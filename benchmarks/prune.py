@@ -69,7 +69,7 @@ def show(r: dict, workers: int, budget: int | None) -> None:
     print(f"  {'step':>4} {'parts':>5} {'removed':<8} {'how':<6} {'cost':>9} {'rms dB':>7} {'worst dB':>8}")
     for s in pr.steps:
         print(f"  {s['step']:>4} {s['parts']:>5} {s['removed']:<8} {s['how']:<6} {s['cost']:>9.4g} "
-              f"{s['rms_error_db']:>7.2f} {s['max_error_db']:>8.2f}" + ("  <- chosen" if s["step"] == pr.chosen else ""))
+              f"{s['rms_error_db']:>7.2f} {s['max_error_db']:>8.2f}" + ("  <- chosen" * (s["step"] == pr.chosen)))
 
 
 def main() -> None:

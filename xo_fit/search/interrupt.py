@@ -59,10 +59,10 @@ def stopping_pool(workers: int, initializer=None, initargs: tuple = ()):
     ctx = multiprocessing.get_context()
     event = ctx.Event()
     if initializer is None:
-        init, args = worker_init, (event,)
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_init, initargs=(event,))
     else:
-        init, args = _init_with, (event, initializer, initargs)
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=init, initargs=args)
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_init_with,
+                                   initargs=(event, initializer, initargs))
     return pool, event
 
 

@@ -120,9 +120,18 @@ def reduced_job(job, name: str | None, how: str, values: dict[str, float], sourc
             from xo_fit.job.reader import load_job
 
             return load_job(doc, base=job.folder, copy=False)  # raises what the reader says of the value
-        parts.append(spec if (nodes, value) == (spec.nodes, spec.value) else replace(spec, nodes=nodes, value=value))
+        parts.append(spec if (nodes, value) == (spec.nodes, spec.value) else _moved(spec, nodes, value))
     return replace(job, parts=tuple(parts), path=None, document=source.text(doc), part_lines=FrozenMap(),
                    warnings=(), swept=FrozenMap())
+
+
+def _moved(spec, nodes: tuple[str, str], value: float | None):
+    """``dataclasses.replace(spec, nodes=nodes, value=value)`` of a frozen PartSpec, without its __init__ (a prune
+    makes thousands; the fields are the reader's, checked, and these two are the caller's, checked)."""
+    new = object.__new__(type(spec))
+    new.__dict__.update(spec.__dict__)
+    new.__dict__["nodes"], new.__dict__["value"] = nodes, value
+    return new
 
 
 def variant(system: System, name: str, how: str, values: dict[str, float] | None = None, *,
