@@ -33,39 +33,49 @@ HARD = ROOT / "tests" / "data" / "hard-three-way.toml"
 
 
 def timed(fn):
-    t0 = time.perf_counter()
+    """(wall seconds, CPU seconds of this process and its reaped children, fn's result)."""
+    import resource
+
+    def cpu() -> float:
+        own, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+        return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
+
+    c0, t0 = cpu(), time.perf_counter()
     out = fn()
-    return time.perf_counter() - t0, out
+    return time.perf_counter() - t0, cpu() - c0, out
 
 
 def bench(job, runs: int, workers: int, fit_budget: int | None, budget: int | None) -> dict:
-    """Fit, prune and prune with ``workers`` of one job, each timed ``runs`` times in turn (seconds)."""
+    """Fit, prune and prune with ``workers`` of one job, each timed ``runs`` times in turn: wall and CPU seconds."""
     best = xo_fit.fit(job, seed=1, budget=fit_budget)  # warm: kernels built or loaded, untimed
-    fits, prunes, pooled = [], [], []
+    got: dict = {"fit": [], "prune": [], "pooled": []}
     pr = None
     for _ in range(runs):
-        fits.append(timed(lambda: xo_fit.fit(job, seed=1, budget=fit_budget))[0])
-        t, pr = timed(lambda: xo_fit.prune(job, best, budget=budget))
-        prunes.append(t)
+        got["fit"].append(timed(lambda: xo_fit.fit(job, seed=1, budget=fit_budget))[:2])
+        *t, pr = timed(lambda: xo_fit.prune(job, best, budget=budget))
+        got["prune"].append(tuple(t))
         if workers > 1:
-            pooled.append(timed(lambda: xo_fit.prune(job, best, budget=budget, workers=workers))[0])
-    return {"job": job, "best": best, "pr": pr, "fit": fits, "prune": prunes, "pooled": pooled}
+            got["pooled"].append(timed(lambda: xo_fit.prune(job, best, budget=budget, workers=workers))[:2])
+    return {"job": job, "best": best, "pr": pr, **got}
 
 
 def show(r: dict, workers: int, budget: int | None) -> None:
     job, pr, best = r["job"], r["pr"], r["best"]
-    fit_s, prune_s = statistics.median(r["fit"]), statistics.median(r["prune"])
+    med = {k: (statistics.median(t[0] for t in r[k]), statistics.median(t[1] for t in r[k]))
+           for k in ("fit", "prune", "pooled") if r[k]}
+    (fit_s, fit_c), (prune_s, prune_c) = med["fit"], med["prune"]
     evals = best.sections["search"]["evaluations"]
-    line = (f"{job.name}: {len(job.valued_parts)} parts; fit {fit_s:.3f} s ({evals} evaluations, cost {best.cost:.4g});"
-            f" prune {prune_s:.3f} s ({len(pr.steps) - 1} steps, {len(pr.trials)} trial refits of "
-            f"{budget or 600} evaluations, {pr.evaluations} evaluations), prune / fit {prune_s / fit_s:.1f}")
-    if r["pooled"]:
-        pooled = statistics.median(r["pooled"])
-        line += f"; with --workers {workers} {pooled:.3f} s, {pooled / fit_s:.1f}x the fit"
-    print(line + " (goal <= 4)")
-    print("  seconds: fit " + ", ".join(f"{t:.3f}" for t in r["fit"]) + "; prune "
-          + ", ".join(f"{t:.3f}" for t in r["prune"])
-          + ("; pooled " + ", ".join(f"{t:.3f}" for t in r["pooled"]) if r["pooled"] else ""))
+    print(f"{job.name}: {len(job.valued_parts)} parts; fit {fit_s:.3f} s ({evals} evaluations, cost {best.cost:.4g}); "
+          f"prune {prune_s:.3f} s ({len(pr.steps) - 1} steps, {len(pr.trials)} trial refits of {budget or 600} "
+          f"evaluations, {pr.evaluations} evaluations)")
+    print(f"  prune / fit, one process: {prune_s / fit_s:.1f} wall, {prune_c / fit_c:.1f} CPU "
+          f"({prune_c:.3f} / {fit_c:.3f} CPU s) (goal <= 4)")
+    if "pooled" in med:
+        pooled_s, pooled_c = med["pooled"]
+        print(f"  with --workers {workers}: {pooled_s:.3f} s wall, {pooled_s / fit_s:.1f}x the fit's wall (goal <= 4); "
+              f"{pooled_c:.3f} CPU s in all")
+    print("  wall seconds: " + "; ".join(f"{k} " + ", ".join(f"{t[0]:.3f}" for t in r[k])
+                                         for k in ("fit", "prune", "pooled") if r[k]))
     print(f"  {'step':>4} {'parts':>5} {'removed':<8} {'how':<6} {'cost':>9} {'rms dB':>7} {'worst dB':>8}")
     for s in pr.steps:
         print(f"  {s['step']:>4} {s['parts']:>5} {s['removed']:<8} {s['how']:<6} {s['cost']:>9.4g} "

@@ -24,6 +24,7 @@ Trial removals are independent: with ``workers`` > 1 they run in processes.
 from __future__ import annotations
 
 import math
+import pickle
 import threading
 from dataclasses import dataclass, field
 
@@ -228,15 +229,16 @@ def _share(base, family: Family | None, targets) -> None:
 
 def _trial(args):
     """One trial removal in a worker process: (Scored, evaluations) of its refit, or None where the removal is no
-    legal netlist. ``args``: (the step's job, its design {name: value}, name, how, budget, seed, removed); the
-    step's system is derived from the shared starting system."""
+    legal netlist. ``args``: (the step's job pickled (once a step, not once a trial), its design {name: value},
+    name, how, budget, seed, removed); the step's system is derived from the shared starting system."""
     from xo_fit.model.system import derive_system
     from xo_fit.stages.removal import JobDocument
 
     job, values, name, how, budget, seed, removed = args
     step = _SHARED["step"]
-    if step is None or step[0] != job.document:
-        step = _SHARED["step"] = (job.document, derive_system(_SHARED["base"], job), JobDocument(job))
+    if step is None or step[0] != job:
+        loaded = pickle.loads(job)
+        step = _SHARED["step"] = (job, derive_system(_SHARED["base"], loaded), JobDocument(loaded))
     try:
         return trial(step[1], values, name, how, budget, seed, _SHARED["family"], removed, _SHARED["targets"],
                      step[2])
@@ -339,7 +341,8 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             gone = {r["removed"]: r["how"] for r in steps[1:]}
             options = [(p.name, how) for p in last_system.job.valued_parts if not p.keep for how in HOWS]
             if pool:  # each worker derives the removal's system and checks it too
-                args = [(last_system.job, values, name, how, budget, seed, {**gone, name: how})
+                job = pickle.dumps(last_system.job)
+                args = [(job, values, name, how, budget, seed, {**gone, name: how})
                         for name, how in options]
                 found = list(pool.map(_trial, args))
             else:
