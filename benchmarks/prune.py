@@ -5,8 +5,9 @@ same job (the fit at its job's default budget), on one core and with --workers 2
 Run: python benchmarks/prune.py [--runs 3] [--workers 2] [--smoke].
 Each job is loaded once and fitted once untimed (the kernels built or loaded from the cache); then fit, prune and
 prune with workers are timed in turn, --runs times each, and the medians quoted side by side (the machine is
-shared: the ratios are taken from runs interleaved in one process). --smoke prunes the 4-part handbook LR2 ladder
-with refits of 100 evaluations instead, once (the test suite's run).
+shared: the ratios are taken from runs interleaved in one process, in wall and in CPU seconds, which other work on
+the machine disturbs less; --workers: the wall, and the CPU of every process). --smoke prunes the 4-part handbook
+LR2 ladder with refits of 100 evaluations instead, once (the test suite's run).
 """
 
 from __future__ import annotations
