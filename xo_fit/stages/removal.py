@@ -104,7 +104,8 @@ def reduced_job(job, name: str | None, how: str, values: dict[str, float], sourc
     """
     from dataclasses import replace
 
-    from xo_fit.job.model import SOLVABLE, FrozenMap
+    from xo_fit.job.model import FrozenMap
+    from xo_fit.job.parts import SOLVABLE  # the reader's bounds on a part value
 
     source = source if source is not None else JobDocument(job)
     doc = removal_document(job, name, how, values, source)
