@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -211,3 +212,99 @@ def test_a_removal_as_a_stand_in_value_costs_what_the_reduced_netlist_costs(writ
         exact = score(s, v).cost
         stand_in = float(family.fused(family.embed(s, {name: how})(v[None]))[0])
         assert stand_in == pytest.approx(exact, rel=1e-4, abs=1e-6), (name, how)
+
+
+HARD = Path(__file__).parent / "data" / "hard-three-way.toml"
+
+
+def _same_system(derived, loaded, values: np.ndarray) -> None:
+    """What a prune uses of a reduced system: its netlist, grid, driver data and acoustic factors, and the solve."""
+    assert derived.part_names == loaded.part_names
+    assert derived.network.branches == loaded.network.branches
+    np.testing.assert_array_equal(derived.frequencies, loaded.frequencies)
+    np.testing.assert_array_equal(derived.network.driver_impedance, loaded.network.driver_impedance)
+    np.testing.assert_array_equal(derived.factors, loaded.factors)
+    a, b = derived.network.solve_reference(values), loaded.network.solve_reference(values)
+    np.testing.assert_allclose(a.voltages, b.voltages, rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(a.impedance, b.impedance, rtol=1e-12)
+
+
+@pytest.mark.parametrize("which", ["ladder", "hard"])
+def test_a_reduced_job_derived_from_the_loaded_one_is_the_removal_read_again(write_job, which):
+    """A prune derives each removal's job from the loaded job's parts and its system from the loaded system
+    (no reader, no data files read again). The reference is the reader itself [CP: load_job and load_system of
+    the removal's document, the path every removal took before]: for every removal (open and short) of every
+    part, at random values inside the ranges, the derived job has the same part specs, document and other tables,
+    and its system the same netlist, grid and driver data and the same dense solve to 1e-12."""
+    from dataclasses import fields
+
+    from xo_fit.stages.removal import HOWS, JobDocument, reduced_job, removal_document
+
+    path = _with_shunt(write_job)[0] if which == "ladder" else HARD
+    system = load_system(load_job(path))
+    rng = np.random.default_rng(3)
+    values = {p.name: p.min * (p.max / p.min) ** rng.random() if p.free else p.value for p in system.job.valued_parts}
+    source, seen = JobDocument(system.job), 0
+    for p in system.job.valued_parts:
+        for how in HOWS:
+            doc = removal_document(system.job, p.name, how, values)
+            job = reduced_job(system.job, p.name, how, values, source)
+            if doc is None:
+                assert job is None
+                continue
+            again = load_job(doc, base=system.job.folder)
+            for f in fields(again):
+                if f.name not in ("path", "part_lines", "warnings"):  # those of a file, not of a document
+                    assert getattr(job, f.name) == getattr(again, f.name), (p.name, how, f.name)
+            try:
+                loaded = load_system(again)
+            except xo_fit.XoFitError:
+                assert variant(system, p.name, how, values, check_dead=False) is None
+                continue
+            derived = variant(system, p.name, how, values, check_dead=False)
+            v = np.array([[values[n] for n in loaded.part_names]])
+            _same_system(derived, loaded, v * rng.uniform(0.7, 1.4, v.shape))
+            seen += 1
+    assert seen >= (5 if which == "ladder" else 20)
+
+
+def test_a_reduced_ladder_solves_as_its_circuit_by_hand(write_job):
+    """The LR2 woofer is a series L into a shunt C across an R = 8 ohm driver [DER, nodal analysis]: with C
+    opened the driver sees the divider Vs R / (R + j w L); with L shorted it sits across the source (Vs)."""
+    text, _ = ladder_job("LR2")
+    system = load_system(load_job(write_job(text)))
+    values = dict(zip(system.part_names, system.values()))
+    w = 2 * np.pi * system.frequencies
+    opened = variant(system, "wC1", "open")
+    v = np.array([values[n] for n in opened.part_names])
+    woofer = opened.network.solve_reference(v).voltages[0, 0]
+    np.testing.assert_allclose(woofer, 2.83 * 8.0 / (8.0 + 1j * w * values["wL0"]), rtol=1e-12)
+    shorted = variant(system, "wL0", "short")
+    v = np.array([values[n] for n in shorted.part_names])
+    np.testing.assert_allclose(shorted.network.solve_reference(v).voltages[0, 0], 2.83, rtol=1e-12)
+
+
+def test_the_dead_driver_check_by_topology_and_probes_is_the_whole_grids(write_job):
+    """A prune skips a removal that leaves a driver without voltage: decided first by topology (a driver with no
+    path to the source but through ground is at exactly 0 V [DER, Kirchhoff: no current enters its part of the
+    network]) and by a few grid points (a driver above the threshold at one is above it on the grid), the full
+    dense solve only when those do not settle it; the answer is the whole grid's for every removal of the ladder
+    and the hard three-way [CP: dead_driver on the full dense solve, the check as it was]."""
+    from xo_fit.stages.removal import HOWS, cut_off, dead_at, dead_driver
+
+    path, _ = _with_shunt(write_job)
+    dead = 0
+    for system in (load_system(load_job(path)), load_system(load_job(HARD))):
+        values = dict(zip(system.part_names, system.values()))
+        for p in system.job.valued_parts:
+            for how in HOWS:
+                s = variant(system, p.name, how, values, check_dead=False)
+                if s is None:
+                    continue
+                v = np.array([values[n] for n in s.part_names])
+                volts = s.network.solve_reference(v).voltages
+                assert dead_at(s, v) == dead_driver(s, volts), (p.name, how)
+                if cut_off(s.network):
+                    assert np.any(np.max(np.abs(volts[0]), axis=-1) == 0.0), (p.name, how)
+                dead += dead_driver(s, volts)
+    assert dead >= 2  # the ladder's series parts opened, at least

@@ -463,12 +463,15 @@ def _acoustic_factors(job: Job, drivers: tuple, placements: tuple, positions: tu
 def derive_system(system: System, job: Job) -> System:
     """``system`` for a job with another netlist over the same drivers and grid (a part removed, say): the
     network is built anew, the drivers' data reused. Raises JobError when the netlist is not a legal one."""
-    check_netlist(job)
     if [d.name for d in job.drivers] != [d.name for d in system.job.drivers]:
         raise JobError("a derived job must keep the drivers", path=job.path)
-    network = compile_network(branches_for(job), [d.name for d in job.drivers], system.frequencies,
-                              system.network.driver_impedance, job.source_voltage, job.source_resistance,
-                              context=str(job.path) if job.path else None)
+    try:
+        network = compile_network(branches_for(job), [d.name for d in job.drivers], system.frequencies,
+                                  system.network.driver_impedance, job.source_voltage, job.source_resistance,
+                                  context=str(job.path) if job.path else None)
+    except NetworkError:
+        check_netlist(job)  # the netlist's own fault, as a JobError at the part's line (it checks as compiling does)
+        raise
     return System(job=job, frequencies=system.frequencies, drivers=system.drivers, network=network,
                   factors=system.factors, warnings=(), positions=system.positions,
                   angle_factors=system.angle_factors, placements=system.placements)

@@ -49,16 +49,27 @@ def worker_init(event: Event | None) -> None:
         os.environ.setdefault(var, "1")
 
 
-def stopping_pool(workers: int):
+def stopping_pool(workers: int, initializer=None, initargs: tuple = ()):
     """A ProcessPoolExecutor of ``workers`` processes whose searches stop when the returned event is set, and the
-    event: (pool, event)."""
+    event: (pool, event). ``initializer(*initargs)``, where given, runs in each worker after :func:`worker_init`
+    (what every task of the pool shares, handed over once per worker rather than once per task)."""
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
     ctx = multiprocessing.get_context()
     event = ctx.Event()
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_init, initargs=(event,))
+    if initializer is None:
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=worker_init, initargs=(event,))
+    else:
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_init_with,
+                                   initargs=(event, initializer, initargs))
     return pool, event
+
+
+def _init_with(event: Event | None, initializer, initargs: tuple) -> None:
+    """Pool initializer: :func:`worker_init`, then the caller's own."""
+    worker_init(event)
+    initializer(*initargs)
 
 
 @contextlib.contextmanager

@@ -71,14 +71,20 @@ def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
         return _run(setulb, fun, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
 
 
+_controller: list = []  # threadpoolctl's view of the loaded libraries, found once (a search of the process's maps)
+
+
 def _one_blas_thread():
     """A context with one BLAS thread: the routine's products are of size n x MAXCOR, and waking OpenBLAS's
     threads for each of them cost a whole fit of the hard three-way 40 % of its time on two cores (0.19 s against
-    0.11 s, measured); a no-op without threadpoolctl."""
+    0.11 s, measured); a no-op without threadpoolctl. The libraries are looked up once per process (about 1 ms
+    each time, which a prune's hundreds of short polishes would pay again and again)."""
     try:
-        from threadpoolctl import threadpool_limits
+        if not _controller:
+            from threadpoolctl import ThreadpoolController
 
-        return threadpool_limits(limits=1, user_api="blas")
+            _controller.append(ThreadpoolController())
+        return _controller[0].limit(limits=1, user_api="blas")
     except Exception:  # noqa: BLE001 - threadpoolctl missing or failing: run as it is
         import contextlib
 

@@ -24,6 +24,8 @@ Trial removals are independent: with ``workers`` > 1 they run in processes.
 from __future__ import annotations
 
 import math
+import pickle
+import threading
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -31,7 +33,7 @@ import numpy as np
 from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
 from xo_fit.model.fused import FusedCost
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
-from xo_fit.stages.removal import removals
+from xo_fit.stages.removal import HOWS, JobDocument, variant
 
 PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
                  "impedance_min_ohm"]
@@ -102,26 +104,50 @@ STAND_IN_PIVOT = 1e-11
 
 
 class StandInCost(FusedCost):
-    """The fused cost with its pivot check at STAND_IN_PIVOT (the family's kernel; same text, same build)."""
+    """The fused cost with its pivot check at STAND_IN_PIVOT (the family's kernel; same text, same build).
+
+    Its designs are the family's own (:meth:`Family.embed`: (B, P), finite, above zero), so the arguments skip the
+    network's checks and reuse the constant ones and one scratch per thread: a prune calls it thousands of times
+    on a few dozen designs each, where those checks cost as much as a tenth of the kernel's own time."""
 
     def kernel_args(self, values: np.ndarray) -> tuple:
-        args = list(super().kernel_args(values))
-        args[6] = float(STAND_IN_PIVOT**2)
-        return tuple(args)
+        fixed = self.__dict__.get("_fixed")
+        if fixed is None:
+            k = self.net._kernel_args()
+            fixed = self._fixed = (len(self.net.valued), k["r_coef"], k["r_exp"], k["fin"],
+                                   float(self.net.source_voltage), float(self.net.source_resistance),
+                                   float(STAND_IN_PIVOT**2), self.tgt, self.ang, self.angw)
+        v = np.ascontiguousarray(values, dtype=float)
+        if v.ndim != 2 or v.shape[1] != fixed[0]:
+            args = list(super().kernel_args(values))  # checked (and refused) as any design is
+            args[6] = float(STAND_IN_PIVOT**2)
+            return tuple(args)
+        scratch = self.__dict__.setdefault("_scratch", {})
+        rows = scratch.get(threading.get_ident())
+        if rows is None:
+            rows = scratch[threading.get_ident()] = np.empty((self.scratch_rows, self.net.frequencies.size))
+        out = np.empty((v.shape[0], self.col_limits + (5 if self.limit_code is not None else 0)))
+        return (v, *fixed[1:], rows, out)
+
+    def __getstate__(self) -> dict:
+        state = super().__getstate__()
+        state.pop("_scratch", None)
+        return state
 
 
 def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None,
-          light: bool = False):
+          light: bool = False, targets=None):
     """The system's free values refitted from its job's values (the start): (Scored, evaluations).
 
     With ``family`` (and ``removed``, the parts the system lacks against the family's: {name: how}) the search
     runs on the family's compiled kernel; else on the dense solve. Either way the design found is scored on
     the system's own netlist, so the costs reported are exact (``light``: its cost alone, no metrics: a
-    Scored with ``sim`` None, to be scored in full if taken)."""
-    from xo_fit.search.fitting import require_cost_model, score
+    Scored with ``sim`` None, to be scored in full if taken). ``targets``: the job's targets where already built
+    (they do not change when a part is removed)."""
+    from xo_fit.search.fitting import score
     from xo_fit.search.engines import make_space, search
 
-    model = require_cost_model(system, "prune against")
+    model = model_of(system, targets)
     cm, _ = model
     if not system.job.free_parts:
         return score(system, system.values(), model), 0
@@ -158,16 +184,30 @@ def refit(system, budget: int, seed: int, family: Family | None = None, removed:
     return scored, r.evaluations
 
 
+def model_of(system, targets=None):
+    """The system's cost model and targets: (CostModel, Targets), the targets built here unless given (a reduced
+    system's are its starting system's: nothing they depend on changes when a part is removed). Raises JobError
+    where the job has no way targets."""
+    from xo_fit.model.cost import CostModel
+    from xo_fit.search.fitting import require_cost_model
+
+    if targets is None:
+        return require_cost_model(system, "prune against")
+    return CostModel(system, targets), targets
+
+
 class Interrupted(KeyboardInterrupt):
     """A refit stopped by Ctrl-C or SIGTERM: ``args`` = (its best design so far as Scored, evaluations)."""
 
 
-def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
+def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list[str]]:
     """The total violation of the job's [limits] by design ``values`` (P,) and the limits it breaks (0, []
-    without limits or targets)."""
+    without limits or targets; ``targets`` as in :func:`refit`)."""
     from xo_fit.search.fitting import cost_model
 
-    model = cost_model(system)
+    if not system.job.limits.active:
+        return 0.0, []
+    model = cost_model(system) if targets is None else model_of(system, targets)
     if model is None or model[0].limits is None:
         return 0.0, []
     v = np.asarray(values, dtype=float)[None]
@@ -176,14 +216,45 @@ def broken_limits(system, values: np.ndarray) -> tuple[float, list[str]]:
     return float(violations["total"][0]), [n for n in LIMIT_NAMES if violations[n][0] > 0]
 
 
+#: What every trial of a prune shares in a worker process (:func:`_share`): the starting system (its driver data,
+#: grid and off-axis data serve every reduced job), the family and the targets, handed over once per worker; and
+#: the step's system and document (``step``: derived once per step, from the first of its trials the worker runs).
+_SHARED: dict = {}
+
+
+def _share(base, family: Family | None, targets) -> None:
+    """Pool initializer: what the trials of this prune share (see :data:`_SHARED`)."""
+    _SHARED.update(base=base, family=family, targets=targets, step=None)
+
+
 def _trial(args):
-    """One trial removal, refitted (in a worker process or here): (name, how, Scored, system, evaluations)."""
-    name, how, system, budget, seed, family, removed = args
+    """One trial removal in a worker process: (Scored, evaluations) of its refit, or None where the removal is no
+    legal netlist. ``args``: (the step's job pickled (once a step, not once a trial), its design {name: value},
+    name, how, budget, seed, removed); the step's system is derived from the shared starting system."""
+    from xo_fit.model.system import derive_system
+    from xo_fit.stages.removal import JobDocument
+
+    job, values, name, how, budget, seed, removed = args
+    step = _SHARED["step"]
+    if step is None or step[0] != job:
+        loaded = pickle.loads(job)
+        step = _SHARED["step"] = (job, derive_system(_SHARED["base"], loaded), JobDocument(loaded))
     try:
-        scored, n = refit(system, budget, seed, family, removed, light=True)
+        return trial(step[1], values, name, how, budget, seed, _SHARED["family"], removed, _SHARED["targets"],
+                     step[2])
     except Interrupted:
         raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
-    return name, how, scored, system, n
+
+
+def trial(system, values: dict, name: str, how: str, budget: int, seed: int, family: Family | None, removed: dict,
+          targets, source=None):
+    """One trial removal from ``system`` at design ``values`` ({name: value}): (Scored, evaluations) of the reduced
+    system's refit (``light``, see :func:`refit`), or None where the removal is no legal netlist (see
+    :func:`xo_fit.stages.removal.variant`; ``source``: the system's job's JobDocument)."""
+    s = variant(system, name, how, values, source=source)
+    if s is None:
+        return None
+    return refit(s, budget, seed, family, removed, light=True, targets=targets)
 
 
 @dataclass(eq=False)
@@ -212,20 +283,20 @@ def _row(step: int, system, scored, removed: str, how: str) -> dict:
 def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int | None = None,
               max_increase: float = MAX_INCREASE, workers: int = 1, progress=None) -> PruneRun:
     """Greedy backward elimination from design ``start`` (P,) of ``system``; see the module's docstring."""
-    from xo_fit.job.reader import load_job
-    from xo_fit.stages.removal import removal_document
+    from xo_fit.stages.removal import reduced_job
     from xo_fit.model.system import derive_system
 
     budget = budget or REFIT_BUDGET
     seed = system.job.search.seed if seed is None else seed
     values = dict(zip(system.part_names, np.asarray(start, dtype=float)))
-    doc = removal_document(system.job, None, "none", values)
-    assert doc is not None, "with no part removed there is always a document"
-    current = derive_system(system, load_job(doc, base=system.job.folder))
+    job = reduced_job(system.job, None, "none", values)
+    assert job is not None, "with no part removed there is always a job"
+    current = derive_system(system, job)
     interrupted = False
     family = Family.of(current)
+    targets = model_of(current)[1]
     try:
-        scored, evaluations = refit(current, budget, seed, family, {})
+        scored, evaluations = refit(current, budget, seed, family, {}, targets=targets)
     except Interrupted as e:  # step 0 stopped early: its best so far is the only step
         (scored, evaluations), interrupted = e.args, True
     steps, states = [_row(0, current, scored, "", "")], [(current, scored)]
@@ -233,7 +304,7 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     spent = [evaluations]
     if not interrupted:
         try:
-            _eliminate(steps, states, trials, spent, budget, seed, workers, progress, family)
+            _eliminate(steps, states, trials, spent, budget, seed, workers, progress, family, targets)
         except KeyboardInterrupt:  # Ctrl-C or SIGTERM: the steps taken so far are kept, the step under way is not
             interrupted = True
     evaluations = spent[0]
@@ -249,43 +320,61 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
 
 
 def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int, seed: int, workers: int,
-               progress, family: Family | None = None) -> None:
+               progress, family: Family | None = None, targets=None) -> None:
     """The elimination steps after step 0, appended to ``steps``, ``states`` and ``trials``; the evaluations of
-    each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1;
-    their refits search on ``family``'s kernel where given (see :class:`Family`)."""
+    each finished step are added to ``spent[0]``. Trial removals run in ``workers`` processes when more than 1
+    (each gets the starting system, ``family`` and ``targets`` once, and per trial the step's job, its design and
+    the removal, whose system it derives and checks itself); their refits search on ``family``'s kernel where
+    given (see :class:`Family`)."""
     from xo_fit.search.fitting import score
 
     pool = stop = None
     if workers > 1:
         from xo_fit.search.interrupt import stopping_pool
 
-        pool, stop = stopping_pool(workers)
+        pool, stop = stopping_pool(workers, _share, (states[0][0], family, targets))
     try:
         while True:
             last_system, last_scored = states[-1]
-            options = removals(last_system, dict(zip(last_system.part_names, last_scored.values)))
-            if not options:
-                break
+            values = dict(zip(last_system.part_names, last_scored.values))
+            source = JobDocument(last_system.job)
             gone = {r["removed"]: r["how"] for r in steps[1:]}
-            args = [(name, how, s, budget, seed, family, {**gone, name: how}) for name, how, s in options]
-            results = list(pool.map(_trial, args)) if pool else [_trial(a) for a in args]
-            allowed, _ = broken_limits(last_system, last_scored.values)
+            options = [(p.name, how) for p in last_system.job.valued_parts if not p.keep for how in HOWS]
+            if pool:  # each worker derives the removal's system and checks it too
+                job = pickle.dumps(last_system.job)
+                args = [(job, values, name, how, budget, seed, {**gone, name: how})
+                        for name, how in options]
+                found = list(pool.map(_trial, args))
+            else:
+                found = [trial(last_system, values, name, how, budget, seed, family, {**gone, name: how}, targets,
+                               source) for name, how in options]
+            if not any(f is not None for f in found):
+                break
+            allowed, _ = broken_limits(last_system, last_scored.values, targets)
             feasible = []
-            for r in results:
-                name, how, sc, s, n = r
+            for (name, how), got in zip(options, found):
+                if got is None:
+                    continue
+                sc, n = got
                 spent[0] += n
                 trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
                 if sc.cost is None or not math.isfinite(sc.cost):
                     continue
-                violation, broken = broken_limits(s, sc.values)
-                if violation > allowed + 1e-12:  # it breaks a limit the current design meets: refused
-                    trials[-1]["refused"] = broken
-                    continue
-                feasible.append(r)
+                s = None
+                if last_system.job.limits.active:
+                    s = variant(last_system, name, how, values, check_dead=False, source=source)
+                    assert s is not None, "a removal refitted is a legal one"
+                    violation, broken = broken_limits(s, sc.values, targets)
+                    if violation > allowed + 1e-12:  # it breaks a limit the current design meets: refused
+                        trials[-1]["refused"] = broken
+                        continue
+                feasible.append((name, how, sc, s))
             if not feasible:
                 break
-            name, how, sc, s, _ = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))
-            sc = score(s, sc.values)  # the trial's cost, its terms and metrics
+            name, how, sc, s = min(feasible, key=lambda r: (r[2].cost, r[0], r[1]))
+            s = s if s is not None else variant(last_system, name, how, values, check_dead=False, source=source)
+            assert s is not None, "a removal refitted is a legal one"
+            sc = score(s, sc.values, model_of(s, targets))  # the trial's cost, its terms and metrics
             steps.append(_row(len(steps), s, sc, name, how))
             states.append((s, sc))
             if progress:

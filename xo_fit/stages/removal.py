@@ -9,6 +9,7 @@ less than 1 % of it (the ``negligible`` finding).
 
 from __future__ import annotations
 
+import json
 import math
 from typing import TYPE_CHECKING
 
@@ -32,12 +33,42 @@ IDLE_MAX_NODES = 64
 DEAD_DRIVER = 1e-9
 
 
-def removal_document(job, name: str | None, how: str, values: dict[str, float]) -> dict | None:
+class JobDocument:
+    """A job's document read once for its many removals: ``data`` (the parsed document, never changed: each
+    removal copies the part tables it edits), the part specs by name, and the document's JSON text around its
+    part list (a removal's text is that with its own part list, the same text as ``json.dumps`` of the whole)."""
+
+    #: Stands for the part list in the JSON text split around it.
+    MARK = "\x00xo_fit parts\x00"
+
+    def __init__(self, job) -> None:
+        self.job = job
+        self.data = job.data
+        self.specs = {p.name: p for p in job.parts}
+        text = json.dumps({**self.data, "part": self.MARK}, default=str)
+        pieces = text.split(json.dumps(self.MARK))
+        self.around = (pieces[0], pieces[1]) if len(pieces) == 2 and "part" in self.data else None
+
+    def fresh(self) -> dict:
+        """A document to edit: the parsed one with copies of its part tables."""
+        return {**self.data, "part": [dict(p) for p in self.data.get("part", [])]}
+
+    def text(self, doc: dict) -> str:
+        """``json.dumps(doc, default=str)`` of a document :meth:`fresh` gave, its part list edited."""
+        if self.around is None:
+            return json.dumps(doc, default=str)
+        return self.around[0] + json.dumps(doc["part"], default=str) + self.around[1]
+
+
+def removal_document(job, name: str | None, how: str, values: dict[str, float],
+                     source: JobDocument | None = None) -> dict | None:
     """The job's document without part ``name`` (``how`` = "open" or "short"; None: no part removed), the other
     parts' values set to ``values`` (SI, clamped into their ranges); None when the short would join the source's
-    two terminals or put some other part across a single node."""
-    doc = job.data
-    parts = doc.get("part", [])
+    two terminals or put some other part across a single node. ``source``: the job's :class:`JobDocument`, where
+    many removals of one job are made."""
+    source = source if source is not None else JobDocument(job)
+    doc = source.fresh()
+    parts = doc["part"]
     gone = next((p for p in parts if p.get("name") == name), None) if name is not None else None
     rest = [p for p in parts if p is not gone]
     if gone is not None and how == "short":
@@ -52,7 +83,7 @@ def removal_document(job, name: str | None, how: str, values: dict[str, float]) 
             return None  # a driver (or another part) would sit across one node
     for p in rest:
         if p.get("name") in values and p.get("type") != "driver":
-            spec = job.part(p["name"])
+            spec = source.specs[p["name"]]
             v = float(values[p["name"]])
             if spec.free:
                 v = min(max(v, spec.min), spec.max)
@@ -61,25 +92,111 @@ def removal_document(job, name: str | None, how: str, values: dict[str, float]) 
     return doc
 
 
+def reduced_job(job, name: str | None, how: str, values: dict[str, float], source: JobDocument | None = None):
+    """The job without part ``name`` (as :func:`removal_document`; None: no part removed, the values set), or None
+    when the short is no legal netlist; built from ``job``'s own parts, as :func:`xo_fit.job.reader.load_job` would
+    read the document (the part specs, the document and the other tables the same), without reading it again.
+    ``source``: the job's :class:`JobDocument`, where many removals of one job are made.
+
+    The derived job has no path, part lines or warnings (those of the job file were given when it was read). A
+    part value that would not pass the reader (a fixed value outside what the arithmetic takes) sends the document
+    through :func:`~xo_fit.job.reader.load_job` instead, which raises its JobError. Raises XoFitError there only.
+    """
+    from dataclasses import replace
+
+    from xo_fit.job.model import FrozenMap
+    from xo_fit.job.parts import SOLVABLE  # the reader's bounds on a part value
+
+    source = source if source is not None else JobDocument(job)
+    doc = removal_document(job, name, how, values, source)
+    if doc is None:
+        return None
+    parts = []
+    for p in doc["part"]:
+        spec = source.specs[p["name"]]
+        nodes = (str(p["nodes"][0]).strip(), str(p["nodes"][1]).strip())
+        value = float(p["value"]) if spec.type != "driver" and spec.name in values else spec.value
+        if value is not None and not (SOLVABLE[0] <= value <= SOLVABLE[1]
+                                      and (spec.min is None or spec.min <= value <= spec.max)):
+            from xo_fit.job.reader import load_job
+
+            return load_job(doc, base=job.folder, copy=False)  # raises what the reader says of the value
+        parts.append(spec if (nodes, value) == (spec.nodes, spec.value) else _moved(spec, nodes, value))
+    return replace(job, parts=tuple(parts), path=None, document=source.text(doc), part_lines=FrozenMap(),
+                   warnings=(), swept=FrozenMap())
+
+
+def _moved(spec, nodes: tuple[str, str], value: float | None):
+    """``dataclasses.replace(spec, nodes=nodes, value=value)`` of a frozen PartSpec, without its __init__ (a prune
+    makes thousands; the fields are the reader's, checked, and these two are the caller's, checked)."""
+    new = object.__new__(type(spec))
+    new.__dict__.update(spec.__dict__)
+    new.__dict__["nodes"], new.__dict__["value"] = nodes, value
+    return new
+
+
 def variant(system: System, name: str, how: str, values: dict[str, float] | None = None, *,
-            check_dead: bool = True) -> System | None:
+            check_dead: bool = True, source: JobDocument | None = None) -> System | None:
     """The system without part ``name`` (opened or shorted), or None when that is no legal netlist: a node left
     hanging, the source or a driver shorted, or (``check_dead``; else see :func:`dead_driver`) a driver that no
-    longer sees any voltage (it hangs from ground alone)."""
-    from xo_fit.job.reader import load_job
+    longer sees any voltage (it hangs from ground alone). The driver data, grid and off-axis data are
+    ``system``'s (:func:`~xo_fit.model.system.derive_system`); the job is :func:`reduced_job`'s (``source``: the
+    system's job's :class:`JobDocument`, where many removals of one job are made)."""
     from xo_fit.model.system import derive_system
 
     values = values if values is not None else dict(zip(system.part_names, system.values()))
-    doc = removal_document(system.job, name, how, values)
-    if doc is None:
-        return None
     try:
-        s = derive_system(system, load_job(doc, base=system.job.folder, copy=False))  # doc is a fresh dict
+        job = reduced_job(system.job, name, how, values, source)
+        if job is None:
+            return None
+        s = derive_system(system, job)
     except XoFitError:
         return None
-    if check_dead and dead_driver(s, s.network.solve_reference(np.array([values[n] for n in s.part_names])).voltages):
+    if check_dead and dead_at(s, np.array([values[n] for n in s.part_names])):
         return None
     return s
+
+
+#: Grid points the dead-driver check solves first (spread over the grid): a driver that sees the threshold at one
+#: of them is alive, exactly as on the whole grid; only where some driver stays below at all of them is the whole
+#: grid solved.
+DEAD_PROBES = 8
+
+
+def dead_at(system, values: np.ndarray) -> bool:
+    """:func:`dead_driver` of design ``values`` (P,), with the same answer for less work: a driver cut off from the
+    source (:func:`cut_off`) sees exactly no voltage; else the dense solve at :data:`DEAD_PROBES` points of the grid
+    settles it where every driver reaches the threshold at one of them (as the whole grid then would), and the
+    whole grid is solved only where some driver does not."""
+    from xo_fit.solver.dense import solve_dense
+
+    if cut_off(system.network):
+        return True
+    v = np.asarray(values, dtype=float)
+    nf = system.frequencies.size
+    probes = np.unique(np.linspace(0, nf - 1, min(DEAD_PROBES, nf)).round().astype(int))
+    sol = solve_dense(system.network, np.repeat(v[None], probes.size, axis=0), probes)  # voltages (M, D)
+    if np.all(np.max(np.abs(sol.voltages), axis=0) >= DEAD_DRIVER * abs(system.job.source_voltage)):
+        return False
+    return dead_driver(system, system.network.solve_reference(v).voltages)
+
+
+def cut_off(network) -> bool:
+    """Whether some driver hangs from ground alone: no path of parts (drivers included) leads from the source's
+    node to either of its terminals without passing through ground, so no current reaches it and both its
+    terminals stay at exactly 0 V at every frequency, whatever the values."""
+    links: dict[str, list[str]] = {}
+    for br in network.branches:
+        if GROUND_NODE not in (br.a, br.b):
+            links.setdefault(br.a, []).append(br.b)
+            links.setdefault(br.b, []).append(br.a)
+    reached, todo = {SOURCE_NODE}, [SOURCE_NODE]
+    while todo:
+        for n in links.get(todo.pop(), ()):
+            if n not in reached:
+                reached.add(n)
+                todo.append(n)
+    return any(br.kind == "D" and br.a not in reached and br.b not in reached for br in network.branches)
 
 
 def dead_driver(system, voltages: np.ndarray) -> bool:
@@ -92,11 +209,12 @@ def removals(system: System, values: dict[str, float], *, protect: bool = True,
     """Every legal removal of an R, L or C part: (name, how, system without it). ``protect`` skips parts with
     ``keep = true``; ``check_dead`` as in :func:`variant`."""
     out = []
+    source = JobDocument(system.job)
     for p in system.job.valued_parts:
         if protect and p.keep:
             continue
         for how in HOWS:
-            s = variant(system, p.name, how, values, check_dead=check_dead)
+            s = variant(system, p.name, how, values, check_dead=check_dead, source=source)
             if s is not None:
                 out.append((p.name, how, s))
     return out
