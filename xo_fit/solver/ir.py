@@ -46,6 +46,7 @@ class Expr:
     """An expression; Python's arithmetic operators and ``< <= > >=`` on it build new ones."""
 
     __slots__ = ()
+    __array_ufunc__ = None  # numpy's numbers and arrays leave the operators to the expression
     ty: str
 
     def __add__(self, o):
@@ -463,3 +464,17 @@ class Function:
     body: tuple[Stmt, ...]
     fastmath: tuple[str, ...] = ("contract",)
 
+
+
+class Declared:
+    """What a generator has declared in one block: :meth:`set` declares a name the first time (:class:`Let`)
+    and assigns it after (:class:`Assign`), for a name set again and again in that block."""
+
+    def __init__(self) -> None:
+        self.names: set[str] = set()
+
+    def set(self, var: Var, value) -> Stmt:
+        if var.name in self.names:
+            return Assign(var, wrap(value))
+        self.names.add(var.name)
+        return Let(var, wrap(value))
