@@ -143,18 +143,15 @@ def ngspice_rate(system, sweeps: tuple[int, int] = (50, 250)) -> float | None:
 
 def flops_per_point(net) -> int:
     """Floating-point operations of the generated code per (candidate, frequency) point: the arithmetic
-    operators and calls of the loop body (a division or a square root counted as one)."""
-    import re as _re
-
+    operators and calls of the loop body's IR (a division or a square root counted as one)."""
+    from xo_fit.solver import ir
     from xo_fit.solver.codegen import solver_code
+    from xo_fit.solver.ir_kernel import expressions, walk
 
     code = solver_code(net)
-    lines = list(code.body) + [e for pair in code.volts + (code.zin,) for e in pair]
-    ops = 0
-    for line in lines:
-        rhs = line.split("=", 1)[1] if "=" in line else line
-        ops += len(_re.findall(r"(?<![eE])[-+*/](?!\*)", rhs)) + len(_re.findall(r"\b(abs|max|sqrt)\(", rhs))
-    return ops
+    exprs = list(expressions(code.body)) + [e for pair in code.volts + (code.zin,) for e in pair]
+    return sum(isinstance(x, (ir.Bin, ir.Neg)) or (isinstance(x, ir.Call) and x.fn in ("abs", "max", "sqrt"))
+               for e in exprs for x in walk(e))
 
 
 def peak_flops(seconds: float = 0.2) -> float:

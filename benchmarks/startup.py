@@ -7,7 +7,7 @@ several runs of a fresh process (the machine is shared).
 Warm means the kernel cache holds the topology's kernels; with a C compiler (the default) these are standalone
 C builds (xo_fit.solver.standalone: they load without numba). "numba kernel" is the same with
 XO_FIT_STANDALONE=0 (numba's cached kernel). Empty cache means a topology this machine has never seen: with a
-compiler its kernel is translated to C and built in-line (once); with XO_FIT_STANDALONE=0 numba compiles it.
+compiler its kernel is printed as C and built in-line (once); with XO_FIT_STANDALONE=0 numba compiles it.
 
 Run: python benchmarks/startup.py [--runs 5] [--smoke]
 (--smoke: one run of each warm figure, no numba kernel and no empty cache: the test suite's run)
@@ -86,11 +86,10 @@ v = np.ascontiguousarray(space.values(np.random.default_rng(1).random((512, len(
 def args():
     return fc.kernel_args(v)
 import tempfile, pathlib
-dims = standalone.ndims(standalone.COST_SIGNATURE)
-fixed = standalone.inner_dims(args(), standalone._parameters(fc.text(), "cost_kernel"), dims)  # as a fit builds it
-lib = standalone.build(fc.text(), "cost_kernel", standalone.COST_SIGNATURE, pathlib.Path(tempfile.mkdtemp()) / "k.so",
+fixed = standalone.inner_dims(args(), fc.ir())  # as a fit builds it
+lib = standalone.build(fc.ir(), pathlib.Path(tempfile.mkdtemp()) / "k.so",
                        fixed=fixed)
-c = standalone.open_built(lib, fc.text(), "cost_kernel", standalone.COST_SIGNATURE, fixed)
+c = standalone.open_built(lib, fc.ir(), fixed)
 ns = {}
 exec(compile(fc.text().replace("cache=True, ", ""), "<kernel>", "exec"), ns)
 jit = ns["cost_kernel"]

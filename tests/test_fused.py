@@ -122,7 +122,7 @@ def test_the_stress_term_in_the_fused_kernel_equals_the_reference(tmp_path):
 ])
 def test_the_preference_term_in_the_fused_kernel_equals_the_reference(tmp_path, edit):
     """[cost] preference: Olive's score of every candidate, computed in the generated kernel (built in C where
-    there is a compiler: its text is in the translator's subset) as xo_fit.model.preference computes it, to
+    there is a compiler: its IR prints as C) as xo_fit.model.preference computes it, to
     1e-9 [CP: the reference implementation, itself checked against hand computations in test_preference]; the
     other terms unchanged by the wider frequency loop."""
     from xo_fit.model.acoustics import preference_of

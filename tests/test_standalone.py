@@ -1,5 +1,6 @@
-"""Standalone kernels: the generated kernels built by the C compiler (xo_fit.solver.standalone) against the same
-text compiled by numba (a second, independent compiler of the same code), and the fallbacks.
+"""Standalone kernels: the generated kernels printed as C and built by the C compiler (xo_fit.solver.standalone)
+against the same IR printed as Python and compiled by numba (a second, independent compiler of the same code),
+and the fallbacks.
 
 Needs a C compiler; a missing one skips locally, while CI sets XO_FIT_REQUIRE_STANDALONE=1, which turns the
 skip into a failure.
@@ -18,7 +19,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from xo_fit.solver import ctranslate, standalone
+from xo_fit.solver import ir, standalone
+from xo_fit.solver.ir import Array, Function, Return, f8, i8, let, loop, update
+from xo_fit.solver.ir_kernel import Kernel
+from xo_fit.solver.ir_python import text as python_text
 
 ROOT = Path(__file__).resolve().parents[1]
 JOB = ROOT / "tests" / "data" / "hard-three-way.toml"
@@ -87,12 +91,10 @@ def test_the_c_build_computes_what_numba_computes(tmp_path, job):
     else:
         path = ROOT / "tests" / "data" / job
     s, fc, args = _kernel_args(path)
-    src = fc.text()
-    fixed = standalone.inner_dims(args(), standalone._parameters(src, "cost_kernel"),
-                                  standalone.ndims(standalone.COST_SIGNATURE))  # as a run builds it
-    lib = standalone.build(src, "cost_kernel", standalone.COST_SIGNATURE, tmp_path / "k.so", fixed=fixed)
-
-    ck = standalone.open_built(lib, src, "cost_kernel", standalone.COST_SIGNATURE, fixed)
+    src, kern = fc.text(), fc.ir()
+    fixed = standalone.inner_dims(args(), kern)  # as a run builds it
+    lib = standalone.build(kern, tmp_path / "k.so", fixed=fixed)
+    ck = standalone.open_built(lib, kern, fixed)
     ns: dict = {}
     exec(compile(src.replace("cache=True, ", ""), "<kernel>", "exec"), ns)
     a, b = args(), args()
@@ -125,22 +127,19 @@ def _fallback_probe():
     return calls, fallback
 
 
-SUM = """
-import numba
+def _row_sums(repeat: int = 1, comment: str = "") -> Kernel:
+    """``k(a, out)``: each row's sum (``repeat`` times over) into ``out[:, 0]``; returns the number of rows."""
+    a, out = Array("a", 2), Array("out", 2)
+    n, m, i, j, r, s = i8("n"), i8("m"), i8("i"), i8("j"), i8("r"), f8("s")
+    inner = loop(j, None, m, [update(s, a[i, j])])
+    body = [let(n, a.shape(0)), let(m, a.shape(1)),
+            loop(i, None, n, [let(s, 0.0), loop(r, None, repeat, [inner]) if repeat > 1 else inner,
+                              out.store((i, 0), s)]),
+            Return(n)]
+    return Kernel(Function("k", (a, out), tuple(body)), comments=(comment,) if comment else ())
 
 
-@numba.njit(fastmath={"contract"})
-def k(a, out):
-    n = a.shape[0]
-    m = a.shape[1]
-    for i in range(n):
-        s = 0.0
-        for j in range(m):
-            s += a[i, j]
-        out[i, 0] = s
-    return n
-"""
-SUM_SIG = "i8(f8[:,::1], f8[:,::1])"
+SUM = _row_sums()
 
 
 def _sum_call(k) -> None:
@@ -163,7 +162,7 @@ def test_a_compiler_s_rejection_leaves_a_note_for_that_key_and_compiler_only(tmp
     bad = _fake_cc(tmp_path / "bad-cc", "99.0", "echo 'kernel.c:3:1: error: broken' >&2\nexit 3")
     monkeypatch.setenv("CC", bad)
     with caplog.at_level(logging.INFO, logger="xo_fit"):
-        k = standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback)
+        k = standalone.load(tmp_path, SUM, fallback)
         _sum_call(k)
     assert calls == [1] and k.backend == "numba"
     assert "bad-cc failed (3): kernel.c:3:1: error: broken" in caplog.text  # logged, not raised
@@ -171,17 +170,17 @@ def test_a_compiler_s_rejection_leaves_a_note_for_that_key_and_compiler_only(tmp
     assert len(notes) == 1 and notes[0].endswith(".failed")
     assert not list(tmp_path.glob(".xo_c_build_*")) and not list(tmp_path.glob("*tmp*"))
     # the same C and the same compiler: numba at once, no build
-    monkeypatch.setattr(standalone, "_compile_into", lambda *a, **k: pytest.fail("built again after a rejection"))
-    _sum_call(standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback))
+    monkeypatch.setattr(standalone, "compile_into", lambda *a, **k: pytest.fail("built again after a rejection"))
+    _sum_call(standalone.load(tmp_path, SUM, fallback))
     assert calls == [1, 1]
     monkeypatch.undo()
     # another version of the compiler (its -v says so) is tried; the note does not stop another kernel either
     monkeypatch.setenv("CC", _fake_cc(tmp_path / "bad-cc", "99.1", "exit 4"))
     standalone.compiler_identity.cache_clear()
-    _sum_call(standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback))
+    _sum_call(standalone.load(tmp_path, SUM, fallback))
     assert len(list(tmp_path.glob("xo_c_*.failed"))) == 2
     monkeypatch.delenv("CC")
-    k = standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback)
+    k = standalone.load(tmp_path, SUM, fallback)
     np.testing.assert_array_equal(_sum_call(k), [6.0, 22.0, 38.0])
     assert k.backend == "c" and calls == [1, 1, 1]
 
@@ -194,7 +193,7 @@ def test_a_passing_failure_leaves_no_note(tmp_path, monkeypatch, compile_part):
     monkeypatch.setenv("CC", _fake_cc(tmp_path / "cc", "99.2", compile_part))
     standalone.compiler_identity.cache_clear()
     for _ in range(2):  # each run tries again
-        k = standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback)
+        k = standalone.load(tmp_path, SUM, fallback)
         _sum_call(k)
         assert k.backend == "numba"
     assert calls == [1, 1]
@@ -202,7 +201,7 @@ def test_a_passing_failure_leaves_no_note(tmp_path, monkeypatch, compile_part):
 
 
 def test_the_key_is_the_c_text_and_the_compiler_s_identity(tmp_path, monkeypatch):
-    # a wrapper around the real compiler: a new mtime is no new compiler, a text that gives the same C reuses
+    # a wrapper around the real compiler: a new mtime is no new compiler, a kernel that gives the same C reuses
     # the library, another compiler version builds its own
     real = standalone.compiler()
     wrap = tmp_path / "bin" / "cc"
@@ -215,33 +214,34 @@ def test_the_key_is_the_c_text_and_the_compiler_s_identity(tmp_path, monkeypatch
     cache = tmp_path / "cache"
     cache.mkdir()
     calls, fallback = _fallback_probe()
-    assert _sum_call(standalone.load(cache, SUM, "k", SUM_SIG, fallback)).tolist() == [6.0, 22.0, 38.0]
+    assert _sum_call(standalone.load(cache, SUM, fallback)).tolist() == [6.0, 22.0, 38.0]
     built = list(cache.glob("xo_c_*.so"))
     assert len(built) == 1
     os.utime(wrap, (1e9, 1e9))
     standalone.compiler_identity.cache_clear()
-    monkeypatch.setattr(standalone, "_compile_into", lambda *a, **k: pytest.fail("built again"))
-    for text in (SUM, SUM.replace("import numba", "import numba  # another comment")):
-        k = standalone.load(cache, text, "k", SUM_SIG, fallback)
+    monkeypatch.setattr(standalone, "compile_into", lambda *a, **k: pytest.fail("built again"))
+    for text in (SUM, _row_sums(comment="another comment")):  # another Python text, the same C
+        k = standalone.load(cache, text, fallback)
         assert _sum_call(k).tolist() == [6.0, 22.0, 38.0] and k.backend == "c"
     monkeypatch.undo()
     monkeypatch.setenv("CC", str(wrap))
     wrap.write_text(wrap.read_text().replace("gcc version 77", "gcc version 78"))
     standalone.compiler_identity.cache_clear()
-    assert standalone.load(cache, SUM, "k", SUM_SIG, fallback)(np.ones((2, 4)), np.zeros((2, 1))) == 2
+    assert standalone.load(cache, SUM, fallback)(np.ones((2, 4)), np.zeros((2, 1))) == 2
     assert len(list(cache.glob("xo_c_*.so"))) == 2 and not calls
 
 
 RUN_SUM = ("import sys, json, numpy as np; from pathlib import Path; from xo_fit.solver import standalone\n"
+           "sys.path.insert(0, sys.argv[2]); from test_standalone import SUM\n"
            "def fallback(): raise SystemExit('fell back to numba')\n"
-           "k = standalone.load(Path(sys.argv[1]), Path(sys.argv[2]).read_text(), 'k', sys.argv[3], fallback)\n"
+           "k = standalone.load(Path(sys.argv[1]), SUM, fallback)\n"
            "a = np.arange(12.0).reshape(3, 4); out = np.zeros((3, 1)); n = k(a, out)\n"
            "print(json.dumps({'n': n, 'sums': out[:, 0].tolist(), 'backend': k.backend}))\n")
 
 
-def _run_sum(cache: Path, text: Path) -> dict:
+def _run_sum(cache: Path) -> dict:
     env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")])}
-    r = subprocess.run([sys.executable, "-c", RUN_SUM, str(cache), str(text), SUM_SIG], check=False,
+    r = subprocess.run([sys.executable, "-c", RUN_SUM, str(cache), str(ROOT / "tests")], check=False,
                        capture_output=True, text=True, env=env, timeout=120)
     assert r.returncode == 0, r.stderr  # a damaged library loaded would crash here (SIGBUS, SIGSEGV)
     return json.loads(r.stdout)
@@ -249,11 +249,9 @@ def _run_sum(cache: Path, text: Path) -> dict:
 
 @pytest.mark.parametrize("damage", ["truncate", "flip"])
 def test_a_damaged_library_is_rebuilt_not_loaded(tmp_path, damage):
-    text = tmp_path / "k.py"
-    text.write_text(SUM)
     cache = tmp_path / "cache"
     cache.mkdir()
-    assert _run_sum(cache, text) == {"n": 3, "sums": [6.0, 22.0, 38.0], "backend": "c"}
+    assert _run_sum(cache) == {"n": 3, "sums": [6.0, 22.0, 38.0], "backend": "c"}
     (lib,) = cache.glob("xo_c_*.so")
     data = lib.read_bytes()
     size, digest = lib.name[:-3].split("-")[1:]  # the size and hash are in the name
@@ -262,7 +260,7 @@ def test_a_damaged_library_is_rebuilt_not_loaded(tmp_path, damage):
         lib.write_bytes(data[:len(data) // 2])
     else:
         lib.write_bytes(data[:4000] + bytes(b ^ 0xFF for b in data[4000:4400]) + data[4400:])
-    assert _run_sum(cache, text) == {"n": 3, "sums": [6.0, 22.0, 38.0], "backend": "c"}
+    assert _run_sum(cache) == {"n": 3, "sums": [6.0, 22.0, 38.0], "backend": "c"}
     (again,) = cache.glob("xo_c_*.so")
     assert standalone.library_name(again.name[5:25], again.read_bytes()) == again.name  # whole again
     assert sorted(p.name for p in cache.iterdir()) == [again.name]  # nothing else left: no temporary files
@@ -272,40 +270,47 @@ def test_which_backend_ran_a_kernel_is_known(tmp_path, monkeypatch):
     from xo_fit.solver import kernels
 
     monkeypatch.setenv("XO_FIT_CACHE", str(tmp_path))
-    text = SUM.replace("import numba", "import numba  # backend test")
-    k = kernels.load_kernel(text, "k", signature=SUM_SIG)
+    kern = _row_sums(comment="backend test")
+    k = kernels.load_kernel(kern)
     assert kernels.kernel_backend(k) is None  # built on its first call
     _sum_call(k)
     assert kernels.kernel_backend(k) == "c"
-    jit = kernels.load_kernel(text + "\n", "k")  # no signature: numba's
+    jit = kernels.load_kernel(kern, standalone=False)  # numba's
     assert kernels.kernel_backend(jit) == "numba"
+
+
+def test_a_failure_to_print_or_build_runs_on_numba_and_is_logged(tmp_path, monkeypatch, caplog):
+    # any exception on the C path (here the printer's) hands the kernel to numba, logged on "xo_fit"
+    def broken(*a, **k):
+        raise RecursionError("maximum recursion depth exceeded")
+
+    monkeypatch.setattr(standalone.ir_c, "text", broken)
     calls, fallback = _fallback_probe()
-    src = SUM.replace("out[i, 0] = s", "out[i, 0] = a[i - 1, 0]")  # refused by the translator
-    k = standalone.load(tmp_path, src, "k", SUM_SIG, fallback)
-    _sum_call(k)
-    assert kernels.kernel_backend(k) == "numba" and calls == [1]
+    k = standalone.load(tmp_path, SUM, fallback)
+    with caplog.at_level(logging.WARNING, logger="xo_fit"):
+        assert k(np.ones((3, 4)), np.zeros((3, 1))) == -1
+    assert calls == [1] and k.backend == "numba"
+    assert any("runs on numba" in r.getMessage() and "RecursionError" in r.getMessage() for r in caplog.records)
+    assert not list(tmp_path.iterdir())  # nothing built, no note, no temporary file
+
+
+def test_a_sum_of_thousands_of_terms_prints_and_builds(tmp_path):
+    # the printers walk chains of + without recursion: 3,000 terms (Python's own parser gives up on such a
+    # text; the C compiler does not)
+    a, out = Array("a", 1), Array("out", 1)
+    kern = Kernel(Function("k", (a, out), (out.store(0, ir.total([a[i % 3] for i in range(3000)])),
+                                           Return(ir.Const(1)))))
+    assert len(python_text(kern)) > 3000 * 6
+    fn = standalone.open_built(standalone.build(kern, tmp_path / "deep.so"), kern)
+    got = np.zeros(1)
+    assert fn(np.array([1.0, 2.0, 4.0]), got) == 1 and got[0] == 7000.0
 
 
 def test_other_inner_dimensions_get_a_build_of_their_own(tmp_path):
     # the arrays' inner dimensions are constants in the C: another batch size reuses the build, another
     # number of parts (vals' second dimension) does not and is built again
-    src = """
-import numba
-
-
-@numba.njit(fastmath={"contract"})
-def k(a, out):
-    n = a.shape[0]
-    m = a.shape[1]
-    for i in range(n):
-        s = 0.0
-        for j in range(m):
-            s += a[i, j]
-        out[i, 0] = s
-    return n
-"""
     calls, fallback = _fallback_probe()
-    k = standalone.load(tmp_path, src, "k", "i8(f8[:,::1], f8[:,::1])", fallback)
+    k = standalone.load(tmp_path, SUM, fallback)
     for rows, cols in ((3, 4), (5, 4), (2, 7)):
         a = np.arange(rows * cols, dtype=float).reshape(rows, cols)
         out = np.zeros((rows, 1))
@@ -320,111 +325,82 @@ def test_no_compiler_or_turned_off_means_numba(tmp_path, monkeypatch):
     calls, fallback = _fallback_probe()
     monkeypatch.setattr(standalone.shutil, "which", lambda name: None)
     assert standalone.compiler() is None
-    assert standalone.load(tmp_path, fc.text(), "cost_kernel", standalone.COST_SIGNATURE, fallback) is None
+    assert standalone.load(tmp_path, fc.ir(), fallback) is None
     monkeypatch.undo()
     monkeypatch.setenv("XO_FIT_STANDALONE", "0")
-    assert standalone.load(tmp_path, fc.text(), "cost_kernel", standalone.COST_SIGNATURE, fallback) is None
+    assert standalone.load(tmp_path, fc.ir(), fallback) is None
     assert not list(tmp_path.iterdir())
 
 
-def test_the_translator_keeps_python_semantics(tmp_path):
-    # Python's max keeps a NaN in its first argument, / is true division (an int over an int is refused:
-    # tests/test_ctranslate.py), ** is pow, ints index
-    src = '''
-import numba
-K = 2.5
+def _elementwise(name: str, body, params, constants=()) -> Kernel:
+    """``name(params)``: for i in range(first array's length): body(i); returns the length."""
+    n, i = i8("n"), i8("i")
+    return Kernel(Function(name, params, (let(n, params[0].shape(0)), loop(i, None, n, body(i)), Return(n)),
+                           fastmath=("contract", "reassoc")), constants=constants)
 
 
-@numba.njit(error_model="numpy", fastmath={"contract"})
-def k(a, x, out):
-    n = a.shape[0]
-    for i in range(n):
-        out[i, 0] = max(a[i], 0.0)
-        out[i, 1] = x ** 2 + K
-        out[i, 2] = 7 / 2.0
-        out[i, 3] = abs(a[i]) if a[i] < 0.0 else sqrt(a[i])
-    return n
-'''
-    lib = standalone.build(src, "k", "i8(f8[::1], f8, f8[:,::1])", tmp_path / "t.so")
+def test_the_c_printer_keeps_python_semantics(tmp_path):
+    # Python's max keeps a NaN in its first argument, / is true division, ** is pow, a module constant is its
+    # value, a conditional picks as Python's does
     import ctypes
 
+    a, x, out = Array("a", 1), f8("x"), Array("out", 2)
+    kconst = ir.Named("K", 2.5)
+    kern = _elementwise("k", lambda i: [
+        out.store((i, 0), ir.maximum(a[i], 0.0)), out.store((i, 1), x ** 2 + kconst),
+        out.store((i, 2), ir.Const(7) / 2.0),
+        out.store((i, 3), ir.select(a[i] < 0.0, ir.absolute(a[i]), ir.sqrt(a[i])))], (a, x, out), (kconst,))
+    lib = standalone.build(kern, tmp_path / "t.so")
     fn = standalone.CKernel(ctypes.CDLL(str(lib)), "k", [1, 0, 2])
-    a = np.array([np.nan, -4.0, 9.0])
-    out = np.zeros((3, 4))
-    assert fn(a, 3.0, out) == 3
-    assert np.isnan(out[0, 0]) and out[1, 0] == 0.0 and out[2, 0] == 9.0  # max(nan, 0.0) is nan in Python
-    assert np.all(out[:, 1] == 11.5) and np.all(out[:, 2] == 3.5)
-    assert out[1, 3] == 4.0 and out[2, 3] == 3.0
+    a_ = np.array([np.nan, -4.0, 9.0])
+    got = np.zeros((3, 4))
+    assert fn(a_, 3.0, got) == 3
+    assert np.isnan(got[0, 0]) and got[1, 0] == 0.0 and got[2, 0] == 9.0  # max(nan, 0.0) is nan in Python
+    assert np.all(got[:, 1] == 11.5) and np.all(got[:, 2] == 3.5)
+    assert got[1, 3] == 4.0 and got[2, 3] == 3.0
     with pytest.raises(TypeError):
-        fn(a.astype(np.float32), 3.0, out)
-    for bad in ("def k(a, x, out):\n    return a.sum()\n", "def k(a, x, out):\n    while True:\n        pass\n",
-                "import os\nos.system('x')\ndef k(a, x, out):\n    return 0\n"):
-        with pytest.raises(ValueError):
-            ctranslate.to_c(bad, "k", [("a", 1), ("x", 0), ("out", 2)])
+        fn(a_.astype(np.float32), 3.0, got)
 
 
 def test_the_c_logarithm_is_libm_s_to_a_few_ulp(tmp_path):
-    # the kernels' ln in C (ctranslate.LN_C, the same steps as vecmath.ln) against numpy's log (libm)
-    src = '''
-import numba
-
-
-@numba.njit(fastmath={"contract", "reassoc"})
-def k(x, out):
-    n = x.shape[0]
-    for i in range(n):
-        out[i] = ln(x[i])
-    return n
-'''
-    lib = standalone.build(src, "k", "i8(f8[::1], f8[::1])", tmp_path / "ln.so")
+    # the kernels' ln in C (ir_c.LN_C, the same steps as vecmath.ln) against numpy's log (libm)
     import ctypes
 
+    xs, out = Array("x", 1), Array("out", 1)
+    kern = _elementwise("k", lambda i: [out.store(i, ir.ln(xs[i]))], (xs, out))
+    lib = standalone.build(kern, tmp_path / "ln.so")
     fn = standalone.CKernel(ctypes.CDLL(str(lib)), "k", [1, 1])
     x = np.concatenate([np.geomspace(1e-300, 1e300, 200_001), 1.0 + np.linspace(-0.3, 0.3, 20_001),
                         [1.0, 2.0, np.sqrt(2.0), 0.5], np.geomspace(5e-324, 2.2e-308, 1001)])
-    out = np.empty_like(x)
-    fn(x, out)
+    got = np.empty_like(x)
+    fn(x, got)
     ref = np.log(x)
-    assert out[x == 1.0][0] == 0.0
-    assert np.max(np.abs(out - ref) / np.maximum(np.abs(ref), 1.0)) < 4 * np.finfo(float).eps  # as test_vecmath
+    assert got[x == 1.0][0] == 0.0
+    assert np.max(np.abs(got - ref) / np.maximum(np.abs(ref), 1.0)) < 4 * np.finfo(float).eps  # as test_vecmath
     # IEEE 754 log of special values [SRC: IEEE 754-2008 9.2; C99 F.9.3.7]: NaN -> NaN, +inf -> +inf,
     # +-0 -> -inf, negative -> NaN (the kernels once gave ln(NaN) = 710 and ln(inf) = 709.8)
     special = np.array([np.nan, np.inf, 0.0, -0.0, -1.0, -np.inf, -5e-324])
-    got = np.empty_like(special)
-    fn(special, got)
-    assert np.isnan(got[0]) and got[1] == np.inf and got[2] == got[3] == -np.inf and np.all(np.isnan(got[4:]))
+    sp = np.empty_like(special)
+    fn(special, sp)
+    assert np.isnan(sp[0]) and sp[1] == np.inf and sp[2] == sp[3] == -np.inf and np.all(np.isnan(sp[4:]))
     # ln_floored: the same on normal input, NaN and +inf passed through
-    lib = standalone.build(src.replace("ln(", "ln_floored("), "k", "i8(f8[::1], f8[::1])", tmp_path / "lnf.so")
+    kern = _elementwise("k", lambda i: [out.store(i, ir.ln_floored(xs[i]))], (xs, out))
+    lib = standalone.build(kern, tmp_path / "lnf.so")
     fn = standalone.CKernel(ctypes.CDLL(str(lib)), "k", [1, 1])
     normal = x[x >= 2.2250738585072014e-308]
-    out = np.empty_like(normal)
-    fn(normal, out)
-    assert np.max(np.abs(out - np.log(normal)) / np.maximum(np.abs(np.log(normal)), 1.0)) < 4 * np.finfo(float).eps
-    fn(special[:2].copy(), got[:2])
-    assert np.isnan(got[0]) and got[1] == np.inf
+    got = np.empty_like(normal)
+    fn(normal, got)
+    assert np.max(np.abs(got - np.log(normal)) / np.maximum(np.abs(np.log(normal)), 1.0)) < 4 * np.finfo(float).eps
+    fn(special[:2].copy(), sp[:2])
+    assert np.isnan(sp[0]) and sp[1] == np.inf
 
 
 def test_calls_from_several_threads_keep_their_own_arguments(tmp_path):
     # the packed arguments live per thread: threads calling one kernel at once each get their own sums
     import threading
 
-    src = """
-import numba
-
-
-@numba.njit(fastmath={"contract"})
-def k(a, out):
-    n = a.shape[0]
-    for i in range(n):
-        s = 0.0
-        for r in range(2500):
-            for j in range(8):
-                s += a[i, j]
-        out[i, 0] = s
-    return n
-"""
     calls, fallback = _fallback_probe()
-    k = standalone.load(tmp_path, src, "k", "i8(f8[:,::1], f8[:,::1])", fallback)
+    k = standalone.load(tmp_path, _row_sums(repeat=2500), fallback)
     errors = []
 
     def work(seed):
@@ -456,7 +432,7 @@ def test_a_full_cache_leaves_no_temporary_file(tmp_path, monkeypatch):
 
     monkeypatch.setattr(kernels.os, "replace", full)
     with pytest.raises(OSError):
-        kernels._numba_kernel(tmp_path, SUM.replace("import numba", "import numba  # full disk"), "k")
+        kernels._numba_kernel(tmp_path, python_text(_row_sums(comment="full disk")), "k")
     assert not list(tmp_path.iterdir())
 
 
@@ -470,5 +446,5 @@ def test_a_killed_build_s_leftovers_are_swept(tmp_path):
     t = os.stat(old).st_mtime - standalone.STALE_BUILD_S - 10
     os.utime(old, (t, t))
     calls, fallback = _fallback_probe()
-    _sum_call(standalone.load(tmp_path, SUM, "k", SUM_SIG, fallback))
+    _sum_call(standalone.load(tmp_path, SUM, fallback))
     assert not old.exists() and fresh.exists() and not calls

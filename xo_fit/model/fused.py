@@ -30,8 +30,11 @@ from xo_fit.model.acoustics import used_positions
 from xo_fit.model.cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from xo_fit.model.limits import NAMES
 from xo_fit.model.fused_preference import preference_lines
-from xo_fit.solver.codegen import solver_code
-from xo_fit.solver.standalone import COST_SIGNATURE
+from xo_fit.solver.codegen import B, F, FIN, R_COEF, R_EXP, RS, TAU2, VALS, VS, solver_code
+from xo_fit.solver.ir import (DB10, Array, Const, Function, Named, Not, Return, assign, f8, i8, let, ln_floored, loop,
+                              maximum, select, signed_sum, sqrt, total, update, when, wrap)
+from xo_fit.solver.ir_kernel import Kernel
+from xo_fit.solver.ir_python import text as python_text
 from xo_fit.solver.kernels import KERNEL_VERSION, load_kernel
 
 #: |p|^2 floor (Pa^2) matching SPL_FLOOR_DB: levels below it read as the floor.
@@ -41,8 +44,16 @@ _PREF_DB = 20 * math.log10(P_REF)
 #: preference term after them; with [limits], the total violation and each limit's (xo_fit.model.limits.NAMES)
 #: after those (a job without them keeps the kernel it had).
 LEVEL = 1 + len(TERMS)
+#: The kernel's arrays beyond the solver's (xo_fit.solver.codegen) and its module constants.
+TGT, ANG, ANGW, SCRATCH, OUT = Array("tgt", 2), Array("ang", 3), Array("angw", 2), Array("scratch", 2), Array("out", 2)
+P2F, PREF_DB = Named("P2F", _P2_FLOOR), Named("PREF_DB", _PREF_DB)
 FLAG = LEVEL + 1
 PREFERENCE = FLAG + 1
+
+
+def _db(p2):
+    """The level of |p|^2 in dB SPL, floored at SPL_FLOOR_DB: ``DB10 * ln_floored(max(p2, P2F)) - PREF_DB``."""
+    return DB10 * ln_floored(maximum(p2, P2F)) - PREF_DB
 
 
 def _merge_alike(g: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -183,10 +194,19 @@ class FusedCost:
 
     # ------------------------------------------------------------------ code
 
+    def ir(self) -> Kernel:
+        """The kernel as IR (:mod:`xo_fit.solver.ir`), built once: per candidate the frequency loop (solve,
+        levels, pressures, phase chords, impedance shortfall, currents), the positions' sums, the preference,
+        then the second pass (way and sum errors, roughness) and the terms."""
+        if self.__dict__.get("_ir") is None:
+            self._ir = self._build()
+        return self._ir
+
     def source(self) -> str:
-        """The kernel's Python source (the subset :mod:`xo_fit.solver.ctranslate` writes as C): per candidate
-        the frequency loop (solve, levels, pressures, phase chords, impedance shortfall, currents), the
-        positions' sums, the preference, then the second pass (way and sum errors, roughness) and the terms."""
+        """The kernel's Python text (what numba compiles; the C compiler gets the same IR printed as C)."""
+        return python_text(self.ir())
+
+    def _build(self) -> Kernel:
         cm, net = self.cm, self.net
         code = solver_code(net, currents=tuple(j for j, _, _, _ in self.judged))
         d = len(net.driver_names)
@@ -199,222 +219,216 @@ class FusedCost:
         assert self.scratch_rows == rows["q"] + 3 + (4 if pref else 0) + (lim.scratch_rows if lim else 0)
         angle_pre, angle_loop, angle_post = self._angle_code(code, d, rows)
         lines, peaks = self._loop_lines(code, d, rows, angle_pre)
-        i1, i2 = " " * 8, " " * 12
-        src = self._header(code)
-        src += [i1 + s for s in code.prep]
-        src += [i1 + "acc_l = 0.0", i1 + "acc_z = 0.0", i1 + "acc_bad = 0.0", i1 + "acc_e = 0.0", i1 + "acc_sp = 0.0"]
-        src += [i1 + f"acc_r{m} = 0.0" for m, (_, _, kind, _) in enumerate(self.judged) if kind == "R"]
-        src += [i1 + s for s in (lim.start_lines() if lim else [])]
-        src += [i1 + f"acc_p{j} = 0.0" for j in range(len(cm.pairs))]
-        src += [i1 + f"for f in range({self.flo}, {self.fhi}):"] + [i2 + s for s in lines]
+        per_b = list(code.prep)
+        per_b += [let(f8(n), 0.0) for n in ("acc_l", "acc_z", "acc_bad", "acc_e", "acc_sp")]
+        per_b += [let(f8(f"acc_r{m}"), 0.0) for m, (_, _, kind, _) in enumerate(self.judged) if kind == "R"]
+        per_b += lim.start_lines() if lim else []
+        per_b += [let(f8(f"acc_p{j}"), 0.0) for j in range(len(cm.pairs))]
+        per_b.append(loop(F, self.flo, self.fhi, lines))
         if angle_loop:
-            src += [i1 + s for s in angle_loop]
+            per_b += angle_loop
             if angle_post:
-                src += [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in angle_post]
+                per_b.append(loop(F, self.lo, self.hi, angle_post))
         if pref:
-            src += [i1 + s for s in self._preference_source(rows["q"])]
-        src += self._second_pass(d, rows)
-        src += self._terms(d, peaks)
-        return "\n".join(src) + "\n"
+            per_b += preference_lines(self.plan, rows["q"], self.row_inband, self.flo, self.fhi, P2F, PREF_DB)
+        per_b += self._second_pass(d, rows)
+        per_b += self._terms(d, peaks)
+        nb, nbad = i8("nb"), i8("nbad")
+        body = (let(nb, VALS.shape(0)), let(nbad, 0), loop(B, None, nb, per_b), Return(nbad))
+        fn = Function("cost_kernel", (VALS, R_COEF, R_EXP, FIN, VS, RS, TAU2, TGT, ANG, ANGW, SCRATCH, OUT), body,
+                      fastmath=("contract", "reassoc"))
+        ways = [k for k in range(d) if cm.has_way[k]]
+        return Kernel(fn, comments=("generated by xo_fit.fused.FusedCost.source; do not edit",
+                                    f"kernel version {KERNEL_VERSION}; band [{self.lo}, {self.hi}); ways {ways}; "
+                                    f"pairs {[(a, b) for a, b, _, _ in cm.pairs]}", *code.comment),
+                      constants=(P2F, PREF_DB))
 
-    def _header(self, code) -> list[str]:
-        """The module's head and the kernel's signature, down to the candidate loop."""
-        cm = self.cm
-        ways = [k for k in range(len(self.net.driver_names)) if cm.has_way[k]]
-        return [
-            "# generated by xo_fit.fused.FusedCost.source; do not edit",
-            f"# kernel version {KERNEL_VERSION}; band [{self.lo}, {self.hi}); ways {ways}; "
-            f"pairs {[(a, b) for a, b, _, _ in cm.pairs]}",
-            *code.comment,
-            "import numba",
-            "from math import sqrt",
-            "from xo_fit.solver.vecmath import ln, ln_floored, DB10",
-            "",
-            f"P2F = {_P2_FLOOR!r}",
-            f"PREF_DB = {_PREF_DB!r}",
-            "",
-            "",
-            '@numba.njit(cache=True, error_model="numpy", fastmath={"contract", "reassoc"}, nogil=True)',
-            "def cost_kernel(vals, r_coef, r_exp, fin, vs, rs, tau2, tgt, ang, angw, scratch, out):",
-            "    nb = vals.shape[0]",
-            "    nbad = 0",
-            "    for b in range(nb):",
-        ]
-
-    def _angle_code(self, code, d: int, rows: dict) -> tuple[list[str], list[str], list[str]]:
+    def _angle_code(self, code, d: int, rows: dict) -> tuple[list, list, list]:
         """The off-axis positions: the voltages kept per frequency (pre), the positions summed after the
         frequency loop, position by position over frequency (unit stride: the loop vectorises), and their levels
         taken in a third pass (post)."""
-        angle_pre: list[str] = []
-        angle_loop: list[str] = []
-        angle_post: list[str] = []
+        angle_pre: list = []
+        angle_loop: list = []
+        angle_post: list = []
         if not self.n_angles:
             return angle_pre, angle_loop, angle_post
         need, row_v, row_q = self.need, rows["v"], rows["q"]
         for k, (vr, vi) in enumerate(code.volts):
-            angle_pre += [f"scratch[{row_v + 2 * k}, f] = {vr}", f"scratch[{row_v + 2 * k + 1}, f] = {vi}"]
-        qr = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k}, f] - scratch[{row_v + 2 * k + 1}, f] * "
-                        f"ang[a, {2 * k + 1}, f]" for k in range(d))
-        qi = " + ".join(f"scratch[{row_v + 2 * k}, f] * ang[a, {2 * k + 1}, f] + scratch[{row_v + 2 * k + 1}, f] * "
-                        f"ang[a, {2 * k}, f]" for k in range(d))
+            angle_pre += [SCRATCH.store((row_v + 2 * k, F), vr), SCRATCH.store((row_v + 2 * k + 1, F), vi)]
+        a = i8("a")
+        v = [(SCRATCH[row_v + 2 * k, F], SCRATCH[row_v + 2 * k + 1, F]) for k in range(d)]
+        qr_sum = signed_sum([t for k in range(d) for t in ((1, v[k][0] * ANG[a, 2 * k, F]),
+                                                             (-1, v[k][1] * ANG[a, 2 * k + 1, F]))])
+        qi_sum = total([t for k in range(d) for t in (v[k][0] * ANG[a, 2 * k + 1, F], v[k][1] * ANG[a, 2 * k, F])])
+        qr, qi, q2 = f8("qr"), f8("qi"), f8("q2")
+        wa = [f8(f"wa{i}") for i in range(3)]
         for first in (True, False):  # the first position sets the sums (no zeroing pass), the others add
-            op = "=" if first else "+="
-            angle_loop += [("a = 0" if first else f"for a in range(1, {self.n_angles}):")]
-            ind = "" if first else "    "
-            angle_loop += [ind + "wa0 = angw[a, 0]", ind + "wa1 = angw[a, 1]", ind + "wa2 = angw[a, 2]",
-                           ind + f"for f in range({self.flo}, {self.fhi}):", ind + f"    qr = {qr}",
-                           ind + f"    qi = {qi}", ind + "    q2 = qr * qr + qi * qi",
-                           ind + f"    scratch[{row_q}, f] {op} wa0 * q2",
-                           ind + f"    scratch[{row_q + 1}, f] {op} wa1 * q2",
-                           ind + f"    scratch[{row_q + 2}, f] {op} wa2 * q2"]
+            op = "" if first else "+"
+            put = let if first else assign  # the weights are names of the candidate's block
+            per_a: list = [put(wa[i], ANGW[a, i]) for i in range(3)]
+            per_a.append(loop(F, self.flo, self.fhi, [
+                let(qr, qr_sum), let(qi, qi_sum), let(q2, qr * qr + qi * qi),
+                *[SCRATCH.store((row_q + i, F), wa[i] * q2, op) for i in range(3)]]))
+            angle_loop += [let(a, 0), *per_a] if first else [loop(a, 1, self.n_angles, per_a, declare=False)]
+        keep, tsys = TGT[self.row_keep, F], TGT[self.row_tsys, F]
         if need["listening_window"]:
-            angle_post += [f"sd = DB10 * ln_floored(max(scratch[{row_q}, f], P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
-                           f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
+            sd = f8("sd")
+            angle_post += [let(sd, _db(SCRATCH[row_q, F])), SCRATCH.store((d, F), sd),
+                           update(f8("acc_l"), keep * (sd - tsys))]
         if need["early_reflections"]:
-            angle_post += [f"ed = DB10 * ln_floored(max(scratch[{row_q + 1}, f], P2F)) - PREF_DB",
-                           f"scratch[{rows['e']}, f] = ed", "acc_e += ed"]
+            ed = f8("ed")
+            angle_post += [let(ed, _db(SCRATCH[row_q + 1, F])), SCRATCH.store((rows["e"], F), ed),
+                           update(f8("acc_e"), ed)]
         if need["sound_power"]:
-            angle_post += [f"spd = DB10 * ln_floored(max(scratch[{row_q + 2}, f], P2F)) - PREF_DB",
-                           f"scratch[{rows['p']}, f] = spd", "acc_sp += spd"]
+            spd = f8("spd")
+            angle_post += [let(spd, _db(SCRATCH[row_q + 2, F])), SCRATCH.store((rows["p"], F), spd),
+                           update(f8("acc_sp"), spd)]
         return angle_pre, angle_loop, angle_post
 
-    def _loop_lines(self, code, d: int, rows: dict, angle_pre: list[str]) -> tuple[list[str], list[tuple]]:
+    def _loop_lines(self, code, d: int, rows: dict, angle_pre: list) -> tuple[list, list[tuple]]:
         """The frequency loop's body after the solve: each way's pressure and level, the sum, the phase chords of
         the crossover pairs, the impedance shortfall, the rated parts' currents; and the (row, m) of the rated
         C and L parts whose maxima are taken after the loop."""
         cm = self.cm
         floor = cm.impedance_floor
-        pref = self.plan is not None
         lim = self.limit_code
-        inband = f"tgt[{self.row_inband}, f] * " if pref else ""  # the band's sums, when the loop runs wider
+        inband = TGT[self.row_inband, F] if self.plan is not None else None  # band sums when the loop runs wider
         lines = list(code.loads) + list(code.body) + angle_pre
+        pr = [f8(f"pr{k}") for k in range(d)]
+        pi = [f8(f"pi{k}") for k in range(d)]
         for k, (vr, vi) in enumerate(code.volts):
-            lines += [f"pr{k} = {vr} * tgt[{2 * k}, f] - {vi} * tgt[{2 * k + 1}, f]",
-                      f"pi{k} = {vr} * tgt[{2 * k + 1}, f] + {vi} * tgt[{2 * k}, f]",
-                      f"pd{k} = DB10 * ln_floored(max(pr{k} * pr{k} + pi{k} * pi{k}, P2F)) - PREF_DB",
-                      f"scratch[{k}, f] = pd{k}"]
-        lines += [f"sr = {' + '.join(f'pr{k}' for k in range(d))}", f"si = {' + '.join(f'pi{k}' for k in range(d))}"]
-        if pref:  # the on-axis level, whatever the sum's reference
-            lines += [f"scratch[{rows['q'] + 3}, f] = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB"]
+            lines += [let(pr[k], vr * TGT[2 * k, F] - vi * TGT[2 * k + 1, F]),
+                      let(pi[k], vr * TGT[2 * k + 1, F] + vi * TGT[2 * k, F]),
+                      let(f8(f"pd{k}"), _db(pr[k] * pr[k] + pi[k] * pi[k])), SCRATCH.store((k, F), f8(f"pd{k}"))]
+        sr, si = f8("sr"), f8("si")
+        lines += [let(sr, total(pr)), let(si, total(pi))]
+        if inband is not None:  # the on-axis level, whatever the sum's reference
+            lines.append(SCRATCH.store((rows["q"] + 3, F), _db(sr * sr + si * si)))
         if not self.need["listening_window"]:  # else the listening window's level, after the positions are summed
-            lines += ["sd = DB10 * ln_floored(max(sr * sr + si * si, P2F)) - PREF_DB", f"scratch[{d}, f] = sd",
-                      f"acc_l += tgt[{self.row_keep}, f] * (sd - tgt[{self.row_tsys}, f])"]
+            sd = f8("sd")
+            lines += [let(sd, _db(sr * sr + si * si)), SCRATCH.store((d, F), sd),
+                      update(f8("acc_l"), TGT[self.row_keep, F] * (sd - TGT[self.row_tsys, F]))]
         for j, (a, b, _, _) in enumerate(cm.pairs):
             base = self.row_pairs + 3 * j
-            lines += [f"qr{j} = pr{a} * pr{b} + pi{a} * pi{b}", f"qi{j} = pi{a} * pr{b} - pr{a} * pi{b}",
-                      f"cr{j} = qr{j} * tgt[{base + 1}, f] - qi{j} * tgt[{base + 2}, f]",
-                      f"ci{j} = qr{j} * tgt[{base + 2}, f] + qi{j} * tgt[{base + 1}, f]",
-                      f"acc_p{j} += tgt[{base}, f] * (1.0 - cr{j} / sqrt(cr{j} * cr{j} + ci{j} * ci{j} + 1e-300))"]
+            qr, qi, cr, ci = f8(f"qr{j}"), f8(f"qi{j}"), f8(f"cr{j}"), f8(f"ci{j}")
+            lines += [let(qr, pr[a] * pr[b] + pi[a] * pi[b]), let(qi, pi[a] * pr[b] - pr[a] * pi[b]),
+                      let(cr, qr * TGT[base + 1, F] - qi * TGT[base + 2, F]),
+                      let(ci, qr * TGT[base + 2, F] + qi * TGT[base + 1, F]),
+                      update(f8(f"acc_p{j}"), TGT[base, F] * (1.0 - cr / sqrt(cr * cr + ci * ci + 1e-300)))]
         if floor > 0:
             zr, zi = code.zin
-            lines += [f"zz = {zr} * {zr} + {zi} * {zi}",
-                      f"sh = DB10 * ln_floored(max({floor * floor!r} / max(zz, {Z_SHORT_OHM ** 2!r}), 1.0))",
-                      f"acc_z += {inband}sh * sh", f"scratch[{d + 1}, f] = sh"]
+            zz, sh = f8("zz"), f8("sh")
+            lines += [let(zz, zr * zr + zi * zi),
+                      let(sh, DB10 * ln_floored(maximum(floor * floor / maximum(zz, Z_SHORT_OHM ** 2), 1.0))),
+                      update(f8("acc_z"), inband * sh * sh if inband is not None else sh * sh),
+                      SCRATCH.store((d + 1, F), sh)]
         peaks: list[tuple] = []  # (scratch row, m) of the rated C and L parts: their maxima are taken after the loop
-        for m, ((_j, _, kind, _), (ir, ii)) in enumerate(zip(self.judged, code.currents)):
-            lines.append(f"qq{m} = {ir} * {ir} + {ii} * {ii}")
+        for m, ((_j, _, kind, _), (ir_, ii)) in enumerate(zip(self.judged, code.currents)):
+            qq = f8(f"qq{m}")
+            lines.append(let(qq, ir_ * ir_ + ii * ii))
             if kind == "R":
-                lines.append(f"acc_r{m} += {inband}qq{m}")
+                lines.append(update(f8(f"acc_r{m}"), inband * qq if inband is not None else qq))
             else:
                 row = d + 2 + len(peaks)
-                lines.append(f"scratch[{row}, f] = qq{m} * iw * iw" if kind == "C" else f"scratch[{row}, f] = qq{m}")
+                iw = f8("iw")
+                lines.append(SCRATCH.store((row, F), qq * iw * iw if kind == "C" else qq))
                 peaks.append((row, m))
         if lim:
             lines += lim.loop_lines(code, inband)
-        lines += ["acc_bad += max(bad, 0.0) + 0.0 * bad"]
+        bad = f8("bad")
+        lines.append(update(f8("acc_bad"), maximum(bad, 0.0) + 0.0 * bad))
         return lines, peaks
 
-    def _second_pass(self, d: int, rows: dict) -> list[str]:
+    def _second_pass(self, d: int, rows: dict) -> list:
         """After the level is known: each way's and the sum's error, and the roughness of the off-axis curves
         about their least-squares line on log2 f (xc: log2 f less its mean)."""
         cm, need = self.cm, self.need
-        level = cm.targets.level_db
-        nb = self.hi - self.lo
-        i1, i2 = " " * 8, " " * 12
-        second = []
+        level_db = cm.targets.level_db
+        nb = float(self.hi - self.lo)
+        level, acc_w, acc_s = f8("level"), f8("acc_w"), f8("acc_s")
+        mean_e, mean_p = f8("mean_e"), f8("mean_p")
+        second: list = []
         for k in (k for k in range(d) if cm.has_way[k]):
-            second += [f"y{k} = scratch[{k}, f] - level - tgt[{self.row_tway + k}, f]",
-                       f"x{k} = scratch[{k}, f] - level + {BREAKUP_FLOOR_DB!r}",
-                       f"x{k} = x{k} if x{k} > 0.0 else 0.0",
-                       f"e{k} = x{k} if tgt[{self.row_stop + k}, f] > 0.5 else y{k}",
-                       f"acc_w += e{k} * e{k}"]
-        second += [f"s = scratch[{d}, f] - level - tgt[{self.row_tsys}, f]",
-                   f"u = scratch[{d}, f] - level - {NULL_DB!r}",  # at a null of the target: only output above it
-                   "u = u if u > 0.0 else 0.0",
-                   f"s = s if tgt[{self.row_keep}, f] > 0.5 else u", "acc_s += s * s"]
+            y, x, e = f8(f"y{k}"), f8(f"x{k}"), f8(f"e{k}")
+            second += [let(y, SCRATCH[k, F] - level - TGT[self.row_tway + k, F]),
+                       let(x, SCRATCH[k, F] - level + BREAKUP_FLOOR_DB), assign(x, select(x > 0.0, x, 0.0)),
+                       let(e, select(TGT[self.row_stop + k, F] > 0.5, x, y)), update(acc_w, e * e)]
+        s, u = f8("s"), f8("u")
+        second += [let(s, SCRATCH[d, F] - level - TGT[self.row_tsys, F]),
+                   let(u, SCRATCH[d, F] - level - NULL_DB),  # at a null of the target: only output above it
+                   assign(u, select(u > 0.0, u, 0.0)),
+                   assign(s, select(TGT[self.row_keep, F] > 0.5, s, u)), update(acc_s, s * s)]
         if need["early_reflections"]:
-            second += [f"de = scratch[{rows['e']}, f] - mean_e", "acc_ee += de * de",
-                       f"acc_ex += de * tgt[{self.row_xc}, f]"]
+            de = f8("de")
+            second += [let(de, SCRATCH[rows["e"], F] - mean_e), update(f8("acc_ee"), de * de),
+                       update(f8("acc_ex"), de * TGT[self.row_xc, F])]
         if need["sound_power"]:
-            second += [f"dp = scratch[{rows['p']}, f] - mean_p", "acc_pp += dp * dp",
-                       f"acc_px += dp * tgt[{self.row_xc}, f]"]
-        return ([i1 + (f"level = acc_l / {self.n_keep}.0" if level is None else f"level = {level!r}"),
-                 i1 + "acc_w = 0.0", i1 + "acc_s = 0.0", i1 + f"mean_e = acc_e / {nb}.0",
-                 i1 + f"mean_p = acc_sp / {nb}.0", i1 + "acc_ee = 0.0", i1 + "acc_ex = 0.0", i1 + "acc_pp = 0.0",
-                 i1 + "acc_px = 0.0"]
-                + [i1 + f"for f in range({self.lo}, {self.hi}):"] + [i2 + s for s in second])
+            dp = f8("dp")
+            second += [let(dp, SCRATCH[rows["p"], F] - mean_p), update(f8("acc_pp"), dp * dp),
+                       update(f8("acc_px"), dp * TGT[self.row_xc, F])]
+        return [let(level, f8("acc_l") / float(self.n_keep) if level_db is None else float(level_db)),
+                let(acc_w, 0.0), let(acc_s, 0.0), let(mean_e, f8("acc_e") / nb), let(mean_p, f8("acc_sp") / nb),
+                *[let(f8(n), 0.0) for n in ("acc_ee", "acc_ex", "acc_pp", "acc_px")],
+                loop(F, self.lo, self.hi, second)]
 
-    def _terms(self, d: int, peaks: list[tuple]) -> list[str]:
+    def _terms(self, d: int, peaks: list[tuple]) -> list:
         """The impedance's worst point, the stress term (each rated part's excess over its rating in dB,
         cost.stress_excess_db, squared), the terms, the weighted cost and the outputs of one candidate."""
         cm, need = self.cm, self.need
-        floor = cm.impedance_floor
         w = cm.weights
-        nb = self.hi - self.lo
-        pref = self.plan is not None
+        nb = float(self.hi - self.lo)
         lim = self.limit_code
         ways = [k for k in range(d) if cm.has_way[k]]
-        i1, i2, i3 = " " * 8, " " * 12, " " * 16
-        src = [i1 + "mz = 0.0"]
-        if floor > 0:
-            src += [i1 + f"for f in range({self.lo}, {self.hi}):", i2 + f"shv = scratch[{d + 1}, f]",
-                    i2 + "if shv > mz:", i3 + "mz = shv"]
+        mz, acc_st = f8("mz"), f8("acc_st")
+        src: list = [let(mz, 0.0)]
+        if cm.impedance_floor > 0:
+            shv = f8("shv")
+            src.append(loop(F, self.lo, self.hi, [let(shv, SCRATCH[d + 1, F]), when(shv > mz, [assign(mz, shv)])]))
         k2 = cm.drive_scale**2
         for row, m in peaks:
-            src += [i1 + f"mq{m} = 0.0", i1 + f"for f in range({self.lo}, {self.hi}):",
-                    i2 + f"qv = scratch[{row}, f]", i2 + f"if qv > mq{m}:", i3 + f"mq{m} = qv"]
-        src.append(i1 + "acc_st = 0.0")
+            mq, qv = f8(f"mq{m}"), f8("qv")
+            src += [let(mq, 0.0),
+                    loop(F, self.lo, self.hi, [let(qv, SCRATCH[row, F]), when(qv > mq, [assign(mq, qv)])])]
+        src.append(let(acc_st, 0.0))
         for m, (j, _, kind, rating) in enumerate(cm.rated):
+            x, mq = f8(f"x_{j}"), f8(f"mq{m}")
             if kind == "R":
-                ratio = f"acc_r{m} / {nb}.0 * x_{j} * {k2!r} / {rating / 2!r}"
+                ratio = f8(f"acc_r{m}") / nb * x * k2 / (rating / 2)
             elif kind == "C":
-                ratio = f"2.0 * mq{m} / (x_{j} * x_{j}) * {k2!r} / {rating * rating!r}"
+                ratio = 2.0 * mq / (x * x) * k2 / (rating * rating)
             else:
-                ratio = f"2.0 * mq{m} * {k2!r} / {rating * rating!r}"
-            src += [i1 + f"ex{m} = DB10 * ln_floored(max({ratio}, 1.0))", i1 + f"acc_st += ex{m} * ex{m}"]
-        src.append(i1 + (f"t_stress = acc_st / {len(cm.rated)}.0" if cm.rated else "t_stress = 0.0"))
-        phase_expr = " + ".join(f"acc_p{j} / {self.pair_counts[j]}.0" for j in range(len(cm.pairs)))
+                ratio = 2.0 * mq * k2 / (rating * rating)
+            ex = f8(f"ex{m}")
+            src += [let(ex, DB10 * ln_floored(maximum(ratio, 1.0))), update(acc_st, ex * ex)]
+        t = {n: f8(f"t_{n}") for n in ("stress", "way", "sum", "phase", "imp", "er", "sp", "pref")}
         phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
+        sxx = self.sxx
         src += [
-            i1 + (f"t_way = acc_w / {nb * len(ways)}.0" if ways else "t_way = 0.0"),
-            i1 + f"t_sum = acc_s / {nb}.0",
-            i1 + (f"t_phase = ({phase_expr}) * {phase_scale!r}" if cm.pairs else "t_phase = 0.0"),
-            i1 + (f"t_imp = acc_z / {nb}.0 + mz * mz" if floor > 0 else "t_imp = 0.0"),
-            i1 + (f"t_er = (acc_ee - acc_ex * acc_ex / {self.sxx!r}) / {nb}.0" if need["early_reflections"]
-                  else "t_er = 0.0"),
-            i1 + (f"t_sp = (acc_pp - acc_px * acc_px / {self.sxx!r}) / {nb}.0" if need["sound_power"]
-                  else "t_sp = 0.0"),
-            i1 + f"out[b, 0] = {w['way']!r} * t_way + {w['sum']!r} * t_sum + {w['phase']!r} * t_phase "
-                 f"+ {w['impedance']!r} * t_imp + {w['stress']!r} * t_stress + {w['early_reflections']!r} * t_er "
-                 f"+ {w['sound_power']!r} * t_sp" + (f" + {w['preference']!r} * t_pref" if pref else ""),
-            i1 + "out[b, 1] = t_way", i1 + "out[b, 2] = t_sum", i1 + "out[b, 3] = t_phase", i1 + "out[b, 4] = t_imp",
-            i1 + "out[b, 5] = t_stress", i1 + "out[b, 6] = t_er", i1 + "out[b, 7] = t_sp",
-            i1 + f"out[b, {LEVEL}] = level", i1 + f"out[b, {FLAG}] = acc_bad",
-            *([i1 + f"out[b, {PREFERENCE}] = t_pref"] if pref else []),
-            *([i1 + s for s in lim.end_lines(self.judged, cm.limits.drive_scale ** 2, self.col_limits)] if lim else []),
-            i1 + "if not acc_bad <= 0.0:", i2 + "nbad += 1",
-            "    return nbad",
-        ]
+            let(t["stress"], acc_st / float(len(cm.rated)) if cm.rated else Const(0.0)),
+            let(t["way"], f8("acc_w") / float(nb * len(ways)) if ways else Const(0.0)),
+            let(t["sum"], f8("acc_s") / nb),
+            let(t["phase"], total([f8(f"acc_p{j}") / float(self.pair_counts[j]) for j in range(len(cm.pairs))])
+                * phase_scale if cm.pairs else Const(0.0)),
+            let(t["imp"], f8("acc_z") / nb + mz * mz if cm.impedance_floor > 0 else Const(0.0)),
+            let(t["er"], (f8("acc_ee") - f8("acc_ex") * f8("acc_ex") / sxx) / nb if need["early_reflections"]
+                else Const(0.0)),
+            let(t["sp"], (f8("acc_pp") - f8("acc_px") * f8("acc_px") / sxx) / nb if need["sound_power"]
+                else Const(0.0))]
+        terms = [(w["way"], t["way"]), (w["sum"], t["sum"]), (w["phase"], t["phase"]), (w["impedance"], t["imp"]),
+                 (w["stress"], t["stress"]), (w["early_reflections"], t["er"]), (w["sound_power"], t["sp"])]
+        terms += [(w["preference"], t["pref"])] if self.plan is not None else []
+        cols = [t[n] for n in ("way", "sum", "phase", "imp", "stress", "er", "sp")] + [f8("level"), f8("acc_bad")]
+        cols += [t["pref"]] if self.plan is not None else []
+        src.append(OUT.store((B, 0), total([wrap(c) * v for c, v in terms])))
+        src += [OUT.store((B, i), v) for i, v in enumerate(cols, start=1)]
+        if lim:
+            src += lim.end_lines(self.judged, cm.limits.drive_scale ** 2, self.col_limits)
+        src.append(when(Not(f8("acc_bad") <= 0.0), [update(i8("nbad"), 1)]))
         return src
-
-    def _preference_source(self, row_q: int) -> list[str]:
-        """Per candidate, after the position sums: Olive's score (:func:`~xo_fit.model.fused_preference.
-        preference_lines`) and the term max(0, 10 - score)^2 / 100 as ``t_pref``."""
-        return preference_lines(self.plan, row_q, self.row_inband, self.flo, self.fhi)
 
     def kernel(self):
         if self._kernel is None:
-            self._kernel = load_kernel(self.text(), entry="cost_kernel", signature=COST_SIGNATURE)
+            self._kernel = load_kernel(self.ir())
         return self._kernel
 
     def text(self) -> str:
@@ -431,7 +445,8 @@ class FusedCost:
     # ------------------------------------------------------------------ evaluation
 
     def kernel_args(self, values: np.ndarray) -> tuple:
-        """The kernel's arguments (COST_SIGNATURE) for designs (B, P): a fresh scratch and output (B, 10) last."""
+        """The kernel's arguments (its parameters, in order) for designs (B, P): a fresh scratch and output (B, 10)
+        last."""
         v = np.ascontiguousarray(self.net._check_values(values), dtype=float)
         k = self.net._kernel_args()
         return (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),

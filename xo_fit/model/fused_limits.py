@@ -4,8 +4,8 @@
 candidate, the violation of each ``[limits]`` limit and their total (the numbers of
 :meth:`xo_fit.model.limits.LimitModel.violations`, to 1e-9): rows of ``tgt`` (each protected driver's excursion
 and power factors over the band, each way's breakup stop band), scratch rows (|Z|^2 and the excursions per
-frequency, whose extremes are taken after the frequency loop, like the stress term's peaks), lines inside the
-frequency loop and lines after it. A job without ``[limits]`` builds none of this: its kernel text is
+frequency, whose extremes are taken after the frequency loop, like the stress term's peaks), IR statements
+inside the frequency loop and after it. A job without ``[limits]`` builds none of this: its kernel text is
 unchanged.
 """
 
@@ -15,6 +15,11 @@ import numpy as np
 
 from xo_fit.constants import Z_SHORT_OHM
 from xo_fit.model.limits import LN10_20, NAMES
+from xo_fit.solver.codegen import B, F
+from xo_fit.solver.ir import Array, Declared, assign, f8, let, loop, maximum, select, sqrt, update, when
+
+#: The fused kernel's arrays this code reads and writes (xo_fit.model.fused).
+TGT, SCRATCH, OUT = Array("tgt", 2), Array("scratch", 2), Array("out", 2)
 
 #: A level below anything the kernel computes (its dB are floored at SPL_FLOOR_DB): the start of a maximum.
 _LOWEST = -1e300
@@ -69,69 +74,75 @@ class LimitCode:
             rows.append(r)
         self.scratch_rows = n
 
-    def loop_lines(self, code, inband: str) -> list[str]:
-        """Lines inside the frequency loop (``code``: the solver's SolverCode; ``inband``: the factor that keeps
-        a sum to the band when the loop runs wider)."""
-        out = []
+    def loop_lines(self, code, inband) -> list:
+        """Statements inside the frequency loop (``code``: the solver's SolverCode; ``inband``: the factor that
+        keeps a sum to the band when the loop runs wider, or None)."""
+        out: list = []
         if self.row_z is not None:
             zr, zi = code.zin
-            out.append(f"scratch[{self.row_z}, f] = max({zr} * {zr} + {zi} * {zi}, {Z_SHORT_OHM ** 2!r})")
+            out.append(SCRATCH.store((self.row_z, F), maximum(zr * zr + zi * zi, Z_SHORT_OHM ** 2)))
         drivers = sorted({k for k, _, _ in self.excursions} | {k for k, _ in self.powers})
         for k in drivers:
             vr, vi = code.volts[k]
-            out.append(f"lv{k} = {vr} * {vr} + {vi} * {vi}")
+            out.append(let(f8(f"lv{k}"), vr * vr + vi * vi))
         for k, row, srow in self.excursions:
-            out.append(f"scratch[{srow}, f] = lv{k} * tgt[{row}, f]")
+            out.append(SCRATCH.store((srow, F), f8(f"lv{k}") * TGT[row, F]))
         for k, row in self.powers:
-            out.append(f"lim_pw{k} += lv{k} * tgt[{row}, f]")
+            out.append(update(f8(f"lim_pw{k}"), f8(f"lv{k}") * TGT[row, F]))
         return out
 
-    def start_lines(self) -> list[str]:
+    def start_lines(self) -> list:
         """Per candidate, before the frequency loop: the sums' starts."""
-        return [f"lim_pw{k} = 0.0" for k, _ in self.powers]
+        return [let(f8(f"lim_pw{k}"), 0.0) for k, _ in self.powers]
 
-    def end_lines(self, judged: list, k2: float, out_col: int) -> list[str]:
+    def end_lines(self, judged: list, k2: float, out_col: int) -> list:
         """Per candidate, after the level is known and the second pass is done: the extremes, each limit's
         violation and their total into ``out[b, out_col:out_col + 5]``. ``judged``: the rated parts whose
         currents the kernel sums (``acc_r{m}``) or peaks (``mq{m}``); ``k2``: the drive scale squared."""
-        i1, i2 = " " * 4, " " * 8
         lim = self.lim
-        lines = []
-        rng = f"for f in range({self.lo}, {self.hi}):"
+        here = Declared()  # names of the candidate's block, set again and again
+        v = {n: f8(n) for n in ("lim_zz", "lim_q", "lim_vz", "lim_vr", "lim_e", "lim_vp", "lim_mx", "lim_vb",
+                                "lim_mb", "lim_t")}
+        q, e = v["lim_q"], v["lim_e"]
+
+        def extreme(row_value, best, lower: bool) -> list:
+            better = q < best if lower else q > best
+            return [loop(F, self.lo, self.hi, [let(q, row_value), when(better, [assign(best, q)])])]
+
+        lines: list = []
         if self.row_z is not None:
-            lines += ["lim_zz = " + repr(_HIGHEST), rng, i1 + f"lim_q = scratch[{self.row_z}, f]",
-                      i1 + "if lim_q < lim_zz:", i2 + "lim_zz = lim_q",
-                      f"lim_vz = {lim.floor!r} / sqrt(lim_zz) - 1.0"]
+            lines += [here.set(v["lim_zz"], _HIGHEST), *extreme(SCRATCH[self.row_z, F], v["lim_zz"], True),
+                      here.set(v["lim_vz"], lim.floor / sqrt(v["lim_zz"]) - 1.0)]
         else:
-            lines.append("lim_vz = 0.0")
-        lines.append(f"lim_vr = {_LOWEST!r}" if lim.rated else "lim_vr = 0.0")
+            lines.append(here.set(v["lim_vz"], 0.0))
+        lines.append(here.set(v["lim_vr"], _LOWEST if lim.rated else 0.0))
         rated = {j: m for m, (j, _, _, _) in enumerate(judged)}
         for j, _, kind, rating in lim.rated:
             m = rated[j]
             if kind == "R":
-                lines.append(f"lim_e = acc_r{m} / {self.nb}.0 * x_{j} * {k2!r} / {rating / 2!r} - 1.0")
+                lines.append(here.set(e, f8(f"acc_r{m}") / float(self.nb) * f8(f"x_{j}") * k2 / (rating / 2) - 1.0))
             elif kind == "C":
-                lines.append(f"lim_e = sqrt(2.0 * mq{m} * {k2!r}) / x_{j} / {rating!r} - 1.0")
+                lines.append(here.set(e, sqrt(2.0 * f8(f"mq{m}") * k2) / f8(f"x_{j}") / rating - 1.0))
             else:
-                lines.append(f"lim_e = sqrt(2.0 * mq{m} * {k2!r}) / {rating!r} - 1.0")
-            lines.append("lim_vr = lim_e if lim_e > lim_vr else lim_vr")
-        lines.append(f"lim_vp = {_LOWEST!r}" if self.excursions or self.powers else "lim_vp = 0.0")
+                lines.append(here.set(e, sqrt(2.0 * f8(f"mq{m}") * k2) / rating - 1.0))
+            lines.append(here.set(v["lim_vr"], select(e > v["lim_vr"], e, v["lim_vr"])))
+        lines.append(here.set(v["lim_vp"], _LOWEST if self.excursions or self.powers else 0.0))
         for _k, _, srow in self.excursions:
-            lines += ["lim_mx = 0.0", rng, i1 + f"lim_q = scratch[{srow}, f]", i1 + "if lim_q > lim_mx:",
-                      i2 + "lim_mx = lim_q", "lim_e = sqrt(lim_mx) - 1.0",
-                      "lim_vp = lim_e if lim_e > lim_vp else lim_vp"]
+            lines += [here.set(v["lim_mx"], 0.0), *extreme(SCRATCH[srow, F], v["lim_mx"], False),
+                      here.set(e, sqrt(v["lim_mx"]) - 1.0),
+                      here.set(v["lim_vp"], select(e > v["lim_vp"], e, v["lim_vp"]))]
         for k, _ in self.powers:
-            lines += [f"lim_e = lim_pw{k} - 1.0", "lim_vp = lim_e if lim_e > lim_vp else lim_vp"]
-        lines.append("lim_vb = 0.0")
+            lines += [here.set(e, f8(f"lim_pw{k}") - 1.0),
+                      here.set(v["lim_vp"], select(e > v["lim_vp"], e, v["lim_vp"]))]
+        lines.append(here.set(v["lim_vb"], 0.0))
         if self.ways:
-            lines.append(f"lim_mb = {_LOWEST!r}")
+            lines.append(here.set(v["lim_mb"], _LOWEST))
             for k, row in self.ways:
-                lines += [rng, i1 + f"lim_q = scratch[{k}, f] if tgt[{row}, f] > 0.5 else {_LOWEST!r}",
-                          i1 + "if lim_q > lim_mb:", i2 + "lim_mb = lim_q"]
-            lines += [f"lim_vb = (lim_mb - level + {lim.breakup_db!r}) * {LN10_20!r}"]
-        cols = dict(zip(NAMES, ("lim_vz", "lim_vr", "lim_vp", "lim_vb")))
-        lines.append("lim_t = 0.0")
-        lines += [f"lim_t += {c} if {c} > 0.0 else 0.0" for c in cols.values()]
-        lines.append(f"out[b, {out_col}] = lim_t")
-        lines += [f"out[b, {out_col + 1 + i}] = {cols[n]}" for i, n in enumerate(NAMES)]
+                lines += extreme(select(TGT[row, F] > 0.5, SCRATCH[k, F], _LOWEST), v["lim_mb"], False)
+            lines.append(here.set(v["lim_vb"], (v["lim_mb"] - f8("level") + lim.breakup_db) * LN10_20))
+        cols = dict(zip(NAMES, (v["lim_vz"], v["lim_vr"], v["lim_vp"], v["lim_vb"])))
+        lines.append(here.set(v["lim_t"], 0.0))
+        lines += [update(v["lim_t"], select(c > 0.0, c, 0.0)) for c in cols.values()]
+        lines.append(OUT.store((B, out_col), v["lim_t"]))
+        lines += [OUT.store((B, out_col + 1 + i), cols[n]) for i, n in enumerate(NAMES)]
         return lines

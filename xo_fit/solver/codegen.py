@@ -1,4 +1,5 @@
-"""Code generation: straight-line elimination code for one topology, as the source of a numba kernel.
+"""Code generation: straight-line elimination code for one topology, as a kernel of the IR
+(:mod:`xo_fit.solver.ir`, printed for numba and for the C compiler).
 
 Series chains are merged (:func:`~xo_fit.solver.netlist.reduce_series_chains`),
 the symmetric nodal matrix is assembled from per-candidate branch constants,
@@ -18,6 +19,10 @@ import numpy as np
 from xo_fit.constants import GROUND_NODE, SOURCE_NODE
 from xo_fit.errors import NetworkError
 from xo_fit.solver.emitter import Emitter, batch_reciprocal, elimination_order
+from xo_fit.solver.ir import (Array, Const, Expr, Function, Not, Return, Stmt, Var, absolute, assign, f8, i8, let, loop,
+                              maximum, signed_sum, total, update, when)
+from xo_fit.solver.ir_kernel import Kernel
+from xo_fit.solver.ir_python import text as python_text
 from xo_fit.solver.kernels import KERNEL_VERSION
 from xo_fit.solver.netlist import reduce_series_chains
 
@@ -34,24 +39,31 @@ def kernel_inputs(net: Network) -> np.ndarray:
     return np.ascontiguousarray(np.vstack(rows))
 
 
+#: The solver's arrays and scalars as the kernels name them (:func:`generate_kernel`, the fused cost's).
+VALS, R_COEF, R_EXP, FIN = Array("vals", 2), Array("r_coef", 1), Array("r_exp", 1), Array("fin", 2)
+VS, RS, TAU2 = f8("vs"), f8("rs"), f8("tau2")
+#: The candidate's and the frequency's loop indices.
+B, F = i8("b"), i8("f")
+
+
 @dataclass(frozen=True)
 class SolverCode:
-    """Straight-line code that solves one network at one (candidate b, frequency f) point.
+    """Straight-line code (IR statements) that solves one network at one (candidate ``b``, frequency ``f``) point.
 
-    prep: lines per candidate (outside the frequency loop), reading ``vals[b, :]``;
-    loads: lines reading the frequency-dependent inputs from ``fin[:, f]``;
+    prep: statements per candidate (outside the frequency loop), reading ``vals[b, :]``;
+    loads: statements reading the frequency-dependent inputs from ``fin[:, f]``;
     body: the solve and the pivot check, ending with ``bad`` (positive or NaN: redo densely);
-    volts: (re, im) names of each driver's terminal voltage, by driver index ("0.0" for a zero part);
-    zin: (re, im) names of the input impedance; comment: lines describing the reduced network.
+    volts: (re, im) of each driver's terminal voltage, by driver index (the constant 0.0 for a zero part);
+    zin: (re, im) of the input impedance; comment: lines describing the reduced network.
     """
 
-    prep: tuple[str, ...]
-    loads: tuple[str, ...]
-    body: tuple[str, ...]
-    volts: tuple[tuple[str, str], ...]
-    zin: tuple[str, str]
+    prep: tuple[Stmt, ...]
+    loads: tuple[Stmt, ...]
+    body: tuple[Stmt, ...]
+    volts: tuple[tuple[Expr, Expr], ...]
+    zin: tuple[Expr, Expr]
     comment: tuple[str, ...]
-    currents: tuple[tuple[str, str], ...] = ()  # (re, im) of the current through each branch asked for, A
+    currents: tuple[tuple[Expr, Expr], ...] = ()  # (re, im) of the current through each branch asked for, A
 
 
 @dataclass
@@ -85,11 +97,11 @@ class _Build:
         if node == GROUND_NODE:
             return (None, None)
         if node == SOURCE_NODE:
-            return ("1.0", None)
+            return (Const(1.0), None)
         return self.x[self.idx[node]]
 
 
-def _edge_constants(b: _Build) -> list[str]:
+def _edge_constants(b: _Build) -> list[Stmt]:
     """Per candidate: the constants of every edge (values, loss resistances, series sums); sets ``b.forms``."""
     net = b.net
     col_of = {}
@@ -98,14 +110,14 @@ def _edge_constants(b: _Build) -> list[str]:
         if br.kind != "D":
             col_of[j] = col
             col += 1
-    prep: list[str] = []
+    prep: list[Stmt] = []
     for j, br in enumerate(net.branches):
         if br.kind == "D":
             continue
         c = col_of[j]
-        prep.append(f"x_{j} = vals[b, {c}]")
+        prep.append(let(f8(f"x_{j}"), VALS[B, c]))
         if br.kind in ("L", "C") and br.r_coef != 0.0:
-            prep.append(f"r_{j} = r_coef[{c}] * x_{j} ** r_exp[{c}]" if br.r_exp else f"r_{j} = r_coef[{c}]")
+            prep.append(let(f8(f"r_{j}"), R_COEF[c] * f8(f"x_{j}") ** R_EXP[c] if br.r_exp else R_COEF[c]))
     for ei, edge in enumerate(b.edges):
         brs = [net.branches[j] for j in edge.members]
         if len(brs) == 1 and brs[0].kind == "D":
@@ -115,81 +127,84 @@ def _edge_constants(b: _Build) -> list[str]:
             j = edge.members[0]
             kind = brs[0].kind
             if kind == "R":
-                prep.append(f"g_{j} = 1.0 / x_{j}")
-                b.forms.append(("G", f"g_{j}"))
+                prep.append(let(f8(f"g_{j}"), 1.0 / f8(f"x_{j}")))
+                b.forms.append(("G", f8(f"g_{j}")))
             elif kind == "C":
-                b.forms.append(("jwC", f"x_{j}"))
+                b.forms.append(("jwC", f8(f"x_{j}")))
             else:
-                prep.append(f"il_{j} = 1.0 / x_{j}")
-                b.forms.append(("L0", f"il_{j}"))
+                prep.append(let(f8(f"il_{j}"), 1.0 / f8(f"x_{j}")))
+                b.forms.append(("L0", f8(f"il_{j}")))
             continue
         b.forms.append(("Z", *_series_sums(prep, edge, brs, ei), ei))
     return prep
 
 
-def _series_sums(prep: list[str], edge, brs, ei: int) -> list[str | None]:
+def _series_sums(prep: list[Stmt], edge, brs, ei: int) -> list[Var | None]:
     """The series resistance, inductance and elastance sums of a chain edge, as names (or None)."""
-    zr, ls, ss = [], [], []
+    zr: list[Expr] = []
+    ls: list[Expr] = []
+    ss: list[Expr] = []
     for j, br in zip(edge.members, brs):
         if br.kind == "R":
-            zr.append(f"x_{j}")
+            zr.append(f8(f"x_{j}"))
         elif br.kind == "L":
-            ls.append(f"x_{j}")
+            ls.append(f8(f"x_{j}"))
             if br.r_coef:
-                zr.append(f"r_{j}")
+                zr.append(f8(f"r_{j}"))
         else:
-            ss.append(f"1.0 / x_{j}")
+            ss.append(1.0 / f8(f"x_{j}"))
             if br.r_coef:
-                zr.append(f"r_{j}")
-    names: list[str | None] = []
+                zr.append(f8(f"r_{j}"))
+    names: list[Var | None] = []
     for tag, terms in (("zr", zr), ("ls", ls), ("ss", ss)):
         if terms:
-            prep.append(f"{tag}_{ei} = {' + '.join(terms)}")
-            prep.append(f"{tag}2_{ei} = {tag}_{ei} * {tag}_{ei}") if tag == "zr" else None
-            names.append(f"{tag}_{ei}")
+            name = f8(f"{tag}_{ei}")
+            prep.append(let(name, total(terms)))
+            if tag == "zr":
+                prep.append(let(f8(f"zr2_{ei}"), name * name))
+            names.append(name)
         else:
             names.append(None)
     return names
 
 
-def _edge_admittances(b: _Build) -> list[str]:
+def _edge_admittances(b: _Build) -> list[Stmt]:
     """Per frequency: the loads of the input arrays and every edge admittance, every division batched into
-    one; sets ``b.ys``. Returns the load lines."""
+    one; sets ``b.ys``. Returns the load statements."""
     e = b.e
-    loads = ["w = fin[0, f]", "iw = fin[1, f]"]
+    w, iw = f8("w"), f8("iw")
+    loads: list[Stmt] = [let(w, FIN[0, F]), let(iw, FIN[1, F])]
     pending = []  # (edge index, zr, zi name) needing 1/|z|^2
     for ei, form in enumerate(b.forms):
         if form[0] == "D":
             dd = form[1]
-            loads += [f"yd{dd}r = fin[{2 + 2 * dd}, f]", f"yd{dd}i = fin[{3 + 2 * dd}, f]"]
-            b.ys.append((f"yd{dd}r", f"yd{dd}i"))
+            yr, yi = f8(f"yd{dd}r"), f8(f"yd{dd}i")
+            loads += [let(yr, FIN[2 + 2 * dd, F]), let(yi, FIN[3 + 2 * dd, F])]
+            b.ys.append((yr, yi))
         elif form[0] == "G":
             b.ys.append((form[1], None))
         elif form[0] == "jwC":
-            b.ys.append((None, e.let(f"w * {form[1]}", "y")))
+            b.ys.append((None, e.let(w * form[1], "y")))
         elif form[0] == "L0":
-            b.ys.append((None, e.let(f"-iw * {form[1]}", "y")))
+            b.ys.append((None, e.let(-iw * form[1], "y")))
         else:
             _, zr, ls, ss, k = form
-            parts = ([f"w * {ls}"] if ls else []) + ([f"- iw * {ss}"] if ss else [])
-            zi = None
-            if parts:
-                text = " ".join(parts)
-                if parts[0].startswith("-"):
-                    text = text.lstrip("+ ").replace("- ", "-", 1)
-                zi = e.let(text, "zi")
-            if zr and zi:
-                den = e.let(f"zr2_{k} + {zi} * {zi}", "zd")
-            elif zr:
-                den = f"zr2_{k}"
+            parts = ([(1, w * ls)] if ls is not None else []) + ([(-1, iw * ss)] if ss is not None else [])
+            zi = e.let(signed_sum(parts), "zi") if parts else None
+            if zr is not None and zi is not None:
+                den = e.let(f8(f"zr2_{k}") + zi * zi, "zd")
+            elif zr is not None:
+                den = f8(f"zr2_{k}")
             else:
-                den = e.let(f"{zi} * {zi}", "zd")
+                assert zi is not None  # a chain edge has a resistance or a reactance
+                den = e.let(zi * zi, "zd")
             pending.append((ei, zr, zi, den))
             b.ys.append(None)
     if pending:
         invs = batch_reciprocal(e, [p[3] for p in pending], b.traps, "iz")
         for (ei, zr, zi, _), inv in zip(pending, invs):
-            b.ys[ei] = (e.let(f"{zr} * {inv}", "yr") if zr else None, e.let(f"-{zi} * {inv}", "yi") if zi else None)
+            b.ys[ei] = (e.let(zr * inv, "yr") if zr is not None else None,
+                        e.let(-zi * inv, "yi") if zi is not None else None)
     return loads
 
 
@@ -216,9 +231,10 @@ def _assemble(b: _Build) -> set:
             elif kind == "jwC":
                 mag_e = yi_
             elif kind == "L0":
-                mag_e = e.let(f"-{yi_}", "ye")
+                mag_e = e.let(-yi_, "ye")
             else:
-                mag_e = e.let(" + ".join(([yr_] if yr_ else []) + ([f"abs({yi_})"] if yi_ else [])), "ye")
+                mag_e = e.let(total(([yr_] if yr_ is not None else []) + ([absolute(yi_)] if yi_ is not None else [])),
+                              "ye")
         for i in (ia, ib):
             if i is not None:
                 entries.setdefault((i, i), []).append((1, ys[ei]))
@@ -263,18 +279,19 @@ def _eliminate(b: _Build) -> None:
         dens = []
         for k in group:
             pr, pi = b.get(k, k)
-            if pr and pi:
-                b.mags[k] = e.let(f"{pr} * {pr} + {pi} * {pi}", f"q{k}_m")
-            elif pr or pi:
-                b.mags[k] = e.let(f"{pr or pi} * {pr or pi}", f"q{k}_m")
+            if pr is not None and pi is not None:
+                b.mags[k] = e.let(pr * pr + pi * pi, f"q{k}_m")
+            elif pr is not None or pi is not None:
+                p = pr if pr is not None else pi
+                b.mags[k] = e.let(p * p, f"q{k}_m")
             else:
                 raise NetworkError("internal: a structurally zero pivot")
             dens.append(b.mags[k])
         invs = batch_reciprocal(e, dens, b.traps, f"ip{lv}_")
         for k, inv in zip(group, invs):
             pr, pi = b.get(k, k)
-            b.inv_piv[k] = (e.let(f"{pr} * {inv}", f"q{k}_r") if pr else None,
-                            e.let(f"-{pi} * {inv}", f"q{k}_i") if pi else None)
+            b.inv_piv[k] = (e.let(pr * inv, f"q{k}_r") if pr is not None else None,
+                            e.let(-pi * inv, f"q{k}_i") if pi is not None else None)
         for k in group:
             nb = nbrs_at[k]
             b.urow[k] = {i: b.get(k, i) for i in nb}
@@ -320,35 +337,36 @@ def _source_scale(b: _Build) -> tuple[tuple, tuple]:
     cr, ci = e.sum([(1, c) for c in cur_terms], "ci_")
     if cr is None and ci is None:
         raise NetworkError("internal: no current path from the source")
-    cm = e.let(" + ".join(f"{p} * {p}" for p in (cr, ci) if p), "cm")
+    cm = e.let(total([p * p for p in (cr, ci) if p is not None]), "cm")
     if b.net.source_resistance > 0.0:
-        sr = e.let(f"1.0 + rs * {cr}" if cr else "1.0", "sd")
-        si = e.let(f"rs * {ci}", "sd") if ci else None
-        sm = e.let(f"{sr} * {sr}" + (f" + {si} * {si}" if si else ""), "sm")
+        sr = e.let(1.0 + RS * cr if cr is not None else Const(1.0), "sd")
+        si = e.let(RS * ci, "sd") if ci is not None else None
+        sm = e.let(sr * sr + si * si if si is not None else sr * sr, "sm")
         inv_c, inv_s = batch_reciprocal(e, [cm, sm], b.traps, "iv")
-        scale = (e.let(f"vs * {sr} * {inv_s}", "vr"), e.let(f"-vs * {si} * {inv_s}", "vi") if si else None)
+        scale = (e.let(VS * sr * inv_s, "vr"), e.let(-VS * si * inv_s, "vi") if si is not None else None)
     else:
-        inv_c = e.let(f"1.0 / {cm}", "cn")
-        b.traps.append(e.let(f"{cm} * {inv_c}", "cnt"))
-        scale = ("vs", None)
-    zin = (e.let(f"{cr} * {inv_c}", "zr") if cr else None, e.let(f"-{ci} * {inv_c}", "zi") if ci else None)
+        inv_c = e.let(1.0 / cm, "cn")
+        b.traps.append(e.let(cm * inv_c, "cnt"))
+        scale = (VS, None)
+    zin = (e.let(cr * inv_c, "zr") if cr is not None else None, e.let(-ci * inv_c, "zi") if ci is not None else None)
     return zin, scale
 
 
-def _pivot_checks(b: _Build, trap_terms: list[str]) -> list[str]:
+def _pivot_checks(b: _Build, trap_terms: list[Expr]) -> list[Stmt]:
     """Pivot checks: |p|^2 >= tau2 (sum |y| at the node)^2, and a NaN trap over everything produced."""
-    check = []
+    check: list[Stmt] = []
     margins = []
+    bad = f8("bad")
     for k in b.order:
-        sc = f"sc{k}"
-        check.append(f"{sc} = {' + '.join(b.scale_terms[k]) or '0.0'}")
-        margins.append(f"tau2 * {sc} * {sc} - {b.mags[k]}")
+        sc = f8(f"sc{k}")
+        check.append(let(sc, total(b.scale_terms[k]) if b.scale_terms[k] else Const(0.0)))
+        margins.append(TAU2 * sc * sc - b.mags[k])
     if margins:
-        check.append(f"bad = {margins[0]}")
-        check += [f"bad = max(bad, {m})" for m in margins[1:]]
+        check.append(let(bad, margins[0]))
+        check += [assign(bad, maximum(bad, m)) for m in margins[1:]]
     else:
-        check.append("bad = -1.0")
-    check.append(f"bad = bad + 0.0 * ({' + '.join(trap_terms)})")
+        check.append(let(bad, -1.0))
+    check.append(assign(bad, bad + 0.0 * total(trap_terms)))
     return check
 
 
@@ -376,14 +394,14 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
     _back_substitute(b, currents, edge_of)
     zin, scale = _source_scale(b)
     trap_terms = list(b.traps)
-    volts: dict[int, tuple[str, str]] = {}
+    volts: dict[int, tuple[Expr, Expr]] = {}
     for ed, form in zip(edges, forms):
         if form[0] == "D":
             u = e.sum([(1, b.volt(ed.a)), (-1, b.volt(ed.b))], f"u{form[1]}_")
             v = e.mul(u, scale, f"v{form[1]}_")
-            volts[form[1]] = (v[0] or "0.0", v[1] or "0.0")
-            trap_terms.extend(x for x in v if x)
-    trap_terms.extend(x for x in zin if x)
+            volts[form[1]] = (_or_zero(v[0]), _or_zero(v[1]))
+            trap_terms.extend(x for x in v if x is not None)
+    trap_terms.extend(x for x in zin if x is not None)
     amps = []
     for j in currents:
         if j not in edge_of:
@@ -391,21 +409,25 @@ def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
         ed = edges[edge_of[j]]
         u = e.sum([(1, b.volt(ed.a)), (-1, b.volt(ed.b))], f"ub{j}_")
         i_ = e.mul(e.mul(b.ys[edge_of[j]], u, f"ib{j}_"), scale, f"ia{j}_")
-        amps.append((i_[0] or "0.0", i_[1] or "0.0"))
+        amps.append((_or_zero(i_[0]), _or_zero(i_[1])))
     body_solve = e.lines
     e.lines = []
     check = _pivot_checks(b, trap_terms)
     nodes, order = b.nodes, b.order
     return SolverCode(
         prep=tuple(prep), loads=tuple(loads), body=tuple(body_y + body_solve + check),
-        volts=tuple(volts[i] for i in range(len(net.driver_names))), zin=(zin[0] or "0.0", zin[1] or "0.0"),
+        volts=tuple(volts[i] for i in range(len(net.driver_names))), zin=(_or_zero(zin[0]), _or_zero(zin[1])),
         currents=tuple(amps),
-        comment=(f"# edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
-                 f"# unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}"))
+        comment=(f"edges: {[(ed.a, ed.b, [net.branches[j].name for j in ed.members]) for ed in edges]}",
+                 f"unknown nodes {nodes}; elimination order {[nodes[k] for k in order]}"))
 
 
-def generate_kernel_source(net: Network) -> str:
-    """Python source of a numba kernel that solves ``net`` for a batch of values on its grid.
+def _or_zero(x: Expr | None) -> Expr:
+    return Const(0.0) if x is None else x
+
+
+def generate_kernel(net: Network) -> Kernel:
+    """The kernel that solves ``net`` for a batch of values on its grid, as IR.
 
     Signature: ``kernel(vals (B, P), r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2,
     scratch (2 D + 3, F), out (B, D + 1, 2 F) float64 (a complex array's view), out_bad (B, F)) -> int``.
@@ -422,34 +444,25 @@ def generate_kernel_source(net: Network) -> str:
     """
     code = solver_code(net)
     d = len(net.driver_names)
-    outs = []
+    scratch, out, out_bad = Array("scratch", 2), Array("out", 3), Array("out_bad", 2)
+    nb, nf, nbad, bv = i8("nb"), i8("nf"), i8("nbad"), f8("bv")
+    outs: list[Stmt] = []
     for i, (vr, vi) in enumerate(code.volts):
-        outs += [f"scratch[{2 * i}, f] = {vr}", f"scratch[{2 * i + 1}, f] = {vi}"]
-    outs += [f"scratch[{2 * d}, f] = {code.zin[0]}", f"scratch[{2 * d + 1}, f] = {code.zin[1]}",
-             f"scratch[{2 * d + 2}, f] = bad"]
-    ind1, ind2 = " " * 8, " " * 12
-    src = [
-        "# generated by xo_fit.network.generate_kernel_source; do not edit",
-        f"# kernel version {KERNEL_VERSION}",
-        *code.comment,
-        "import numba",
-        "",
-        "",
-        '@numba.njit(cache=True, error_model="numpy", fastmath={"contract"}, nogil=True)',
-        "def kernel(vals, r_coef, r_exp, fin, vs, rs, tau2, scratch, out, out_bad):",
-        "    nb = vals.shape[0]",
-        "    nf = fin.shape[1]",
-        "    nbad = 0",
-        "    for b in range(nb):",
-    ]
-    src += [ind1 + s for s in code.prep] or [ind1 + "pass"]
-    src.append(ind1 + "for f in range(nf):")
-    src += [ind2 + s for s in code.loads + code.body + tuple(outs)]
-    src.append(ind1 + "for f in range(nf):")
+        outs += [scratch.store((2 * i, F), vr), scratch.store((2 * i + 1, F), vi)]
+    outs += [scratch.store((2 * d, F), code.zin[0]), scratch.store((2 * d + 1, F), code.zin[1]),
+             scratch.store((2 * d + 2, F), f8("bad"))]
+    interleave: list[Stmt] = []
     for i in range(d + 1):  # into the complex result seen as float64 (B, D + 1, 2 F): 6 % faster than complex()
-        src += [ind2 + f"out[b, {i}, 2 * f] = scratch[{2 * i}, f]",
-                ind2 + f"out[b, {i}, 2 * f + 1] = scratch[{2 * i + 1}, f]"]
-    src += [ind2 + f"bv = scratch[{2 * d + 2}, f]", ind2 + "out_bad[b, f] = bv", ind2 + "if not bv <= 0.0:",
-            ind2 + "    nbad += 1"]
-    src.append("    return nbad")
-    return "\n".join(src) + "\n"
+        interleave += [out.store((B, i, 2 * F), scratch[2 * i, F]),
+                       out.store((B, i, 2 * F + 1), scratch[2 * i + 1, F])]
+    interleave += [let(bv, scratch[2 * d + 2, F]), out_bad.store((B, F), bv), when(Not(bv <= 0.0), [update(nbad, 1)])]
+    per_b = [*code.prep, loop(F, None, nf, [*code.loads, *code.body, *outs]), loop(F, None, nf, interleave)]
+    body = [let(nb, VALS.shape(0)), let(nf, FIN.shape(1)), let(nbad, 0), loop(B, None, nb, per_b), Return(nbad)]
+    fn = Function("kernel", (VALS, R_COEF, R_EXP, FIN, VS, RS, TAU2, scratch, out, out_bad), tuple(body))
+    return Kernel(fn, comments=("generated by xo_fit.network.generate_kernel_source; do not edit",
+                                f"kernel version {KERNEL_VERSION}", *code.comment))
+
+
+def generate_kernel_source(net: Network) -> str:
+    """The Python text numba compiles of :func:`generate_kernel`."""
+    return python_text(generate_kernel(net))

@@ -1,52 +1,44 @@
-"""The text of generated kernels: named temporaries, complex arithmetic written out in real and imaginary
-parts, a minimum-degree elimination order, and batched reciprocals (Montgomery's trick)."""
+"""The generated kernels' straight-line code, as IR (:mod:`xo_fit.solver.ir`): named temporaries, complex
+arithmetic written out in real and imaginary parts, a minimum-degree elimination order, and batched reciprocals
+(Montgomery's trick)."""
 
 from __future__ import annotations
 
-
-
-
-def render(terms: list[tuple[int, str]]) -> str:
-    """Render signed terms [(+1, "a"), (-1, "b * c")] as "a - b * c"."""
-    expr = ""
-    for sign, term in terms:
-        if not expr:
-            expr = term if sign > 0 else f"-{term}"
-        else:
-            expr += f" + {term}" if sign > 0 else f" - {term}"
-    return expr
+from xo_fit.solver.ir import Expr, Stmt, Var, f8, let, signed_sum
 
 
 class Emitter:
-    """Emits straight-line real arithmetic for complex values kept as (re, im) names; None is a zero part."""
+    """Emits straight-line real arithmetic for complex values kept as (re, im) expressions; None is a zero part.
+    Each value is a new double name declared where it is set (:class:`~xo_fit.solver.ir.Let`)."""
 
     def __init__(self) -> None:
-        self.lines: list[str] = []
+        self.lines: list[Stmt] = []
         self.count = 0
 
-    def let(self, expr: str, stem: str = "t") -> str:
+    def let(self, expr: Expr, stem: str = "t") -> Var:
         self.count += 1
-        name = f"{stem}{self.count}"
-        self.lines.append(f"{name} = {expr}")
+        name = f8(f"{stem}{self.count}")
+        self.lines.append(let(name, expr))
         return name
 
     def _pair(self, re_terms: list, im_terms: list, stem: str) -> tuple:
-        return (self.let(render(re_terms), stem + "r") if re_terms else None,
-                self.let(render(im_terms), stem + "i") if im_terms else None)
+        return (self.let(signed_sum(re_terms), stem + "r") if re_terms else None,
+                self.let(signed_sum(im_terms), stem + "i") if im_terms else None)
 
     def sum(self, terms: list[tuple[int, tuple]], stem: str = "a") -> tuple:
         """Sum of sign * value over terms; returns a complex pair (names or None)."""
-        return self._pair([(s, v[0]) for s, v in terms if v[0]], [(s, v[1]) for s, v in terms if v[1]], stem)
+        return self._pair([(s, v[0]) for s, v in terms if v[0] is not None],
+                          [(s, v[1]) for s, v in terms if v[1] is not None], stem)
 
     @staticmethod
     def _products(x: tuple, y: tuple, sign: int) -> tuple[list, list]:
         """Signed terms of sign * x * y, real and imaginary."""
         xr, xi = x
         yr, yi = y
-        re = [(sign, f"{xr} * {yr}")] if xr and yr else []
-        re += [(-sign, f"{xi} * {yi}")] if xi and yi else []
-        im = [(sign, f"{xr} * {yi}")] if xr and yi else []
-        im += [(sign, f"{xi} * {yr}")] if xi and yr else []
+        re = [(sign, xr * yr)] if xr is not None and yr is not None else []
+        re += [(-sign, xi * yi)] if xi is not None and yi is not None else []
+        im = [(sign, xr * yi)] if xr is not None and yi is not None else []
+        im += [(sign, xi * yr)] if xi is not None and yr is not None else []
         return re, im
 
     def mul(self, x: tuple, y: tuple, stem: str = "m") -> tuple:
@@ -57,8 +49,8 @@ class Emitter:
         re, im = self._products(x, y, -1)
         if not re and not im:
             return acc
-        re = ([(1, acc[0])] if acc[0] else []) + re
-        im = ([(1, acc[1])] if acc[1] else []) + im
+        re = ([(1, acc[0])] if acc[0] is not None else []) + re
+        im = ([(1, acc[1])] if acc[1] is not None else []) + im
         return self._pair(re, im, stem)
 
 
@@ -80,7 +72,7 @@ def elimination_order(nodes: list[str], adj: dict[str, set[str]], rhs: set[str],
     return order
 
 
-def batch_reciprocal(e: Emitter, dens: list[str], traps: list[str], stem: str) -> list[str]:
+def batch_reciprocal(e: Emitter, dens: list[Expr], traps: list[Expr], stem: str) -> list[Expr]:
     """Reciprocals of several independent reals with one division (Montgomery's trick, tree-shaped).
 
     The values are multiplied pairwise up a balanced tree, the root is
@@ -92,28 +84,28 @@ def batch_reciprocal(e: Emitter, dens: list[str], traps: list[str], stem: str) -
     the dense path instead of silently returning zeros.
     """
     if len(dens) == 1:
-        inv = e.let(f"1.0 / {dens[0]}", stem)
-        traps.append(e.let(f"{dens[0]} * {inv}", stem + "t"))
+        inv = e.let(1.0 / dens[0], stem)
+        traps.append(e.let(dens[0] * inv, stem + "t"))
         return [inv]
     # build the tree bottom-up: levels[0] = leaves
     levels = [list(dens)]
     while len(levels[-1]) > 1:
         prev = levels[-1]
-        nxt = [e.let(f"{prev[i]} * {prev[i + 1]}", stem + "c") if i + 1 < len(prev) else prev[i]
+        nxt = [e.let(prev[i] * prev[i + 1], stem + "c") if i + 1 < len(prev) else prev[i]
                for i in range(0, len(prev), 2)]
         levels.append(nxt)
     root = levels[-1][0]
-    inv = e.let(f"1.0 / {root}", stem + "n")
-    traps.append(e.let(f"{root} * {inv}", stem + "t"))
-    invs = [inv]
+    inv = e.let(1.0 / root, stem + "n")
+    traps.append(e.let(root * inv, stem + "t"))
+    invs: list[Expr] = [inv]
     for depth in range(len(levels) - 2, -1, -1):
         prev = levels[depth]
-        down = []
+        down: list[Expr] = []
         for i in range(0, len(prev), 2):
             parent = invs[i // 2]
             if i + 1 < len(prev):
-                down.append(e.let(f"{parent} * {prev[i + 1]}", stem + "r"))
-                down.append(e.let(f"{parent} * {prev[i]}", stem + "r"))
+                down.append(e.let(parent * prev[i + 1], stem + "r"))
+                down.append(e.let(parent * prev[i], stem + "r"))
             else:
                 down.append(parent)
         invs = down

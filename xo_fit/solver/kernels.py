@@ -1,5 +1,6 @@
-"""Compiling and caching generated kernels in a private cache folder: built by the C compiler where there is
-one (:mod:`xo_fit.solver.standalone`), else compiled by numba.
+"""Compiling and caching generated kernels (IR: :mod:`xo_fit.solver.ir`) in a private cache folder: printed as C
+and built by the C compiler where there is one (:mod:`xo_fit.solver.standalone`), else printed as Python and
+compiled by numba.
 
 Kernels are keyed by a hash of their text (with the kernel version, and the compiler or numba's version), so
 a second run of a topology starts without compiling.
@@ -15,6 +16,8 @@ import sys
 import tempfile
 from pathlib import Path
 
+from xo_fit.solver.ir_kernel import Kernel
+from xo_fit.solver.ir_python import text as python_text
 from xo_fit.solver.vectors import prefer_wide_vectors
 
 #: Bump when the generated code changes meaning, so stale caches are not reused.
@@ -80,22 +83,22 @@ def kernel_digest(source: str) -> str:
     return hashlib.sha256(f"{KERNEL_VERSION}\n{_numba_version()}\n{source}".encode()).hexdigest()[:20]
 
 
-def load_kernel(source: str, entry: str = "kernel", *, signature: str | None = None):
-    """The function ``entry`` of a generated kernel, compiled (once per text, cached on disk).
+def load_kernel(kernel: Kernel, *, standalone: bool = True):
+    """``kernel``'s function, compiled (once per kernel text, cached on disk).
 
-    With ``signature`` (the numba signature of its arguments) the kernel becomes a standalone C library on its
-    first call (:mod:`xo_fit.solver.standalone`: built by the system's compiler, loaded without numba). Without
-    one, or when that is not possible, numba compiles it: the text is written to the cache (atomically) and
-    imported.
+    With ``standalone`` the kernel becomes a C library on its first call (:mod:`xo_fit.solver.standalone`:
+    printed as C, built by the system's compiler, loaded without numba). Without, or when that is not
+    possible, numba compiles it: its Python text is written to the cache (atomically) and imported.
     """
-    text_key = hashlib.sha256(f"{entry}\n{signature}\n{source}".encode()).hexdigest()
+    source, entry = python_text(kernel), kernel.name
+    text_key = hashlib.sha256(f"{entry}\n{standalone}\n{source}".encode()).hexdigest()
     if text_key in _LOADED:
         return _LOADED[text_key]
     folder = cache_dir()
-    if signature is not None:
+    if standalone:
         from xo_fit.solver.standalone import load
 
-        fn = load(folder, source, entry, signature, fallback=lambda: _numba_kernel(folder, source, entry))
+        fn = load(folder, kernel, fallback=lambda: _numba_kernel(folder, source, entry))
         if fn is not None:
             _LOADED[text_key] = fn
             return fn

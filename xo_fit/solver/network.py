@@ -37,10 +37,9 @@ import numpy as np
 
 from xo_fit.constants import GROUND_NODE, PIVOT_TOLERANCE, SOURCE_NODE
 from xo_fit.errors import NetworkError
-from xo_fit.solver.codegen import generate_kernel_source, kernel_inputs
+from xo_fit.solver.codegen import generate_kernel, kernel_inputs
 from xo_fit.solver.dense import solve_dense
 from xo_fit.solver.kernels import load_kernel
-from xo_fit.solver.standalone import SOLVE_SIGNATURE
 from xo_fit.solver.netlist import Branch, Solution, check_topology
 
 __all__ = ["Branch", "Network", "Solution", "compile_network"]
@@ -195,7 +194,7 @@ class Network:
     def kernel(self):
         """The compiled kernel for this topology (generated, compiled and cached on first use)."""
         if self._kernel is None:
-            self._kernel = load_kernel(generate_kernel_source(self), signature=SOLVE_SIGNATURE)
+            self._kernel = load_kernel(generate_kernel(self))
         return self._kernel
 
     def series_resistance(self, values: np.ndarray) -> np.ndarray:

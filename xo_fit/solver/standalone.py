@@ -2,13 +2,14 @@
 
 numba compiles the generated kernels well but slowly: the fused cost of a 16-part three-way takes it about
 2.5 s (its type inference and lowering run in Python), and every run pays 0.6 s to import numba and set up
-its CPU target before the first cached call. The same kernel text, written out as C by
-:mod:`xo_fit.solver.ctranslate`, builds with ``cc -O3 -march=native`` in about 0.3 s and loads through
+its CPU target before the first cached call. The same kernel (one IR, :mod:`xo_fit.solver.ir`), printed as C
+by :mod:`xo_fit.solver.ir_c`, builds with ``cc -O3 -march=native`` in about 0.3 s and loads through
 ctypes in a millisecond; it runs at least as fast (1.6 ms against 2.0 ms per 512 candidates of that
 three-way; benchmarks/startup.py). So when a C compiler is there, a topology seen for the first time is
 built in-line, once, into the private kernel cache, and every later run loads the built library.
 
-The flags follow the kernel's own ``@numba.njit`` line: ``-ffp-contract=fast`` for ``contract``, and for
+The flags follow the kernel's fastmath set (what numba's ``@numba.njit`` gets too): ``-ffp-contract=fast`` for
+``contract``, and for
 ``reassoc`` the flags that let the compiler reorder sums (``-fassociative-math -fno-signed-zeros
 -fno-trapping-math``) so that reductions over the frequency loop vectorise; ``-fno-math-errno`` always
 (``sqrt`` then vectorises), ``-fno-tree-pre`` because gcc's partial redundancy elimination otherwise turns
@@ -16,14 +17,14 @@ the impedance sum into a conditional reduction that it cannot vectorise.
 
 A library is keyed by the C text itself, the compiler's identity (what ``cc -v`` reports: version, target,
 configuration), the flags and this CPU's feature flags (``-march=native`` code must not run on another CPU
-sharing the home folder): a change in the translator or the compiler gives a new key by itself. The
+sharing the home folder): a change in the printer or the compiler gives a new key by itself. The
 library's size and SHA-256 are in its file name (``xo_c_<key>-<size>-<sha>.so``) and are checked before it
 is loaded; a library that fails the check (truncated, damaged) is deleted and built again. Builds are
 written to a temporary folder beside the cache, flushed to disk (fsync) and renamed into place.
 
 One machine always takes the same path (a compiler present: C; none, or ``XO_FIT_STANDALONE=0``: numba),
 so a seed gives the same result run after run. The two paths agree to about 1e-12 relative, not bit for
-bit (the compilers contract and reorder differently). Whatever fails in translating, building or loading
+bit (the compilers contract and reorder differently). Whatever fails in printing, building or loading
 falls back to numba for that kernel and is logged (logger ``"xo_fit"``); :func:`LazyKernel.backend` says
 which ran. Only a compiler that rejects the C (a non-zero exit without a sign of a passing cause such as a
 full disk, a lack of memory or a signal) leaves a note, ``xo_c_<key>.failed``: the same C, flags and
@@ -33,7 +34,6 @@ C text has another key and is tried. Passing failures leave no note: the next ru
 
 from __future__ import annotations
 
-import ast
 import ctypes
 import functools
 import hashlib
@@ -42,7 +42,6 @@ import os
 import re
 import shutil
 import subprocess
-import sys
 import tempfile
 import threading
 import time
@@ -51,18 +50,11 @@ from pathlib import Path
 
 import numpy as np
 
-from xo_fit.solver.ctranslate import to_c
+from xo_fit.solver import ir_c
+from xo_fit.solver.ir import Array
+from xo_fit.solver.ir_kernel import Kernel
 
 _log = logging.getLogger("xo_fit")
-
-#: numba type signature of the fused cost kernel (xo_fit.model.fused.FusedCost.source): values (B, P),
-#: r_coef (P,), r_exp (P,), fin (K, F), vs, rs, tau2, tgt (R, F), ang (A, 2D, F), angw (A, 3), scratch (S, F),
-#: out (B, 10) -> the number of flagged candidates.
-COST_SIGNATURE = ("i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,::1], f8[:,:,::1], f8[:,::1], "
-                  "f8[:,::1], f8[:,::1])")
-#: The network solve kernel (xo_fit.solver.codegen.generate_kernel_source): values (B, P), r_coef, r_exp,
-#: fin (K, F), vs, rs, tau2, scratch (2D + 3, F), out (B, D + 1, 2F), out_bad (B, F) -> flagged points.
-SOLVE_SIGNATURE = "i8(f8[:,::1], f8[::1], f8[::1], f8[:,::1], f8, f8, f8, f8[:,::1], f8[:,:,::1], f8[:,::1])"
 
 BASE_FLAGS = ("-O3", "-march=native", "-funroll-loops", "-fPIC", "-shared", "-fno-math-errno", "-fno-tree-pre",
               "-std=c99")
@@ -90,30 +82,15 @@ def compiler() -> str | None:
     return None
 
 
-def ndims(signature: str) -> list[int]:
-    """The number of dimensions of each argument of a numba signature (0 for a scalar)."""
-    inner = signature[signature.index("(") + 1:signature.rindex(")")]
-    out, depth, cur = [], 0, ""
-    for ch in inner + ",":
-        if ch == "," and depth == 0:
-            cur = cur.strip()
-            out.append(cur.count(",") + 1 if "[" in cur else 0)
-            cur = ""
-            continue
-        depth += ch == "["
-        depth -= ch == "]"
-        cur += ch
-    return out
+def dims(kernel: Kernel) -> list[int]:
+    """The number of dimensions of each parameter of ``kernel`` (0 for a float)."""
+    return [p.ndim if isinstance(p, Array) else 0 for p in kernel.function.params]
 
 
-def flags(source: str) -> tuple[str, ...]:
-    """The compiler flags matching the fastmath set of the kernel's ``@numba.njit`` line."""
-    fast: set[str] = set()
-    for line in source.splitlines():
-        if line.startswith("@numba.njit") and "fastmath=" in line:
-            fast = set(ast.literal_eval(line.split("fastmath=", 1)[1].split("}", 1)[0] + "}"))
-    out = BASE_FLAGS + (("-ffp-contract=fast",) if "contract" in fast else ("-ffp-contract=off",))
-    return out + (REASSOC_FLAGS if "reassoc" in fast else ())
+def flags(fastmath: tuple[str, ...]) -> tuple[str, ...]:
+    """The compiler flags matching a kernel's fastmath set (:attr:`xo_fit.solver.ir.Function.fastmath`)."""
+    out = BASE_FLAGS + (("-ffp-contract=fast",) if "contract" in fastmath else ("-ffp-contract=off",))
+    return out + (REASSOC_FLAGS if "reassoc" in fastmath else ())
 
 
 @functools.lru_cache(maxsize=1)
@@ -177,10 +154,11 @@ def verified_library(folder: Path, k: str) -> Path | None:
     return None
 
 
-def inner_dims(args: tuple, names: list[str], dims: list[int]) -> dict[str, int]:
-    """Every dimension but the first of each array argument, by ``"name_dK"``: for a kernel's arrays these are
-    fixed by the topology, the targets and the grid; the first (the batch) is not."""
-    return {f"{n}_d{j}": int(a.shape[j]) for a, n, k in zip(args, names, dims) for j in range(1, k)}
+def inner_dims(args: tuple, kernel: Kernel) -> dict[str, int]:
+    """Every dimension but the first of each array argument of ``kernel``, by ``"name_dK"``: for a kernel's
+    arrays these are fixed by the topology, the targets and the grid; the first (the batch) is not."""
+    return {f"{p.name}_d{j}": int(a.shape[j]) for a, p in zip(args, kernel.function.params)
+            if isinstance(p, Array) for j in range(1, p.ndim)}
 
 
 class CKernel:
@@ -246,26 +224,24 @@ class CKernel:
         return int(self.fn(pp, sp))
 
 
-def open_built(path: Path, source: str, entry: str, signature: str, fixed: dict[str, int] | None = None) -> CKernel:
+def open_built(path: Path, kernel: Kernel, fixed: dict[str, int] | None = None) -> CKernel:
     """The kernel in a library built by :func:`build` with these ``fixed`` dimensions (by ``"name_dK"``)."""
-    dims = ndims(signature)
-    slots = frozenset((i, j) for i, (n, k) in enumerate(zip(_parameters(source, entry), dims)) for j in range(k)
-                      if f"{n}_d{j}" in (fixed or {}))
-    return CKernel(ctypes.CDLL(str(path)), entry, dims, slots)
+    slots = frozenset((i, j) for i, p in enumerate(kernel.function.params) if isinstance(p, Array)
+                      for j in range(p.ndim) if f"{p.name}_d{j}" in (fixed or {}))
+    return CKernel(ctypes.CDLL(str(path)), kernel.name, dims(kernel), slots)
 
 
 class LazyKernel:
     """A generated kernel that becomes a C build on its first call: the arrays' inner dimensions are then
     known and are written into the C as constants (with every stride known, gcc sees that the rows of one
     array do not overlap and vectorises without run-time alias checks: the off-axis cost kernel ran 1.3x
-    slower with them). Calls with other inner dimensions get a build of their own. Where translating,
+    slower with them). Calls with other inner dimensions get a build of their own. Where printing,
     building or loading fails (any exception), ``fallback()`` (numba) gives the kernel and the cause is
     logged. :attr:`backend` says which ran."""
 
-    def __init__(self, folder: Path, source: str, entry: str, signature: str, cc: str, fallback) -> None:
-        self.folder, self.source, self.entry, self.signature, self.cc = folder, source, entry, signature, cc
-        self.dims = ndims(signature)
-        self.names = _parameters(source, entry)
+    def __init__(self, folder: Path, kernel: Kernel, cc: str, fallback) -> None:
+        self.folder, self.kernel, self.entry, self.cc = folder, kernel, kernel.name, cc
+        self.dims = dims(kernel)
         self.multi = [i for i, k in enumerate(self.dims) if k > 1]  # the arguments with inner dimensions
         self.fallback = fallback
         self.builds: dict[tuple, Callable[..., int]] = {}
@@ -288,12 +264,12 @@ class LazyKernel:
         token = tuple([args[i].shape[1:] for i in self.multi])
         fn = self.builds.get(token)
         if fn is None:
-            fn = self.builds[token] = self._resolve(token, inner_dims(args, self.names, self.dims))
+            fn = self.builds[token] = self._resolve(token, inner_dims(args, self.kernel))
         return fn(*args)
 
     def _resolve(self, token: tuple, fixed: dict[str, int]):
         try:
-            fn = load_built(self.folder, self.source, self.entry, self.signature, self.cc, fixed)
+            fn = load_built(self.folder, self.kernel, self.cc, fixed)
         except Exception as exc:  # whatever fails here, numba can still run the kernel  # noqa: BLE001
             # a known failure, or one that may pass (an interrupted compiler, a full disk), is no news: INFO
             quiet = isinstance(exc, KnownFailure) or getattr(exc, "transient", False)
@@ -317,7 +293,7 @@ class KnownFailure(RuntimeError):
     """A failure note says that this compiler rejects this C text."""
 
 
-def load(folder: Path, source: str, entry: str, signature: str, fallback):
+def load(folder: Path, kernel: Kernel, fallback):
     """The kernel as a :class:`LazyKernel` (a C build on its first call), or None when standalone kernels are
     off or there is no compiler (then numba compiles it)."""
     if not enabled():
@@ -325,19 +301,18 @@ def load(folder: Path, source: str, entry: str, signature: str, fallback):
     cc = compiler()
     if cc is None:
         return None
-    return LazyKernel(folder, source, entry, signature, cc, fallback)
+    return LazyKernel(folder, kernel, cc, fallback)
 
 
-def load_built(folder: Path, source: str, entry: str, signature: str, cc: str, fixed: dict[str, int]) -> CKernel:
-    """The C build of ``entry`` with the ``fixed`` dimensions (by ``"name_dK"``): a verified library from the
-    cache, else built now. Raises ValueError (outside the translator's subset), KnownFailure (a note says the
-    compiler rejects this C), BuildError or OSError; a compiler's rejection leaves the note."""
+def load_built(folder: Path, kernel: Kernel, cc: str, fixed: dict[str, int]) -> CKernel:
+    """The C build of ``kernel`` with the ``fixed`` dimensions (by ``"name_dK"``): a verified library from the
+    cache, else built now. Raises KnownFailure (a note says the compiler rejects this C), BuildError or
+    OSError; a compiler's rejection leaves the note."""
     identity = compiler_identity(cc)
     if identity is None:
         raise BuildError(f"{cc} -v gives no version: not used", transient=True)
-    names, dims = _parameters(source, entry), ndims(signature)
-    text = to_c(source, entry, list(zip(names, dims)), fixed)
-    fl = flags(source)
+    text = ir_c.text(kernel, fixed)
+    fl = flags(kernel.function.fastmath)
     k = key(text, identity, fl)
     path = verified_library(folder, k)
     if path is None:
@@ -345,33 +320,27 @@ def load_built(folder: Path, source: str, entry: str, signature: str, cc: str, f
         if note.exists():
             raise KnownFailure(f"{note.name}: {_first_line(note)}")
         try:
-            path = _compile_into(folder, text, fl, cc, lambda data: folder / library_name(k, data))
+            path = compile_into(folder, text, fl, cc, lambda data: folder / library_name(k, data))
         except BuildError as exc:
             if not exc.transient:
                 _write_note(note, f"{exc}\n")
             raise
-    return open_built(path, source, entry, signature, fixed)
+    return open_built(path, kernel, fixed)
 
 
-def build(source: str, entry: str, signature: str, output: Path, cc: str | None = None,
-          fixed: dict[str, int] | None = None) -> Path:
-    """Translate ``entry`` of the generated ``source`` to C (``fixed`` dimensions as constants: the library
-    must then be called with arrays of exactly those) and build the shared library ``output`` (flushed to
-    disk, then renamed into place). Raises ValueError (outside the subset), BuildError (the compiler failed)
-    or OSError."""
+def build(kernel: Kernel, output: Path, cc: str | None = None, fixed: dict[str, int] | None = None) -> Path:
+    """Print ``kernel`` as C (``fixed`` dimensions as constants: the library must then be called with arrays of
+    exactly those) and build the shared library ``output`` (flushed to disk, then renamed into place). Raises
+    BuildError (the compiler failed) or OSError."""
     cc = cc or compiler()
     if cc is None:
         raise BuildError("no C compiler (set CC, or install cc)", transient=False)
-    names = _parameters(source, entry)
-    dims = ndims(signature)
-    if len(names) != len(dims):
-        raise ValueError(f"the signature has {len(dims)} arguments, the kernel {len(names)}")
-    text = to_c(source, entry, list(zip(names, dims)), fixed)
     output = Path(output)
-    return _compile_into(output.parent, text, flags(source), cc, lambda data: output)
+    return compile_into(output.parent, ir_c.text(kernel, fixed), flags(kernel.function.fastmath), cc,
+                        lambda data: output)
 
 
-def _compile_into(folder: Path, text: str, fl: tuple[str, ...], cc: str, name_of) -> Path:
+def compile_into(folder: Path, text: str, fl: tuple[str, ...], cc: str, name_of) -> Path:
     """Compile C ``text`` in a temporary folder inside ``folder`` and move the library to ``name_of(bytes)``
     after an fsync (then the folder's too): a crash leaves the old file or the whole new one, never a part.
     The temporary folder goes whatever happens (and a killed process's old ones at the next build)."""
@@ -439,27 +408,3 @@ def _first_line(path: Path) -> str:
         return (path.read_text().splitlines() or [""])[0]
     except OSError:
         return ""
-
-
-def _parameters(source: str, entry: str) -> list[str]:
-    """The parameter names of ``entry``: read off its one-line ``def`` (parsing a kernel's text costs ~9 ms, on
-    every warm start); other layouts are parsed. :func:`to_c` checks the names against its own parse."""
-    m = re.search(rf"^def {re.escape(entry)}\(([\w, ]*)\):", source, re.M)
-    if m:
-        return [n.strip() for n in m.group(1).split(",") if n.strip()]
-    for node in ast.parse(source).body:
-        if isinstance(node, ast.FunctionDef) and node.name == entry:
-            return [a.arg for a in node.args.args]
-    raise ValueError(f"no function '{entry}' in the kernel")
-
-
-def _main(argv: list[str]) -> int:
-    """``python -m xo_fit.solver.standalone SOURCE.py ENTRY``: print the C text of a generated kernel."""
-    source = Path(argv[0]).read_text()
-    sig = COST_SIGNATURE if argv[1] == "cost_kernel" else SOLVE_SIGNATURE
-    print(to_c(source, argv[1], list(zip(_parameters(source, argv[1]), ndims(sig)))))
-    return 0
-
-
-if __name__ == "__main__":
-    sys.exit(_main(sys.argv[1:]))
