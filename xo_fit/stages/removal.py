@@ -111,7 +111,7 @@ def removal_document(job, name: str | None, how: str, values: dict[str, float],
     how : str
         ``"open"`` or ``"short"``.
     values : dict
-        Part name -> value, SI (ohm, H, F), set on the R, L and C parts named (a free part's clamped into its
+        Part name -> value, SI (in ohm, H or F), set on the R, L and C parts named (a free part's clamped into its
         range); the parts not named keep the document's values.
     source : JobDocument, optional
         The job's :class:`JobDocument`, where many removals of one job are made; made here when not given.
@@ -166,7 +166,7 @@ def reduced_job(job, name: str | None, how: str, values: dict[str, float], sourc
     how : str
         ``"open"`` or ``"short"``.
     values : dict
-        Part name -> value, SI (ohm, H, F), as in :func:`removal_document`.
+        Part name -> value, SI (in ohm, H or F), as in :func:`removal_document`.
     source : JobDocument, optional
         The job's :class:`JobDocument`, where many removals of one job are made; made here when not given.
 
@@ -230,7 +230,7 @@ def variant(system: System, name: str, how: str, values: dict[str, float] | None
     how : str
         ``"open"`` or ``"short"``.
     values : dict, optional
-        Part name -> value, SI (ohm, H, F), of the design the removal starts from; default the job's values.
+        Part name -> value, SI (in ohm, H or F), of the design the removal starts from; default the job's values.
     check_dead : bool
         Refuse a removal that leaves a driver without voltage; False leaves that to the caller
         (:func:`dead_driver` on a solve it makes anyway).
@@ -352,7 +352,7 @@ def removals(system: System, values: dict[str, float], *, protect: bool = True,
     system : System
         The loaded job (:class:`~xo_fit.model.system.System`).
     values : dict
-        Part name -> value, SI (ohm, H, F), of the design the removals start from.
+        Part name -> value, SI (in ohm, H or F), of the design the removals start from.
     protect : bool
         Skip the parts with ``keep = true``.
     check_dead : bool
