@@ -29,7 +29,6 @@ PENDING = {
     "xo_fit/model/fused_preference.py",
     "xo_fit/search/",
     "xo_fit/solver/",
-    "xo_fit/stages/",
 }
 
 #: The units a public number may state (SI, with dB and degrees at the edges), or "dimensionless".

@@ -35,6 +35,7 @@ from xo_fit.model.fused import FusedCost
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
 from xo_fit.stages.removal import HOWS, JobDocument, variant
 
+#: The columns of prune.csv, one row a step (the keys of :attr:`PruneRun.steps`' rows).
 PRUNE_COLUMNS = ["step", "parts", "removed", "how", "cost", "rms_error_db", "max_error_db", "phase_mismatch_deg",
                  "impedance_min_ohm"]
 
@@ -52,8 +53,17 @@ class Family:
     written into the starting topology with each removed part at its stand-in value (:data:`STAND_IN`), so one
     compiled kernel serves all trials and steps (each removal's own topology would need its own C build).
 
-    ``fused``: the :class:`xo_fit.model.fused.FusedCost` of the starting system; ``names`` its part order;
-    ``values`` (P,) its part values (SI; the fixed parts keep theirs); ``kinds`` each part's type."""
+    Attributes
+    ----------
+    fused : StandInCost
+        The starting system's fused cost (a :class:`xo_fit.model.fused.FusedCost`, its pivot check relaxed).
+    names, kinds : tuple of str
+        The starting system's part names in its part order, and each part's type ("R", "L" or "C").
+    values : ndarray
+        Its part values, SI (ohm, H, F), shape (P,) (the fixed parts keep theirs).
+    limited : bool
+        Whether the job has [limits] (the kernel then returns the violations too).
+    """
 
     fused: FusedCost
     names: tuple
@@ -63,9 +73,10 @@ class Family:
 
     @classmethod
     def of(cls, system):
-        """The family of ``system`` (the starting design), or None where the stand-ins would not be faithful:
-        no fused kernel for the job (the reference cost), or part ratings judged (a shorted coil would still
-        carry the current its rating is judged on)."""
+        """The family of ``system`` (the starting design, its job's values), or None where there is nothing to
+        search (no way targets, no free part) or the stand-ins would not be faithful: no fused kernel for the job
+        (the reference cost), or part ratings judged (a shorted coil would still carry the current its rating is
+        judged on)."""
         from xo_fit.search.fitting import cost_model
 
         model = cost_model(system)
@@ -81,8 +92,9 @@ class Family:
                    kinds=kinds, limited=cm.limits is not None)
 
     def embed(self, system, removed: dict):
-        """A map of ``system``'s designs (B, P') into the family's (B, P): its parts in their columns, the
-        ``removed`` ones ({name: "open" | "short"}) at their stand-ins."""
+        """A map ``full(v)`` of ``system``'s designs (B, P') into the family's (B, P), SI: its parts in their
+        columns, the ``removed`` ones ({name: "open" | "short"}) at their stand-ins, the rest at :attr:`values`;
+        None where ``system``'s parts and ``removed`` are not exactly the family's parts."""
         col = {n: i for i, n in enumerate(self.names)}
         if set(system.part_names) | set(removed) != set(self.names) or set(system.part_names) & set(removed):
             return None
@@ -111,6 +123,9 @@ class StandInCost(FusedCost):
     on a few dozen designs each, where those checks cost as much as a tenth of the kernel's own time."""
 
     def kernel_args(self, values: np.ndarray) -> tuple:
+        """The kernel's arguments for the family's designs ``values`` (B, P), SI, the pivot check at STAND_IN_PIVOT:
+        the constant ones built once, the thread's scratch reused and a fresh output last (any other shape goes
+        through :meth:`xo_fit.model.fused.FusedCost.kernel_args`, checked as any design is)."""
         fixed = self.__dict__.get("_fixed")
         if fixed is None:
             k = self.net._kernel_args()
@@ -137,13 +152,37 @@ class StandInCost(FusedCost):
 
 def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None,
           light: bool = False, targets=None):
-    """The system's free values refitted from its job's values (the start): (Scored, evaluations).
+    """The system's free values refitted from its job's values (the start): a short search and polish.
 
-    With ``family`` (and ``removed``, the parts the system lacks against the family's: {name: how}) the search
-    runs on the family's compiled kernel; else on the dense solve. Either way the design found is scored on
-    the system's own netlist, so the costs reported are exact (``light``: its cost alone, no metrics: a
-    Scored with ``sim`` None, to be scored in full if taken). ``targets``: the job's targets where already built
-    (they do not change when a part is removed)."""
+    With ``family`` (where :meth:`Family.embed` maps the system into it) the search runs on the family's compiled
+    kernel; else on the dense solve. Either way the design found is scored on the system's own netlist, so the
+    costs reported are exact.
+
+    Parameters
+    ----------
+    system : System
+        The (reduced) system (:class:`~xo_fit.model.system.System`); its job's values are the start.
+    budget, seed : int
+        The search's cost evaluations and random seed (dimensionless).
+    family : Family, optional
+        The prune's :class:`Family`; None: the dense solve.
+    removed : dict, optional
+        The parts ``system`` lacks against the family's: name -> "open" or "short".
+    light : bool
+        Score the design by its cost alone (a Scored without ``sim``, terms or metrics, scored in full if taken).
+    targets : Targets, optional
+        The job's targets where already built (they do not change when a part is removed).
+
+    Returns
+    -------
+    tuple
+        (:class:`~xo_fit.search.fitting.Scored`, evaluations (dimensionless)); without free parts the start's.
+
+    Raises
+    ------
+    Interrupted
+        Where Ctrl-C or SIGTERM stopped the search, with the best design so far.
+    """
     from xo_fit.search.fitting import score
     from xo_fit.search.engines import make_space, search
 
@@ -201,8 +240,9 @@ class Interrupted(KeyboardInterrupt):
 
 
 def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list[str]]:
-    """The total violation of the job's [limits] by design ``values`` (P,) and the limits it breaks (0, []
-    without limits or targets; ``targets`` as in :func:`refit`)."""
+    """The total violation of the job's [limits] by design ``values`` (P,), SI (dimensionless, 0 where all are
+    met), and the names of the limits it breaks: (0, []) without limits or targets; ``targets`` as in
+    :func:`refit`."""
     from xo_fit.search.fitting import cost_model
 
     if not system.job.limits.active:
@@ -248,9 +288,10 @@ def _trial(args):
 
 def trial(system, values: dict, name: str, how: str, budget: int, seed: int, family: Family | None, removed: dict,
           targets, source=None):
-    """One trial removal from ``system`` at design ``values`` ({name: value}): (Scored, evaluations) of the reduced
-    system's refit (``light``, see :func:`refit`), or None where the removal is no legal netlist (see
-    :func:`xo_fit.stages.removal.variant`; ``source``: the system's job's JobDocument)."""
+    """One trial removal from ``system`` at design ``values`` ({name: value}, SI): (Scored, evaluations) of the
+    reduced system's refit (``light``, see :func:`refit`; ``removed``: every part it lacks against ``family``'s,
+    this one included), or None where the removal is no legal netlist (see :func:`xo_fit.stages.removal.variant`;
+    ``source``: the system's job's JobDocument). Raises :class:`Interrupted` as :func:`refit` does."""
     s = variant(system, name, how, values, source=source)
     if s is None:
         return None
@@ -259,9 +300,27 @@ def trial(system, values: dict, name: str, how: str, budget: int, seed: int, fam
 
 @dataclass(eq=False)
 class PruneRun:
-    """What a prune computed: ``steps`` (the prune.csv rows, step 0 the starting design refitted), ``states``
-    (the system and scored design after each step), ``chosen`` (the index of the chosen step), ``section`` (the
-    result.json "prune" section), ``trials`` (every trial removal: step, removed, how, cost)."""
+    """What a prune computed.
+
+    Attributes
+    ----------
+    steps : list of dict
+        The prune.csv rows (:data:`PRUNE_COLUMNS`), step 0 the starting design refitted.
+    states : list of tuple
+        (System, Scored) after each step: the reduced system and its design.
+    chosen : int
+        The index of the chosen step (dimensionless).
+    max_increase : float
+        The cost increase over step 0 the chosen step may have, a fraction (dimensionless; 0.1 is +10 %).
+    section : dict
+        The result.json ``prune`` section.
+    trials : list of dict
+        Every trial removal refitted: step, removed, how, cost (and ``refused``: the limits it breaks).
+    evaluations : int
+        The cost evaluations of the refits (dimensionless).
+    interrupted : bool
+        Whether Ctrl-C or SIGTERM stopped the prune (the steps finished are kept).
+    """
 
     steps: list[dict]
     states: list[tuple]
@@ -282,7 +341,35 @@ def _row(step: int, system, scored, removed: str, how: str) -> dict:
 
 def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int | None = None,
               max_increase: float = MAX_INCREASE, workers: int = 1, progress=None) -> PruneRun:
-    """Greedy backward elimination from design ``start`` (P,) of ``system``; see the module's docstring."""
+    """Greedy backward elimination from one design of a system; see the module's docstring.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    start : ndarray
+        The starting design's part values, SI (ohm, H, F), shape (P,).
+    budget : int, optional
+        Cost evaluations for each refit (dimensionless); default (or 0) ``xo_fit.config.REFIT_BUDGET``.
+    seed : int, optional
+        The refits' random seed (dimensionless); default the job's ``[search] seed``.
+    max_increase : float
+        The cost increase over step 0 the chosen step may have, a fraction (dimensionless; 0.1 is +10 %).
+    workers : int
+        Processes the trial removals run in (dimensionless); 1: in this one.
+    progress : callable, optional
+        Called as ``progress(step, removed, how, cost)`` after each step.
+
+    Returns
+    -------
+    PruneRun
+        The steps, the chosen one (the fewest parts within ``max_increase`` of step 0's cost) and every trial.
+
+    Raises
+    ------
+    JobError
+        Where the job has no way targets.
+    """
     from xo_fit.stages.removal import reduced_job
     from xo_fit.model.system import derive_system
 

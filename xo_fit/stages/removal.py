@@ -34,9 +34,27 @@ DEAD_DRIVER = 1e-9
 
 
 class JobDocument:
-    """A job's document read once for its many removals: ``data`` (the parsed document, never changed: each
-    removal copies the part tables it edits), the part specs by name, and the document's JSON text around its
-    part list (a removal's text is that with its own part list, the same text as ``json.dumps`` of the whole)."""
+    """A job's document read once for its many removals.
+
+    A removal's JSON text is the document's text around its part list with the removal's own part list put in:
+    the same text as ``json.dumps`` of the whole, without dumping the rest again.
+
+    Parameters
+    ----------
+    job : Job
+        The job (:class:`~xo_fit.job.model.Job`) whose parsed document (``job.data``) the removals edit.
+
+    Attributes
+    ----------
+    job : Job
+        The job.
+    data : dict
+        The parsed document, never changed (each removal copies the part tables it edits).
+    specs : dict
+        The job's part specs by name (:class:`~xo_fit.job.model.PartSpec`).
+    around : tuple of str or None
+        The document's JSON text before and after its part list; None where the split fails (no ``part`` list).
+    """
 
     #: Stands for the part list in the JSON text split around it.
     MARK = "\x00xo_fit parts\x00"
@@ -50,11 +68,28 @@ class JobDocument:
         self.around = (pieces[0], pieces[1]) if len(pieces) == 2 and "part" in self.data else None
 
     def fresh(self) -> dict:
-        """A document to edit: the parsed one with copies of its part tables."""
+        """A document to edit: the parsed one with copies of its part tables.
+
+        Returns
+        -------
+        dict
+            The document, its ``part`` list a new list of copied tables (the other tables shared, unchanged).
+        """
         return {**self.data, "part": [dict(p) for p in self.data.get("part", [])]}
 
     def text(self, doc: dict) -> str:
-        """``json.dumps(doc, default=str)`` of a document :meth:`fresh` gave, its part list edited."""
+        """``json.dumps(doc, default=str)`` of a document :meth:`fresh` gave, its part list edited.
+
+        Parameters
+        ----------
+        doc : dict
+            A document from :meth:`fresh`, only its ``part`` list changed.
+
+        Returns
+        -------
+        str
+            The document's JSON text.
+        """
         if self.around is None:
             return json.dumps(doc, default=str)
         return self.around[0] + json.dumps(doc["part"], default=str) + self.around[1]
@@ -62,10 +97,31 @@ class JobDocument:
 
 def removal_document(job, name: str | None, how: str, values: dict[str, float],
                      source: JobDocument | None = None) -> dict | None:
-    """The job's document without part ``name`` (``how`` = "open" or "short"; None: no part removed), the other
-    parts' values set to ``values`` (SI, clamped into their ranges); None when the short would join the source's
-    two terminals or put some other part across a single node. ``source``: the job's :class:`JobDocument`, where
-    many removals of one job are made."""
+    """The job's document without one part (opened or shorted), the other parts' values set.
+
+    Opening deletes the part; shorting also merges its two nodes (into the source's or ground's where it touches
+    one).
+
+    Parameters
+    ----------
+    job : Job
+        The job (:class:`~xo_fit.job.model.Job`).
+    name : str or None
+        The part to remove; None (or a name not in the job): no part removed, only the values set.
+    how : str
+        ``"open"`` or ``"short"``.
+    values : dict
+        Part name -> value, SI (in ohm, H or F), set on the R, L and C parts named (a free part's clamped into its
+        range); the parts not named keep the document's values.
+    source : JobDocument, optional
+        The job's :class:`JobDocument`, where many removals of one job are made; made here when not given.
+
+    Returns
+    -------
+    dict or None
+        The edited document; None when the short would join the source's two terminals or leave some part
+        across a single node.
+    """
     source = source if source is not None else JobDocument(job)
     doc = source.fresh()
     parts = doc["part"]
@@ -93,14 +149,36 @@ def removal_document(job, name: str | None, how: str, values: dict[str, float],
 
 
 def reduced_job(job, name: str | None, how: str, values: dict[str, float], source: JobDocument | None = None):
-    """The job without part ``name`` (as :func:`removal_document`; None: no part removed, the values set), or None
-    when the short is no legal netlist; built from ``job``'s own parts, as :func:`xo_fit.job.reader.load_job` would
-    read the document (the part specs, the document and the other tables the same), without reading it again.
-    ``source``: the job's :class:`JobDocument`, where many removals of one job are made.
+    """The job without one part, built from ``job``'s own parts without reading the document again.
 
-    The derived job has no path, part lines or warnings (those of the job file were given when it was read). A
-    part value that would not pass the reader (a fixed value outside what the arithmetic takes) sends the document
-    through :func:`~xo_fit.job.reader.load_job` instead, which raises its JobError. Raises XoFitError there only.
+    The result is the job :func:`xo_fit.job.reader.load_job` would read from :func:`removal_document`'s document
+    (the part specs, the document and the other tables the same). The derived job has no path, part lines or
+    warnings (those of the job file were given when it was read). A part value that would not pass the reader (a
+    fixed value outside what the arithmetic takes) sends the document through
+    :func:`~xo_fit.job.reader.load_job` instead, which raises its JobError.
+
+    Parameters
+    ----------
+    job : Job
+        The job (:class:`~xo_fit.job.model.Job`).
+    name : str or None
+        The part to remove; None: no part removed, only the values set.
+    how : str
+        ``"open"`` or ``"short"``.
+    values : dict
+        Part name -> value, SI (in ohm, H or F), as in :func:`removal_document`.
+    source : JobDocument, optional
+        The job's :class:`JobDocument`, where many removals of one job are made; made here when not given.
+
+    Returns
+    -------
+    Job or None
+        The reduced job; None when the short is no legal netlist.
+
+    Raises
+    ------
+    XoFitError
+        Only where a part value would not pass the reader (the reader's JobError).
     """
     from dataclasses import replace
 
@@ -137,11 +215,33 @@ def _moved(spec, nodes: tuple[str, str], value: float | None):
 
 def variant(system: System, name: str, how: str, values: dict[str, float] | None = None, *,
             check_dead: bool = True, source: JobDocument | None = None) -> System | None:
-    """The system without part ``name`` (opened or shorted), or None when that is no legal netlist: a node left
-    hanging, the source or a driver shorted, or (``check_dead``; else see :func:`dead_driver`) a driver that no
-    longer sees any voltage (it hangs from ground alone). The driver data, grid and off-axis data are
-    ``system``'s (:func:`~xo_fit.model.system.derive_system`); the job is :func:`reduced_job`'s (``source``: the
-    system's job's :class:`JobDocument`, where many removals of one job are made)."""
+    """The system without one part (opened or shorted), or None when that is no legal netlist.
+
+    No legal netlist: a node left hanging, the source or a driver shorted, or (with ``check_dead``) a driver
+    that no longer sees any voltage (:func:`dead_at`). The driver data, grid and off-axis data are ``system``'s
+    (:func:`~xo_fit.model.system.derive_system`); the job is :func:`reduced_job`'s.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    name : str
+        The part to remove.
+    how : str
+        ``"open"`` or ``"short"``.
+    values : dict, optional
+        Part name -> value, SI (in ohm, H or F), of the design the removal starts from; default the job's values.
+    check_dead : bool
+        Refuse a removal that leaves a driver without voltage; False leaves that to the caller
+        (:func:`dead_driver` on a solve it makes anyway).
+    source : JobDocument, optional
+        The system's job's :class:`JobDocument`, where many removals of one job are made.
+
+    Returns
+    -------
+    System or None
+        The reduced system, or None.
+    """
     from xo_fit.model.system import derive_system
 
     values = values if values is not None else dict(zip(system.part_names, system.values()))
@@ -164,10 +264,24 @@ DEAD_PROBES = 8
 
 
 def dead_at(system, values: np.ndarray) -> bool:
-    """:func:`dead_driver` of design ``values`` (P,), with the same answer for less work: a driver cut off from the
-    source (:func:`cut_off`) sees exactly no voltage; else the dense solve at :data:`DEAD_PROBES` points of the grid
-    settles it where every driver reaches the threshold at one of them (as the whole grid then would), and the
-    whole grid is solved only where some driver does not."""
+    """:func:`dead_driver` of one design, with the same answer for less work.
+
+    A driver cut off from the source (:func:`cut_off`) sees exactly no voltage; else the dense solve at
+    :data:`DEAD_PROBES` points of the grid settles it where every driver reaches the threshold at one of them (as
+    the whole grid then would), and the whole grid is solved only where some driver does not.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    values : ndarray
+        The design's part values, SI (ohm, H, F), shape (P,).
+
+    Returns
+    -------
+    bool
+        Whether some driver's voltage stays below DEAD_DRIVER times the source's at every frequency.
+    """
     from xo_fit.solver.dense import solve_dense
 
     if cut_off(system.network):
@@ -182,9 +296,21 @@ def dead_at(system, values: np.ndarray) -> bool:
 
 
 def cut_off(network) -> bool:
-    """Whether some driver hangs from ground alone: no path of parts (drivers included) leads from the source's
-    node to either of its terminals without passing through ground, so no current reaches it and both its
-    terminals stay at exactly 0 V at every frequency, whatever the values."""
+    """Whether some driver hangs from ground alone, whatever the values.
+
+    No path of parts (drivers included) leads from the source's node to either of its terminals without passing
+    through ground, so no current reaches it and both its terminals stay at exactly 0 V at every frequency.
+
+    Parameters
+    ----------
+    network : Network
+        The compiled network (:class:`~xo_fit.solver.network.Network`; its ``branches``).
+
+    Returns
+    -------
+    bool
+        Whether some driver is cut off from the source.
+    """
     links: dict[str, list[str]] = {}
     for br in network.branches:
         if GROUND_NODE not in (br.a, br.b):
@@ -200,14 +326,43 @@ def cut_off(network) -> bool:
 
 
 def dead_driver(system, voltages: np.ndarray) -> bool:
-    """Whether some driver sees (almost) no voltage anywhere on the grid: voltages (1, D, F) of one design."""
+    """Whether some driver sees (almost) no voltage anywhere on the grid.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`; its source voltage).
+    voltages : ndarray
+        The driver terminal voltages of a batch, complex, in V, shape (B, D, F); only the first design is judged.
+
+    Returns
+    -------
+    bool
+        Whether some driver's |voltage| stays below DEAD_DRIVER times the source's at every frequency.
+    """
     return bool(np.any(np.max(np.abs(voltages[0]), axis=-1) < DEAD_DRIVER * abs(system.job.source_voltage)))
 
 
 def removals(system: System, values: dict[str, float], *, protect: bool = True,
              check_dead: bool = True) -> list[tuple[str, str, System]]:
-    """Every legal removal of an R, L or C part: (name, how, system without it). ``protect`` skips parts with
-    ``keep = true``; ``check_dead`` as in :func:`variant`."""
+    """Every legal removal of an R, L or C part, opened and shorted.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    values : dict
+        Part name -> value, SI (in ohm, H or F), of the design the removals start from.
+    protect : bool
+        Skip the parts with ``keep = true``.
+    check_dead : bool
+        As in :func:`variant`.
+
+    Returns
+    -------
+    list of tuple
+        (part name, ``"open"`` or ``"short"``, the system without it), in the job's part order.
+    """
     out = []
     source = JobDocument(system.job)
     for p in system.job.valued_parts:
@@ -221,15 +376,46 @@ def removals(system: System, values: dict[str, float], *, protect: bool = True,
 
 
 def relative_change(cost: float, base: float) -> float:
-    """(cost - base) / max(base, COST_FLOOR): the change as a share of the design's cost, or of a cost that
-    stands for "on target" when the design is that good."""
+    """(cost - base) / max(base, COST_FLOOR): the change as a share of the design's cost.
+
+    Below COST_FLOOR the share is of COST_FLOOR, a cost that stands for "on target".
+
+    Parameters
+    ----------
+    cost : float
+        The changed design's cost (dimensionless, as the job's cost).
+    base : float
+        The design's own cost (dimensionless).
+
+    Returns
+    -------
+    float
+        The relative change (dimensionless; 0.01 is +1 %).
+    """
     return (cost - base) / max(base, COST_FLOOR)
 
 
 def idle_parts(system, values: np.ndarray, cost: float | None) -> list[dict]:
     """``negligible`` findings: parts whose removal (open or short, no refit) changes the cost by less than 1 %.
 
-    values: (P,) SI in the system's part order; cost: the design's own cost (None: no targets, nothing to say).
+    Every part is tried (``keep = true`` too); a removal that breaks a [limits] limit the design meets, or leaves
+    a driver without voltage, does not count. Above IDLE_MAX_PARTS parts or IDLE_MAX_NODES nodes the check is
+    skipped and one finding (``part`` None) says so.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    values : ndarray
+        The design's part values, SI (ohm, H, F), in the system's part order, shape (P,).
+    cost : float or None
+        The design's own cost (dimensionless); None (no targets) or not finite: nothing to say.
+
+    Returns
+    -------
+    list of dict
+        Findings ``{"kind": "negligible", "part", "text"}``, one per part whose smaller change (open or short) is
+        under NEGLIGIBLE of the cost.
     """
     from xo_fit.model.cost import CostModel
     from xo_fit.search.fitting import cost_model

@@ -62,6 +62,7 @@ class Choice:
     uses: tuple = ()
 
     def describe(self, unit: str) -> str:
+        """The choice as the console and parts.csv write it (:func:`combination_text`), in ``unit`` ("ohm", ...)."""
         return combination_text(self.connection, [format_value(p, unit) for p in self.pieces])
 
 
@@ -260,6 +261,10 @@ def _beam(ev: _Evaluator, start: np.ndarray, start_cost: float, sizes: list[int]
 
 @dataclass(frozen=True)
 class SnapSearch:
+    """The choice search's result: ``assignment`` and ``baseline`` (S,), an index into each of the S snapped parts'
+    choices (the best found; the start: log-nearest, or the first in stock), their ``cost`` and ``baseline_cost``
+    (dimensionless; under [limits] the feasibility-first key, until :func:`run_snap` puts the costs in), the cost
+    ``evaluations`` made (dimensionless) and whether the search was ``exhaustive``."""
     assignment: np.ndarray
     cost: float
     baseline: np.ndarray
@@ -269,6 +274,8 @@ class SnapSearch:
 
 
 def search_choices(ev: _Evaluator, baseline: np.ndarray, seed: int = 1) -> SnapSearch:
+    """The best assignment of ``ev``'s choices found from ``baseline`` (S,), never worse than it: every assignment
+    where at most EXHAUSTIVE, else the beam, ``seed``'s random restarts and local moves (see the module)."""
     sizes = [len(o) for o in ev.options]
     base_cost = float(ev(baseline[None])[0])
     total = int(np.prod([float(s) for s in sizes]))
@@ -297,6 +304,8 @@ def search_choices(ev: _Evaluator, baseline: np.ndarray, seed: int = 1) -> SnapS
 
 @dataclass(frozen=True)
 class SnappedPart:
+    """One valued part after the snap: its ``continuous`` and snapped ``value`` (SI: ohm, H or F), its ``kind``, the
+    value's ``source`` and the ``choice`` made (None for fixed and continuous parts)."""
     name: str
     kind: str
     continuous: float
@@ -307,6 +316,8 @@ class SnappedPart:
 
 @dataclass(frozen=True, eq=False)
 class SnapOutcome:
+    """A snap: every valued part (:class:`SnappedPart`), the snapped and continuous designs (P,), SI, the choice
+    search (None where no part snaps) and the snap's wall time in ``seconds`` (s)."""
     parts: tuple[SnappedPart, ...]
     values: np.ndarray  # (P,) the snapped design
     continuous: np.ndarray  # (P,) the design it started from
@@ -336,7 +347,7 @@ def part_sources(job, series_override: dict | None, inventory: Inventory | None)
 def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = None,
              inventory: Inventory | None = None, combine: int | None = None, seed: int | None = None,
              top_up: str | None = None) -> SnapOutcome:
-    """Snap design ``continuous`` (P,) of ``system`` to purchasable values with the job's cost."""
+    """Snap design ``continuous`` (P,), SI, of ``system`` to purchasable values with the job's cost."""
     import time
 
     from xo_fit.search.fitting import cost_function, limited_cost_function, require_cost_model

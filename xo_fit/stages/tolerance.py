@@ -8,7 +8,8 @@ tolerance as two standard deviations (about 95 % of parts inside it).
 pseudo-random ones. Draws are seeded and solved in chunks of CHUNK designs,
 so memory stays bounded for any number of draws: the level percentiles come
 from per-frequency histograms of each build's deviation from the nominal
-level (bins of HIST_STEP_DB over +-HIST_RANGE_DB; exact to half a bin).
+level (bins of HIST_STEP_DB over +-HIST_RANGE_DB, coarser where a large grid
+would take more than HIST_BYTES; exact to half a bin).
 
 Figures (result.json, stage spread):
 
@@ -107,6 +108,48 @@ class _Hist:
 
 @dataclass(frozen=True, eq=False)
 class SpreadResult:
+    """What a tolerance spread found (result.json's ``spread`` section and spread.csv are made of it).
+
+    The C curves of the level arrays are the sum first (the curve the system target applies to: the on-axis sum,
+    or the listening window where ``[target] reference`` names it), then each driver's on-axis level: C = 1 + D.
+
+    Attributes
+    ----------
+    samples : int
+        The number of builds drawn (dimensionless).
+    nominal_db : ndarray
+        The nominal design's levels, in dB SPL, shape (C, F).
+    p05, p50, p95 : ndarray
+        The 5th, 50th and 95th percentile of the builds' levels, in dB SPL, shape (C, F) (the nominal level plus
+        the percentile of the deviation from it, from the histograms; never outside the deviations seen).
+    yield_band : float
+        The share of builds whose sum stays within +-``band_db`` of the nominal over the target band
+        (dimensionless, 0..1).
+    yield_limits : float
+        The share of builds meeting ``limits``: rms error against the target (each at its own best level) at most
+        ``rms_error_db`` and |Z| over the band at least ``impedance_min_ohm`` (dimensionless, 0..1).
+    limits : dict
+        The limits the yields were judged by: ``band_db`` and ``rms_error_db`` in dB, ``impedance_min_ohm`` in ohm
+        (0: no floor).
+    worst_deviation_db : float
+        The worst build's largest deviation of the sum from the nominal over the band, in dB.
+    worst_at_hz : float
+        Where that deviation is, in Hz.
+    worst_factors : ndarray
+        The worst build's factors on the nominal values (dimensionless), shape (P,).
+    pair_p50_db, pair_p95_db : float
+        The median and 95th percentile of the largest difference over the band between two builds' sums, in dB.
+    sensitivity : list of dict
+        Each part's sensitivity, the most sensitive first: ``part``, ``db_per_pct`` (dB per +1 % of its value,
+        its worst over the band), ``worst_at_hz`` (Hz), ``at_crossover`` (dB per +1 % at each crossover
+        frequency, keyed by the frequency's text) and ``tolerance_pct`` (%).
+    corners : dict
+        The worst-case corner (:func:`worst_corners`): ``method``, ``worst_deviation_db`` (dB) and ``signs``
+        (part name -> "+" or "-").
+    tolerances : ndarray
+        Each part's tolerance as a fraction (dimensionless), shape (P,).
+    """
+
     samples: int
     nominal_db: np.ndarray  # (C, F): sum then each driver
     p05: np.ndarray
@@ -126,8 +169,27 @@ class SpreadResult:
 
 
 def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray) -> np.ndarray:
-    """d(sum dB)/d(+1 % of each part), (P, F), by central differences of +-SENS_STEP (the sum: the curve the
-    system target applies to, the listening window for an off-axis job referred to it)."""
+    """The change of the sum's level per +1 % of each part's value, by central differences of +-SENS_STEP.
+
+    The sum is the curve the system target applies to (:meth:`~xo_fit.model.system.System.reference_db`: the
+    on-axis sum, or the listening window where ``[target] reference`` names it).
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    nominal : ndarray
+        The design's part values, SI (ohm, H, F), shape (P,).
+    band : ndarray
+        The target band as a mask of the grid, bool, shape (F,); not used here (the whole grid is returned).
+    tol : ndarray
+        Each part's tolerance as a fraction (dimensionless), shape (P,); not used here (the step is SENS_STEP).
+
+    Returns
+    -------
+    ndarray
+        d(level)/d(+1 % of the part), in dB per percent, shape (P, F).
+    """
     p = nominal.size
     v = np.repeat(nominal[None, :], 2 * p, axis=0)
     for i in range(p):
@@ -139,8 +201,21 @@ def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray
 
 
 def batch_size(system) -> int:
-    """Designs solved at a time: CHUNK, fewer on a large grid (CHUNK_VALUES complex values per batch, counting per
-    design the sum, each driver's voltage and level and, off axis, each driver at each position)."""
+    """Designs solved at a time: CHUNK, fewer on a large grid.
+
+    A batch holds at most CHUNK_VALUES complex values, counting per design the sum, each driver's voltage and
+    level and, off axis, each driver at each position.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+
+    Returns
+    -------
+    int
+        Designs per batch (dimensionless), 1..CHUNK.
+    """
     d = len(system.job.drivers)
     per_design = system.frequencies.size * (1 + d * (2 + len(system.positions)))
     return int(np.clip(CHUNK_VALUES // per_design, 1, CHUNK))
@@ -149,7 +224,40 @@ def batch_size(system) -> int:
 def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed: int | None = None,
                distribution: str | None = None, qmc: bool | None = None, rms_limit_db: float | None = None,
                crossovers: list[float] | None = None, progress=None) -> SpreadResult:
-    """Monte Carlo, sensitivity and worst cases of design ``nominal`` (P,) of ``system``."""
+    """Monte Carlo, sensitivity, worst cases and pair matching of one design (see the module).
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    nominal : ndarray
+        The design's part values, SI (ohm, H, F), shape (P,).
+    samples : int, optional
+        Builds to draw (dimensionless); default the job's ``[spread] samples``.
+    seed : int, optional
+        The random seed (dimensionless); default the job's ``[spread] seed``.
+    distribution : str, optional
+        ``"uniform"`` or ``"normal"``; default the job's ``[spread] distribution``.
+    qmc : bool, optional
+        Draw from scrambled Sobol points; default the job's ``[spread] qmc``.
+    rms_limit_db : float, optional
+        The rms error a build may have against the target to count in ``yield_limits``, in dB; default the job's
+        ``[spread] rms_limit_db``.
+    crossovers : list of float, optional
+        The frequencies the sensitivity is also given at, in Hz; default the way targets' fc, fc_low and fc_high.
+    progress : callable, optional
+        Called as ``progress(done, samples, fraction_within_band)`` after each batch of builds.
+
+    Returns
+    -------
+    SpreadResult
+        The percentiles, yields, worst build, pair matching, sensitivities and worst corner.
+
+    Raises
+    ------
+    JobError
+        Where the draws (samples x parts, 8 bytes each) would take more than DRAWS_BYTES.
+    """
     from xo_fit.grid import band_mask
 
     job = system.job
@@ -246,7 +354,33 @@ def _ranking(system, sens: np.ndarray, band: np.ndarray, tol: np.ndarray, xo: li
 
 
 def worst_corners(system, nominal, tol, sens, band, nominal_sum_db) -> dict:
-    """The worst corner: every toleranced part at + or - its tolerance."""
+    """The worst corner: every toleranced part at + or - its tolerance, the sum furthest from the nominal.
+
+    Up to CORNERS_MAX toleranced parts every one of the 2^n corners is solved; above, the two corners the signs of
+    the sensitivities point to, at the frequency where the first-order worst case is largest.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    nominal : ndarray
+        The design's part values, SI (ohm, H, F), shape (P,).
+    tol : ndarray
+        Each part's tolerance as a fraction (dimensionless), shape (P,).
+    sens : ndarray
+        The sensitivities (:func:`sensitivities`), in dB per percent, shape (P, F).
+    band : ndarray
+        The target band as a mask of the grid, bool, shape (F,).
+    nominal_sum_db : ndarray
+        The nominal design's sum, in dB SPL, shape (F,).
+
+    Returns
+    -------
+    dict
+        ``method`` (how the corners were chosen, or "none" without toleranced parts), ``worst_deviation_db`` (the
+        worst corner's largest deviation from the nominal over the band, in dB) and ``signs`` (part name -> "+"
+        or "-", each toleranced part's side in that corner).
+    """
     idx = np.nonzero(tol > 0)[0]
     if idx.size == 0:
         return {"method": "none", "worst_deviation_db": 0.0, "signs": {}}
