@@ -168,7 +168,7 @@ class SpreadResult:
     tolerances: np.ndarray
 
 
-def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray) -> np.ndarray:
+def sensitivities(system, nominal: np.ndarray) -> np.ndarray:
     """The change of the sum's level per +1 % of each part's value, by central differences of +-SENS_STEP.
 
     The sum is the curve the system target applies to (:meth:`~xo_fit.model.system.System.reference_db`: the
@@ -180,10 +180,6 @@ def sensitivities(system, nominal: np.ndarray, band: np.ndarray, tol: np.ndarray
         The loaded job (:class:`~xo_fit.model.system.System`).
     nominal : ndarray
         The design's part values, SI (ohm, H, F), shape (P,).
-    band : ndarray
-        The target band as a mask of the grid, bool, shape (F,); not used here (the whole grid is returned).
-    tol : ndarray
-        Each part's tolerance as a fraction (dimensionless), shape (P,); not used here (the step is SENS_STEP).
 
     Returns
     -------
@@ -315,7 +311,7 @@ def run_spread(system, nominal: np.ndarray, *, samples: int | None = None, seed:
         if progress is not None:
             progress(min(lo + chunk, samples), samples, within / min(lo + chunk, samples))
     pairs = np.concatenate(pair_diffs) if pair_diffs else np.zeros(1)
-    sens = sensitivities(system, nominal, band, tol)
+    sens = sensitivities(system, nominal)
     ranking = _ranking(system, sens, band, tol, crossovers if crossovers is not None else _crossovers(job))
     corners = worst_corners(system, nominal, tol, sens, band, nom_db[0])
     assert worst[2] is not None, "some build has a finite deviation"
