@@ -1,22 +1,19 @@
 """The fused kernel: solve the network and reduce the cost terms in one compiled pass per candidate.
 
-A fit spends nearly all of its time evaluating the cost of candidate designs.
-Computing dB curves in numpy costs several microseconds per candidate, far
-more than the solve; this kernel instead extends the solver's straight-line
-code (:func:`xo_fit.solver.codegen.solver_code`) with each driver's pressure, the
-complex sum, their levels in dB (through :func:`xo_fit.solver.vecmath.ln`, which
-vectorises), the phase chords through the crossover regions and the impedance
-shortfall, and reduces them over the band inside the frequency loop. The
-terms are exactly those of :class:`xo_fit.model.cost.CostModel` (the reference
-implementation, against which tests hold this kernel to 1e-9).
+A fit spends nearly all of its time evaluating the cost of candidate designs. Computing dB curves in numpy
+costs several microseconds per candidate, far more than the solve; this kernel instead extends the solver's
+straight-line code (:func:`xo_fit.solver.codegen.solver_code`) with each driver's pressure, the complex sum,
+their levels in dB (through :func:`xo_fit.solver.vecmath.ln_floored`, which vectorises), the phase chords
+through the crossover regions, the impedance shortfall and the rated parts' currents, and reduces them over
+the band inside the frequency loop (the off-axis curves in loops after it). The terms are exactly those of
+:class:`xo_fit.model.cost.CostModel` (the reference implementation, against which tests hold this kernel to
+1e-9), but for ``protection``, which it lacks.
 
-The structure of the cost (which drivers have way targets, which pairs meet
-at a crossover, the band's index range, a fixed or automatic level, the
-weights) is written into the generated code as constants; the curves are
-passed as one array ``tgt``. The kernel is compiled with ``reassoc`` as well
-as ``contract``: LLVM vectorises floating-point sums over the frequency loop
-only when it may reorder them. Candidates with a flagged point (a pivot too
-small, a NaN) are re-scored by the reference path.
+The structure of the cost (which drivers have way targets, which pairs meet at a crossover, the band's index
+range, a fixed or automatic level, the weights) is written into the generated code as constants; the curves
+are passed as one array ``tgt``. The kernel is compiled with ``reassoc`` as well as ``contract``: LLVM
+vectorises floating-point sums over the frequency loop only when it may reorder them. Candidates with a
+flagged point (a pivot too small, a NaN) are re-scored by the reference path.
 """
 
 from __future__ import annotations
@@ -73,7 +70,14 @@ def _merge_alike(g: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 class FusedCost:
-    """Cost of batches of designs through one generated kernel; same numbers as CostModel.evaluate."""
+    """Cost of batches of designs through one generated kernel; same numbers as CostModel.evaluate.
+
+    Parameters
+    ----------
+    cm : CostModel
+        The job's reference cost (:class:`xo_fit.model.cost.CostModel`); its system, band, targets, weights and
+        limits are written into the kernel. Its band must be a contiguous range of the grid (else ValueError).
+    """
 
     def __init__(self, cm) -> None:
         self.cm = cm
@@ -427,6 +431,7 @@ class FusedCost:
         return src
 
     def kernel(self):
+        """The compiled kernel (:func:`~xo_fit.solver.kernels.load_kernel` of :meth:`ir`), loaded on first use."""
         if self._kernel is None:
             self._kernel = load_kernel(self.ir())
         return self._kernel
@@ -445,8 +450,8 @@ class FusedCost:
     # ------------------------------------------------------------------ evaluation
 
     def kernel_args(self, values: np.ndarray) -> tuple:
-        """The kernel's arguments (its parameters, in order) for designs (B, P): a fresh scratch and output (B, 10)
-        last."""
+        """The kernel's arguments (its parameters, in order) for designs (B, P) in SI: a fresh scratch and the
+        output last, shaped as :meth:`evaluate_raw` returns it."""
         v = np.ascontiguousarray(self.net._check_values(values), dtype=float)
         k = self.net._kernel_args()
         return (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
@@ -455,8 +460,21 @@ class FusedCost:
                 np.empty((v.shape[0], self.col_limits + (5 if self.limit_code is not None else 0))))
 
     def evaluate_raw(self, values: np.ndarray) -> np.ndarray:
-        """(B, 10): cost, the TERMS (way, sum, phase, impedance, stress, early_reflections, sound_power), level,
-        flag for designs (B, P); flagged rows re-scored."""
+        """Cost, terms, level and flag of designs; rows the kernel flags are re-scored by the reference.
+
+        Parameters
+        ----------
+        values : ndarray
+            Part values in SI (ohm, H, F), shape (B, P) or (P,).
+
+        Returns
+        -------
+        ndarray
+            Shape (B, 10): the cost (dimensionless; inf where not finite), the TERMS (way, sum, phase, impedance,
+            stress, early_reflections, sound_power; mean squares in dB^2), the level in dB SPL and the flag (> 0
+            or NaN: re-scored); with the preference its term (column 10); with [limits] 5 columns more, the
+            total violation and each limit's (:data:`xo_fit.model.limits.NAMES`), dimensionless.
+        """
         args = self.kernel_args(values)
         v, out = args[0], args[-1]
         nbad = self.kernel()(*args)
@@ -481,12 +499,12 @@ class FusedCost:
         return out
 
     def limited(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Cost (B,), total violation of the [limits] (B,) and each limit's signed excess (B, 4; in the order of
-        xo_fit.model.limits.NAMES) of designs (B, P); a job with limits only."""
+        """Cost (B,), total violation of the [limits] (B,) and each limit's signed relative excess (B, 4; in the
+        order of xo_fit.model.limits.NAMES), all dimensionless, of designs (B, P) in SI; a job with limits only."""
         raw = self.evaluate_raw(values)
         c = self.col_limits
         return raw[:, 0], raw[:, c], raw[:, c + 1:c + 1 + len(NAMES)]
 
     def __call__(self, values: np.ndarray) -> np.ndarray:
-        """Cost (B,) of designs (B, P)."""
+        """Cost (B,), dimensionless, of designs (B, P) in SI (:meth:`evaluate_raw`'s first column)."""
         return self.evaluate_raw(values)[:, 0]

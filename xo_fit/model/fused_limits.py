@@ -30,9 +30,27 @@ _HIGHEST = 1e300
 class LimitCode:
     """The limits' rows, scratch rows and lines of one fused kernel (see the module docstring).
 
-    Built while the kernel's ``tgt`` rows are assembled: ``rows`` (the list being built) receives this code's
-    rows; ``scratch0`` is the first scratch row free for it; ``lo``, ``hi`` the band's index range; ``nf`` the
-    grid's length.
+    Built while the kernel's ``tgt`` rows are assembled.
+
+    Parameters
+    ----------
+    cm : CostModel
+        The job's reference cost, with its ``limits`` (:class:`xo_fit.model.limits.LimitModel`).
+    rows : list of ndarray
+        The ``tgt`` rows built so far, each shape (F,); this code's rows are appended (excursion factors in
+        1/V^2, power factors in 1/V^2 over the band's point count, stop bands 1 inside and 0 outside; all 0
+        outside the band).
+    scratch0 : int
+        The first scratch row free for this code (an index, dimensionless).
+    lo, hi : int
+        The band's index range [lo, hi) on the grid (indices, dimensionless).
+    nf : int
+        The grid's length F (a count, dimensionless).
+
+    Attributes
+    ----------
+    scratch_rows : int
+        How many scratch rows this code uses (a count, dimensionless), from ``scratch0`` on.
     """
 
     def __init__(self, cm, rows: list, scratch0: int, lo: int, hi: int, nf: int) -> None:
@@ -75,8 +93,22 @@ class LimitCode:
         self.scratch_rows = n
 
     def loop_lines(self, code, inband) -> list:
-        """Statements inside the frequency loop (``code``: the solver's SolverCode; ``inband``: the factor that
-        keeps a sum to the band when the loop runs wider, or None)."""
+        """Statements inside the frequency loop: |Z|^2 and each judged driver's |V|^2 times its factors.
+
+        Parameters
+        ----------
+        code : SolverCode
+            The solver's code (:class:`xo_fit.solver.codegen.SolverCode`): its input impedance and driver
+            voltages.
+        inband : Expr or None
+            The factor that keeps a sum to the band when the loop runs wider, or None; unused here (this
+            code's ``tgt`` rows are 0 outside the band).
+
+        Returns
+        -------
+        list of Stmt
+            The statements, after the solve's in the loop's body.
+        """
         out: list = []
         if self.row_z is not None:
             zr, zi = code.zin
@@ -97,8 +129,25 @@ class LimitCode:
 
     def end_lines(self, judged: list, k2: float, out_col: int) -> list:
         """Per candidate, after the level is known and the second pass is done: the extremes, each limit's
-        violation and their total into ``out[b, out_col:out_col + 5]``. ``judged``: the rated parts whose
-        currents the kernel sums (``acc_r{m}``) or peaks (``mq{m}``); ``k2``: the drive scale squared."""
+        violation and their total.
+
+        Parameters
+        ----------
+        judged : list of tuple
+            The rated parts (branch index, values column, kind R/L/C, rating in W, V or A) whose currents the
+            kernel sums (``acc_r{m}``) or peaks (``mq{m}``), m their position here.
+        k2 : float
+            The ``[limits]`` drive scale squared (the drive's voltage over the source's, squared),
+            dimensionless.
+        out_col : int
+            The output's column of the total violation; each limit's (in the order of
+            :data:`xo_fit.model.limits.NAMES`) follows, dimensionless.
+
+        Returns
+        -------
+        list of Stmt
+            The statements, ending with the stores into ``out[b, out_col:out_col + 5]``.
+        """
         lim = self.lim
         here = Declared()  # names of the candidate's block, set again and again
         v = {n: f8(n) for n in ("lim_zz", "lim_q", "lim_vz", "lim_vr", "lim_e", "lim_vp", "lim_mx", "lim_vb",

@@ -16,10 +16,34 @@ TGT, SCRATCH = Array("tgt", 2), Array("scratch", 2)
 
 def preference_lines(plan, row_q: int, row_inband: int, flo: int, fhi: int, p2f: Named, pref_db: Named) -> list:
     """Per candidate, after the position sums: Olive's score from the on-axis, listening window, early
-    reflections and sound power sums (``scratch`` rows from ``row_q``) and the term max(0, 10 - score)^2 / 100
-    as ``t_pref``. Its names start with ``pf_`` (apart from the solver's); ``tgt`` row ``row_inband + 1`` holds
-    log10 f, ``row_inband + 2`` SM's centred log10 f; ``p2f``, ``pref_db``: the kernel's |p|^2 floor and the
-    reference level in dB."""
+    reflections and sound power sums and the term max(0, 10 - score)^2 / 100 as ``t_pref``. Its names start
+    with ``pf_`` (apart from the solver's).
+
+    Parameters
+    ----------
+    plan : PreferencePlan
+        The score's index ranges on the grid (:class:`xo_fit.model.preference.PreferencePlan`).
+    row_q : int
+        The first of the ``scratch`` rows it reads and writes (an index, dimensionless): the listening
+        window's, early reflections' and sound power's |p|^2 sums in Pa^2 (rows ``row_q`` to ``row_q + 2``),
+        the on-axis level in dB (``row_q + 3``); it writes the listening window's, sound power's and in-room
+        levels in dB to rows ``row_q + 4`` to ``row_q + 6``.
+    row_inband : int
+        The ``tgt`` row of the band's indicator (an index, dimensionless); ``row_inband + 1`` holds log10 f,
+        ``row_inband + 2`` SM's centred log10 f.
+    flo, fhi : int
+        The grid's index range [flo, fhi) the levels are taken over (indices, dimensionless).
+    p2f : Named
+        The kernel's |p|^2 floor constant, in Pa^2.
+    pref_db : Named
+        The kernel's constant 20 log10(20 uPa / 1 Pa), about -94, in dB: a level in dB SPL is
+        10 log10(|p|^2) less it.
+
+    Returns
+    -------
+    list of Stmt
+        The statements, setting ``t_pref`` (dimensionless).
+    """
     r_on, r_lw, r_sp, r_pir = row_q + 3, row_q + 4, row_q + 5, row_q + 6
     r_logf, r_smx = row_inband + 1, row_inband + 2
     a, b, c = IN_ROOM_WEIGHTS

@@ -31,7 +31,8 @@ if TYPE_CHECKING:
 
 
 def kernel_inputs(net: Network) -> np.ndarray:
-    """The frequency-dependent kernel input ``fin``: rows w, 1/w, then Re and Im of each driver's admittance."""
+    """The frequency-dependent kernel input ``fin`` of ``net``, shape (K, F) with K = 2 + 2 D, C-contiguous:
+    rows w (rad/s), 1/w (s/rad), then Re and Im of each driver's admittance 1/Z (S), driver by driver."""
     y = 1.0 / net.driver_impedance
     rows = [net.omega, 1.0 / net.omega]
     for k in range(y.shape[0]):
@@ -50,11 +51,24 @@ B, F = i8("b"), i8("f")
 class SolverCode:
     """Straight-line code (IR statements) that solves one network at one (candidate ``b``, frequency ``f``) point.
 
-    prep: statements per candidate (outside the frequency loop), reading ``vals[b, :]``;
-    loads: statements reading the frequency-dependent inputs from ``fin[:, f]``;
-    body: the solve and the pivot check, ending with ``bad`` (positive or NaN: redo densely);
-    volts: (re, im) of each driver's terminal voltage, by driver index (the constant 0.0 for a zero part);
-    zin: (re, im) of the input impedance; comment: lines describing the reduced network.
+    Parameters
+    ----------
+    prep : tuple of Stmt
+        Statements per candidate (outside the frequency loop), reading ``vals[b, :]``, ``r_coef`` and
+        ``r_exp``; among their names ``x_J``, the value of ``net.branches[J]``, and ``r_J``, its series
+        resistance.
+    loads : tuple of Stmt
+        Statements reading the frequency-dependent inputs from ``fin[:, f]``.
+    body : tuple of Stmt
+        The solve and the pivot check, ending with ``bad`` (positive or NaN: redo densely).
+    volts : tuple of tuple of Expr
+        (re, im) of each driver's terminal voltage in V, by driver index (the constant 0.0 for a zero part).
+    zin : tuple of Expr
+        (re, im) of the input impedance in ohm (without the source resistance).
+    comment : tuple of str
+        Lines describing the reduced network (its edges, unknown nodes and elimination order).
+    currents : tuple of tuple of Expr
+        (re, im) of the current in A through each part :func:`solver_code` was asked for, in that order.
     """
 
     prep: tuple[Stmt, ...]
@@ -371,10 +385,13 @@ def _pivot_checks(b: _Build, trap_terms: list[Expr]) -> list[Stmt]:
 
 
 def solver_code(net: Network, currents: tuple[int, ...] = ()) -> SolverCode:
-    """Generate the solver's straight-line code for ``net`` (see :func:`generate_kernel_source`).
+    """Generate the solver's straight-line code for ``net`` (the kernel around it: :func:`generate_kernel`).
 
     ``currents``: indices into ``net.branches`` of valued parts whose current (at the source voltage ``vs``)
-    the code also computes: the current of the edge (part or series chain) that holds the part.
+    the code also computes: the current of the edge (part or series chain) that holds the part. Returns a
+    :class:`SolverCode` in the names of the module-level arrays and scalars (:data:`VALS`, :data:`FIN`, ...)
+    and loop indices (:data:`B`, :data:`F`). Raises NetworkError for what should not happen: a structurally
+    zero pivot, no current path from the source, a part in ``currents`` that carries none (a closed loop).
     """
     b = _Build(e=Emitter(), net=net, edges=reduce_series_chains(net))
     e, edges, forms = b.e, b.edges, b.forms
@@ -441,6 +458,19 @@ def generate_kernel(net: Network) -> Kernel:
     interleaves it into the complex output: LLVM vectorises the frequency loop
     only with few arrays and few written rows (its runtime alias checks are
     capped), and not around interleaved complex stores.
+
+    Parameters
+    ----------
+    net : Network
+        The netlist on its grid.
+
+    Returns
+    -------
+    Kernel
+        The checked kernel ``kernel`` (:class:`~xo_fit.solver.ir_kernel.Kernel`), for
+        :func:`~xo_fit.solver.kernels.load_kernel`. Its arrays: ``vals`` in SI (ohm, H, F), ``r_coef`` and
+        ``r_exp`` as :class:`~xo_fit.solver.netlist.Branch` has them, ``fin`` as :func:`kernel_inputs` gives it
+        (K = 2 + 2 D); ``vs`` in V, ``rs`` in ohm, ``tau2`` dimensionless; the outputs in V and ohm.
     """
     code = solver_code(net)
     d = len(net.driver_names)
@@ -464,5 +494,6 @@ def generate_kernel(net: Network) -> Kernel:
 
 
 def generate_kernel_source(net: Network) -> str:
-    """The Python text numba compiles of :func:`generate_kernel`."""
+    """The Python text numba compiles of :func:`generate_kernel` (a module defining ``kernel`` under
+    ``@numba.njit``: :func:`xo_fit.solver.ir_python.text`)."""
     return python_text(generate_kernel(net))

@@ -18,9 +18,22 @@ if TYPE_CHECKING:
 
 
 def branch_admittances(net: Network, values: np.ndarray, f_index: np.ndarray) -> np.ndarray:
-    """Admittance of every branch, siemens, shape (M, len(branches)) for M (values row, frequency) pairs.
+    """Admittance of every branch at M (values row, frequency) points.
 
-    values: (M, P); f_index: (M,) indices into the grid.
+    Parameters
+    ----------
+    net : Network
+        The netlist on its grid.
+    values : ndarray
+        Part values in SI (ohm, H, F), one row per point, shape (M, P).
+    f_index : ndarray
+        Each point's index into the grid, integers, shape (M,).
+
+    Returns
+    -------
+    ndarray
+        Each branch's admittance, complex, in S (siemens), shape (M, N), N = len(net.branches), in branch
+        order.
     """
     w = net.omega[f_index]
     out = np.empty((values.shape[0], len(net.branches)), dtype=complex)
@@ -117,7 +130,21 @@ def _solve_points(mat: np.ndarray, rhs: np.ndarray, scale: np.ndarray) -> np.nda
 def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Solution:
     """Plain nodal analysis with LAPACK's pivoting solve, for M (values row, frequency index) pairs.
 
-    Returns voltages (M, D) and impedance (M,) (a Solution with the F axis dropped).
+    Parameters
+    ----------
+    net : Network
+        The netlist on its grid.
+    values : ndarray
+        Part values in SI (ohm, H, F), one row per point, shape (M, P).
+    f_index : ndarray
+        Each point's index into the grid, integers, shape (M,).
+
+    Returns
+    -------
+    Solution
+        With the F axis dropped: each driver's terminal voltage in V, shape (M, D), and the input impedance
+        (without the source resistance) in ohm, shape (M,), complex, for the source at ``net.source_voltage``.
+        A point that stays singular gives NaN.
     """
     volt, y = _dense_nodes(net, values, f_index)
     m = y.shape[0]
@@ -138,8 +165,20 @@ def solve_dense(net: Network, values: np.ndarray, f_index: np.ndarray) -> Soluti
 def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Voltage across and current through every branch of one design, from the dense solve.
 
-    values: (P,) SI. Returns (voltage, current), complex (len(branches), F), for the source at
-    ``net.source_voltage``; a branch's voltage is V(a) - V(b) and its current flows a -> b through it.
+    Parameters
+    ----------
+    net : Network
+        The netlist on its grid.
+    values : ndarray
+        The design's part values in SI (ohm, H, F), shape (P,) (of a (B, P) batch only the first row is used).
+
+    Returns
+    -------
+    voltage : ndarray
+        Each branch's voltage V(a) - V(b), complex, in V, shape (N, F), N = len(net.branches).
+    current : ndarray
+        Each branch's current, flowing a -> b through it, complex, in A, shape (N, F); both for the source
+        at ``net.source_voltage``.
     """
     v = net._check_values(values)[:1]
     f_index = np.arange(net.frequencies.size)
@@ -149,8 +188,22 @@ def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndar
 
 
 def branch_currents(net: Network, values: np.ndarray) -> np.ndarray:
-    """Current through every branch for a batch of designs, complex A, (B, branches, F), at ``net.source_voltage``
-    (the dense path: the reference the fused kernel's stress term is held to)."""
+    """Current through every branch for a batch of designs, from the dense solve (the reference the fused
+    kernel's stress term is held to).
+
+    Parameters
+    ----------
+    net : Network
+        The netlist on its grid.
+    values : ndarray
+        Part values in SI (ohm, H, F), shape (B, P) or (P,).
+
+    Returns
+    -------
+    ndarray
+        Each branch's current a -> b for the source at ``net.source_voltage``, complex, in A, shape
+        (B, N, F), N = len(net.branches).
+    """
     v = net._check_values(values)
     b, nf = v.shape[0], net.frequencies.size
     bi, fi = np.meshgrid(np.arange(b), np.arange(nf), indexing="ij")

@@ -9,13 +9,22 @@ from xo_fit.solver.ir import Expr, Stmt, Var, f8, let, signed_sum
 
 class Emitter:
     """Emits straight-line real arithmetic for complex values kept as (re, im) expressions; None is a zero part.
-    Each value is a new double name declared where it is set (:class:`~xo_fit.solver.ir.Let`)."""
+    Each value is a new double name declared where it is set (:class:`~xo_fit.solver.ir.Let`).
+
+    Attributes
+    ----------
+    lines : list of Stmt
+        The statements emitted so far, in order (a generator may take them and start a fresh list).
+    count : int
+        How many names it has made; each name ends in its number, so no two are alike.
+    """
 
     def __init__(self) -> None:
         self.lines: list[Stmt] = []
         self.count = 0
 
     def let(self, expr: Expr, stem: str = "t") -> Var:
+        """A new double name ``stem`` + its number, set to ``expr`` by a statement appended to :attr:`lines`."""
         self.count += 1
         name = f8(f"{stem}{self.count}")
         self.lines.append(let(name, expr))
@@ -26,7 +35,8 @@ class Emitter:
                 self.let(signed_sum(im_terms), stem + "i") if im_terms else None)
 
     def sum(self, terms: list[tuple[int, tuple]], stem: str = "a") -> tuple:
-        """Sum of sign * value over terms; returns a complex pair (names or None)."""
+        """Sum of sign * value over ``terms`` [(+1 | -1, (re, im))]; returns a complex pair (names, or None for
+        a part with no terms)."""
         return self._pair([(s, v[0]) for s, v in terms if v[0] is not None],
                           [(s, v[1]) for s, v in terms if v[1] is not None], stem)
 
@@ -42,10 +52,12 @@ class Emitter:
         return re, im
 
     def mul(self, x: tuple, y: tuple, stem: str = "m") -> tuple:
+        """The complex product x * y of two (re, im) pairs, as a pair of names (None for a zero part)."""
         return self._pair(*self._products(x, y, 1), stem)
 
     def fms(self, acc: tuple, x: tuple, y: tuple, stem: str = "a") -> tuple:
-        """acc - x * y, one expression per part (so the compiler can contract it to fused multiply-adds)."""
+        """acc - x * y of (re, im) pairs, one expression per part (so the compiler can contract it to fused
+        multiply-adds); ``acc`` itself when x * y is structurally zero."""
         re, im = self._products(x, y, -1)
         if not re and not im:
             return acc
@@ -55,7 +67,25 @@ class Emitter:
 
 
 def elimination_order(nodes: list[str], adj: dict[str, set[str]], rhs: set[str], dissipative: set[str]) -> list[str]:
-    """Greedy minimum-degree elimination order with fill-in; ties: no RHS first, dissipative first, by name."""
+    """Greedy minimum-degree elimination order with fill-in; ties: no RHS first, dissipative first, by name.
+
+    Parameters
+    ----------
+    nodes : list of str
+        The unknown nodes.
+    adj : dict
+        Each node's neighbours in the matrix (node -> set of nodes); copied, not changed.
+    rhs : set of str
+        The nodes with a right-hand side; updated in place as elimination spreads it to their neighbours.
+    dissipative : set of str
+        The nodes preferred on a tie (the code generator passes those touching a driver, an R or a series
+        chain: edges that usually dissipate).
+
+    Returns
+    -------
+    list of str
+        Every node of ``nodes`` once, in the order of elimination.
+    """
     adj = {n: set(a) for n, a in adj.items()}
     left = list(nodes)
     order = []
@@ -82,6 +112,22 @@ def batch_reciprocal(e: Emitter, dens: list[Expr], traps: list[Expr], stem: str)
     by latency, not by arithmetic. ``traps`` receives a name that is NaN when
     the product over- or underflowed, so that the point is solved again by
     the dense path instead of silently returning zeros.
+
+    Parameters
+    ----------
+    e : Emitter
+        Where the statements go.
+    dens : list of Expr
+        The values to invert (each a real expression, structurally non-zero).
+    traps : list of Expr
+        Appended to: the check name (root * 1/root, NaN or inf when the product over- or underflowed).
+    stem : str
+        The stem of the new names.
+
+    Returns
+    -------
+    list of Expr
+        1 / value for each of ``dens``, in order.
     """
     if len(dens) == 1:
         inv = e.let(1.0 / dens[0], stem)

@@ -92,9 +92,11 @@ class Expr:
         return Cmp(">=", self, wrap(o))
 
     def eq(self, o) -> Cmp:
+        """``self == o`` (B1); a method, as ``==`` on expressions compares them by identity."""
         return Cmp("==", self, wrap(o))
 
     def ne(self, o) -> Cmp:
+        """``self != o`` (B1); a method, as :meth:`eq`."""
         return Cmp("!=", self, wrap(o))
 
 
@@ -175,6 +177,7 @@ class Array:
         return Load(self, tuple(wrap(i) for i in (index if isinstance(index, tuple) else (index,))))
 
     def shape(self, axis: int) -> Dim:
+        """Its dimension ``axis`` (0 first), an I8 expression (:class:`Dim`)."""
         return Dim(self, axis)
 
     def store(self, index, value, op: str = "") -> Store:
@@ -315,10 +318,12 @@ def maximum(a, b) -> Expr:
 
 
 def absolute(a) -> Expr:
+    """``abs(a)`` of a double (C's ``fabs``)."""
     return Call("abs", (wrap(a),))
 
 
 def sqrt(a) -> Expr:
+    """The square root of ``a`` (F8)."""
     return Call("sqrt", (wrap(a),))
 
 
@@ -333,10 +338,12 @@ def ln_floored(a) -> Expr:
 
 
 def to_float(a) -> Expr:
+    """``float(a)``: an integer as a double (C's cast)."""
     return Call("float", (wrap(a),))
 
 
 def select(cond: Expr, a, b) -> Expr:
+    """``a if cond else b`` (:class:`Select`); ``cond`` a comparison or ``not`` (B1)."""
     return Select(cond, wrap(a), wrap(b))
 
 
@@ -368,6 +375,9 @@ def total(terms) -> Expr:
 
 
 class Stmt:
+    """A statement: the base of :class:`Let`, :class:`Assign`, :class:`Update`, :class:`Store`, :class:`For`,
+    :class:`If` and :class:`Return`."""
+
     __slots__ = ()
 
 
@@ -420,6 +430,8 @@ class For(Stmt):
 
 @dataclass(frozen=True, eq=False, slots=True)
 class If(Stmt):
+    """``if cond: body`` with an optional ``else: orelse``; each block declares its own names."""
+
     cond: Expr
     body: tuple[Stmt, ...]
     orelse: tuple[Stmt, ...] = ()
@@ -433,14 +445,17 @@ class Return(Stmt):
 
 
 def let(var: Var, value) -> Let:
+    """Declare ``var`` in this block, set to ``value`` (a number becomes a :class:`Const`): :class:`Let`."""
     return Let(var, wrap(value))
 
 
 def assign(var: Var, value) -> Assign:
+    """Set ``var``, declared before, to ``value``: :class:`Assign`."""
     return Assign(var, wrap(value))
 
 
 def update(var: Var, value, op: str = "+") -> Update:
+    """``var op= value`` (``+=`` unless ``op`` says otherwise): :class:`Update`."""
     return Update(var, op, wrap(value))
 
 
@@ -450,6 +465,7 @@ def loop(var: Var, lo, hi, body, declare: bool = True) -> For:
 
 
 def when(cond: Expr, body, orelse=()) -> If:
+    """``if cond: body else: orelse`` (:class:`If`; no else when ``orelse`` is empty)."""
     return If(cond, tuple(body), tuple(orelse))
 
 
@@ -465,7 +481,6 @@ class Function:
     fastmath: tuple[str, ...] = ("contract",)
 
 
-
 class Declared:
     """What a generator has declared in one block: :meth:`set` declares a name the first time (:class:`Let`)
     and assigns it after (:class:`Assign`), for a name set again and again in that block."""
@@ -474,6 +489,8 @@ class Declared:
         self.names: set[str] = set()
 
     def set(self, var: Var, value) -> Stmt:
+        """``var = value`` in this block: a :class:`Let` the first time ``var`` is set here, an :class:`Assign`
+        after."""
         if var.name in self.names:
             return Assign(var, wrap(value))
         self.names.add(var.name)

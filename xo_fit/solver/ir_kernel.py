@@ -35,7 +35,8 @@ FASTMATH = ("contract", "reassoc")
 @dataclass(frozen=True, eq=False)
 class Kernel:
     """A checked function (:func:`check`) with what its Python text starts with: comment lines (without the
-    ``#``) and the module constants it reads by name (``DB10`` is imported)."""
+    ``#``) and the module constants it reads by name (``DB10`` is imported). Making one raises ValueError where
+    the check fails."""
 
     function: Function
     comments: tuple[str, ...] = ()
@@ -46,11 +47,15 @@ class Kernel:
 
     @property
     def name(self) -> str:
+        """The function's name: what its Python module defines (its C library's entry: ``<name>_packed``)."""
         return self.function.name
 
 
 def check(fn: Function, constants: tuple[Named, ...] = ()) -> None:
-    """Raise ValueError unless ``fn`` computes the same in Python and in C (the module docstring)."""
+    """Raise ValueError unless ``fn`` computes the same in Python and in C (the module docstring).
+
+    ``constants``: the module constants (:class:`~xo_fit.solver.ir.Named`) ``fn`` may read besides ``DB10``.
+    """
     _Checker(fn, constants).run()
 
 

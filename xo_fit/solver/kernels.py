@@ -54,6 +54,11 @@ def cache_dir() -> Path:
     The folder must be private (owned by this user, not writable by others), since the kernels in it are run.
     When the usual folder is not writable, ``<tmp>/xo_fit-<uid>/kernels`` is used if it is private; else a fresh
     private folder for this process only (nothing is then reused across runs, and nothing planted is run).
+
+    Returns
+    -------
+    Path
+        The folder (created 0700 where it was missing).
     """
     env = os.environ.get("XO_FIT_CACHE")
     base = Path(env) if env else Path(os.environ.get("XDG_CACHE_HOME", Path.home() / ".cache")) / "xo_fit"
@@ -79,7 +84,18 @@ def _numba_version() -> str:
 
 
 def kernel_digest(source: str) -> str:
-    """The cache key of a kernel's text (with the kernel version and numba's)."""
+    """The cache key of a kernel's text (with the kernel version and numba's).
+
+    Parameters
+    ----------
+    source : str
+        The kernel's Python text (:func:`xo_fit.solver.ir_python.text`).
+
+    Returns
+    -------
+    str
+        20 hexadecimal digits of a SHA-256.
+    """
     return hashlib.sha256(f"{KERNEL_VERSION}\n{_numba_version()}\n{source}".encode()).hexdigest()[:20]
 
 
@@ -89,6 +105,20 @@ def load_kernel(kernel: Kernel, *, standalone: bool = True):
     With ``standalone`` the kernel becomes a C library on its first call (:mod:`xo_fit.solver.standalone`:
     printed as C, built by the system's compiler, loaded without numba). Without, or when that is not
     possible, numba compiles it: its Python text is written to the cache (atomically) and imported.
+    Within a process each kernel text is loaded once.
+
+    Parameters
+    ----------
+    kernel : Kernel
+        The kernel's IR (:class:`~xo_fit.solver.ir_kernel.Kernel`).
+    standalone : bool
+        Try the C build first (off: numba at once).
+
+    Returns
+    -------
+    callable
+        The kernel, called with its parameters in order (C-contiguous float64 arrays and floats), returning an
+        int: a :class:`~xo_fit.solver.standalone.LazyKernel`, or numba's compiled function.
     """
     source, entry = python_text(kernel), kernel.name
     text_key = hashlib.sha256(f"{entry}\n{standalone}\n{source}".encode()).hexdigest()
@@ -130,7 +160,7 @@ def _numba_kernel(folder: Path, source: str, entry: str):
 
 
 def source_path(folder: Path, digest: str) -> Path:
-    """Where a kernel's generated text lives in the cache."""
+    """Where a kernel's generated text lives in the cache: ``folder/xo_kernel_<digest>.py``."""
     return folder / f"xo_kernel_{digest}.py"
 
 

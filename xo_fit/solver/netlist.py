@@ -26,10 +26,22 @@ if TYPE_CHECKING:
 class Branch:
     """One part as the solver sees it.
 
-    kind: "R", "L", "C" or "D" (driver).
-    a, b: node names; current flows a -> b for positive voltage V(a) - V(b).
-    r_coef, r_exp: series resistance r = r_coef * value**r_exp (L: DCR, C: ESR; R: unused).
-    driver: index into the driver axis for kind "D".
+    Parameters
+    ----------
+    name : str
+        The part's name (unique in the netlist).
+    kind : str
+        "R", "L", "C" or "D" (a driver).
+    a, b : str
+        Its nodes; its current flows a -> b for a positive voltage V(a) - V(b).
+    r_coef : float
+        Coefficient of its series resistance r = r_coef * value**r_exp, in ohm per (value's unit)**r_exp: an
+        L's DC resistance, a C's ESR; 0 for none (and for an R or a driver).
+    r_exp : float
+        The exponent of that law, dimensionless: 0 for a fixed resistance in ohm, 0.6 for the wire law of
+        :mod:`xo_fit.physics.coils`.
+    driver : int
+        Its index (dimensionless) along the driver axis D for kind "D"; -1 otherwise.
     """
 
     name: str
@@ -42,15 +54,27 @@ class Branch:
 
     @property
     def lossy(self) -> bool:
+        """Whether it is an L or a C with a series resistance of its own (DCR, ESR)."""
         return self.kind in ("L", "C") and self.r_coef != 0.0
 
 
 @dataclass
 class Solution:
-    """Result of a batched solve.
+    """Result of a batched solve (:meth:`xo_fit.solver.network.Network.solve`).
 
-    voltages: complex (B, D, F), V(positive node) - V(negative node) of each driver, V.
-    impedance: complex (B, F), input impedance at "in" against "0", ohm, without Rs.
+    Parameters
+    ----------
+    voltages : ndarray
+        Each driver's terminal voltage V(a) - V(b), complex, in V, shape (B, D, F), for the source at its
+        voltage behind its resistance.
+    impedance : ndarray
+        The input impedance at "in" against "0" (the source resistance not included), complex, in ohm, shape
+        (B, F).
+
+    Notes
+    -----
+    :func:`xo_fit.solver.dense.solve_dense` returns one for M (candidate, frequency) points: shapes (M, D) and
+    (M,).
     """
 
     voltages: np.ndarray
@@ -60,10 +84,19 @@ class Solution:
 def check_topology(parts: list[tuple[str, str, str]], *, context: str | None = None) -> None:
     """Check a netlist given as (name, node a, node b) triples.
 
-    Raises NetworkError (with ``key`` naming the part) for: a duplicate name, a
-    part shorted onto one node, no part at "in" or "0", a node that only one
-    part touches (a dangling end, usually a misspelt node), "in" with no path
-    to "0", and parts in an island not connected to the source.
+    Parameters
+    ----------
+    parts : list of tuple of str
+        Every part as (name, node a, node b).
+    context : str or None
+        Where the netlist comes from (the job file), for the messages.
+
+    Raises
+    ------
+    NetworkError
+        With ``key`` naming the part where there is one: a duplicate name, a part shorted onto one node, no
+        part at "in" or "0", a node that only one part touches (a dangling end, usually a misspelt node), "in"
+        with no path to "0", and parts in an island not connected to the source.
     """
     where = context
     names: set[str] = set()
@@ -122,6 +155,18 @@ def reduce_series_chains(net: Network) -> list[_Edge]:
     a driver, carries no information the solver needs: the chain through it is
     one impedance (the sum of its parts'). Chains that close on themselves carry
     no current and are dropped.
+
+    Parameters
+    ----------
+    net : Network
+        The netlist (:class:`~xo_fit.solver.network.Network`).
+
+    Returns
+    -------
+    list of _Edge
+        The reduced network's edges, each with its end nodes and its members (indices into ``net.branches``,
+        in order along the chain), ordered by the branch each chain was walked from; a part outside any chain
+        is an edge of its own.
     """
     ends: dict[str, list[int]] = {}
     for j, br in enumerate(net.branches):

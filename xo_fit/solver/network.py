@@ -52,16 +52,34 @@ def compile_network(branches: list[Branch], driver_names: list[str], frequencies
 
     Parameters
     ----------
-    branches: every part, valued ones (R, L, C) in the order of the values' columns.
-    driver_names: names along the driver axis D; each must be used by exactly one "D" branch.
-    frequencies: Hz, shape (F,), strictly rising, above 0.
-    driver_impedance: complex (D, F), ohm.
-    source_voltage: V. source_resistance: ohm, zero or more.
+    branches : list of Branch
+        Every part; the valued ones (R, L, C) in the order of the values' columns P.
+    driver_names : list of str
+        The names along the driver axis D; each driver is wired in by exactly one "D" branch.
+    frequencies : ndarray
+        The grid, in Hz, shape (F,), strictly rising, above 0.
+    driver_impedance : ndarray
+        Each driver's impedance on the grid, complex, in ohm, shape (D, F).
+    source_voltage : float
+        The source's open-circuit voltage, in V.
+    source_resistance : float
+        The source's series resistance, in ohm, zero or more.
+    context : str or None
+        Where the netlist comes from (the job file), for the messages.
+
+    Returns
+    -------
+    Network
+        The checked netlist on the grid; its kernel is generated on the first solve.
 
     Raises
     ------
     NetworkError
-        Shorted parts, nodes with one connection, parts or nodes cut off from the source.
+        A topology :func:`~xo_fit.solver.netlist.check_topology` refuses, a driver not wired in exactly once,
+        a grid that is not strictly rising above 0 Hz, a driver impedance that is not finite, is zero or has a
+        negative real part, a negative source resistance.
+    ValueError
+        ``driver_impedance`` of another shape than (D, F).
     """
     check_topology([(br.name, br.a, br.b) for br in branches], context=context)
     where = context
@@ -88,7 +106,25 @@ def compile_network(branches: list[Branch], driver_names: list[str], frequencies
 
 @dataclass(eq=False)
 class Network:
-    """A compiled netlist on a fixed grid. Picklable: the kernel is rebuilt (from the disk cache) on demand."""
+    """A compiled netlist on a fixed grid. Picklable: the kernel is rebuilt (from the disk cache) on demand.
+
+    Made by :func:`compile_network`, which checks its arguments.
+
+    Parameters
+    ----------
+    branches : tuple of Branch
+        Every part; the valued ones in the order of the values' columns P.
+    driver_names : tuple of str
+        The names along the driver axis D.
+    frequencies : ndarray
+        The grid, in Hz, shape (F,).
+    driver_impedance : ndarray
+        Each driver's impedance, complex, in ohm, shape (D, F).
+    source_voltage : float
+        The source's open-circuit voltage, in V.
+    source_resistance : float
+        The source's series resistance, in ohm.
+    """
 
     branches: tuple[Branch, ...]
     driver_names: tuple[str, ...]
@@ -115,6 +151,7 @@ class Network:
 
     @property
     def omega(self) -> np.ndarray:
+        """The grid's angular frequencies 2 pi f, in rad/s, shape (F,)."""
         return 2 * np.pi * self.frequencies
 
     def __getstate__(self) -> dict:
@@ -141,18 +178,36 @@ class Network:
 
         Parameters
         ----------
-        values: shape (B, P) or (P,): the value of every R (ohm), L (H) and C (F), in
-            the order of :attr:`valued`.
+        values : ndarray
+            The value of every R (ohm), L (H) and C (F) in the order of :attr:`valued`, shape (B, P), or (P,)
+            for one set (then B = 1).
 
         Returns
         -------
-        Solution with voltages (B, D, F) complex V and impedance (B, F) complex ohm
-        (views into one array).
+        Solution
+            ``voltages`` complex in V, shape (B, D, F), and ``impedance`` complex in ohm, shape (B, F) (views
+            into one array).
+
+        Raises
+        ------
+        ValueError
+            Values of another shape, or not all finite and above zero.
         """
         return self.solve_compiled(values)
 
     def solve_compiled(self, values: np.ndarray) -> Solution:
-        """:meth:`solve` through the generated kernel whatever the batch size (flagged points densely)."""
+        """:meth:`solve` through the generated kernel whatever the batch size (flagged points densely).
+
+        Parameters
+        ----------
+        values : ndarray
+            Part values in SI (ohm, H, F), shape (B, P) or (P,).
+
+        Returns
+        -------
+        Solution
+            Driver voltages in V, shape (B, D, F), and input impedance in ohm, shape (B, F), complex.
+        """
         v = self._check_values(values)
         kernel = self.kernel()
         k = self._kernel_args()
@@ -171,7 +226,18 @@ class Network:
         return Solution(voltages=res[:, :d], impedance=res[:, d])
 
     def solve_reference(self, values: np.ndarray) -> Solution:
-        """The same as :meth:`solve` through a dense pivoting solve of the full nodal matrix (slow, exact)."""
+        """The same as :meth:`solve` through a dense pivoting solve of the full nodal matrix (slow, exact).
+
+        Parameters
+        ----------
+        values : ndarray
+            Part values in SI (ohm, H, F), shape (B, P) or (P,).
+
+        Returns
+        -------
+        Solution
+            Driver voltages in V, shape (B, D, F), and input impedance in ohm, shape (B, F), complex.
+        """
         v = self._check_values(values)
         bsz, nf = v.shape[0], self.frequencies.size
         bi, fi = np.meshgrid(np.arange(bsz), np.arange(nf), indexing="ij")
@@ -192,12 +258,30 @@ class Network:
         return cached
 
     def kernel(self):
-        """The compiled kernel for this topology (generated, compiled and cached on first use)."""
+        """The compiled kernel for this topology (generated, compiled and cached on first use).
+
+        Returns
+        -------
+        callable
+            The kernel of :func:`~xo_fit.solver.codegen.generate_kernel` (its signature there), as
+            :func:`~xo_fit.solver.kernels.load_kernel` gives it.
+        """
         if self._kernel is None:
             self._kernel = load_kernel(generate_kernel(self))
         return self._kernel
 
     def series_resistance(self, values: np.ndarray) -> np.ndarray:
-        """r of every valued branch (DCR of coils, ESR of capacitors), ohm, shape (B, P)."""
+        """The series resistance r of every valued branch (DCR of coils, ESR of capacitors; 0 for an R).
+
+        Parameters
+        ----------
+        values : ndarray
+            Part values in SI (ohm, H, F), shape (B, P) or (P,).
+
+        Returns
+        -------
+        ndarray
+            r in ohm, the shape of ``values``: (B, P) or (P,).
+        """
         k = self._kernel_args()
         return k["r_coef"] * np.asarray(values, dtype=float) ** k["r_exp"]

@@ -25,7 +25,7 @@ written to a temporary folder beside the cache, flushed to disk (fsync) and rena
 One machine always takes the same path (a compiler present: C; none, or ``XO_FIT_STANDALONE=0``: numba),
 so a seed gives the same result run after run. The two paths agree to about 1e-12 relative, not bit for
 bit (the compilers contract and reorder differently). Whatever fails in printing, building or loading
-falls back to numba for that kernel and is logged (logger ``"xo_fit"``); :func:`LazyKernel.backend` says
+falls back to numba for that kernel and is logged (logger ``"xo_fit"``); :attr:`LazyKernel.backend` says
 which ran. Only a compiler that rejects the C (a non-zero exit without a sign of a passing cause such as a
 full disk, a lack of memory or a signal) leaves a note, ``xo_c_<key>.failed``: the same C, flags and
 compiler would fail again, so later runs take numba for that kernel at once; another compiler or another
@@ -69,6 +69,7 @@ BUILD_TIMEOUT_S = 120.0
 
 
 def enabled() -> bool:
+    """Whether standalone (C) kernels may be built: unless the environment sets ``XO_FIT_STANDALONE=0``."""
     return os.environ.get("XO_FIT_STANDALONE", "1") != "0"
 
 
@@ -83,7 +84,7 @@ def compiler() -> str | None:
 
 
 def dims(kernel: Kernel) -> list[int]:
-    """The number of dimensions of each parameter of ``kernel`` (0 for a float)."""
+    """The number of dimensions of each parameter of ``kernel`` (0 for a float), in parameter order."""
     return [p.ndim if isinstance(p, Array) else 0 for p in kernel.function.params]
 
 
@@ -172,6 +173,17 @@ class CKernel:
     argument that is the same array object as in the previous call keeps its address (the arguments are kept
     referenced, so no other array can take that identity). ctypes releases the GIL for the call, as the JIT
     kernel's ``nogil`` does.
+
+    Parameters
+    ----------
+    lib : ctypes.CDLL
+        The loaded library.
+    entry : str
+        The kernel's name; the library's entry point is ``<entry>_packed``.
+    dims : list of int
+        Each parameter's number of dimensions (:func:`dims`; counts, dimensionless).
+    fixed : frozenset
+        (parameter index, dimension) pairs built into the library as constants.
     """
 
     def __init__(self, lib: ctypes.CDLL, entry: str, dims: list[int], fixed: frozenset = frozenset()) -> None:
@@ -237,7 +249,19 @@ class LazyKernel:
     array do not overlap and vectorises without run-time alias checks: the off-axis cost kernel ran 1.3x
     slower with them). Calls with other inner dimensions get a build of their own. Where printing,
     building or loading fails (any exception), ``fallback()`` (numba) gives the kernel and the cause is
-    logged. :attr:`backend` says which ran."""
+    logged. :attr:`backend` says which ran.
+
+    Parameters
+    ----------
+    folder : Path
+        The private kernel cache (:func:`xo_fit.solver.kernels.cache_dir`).
+    kernel : Kernel
+        The kernel's IR.
+    cc : str
+        The C compiler's path.
+    fallback : callable
+        Called with no arguments where a C build fails: returns numba's build of the kernel.
+    """
 
     def __init__(self, folder: Path, kernel: Kernel, cc: str, fallback) -> None:
         self.folder, self.kernel, self.entry, self.cc = folder, kernel, kernel.name, cc
@@ -282,7 +306,15 @@ class LazyKernel:
 
 
 class BuildError(RuntimeError):
-    """The compiler failed; ``transient`` when the cause may pass (a full disk, memory, a signal, a timeout)."""
+    """The compiler failed; ``transient`` when the cause may pass (a full disk, memory, a signal, a timeout).
+
+    Parameters
+    ----------
+    message : str
+        What failed, in one line (for a failed build: the compiler, its exit status, its first error line).
+    transient : bool
+        Whether the cause may pass; only a failure that is not leaves a failure note.
+    """
 
     def __init__(self, message: str, transient: bool) -> None:
         super().__init__(message)
@@ -306,8 +338,33 @@ def load(folder: Path, kernel: Kernel, fallback):
 
 def load_built(folder: Path, kernel: Kernel, cc: str, fixed: dict[str, int]) -> CKernel:
     """The C build of ``kernel`` with the ``fixed`` dimensions (by ``"name_dK"``): a verified library from the
-    cache, else built now. Raises KnownFailure (a note says the compiler rejects this C), BuildError or
-    OSError; a compiler's rejection leaves the note."""
+    cache, else built now.
+
+    Parameters
+    ----------
+    folder : Path
+        The private kernel cache.
+    kernel : Kernel
+        The kernel's IR.
+    cc : str
+        The C compiler's path.
+    fixed : dict
+        The dimensions to build in as constants, ``"NAME_dK"`` -> size (dimensionless; :func:`inner_dims`).
+
+    Returns
+    -------
+    CKernel
+        The loaded kernel.
+
+    Raises
+    ------
+    KnownFailure
+        A note says that this compiler rejects this C text.
+    BuildError
+        The compiler gives no version or fails; a rejection (not ``transient``) leaves the note.
+    OSError
+        The cache cannot be read or written, or the library cannot be loaded.
+    """
     identity = compiler_identity(cc)
     if identity is None:
         raise BuildError(f"{cc} -v gives no version: not used", transient=True)
@@ -329,9 +386,32 @@ def load_built(folder: Path, kernel: Kernel, cc: str, fixed: dict[str, int]) -> 
 
 
 def build(kernel: Kernel, output: Path, cc: str | None = None, fixed: dict[str, int] | None = None) -> Path:
-    """Print ``kernel`` as C (``fixed`` dimensions as constants: the library must then be called with arrays of
-    exactly those) and build the shared library ``output`` (flushed to disk, then renamed into place). Raises
-    BuildError (the compiler failed) or OSError."""
+    """Print ``kernel`` as C and build the shared library ``output`` (flushed to disk, then renamed into place).
+
+    Parameters
+    ----------
+    kernel : Kernel
+        The kernel's IR.
+    output : Path
+        The library's path.
+    cc : str or None
+        The C compiler's path; None: :func:`compiler`'s.
+    fixed : dict or None
+        Dimensions written into the C as constants, ``"NAME_dK"`` -> size (dimensionless): the library must
+        then be called with arrays of exactly those.
+
+    Returns
+    -------
+    Path
+        ``output``.
+
+    Raises
+    ------
+    BuildError
+        No compiler, or the compiler failed.
+    OSError
+        The folder cannot be written.
+    """
     cc = cc or compiler()
     if cc is None:
         raise BuildError("no C compiler (set CC, or install cc)", transient=False)
