@@ -32,7 +32,28 @@ from xo_fit.stages.choices import Choice
 
 @dataclass
 class ChoiceEvaluator:
-    """Cost of assignments (rows of choice indices), with the drawer's counts enforced."""
+    """Cost of assignments (rows of choice indices), with the drawer's counts enforced.
+
+    Calling it with assignments ``assign`` (M, S) of int, an index into each of the S snapped parts' choices,
+    gives their costs (M,), dimensionless; an assignment that uses a drawer part more often than the drawer
+    holds costs inf and is not evaluated.
+
+    Attributes
+    ----------
+    cost_fn : callable
+        Complete designs (M, P), SI (ohm, H, F) -> their costs (M,), dimensionless: the job's cost, or under
+        [limits] the feasibility-first key (:func:`~xo_fit.search.feasibility.feasibility_key`).
+    base : ndarray
+        The values of every part, the snapped ones overwritten, SI (ohm, H, F), shape (P,).
+    columns : list of int
+        The column in ``base`` of each snapped part, S of them.
+    options : list of list of Choice
+        Each snapped part's choices (:func:`~xo_fit.stages.choices.choices_for`).
+    stock : dict
+        (kind, value) -> the count the drawer holds; empty: no drawer, nothing counted.
+    evaluations : int
+        The designs evaluated so far (dimensionless).
+    """
 
     cost_fn: Callable[[np.ndarray], np.ndarray]  # (M, P) values -> (M,) costs or keys
     base: np.ndarray  # (P,) values of every part
@@ -45,7 +66,18 @@ class ChoiceEvaluator:
         self.values_of = [np.array([c.value for c in opts]) for opts in self.options]
 
     def feasible(self, assign: np.ndarray) -> np.ndarray:
-        """Whether each assignment (row) keeps to the drawer's counts."""
+        """Whether each assignment keeps to the drawer's counts.
+
+        Parameters
+        ----------
+        assign : ndarray
+            Assignments, an index into each snapped part's choices, int, shape (M, S).
+
+        Returns
+        -------
+        ndarray
+            True where no drawer part is used more often than the drawer holds, bool, shape (M,).
+        """
         if not self.stock:
             return np.ones(assign.shape[0], dtype=bool)
         ok = np.ones(assign.shape[0], dtype=bool)
@@ -158,10 +190,24 @@ def _beam(ev: ChoiceEvaluator, start: np.ndarray, start_cost: float,
 
 @dataclass(frozen=True)
 class SnapSearch:
-    """The choice search's result: ``assignment`` and ``baseline`` (S,), an index into each of the S snapped parts'
-    choices (the best found; the start: log-nearest, or the first in stock), their ``cost`` and ``baseline_cost``
-    (dimensionless; under [limits] the feasibility-first key, until :func:`run_snap` puts the costs in), the cost
-    ``evaluations`` made (dimensionless) and whether the search was ``exhaustive``."""
+    """The choice search's result, for the S snapped parts.
+
+    Attributes
+    ----------
+    assignment : ndarray
+        The best assignment found: an index into each part's choices, int, shape (S,).
+    cost : float
+        Its cost (dimensionless; under [limits] the feasibility-first key, until
+        :func:`~xo_fit.stages.snapping.run_snap` puts the cost in).
+    baseline : ndarray
+        The start: log-nearest rounding, or the first assignment in stock, int, shape (S,).
+    baseline_cost : float
+        Its cost (dimensionless; as ``cost``).
+    evaluations : int
+        The cost evaluations made (dimensionless).
+    exhaustive : bool
+        Whether every assignment was scored (at most EXHAUSTIVE of them).
+    """
     assignment: np.ndarray
     cost: float
     baseline: np.ndarray
@@ -171,8 +217,25 @@ class SnapSearch:
 
 
 def search_choices(ev: ChoiceEvaluator, baseline: np.ndarray, seed: int = 1) -> SnapSearch:
-    """The best assignment of ``ev``'s choices found from ``baseline`` (S,), never worse than it: every assignment
-    where at most EXHAUSTIVE, else the beam, ``seed``'s random restarts and local moves (see the module)."""
+    """The best assignment of the snapped parts' choices found from ``baseline``, never worse than it.
+
+    Every assignment is scored where there are at most EXHAUSTIVE; else a beam search, random restarts and
+    local moves (see the module).
+
+    Parameters
+    ----------
+    ev : ChoiceEvaluator
+        The cost of assignments, the drawer's counts enforced.
+    baseline : ndarray
+        The start, an index into each part's choices, int, shape (S,).
+    seed : int
+        The random restarts' seed (dimensionless).
+
+    Returns
+    -------
+    SnapSearch
+        The best assignment, the baseline and their costs.
+    """
     sizes = [len(o) for o in ev.options]
     base_cost = float(ev(baseline[None])[0])
     total = int(np.prod([float(s) for s in sizes]))
@@ -197,7 +260,27 @@ def search_choices(ev: ChoiceEvaluator, baseline: np.ndarray, seed: int = 1) -> 
 
 
 def first_feasible(ev: ChoiceEvaluator, base: np.ndarray, path=None) -> np.ndarray:
-    """A feasible assignment near ``base``: walk the parts, moving each to its nearest choice still in stock."""
+    """A feasible assignment near ``base``: walk the parts, moving each to its nearest choice still in stock.
+
+    Parameters
+    ----------
+    ev : ChoiceEvaluator
+        The choices and the drawer's counts.
+    base : ndarray
+        The assignment to start from (log-nearest rounding), int, shape (S,).
+    path : Path, optional
+        The inventory file, named in the error.
+
+    Returns
+    -------
+    ndarray
+        An assignment that uses no drawer part more often than the drawer holds, int, shape (S,).
+
+    Raises
+    ------
+    XoFitError
+        Where the walk finds none: which kinds the drawer lacks, with counts.
+    """
     a = base.copy()
     for j in range(len(a)):
         target = ev.options[j][base[j]].value

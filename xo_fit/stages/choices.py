@@ -27,9 +27,18 @@ from xo_fit.units import format_value
 class Choice:
     """A purchasable way to make one part's value.
 
-    value: the resulting value (SI); source: the series name or "inventory";
-    pieces: the values of the parts that make it (one, or two); connection:
-    "single", "parallel" or "series"; uses: (kind, value) of each drawer part used.
+    Attributes
+    ----------
+    value : float
+        The resulting value, SI (in ohm, H or F).
+    source : str
+        The series name, or ``"inventory"``.
+    pieces : tuple of float
+        The values of the parts that make it (one, or two), SI (in ohm, H or F).
+    connection : str
+        ``"single"``, ``"parallel"`` or ``"series"``.
+    uses : tuple
+        (kind, value) of each drawer part used; empty for a series value.
     """
 
     value: float
@@ -39,13 +48,36 @@ class Choice:
     uses: tuple = ()
 
     def describe(self, unit: str) -> str:
-        """The choice as the console and parts.csv write it (:func:`combination_text`), in ``unit`` ("ohm", ...)."""
+        """The choice as the console and parts.csv write it (:func:`combination_text`).
+
+        Parameters
+        ----------
+        unit : str
+            The unit the values are written in (``xo_fit.constants.PART_UNIT`` of the part's kind).
+
+        Returns
+        -------
+        str
+            E.g. "4.7 µF || 1 µF".
+        """
         return combination_text(self.connection, [format_value(p, unit) for p in self.pieces])
 
 
 def combination_text(connection: str, texts: list[str]) -> str:
-    """One notation for a part made of two, in the console, parts.csv and the report: "4.7 µF || 1 µF" in
-    parallel, "2.2 Ω + 1 Ω" in series."""
+    """One notation for a part made of two, in the console, parts.csv and the report.
+
+    Parameters
+    ----------
+    connection : str
+        ``"single"``, ``"parallel"`` or ``"series"``.
+    texts : list of str
+        Each piece's value as text.
+
+    Returns
+    -------
+    str
+        The single text, "4.7 µF || 1 µF" in parallel or "2.2 Ω + 1 Ω" in series.
+    """
     if connection == "single":
         return texts[0]
     return (" || " if connection == "parallel" else " + ").join(texts)
@@ -70,9 +102,39 @@ def _pool(kind: str, target: float, source: str, inventory: Inventory | None) ->
 def choices_for(kind: str, target: float, source: str, *, inventory: Inventory | None = None, combine: int = 1,
                 lo: float | None = None, hi: float | None = None, k: int = NEIGHBOURS,
                 top_up: str | None = None) -> list[Choice]:
-    """The choices of one part: the nearest purchasable values (k each side) and the best pairs; with a drawer
-    and ``top_up`` (a series name), also the nearest values of that series, to be bought where the drawer
-    lacks them (they count against no stock)."""
+    """The choices of one part: the nearest purchasable values and, with ``combine`` = 2, the best pairs.
+
+    Parameters
+    ----------
+    kind : str
+        ``"R"``, ``"L"`` or ``"C"``.
+    target : float
+        The continuous value, SI (in ohm, H or F).
+    source : str
+        A series name (:mod:`xo_fit.series`), or ``"inventory"``: the drawer's values.
+    inventory : Inventory, optional
+        The drawer (:class:`~xo_fit.io.inventory.Inventory`); needed where ``source`` is ``"inventory"``.
+    combine : int
+        1: single parts; 2: also up to PAIRS_PER_PART two-part combinations nearer ``target`` than every single
+        (dimensionless).
+    lo, hi : float, optional
+        The part's allowed range, SI (in ohm, H or F): series values keep to it where they can, pairs always.
+    k : int
+        Single values on each side of the log-nearest one (dimensionless).
+    top_up : str, optional
+        With a drawer, a series whose nearest values are offered too, to be bought where the drawer lacks
+        them (they count against no stock).
+
+    Returns
+    -------
+    list of Choice
+        The singles in ascending value, then the top-up values, then the pairs, nearest first.
+
+    Raises
+    ------
+    XoFitError
+        Where the drawer holds no part of ``kind``.
+    """
     out: list[Choice] = []
     if source == "inventory":
         assert inventory is not None, "a part takes its values from the drawer only when there is one"
@@ -104,6 +166,19 @@ def choices_for(kind: str, target: float, source: str, *, inventory: Inventory |
 
 
 def log_nearest_index(choices: list[Choice], target: float) -> int:
-    """Index of the single-part choice nearest to target in log distance (the rounding baseline)."""
+    """Index of the single-part choice nearest to ``target`` in log distance (the rounding baseline).
+
+    Parameters
+    ----------
+    choices : list of Choice
+        A part's choices (:func:`choices_for`).
+    target : float
+        The continuous value, SI (in ohm, H or F).
+
+    Returns
+    -------
+    int
+        The index into ``choices`` (dimensionless); of two equally near, the larger value.
+    """
     singles = [i for i, c in enumerate(choices) if c.connection == "single"]
     return min(singles, key=lambda i: (abs(np.log(choices[i].value / target)), -choices[i].value))

@@ -36,8 +36,23 @@ from xo_fit.units import format_value
 
 @dataclass(frozen=True)
 class SnappedPart:
-    """One valued part after the snap: its ``continuous`` and snapped ``value`` (SI: ohm, H or F), its ``kind``, the
-    value's ``source`` and the ``choice`` made (None for fixed and continuous parts)."""
+    """One valued part after the snap.
+
+    Attributes
+    ----------
+    name : str
+        The part's name.
+    kind : str
+        ``"R"``, ``"L"`` or ``"C"``.
+    continuous : float
+        Its value before the snap, SI (in ohm, H or F).
+    value : float
+        Its value after the snap, SI (in ohm, H or F).
+    source : str
+        A series name, ``"inventory"``, ``"continuous"`` or ``"fixed"``.
+    choice : Choice or None
+        The choice made; None for fixed and continuous parts.
+    """
     name: str
     kind: str
     continuous: float
@@ -48,8 +63,21 @@ class SnappedPart:
 
 @dataclass(frozen=True, eq=False)
 class SnapOutcome:
-    """A snap: every valued part (:class:`SnappedPart`), the snapped and continuous designs (P,), SI, the choice
-    search (None where no part snaps) and the snap's wall time in ``seconds`` (s)."""
+    """What a snap computed.
+
+    Attributes
+    ----------
+    parts : tuple of SnappedPart
+        Every valued part, in the job's part order.
+    values : ndarray
+        The snapped design, SI (ohm, H, F), shape (P,).
+    continuous : ndarray
+        The design it started from, SI (ohm, H, F), shape (P,).
+    search : SnapSearch or None
+        The choice search; None where no part snaps.
+    seconds : float
+        The snap's wall time, in s.
+    """
     parts: tuple[SnappedPart, ...]
     values: np.ndarray  # (P,) the snapped design
     continuous: np.ndarray  # (P,) the design it started from
@@ -58,7 +86,25 @@ class SnapOutcome:
 
 
 def part_sources(job, series_override: dict | None, inventory: Inventory | None) -> dict[str, str]:
-    """Where each valued part's value comes from: a series name, "inventory", "none" (continuous) or "fixed"."""
+    """Where each valued part's value comes from.
+
+    A part's own ``series`` first; else the drawer where it holds parts of the kind; else the [snap] series of
+    its kind (``series_override`` first).
+
+    Parameters
+    ----------
+    job : Job
+        The job (:class:`~xo_fit.job.model.Job`).
+    series_override : dict or None
+        Kind (``"R"``, ``"L"``, ``"C"``) -> series name, over the job's [snap] series.
+    inventory : Inventory or None
+        The drawer (:class:`~xo_fit.io.inventory.Inventory`).
+
+    Returns
+    -------
+    dict
+        Part name -> a series name, ``"inventory"``, ``"none"`` (continuous) or ``"fixed"``.
+    """
     series = dict(job.snap.series)
     series.update(series_override or {})
     out = {}
@@ -79,7 +125,35 @@ def part_sources(job, series_override: dict | None, inventory: Inventory | None)
 def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = None,
              inventory: Inventory | None = None, combine: int | None = None, seed: int | None = None,
              top_up: str | None = None) -> SnapOutcome:
-    """Snap design ``continuous`` (P,), SI, of ``system`` to purchasable values with the job's cost."""
+    """Snap a design to purchasable values with the job's cost (see the module).
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    continuous : ndarray
+        The design to snap, SI (ohm, H, F), shape (P,).
+    series_override : dict, optional
+        Kind (``"R"``, ``"L"``, ``"C"``) -> series name, over the job's [snap] series.
+    inventory : Inventory, optional
+        The drawer (:class:`~xo_fit.io.inventory.Inventory`); its parts are never used more often than it holds.
+    combine : int, optional
+        1: single parts; 2: two-part combinations too (dimensionless); default the job's [snap] combine.
+    seed : int, optional
+        The random seed (dimensionless); default the job's [search] seed.
+    top_up : str, optional
+        A series to buy from where the drawer lacks a value (``"none"``: no top-up); default [snap] top_up.
+
+    Returns
+    -------
+    SnapOutcome
+        Every part's value and source, the snapped design and the choice search.
+
+    Raises
+    ------
+    XoFitError
+        Where the job has no way targets (JobError), or the drawer cannot make the design.
+    """
     import time
 
     from xo_fit.search.fitting import cost_function, limited_cost_function, require_cost_model
@@ -157,7 +231,23 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
 
 
 def parts_table(outcome: SnapOutcome, job, tolerance_defaults: dict) -> list[dict]:
-    """Rows of parts.csv: name, kind, value, text, source, tolerance, combination."""
+    """Rows of parts.csv, one a valued part.
+
+    Parameters
+    ----------
+    outcome : SnapOutcome
+        The snap.
+    job : Job
+        The job (:class:`~xo_fit.job.model.Job`; its parts' own tolerances).
+    tolerance_defaults : dict
+        Kind -> tolerance as a fraction (dimensionless), where a part gives none.
+
+    Returns
+    -------
+    list of dict
+        ``name``, ``kind``, ``value`` (SI), ``text``, ``source``, ``tolerance`` (e.g. "5%", or "") and
+        ``combination`` (e.g. "parallel: 4.7 µF || 1 µF", or "").
+    """
     from xo_fit.constants import PART_UNIT
 
     rows = []
@@ -176,7 +266,22 @@ def parts_table(outcome: SnapOutcome, job, tolerance_defaults: dict) -> list[dic
 def snap_warnings(outcome: SnapOutcome, continuous_cost: float | None, snapped_cost: float | None,
                   inventory: bool) -> list[str]:
     """One-line warnings for a snap that moved parts far from their continuous values or raised the cost by more
-    than half, each with what usually helps (--top-up, --combine 2, a finer series)."""
+    than half, each with what usually helps (--top-up, --combine 2, a finer series).
+
+    Parameters
+    ----------
+    outcome : SnapOutcome
+        The snap.
+    continuous_cost, snapped_cost : float or None
+        The costs before and after the snap (dimensionless); None: no cost to compare.
+    inventory : bool
+        Whether the snap took parts from a drawer (the advice differs).
+
+    Returns
+    -------
+    list of str
+        The warnings: parts moved more than FAR_STEPS E12 steps, a cost raised by more than FAR_COST.
+    """
     step = math.log(10.0) / 12  # one E12 step in log distance
     out = []
     far = []
