@@ -31,7 +31,7 @@ def _limited(text: str, limits: str) -> str:
 
 def _every_snap(system, continuous: np.ndarray) -> np.ndarray:
     """Every combination of the snap's choices (E12 neighbours of each continuous value): designs (N, P)."""
-    from xo_fit.stages.snapping import choices_for
+    from xo_fit.stages.choices import choices_for
 
     options = [[c.value for c in choices_for(p.type, v, system.job.snap.series[p.type], lo=p.min, hi=p.max)]
                for p, v in zip(system.job.valued_parts, continuous)]

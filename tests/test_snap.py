@@ -10,14 +10,16 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-import xo_fit.stages.snapping as snap_module
+import xo_fit.stages.choice_search as search_module
 from xo_fit.errors import DataError
 from xo_fit.search.fitting import cost_model
 from xo_fit.model.fused import FusedCost
 from xo_fit.job.reader import load_job
 from xo_fit.series import nearest
 from xo_fit.io.inventory import read_inventory
-from xo_fit.stages.snapping import _Evaluator, choices_for, log_nearest_index, run_snap, search_choices
+from xo_fit.stages.choice_search import ChoiceEvaluator, search_choices
+from xo_fit.stages.choices import choices_for, log_nearest_index
+from xo_fit.stages.snapping import run_snap
 from xo_fit.model.system import load_system
 
 from conftest import ladder_job
@@ -57,12 +59,12 @@ def test_heuristic_search_equals_brute_force_on_a_small_problem(bw3_system, monk
     parts = bw3_system.job.valued_parts
     options = [choices_for(p.type, v, "E12") for p, v in zip(parts, values)]
     base = np.array([log_nearest_index(o, v) for o, v in zip(options, values)])
-    ev = _Evaluator(fused, values.copy(), list(range(len(parts))), options)
+    ev = ChoiceEvaluator(fused, values.copy(), list(range(len(parts))), options)
     sizes = [len(o) for o in options]
     grid = np.array(list(itertools.product(*[range(n) for n in sizes])))
     brute = ev(grid)
-    monkeypatch.setattr(snap_module, "EXHAUSTIVE", 0)
-    res = search_choices(_Evaluator(fused, values.copy(), list(range(len(parts))), options), base)
+    monkeypatch.setattr(search_module, "EXHAUSTIVE", 0)
+    res = search_choices(ChoiceEvaluator(fused, values.copy(), list(range(len(parts))), options), base)
     assert not res.exhaustive
     assert res.cost == pytest.approx(float(brute.min()), rel=1e-12)
 

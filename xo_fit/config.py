@@ -40,7 +40,7 @@ CHUNK = 2048
 #: design every curve, driver and (off axis) position at every grid point: a large grid solves fewer at a time.
 CHUNK_VALUES = 2**25
 
-# ----------------------------------------------------------------------------- snap (xo_fit.stages.snapping)
+# ------------------------------------------------------------- snap (xo_fit.stages: snapping, choices, choice_search)
 
 #: Purchasable values on each side of the nearest one that a part may take.
 NEIGHBOURS = 2

@@ -46,7 +46,7 @@ def buy_section(rep) -> Markup:
 
 def _combination(entry: dict) -> str:
     """A snap's two-part combination as text ("parallel: 4.7 µF || 1 µF"), "" for none or a malformed one."""
-    from xo_fit.stages.snapping import combination_text
+    from xo_fit.stages.choices import combination_text
 
     comb = entry.get("combination")
     if not isinstance(comb, dict) or not isinstance(comb.get("parts"), list):
