@@ -133,14 +133,19 @@ class FitOutcome:
 @dataclass(frozen=True, eq=False)
 class FitProblem:
     """What a search of a job calls. fn maps cube points (B, n) to costs (B,) (with [limits], ``constrained``, to
-    (costs, total violations, each limit's signed excess)); space: the job's :class:`Space`; kernel: the build
-    that runs the cost (:func:`backend_of`, loaded); model: the job's cost model and targets."""
+    (costs, total violations, each limit's signed excess)); space: the job's :class:`Space`; model: the job's
+    cost model and targets; cost: the batch cost whose build runs (:func:`backend_of`)."""
 
     fn: Callable
     space: Space
     constrained: bool
-    kernel: str
     model: tuple[CostModel, Targets]
+    cost: object
+
+    @property
+    def kernel(self) -> str:
+        """Which build ran the cost so far (:func:`backend_of`)."""
+        return backend_of(self.cost)
 
     def start_cost(self) -> float | None:
         """The cost of the job's start values as the search judges them, or None without start values."""
@@ -149,9 +154,16 @@ class FitProblem:
         first = self.fn(self.space.u0[None])
         return float((first[0] if self.constrained else first)[0])
 
+    def warm(self) -> float | None:
+        """:meth:`start_cost`, and without start values one evaluation of the cube's centre: either way the
+        cost's build is loaded (a C build resolves on its first call), so that forked processes inherit it."""
+        if self.space.u0 is None:
+            self.fn(np.full((1, self.space.dims), 0.5))
+        return self.start_cost()
+
 
 def fit_problem(system) -> FitProblem:
-    """The job's :class:`FitProblem`, its cost kernel built and loaded."""
+    """The job's :class:`FitProblem` (its cost's build is loaded on its first call)."""
     job = system.job
     model = require_cost_model(system, "fit to")
     cm, _ = model
@@ -170,8 +182,8 @@ def fit_problem(system) -> FitProblem:
         # the limits are judged on the nominal design, as result.json judges them
         return cost if limited is None else (cost, *limited(values)[1:])
 
-    kernel = backend_of(getattr(limited, "__self__", None) if limited is not None else fused)
-    return FitProblem(fn=fn, space=space, constrained=limited is not None, kernel=kernel, model=model)
+    cost = getattr(limited, "__self__", None) if limited is not None else fused
+    return FitProblem(fn=fn, space=space, constrained=limited is not None, model=model, cost=cost)
 
 
 def search_problem(system) -> tuple:
@@ -229,7 +241,8 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     spec = system.job.search
     seeds = restart_seeds(spec.seed if seed is None else seed, workers)
     total = budget or spec.budget  # the processes share one budget
-    p = fit_problem(system)  # built here once: forked islands inherit it
+    p = fit_problem(system)  # built and loaded here once: forked islands inherit it
+    start = p.warm()
     problem = Problem(search_problem, system, built=(p.fn, p.space, p.constrained))
     runs, interrupted, clock = run_islands(problem, seeds, optimizer=optimizer or spec.optimizer, budget=total,
                                            time_limit=time_limit if time_limit is not None else spec.time_limit,
@@ -249,7 +262,7 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     if interrupted:
         result = dataclasses.replace(result, complete=False, stopped_by="interrupted")
     return FitOutcome(scored=score(system, p.space.values(result.u)[0], p.model), search=result,
-                      start_cost=p.start_cost(), kernel=p.kernel,
+                      start_cost=start, kernel=p.kernel,
                       islands={"runs": runs, "clock": clock}), summary
 
 

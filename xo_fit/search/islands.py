@@ -239,7 +239,7 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     all islands are polished, side by side, sharing what is left. Returns the islands' runs in seed order,
     whether the search was interrupted (Ctrl-C, SIGTERM), and the parent's clock (time.monotonic; ``start``:
     before the first process started, ``started``: after the last, ``searched``: every global search done,
-    ``gathered``: every island done).
+    ``gathered``: every island done; its CPU time at the first two as ``cpu_start``, ``cpu_started``).
     """
     import multiprocessing
 
@@ -249,7 +249,7 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
     options = {"optimizer": optimizer, "budget": max(1, global_budget // len(seeds)), "time_limit": time_limit,
                "exchange": exchange and exchanges(optimizer)}
-    clock = {"start": time.monotonic()}
+    clock = {"start": time.monotonic(), "cpu_start": time.process_time()}
     conns, procs = [], []
     for i, seed in enumerate(seeds):
         parent, child = ctx.Pipe()
@@ -258,7 +258,7 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
         child.close()
         conns.append(parent)
         procs.append(p)
-    clock["started"] = time.monotonic()
+    clock.update(started=time.monotonic(), cpu_started=time.process_time())
     coordinator = Coordinator(conns, event, budget if polish else 0)
     try:
         coordinator.run(clock)
