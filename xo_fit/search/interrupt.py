@@ -77,3 +77,26 @@ def sigterm_interrupts() -> Iterator[None]:
         yield
     finally:
         signal.signal(signal.SIGTERM, old)
+
+
+@contextlib.contextmanager
+def signals_set(event: Event) -> Iterator[list]:
+    """Inside, Ctrl-C and SIGTERM set ``event`` (a pool's: every worker stops at its next batch) instead of raising
+    KeyboardInterrupt in the main thread, so that a parent gathering its workers' results is never cut off
+    half-way; the yielded list receives each signal's number. The previous handlers come back afterwards.
+    Elsewhere than the main thread: nothing changes."""
+    got: list = []
+    if threading.current_thread() is not threading.main_thread():
+        yield got
+        return
+
+    def note(signum, frame) -> None:
+        got.append(signum)
+        event.set()
+
+    old = {s: signal.signal(s, note) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield got
+    finally:
+        for s, handler in old.items():
+            signal.signal(s, handler)

@@ -35,7 +35,7 @@ import numpy as np
 from xo_fit.config import MAX_POPULATION, POLISH_BASINS, POLISH_SHARE
 from xo_fit.search.engines import Objective, SearchResult, polish_from, population_size, search
 from xo_fit.search.feasibility import feasibility_key
-from xo_fit.search.interrupt import stop_requested, worker_init
+from xo_fit.search.interrupt import signals_set, stop_requested, worker_init
 
 #: An epoch: this many generations of a first JADE population (population_size of the free values) between two
 #: exchanges, when islands exchange (benchmarks/workers.py): every 10 generations the demo's 2-worker fits at
@@ -250,29 +250,45 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     options = {"optimizer": optimizer, "budget": max(1, global_budget // len(seeds)), "time_limit": time_limit,
                "exchange": exchange and exchanges(optimizer)}
     clock = {"start": time.monotonic(), "cpu_start": time.process_time()}
-    conns, procs = [], []
-    for i, seed in enumerate(seeds):
-        parent, child = ctx.Pipe()
-        p = ctx.Process(target=_island, args=(i, child, problem, seed, options, event, keep), daemon=True)
-        p.start()
-        child.close()
-        conns.append(parent)
-        procs.append(p)
-    clock.update(started=time.monotonic(), cpu_started=time.process_time())
+    conns: list = []
+    procs: list = []
     coordinator = Coordinator(conns, event, budget if polish else 0)
-    try:
-        coordinator.run(clock)
-    finally:
-        clock["gathered"] = time.monotonic()
-        if len(coordinator.done) < len(procs):  # the parent failed: no island outlives it
-            event.set()
-        for p in procs:
-            p.join(timeout=5)
-            if p.is_alive():
-                p.kill()
+    with signals_set(event) as signals:  # a signal now stops the islands; the parent gathers what they found
+        try:
+            try:
+                for i, seed in enumerate(seeds):
+                    parent, child = ctx.Pipe()
+                    p = ctx.Process(target=_island, args=(i, child, problem, seed, options, event, keep),
+                                    daemon=True)
+                    p.start()
+                    child.close()
+                    conns.append(parent)
+                    procs.append(p)
+            except KeyboardInterrupt:  # (outside the main thread) the islands started so far stop
+                event.set()
+            clock.update(started=time.monotonic(), cpu_started=time.process_time())
+            coordinator.run(clock)
+        finally:
+            clock["gathered"] = time.monotonic()
+            _reap(procs, event, len(coordinator.done) < len(procs))
     runs = [coordinator.done.get(i) or coordinator.searched.get(i) or IslandRun(result=None)
-            for i in range(len(seeds))]
-    return runs, coordinator.stopping, clock
+            for i in range(len(seeds))]  # an island that never started: no result
+    return runs, coordinator.stopping or bool(signals), clock
+
+
+def _reap(procs: list, event, failed: bool) -> None:
+    """Wait for the islands' processes to end (each has sent its run); where the parent failed, stop them first.
+    None outlives the call, also when a signal comes meanwhile."""
+    if failed:
+        event.set()
+    for p in procs:
+        try:
+            p.join(timeout=5)
+        except KeyboardInterrupt:
+            event.set()
+        if p.is_alive():
+            p.kill()
+            p.join(timeout=1)
 
 
 class Coordinator:
@@ -284,7 +300,7 @@ class Coordinator:
         self.conns = conns
         self.event = event
         self.budget = budget  # the whole search's (0: no polish)
-        self.posts: list[list] = [[] for _ in conns]  # (epoch, migrant) in the order posted
+        self.posts: dict[int, list] = {}  # island -> (epoch, migrant) in the order posted
         self.waiting: dict[int, int] = {}  # island -> the epoch it waits at
         self.searched: dict[int, IslandRun | None] = {}
         self.done: dict[int, IslandRun | None] = {}
@@ -292,14 +308,16 @@ class Coordinator:
         self.stopping = False
 
     def run(self, clock: dict) -> None:
-        """Serve the islands until each is done; on Ctrl-C or SIGTERM set the event (every island stops at its
-        next batch and skips the polish) and go on gathering."""
+        """Serve the islands until each is done; once the event is set (Ctrl-C or SIGTERM: every island stops at
+        its next batch and skips the polish) answer at once and go on gathering."""
         from multiprocessing.connection import wait
 
         while len(self.done) < len(self.conns):
             try:
+                self.stopping = self.stopping or self.event.is_set()
                 for conn in wait([c for i, c in enumerate(self.conns) if i not in self.done]):
                     self.receive(self.conns.index(conn))
+                self.stopping = self.stopping or self.event.is_set()
                 self.answer()
                 if not self.ordered and len(self.searched) == len(self.conns):
                     clock["searched"] = time.monotonic()
@@ -316,7 +334,7 @@ class Coordinator:
             self.done[i] = None
             return
         if message[0] == "post":
-            self.posts[i].append((message[1], message[2]))
+            self.posts.setdefault(i, []).append((message[1], message[2]))
             self.waiting[i] = message[1]
         elif message[0] == "searched":
             self.searched[i] = message[1]
@@ -328,7 +346,7 @@ class Coordinator:
         """(ready, migrant) for island i waiting at ``epoch``: its predecessor's post at that epoch or later, else
         its final best once its search is done, else not ready."""
         pred = (i - 1) % len(self.conns)
-        for k, m in self.posts[pred]:
+        for k, m in self.posts.get(pred, ()):
             if k >= epoch:
                 return True, m
         if pred in self.searched:
