@@ -3,6 +3,8 @@ feasibility-first order, the islands reach the handbook optimum, a seed gives on
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -138,3 +140,50 @@ def test_the_polish_goes_to_the_best_distinct_basins_of_all_islands():
     order = [u[0] for v in plan.values() for u, _ in v]
     assert sorted(order) == [0.1, 0.2, 0.3] and plan[0][0][0][0] == 0.2 and plan[1][0][0][0] == 0.3
     assert polish_plan(runs, 0) == {}
+
+
+def _running(pid: int) -> bool:
+    """Whether process ``pid`` runs (exists and is no zombie), from /proc."""
+    try:
+        return Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0] != "Z"
+    except (FileNotFoundError, ProcessLookupError, IndexError):
+        return False
+
+
+@pytest.mark.skipif(not Path("/proc/self/task").exists(), reason="reads /proc")
+def test_no_island_outlives_a_killed_parent(tmp_path):
+    """[CP] kill -9 of `xo-fit fit --workers 2` must not leave islands running (they used to block forever on a
+    pipe their own fork held open): each notices that its parent is gone at its next batch and ends."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    job = tmp_path / "job.toml"
+    job.write_text(ladder_job("LR4", start=2.0, spread=4.0)[0])
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    proc = subprocess.Popen([sys.executable, "-m", "xo_fit", "fit", str(job), "--out", str(tmp_path / "o"),
+                             "--budget", "100000000", "--workers", "2", "--no-plots"], env=env,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    children: list[int] = []
+    deadline = time.monotonic() + 60
+    while len(children) < 2 and time.monotonic() < deadline:
+        time.sleep(0.2)
+        try:
+            children = [int(x) for x in Path(f"/proc/{proc.pid}/task/{proc.pid}/children").read_text().split()]
+        except FileNotFoundError:
+            children = []
+    if len(children) < 2:
+        proc.kill()
+        pytest.fail("the islands did not start")
+    time.sleep(0.5)  # searching
+    proc.kill()
+    proc.wait()
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline and any(_running(c) for c in children):
+        time.sleep(0.1)
+    alive = [c for c in children if _running(c)]
+    for c in alive:  # clean up before failing
+        os.kill(c, signal.SIGKILL)
+    assert not alive

@@ -143,10 +143,7 @@ class Migration:
         self.conn.send(("post", epoch, (obj.best_cost, obj.best_violation, obj.best_u)))
         if self.keep:
             self.posted.append((epoch, obj.evaluations))
-        while not self.conn.poll(0.05):
-            if stop_requested():  # the parent stops every island: no migrant now
-                return
-        migrant = self.conn.recv()
+        migrant = _wait(self.conn)  # None: the parent stops every island, no migrant now
         self.waited += time.monotonic() - t
         if migrant is not None and self.enter(migrant, pop, fit, rank, best):
             self.received += 1
@@ -177,11 +174,15 @@ class Migration:
         return True
 
 
-def _island(index: int, conn, problem: Problem, seed: int, options: dict, event, keep: bool) -> None:
+def _island(index: int, conn, problem: Problem, seed: int, options: dict, event, keep: bool,
+            inherited: list) -> None:
     """One island's process: its global search from ``seed``, ("searched", IslandRun) to the parent; then the
-    polish the parent asks for, if any, and ("done", IslandRun)."""
+    polish the parent asks for, if any, and ("done", IslandRun). ``inherited``: the parent's ends of the pipes
+    (its own and the islands' before it) that a fork copied, closed at once, so that a pipe ends with the parent."""
     began = time.monotonic()
     worker_init(event)
+    for c in inherited:
+        c.close()
     run = IslandRun(result=None, clock={"began": began})
     try:
         fn, space, constrained = problem.get()
@@ -212,16 +213,22 @@ def _island(index: int, conn, problem: Problem, seed: int, options: dict, event,
             run.error = RuntimeError(f"{type(e).__name__}: {e}")
     finally:
         run.clock.update(ended=time.monotonic(), cpu_ended=time.process_time())
-        conn.send(("done", run))
-        conn.close()
+        try:
+            conn.send(("done", run))
+            conn.close()
+        except OSError:  # the parent is gone
+            pass
 
 
 def _wait(conn):
-    """The parent's next message, or None once this island is asked to stop."""
+    """The parent's next message, or None once this island is asked to stop (or the parent is gone)."""
     while not conn.poll(0.05):
         if stop_requested():
             return None
-    return conn.recv()
+    try:
+        return conn.recv()
+    except (EOFError, OSError):
+        return None
 
 
 def exchanges(optimizer: str) -> bool:
@@ -256,9 +263,11 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     with signals_set(event) as signals:  # a signal now stops the islands; the parent gathers what they found
         try:
             try:
+                forked = ctx.get_start_method() == "fork"
                 for i, seed in enumerate(seeds):
                     parent, child = ctx.Pipe()
-                    p = ctx.Process(target=_island, args=(i, child, problem, seed, options, event, keep),
+                    inherited = [*conns, parent] if forked else []
+                    p = ctx.Process(target=_island, args=(i, child, problem, seed, options, event, keep, inherited),
                                     daemon=True)
                     p.start()
                     child.close()
