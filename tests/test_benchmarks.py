@@ -18,7 +18,7 @@ BENCHMARKS = sorted((ROOT / "benchmarks").glob("*.py"))
 
 
 def test_there_are_benchmarks():
-    assert {p.stem for p in BENCHMARKS} >= {"batch", "fit", "solver", "startup"}
+    assert {p.stem for p in BENCHMARKS} >= {"batch", "fit", "solver", "startup", "workers"}
 
 
 @pytest.mark.slow

@@ -177,8 +177,9 @@ def test_workers_run_independent_restarts_and_keep_the_best(write_job, cli, tmp_
     runs = r["search"]["workers"]
     assert len(runs) == 2 and runs[0]["seed"] == 1 and runs[1]["seed"] != 1
     assert r["cost"] == pytest.approx(min(x["cost"] for x in runs), rel=1e-9, abs=1e-15)
-    # one budget shared: each process had half of it, and the result names the winner's seed
-    assert all(x["evaluations"] <= 1000 for x in runs) and r["search"]["evaluations"] <= 2000
+    # one budget shared: each island's global search had half of its 85 % share (850), the polish of the best
+    # basins of both shares the rest; the result names the winner's seed
+    assert all(x["evaluations"] <= 850 + 300 for x in runs) and r["search"]["evaluations"] <= 2000
     assert r["search"]["seed"] == min(runs, key=lambda x: x["cost"])["seed"]
     # deterministic: the same command gives the same values
     code, _, _ = cli("fit", job, "--out", tmp_path / "w2", "--workers", "2", "--budget", "2000", "--no-plots")

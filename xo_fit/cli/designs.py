@@ -74,8 +74,9 @@ def fit(job: Path = typer.Argument(..., help="The job file (TOML)."),
         time_limit: float | None = typer.Option(None, "--time-limit", min=0.0,
                                                    help="Stop after this many seconds and keep the best so far."),
         workers: int = typer.Option(1, "--workers", min=1, max=64,
-                                    help="Processes sharing the budget, each from a seed derived from the job's; "
-                                         "the best wins and the result names its seed."),
+                                    help="Processes sharing the budget as islands, each searching from a seed "
+                                         "derived from the job's; the best basins of all are polished side by "
+                                         "side, the best design wins and the result names its seed."),
         no_plots: bool = typer.Option(False, "--no-plots", help="Skip the PNG (faster)."),
         ) -> None:
     """Search the free part values that best meet the job's acoustic target, then polish locally."""

@@ -138,6 +138,9 @@ class Objective:
     best_violation: float = 0.0
     best_key: float = math.inf  # the best's feasibility key (its cost when not constrained)
     last_excess: np.ndarray | None = None  # constrained: each limit's signed excess (B, L) of the last batch
+    #: islands (:mod:`xo_fit.search.islands`): called after each JADE generation as exchange(obj, pop, fit, rank,
+    #: best); it may put migrants into the population (rows of pop, fit and rank's arrays, in place) and best
+    exchange: Callable | None = None
 
     def __call__(self, u: np.ndarray) -> np.ndarray:
         cost, violation = self.evaluate(u)
@@ -201,6 +204,7 @@ class SearchResult:
     basins: tuple = ()  # the best cost each restart reached before the polish
     violation: float = 0.0  # the result's total violation of the [limits] (0: every limit met, or none)
     basin_violations: tuple = ()  # with limits: the total violation of each restart's best
+    points: tuple = ()  # the best point (n,) of each restart, as basins
 
 
 def population_size(n: int) -> int:
@@ -274,6 +278,8 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
             run_best = rank.best(pop)
             if run_best[0] < best[0]:
                 best[:] = run_best
+        if obj.exchange is not None:
+            obj.exchange(obj, pop, fit, rank, best)
         trace.append(best[0])
         if rank is not None and not rank.settled:
             continue  # epsilon still falling: the run goes on
@@ -380,12 +386,14 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
 
 def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int = 20000,
            seed: int = 1, time_limit: float | None = None, polish: bool = True,
-           progress: Callable[[int, int, float], None] | None = None, constrained: bool = False) -> SearchResult:
+           progress: Callable[[int, int, float], None] | None = None, constrained: bool = False,
+           exchange: Callable | None = None) -> SearchResult:
     """Minimise fn over the space's unit cube within ``budget`` evaluations.
 
     fn: cube points (B, n) -> costs (B,); with ``constrained``, -> (costs (B,), total violations (B,)) and the
-    search is feasibility first (see the module's docstring). Returns the best point found, whether the
-    search ran to its end (``complete``), and what stopped it otherwise.
+    search is feasibility first (see the module's docstring). ``exchange``: an island's migration between JADE
+    generations (:attr:`Objective.exchange`). Returns the best point found, whether the search ran to its end
+    (``complete``), and what stopped it otherwise.
     """
     run = engine(optimizer)
     name = DEFAULT_ENGINE if optimizer == "auto" else optimizer
@@ -393,7 +401,8 @@ def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int =
     deadline = t0 + time_limit if time_limit is not None else None
     rng = np.random.default_rng(np.random.SeedSequence(seed))
     global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
-    obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress, constrained=constrained)
+    obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress, constrained=constrained,
+                    exchange=exchange)
     interrupted = False
     failed = False
     try:
@@ -451,4 +460,26 @@ def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int =
                         seconds=time.monotonic() - t0, optimizer=name, seed=seed, complete=complete,
                         stopped_by=obj.stopped_by, history=tuple(obj.history), restarts=max(len(basins), 1),
                         best_restart=winner, basins=tuple(costs), violation=obj.best_violation,
-                        basin_violations=tuple(violations))
+                        basin_violations=tuple(violations), points=tuple(b[1] for b in basins))
+
+
+def polish_from(fn: Callable, space: Space, start: np.ndarray, *, budget: int,
+                constrained: bool = False) -> SearchResult | None:
+    """The polish of :func:`search` alone (L-BFGS-B, under limits the augmented Lagrangian of
+    :func:`~xo_fit.search.feasibility.polish_limited`) from ``start`` (n,) within ``budget`` evaluations: an
+    island's share of a search's polish (:mod:`xo_fit.search.islands`). The result is never worse than ``start``
+    (its first evaluation); None when stopped before it."""
+    t0 = time.monotonic()
+    obj = Objective(fn=fn, budget=budget, constrained=constrained)
+    try:
+        (polish_limited if constrained else _polish)(obj, space.dims, np.asarray(start, dtype=float))
+    except _Stop:
+        pass
+    except KeyboardInterrupt:
+        obj.stopped_by = "interrupted"
+    if obj.best_u is None:
+        return None
+    return SearchResult(u=obj.best_u, cost=obj.best_cost, evaluations=obj.evaluations,
+                        seconds=time.monotonic() - t0, optimizer="polish", seed=0,
+                        complete=obj.stopped_by != "interrupted", stopped_by=obj.stopped_by,
+                        history=tuple(obj.history), violation=obj.best_violation)

@@ -7,13 +7,14 @@ cost, its terms and the metrics that result.json carries.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
 from xo_fit.model.cost import CostModel, simulation_metrics
 from xo_fit.model.fused import FusedCost
-from xo_fit.search.engines import SearchResult, make_space, search
+from xo_fit.search.engines import SearchResult, Space, make_space, search
 from xo_fit.model.targets import Targets, build_targets
 
 
@@ -126,13 +127,44 @@ class FitOutcome:
     search: SearchResult
     start_cost: float | None
     kernel: str | None = None  # which build ran the cost: "c", "numba", or "numpy" (the reference cost)
+    islands: dict | None = None  # --workers: "runs" (xo_fit.search.islands.IslandRun each) and the parent's "clock"
 
 
-def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, seed: int | None = None,
-            time_limit: float | None = None, progress=None) -> FitOutcome:
-    """Global search and polish of the job's free values; arguments override the job's [search]."""
+@dataclass(frozen=True, eq=False)
+class FitProblem:
+    """What a search of a job calls. fn maps cube points (B, n) to costs (B,) (with [limits], ``constrained``, to
+    (costs, total violations, each limit's signed excess)); space: the job's :class:`Space`; model: the job's
+    cost model and targets; cost: the batch cost whose build runs (:func:`backend_of`)."""
+
+    fn: Callable
+    space: Space
+    constrained: bool
+    model: tuple[CostModel, Targets]
+    cost: object
+
+    @property
+    def kernel(self) -> str:
+        """Which build ran the cost so far (:func:`backend_of`)."""
+        return backend_of(self.cost)
+
+    def start_cost(self) -> float | None:
+        """The cost of the job's start values as the search judges them, or None without start values."""
+        if self.space.u0 is None:
+            return None
+        first = self.fn(self.space.u0[None])
+        return float((first[0] if self.constrained else first)[0])
+
+    def warm(self) -> float | None:
+        """:meth:`start_cost`, and without start values one evaluation of the cube's centre: either way the
+        cost's build is loaded (a C build resolves on its first call), so that forked processes inherit it."""
+        if self.space.u0 is None:
+            self.fn(np.full((1, self.space.dims), 0.5))
+        return self.start_cost()
+
+
+def fit_problem(system) -> FitProblem:
+    """The job's :class:`FitProblem` (its cost's build is loaded on its first call)."""
     job = system.job
-    spec = job.search
     model = require_cost_model(system, "fit to")
     cm, _ = model
     space = make_space(job)
@@ -150,16 +182,29 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
         # the limits are judged on the nominal design, as result.json judges them
         return cost if limited is None else (cost, *limited(values)[1:])
 
-    start = None
-    if space.u0 is not None:
-        first = fn(space.u0[None])
-        start = float((first if limited is None else first[0])[0])
-    result = search(fn, space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,
+    cost = getattr(limited, "__self__", None) if limited is not None else fused
+    return FitProblem(fn=fn, space=space, constrained=limited is not None, model=model, cost=cost)
+
+
+def search_problem(system) -> tuple:
+    """(fn, space, constrained) of the job's :class:`FitProblem`: what an island of :func:`run_fit_restarts`
+    searches."""
+    p = fit_problem(system)
+    return p.fn, p.space, p.constrained
+
+
+def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, seed: int | None = None,
+            time_limit: float | None = None, progress=None) -> FitOutcome:
+    """Global search and polish of the job's free values; arguments override the job's [search]."""
+    spec = system.job.search
+    p = fit_problem(system)
+    start = p.start_cost()
+    result = search(p.fn, p.space, optimizer=optimizer or spec.optimizer, budget=budget or spec.budget,
                     seed=spec.seed if seed is None else seed,
                     time_limit=time_limit if time_limit is not None else spec.time_limit,
-                    polish=spec.polish, progress=progress, constrained=limited is not None)
-    return FitOutcome(scored=score(system, space.values(result.u)[0], model), search=result, start_cost=start,
-                      kernel=backend_of(getattr(limited, "__self__", None) if limited is not None else fused))
+                    polish=spec.polish, progress=progress, constrained=p.constrained)
+    return FitOutcome(scored=score(system, p.space.values(result.u)[0], p.model), search=result, start_cost=start,
+                      kernel=p.kernel)
 
 
 def backend_of(cost) -> str:
@@ -172,68 +217,53 @@ def backend_of(cost) -> str:
     return kernel_backend(cost.kernel()) or "numba"
 
 
-def _fit_worker(args):
-    """One restart in a worker process: (system, optimizer, budget, seed, time_limit) -> (seed, cost, u)."""
-    system, optimizer, budget, seed, time_limit = args
-    out = run_fit(system, optimizer=optimizer, budget=budget, seed=seed, time_limit=time_limit)
-    return seed, out.search, out.scored.values, out.kernel
-
-
 def restart_seeds(seed: int, n: int) -> list[int]:
-    """The seeds of n independent restarts derived from one seed (the first restart uses the seed itself)."""
+    """The seeds of n islands (or restarts) derived from one seed (the first uses the seed itself)."""
     children = np.random.SeedSequence(seed).spawn(max(n - 1, 0))
     return [seed] + [int(c.generate_state(1)[0]) for c in children]
 
 
 def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budget: int | None = None,
-                     seed: int | None = None, time_limit: float | None = None) -> tuple[FitOutcome, list[dict]]:
-    """``workers`` independent fits from derived seeds in as many processes, sharing one budget; the best wins.
+                     seed: int | None = None, time_limit: float | None = None,
+                     exchange: bool = False) -> tuple[FitOutcome, list[dict]]:
+    """One fit on ``workers`` processes: islands from seeds derived from the seed that share one budget
+    (:mod:`xo_fit.search.islands`); the best basins of all are polished side by side and the best design wins.
+    ``exchange``: the islands also exchange their best every few generations (measured no better on the demo
+    and the three-ways, so off by default; benchmarks/workers.py).
 
-    Whole searches are distributed, never single evaluations (those cost more to ship than to compute).
-    Returns the winner and one summary per restart (seed, cost, evaluations, complete).
+    Returns the winner (its ``islands``: each island's run and the parent's clock) and one summary per island
+    (seed, cost, evaluations with its share of the polish, complete, restarts, kernel).
     """
     import dataclasses
-    from concurrent.futures import wait
 
-    from xo_fit.search.interrupt import stopping_pool
+    from xo_fit.search.islands import Problem, run_islands
 
-    base = system.job.search.seed if seed is None else seed
-    seeds = restart_seeds(base, workers)
-    total = budget or system.job.search.budget
-    budget = max(1, total // workers)  # the processes share one budget
-    pool, stop = stopping_pool(workers)
-    interrupted = False
-    with pool:
-        futures = [pool.submit(_fit_worker, (system, optimizer, budget, s_, time_limit)) for s_ in seeds]
-        try:
-            wait(futures)
-        except KeyboardInterrupt:  # Ctrl-C or SIGTERM: every worker stops and returns its best so far
-            interrupted = True
-            stop.set()
-        results = []
-        for fut in futures:
-            try:
-                results.append(fut.result())
-            except Exception:
-                if not interrupted:
-                    raise
-                # a worker stopped before its first evaluation (or died): the others' designs are kept
-    if not results:
-        raise KeyboardInterrupt
-    interrupted = interrupted or any(r.stopped_by == "interrupted" for _, r, _, _ in results)
-    runs = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
-             "restarts": r.restarts, "kernel": k} for s_, r, _, k in results]
+    spec = system.job.search
+    seeds = restart_seeds(spec.seed if seed is None else seed, workers)
+    total = budget or spec.budget  # the processes share one budget
+    p = fit_problem(system)  # built and loaded here once: forked islands inherit it
+    start = p.warm()
+    problem = Problem(search_problem, system, built=(p.fn, p.space, p.constrained))
+    runs, interrupted, clock = run_islands(problem, seeds, optimizer=optimizer or spec.optimizer, budget=total,
+                                           time_limit=time_limit if time_limit is not None else spec.time_limit,
+                                           polish=spec.polish, exchange=exchange)
+    errors = [run.error for run in runs if run.error is not None]
+    if errors and not interrupted:
+        raise errors[0]
+    done = [(s_, run, r) for s_, run in zip(seeds, runs) if (r := run.final()) is not None]
+    if not done:
+        raise KeyboardInterrupt  # every island stopped before its first evaluation
+    interrupted = interrupted or any(r.stopped_by == "interrupted" for _, _, r in done)
+    summary = [{"seed": s_, "cost": r.cost, "evaluations": r.evaluations, "complete": r.complete,
+                "restarts": r.restarts, "kernel": p.kernel} for s_, _, r in done]
     # feasibility first (a run's violation is 0 without limits): the feasible, then the smaller violation, cost
-    best = min(range(len(results)), key=lambda i: (results[i][1].violation > 0, results[i][1].violation,
-                                                   results[i][1].cost, i))
-    _, search_result, values, kernel = results[best]
+    best = min(range(len(done)), key=lambda i: (done[i][2].violation > 0, done[i][2].violation, done[i][2].cost, i))
+    result = done[best][2]
     if interrupted:
-        search_result = dataclasses.replace(search_result, complete=False, stopped_by="interrupted")
-    model = cost_model(system)
-    space = make_space(system.job)
-    start = score(system, space.values(space.u0)[0], model).cost if space.u0 is not None else None
-    return FitOutcome(scored=score(system, values, model), search=search_result, start_cost=start,
-                      kernel=kernel), runs
+        result = dataclasses.replace(result, complete=False, stopped_by="interrupted")
+    return FitOutcome(scored=score(system, p.space.values(result.u)[0], p.model), search=result,
+                      start_cost=start, kernel=p.kernel,
+                      islands={"runs": runs, "clock": clock}), summary
 
 
 def target_db(s: Scored) -> np.ndarray | None:

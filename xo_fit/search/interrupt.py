@@ -23,15 +23,19 @@ if TYPE_CHECKING:
 class _StopState(TypedDict):
     flag: bool  # a signal arrived in this worker
     event: Event | None  # the pool's event, set by the parent to stop every worker
+    parent: int | None  # the parent's process id, in a worker
 
 
-_STOP: _StopState = {"flag": False, "event": None}
+_STOP: _StopState = {"flag": False, "event": None, "parent": None}
 
 
 def stop_requested() -> bool:
-    """Whether this worker process was asked to stop (a signal, or its parent through the pool's event)."""
+    """Whether this worker process was asked to stop (a signal, or its parent through the pool's event), or its
+    parent has died (the worker then belongs to another process)."""
     event = _STOP["event"]
-    return bool(_STOP["flag"] or (event is not None and event.is_set()))
+    parent = _STOP["parent"]
+    return bool(_STOP["flag"] or (event is not None and event.is_set())
+                or (parent is not None and os.getppid() != parent))
 
 
 def _note(signum, frame) -> None:
@@ -39,10 +43,11 @@ def _note(signum, frame) -> None:
 
 
 def worker_init(event: Event | None) -> None:
-    """Pool initializer: Ctrl-C or SIGTERM in a worker, or ``event`` set by the parent, stops its search (which
-    returns its best so far); the worker's numerical libraries use one thread each."""
+    """Pool initializer: Ctrl-C or SIGTERM in a worker, ``event`` set by the parent, or the parent's death stops its
+    search (which returns its best so far); the worker's numerical libraries use one thread each."""
     _STOP["flag"] = False
     _STOP["event"] = event
+    _STOP["parent"] = os.getppid()
     signal.signal(signal.SIGINT, _note)
     signal.signal(signal.SIGTERM, _note)
     for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -88,3 +93,26 @@ def sigterm_interrupts() -> Iterator[None]:
         yield
     finally:
         signal.signal(signal.SIGTERM, old)
+
+
+@contextlib.contextmanager
+def signals_set(event: Event) -> Iterator[list]:
+    """Inside, Ctrl-C and SIGTERM set ``event`` (a pool's: every worker stops at its next batch) instead of raising
+    KeyboardInterrupt in the main thread, so that a parent gathering its workers' results is never cut off
+    half-way; the yielded list receives each signal's number. The previous handlers come back afterwards.
+    Elsewhere than the main thread: nothing changes."""
+    got: list = []
+    if threading.current_thread() is not threading.main_thread():
+        yield got
+        return
+
+    def note(signum, frame) -> None:
+        got.append(signum)
+        event.set()
+
+    old = {s: signal.signal(s, note) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        yield got
+    finally:
+        for s, handler in old.items():
+            signal.signal(s, handler)
