@@ -149,8 +149,9 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
     time_limit : float, optional
         Stop after this long, in s, and keep the best so far; default the job's (none: no limit).
     workers : int
-        Processes (dimensionless). Above 1, that many independent searches from seeds derived from ``seed``
-        share the budget and the best wins; ``progress`` is then not called. Default 1.
+        Processes (dimensionless). Above 1, the search runs as that many islands forked from this process
+        (seeds derived from ``seed``), each on an equal share of the global search; their best basins are
+        polished side by side and the best wins; ``progress`` is then not called. Default 1.
     progress : callable, optional
         Called as ``progress(evaluations, budget, best_cost)`` while a single search runs.
 
