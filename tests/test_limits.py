@@ -73,11 +73,12 @@ def test_the_kernel_computes_each_limits_excess_as_the_reference_does():
     cm, _ = cost_model(system)
     fused = FusedCost(cm)
     space = make_space(system.job)
-    # random designs, and designs about a limited fit (which sits on the limits: both sides are exercised)
+    # random designs, a limited fit (inside every limit, on the active ones) and designs about it: both sides
     fitted = api.fit(system, budget=4000).array[space.columns]
     centre = (np.log(fitted) - space.lo) / (space.hi - space.lo)
     rng = np.random.default_rng(3)
-    u = np.vstack([rng.random((32, space.dims)), np.clip(centre + 0.02 * rng.standard_normal((48, space.dims)), 0, 1)])
+    u = np.vstack([rng.random((32, space.dims)), centre[None],
+                   np.clip(centre + 0.02 * rng.standard_normal((48, space.dims)), 0, 1)])
     values = space.values(u)
     raw = fused.evaluate_raw(values)
     ev = cm.evaluate(values)
