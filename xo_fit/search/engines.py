@@ -60,7 +60,7 @@ import numpy as np
 from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
                            POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
-from xo_fit.search.feasibility import EpsilonLevel, Stop, feasibility_key, polish_limited
+from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.lbfgsb import minimize_box
 
@@ -392,7 +392,8 @@ def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int =
     t0 = time.monotonic()
     deadline = t0 + time_limit if time_limit is not None else None
     rng = np.random.default_rng(np.random.SeedSequence(seed))
-    global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
+    share = LIMITED_POLISH_SHARE if constrained else POLISH_SHARE
+    global_budget = budget if not polish else max(1, int(budget * (1 - share)))
     obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress, constrained=constrained)
     interrupted = False
     failed = False
