@@ -36,11 +36,10 @@ where not), so JADE's selection, archive, p-best ranking and best-so-far, the
 restarts' basins, scipy's DE and nevergrad all follow it; the best design kept
 is the best by it. Inside a JADE run the comparisons count violations up to an
 epsilon as none, epsilon falling to 0 over half of the run
-(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish needs a
-continuous function for its gradients: it minimises an augmented Lagrangian of
-each limit's signed excess and projects an infeasible end back to feasibility
-by bisection toward the best feasible point
-(:func:`xo_fit.search.feasibility.polish_limited`).
+(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish, which then
+gets LIMITED_POLISH_SHARE of the budget, is SLSQP with each limit's signed
+excess as a constraint, the pieces of each limit it has met kept as cutting
+planes (:func:`xo_fit.search.feasibility.polish_limited`).
 
 The same seed gives the same result bit for bit (numpy's SeedSequence feeds
 every random draw). A time limit or Ctrl-C stops the search between
@@ -138,6 +137,7 @@ class Objective:
     best_violation: float = 0.0
     best_key: float = math.inf  # the best's feasibility key (its cost when not constrained)
     last_excess: np.ndarray | None = None  # constrained: each limit's signed excess (B, L) of the last batch
+    last_key: np.ndarray = field(default_factory=lambda: np.zeros(0))  # the last batch's keys (B,)
 
     def __call__(self, u: np.ndarray) -> np.ndarray:
         cost, violation = self.evaluate(u)
@@ -172,6 +172,7 @@ class Objective:
         cost = np.where(np.isfinite(cost), cost, np.inf)
         self.evaluations += take
         key = feasibility_key(cost, violation) if self.constrained else cost
+        self.last_key = key
         i = int(np.argmin(key))
         if key[i] < self.best_key:
             self.best_key = float(key[i])

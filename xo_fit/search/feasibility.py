@@ -6,8 +6,8 @@ algorithms", Comput. Methods Appl. Mech. Engrg. 186, 2000): a feasible design be
 infeasible ones the smaller violation wins, of two feasible ones the lower cost. :func:`feasibility_key` writes
 that order as one number per design, which every engine of :mod:`xo_fit.search.engines` compares;
 :class:`EpsilonLevel` relaxes it inside a JADE run by an epsilon that falls to 0; the polish
-(:func:`polish_limited`) needs a continuous function for its gradients and minimises an augmented Lagrangian
-instead, then projects back to feasibility.
+(:func:`polish_limited`) needs smooth functions for its gradients and runs SLSQP with each limit as a
+constraint instead, keeping the best point by the feasibility-first order that any of its steps reached.
 """
 
 from __future__ import annotations
@@ -100,33 +100,40 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None) -> None:
 
 class LimitPolish:
     """One SLSQP run of :func:`polish_limited`: the objective ``obj`` over n values, each limit kept below
-    -``margin``, the cost times ``scale``; ``best`` ([key, point]) is updated as the run improves on it."""
+    -``margin``, the cost times ``scale``; ``best`` ([key, point]) is updated as the run improves on it.
+
+    The remembered pieces are arrays over (slot, limit): ``used`` (PIECES, L) bool, ``where`` (PIECES, L, n) the
+    point each was met at, ``piece_excess`` (PIECES, L) its value there, ``piece_grad`` (PIECES, L, n) its
+    gradient."""
 
     def __init__(self, obj, n: int, margin: float, scale: float, best: list) -> None:
         self.obj, self.n, self.margin, self.scale, self.best = obj, n, margin, scale, best
         self.cost = 0.0  # at the point evaluated last: its cost, each limit's excess (L,)
         self.excess = np.zeros(0)
         self.grad: np.ndarray | None = None  # the current iterate's excess gradients (L, n), its point, excesses
-        self.point: np.ndarray | None = None
-        self.at: np.ndarray | None = None
-        self.pieces: list[list] = []  # per limit, PIECES slots: None or (point, excess, gradient (n,))
+        self.point = np.zeros(n)
+        self.at = np.zeros(0)
+        self.used = np.zeros((PIECES, 0), dtype=bool)
+        self.where = self.piece_grad = np.zeros((PIECES, 0, n))
+        self.piece_excess = np.zeros((PIECES, 0))
 
     def run(self) -> None:
         minimize_slsqp(self.values, self.gradients, self.best[1], np.zeros(self.n), np.ones(self.n),
                        ftol=SLSQP_FTOL, maxiter=SLSQP_MAXITER)
 
-    def keep(self, cost: np.ndarray, violation: np.ndarray, points: np.ndarray) -> None:
-        key = feasibility_key(cost, violation)
-        i = int(np.argmin(key))
+    def keep(self, points: np.ndarray) -> None:
+        """The best of the points (B, n) just evaluated, by the objective's keys, if it improves on ``best``."""
+        key = self.obj.last_key
+        i = int(np.argmin(key)) if key.size > 1 else 0
         if key[i] < self.best[0]:
             self.best[:] = [float(key[i]), points[i].copy()]
 
     def values(self, x: np.ndarray) -> tuple[float, np.ndarray]:
         """SLSQP's f and c at x: one design evaluated."""
-        c, v = self.obj.evaluate(x[None])
-        self.keep(c, v, x[None])
+        c, _ = self.obj.evaluate(x[None])
+        self.keep(x[None])
         g = self.obj.last_excess[0]
-        self.cost = float(c[0]) if np.isfinite(c[0]) else BIG
+        self.cost = float(c[0]) if c[0] < BIG else BIG
         self.excess = np.where(np.isfinite(g), g, BIG)
         return self.scale * self.cost, self.rows(x)[0]
 
@@ -136,11 +143,17 @@ class LimitPolish:
         h = np.where(x + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
         c, _ = self.obj.evaluate(x + np.diag(h))
         g = np.where(np.isfinite(self.obj.last_excess), self.obj.last_excess, BIG)
-        c = np.where(np.isfinite(c), c, BIG)
+        c = np.where(c < BIG, c, BIG)
         grad = ((g - self.excess) / h[:, None]).T  # (L, n)
         if np.any(self.excess > 0):
             self.restore(x, grad)
-        self.remember(grad)
+        if self.grad is None:
+            big_l = grad.shape[0]
+            self.used = np.zeros((PIECES, big_l), dtype=bool)
+            self.where, self.piece_grad = np.zeros((PIECES, big_l, self.n)), np.zeros((PIECES, big_l, self.n))
+            self.piece_excess = np.zeros((PIECES, big_l))
+        elif PIECES:
+            self.remember(grad)
         self.grad, self.point, self.at = grad, x.copy(), self.excess.copy()
         rows, jac = self.rows(x)
         return self.scale * (c - self.cost) / h, jac, rows
@@ -151,52 +164,44 @@ class LimitPolish:
         norm2 = np.sum(grad * grad, axis=1)
         step = -np.sum((want / np.where(norm2 > 0, norm2, np.inf))[:, None] * grad, axis=0)
         points = np.clip(x[None] + np.array(RESTORE)[:, None] * step[None], 0.0, 1.0)
-        c, v = self.obj.evaluate(points)
-        self.keep(c, v, points)
+        self.obj.evaluate(points)
+        self.keep(points)
 
     def remember(self, grad: np.ndarray) -> None:
-        """Keep the last iterate's piece of each limit whose piece has changed since (a cutting plane)."""
-        if not self.pieces:
-            self.pieces = [[None] * PIECES for _ in range(grad.shape[0])]
-        if self.grad is None or not PIECES:
-            return
-        for i, slots in enumerate(self.pieces):
-            last = self.grad[i]
-            if _same_piece(last, grad[i]):  # no change: forget the remembered copies of the current piece
-                slots[:] = [None if s is not None and _same_piece(s[2], grad[i]) else s for s in slots]
-                continue
-            if not np.any(last):
-                continue
-            item = (self.point, self.at[i], last)
-            free = [k for k, s in enumerate(slots) if s is not None and _same_piece(s[2], last)]
-            free = free or [k for k, s in enumerate(slots) if s is None]
-            if free:
-                slots[free[0]] = item
-            else:
-                slots[:] = slots[1:] + [item]
+        """Keep the last iterate's piece of each limit whose piece has changed since (a cutting plane); forget
+        the remembered copies of a limit's current piece while it stays the same."""
+        assert self.grad is not None
+        last = self.grad
+        unit, unit_last, unit_slots = (a / np.maximum(np.linalg.norm(a, axis=-1, keepdims=True), 1e-300)
+                                       for a in (grad, last, self.piece_grad))
+        changed = (np.sum(unit * unit_last, axis=1) <= PIECE_COSINE) & np.any(last != 0, axis=1)  # (L,)
+        current = self.used & (np.sum(unit_slots * unit[None], axis=2) > PIECE_COSINE)  # (PIECES, L)
+        self.used &= ~(current & ~changed[None])
+        for i in np.nonzero(changed)[0]:
+            same = self.used[:, i] & (unit_slots[:, i] @ unit_last[i] > PIECE_COSINE)
+            free = np.nonzero(same)[0] if same.any() else np.nonzero(~self.used[:, i])[0]
+            if free.size:
+                k = int(free[0])
+            else:  # every slot holds another piece: the oldest (slot 0) goes, the others move up
+                for a in (self.where, self.piece_excess, self.piece_grad):
+                    a[:, i] = np.roll(a[:, i], -1, axis=0)
+                k = PIECES - 1
+            self.used[k, i] = True
+            self.where[k, i], self.piece_excess[k, i], self.piece_grad[k, i] = self.point, self.at[i], last[i]
 
     def rows(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """The constraints c (m,) >= 0 at x and their Jacobian (m, n): each limit's excess, then each remembered
         piece's linearisation (UNUSED where a slot is empty)."""
         big_l = self.excess.size
         grad = self.grad if self.grad is not None else np.zeros((big_l, self.n))
-        rows = [-(self.excess + self.margin)]
-        jacs = [-grad]
-        for k in range(PIECES):
-            r, j = np.full(big_l, UNUSED), np.zeros((big_l, self.n))
-            for i, slots in enumerate(self.pieces):
-                if slots and slots[k] is not None:
-                    p, e, d = slots[k]
-                    r[i], j[i] = -(e + d @ (x - p) + self.margin), -d
-            rows.append(r)
-            jacs.append(j)
-        return np.concatenate(rows), np.concatenate(jacs, axis=0)
-
-
-def _same_piece(a: np.ndarray, b: np.ndarray) -> bool:
-    """Whether two gradients (n,) belong to the same smooth piece: their cosine is above PIECE_COSINE."""
-    na, nb = float(np.linalg.norm(a)), float(np.linalg.norm(b))
-    return na > 0 and nb > 0 and float(a @ b) / (na * nb) > PIECE_COSINE
+        if self.used.shape[1] != big_l:  # before the first gradients
+            pieces, jac = np.full((PIECES, big_l), UNUSED), np.zeros((PIECES, big_l, self.n))
+        else:
+            lin = self.piece_excess + np.einsum("kln,kln->kl", self.piece_grad, x[None, None] - self.where)
+            pieces = np.where(self.used, -(lin + self.margin), UNUSED)
+            jac = np.where(self.used[..., None], -self.piece_grad, 0.0)
+        rows = np.concatenate([-(self.excess + self.margin), pieces.ravel()])
+        return rows, np.concatenate([-grad, jac.reshape(-1, self.n)], axis=0)
 
 
 #: The epsilon level of a constrained JADE run (T. Takahama and S. Sakai, "Constrained optimization by the
