@@ -138,6 +138,17 @@ def test_a_floor_just_above_the_plain_fits_minimum_is_met_and_costs_more(plain_f
     assert not [f for f in d.findings if f["kind"] == "limit_unmet"]
 
 
+def test_the_polish_through_scipy_optimize_meets_the_floor_too(plain_fit, monkeypatch):
+    """Where scipy's compiled SLSQP cannot be loaded on its own (scipy < 1.16), the polish's runs go one after
+    another through scipy.optimize.minimize: [DER] as above, the floor is met and costs more."""
+    from xo_fit.search import slsqp
+
+    monkeypatch.setattr(slsqp, "_slsqp", lambda: None)
+    floor = round(plain_fit.metrics["impedance_min_ohm"] * 1.03, 3)
+    d = api.fit(_job(_doc(HARD, {"impedance_min": floor, "breakup_db": 0})), budget=3000)
+    assert d.metrics["impedance_min_ohm"] >= floor * (1 - 1e-6) and d.cost > plain_fit.cost
+
+
 def test_an_impossible_floor_is_reported_with_the_best_violation_found(plain_fit, tmp_path, cli):
     """[DER] with nothing feasible the search minimises the violation: the limited fit's lowest |Z| is above the
     plain fit's; the result says which limit, by how much, and the command exits 0."""

@@ -17,7 +17,7 @@ from __future__ import annotations
 import importlib.util
 import sys
 from pathlib import Path
-from collections.abc import Callable
+from collections.abc import Callable, Generator
 
 import numpy as np
 
@@ -65,21 +65,41 @@ def minimize_slsqp(values: Callable[[np.ndarray], tuple[float, np.ndarray]],
     change there: the constraints hold from then on, as in a bundle of linearisations). x0, lower, upper: (n,).
     ``ftol`` and ``maxiter`` as scipy's SLSQP options. Returns the end point (n,) and its f.
     """
+    steps = slsqp_steps(x0, lower, upper, ftol=ftol, maxiter=maxiter)
+    if steps is None:
+        x = np.clip(np.asarray(x0, dtype=np.float64).ravel(), lower, upper)
+        return _through_scipy(values, gradients, x, np.asarray(lower, dtype=np.float64),
+                              np.asarray(upper, dtype=np.float64), ftol=ftol, maxiter=maxiter)
+    with one_blas_thread():
+        request = next(steps)
+        while True:
+            kind, x = request
+            try:
+                request = steps.send(values(x) if kind == "values" else gradients(x))
+            except StopIteration as end:
+                return end.value
+
+
+def slsqp_steps(x0: np.ndarray, lower: np.ndarray, upper: np.ndarray, *, ftol: float,
+                maxiter: int) -> Generator[tuple[str, np.ndarray], tuple, tuple[np.ndarray, float]] | None:
+    """scipy's SLSQP loop as a generator, so that a caller may run several at once and evaluate their points
+    together: it yields ``("values", x)`` and is sent back (f, c), or ``("gradients", x)`` (at the point of the
+    last "values") and is sent back (gradient of f, Jacobian of c, c), as :func:`minimize_slsqp` describes; it
+    returns the end point and its f. None where scipy's compiled routine cannot be loaded."""
     routine = _slsqp()
+    if routine is None:
+        return None
     lower = np.asarray(lower, dtype=np.float64)
     upper = np.asarray(upper, dtype=np.float64)
-    x = np.clip(np.asarray(x0, dtype=np.float64).ravel(), lower, upper)
-    if routine is None:
-        return _through_scipy(values, gradients, x, lower, upper, ftol=ftol, maxiter=maxiter)
-    with one_blas_thread():
-        return _run(routine, values, gradients, x, lower, upper, ftol=ftol, maxiter=maxiter)
+    return _steps(routine, np.clip(np.asarray(x0, dtype=np.float64).ravel(), lower, upper), lower, upper,
+                  ftol=ftol, maxiter=maxiter)
 
 
-def _run(routine, values, gradients, x, lower, upper, *, ftol: float, maxiter: int) -> tuple[np.ndarray, float]:
-    """scipy's reverse-communication loop around ``slsqp`` (see :func:`minimize_slsqp`)."""
+def _steps(routine, x, lower, upper, *, ftol: float, maxiter: int):
+    """scipy's reverse-communication loop around ``slsqp`` (see :func:`slsqp_steps`)."""
     n = x.size
-    f, c = values(x.copy())
-    grad, jac, c = gradients(x.copy())
+    f, c = yield "values", x.copy()
+    grad, jac, c = yield "gradients", x.copy()
     m = np.atleast_1d(c).size
     # the routine's state and work space as scipy's _minimize_slsqp sets them (no equality constraints)
     state = {"acc": ftol, "alpha": 0.0, "f0": 0.0, "gs": 0.0, "h1": 0.0, "h2": 0.0, "h3": 0.0, "h4": 0.0,
@@ -100,21 +120,20 @@ def _run(routine, values, gradients, x, lower, upper, *, ftol: float, maxiter: i
         routine(state, fx, g, cmat, d, x, mult, lower, upper, buffer, indices)
         if state["mode"] == _MODE_VALUES:
             xc = np.clip(x, lower, upper)  # the routine may step outside the box by an ulp (scipy gh-11403)
-            f, c = values(xc)
+            f, c = yield "values", xc
             fx, d[:m] = float(f), c
             last = xc
         elif state["mode"] == _MODE_GRADIENTS:
             xc = np.clip(x, lower, upper)
             if not np.array_equal(xc, last):
-                values(xc)
+                yield "values", xc
                 last = xc
-            grad, jac, c = gradients(xc)
+            grad, jac, c = yield "gradients", xc
             g = np.asarray(grad, dtype=np.float64)
             cmat[:m] = np.atleast_2d(jac)
             d[:m] = c
         else:
-            break
-    return x, fx
+            return x, fx
 
 
 def _through_scipy(values, gradients, x0, lower, upper, *, ftol, maxiter):
