@@ -159,7 +159,8 @@ def main() -> None:
         best = min(met + ([known[0]] if known else [])) if met or known else float("nan")
         target = max(best * 1.005, EXACT)  # a cost of 1e-25 against 3e-29: both are the exact design
         limited = system.job.limits.active
-        print(f"\n({name}) {len(system.job.free_parts)} free parts; best cost known {best:.6g}{' meeting the limits' if limited else ''}; "
+        meeting = " meeting the limits" if limited else ""
+        print(f"\n({name}) {len(system.job.free_parts)} free parts; best cost known {best:.6g}{meeting}; "
               f"success = {'meets the limits and ' if limited else ''}within 0.5 %")
         if known and met and min(met) < known[0] * (1 - 1e-4):
             print(f"  (lower than BEST_KNOWN's {known[0]:.6g} ({known[1]} evaluations, seed {known[2]}): update it)")
