@@ -36,11 +36,10 @@ where not), so JADE's selection, archive, p-best ranking and best-so-far, the
 restarts' basins, scipy's DE and nevergrad all follow it; the best design kept
 is the best by it. Inside a JADE run the comparisons count violations up to an
 epsilon as none, epsilon falling to 0 over half of the run
-(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish needs a
-continuous function for its gradients: it minimises an augmented Lagrangian of
-each limit's signed excess and projects an infeasible end back to feasibility
-by bisection toward the best feasible point
-(:func:`xo_fit.search.feasibility.polish_limited`).
+(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish, which then
+gets LIMITED_POLISH_SHARE of the budget, is SLSQP with each limit's signed
+excess as a constraint, the pieces of each limit it has met kept as cutting
+planes (:func:`xo_fit.search.feasibility.polish_limited`).
 
 The same seed gives the same result bit for bit (numpy's SeedSequence feeds
 every random draw). A time limit or Ctrl-C stops the search between
@@ -60,7 +59,7 @@ import numpy as np
 from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
                            POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
-from xo_fit.search.feasibility import EpsilonLevel, Stop, feasibility_key, polish_limited
+from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.lbfgsb import minimize_box
 
@@ -138,6 +137,7 @@ class Objective:
     best_violation: float = 0.0
     best_key: float = math.inf  # the best's feasibility key (its cost when not constrained)
     last_excess: np.ndarray | None = None  # constrained: each limit's signed excess (B, L) of the last batch
+    last_key: np.ndarray = field(default_factory=lambda: np.zeros(0))  # the last batch's keys (B,)
     #: islands (:mod:`xo_fit.search.islands`): called after each JADE generation as exchange(obj, pop, fit, rank,
     #: best); it may put migrants into the population (rows of pop, fit and rank's arrays, in place) and best
     exchange: Callable | None = None
@@ -175,6 +175,7 @@ class Objective:
         cost = np.where(np.isfinite(cost), cost, np.inf)
         self.evaluations += take
         key = feasibility_key(cost, violation) if self.constrained else cost
+        self.last_key = key
         i = int(np.argmin(key))
         if key[i] < self.best_key:
             self.best_key = float(key[i])
@@ -400,7 +401,8 @@ def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int =
     t0 = time.monotonic()
     deadline = t0 + time_limit if time_limit is not None else None
     rng = np.random.default_rng(np.random.SeedSequence(seed))
-    global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
+    share = LIMITED_POLISH_SHARE if constrained else POLISH_SHARE
+    global_budget = budget if not polish else max(1, int(budget * (1 - share)))
     obj = Objective(fn=fn, budget=global_budget, deadline=deadline, progress=progress, constrained=constrained,
                     exchange=exchange)
     interrupted = False
@@ -465,7 +467,7 @@ def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int =
 
 def polish_from(fn: Callable, space: Space, start: np.ndarray, *, budget: int,
                 constrained: bool = False) -> SearchResult | None:
-    """The polish of :func:`search` alone (L-BFGS-B, under limits the augmented Lagrangian of
+    """The polish of :func:`search` alone (L-BFGS-B, under limits the SLSQP of
     :func:`~xo_fit.search.feasibility.polish_limited`) from ``start`` (n,) within ``budget`` evaluations: an
     island's share of a search's polish (:mod:`xo_fit.search.islands`). The result is never worse than ``start``
     (its first evaluation); None when stopped before it."""

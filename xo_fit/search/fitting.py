@@ -178,9 +178,14 @@ def fit_problem(system) -> FitProblem:
             return fused(values) if limited is None else limited(values)
         # the mean cost over the same tolerance draws for every candidate: one batch of B x N designs
         b, n = values.shape[0], robust.shape[0]
-        cost = fused((values[:, None, :] * robust[None, :, :]).reshape(b * n, -1)).reshape(b, n).mean(axis=1)
-        # the limits are judged on the nominal design, as result.json judges them
-        return cost if limited is None else (cost, *limited(values)[1:])
+        builds = (values[:, None, :] * robust[None, :, :]).reshape(b * n, -1)
+        if limited is None:
+            return fused(builds).reshape(b, n).mean(axis=1)
+        # the limits hold on every build the cost is averaged over and on the nominal design (which result.json
+        # judges): each limit's excess is its worst over them, from the same kernel pass as the builds' costs
+        cost, _, excess = limited(builds)
+        excess = np.maximum(excess.reshape(b, n, -1).max(axis=1), limited(values)[2])
+        return cost.reshape(b, n).mean(axis=1), np.sum(np.maximum(excess, 0.0), axis=-1), excess
 
     cost = getattr(limited, "__self__", None) if limited is not None else fused
     return FitProblem(fn=fn, space=space, constrained=limited is not None, model=model, cost=cost)

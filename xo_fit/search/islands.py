@@ -33,6 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from xo_fit.config import MAX_POPULATION, POLISH_BASINS, POLISH_SHARE
+from xo_fit.search.feasibility import LIMITED_POLISH_SHARE
 from xo_fit.search.engines import Objective, SearchResult, polish_from, population_size, search
 from xo_fit.search.feasibility import feasibility_key
 from xo_fit.search.interrupt import signals_set, stop_requested, worker_init
@@ -250,10 +251,11 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     """
     import multiprocessing
 
-    problem.get()  # built here once: forked islands inherit it
+    constrained = problem.get()[2]  # built here once: forked islands inherit it
     ctx = multiprocessing.get_context()
     event = ctx.Event()
-    global_budget = budget if not polish else max(1, int(budget * (1 - POLISH_SHARE)))
+    share = LIMITED_POLISH_SHARE if constrained else POLISH_SHARE  # as one process's search shares it
+    global_budget = budget if not polish else max(1, int(budget * (1 - share)))
     options = {"optimizer": optimizer, "budget": max(1, global_budget // len(seeds)), "time_limit": time_limit,
                "exchange": exchange and exchanges(optimizer)}
     clock = {"start": time.monotonic(), "cpu_start": time.process_time()}

@@ -67,14 +67,14 @@ def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
     upper = np.asarray(upper, dtype=np.float64)
     if setulb is None:
         return _through_scipy(fun, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
-    with _one_blas_thread():
+    with one_blas_thread():
         return _run(setulb, fun, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
 
 
 _controller: list = []  # threadpoolctl's view of the loaded libraries, found once (a search of the process's maps)
 
 
-def _one_blas_thread():
+def one_blas_thread():
     """A context with one BLAS thread: the routine's products are of size n x MAXCOR, and waking OpenBLAS's
     threads for each of them cost a whole fit of the hard three-way 40 % of its time on two cores (0.19 s against
     0.11 s, measured); a no-op without threadpoolctl. The libraries are looked up once per process (about 1 ms
