@@ -222,7 +222,7 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
     """
     from xo_fit.search.fitting import cost_model, score
     from xo_fit.io.inventory import Inventory, read_inventory
-    from xo_fit.stages.snapping import parts_table, run_snap
+    from xo_fit.stages.snapping import parts_table, run_snap, with_drawer_parts
     from xo_fit.units import format_value
 
     system = _reuse(job, design)
@@ -236,7 +236,7 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
                        combine=combine, top_up=top_up)
     model = cost_model(system)
     before = score(system, continuous, model)
-    drawer_system = _with_drawer_parts(system, outcome, inventory)
+    drawer_system = with_drawer_parts(system, outcome, inventory)
     after = score(system, outcome.values, model) if drawer_system is None else score(drawer_system, outcome.values)
     if drawer_system is not None:
         system = drawer_system
@@ -261,30 +261,6 @@ def snap(job, design: Design | Mapping[str, float] | None = None, *, series: Map
                   source={"from": None, "inventory": str(inventory.path) if inventory else None},
                   part_info=part_info, tables={"parts.csv": parts_table(outcome, j, dict(j.spread.tolerance))},
                   outcome=outcome, before=before, label="snap")
-
-
-def _with_drawer_parts(system, outcome, inventory):
-    """The system with the drawer's own figures for the parts taken from it (a coil's measured DCR, a
-    capacitor's ESR, the rating it is sold for), or None where the drawer gives none: the snap's search scores
-    with the job's part model, the snapped design is scored with the parts that will be built."""
-    if inventory is None or not getattr(inventory, "extras", None):
-        return None
-    given = {}
-    for sp in outcome.parts:
-        if sp.source == "inventory" and sp.choice is not None and sp.choice.connection == "single":
-            extra = inventory.extra(sp.kind, sp.value)
-            if extra:
-                given[sp.name] = extra
-    if not given:
-        return None
-    from xo_fit.job.reader import load_job as read_job
-    from xo_fit.model.system import derive_system
-
-    doc = system.job.data
-    for p in doc.get("part", []):
-        for key, value in given.get(p.get("name"), {}).items():
-            p[key] = value
-    return derive_system(system, read_job(doc, base=system.job.folder))
 
 
 def spread(job, design: Design | Mapping[str, float] | None = None, *, samples: int | None = None,

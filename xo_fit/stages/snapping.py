@@ -301,3 +301,43 @@ def snap_warnings(outcome: SnapOutcome, continuous_cost: float | None, snapped_c
         out.append(f"the snap raised the cost from {continuous_cost:.4g} to {snapped_cost:.4g} "
                    f"(+{100 * (snapped_cost / continuous_cost - 1):.0f} %): {helps}")
     return out
+
+
+def with_drawer_parts(system, outcome: SnapOutcome, inventory: Inventory | None):
+    """The system with the drawer's own figures for the parts taken from it (a coil's measured DCR, a
+    capacitor's ESR, the rating it is sold for), or None where the drawer gives none: the snap's search scores
+    with the job's part model, the snapped design is scored with the parts that will be built.
+
+    Parameters
+    ----------
+    system : System
+        The job the snap ran on (:class:`~xo_fit.model.system.System`).
+    outcome : SnapOutcome
+        The snap's choices (:func:`run_snap`).
+    inventory : Inventory or None
+        The drawer the snap took parts from, if any.
+
+    Returns
+    -------
+    System or None
+        The same job with each single part taken from the drawer given the drawer's dcr, esr or rating
+        (ohm, ohm, W), or None when the drawer gives none for the parts taken.
+    """
+    if inventory is None or not getattr(inventory, "extras", None):
+        return None
+    given = {}
+    for sp in outcome.parts:
+        if sp.source == "inventory" and sp.choice is not None and sp.choice.connection == "single":
+            extra = inventory.extra(sp.kind, sp.value)
+            if extra:
+                given[sp.name] = extra
+    if not given:
+        return None
+    from xo_fit.job.reader import load_job as read_job
+    from xo_fit.model.system import derive_system
+
+    doc = system.job.data
+    for p in doc.get("part", []):
+        for key, value in given.get(p.get("name"), {}).items():
+            p[key] = value
+    return derive_system(system, read_job(doc, base=system.job.folder))
