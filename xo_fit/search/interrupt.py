@@ -37,7 +37,7 @@ def stop_requested() -> bool:
     -------
     bool
         True once the search in this process should stop at its next batch; always False in a process that
-        :func:`worker_init` has not set up (the main process) until a signal is noted.
+        :func:`worker_init` has not set up (the main process, where Ctrl-C raises KeyboardInterrupt instead).
     """
     event = _STOP["event"]
     parent = _STOP["parent"]
