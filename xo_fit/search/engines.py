@@ -1,52 +1,38 @@
 """Global search over the free part values, then a local polish; reproducible, interruptible.
 
-Each free value is a parameter on a log scale between its ``min`` and ``max``
-(normalised to u in [0, 1]: value = min * (max/min)^u). Every engine asks for
-a whole population and evaluates it in ONE batched call of the objective, so
-the Python work per candidate stays small.
+Each free value is a parameter on a log scale between its ``min`` and ``max`` (normalised to u in [0, 1]:
+value = min * (max/min)^u). Every engine asks for a whole population and evaluates it in ONE batched call of the
+objective, so the Python work per candidate stays small.
 
 Engines (``[search] optimizer`` or ``--optimizer``):
 
 ``de`` (the default, ``auto``)
-    differential evolution in the JADE form (J. Zhang and A. C. Sanderson,
-    IEEE Trans. Evol. Comput. 13(5), 2009: current-to-pbest/1 mutation with an
-    archive, binomial crossover, self-adapting F and CR), written here as whole
-    population array operations.
+    differential evolution in the JADE form (J. Zhang and A. C. Sanderson, IEEE Trans. Evol. Comput. 13(5), 2009:
+    current-to-pbest/1 mutation with an archive, binomial crossover, self-adapting F and CR), written here as
+    whole population array operations, restarted with a larger population (IPOP) until the budget ends.
 ``scipy-de``
     ``scipy.optimize.differential_evolution`` with ``vectorized=True``.
 ``ng-NAME``
-    any nevergrad optimiser by its registry name (``ng-TwoPointsDE``,
-    ``ng-CMA``, ``ng-NGOpt``, ...) through batched ask/tell on one
-    ``ng.p.Array``. Nevergrad's own bookkeeping costs some 250 us per
-    candidate (measured here), far more than a solve, so these engines are
-    slower per evaluation; see benchmarks/fit.py.
+    any nevergrad optimiser by its registry name (``ng-TwoPointsDE``, ``ng-CMA``, ``ng-NGOpt``, ...) through
+    batched ask/tell on one ``ng.p.Array``; its own bookkeeping costs some 250 us per candidate (measured here),
+    far more than a solve, so these engines are slower per evaluation (benchmarks/fit.py).
 
-Then ``polish`` (unless ``[search] polish = false``): L-BFGS-B from the best
-point in u-space, with gradients by forward differences evaluated as one batch
-of n + 1 designs.
+Then the polish (unless ``[search] polish = false``) with what the global search left, at least POLISH_SHARE of
+the budget: L-BFGS-B in u-space from each of the best POLISH_BASINS distinct basins (each JADE restart's best)
+with an equal share, gradients by forward differences evaluated as one batch of n + 1 designs.
 
-Hard limits (``[limits]``): feasibility first. The objective then returns each
-design's cost and its total violation (0: every limit met), and the search
-ranks designs by Deb's rules (K. Deb, Comput. Methods Appl. Mech. Engrg. 186,
-2000): a feasible design beats every infeasible one, of two infeasible ones the
-smaller violation wins, of two feasible ones the lower cost. Every engine sees
-one number per design that keeps exactly this order (:func:`feasibility_key`:
-the cost where feasible, LIMIT_KEY (1 + violation) above every feasible cost
-where not), so JADE's selection, archive, p-best ranking and best-so-far, the
-restarts' basins, scipy's DE and nevergrad all follow it; the best design kept
-is the best by it. Inside a JADE run the comparisons count violations up to an
-epsilon as none, epsilon falling to 0 over half of the run
-(:class:`xo_fit.search.feasibility.EpsilonLevel`). The polish, which then
-gets LIMITED_POLISH_SHARE of the budget, is SLSQP with each limit's signed
-excess as a constraint, the pieces of each limit it has met kept as cutting
-planes (:func:`xo_fit.search.feasibility.polish_limited`).
+Hard limits (``[limits]``): feasibility first (:mod:`xo_fit.search.feasibility`). The objective then returns each
+design's cost and total violation, and every engine compares :func:`feasibility_key`, one number per design in
+the order of Deb's rules (K. Deb, 2000: feasible before infeasible, then the smaller violation, then the lower
+cost); inside a JADE run violations up to an epsilon falling to 0 count as none (:class:`xo_fit.search.
+feasibility.EpsilonLevel`). The polish, with LIMITED_POLISH_SHARE of the budget, is SLSQP with each limit's
+signed excess as a constraint (:func:`xo_fit.search.feasibility.polish_limited`).
 
-The same seed gives the same result bit for bit (numpy's SeedSequence feeds
-every random draw). A time limit or Ctrl-C stops the search between
-generations (the first population is always evaluated) and the best design so
-far is returned, marked incomplete; so is it when an engine fails.
+The same seed gives the same result bit for bit (numpy's SeedSequence feeds every random draw). A time limit or
+Ctrl-C stops the search between generations (the first population is always evaluated; no polish then) and the
+best design so far is returned, marked incomplete; so is it when an engine fails. ``fit --workers N`` runs one
+search as islands on N processes (:mod:`xo_fit.search.islands`).
 """
-
 from __future__ import annotations
 
 import math
@@ -83,6 +69,7 @@ class Space:
 
     @property
     def dims(self) -> int:
+        """The number of free values n (dimensionless)."""
         return len(self.names)
 
     def values(self, u: np.ndarray) -> np.ndarray:
@@ -94,7 +81,7 @@ class Space:
 
 
 def make_space(job) -> Space:
-    """The search space of a job: its free parts with their ranges and start values."""
+    """The search space of a job: its free parts with their ranges and start values (XoFitError: none free)."""
     parts = job.valued_parts
     free = [i for i, p in enumerate(parts) if p.free]
     if not free:
@@ -191,6 +178,11 @@ class Objective:
 
 @dataclass(frozen=True)
 class SearchResult:
+    """The outcome of :func:`search` (or :func:`polish_from`): the best point ``u`` (n,) in the cube, its ``cost``
+    (dimensionless) and total ``violation`` of the [limits], the ``evaluations`` used, the wall-clock ``seconds``
+    (s), whether it ran to its end (``complete``) and what stopped it otherwise (``stopped_by``); the other fields
+    as commented (``basins``, ``basin_violations``, ``points``: each JADE restart's best before the polish)."""
+
     u: np.ndarray
     cost: float
     evaluations: int
@@ -217,7 +209,7 @@ def population_size(n: int) -> int:
 
 
 def latin_hypercube(npop: int, n: int, rng: np.random.Generator) -> np.ndarray:
-    """npop points in [0, 1)^n, one in each of npop equal slices of every axis (M. D. McKay et al.,
+    """npop points (npop, n) in [0, 1)^n, one in each of npop equal slices of every axis (M. D. McKay et al.,
     Technometrics 21(2), 1979). Written out because importing scipy.stats costs half a second."""
     perms = np.argsort(rng.random((npop, n)), axis=0)
     return (perms + rng.random((npop, n))) / npop
@@ -389,12 +381,24 @@ def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int =
            seed: int = 1, time_limit: float | None = None, polish: bool = True,
            progress: Callable[[int, int, float], None] | None = None, constrained: bool = False,
            exchange: Callable | None = None) -> SearchResult:
-    """Minimise fn over the space's unit cube within ``budget`` evaluations.
+    """Minimise fn over the space's unit cube within ``budget`` evaluations (see the module).
 
-    fn: cube points (B, n) -> costs (B,); with ``constrained``, -> (costs (B,), total violations (B,)) and the
-    search is feasibility first (see the module's docstring). ``exchange``: an island's migration between JADE
-    generations (:attr:`Objective.exchange`). Returns the best point found, whether the search ran to its end
-    (``complete``), and what stopped it otherwise.
+    Parameters
+    ----------
+    fn, space : callable, Space
+        Cube points (B, n) -> costs (B,), dimensionless (with ``constrained``: -> (costs (B,), total violations
+        (B,)[, each limit's signed excess (B, L)])); the free values (:func:`make_space`).
+    optimizer, budget, seed, time_limit, polish, progress, constrained, exchange : optional
+        The engine (:func:`engine`); evaluations at most, the polish included, and the seed (dimensionless); a
+        wall-clock limit in s (None: none); polish or not; called after each batch as progress(evaluations,
+        budget, best cost); feasibility first; an island's migration between JADE generations
+        (:attr:`Objective.exchange`).
+
+    Returns
+    -------
+    SearchResult
+        The best point found, whether the search ran to its end (``complete``), and what stopped it otherwise
+        (an XoFitError for an unknown optimizer, or where no design was evaluated).
     """
     run = engine(optimizer)
     name = DEFAULT_ENGINE if optimizer == "auto" else optimizer

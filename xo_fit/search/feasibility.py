@@ -54,9 +54,23 @@ class Stop(Exception):
 
 
 def feasibility_key(cost: np.ndarray, violation: np.ndarray) -> np.ndarray:
-    """One number per design (B,) whose order is the feasibility-first order of Deb's rules: the cost (B,) of a
-    design whose total violation (B,) is 0, LIMIT_KEY (1 + violation) of one that breaks a limit; a design
-    without a finite cost or violation (a singular point) is inf."""
+    """One number per design whose order is the feasibility-first order of Deb's rules.
+
+    Parameters
+    ----------
+    cost : ndarray
+        The designs' costs (dimensionless), shape (B,).
+    violation : ndarray
+        Their total violations of the [limits] (dimensionless: a sum of relative excesses; 0: every limit met),
+        shape (B,).
+
+    Returns
+    -------
+    ndarray
+        The keys (dimensionless), shape (B,): the cost (held at LIMIT_KEY / 2 at most) where the violation is 0,
+        LIMIT_KEY (1 + violation) where it is above 0, inf where the cost or the violation is not finite (a
+        singular design).
+    """
     c = np.asarray(cost, dtype=float)
     v = np.asarray(violation, dtype=float)
     ok = np.isfinite(c) & np.isfinite(v)
@@ -81,6 +95,24 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None) -> None:
     polish returns the best feasible design any step reached, never a worse one. Each round runs one SLSQP per
     margin of POLISH_MARGINS side by side from the best point so far (:func:`together`); rounds follow until
     one gains nothing, POLISH_ROUNDS have run, or the budget ends.
+
+    Parameters
+    ----------
+    obj : Objective
+        The search's objective (:class:`xo_fit.search.engines.Objective`, ``constrained``): it counts the
+        evaluations, keeps the best point (``best_u``, ``best_cost``, ``best_violation``: the result) and ends the
+        polish at its budget.
+    n : int
+        The number of free values (dimensionless).
+    start : ndarray or None
+        The start point in the unit cube, shape (n,); None: the objective's best point (nothing to polish when
+        it has none).
+
+    Raises
+    ------
+    KeyboardInterrupt
+        From the objective, where the process was asked to stop (Ctrl-C, SIGTERM, its parent); the best point so
+        far stays in ``obj``.
     """
     u = obj.best_u if start is None else np.asarray(start, dtype=float)
     if u is None:
@@ -99,9 +131,18 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None) -> None:
 
 
 def together(obj, runs: list) -> None:
-    """Run the SLSQP runs ``runs`` (:class:`LimitPolish`) side by side: each step, every run's request (one
-    design, or n for a gradient, and the restoration's few) goes into ONE batch of the objective, so that the
-    kernel's cost per call is shared (a single design costs several times its share of a batch)."""
+    """Run SLSQP runs side by side: each step, every run's request (one design, or n for a gradient, and the
+    restoration's few) goes into ONE batch of the objective, so that the kernel's cost per call is shared (a
+    single design costs several times its share of a batch). Where scipy's compiled routine cannot be driven
+    (:func:`~xo_fit.search.slsqp.slsqp_steps` gives None) they run one after another instead.
+
+    Parameters
+    ----------
+    obj : Objective
+        The constrained objective (:class:`xo_fit.search.engines.Objective`) every run evaluates through.
+    runs : list of LimitPolish
+        The runs, each from its ``best`` point; they update their shared ``best`` as they go.
+    """
     made = [slsqp_steps(r.best[1], np.zeros(r.n), np.ones(r.n), ftol=SLSQP_FTOL, maxiter=SLSQP_MAXITER)
             for r in runs]
     steps = [s for s in made if s is not None]
@@ -127,12 +168,38 @@ def together(obj, runs: list) -> None:
 
 
 class LimitPolish:
-    """One SLSQP run of :func:`polish_limited`: the objective ``obj`` over n values, each limit kept below
-    -``margin``, the cost times ``scale``; ``best`` ([key, point]) is updated as the run improves on it.
+    """One SLSQP run of :func:`polish_limited`: the cost times ``scale`` over the unit cube, each limit's excess
+    kept below -``margin``, and the other pieces of each limit met so far kept as cutting planes.
 
-    The remembered pieces are arrays over (slot, limit): ``used`` (PIECES, L) bool, ``where`` (PIECES, L, n) the
-    point each was met at, ``piece_excess`` (PIECES, L) its value there, ``piece_grad`` (PIECES, L, n) its
-    gradient."""
+    It answers SLSQP's requests (:func:`~xo_fit.search.slsqp.slsqp_steps`) with m = L (1 + PIECES) constraints
+    c >= 0: each of the L limits' excess, then each remembered piece's linearisation (:meth:`rows`).
+
+    Parameters
+    ----------
+    obj : Objective
+        The constrained objective (:class:`xo_fit.search.engines.Objective`); its ``last_excess`` gives each
+        limit's signed relative excess.
+    n : int
+        The number of free values (dimensionless).
+    margin : float
+        How far inside each limit the run keeps: each relative excess at most -margin (dimensionless).
+    scale : float
+        The factor on the cost that SLSQP sees (dimensionless; 1 / (1 + the start's cost)).
+    best : list
+        [key, point (n,)]: the best design of the polish by the feasibility-first order, shared by the runs of a
+        round and updated in place.
+
+    Attributes
+    ----------
+    used : ndarray
+        Which slots hold a remembered piece, bool, shape (PIECES, L).
+    where : ndarray
+        The point each piece was met at, in the unit cube, shape (PIECES, L, n).
+    piece_excess : ndarray
+        Its limit's relative excess there (dimensionless), shape (PIECES, L).
+    piece_grad : ndarray
+        The piece's gradient in the cube (dimensionless), shape (PIECES, L, n).
+    """
 
     def __init__(self, obj, n: int, margin: float, scale: float, best: list) -> None:
         self.obj, self.n, self.margin, self.scale, self.best = obj, n, margin, scale, best
@@ -150,12 +217,28 @@ class LimitPolish:
         self.offset: np.ndarray | None = None  # each piece's gradient . its point (PIECES, L)
 
     def run(self) -> None:
+        """This run on its own from its ``best`` point (:func:`~xo_fit.search.slsqp.minimize_slsqp`, each
+        request its own batch): where the compiled routine cannot be driven side by side."""
         minimize_slsqp(self.values, self.gradients, self.best[1], np.zeros(self.n), np.ones(self.n),
                        ftol=SLSQP_FTOL, maxiter=SLSQP_MAXITER)
 
     def points(self, kind: str, x: np.ndarray) -> np.ndarray:
-        """The designs (B, n) to evaluate for SLSQP's request at x: x itself ("values") or its forward-difference
-        stencil ("gradients"), then the restoration's points left from the last gradients."""
+        """The designs to evaluate for SLSQP's request at x.
+
+        Parameters
+        ----------
+        kind : str
+            ``"values"`` or ``"gradients"``: what SLSQP asks for.
+        x : ndarray
+            SLSQP's point in the unit cube, shape (n,).
+
+        Returns
+        -------
+        ndarray
+            The points, shape (B, n): x itself ("values", B = 1) or its forward-difference stencil x + h e_i
+            ("gradients", B = n, h = POLISH_STEP, negative at the cube's upper edge), then the restoration's points
+            left from the last gradients, if any.
+        """
         self.asked = x
         if kind == "values":
             pts = x[None]
@@ -167,9 +250,28 @@ class LimitPolish:
         return pts
 
     def digest(self, kind: str, points: np.ndarray, cost: np.ndarray, excess: np.ndarray, key: np.ndarray) -> tuple:
-        """SLSQP's answer from the evaluated ``points`` (their costs, excesses (B, L) and keys): (f, c) for
-        "values", (gradient, Jacobian, c) for "gradients"; the best point kept, the pieces updated and the
-        restoration's points set where a limit is broken."""
+        """SLSQP's answer from the evaluated points; the best point kept, the pieces updated and the
+        restoration's points set where a limit is broken.
+
+        Parameters
+        ----------
+        kind : str
+            ``"values"`` or ``"gradients"``, as :meth:`points` was asked.
+        points : ndarray
+            The points :meth:`points` gave, in the unit cube, shape (B, n).
+        cost : ndarray
+            Their costs (dimensionless), shape (B,).
+        excess : ndarray
+            Each limit's signed relative excess at each (dimensionless), shape (B, L).
+        key : ndarray
+            Their feasibility keys (:func:`feasibility_key`, dimensionless), shape (B,).
+
+        Returns
+        -------
+        tuple
+            For "values": f (float, the scaled cost, dimensionless) and c, shape (m,); for "gradients": the
+            gradient of f, shape (n,), the Jacobian of c, shape (m, n), and c, shape (m,) (:meth:`rows`).
+        """
         i = int(np.argmin(key))
         if key[i] < self.best[0]:
             self.best[:] = [float(key[i]), points[i].copy()]
@@ -196,20 +298,38 @@ class LimitPolish:
         return self.scale * (c - self.cost) / h, self.jacobian(), self.rows(x)
 
     def values(self, x: np.ndarray) -> tuple[float, np.ndarray]:
-        """SLSQP's f and c at x, evaluated on their own."""
+        """SLSQP's f (the scaled cost) and c (m,) (:meth:`rows`) at x (n,), dimensionless, evaluated alone."""
         return self.evaluate("values", x)
 
     def gradients(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """SLSQP's gradients at x (where ``values`` was called last), evaluated on their own."""
+        """SLSQP's gradient of f (n,), Jacobian of c (m, n) and c (m,) at x (n,) (where ``values`` was called
+        last), dimensionless, evaluated alone."""
         return self.evaluate("gradients", x)
 
     def evaluate(self, kind: str, x: np.ndarray) -> tuple:
+        """SLSQP's request (``kind``: "values" or "gradients") at x (n,) as its own batch of the objective:
+        :meth:`digest`'s answer for :meth:`points`."""
         pts = self.points(kind, x)
         cost, _ = self.obj.evaluate(pts)
         return self.digest(kind, pts, cost, self.obj.last_excess, self.obj.last_key)
 
     def restore(self, x: np.ndarray, grad: np.ndarray) -> np.ndarray:
-        """RESTORE multiples of the least-norm step that meets the broken limits' linearisations (B, n)."""
+        """Points that step back onto the broken limits: RESTORE multiples of a Newton step, the sum over the
+        broken limits of each one's least-norm step onto its linearisation held at -margin (for one broken limit
+        the least change of the values that meets it).
+
+        Parameters
+        ----------
+        x : ndarray
+            The iterate in the unit cube, shape (n,).
+        grad : ndarray
+            Each limit's excess gradient there (dimensionless), shape (L, n).
+
+        Returns
+        -------
+        ndarray
+            The points, clipped to the cube, shape (R, n), R = len(RESTORE).
+        """
         want = np.where(self.excess > 0, self.excess + self.margin, 0.0)
         norm2 = np.sum(grad * grad, axis=1)
         step = -np.sum((want / np.where(norm2 > 0, norm2, np.inf))[:, None] * grad, axis=0)
@@ -217,7 +337,15 @@ class LimitPolish:
 
     def remember(self, grad: np.ndarray) -> None:
         """Keep the last iterate's piece of each limit whose piece has changed since (a cutting plane); forget
-        the remembered copies of a limit's current piece while it stays the same."""
+        the remembered copies of a limit's current piece while it stays the same. Pieces are told apart by the
+        direction of their gradients (cosine at most PIECE_COSINE: another piece); with every slot taken the
+        oldest goes.
+
+        Parameters
+        ----------
+        grad : ndarray
+            The new iterate's excess gradients (dimensionless), shape (L, n).
+        """
         assert self.grad is not None
         last = self.grad
         unit, unit_last, unit_slots = (a / np.maximum(np.linalg.norm(a, axis=-1, keepdims=True), 1e-300)
@@ -238,8 +366,20 @@ class LimitPolish:
             self.where[k, i], self.piece_excess[k, i], self.piece_grad[k, i] = self.point, self.at[i], last[i]
 
     def rows(self, x: np.ndarray) -> np.ndarray:
-        """The constraints c (m,) >= 0 at x: each limit's excess, then each remembered piece's linearisation
-        (UNUSED where a slot is empty)."""
+        """The constraints c >= 0 that SLSQP sees.
+
+        Parameters
+        ----------
+        x : ndarray
+            The point in the unit cube, shape (n,).
+
+        Returns
+        -------
+        ndarray
+            c (dimensionless), shape (m,), m = L (1 + PIECES): -(excess + margin) of each limit (its excess at the
+            point evaluated last), then -(linearisation at x + margin) of each remembered piece, slot by slot
+            (UNUSED where a slot is empty).
+        """
         if self.offset is None:  # before the first gradients
             pieces = np.full(PIECES * self.excess.size, UNUSED)
         else:
@@ -248,7 +388,7 @@ class LimitPolish:
         return np.concatenate([-(self.excess + self.margin), pieces])
 
     def jacobian(self) -> np.ndarray:
-        """The Jacobian (m, n) of :meth:`rows` at the current iterate."""
+        """The Jacobian dc/du (m, n) of :meth:`rows` at the current iterate (dimensionless)."""
         assert self.grad is not None
         jac = np.where(self.used[..., None], -self.piece_grad, 0.0)
         return np.concatenate([-self.grad, jac.reshape(-1, self.n)], axis=0)
@@ -267,7 +407,14 @@ EPSILON_SHARE = 0.5
 class EpsilonLevel:
     """How a JADE run under limits ranks its designs: by :func:`feasibility_key` with violations up to the run's
     epsilon (falling to 0) counted as none. Keeps the population's costs and violations, so that its keys
-    follow epsilon down; ``best`` is always by the true order (epsilon 0)."""
+    follow epsilon down; ``best`` is always by the true order (epsilon 0).
+
+    Parameters
+    ----------
+    obj : Objective
+        The run's constrained objective (:class:`xo_fit.search.engines.Objective`): its evaluations so far and
+        budget set epsilon's schedule (it falls to 0 over EPSILON_SHARE of what is left at the start).
+    """
 
     def __init__(self, obj) -> None:
         self.obj = obj
@@ -281,7 +428,8 @@ class EpsilonLevel:
         self.trial_violation: np.ndarray | None = None
 
     def first(self, pop: np.ndarray) -> np.ndarray:
-        """Evaluate the run's first population (N, n); its keys (N,)."""
+        """Evaluate the run's first population pop (N, n), set epsilon's start (the violation of its
+        EPSILON_THETA-th best) from it and return its keys (N,) under that epsilon (dimensionless)."""
         self.cost, self.violation = self.obj.evaluate(pop)
         v = np.sort(np.where(np.isfinite(self.violation), self.violation, np.inf))
         k = min(int(EPSILON_THETA * v.size), v.size - 1)
@@ -289,30 +437,36 @@ class EpsilonLevel:
         return self.keys(self.cost, self.violation)
 
     def keys(self, cost: np.ndarray, violation: np.ndarray) -> np.ndarray:
+        """:func:`feasibility_key` (N,) of costs (N,) and total violations (N,), a violation up to the current
+        epsilon counted as 0 (dimensionless)."""
         with np.errstate(invalid="ignore"):
             return feasibility_key(cost, np.where(violation <= self.eps, 0.0, violation))
 
     def population(self) -> np.ndarray:
-        """This generation's epsilon (from the evaluations used so far) and the population's keys under it."""
+        """Set this generation's epsilon (from the evaluations used so far); the population's keys (N,) under
+        it (dimensionless)."""
         t = (self.obj.evaluations - self.start) / self.span
         self.eps = 0.0 if t >= 1.0 else self.eps0 * (1.0 - t) ** EPSILON_POWER
         assert self.cost is not None and self.violation is not None, "first() evaluates the population"
         return self.keys(self.cost, self.violation)
 
     def trial(self, trial: np.ndarray) -> np.ndarray:
-        """Evaluate trial points (N, n); their keys under this generation's epsilon."""
+        """Evaluate the generation's trial points (N, n); their keys (N,) under this generation's epsilon
+        (dimensionless)."""
         self.trial_cost, self.trial_violation = self.obj.evaluate(trial)
         return self.keys(self.trial_cost, self.trial_violation)
 
     def accept(self, better: np.ndarray) -> None:
-        """The trials that replace their parents (bool (N,))."""
+        """Take the trials that replace their parents (``better``: bool (N,)) into the population's costs and
+        violations."""
         assert self.cost is not None and self.violation is not None, "first() evaluates the population"
         assert self.trial_cost is not None and self.trial_violation is not None, "trial() evaluates the trials"
         self.cost = np.where(better, self.trial_cost, self.cost)
         self.violation = np.where(better, self.trial_violation, self.violation)
 
     def best(self, pop: np.ndarray) -> list:
-        """[true key, point] of the population's best by the feasibility-first order."""
+        """[key (dimensionless), point (n,)] of the population pop (N, n)'s best by the true feasibility-first
+        order (epsilon 0), from the costs and violations kept here."""
         assert self.cost is not None and self.violation is not None, "first() evaluates the population"
         key = feasibility_key(self.cost, self.violation)
         i = int(np.argmin(key))

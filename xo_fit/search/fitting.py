@@ -1,7 +1,7 @@
 """Fitting a job: targets, cost and search put together; and the scoring shared with simulate.
 
-:func:`run_fit` finds the free values that minimise the job's cost;
-:func:`score` evaluates any design (a hand design, a fit, a snap) into the
+:func:`run_fit` finds the free values that minimise the job's cost (:func:`run_fit_restarts`: the same on
+several processes, as islands); :func:`score` evaluates any design (a hand design, a fit, a snap) into the
 cost, its terms and the metrics that result.json carries.
 """
 
@@ -20,7 +20,24 @@ from xo_fit.model.targets import Targets, build_targets
 
 @dataclass(frozen=True, eq=False)
 class Scored:
-    """One design with everything the outputs need."""
+    """One design with everything the outputs need.
+
+    Attributes
+    ----------
+    values : ndarray
+        The design's part values, SI (ohm, H, F), shape (P,).
+    sim : Simulation
+        Its simulation on the dense solve (:meth:`xo_fit.model.system.System.simulate`, one design).
+    cost, level_db : float or None
+        Its cost (dimensionless) and the level the targets were placed at (in dB SPL); None without way targets.
+    terms, metrics : dict
+        Each cost term before its weight (dimensionless; empty without targets); what result.json's ``metrics``
+        hold (``rms_error_db`` in dB, ``impedance_min_ohm`` in ohm, ...).
+    targets : Targets or None
+        The job's targets on the grid (:class:`~xo_fit.model.targets.Targets`); None without way targets.
+    preference : dict or None
+        An off-axis job's predicted preference (``Preference.to_json``); None on axis.
+    """
 
     values: np.ndarray  # (P,) SI
     sim: object  # Simulation of this one design
@@ -33,7 +50,18 @@ class Scored:
 
 
 def cost_model(system) -> tuple[CostModel, Targets] | None:
-    """The job's cost model, or None when the job has no way targets (then only metrics that need none)."""
+    """The job's cost model, or None when the job has no way targets (then only metrics that need none).
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+
+    Returns
+    -------
+    tuple or None
+        (:class:`~xo_fit.model.cost.CostModel`, :class:`~xo_fit.model.targets.Targets`), or None.
+    """
     if not system.job.target.ways:
         return None
     targets = build_targets(system.job, system.frequencies)
@@ -41,7 +69,8 @@ def cost_model(system) -> tuple[CostModel, Targets] | None:
 
 
 def require_cost_model(system, what: str) -> tuple[CostModel, Targets]:
-    """The job's cost model; a JobError naming what needs it when the job has no way targets."""
+    """:func:`cost_model` where something needs one: a JobError (key ``[target]``) naming ``what`` needs it
+    (``"fit to"``: "nothing to fit to: ...") when the job has no way targets."""
     model = cost_model(system)
     if model is None:
         from xo_fit.errors import JobError
@@ -52,7 +81,22 @@ def require_cost_model(system, what: str) -> tuple[CostModel, Targets]:
 
 
 def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = None) -> Scored:
-    """Simulate one design (P,) and score it: cost, terms, metrics."""
+    """Simulate one design and score it: cost, terms, metrics.
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    values : ndarray
+        The design's part values, SI (ohm, H, F), shape (P,).
+    model : tuple or None
+        The job's (CostModel, Targets) where already built (:func:`cost_model`); None: built here.
+
+    Returns
+    -------
+    Scored
+        The design scored (cost None where the job has no way targets).
+    """
     values = np.asarray(values, dtype=float).reshape(-1)
     model = model if model is not None else cost_model(system)
     sim = system.simulate(values, dense=True)
@@ -68,8 +112,9 @@ def score(system, values: np.ndarray, model: tuple[CostModel, Targets] | None = 
 
 
 def design_preference(system, sim) -> dict | None:
-    """The predicted preference (Olive 2004) of the first design of a Simulation, as result.json holds it (the
-    six figures, None and a reason where the grid or the positions do not allow one); None on axis."""
+    """The predicted preference (Olive 2004) of the first design of ``sim`` (a Simulation of the loaded job
+    ``system``), as result.json holds it: the six figures (None and a reason where the grid or the positions do
+    not allow one); None for a job without off-axis positions."""
     if not system.positions:
         return None
     from xo_fit.model.acoustics import angle_pressures, curve_weights, directivity, preference_of
@@ -81,19 +126,42 @@ def design_preference(system, sim) -> dict | None:
 
 
 def cost_function(cm: CostModel):
-    """The batch cost a search calls, values (B, P) -> cost (B,): the fused kernel, or the numpy reference cost
-    (:meth:`CostModel.evaluate`, the same terms, about 10x slower: 141 against 11 us per design on the demo)
-    for a job with a term the kernel lacks (``[cost] protection``), so that no weight the job sets is
-    silently left out."""
+    """The batch cost a search calls: the fused kernel, or the numpy reference cost (:meth:`CostModel.evaluate`,
+    the same terms, about 10x slower: 141 against 11 us per design on the demo) for a job with a term the kernel
+    lacks (``[cost] protection``), so that no weight the job sets is silently left out.
+
+    Parameters
+    ----------
+    cm : CostModel
+        The job's cost model.
+
+    Returns
+    -------
+    callable
+        values (B, P), SI (ohm, H, F) -> costs (B,), dimensionless: a :class:`~xo_fit.model.fused.FusedCost` or
+        a function.
+    """
     if cm.needs_reference:
         return lambda values: cm.evaluate(np.atleast_2d(values)).cost
     return FusedCost(cm)
 
 
 def limited_cost_function(cm: CostModel):
-    """With [limits], the batch function a feasibility-first search calls: values (B, P) -> (cost (B,), total
-    violation (B,), each limit's signed excess (B, L)), through the fused kernel (or the reference cost, as
-    :func:`cost_function` chooses); None without limits."""
+    """With [limits], the batch function a feasibility-first search calls, through the fused kernel (or the
+    reference cost, as :func:`cost_function` chooses).
+
+    Parameters
+    ----------
+    cm : CostModel
+        The job's cost model.
+
+    Returns
+    -------
+    callable or None
+        values (B, P), SI (ohm, H, F) -> (costs (B,), total violations (B,), each limit's signed relative excess
+        (B, L), L = 4 in the order of :data:`xo_fit.model.limits.NAMES`), all dimensionless; None without
+        limits.
+    """
     if cm.limits is None:
         return None
     if cm.needs_reference:
@@ -107,10 +175,20 @@ def limited_cost_function(cm: CostModel):
 
 
 def robust_factors(job) -> np.ndarray | None:
-    """The fixed tolerance draws (N, P) of a robust fit ([search] robust = { samples = N }), or None.
+    """The fixed tolerance draws of a robust fit ([search] robust = { samples = N }), or None.
 
     Drawn from the [spread] distribution and tolerances with a seed derived from [search] seed, so every
     candidate is judged on the same builds; a robust fit costs N solves per candidate.
+
+    Parameters
+    ----------
+    job : Job
+        The job (:class:`~xo_fit.job.model.Job`).
+
+    Returns
+    -------
+    ndarray or None
+        Factors on the part values (dimensionless), shape (N, P); None without ``robust``.
     """
     n = job.search.robust_samples
     if not n:
@@ -123,6 +201,23 @@ def robust_factors(job) -> np.ndarray | None:
 
 @dataclass(frozen=True, eq=False)
 class FitOutcome:
+    """What a fit found, scored (:func:`run_fit`, :func:`run_fit_restarts`).
+
+    Attributes
+    ----------
+    scored : Scored
+        The best design, scored (:func:`score`).
+    search : SearchResult
+        The search that found it (:class:`~xo_fit.search.engines.SearchResult`; with islands the winner's).
+    start_cost : float or None
+        The cost of the job's start values (dimensionless); None where no free part has one.
+    kernel : str or None
+        Which build ran the cost: ``"c"``, ``"numba"`` or ``"numpy"`` (the reference cost).
+    islands : dict or None
+        ``fit --workers``: ``"runs"`` (an :class:`~xo_fit.search.islands.IslandRun` each) and the parent's
+        ``"clock"``; None on one process.
+    """
+
     scored: Scored
     search: SearchResult
     start_cost: float | None
@@ -132,9 +227,20 @@ class FitOutcome:
 
 @dataclass(frozen=True, eq=False)
 class FitProblem:
-    """What a search of a job calls. fn maps cube points (B, n) to costs (B,) (with [limits], ``constrained``, to
-    (costs, total violations, each limit's signed excess)); space: the job's :class:`Space`; model: the job's
-    cost model and targets; cost: the batch cost whose build runs (:func:`backend_of`)."""
+    """What a search of a job calls.
+
+    Attributes
+    ----------
+    fn : callable
+        Cube points (B, n) -> costs (B,), dimensionless; with [limits] (``constrained``) -> (costs (B,), total
+        violations (B,), each limit's signed relative excess (B, L)); a robust fit's mean over its draws.
+    space : Space
+        The job's free values as a unit cube (:class:`~xo_fit.search.engines.Space`).
+    constrained : bool
+        Whether the job has [limits] (the search is then feasibility first).
+    model, cost : tuple, object
+        The job's (CostModel, Targets); the batch cost whose build runs (:func:`backend_of`).
+    """
 
     fn: Callable
     space: Space
@@ -148,7 +254,8 @@ class FitProblem:
         return backend_of(self.cost)
 
     def start_cost(self) -> float | None:
-        """The cost of the job's start values as the search judges them, or None without start values."""
+        """The cost of the job's start values as the search judges them (one evaluation; dimensionless, a
+        robust fit's mean over its draws), or None where no free part has a start value."""
         if self.space.u0 is None:
             return None
         first = self.fn(self.space.u0[None])
@@ -163,7 +270,23 @@ class FitProblem:
 
 
 def fit_problem(system) -> FitProblem:
-    """The job's :class:`FitProblem` (its cost's build is loaded on its first call)."""
+    """The job's :class:`FitProblem` (its cost's build is loaded on its first call).
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+
+    Returns
+    -------
+    FitProblem
+        Its function of cube points, space, limits flag, cost model and batch cost.
+
+    Raises
+    ------
+    XoFitError
+        A JobError where the job has no way targets; an XoFitError where it has no free values.
+    """
     job = system.job
     model = require_cost_model(system, "fit to")
     cm, _ = model
@@ -192,15 +315,41 @@ def fit_problem(system) -> FitProblem:
 
 
 def search_problem(system) -> tuple:
-    """(fn, space, constrained) of the job's :class:`FitProblem`: what an island of :func:`run_fit_restarts`
-    searches."""
+    """(fn, space, constrained) of the loaded job ``system``'s :class:`FitProblem`: what an island of
+    :func:`run_fit_restarts` searches (a process that is not forked builds it again)."""
     p = fit_problem(system)
     return p.fn, p.space, p.constrained
 
 
 def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, seed: int | None = None,
             time_limit: float | None = None, progress=None) -> FitOutcome:
-    """Global search and polish of the job's free values; arguments override the job's [search]."""
+    """Global search and polish of the job's free values on this process (:func:`~xo_fit.search.engines.search`).
+
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    optimizer : str, optional
+        The engine (``auto``, ``de``, ``scipy-de``, ``ng-NAME``); default the job's ``[search] optimizer``.
+    budget : int, optional
+        Evaluations at most, the polish included (dimensionless); default (or 0) the job's ``[search] budget``.
+    seed : int, optional
+        The random seed (dimensionless); default the job's ``[search] seed``.
+    time_limit : float, optional
+        Wall-clock limit in s; default the job's ``[search] time_limit`` (None: none).
+    progress : callable, optional
+        Called after each batch as ``progress(evaluations, budget, best cost)``.
+
+    Returns
+    -------
+    FitOutcome
+        The best design scored, the search's result, the start values' cost and the cost's build.
+
+    Raises
+    ------
+    XoFitError
+        No way targets (a JobError), no free values, an unknown optimizer, or no design evaluated at all.
+    """
     spec = system.job.search
     p = fit_problem(system)
     start = p.start_cost()
@@ -213,8 +362,19 @@ def run_fit(system, *, optimizer: str | None = None, budget: int | None = None, 
 
 
 def backend_of(cost) -> str:
-    """Which build ran a search's batch cost: ``"c"`` or ``"numba"`` for the fused kernel
-    (:func:`xo_fit.solver.kernels.kernel_backend`), ``"numpy"`` for the reference cost."""
+    """Which build ran a search's batch cost.
+
+    Parameters
+    ----------
+    cost : object
+        The batch cost (:attr:`FitProblem.cost`).
+
+    Returns
+    -------
+    str
+        ``"c"`` or ``"numba"`` for the fused kernel (:func:`xo_fit.solver.kernels.kernel_backend`), ``"numpy"``
+        for the reference cost.
+    """
     if not isinstance(cost, FusedCost):
         return "numpy"
     from xo_fit.solver.kernels import kernel_backend
@@ -223,7 +383,20 @@ def backend_of(cost) -> str:
 
 
 def restart_seeds(seed: int, n: int) -> list[int]:
-    """The seeds of n islands (or restarts) derived from one seed (the first uses the seed itself)."""
+    """The seeds of n islands derived from one seed (numpy's SeedSequence.spawn).
+
+    Parameters
+    ----------
+    seed : int
+        The fit's seed (dimensionless).
+    n : int
+        How many seeds (dimensionless).
+
+    Returns
+    -------
+    list of int
+        n seeds (dimensionless), the first the seed itself (so one island searches as one process does).
+    """
     children = np.random.SeedSequence(seed).spawn(max(n - 1, 0))
     return [seed] + [int(c.generate_state(1)[0]) for c in children]
 
@@ -236,8 +409,32 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     ``exchange``: the islands also exchange their best every few generations (measured no better on the demo
     and the three-ways, so off by default; benchmarks/workers.py).
 
-    Returns the winner (its ``islands``: each island's run and the parent's clock) and one summary per island
-    (seed, cost, evaluations with its share of the polish, complete, restarts, kernel).
+    Parameters
+    ----------
+    system : System
+        The loaded job (:class:`~xo_fit.model.system.System`).
+    workers : int
+        The number of islands, one process each (dimensionless).
+    optimizer, budget, seed, time_limit : optional
+        As :func:`run_fit` (``budget``: the whole fit's, shared by the islands, dimensionless; ``time_limit`` in
+        s; ``seed``: the first island's); default the job's [search].
+    exchange : bool
+        Whether the islands exchange their best (JADE only; see above).
+
+    Returns
+    -------
+    outcome : FitOutcome
+        The winner by the feasibility-first order (its ``islands``: each island's run and the parent's clock),
+        marked incomplete where interrupted.
+    summary : list of dict
+        One per island that found a design: ``seed``, ``cost`` (dimensionless), ``evaluations`` (with its share
+        of the polish), ``complete``, ``restarts``, ``kernel``.
+
+    Raises
+    ------
+    XoFitError
+        As :func:`run_fit`, or whatever error stopped an island's search (raised again here unless interrupted);
+        KeyboardInterrupt where every island stopped before its first evaluation.
     """
     import dataclasses
 
@@ -272,7 +469,18 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
 
 
 def target_db(s: Scored) -> np.ndarray | None:
-    """The system target in dB SPL on the grid at the design's level, or None."""
+    """The system target on the grid at a design's level.
+
+    Parameters
+    ----------
+    s : Scored
+        A scored design (:func:`score`).
+
+    Returns
+    -------
+    ndarray or None
+        The target in dB SPL, shape (F,); None where the design has no targets.
+    """
     if s.targets is None:
         return None
     with np.errstate(divide="ignore"):

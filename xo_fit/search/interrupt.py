@@ -31,7 +31,14 @@ _STOP: _StopState = {"flag": False, "event": None, "parent": None}
 
 def stop_requested() -> bool:
     """Whether this worker process was asked to stop (a signal, or its parent through the pool's event), or its
-    parent has died (the worker then belongs to another process)."""
+    parent has died (the worker then belongs to another process).
+
+    Returns
+    -------
+    bool
+        True once the search in this process should stop at its next batch; always False in a process that
+        :func:`worker_init` has not set up (the main process, where Ctrl-C raises KeyboardInterrupt instead).
+    """
     event = _STOP["event"]
     parent = _STOP["parent"]
     return bool(_STOP["flag"] or (event is not None and event.is_set())
@@ -44,7 +51,14 @@ def _note(signum, frame) -> None:
 
 def worker_init(event: Event | None) -> None:
     """Pool initializer: Ctrl-C or SIGTERM in a worker, ``event`` set by the parent, or the parent's death stops its
-    search (which returns its best so far); the worker's numerical libraries use one thread each."""
+    search (which returns its best so far); the worker's numerical libraries use one thread each.
+
+    Parameters
+    ----------
+    event : multiprocessing.Event or None
+        The pool's event (:func:`stopping_pool`): the parent sets it to stop every worker; None: signals and the
+        parent's death only.
+    """
     _STOP["flag"] = False
     _STOP["event"] = event
     _STOP["parent"] = os.getppid()
@@ -55,9 +69,25 @@ def worker_init(event: Event | None) -> None:
 
 
 def stopping_pool(workers: int, initializer=None, initargs: tuple = ()):
-    """A ProcessPoolExecutor of ``workers`` processes whose searches stop when the returned event is set, and the
-    event: (pool, event). ``initializer(*initargs)``, where given, runs in each worker after :func:`worker_init`
-    (what every task of the pool shares, handed over once per worker rather than once per task)."""
+    """A ProcessPoolExecutor of ``workers`` processes whose searches stop when the returned event is set.
+
+    Parameters
+    ----------
+    workers : int
+        The number of worker processes (dimensionless).
+    initializer : callable or None
+        Run as ``initializer(*initargs)`` in each worker after :func:`worker_init`: what every task of the pool
+        shares, handed over once per worker rather than once per task. None: :func:`worker_init` only.
+    initargs : tuple
+        Its arguments.
+
+    Returns
+    -------
+    pool : concurrent.futures.ProcessPoolExecutor
+        The pool (the caller shuts it down).
+    event : multiprocessing.Event
+        Set it to stop every worker's search at its next batch.
+    """
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor
 
@@ -80,7 +110,13 @@ def _init_with(event: Event | None, initializer, initargs: tuple) -> None:
 @contextlib.contextmanager
 def sigterm_interrupts() -> Iterator[None]:
     """Inside, SIGTERM raises KeyboardInterrupt in the main thread as Ctrl-C does (a search then keeps its best
-    design so far); the previous handler comes back afterwards. Elsewhere than the main thread: nothing changes."""
+    design so far); the previous handler comes back afterwards. Elsewhere than the main thread: nothing changes.
+
+    Yields
+    ------
+    None
+        Nothing: a context manager (``with sigterm_interrupts(): ...``).
+    """
     if threading.current_thread() is not threading.main_thread():
         yield
         return
@@ -97,10 +133,20 @@ def sigterm_interrupts() -> Iterator[None]:
 
 @contextlib.contextmanager
 def signals_set(event: Event) -> Iterator[list]:
-    """Inside, Ctrl-C and SIGTERM set ``event`` (a pool's: every worker stops at its next batch) instead of raising
-    KeyboardInterrupt in the main thread, so that a parent gathering its workers' results is never cut off
-    half-way; the yielded list receives each signal's number. The previous handlers come back afterwards.
-    Elsewhere than the main thread: nothing changes."""
+    """Inside, Ctrl-C and SIGTERM set ``event`` instead of raising KeyboardInterrupt in the main thread, so that a
+    parent gathering its workers' results is never cut off half-way. The previous handlers come back afterwards.
+    Elsewhere than the main thread: nothing changes.
+
+    Parameters
+    ----------
+    event : multiprocessing.Event
+        A pool's event (:func:`stopping_pool`): once set, every worker stops at its next batch.
+
+    Yields
+    ------
+    list of int
+        Receives the number of each signal that arrives inside (empty: none did).
+    """
     got: list = []
     if threading.current_thread() is not threading.main_thread():
         yield got

@@ -47,11 +47,26 @@ MIGRATION_GENERATIONS = 50
 
 @dataclass
 class IslandRun:
-    """What one island returns: its search (None when its process died), the migrants that entered its
-    population, and its clock: time.monotonic (shared by the processes of one machine) when its process
-    ``began``, its search was ``ready`` to begin (the cost built or inherited), had ``searched`` and the island
-    ``ended`` (after its polish); its CPU time (time.process_time) at the last three as ``cpu_ready``,
-    ``cpu_searched``, ``cpu_ended``; with migration, the seconds it ``waited`` for migrants and its ``epochs``."""
+    """What one island returns.
+
+    Attributes
+    ----------
+    result, polish : SearchResult or None
+        Its global search (None when its process died or the search failed) and the polish of the basins the
+        parent gave it, if any (:func:`~xo_fit.search.engines.polish_from`, chained).
+    error : BaseException or None
+        What stopped its search, when not the budget, the time or a signal.
+    received : int
+        How many migrants entered its population (dimensionless).
+    clock : dict
+        time.monotonic (in s, shared by the processes of one machine) when its process ``began``, its search was
+        ``ready`` to begin (the cost built or inherited), had ``searched`` and the island ``ended`` (after its
+        polish); its CPU time in s (time.process_time) at the last three as ``cpu_ready``, ``cpu_searched``,
+        ``cpu_ended``; with migration, the seconds it ``waited`` for migrants and its ``epochs``.
+    migrants, posted : list
+        Kept when asked (``keep``): (epoch, u (n,)) of each migrant that entered; (epoch, its evaluations then)
+        of each of its posts.
+    """
 
     result: SearchResult | None
     error: BaseException | None = None  # what stopped its search, when not the budget, the time or a signal
@@ -63,7 +78,8 @@ class IslandRun:
 
 
     def final(self) -> SearchResult | None:
-        """The island's search with its polish, if any, folded in (:func:`chain`)."""
+        """The island's search with its polish, if any, folded in (:func:`chain`; interrupted where the polish
+        was), or :attr:`result` alone (None: no search)."""
         if self.result is None or self.polish is None:
             return self.result
         out = chain(self.result, self.polish)
@@ -75,9 +91,19 @@ def _key(cost: float, violation: float) -> float:
 
 
 def chain(first: SearchResult, then: SearchResult) -> SearchResult:
-    """Two searches run one after the other (a search and its polish) as one: ``first``'s fields with the better
-    design of the two by the feasibility-first order, the evaluations and seconds of both, the history of both
-    (the best so far over both), complete when both are."""
+    """Two searches run one after the other (a search and its polish) as one.
+
+    Parameters
+    ----------
+    first, then : SearchResult
+        The earlier search and the later one.
+
+    Returns
+    -------
+    SearchResult
+        ``first``'s fields with the better design of the two by the feasibility-first order, the evaluations and
+        seconds of both, the history of both (the best so far over both), complete when both are.
+    """
     best = (first.cost, first.violation)
     history = list(first.history)
     for h in then.history:
@@ -95,7 +121,9 @@ def chain(first: SearchResult, then: SearchResult) -> SearchResult:
 
 class Problem:
     """What an island searches: ``build(data)`` -> (fn, space, constrained), built once in the parent. A forked
-    process inherits it built; pickling (a spawned process) leaves the built part behind, to be built again."""
+    process inherits it built; pickling (a spawned process) leaves the built part behind, to be built again.
+    ``build``: e.g. :func:`xo_fit.search.fitting.search_problem`, ``data`` a loaded job; ``built``: the triple
+    where already built."""
 
     def __init__(self, build: Callable, data, built: tuple | None = None) -> None:
         self.build = build
@@ -103,6 +131,7 @@ class Problem:
         self.built = built
 
     def get(self) -> tuple:
+        """(fn, space, constrained), built on the first call where not built yet."""
         if self.built is None:
             self.built = self.build(self.data)
         return self.built
@@ -112,9 +141,9 @@ class Problem:
 
 
 def epochs(budget: int, dims: int) -> tuple[int, int]:
-    """(evaluations per epoch, epochs) of an island whose global search has ``budget`` evaluations, with ``dims``
-    free values. The last epoch ends at least two of the largest generations before the budget, so that every
-    island reaches every epoch (none waits for another's end)."""
+    """(evaluations per epoch, the last epoch; 0: no exchange), dimensionless, of an island whose global search
+    has ``budget`` evaluations, with ``dims`` free values. The last epoch ends at least two of the largest
+    generations before the budget, so that every island reaches every epoch (none waits for another's end)."""
     every = MIGRATION_GENERATIONS * population_size(dims)
     return every, max(0, (budget - 2 * MAX_POPULATION) // every)
 
@@ -122,7 +151,8 @@ def epochs(budget: int, dims: int) -> tuple[int, int]:
 class Migration:
     """An island's side of the exchange: called after each JADE generation (:attr:`Objective.exchange`); at
     each epoch boundary it posts the island's best, waits for its predecessor's, and puts it into the
-    population in place of the worst member when it is better."""
+    population in place of the worst member when it is better. ``conn``: the island's pipe to the parent;
+    ``every``, ``last``: :func:`epochs`; ``keep``: keep each migrant that entered and each post (for tests)."""
 
     def __init__(self, conn, every: int, last: int, keep: bool = False) -> None:
         self.conn = conn
@@ -241,13 +271,35 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
                 polish: bool, exchange: bool = False, keep: bool = False) -> tuple[list[IslandRun], bool, dict]:
     """One search of ``budget`` evaluations on one island per seed (see the module).
 
-    problem: the search's objective (fn, space, constrained), built here if not yet; ``exchange``: the islands
-    exchange their best every epoch; ``keep`` keeps each migrant that entered and each post (for tests). The
-    global search's share of the budget is split equally; ``polish``: the best POLISH_BASINS distinct basins of
-    all islands are polished, side by side, sharing what is left. Returns the islands' runs in seed order,
-    whether the search was interrupted (Ctrl-C, SIGTERM), and the parent's clock (time.monotonic; ``start``:
-    before the first process started, ``started``: after the last, ``searched``: every global search done,
-    ``gathered``: every island done; its CPU time at the first two as ``cpu_start``, ``cpu_started``).
+    Parameters
+    ----------
+    problem : Problem
+        The search's objective (fn, space, constrained), built here if not yet.
+    seeds : list of int
+        The seeds (dimensionless), one island each (:func:`xo_fit.search.fitting.restart_seeds`).
+    optimizer : str
+        The engine (:func:`xo_fit.search.engines.engine`).
+    budget : int
+        The whole search's evaluations (dimensionless); the global search's share is split equally.
+    time_limit : float or None
+        Each island's global search's wall-clock limit in s; None: none.
+    polish : bool
+        Polish the best POLISH_BASINS distinct basins of all islands, side by side, sharing what is left.
+    exchange : bool
+        The islands exchange their best every epoch (JADE only: :func:`exchanges`).
+    keep : bool
+        Keep each migrant that entered and each post (for tests).
+
+    Returns
+    -------
+    runs : list of IslandRun
+        The islands' runs in seed order.
+    interrupted : bool
+        Whether the search was interrupted (Ctrl-C, SIGTERM).
+    clock : dict
+        The parent's time.monotonic in s: ``start`` before the first process started, ``started`` after the
+        last, ``searched`` every global search done, ``gathered`` every island done; its CPU time at the first two
+        as ``cpu_start``, ``cpu_started``.
     """
     import multiprocessing
 
@@ -305,7 +357,8 @@ def _reap(procs: list, event, failed: bool) -> None:
 class Coordinator:
     """The parent's side: answers each island's post at epoch k with its predecessor's best at epoch k or later
     (or its final best once its search is done); once every search is done, hands out the polish of the best
-    distinct basins; gathers the islands' runs."""
+    distinct basins; gathers the islands' runs. ``conns``: the parent's ends of the islands' pipes, in seed order;
+    ``event``: the islands' stop event; ``budget``: the whole search's evaluations (0: no polish)."""
 
     def __init__(self, conns: list, event, budget: int) -> None:
         self.conns = conns
@@ -338,6 +391,7 @@ class Coordinator:
                 self.event.set()
 
     def receive(self, i: int) -> None:
+        """Take island i's next message: a post, its searched run, or its final run (None where it died)."""
         try:
             message = self.conns[i].recv()
         except (EOFError, OSError):  # the island's process died
@@ -367,6 +421,7 @@ class Coordinator:
         return self.stopping, None
 
     def answer(self) -> None:
+        """Send each waiting island its migrant where ready (None once stopping, or with a single island)."""
         for i, epoch in list(self.waiting.items()):
             ready, m = self.migrant(i, epoch)
             if ready:
@@ -374,6 +429,7 @@ class Coordinator:
                 self.send(i, None if self.stopping or len(self.conns) == 1 else m)
 
     def send(self, i: int, message) -> None:
+        """Send island i ``message``; an island whose pipe is gone is passed over."""
         try:
             self.conns[i].send(message)
         except (BrokenPipeError, OSError):
@@ -394,10 +450,22 @@ class Coordinator:
 
 
 def polish_plan(runs: dict, left: int) -> dict:
-    """Which island polishes which basin: the best POLISH_BASINS distinct basins of all islands' runs {island:
-    IslandRun} by the feasibility-first order, each polished by the island that found it where that one has none
-    yet (else by the one with the fewest), with an equal share of the ``left`` evaluations: {island: [(point (n,),
-    budget), ...]}."""
+    """Which island polishes which basin: the best POLISH_BASINS distinct basins of all islands by the
+    feasibility-first order, each polished by the island that found it where that one has none yet (else by
+    the one with the fewest), with an equal share of what is left.
+
+    Parameters
+    ----------
+    runs : dict
+        {island: IslandRun} of the islands whose search found a design.
+    left : int
+        The evaluations left for the polish (dimensionless).
+
+    Returns
+    -------
+    dict
+        {island: [(point (n,), budget), ...]}; empty where there is nothing to polish.
+    """
     basins = []
     for i in sorted(runs):
         r = runs[i].result

@@ -57,10 +57,31 @@ def _setulb():
 
 def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.ndarray, lower: np.ndarray,
                  upper: np.ndarray, *, ftol: float, gtol: float, maxiter: int) -> tuple[np.ndarray, float]:
-    """Minimise ``fun`` (returning value and gradient) over the box ``lower <= x <= upper``.
+    """Minimise ``fun`` over the box ``lower <= x <= upper`` by L-BFGS-B (scipy's routine and loop).
 
-    x0, lower, upper: shape (n,). ``ftol``, ``gtol``, ``maxiter`` as in scipy's L-BFGS-B options. Returns the
-    end point (n,) and its value.
+    Parameters
+    ----------
+    fun : callable
+        ``fun(x)`` with x of shape (n,) returns the value (a float) and its gradient, shape (n,); the polish
+        passes the cost (dimensionless) of a point in the unit cube.
+    x0 : ndarray
+        The start point, shape (n,); clipped into the box.
+    lower, upper : ndarray
+        The box's bounds, shape (n,) each, in x's units.
+    ftol : float
+        Stop when the relative reduction of the value in a step is at most ftol (dimensionless; scipy's option).
+    gtol : float
+        Stop when the largest projected gradient component is at most gtol (in fun's units per unit of x:
+        dimensionless in the polish).
+    maxiter : int
+        Iterations at most (dimensionless); evaluations stop at MAXFUN too.
+
+    Returns
+    -------
+    x : ndarray
+        The end point, shape (n,).
+    f : float
+        Its value, in fun's units (dimensionless in the polish).
     """
     setulb = _setulb()
     lower = np.asarray(lower, dtype=np.float64)
@@ -78,7 +99,13 @@ def one_blas_thread():
     """A context with one BLAS thread: the routine's products are of size n x MAXCOR, and waking OpenBLAS's
     threads for each of them cost a whole fit of the hard three-way 40 % of its time on two cores (0.19 s against
     0.11 s, measured); a no-op without threadpoolctl. The libraries are looked up once per process (about 1 ms
-    each time, which a prune's hundreds of short polishes would pay again and again)."""
+    each time, which a prune's hundreds of short polishes would pay again and again).
+
+    Returns
+    -------
+    contextlib.AbstractContextManager
+        threadpoolctl's limit (``with one_blas_thread(): ...``), or a null context.
+    """
     try:
         if not _controller:
             from threadpoolctl import ThreadpoolController

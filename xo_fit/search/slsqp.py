@@ -60,10 +60,30 @@ def minimize_slsqp(values: Callable[[np.ndarray], tuple[float, np.ndarray]],
                    lower: np.ndarray, upper: np.ndarray, *, ftol: float, maxiter: int) -> tuple[np.ndarray, float]:
     """Minimise f(x) subject to c(x) >= 0 (each of m constraints) over the box ``lower <= x <= upper``.
 
-    ``values(x)`` returns f (a float) and c (m,); ``gradients(x)``, called at the point ``values`` was called
-    at last, returns the gradient of f (n,), the Jacobian of c (m, n) and c (m,) again (which a caller may
-    change there: the constraints hold from then on, as in a bundle of linearisations). x0, lower, upper: (n,).
-    ``ftol`` and ``maxiter`` as scipy's SLSQP options. Returns the end point (n,) and its f.
+    Parameters
+    ----------
+    values : callable
+        ``values(x)``, x of shape (n,), returns f (a float) and c, shape (m,) (dimensionless in the polish: the
+        scaled cost and the limits' relative excesses).
+    gradients : callable
+        ``gradients(x)``, called at the point ``values`` was called at last, returns the gradient of f, shape
+        (n,), the Jacobian of c, shape (m, n), and c, shape (m,), again (which a caller may change there: the
+        constraints hold from then on, as in a bundle of linearisations).
+    x0 : ndarray
+        The start point, shape (n,); clipped into the box.
+    lower, upper : ndarray
+        The box's bounds, shape (n,) each, in x's units.
+    ftol : float
+        The routine's accuracy goal for f (dimensionless, as f is in the polish; scipy's SLSQP option).
+    maxiter : int
+        Iterations at most (dimensionless).
+
+    Returns
+    -------
+    x : ndarray
+        The end point, shape (n,).
+    f : float
+        Its f, in f's units (dimensionless in the polish).
     """
     steps = slsqp_steps(x0, lower, upper, ftol=ftol, maxiter=maxiter)
     if steps is None:
@@ -83,9 +103,27 @@ def minimize_slsqp(values: Callable[[np.ndarray], tuple[float, np.ndarray]],
 def slsqp_steps(x0: np.ndarray, lower: np.ndarray, upper: np.ndarray, *, ftol: float,
                 maxiter: int) -> Generator[tuple[str, np.ndarray], tuple, tuple[np.ndarray, float]] | None:
     """scipy's SLSQP loop as a generator, so that a caller may run several at once and evaluate their points
-    together: it yields ``("values", x)`` and is sent back (f, c), or ``("gradients", x)`` (at the point of the
-    last "values") and is sent back (gradient of f, Jacobian of c, c), as :func:`minimize_slsqp` describes; it
-    returns the end point and its f. None where scipy's compiled routine cannot be loaded."""
+    together.
+
+    Parameters
+    ----------
+    x0 : ndarray
+        The start point, shape (n,); clipped into the box.
+    lower, upper : ndarray
+        The box's bounds, shape (n,) each, in x's units.
+    ftol : float
+        The routine's accuracy goal for f (dimensionless, as f is in the polish; scipy's SLSQP option).
+    maxiter : int
+        Iterations at most (dimensionless).
+
+    Returns
+    -------
+    generator or None
+        A generator that yields ``("values", x)``, x of shape (n,), and is sent back (f, c), or
+        ``("gradients", x)`` (at the point of the last "values") and is sent back (gradient of f, Jacobian of c,
+        c), as :func:`minimize_slsqp` describes; it returns (end point (n,), its f) in its StopIteration. None
+        where scipy's compiled routine cannot be loaded (then use :func:`minimize_slsqp`).
+    """
     routine = _slsqp()
     if routine is None:
         return None
