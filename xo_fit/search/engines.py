@@ -227,14 +227,19 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
               best: list) -> None:
     """One JADE run (current-to-pbest/1/bin with archive, vectorised over the population) until its population
     has converged or its best has stagnated; ``best`` receives [cost, point] of the run as it improves."""
-    pop = latin_hypercube(npop, n, rng)
+    # the population and the archive share one buffer (the union the second difference vector draws from is
+    # rows [0, npop + archived)), so that nothing is stacked per generation; pop and fit change in place
+    buf = np.empty((3 * npop, n))
+    pop = buf[:npop]
+    pop[:] = latin_hypercube(npop, n, rng)
     if u0 is not None:
         pop[0] = u0
     rank = EpsilonLevel(obj) if obj.constrained else None  # under limits: epsilon-level comparisons
-    fit = obj(pop) if rank is None else rank.first(pop)
+    fit = np.array(obj(pop), dtype=float) if rank is None else rank.first(pop)
     i = int(np.argmin(fit))
     best[:] = [float(fit[i]), pop[i].copy()] if rank is None else rank.best(pop)
-    archive = np.empty((0, n))
+    archived = 0
+    rows = np.arange(npop)
     mu_f, mu_cr, c, p_best = 0.5, 0.5, 0.1, 0.1
     top = max(2, int(round(p_best * npop)))
     trace = [best[0]]
@@ -242,36 +247,52 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         if rank is not None:
             fit = rank.population()
         f = mu_f + 0.1 * rng.standard_cauchy(npop)
-        while np.any(f <= 0):  # JADE: regenerate non-positive F
+        while f.min() <= 0:  # JADE: regenerate non-positive F
             bad = f <= 0
             f[bad] = mu_f + 0.1 * rng.standard_cauchy(int(bad.sum()))
-        f = np.minimum(f, 1.0)
-        cr = np.clip(rng.normal(mu_cr, 0.1, npop), 0.0, 1.0)
+        np.minimum(f, 1.0, out=f)
+        cr = rng.normal(mu_cr, 0.1, npop)
+        np.minimum(np.maximum(cr, 0.0, out=cr), 1.0, out=cr)
         order = np.argsort(fit, kind="stable")
         pbest = pop[order[rng.integers(0, top, npop)]]
-        r1 = (np.arange(npop) + rng.integers(1, npop, npop)) % npop
-        union = np.vstack([pop, archive]) if archive.size else pop
-        r2 = rng.integers(0, union.shape[0], npop)
-        mutant = pop + f[:, None] * (pbest - pop) + f[:, None] * (pop[r1] - union[r2])
+        r1 = (rows + rng.integers(1, npop, npop)) % npop
+        r2 = rng.integers(0, npop + archived, npop)
+        # pop + F (pbest - pop) + F (pop[r1] - union[r2]), the same operations in the same order, in place
+        fc = f[:, None]
+        mutant = pbest
+        mutant -= pop
+        mutant *= fc
+        mutant += pop
+        step = pop[r1]
+        step -= buf[r2]
+        step *= fc
+        mutant += step
         # bounds: halfway between the parent and the violated bound (JADE)
-        mutant = np.where(mutant < 0, pop / 2, mutant)
-        mutant = np.where(mutant > 1, (pop + 1) / 2, mutant)
+        out = mutant < 0
+        if out.any():
+            mutant[out] = pop[out] / 2
+        out = mutant > 1
+        if out.any():
+            mutant[out] = (pop[out] + 1) / 2
         cross = rng.random((npop, n)) < cr[:, None]
-        cross[np.arange(npop), rng.integers(0, n, npop)] = True
+        cross[rows, rng.integers(0, n, npop)] = True
         trial = np.where(cross, mutant, pop)
         tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
         if better.any():
-            archive = np.vstack([archive, pop[better]])
-            if archive.shape[0] > npop:
-                archive = archive[rng.permutation(archive.shape[0])[:npop]]
+            gained = pop[better]
+            buf[npop + archived:npop + archived + gained.shape[0]] = gained
+            archived += gained.shape[0]
+            if archived > npop:
+                buf[npop:2 * npop] = buf[npop:npop + archived][rng.permutation(archived)[:npop]]
+                archived = npop
             sf, scr = f[better], cr[better]
-            mu_f = (1 - c) * mu_f + c * float(np.sum(sf**2) / np.sum(sf))
-            mu_cr = (1 - c) * mu_cr + c * float(np.mean(scr))
-        pop = np.where(better[:, None], trial, pop)
-        fit = np.where(better, tfit, fit)
+            mu_f = (1 - c) * mu_f + c * float((sf * sf).sum() / sf.sum())
+            mu_cr = (1 - c) * mu_cr + c * float(scr.sum() / scr.size)
+            np.copyto(pop, trial, where=better[:, None])
+            np.copyto(fit, tfit, where=better)
         if rank is None:
-            i = int(np.argmin(fit))
+            i = int(fit.argmin())
             if fit[i] < best[0]:
                 best[:] = [float(fit[i]), pop[i].copy()]
         else:
@@ -284,7 +305,8 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         trace.append(best[0])
         if rank is not None and not rank.settled:
             continue  # epsilon still falling: the run goes on
-        if np.ptp(fit) <= CONVERGED * (abs(float(fit.min())) + CONVERGED) and np.ptp(pop, axis=0).max() < 1e-6:
+        low = fit.min()
+        if fit.max() - low <= CONVERGED * (abs(float(low)) + CONVERGED) and (pop.max(0) - pop.min(0)).max() < 1e-6:
             return
         if len(trace) > STAGNATION and trace[-1] >= trace[-1 - STAGNATION] - STAGNATION_TOL * abs(trace[-1]):
             return  # the best has improved by less than 0.1 % over the last STAGNATION generations: a basin
