@@ -52,6 +52,7 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field
+from functools import cached_property
 from collections.abc import Callable
 
 import numpy as np
@@ -88,9 +89,17 @@ class Space:
     def values(self, u: np.ndarray) -> np.ndarray:
         """Part values (B, P) in SI for points u (B, n) of the cube."""
         u = np.atleast_2d(u)
-        out = np.repeat(self.base[None, :], u.shape[0], axis=0)
-        out[:, self.columns] = np.exp(self.lo + np.clip(u, 0.0, 1.0) * (self.hi - self.lo))
+        out = np.empty((u.shape[0], self.base.size))
+        out[:] = self.base
+        x = np.minimum(np.maximum(u, 0.0), 1.0)  # np.clip's arithmetic without its Python wrapper
+        x *= self._span
+        x += self.lo
+        out[:, self.columns] = np.exp(x, out=x)
         return out
+
+    @cached_property
+    def _span(self) -> np.ndarray:
+        return self.hi - self.lo
 
 
 def make_space(job) -> Space:
@@ -143,13 +152,37 @@ class Objective:
     exchange: Callable | None = None
 
     def __call__(self, u: np.ndarray) -> np.ndarray:
-        cost, violation = self.evaluate(u)
-        return feasibility_key(cost, violation) if self.constrained else cost
+        if self.constrained:
+            cost, violation = self.evaluate(u)
+            return feasibility_key(cost, violation)
+        return self._costs(u)
 
     def evaluate(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Costs (B,) and total violations (B,; zeros when not constrained) of cube points u (B, n), counted.
         A constrained fn may also return each limit's signed excess (B, L): kept as ``last_excess``."""
-        u = np.atleast_2d(np.asarray(u, dtype=float))
+        if not self.constrained:
+            cost = self._costs(u)
+            return cost, np.zeros(cost.shape[0])
+        u = self._check(u)
+        take = min(u.shape[0], self.budget - self.evaluations)
+        cost = np.full(u.shape[0], np.inf)
+        violation = np.full(u.shape[0], np.inf)
+        out = self.fn(u[:take])
+        cost[:take] = np.asarray(out[0], dtype=float)
+        violation[:take] = np.asarray(out[1], dtype=float)
+        g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
+        self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
+        self.last_excess[:take] = g
+        cost = np.where(np.isfinite(cost), cost, np.inf)
+        self.evaluations += take
+        key = feasibility_key(cost, violation)
+        self._keep(u, key, cost, violation)
+        return cost, violation
+
+    def _check(self, u: np.ndarray) -> np.ndarray:
+        """u as a float array (B, n); raises Stop (or KeyboardInterrupt) where the search must end first."""
+        if type(u) is not np.ndarray or u.ndim != 2 or u.dtype != np.float64:
+            u = np.atleast_2d(np.asarray(u, dtype=float))
         if self.evaluations >= self.budget:
             self.stopped_by = self.stopped_by or "budget"
             raise _Stop
@@ -159,34 +192,39 @@ class Objective:
         if self.evaluations and stop_requested():  # a worker process asked to stop (Ctrl-C, SIGTERM, its parent)
             self.stopped_by = "interrupted"
             raise KeyboardInterrupt
-        take = min(u.shape[0], self.budget - self.evaluations)
-        cost = np.full(u.shape[0], np.inf)
-        violation = np.zeros(u.shape[0])
-        if self.constrained:
-            violation[:] = np.inf
-            out = self.fn(u[:take])
-            cost[:take] = np.asarray(out[0], dtype=float)
-            violation[:take] = np.asarray(out[1], dtype=float)
-            g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
-            self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
-            self.last_excess[:take] = g
-        else:
-            cost[:take] = np.asarray(self.fn(u[:take]), dtype=float)
-        cost = np.where(np.isfinite(cost), cost, np.inf)
+        return u
+
+    def _costs(self, u: np.ndarray) -> np.ndarray:
+        """The unconstrained evaluation: costs (B,) of cube points u (B, n), counted (inf past the budget and
+        where not finite); fn's own array where the whole batch fits and every cost is finite."""
+        u = self._check(u)
+        b = u.shape[0]
+        take = min(b, self.budget - self.evaluations)
+        cost = np.asarray(self.fn(u if take == b else u[:take]), dtype=float)
+        if take < b or cost.shape != (b,):
+            full = np.full(b, np.inf)
+            full[:take] = cost
+            cost = full
+        finite = np.isfinite(cost)
+        if not finite.all():
+            cost = np.where(finite, cost, np.inf)
         self.evaluations += take
-        key = feasibility_key(cost, violation) if self.constrained else cost
+        self._keep(u, cost, cost, None)
+        return cost
+
+    def _keep(self, u: np.ndarray, key: np.ndarray, cost: np.ndarray, violation: np.ndarray | None) -> None:
+        """The batch's bookkeeping: its keys, the best point so far, the history and the progress."""
         self.last_key = key
-        i = int(np.argmin(key))
+        i = int(key.argmin())
         if key[i] < self.best_key:
             self.best_key = float(key[i])
             self.best_cost = float(cost[i])
-            self.best_violation = float(violation[i])
+            self.best_violation = 0.0 if violation is None else float(violation[i])
             self.best_u = u[i].copy()
         self.history.append((self.evaluations, self.best_cost, self.best_violation) if self.constrained
                             else (self.evaluations, self.best_cost))
         if self.progress is not None:
             self.progress(self.evaluations, self.budget, self.best_cost)
-        return cost, violation
 
 
 @dataclass(frozen=True)
@@ -240,6 +278,7 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
     best[:] = [float(fit[i]), pop[i].copy()] if rank is None else rank.best(pop)
     archived = 0
     rows = np.arange(npop)
+    firsts = rows * n  # each row's first cell in the flattened (npop, n)
     mu_f, mu_cr, c, p_best = 0.5, 0.5, 0.1, 0.1
     top = max(2, int(round(p_best * npop)))
     trace = [best[0]]
@@ -254,8 +293,10 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         cr = rng.normal(mu_cr, 0.1, npop)
         np.minimum(np.maximum(cr, 0.0, out=cr), 1.0, out=cr)
         order = np.argsort(fit, kind="stable")
-        pbest = pop[order[rng.integers(0, top, npop)]]
-        r1 = (rows + rng.integers(1, npop, npop)) % npop
+        pbest = pop.take(order.take(rng.integers(0, top, npop)), axis=0)
+        r1 = rng.integers(1, npop, npop)
+        r1 += rows
+        r1 %= npop
         r2 = rng.integers(0, npop + archived, npop)
         # pop + F (pbest - pop) + F (pop[r1] - union[r2]), the same operations in the same order, in place
         fc = f[:, None]
@@ -263,19 +304,19 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         mutant -= pop
         mutant *= fc
         mutant += pop
-        step = pop[r1]
-        step -= buf[r2]
+        step = pop.take(r1, axis=0)
+        step -= buf.take(r2, axis=0)
         step *= fc
         mutant += step
         # bounds: halfway between the parent and the violated bound (JADE)
-        out = mutant < 0
-        if out.any():
+        if mutant.min() < 0:
+            out = mutant < 0
             mutant[out] = pop[out] / 2
-        out = mutant > 1
-        if out.any():
+        if mutant.max() > 1:
+            out = mutant > 1
             mutant[out] = (pop[out] + 1) / 2
         cross = rng.random((npop, n)) < cr[:, None]
-        cross[rows, rng.integers(0, n, npop)] = True
+        cross.ravel()[firsts + rng.integers(0, n, npop)] = True  # one coordinate of each from the mutant
         trial = np.where(cross, mutant, pop)
         tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
@@ -396,7 +437,9 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
         key = u.tobytes()
         if key not in cache:
             h = np.where(u + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
-            pts = np.vstack([u, u + np.diag(h)])
+            pts = np.empty((n + 1, n))
+            pts[0] = u
+            np.add(u, np.diag(h), out=pts[1:])
             c = obj(pts)
             grad = (c[1:] - c[0]) / h
             cache.clear()
