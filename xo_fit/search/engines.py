@@ -52,7 +52,6 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass, field
-from functools import cached_property
 from collections.abc import Callable
 
 import numpy as np
@@ -60,6 +59,7 @@ import numpy as np
 from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
                            POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
+from xo_fit.job.settings import SearchSpec
 from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.lbfgsb import minimize_box
@@ -92,14 +92,10 @@ class Space:
         out = np.empty((u.shape[0], self.base.size))
         out[:] = self.base
         x = np.minimum(np.maximum(u, 0.0), 1.0)  # np.clip's arithmetic without its Python wrapper
-        x *= self._span
+        x *= self.hi - self.lo
         x += self.lo
         out[:, self.columns] = np.exp(x, out=x)
         return out
-
-    @cached_property
-    def _span(self) -> np.ndarray:
-        return self.hi - self.lo
 
 
 def make_space(job) -> Space:
@@ -152,35 +148,12 @@ class Objective:
     exchange: Callable | None = None
 
     def __call__(self, u: np.ndarray) -> np.ndarray:
-        if self.constrained:
-            cost, violation = self.evaluate(u)
-            return feasibility_key(cost, violation)
-        return self._costs(u)
+        cost, violation = self.evaluate(u)
+        return feasibility_key(cost, violation) if self.constrained else cost
 
     def evaluate(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Costs (B,) and total violations (B,; zeros when not constrained) of cube points u (B, n), counted.
         A constrained fn may also return each limit's signed excess (B, L): kept as ``last_excess``."""
-        if not self.constrained:
-            cost = self._costs(u)
-            return cost, np.zeros(cost.shape[0])
-        u = self._check(u)
-        take = min(u.shape[0], self.budget - self.evaluations)
-        cost = np.full(u.shape[0], np.inf)
-        violation = np.full(u.shape[0], np.inf)
-        out = self.fn(u[:take])
-        cost[:take] = np.asarray(out[0], dtype=float)
-        violation[:take] = np.asarray(out[1], dtype=float)
-        g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
-        self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
-        self.last_excess[:take] = g
-        cost = np.where(np.isfinite(cost), cost, np.inf)
-        self.evaluations += take
-        key = feasibility_key(cost, violation)
-        self._keep(u, key, cost, violation)
-        return cost, violation
-
-    def _check(self, u: np.ndarray) -> np.ndarray:
-        """u as a float array (B, n); raises Stop (or KeyboardInterrupt) where the search must end first."""
         if type(u) is not np.ndarray or u.ndim != 2 or u.dtype != np.float64:
             u = np.atleast_2d(np.asarray(u, dtype=float))
         if self.evaluations >= self.budget:
@@ -192,39 +165,38 @@ class Objective:
         if self.evaluations and stop_requested():  # a worker process asked to stop (Ctrl-C, SIGTERM, its parent)
             self.stopped_by = "interrupted"
             raise KeyboardInterrupt
-        return u
-
-    def _costs(self, u: np.ndarray) -> np.ndarray:
-        """The unconstrained evaluation: costs (B,) of cube points u (B, n), counted (inf past the budget and
-        where not finite); fn's own array where the whole batch fits and every cost is finite."""
-        u = self._check(u)
-        b = u.shape[0]
-        take = min(b, self.budget - self.evaluations)
-        cost = np.asarray(self.fn(u if take == b else u[:take]), dtype=float)
-        if take < b or cost.shape != (b,):
-            full = np.full(b, np.inf)
-            full[:take] = cost
-            cost = full
+        take = min(u.shape[0], self.budget - self.evaluations)
+        violation = np.zeros(u.shape[0])
+        if self.constrained:
+            cost = np.full(u.shape[0], np.inf)
+            violation[:] = np.inf
+            out = self.fn(u[:take])
+            cost[:take] = np.asarray(out[0], dtype=float)
+            violation[:take] = np.asarray(out[1], dtype=float)
+            g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
+            self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
+            self.last_excess[:take] = g
+        else:  # fn's own costs where the whole batch fits (no copy)
+            cost = np.asarray(self.fn(u if take == u.shape[0] else u[:take]), dtype=float)
+            if cost.shape != violation.shape:
+                cost, cost[:take] = np.full(u.shape[0], np.inf), cost  # the rest (past the budget) inf
         finite = np.isfinite(cost)
         if not finite.all():
             cost = np.where(finite, cost, np.inf)
         self.evaluations += take
-        self._keep(u, cost, cost, None)
-        return cost
-
-    def _keep(self, u: np.ndarray, key: np.ndarray, cost: np.ndarray, violation: np.ndarray | None) -> None:
-        """The batch's bookkeeping: its keys, the best point so far, the history and the progress."""
+        key = feasibility_key(cost, violation) if self.constrained else cost
         self.last_key = key
         i = int(key.argmin())
         if key[i] < self.best_key:
             self.best_key = float(key[i])
             self.best_cost = float(cost[i])
-            self.best_violation = 0.0 if violation is None else float(violation[i])
+            self.best_violation = float(violation[i])
             self.best_u = u[i].copy()
         self.history.append((self.evaluations, self.best_cost, self.best_violation) if self.constrained
                             else (self.evaluations, self.best_cost))
         if self.progress is not None:
             self.progress(self.evaluations, self.budget, self.best_cost)
+        return cost, violation
 
 
 @dataclass(frozen=True)
@@ -294,18 +266,13 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         np.minimum(np.maximum(cr, 0.0, out=cr), 1.0, out=cr)
         order = np.argsort(fit, kind="stable")
         pbest = pop.take(order.take(rng.integers(0, top, npop)), axis=0)
-        r1 = rng.integers(1, npop, npop)
-        r1 += rows
-        r1 %= npop
+        r1 = (rows + rng.integers(1, npop, npop)) % npop
         r2 = rng.integers(0, npop + archived, npop)
         # pop + F (pbest - pop) + F (pop[r1] - union[r2]), the same operations in the same order, in place
         fc = f[:, None]
-        mutant = pbest
-        mutant -= pop
-        mutant *= fc
+        mutant = (pbest - pop) * fc
         mutant += pop
-        step = pop.take(r1, axis=0)
-        step -= buf.take(r2, axis=0)
+        step = pop.take(r1, axis=0) - buf.take(r2, axis=0)
         step *= fc
         mutant += step
         # bounds: halfway between the parent and the violated bound (JADE)
@@ -450,10 +417,10 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
                  gtol=POLISH_GTOL)
 
 
-def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int = 20000,
-           seed: int = 1, time_limit: float | None = None, polish: bool = True,
-           progress: Callable[[int, int, float], None] | None = None, constrained: bool = False,
-           exchange: Callable | None = None) -> SearchResult:
+def search(fn: Callable, space: Space, *, optimizer: str = SearchSpec.optimizer, budget: int = SearchSpec.budget,
+           seed: int = SearchSpec.seed, time_limit: float | None = SearchSpec.time_limit,
+           polish: bool = SearchSpec.polish, progress: Callable[[int, int, float], None] | None = None,
+           constrained: bool = False, exchange: Callable | None = None) -> SearchResult:
     """Minimise fn over the space's unit cube within ``budget`` evaluations.
 
     fn: cube points (B, n) -> costs (B,); with ``constrained``, -> (costs (B,), total violations (B,)) and the
