@@ -260,7 +260,7 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         f = mu_f + 0.1 * rng.standard_cauchy(npop)
         while f.min() <= 0:  # JADE: regenerate non-positive F
             bad = f <= 0
-            f[bad] = mu_f + 0.1 * rng.standard_cauchy(int(bad.sum()))
+            f[bad] = mu_f + 0.1 * rng.standard_cauchy(np.count_nonzero(bad))
         np.minimum(f, 1.0, out=f)
         cr = rng.normal(mu_cr, 0.1, npop)
         np.minimum(np.maximum(cr, 0.0, out=cr), 1.0, out=cr)
@@ -287,16 +287,16 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         trial = np.where(cross, mutant, pop)
         tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
-        if better.any():
-            gained = pop[better]
-            buf[npop + archived:npop + archived + gained.shape[0]] = gained
-            archived += gained.shape[0]
+        k = np.count_nonzero(better)
+        if k:
+            buf[npop + archived:npop + archived + k] = pop[better]
+            archived += k
             if archived > npop:
                 buf[npop:2 * npop] = buf[npop:npop + archived][rng.permutation(archived)[:npop]]
                 archived = npop
             sf, scr = f[better], cr[better]
             mu_f = (1 - c) * mu_f + c * float((sf * sf).sum() / sf.sum())
-            mu_cr = (1 - c) * mu_cr + c * float(scr.sum() / scr.size)
+            mu_cr = (1 - c) * mu_cr + c * float(scr.sum() / k)
             np.copyto(pop, trial, where=better[:, None])
             np.copyto(fit, tfit, where=better)
         if rank is None:

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 import pickle
 import threading
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -196,9 +196,12 @@ def refit(system, budget: int, seed: int, family: Family | None = None, removed:
     if full is not None:
         assert family is not None  # full comes from the family
         fused, limited = family.fused, family.limited
+        # the space with its columns and base in the family's designs: full(space.values(u)) in one step
+        columns = np.array([family.names.index(n) for n in system.part_names])[space.columns]
+        wide = replace(space, columns=columns, base=full(space.base[None])[0])
 
         def fn(u: np.ndarray):
-            v = full(space.values(u))
+            v = wide.values(u)
             return fused.limited(v) if limited else fused(v)
     else:
         def fn(u: np.ndarray):
