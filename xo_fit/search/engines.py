@@ -276,15 +276,12 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         step *= fc
         mutant += step
         # bounds: halfway between the parent and the violated bound (JADE)
-        if mutant.min() < 0:
-            out = mutant < 0
-            mutant[out] = pop[out] / 2
-        if mutant.max() > 1:
-            out = mutant > 1
-            mutant[out] = (pop[out] + 1) / 2
-        cross = rng.random((npop, n)) < cr[:, None]
-        cross.ravel()[firsts + rng.integers(0, n, npop)] = True  # one coordinate of each from the mutant
-        trial = np.where(cross, mutant, pop)
+        np.copyto(mutant, pop * 0.5, where=mutant < 0)  # * 0.5: / 2 exactly
+        np.copyto(mutant, (pop + 1) * 0.5, where=mutant > 1)
+        keep = rng.random((npop, n)) >= cr[:, None]  # binomial crossover: the parent's coordinates kept
+        keep.ravel()[firsts + rng.integers(0, n, npop)] = False  # one coordinate of each from the mutant
+        trial = mutant
+        np.copyto(trial, pop, where=keep)
         tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
         k = np.count_nonzero(better)
