@@ -284,7 +284,7 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         np.copyto(trial, pop, where=keep)
         tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
-        k = np.count_nonzero(better)
+        k = int(np.count_nonzero(better))
         if k:
             buf[npop + archived:npop + archived + k] = pop[better]
             archived += k
