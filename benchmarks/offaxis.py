@@ -34,7 +34,7 @@ sys.path.insert(0, str(ROOT))
 from xo_fit.demo import write_scenario  # noqa: E402
 from xo_fit.search.fitting import cost_model  # noqa: E402
 from xo_fit.job.reader import load_job  # noqa: E402
-from xo_fit.search.engines import make_space  # noqa: E402
+from xo_fit.search.space import make_space  # noqa: E402
 from xo_fit.model.fused import FusedCost  # noqa: E402
 from xo_fit.model.system import load_system  # noqa: E402
 

@@ -74,7 +74,7 @@ import ctypes, statistics, sys, time
 import numpy as np
 from xo_fit.search.fitting import cost_model
 from xo_fit.job.reader import load_job
-from xo_fit.search.engines import make_space
+from xo_fit.search.space import make_space
 from xo_fit.solver import standalone
 from xo_fit.model.fused import FusedCost
 from xo_fit.model.system import load_system

@@ -14,7 +14,8 @@ import pytest
 
 from xo_fit.search.fitting import run_fit
 from xo_fit.job.reader import load_job
-from xo_fit.search.engines import make_space, search
+from xo_fit.search.engines import search
+from xo_fit.search.space import make_space
 from xo_fit.model.system import load_system
 
 from conftest import ladder_job
@@ -226,7 +227,8 @@ def test_restarts_spend_the_budget_exactly(write_job, budget):
     text, _ = ladder_job("LR2", start=2.0, spread=4.0)
     s = load_system(load_job(write_job(text)))
     from xo_fit.search.fitting import cost_model
-    from xo_fit.search.engines import make_space, search
+    from xo_fit.search.engines import search
+    from xo_fit.search.space import make_space
 
     space = make_space(s.job)
     cm, _ = cost_model(s)

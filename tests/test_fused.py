@@ -11,7 +11,7 @@ from xo_fit.demo import write_scenario
 from xo_fit.search.fitting import cost_model
 from xo_fit.model.fused import FusedCost
 from xo_fit.job.reader import load_job
-from xo_fit.search.engines import make_space
+from xo_fit.search.space import make_space
 from xo_fit.model.system import load_system
 
 from conftest import ladder_job

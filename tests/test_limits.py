@@ -23,7 +23,7 @@ from xo_fit.job.reader import load_job
 from xo_fit.model.fused import FLAG, FusedCost
 from xo_fit.model.limits import NAMES
 from xo_fit.model.system import load_system
-from xo_fit.search.engines import make_space
+from xo_fit.search.space import make_space
 from xo_fit.search.feasibility import feasibility_key
 from xo_fit.search.fitting import cost_model, robust_factors
 

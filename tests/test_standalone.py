@@ -69,7 +69,7 @@ def test_a_new_topology_is_built_once_and_fits_without_numba(tmp_path):
 def _kernel_args(job: Path, batch: int = 256):
     from xo_fit.search.fitting import cost_model
     from xo_fit.job.reader import load_job
-    from xo_fit.search.engines import make_space
+    from xo_fit.search.space import make_space
     from xo_fit.model.fused import FusedCost
     from xo_fit.model.system import load_system
 

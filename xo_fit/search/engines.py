@@ -45,57 +45,11 @@ import numpy as np
 from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
                            POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
 from xo_fit.errors import XoFitError
+from xo_fit.job.settings import SearchSpec
 from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.lbfgsb import minimize_box
-
-
-@dataclass(frozen=True)
-class Space:
-    """The free values of a job as a unit cube.
-
-    names: free parts; columns: their columns in the values array (P);
-    lo, hi: log of min and max (SI); base: every part's value (P,) with the
-    free ones at their start; u0: the start point in the cube (n,), or None
-    when no free part has a start value (then the search starts from random).
-    """
-
-    names: tuple[str, ...]
-    columns: np.ndarray
-    lo: np.ndarray
-    hi: np.ndarray
-    base: np.ndarray
-    u0: np.ndarray | None
-
-    @property
-    def dims(self) -> int:
-        """The number of free values n (dimensionless)."""
-        return len(self.names)
-
-    def values(self, u: np.ndarray) -> np.ndarray:
-        """Part values (B, P) in SI for points u (B, n) of the cube."""
-        u = np.atleast_2d(u)
-        out = np.repeat(self.base[None, :], u.shape[0], axis=0)
-        out[:, self.columns] = np.exp(self.lo + np.clip(u, 0.0, 1.0) * (self.hi - self.lo))
-        return out
-
-
-def make_space(job) -> Space:
-    """The search space of a job: its free parts with their ranges and start values (XoFitError: none free)."""
-    parts = job.valued_parts
-    free = [i for i, p in enumerate(parts) if p.free]
-    if not free:
-        raise XoFitError("no free values to fit: give at least one part a min and max (and not fixed = true)",
-                         path=job.path)
-    lo = np.log([parts[i].min for i in free])
-    hi = np.log([parts[i].max for i in free])
-    base = np.array([p.value if p.value is not None else math.sqrt(p.min * p.max) for p in parts])
-    starts = [parts[i].value for i in free]
-    u0 = None
-    if any(s is not None for s in starts):
-        u0 = np.array([(math.log(s) - low) / (high - low) if s is not None else 0.5
-                       for s, low, high in zip(starts, lo, hi)])
-    return Space(names=tuple(parts[i].name for i in free), columns=np.array(free), lo=lo, hi=hi, base=base, u0=u0)
+from xo_fit.search.space import Space
 
 
 _Stop = Stop  # raised inside an engine when the budget or the time is used up
@@ -136,7 +90,8 @@ class Objective:
     def evaluate(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Costs (B,) and total violations (B,; zeros when not constrained) of cube points u (B, n), counted.
         A constrained fn may also return each limit's signed excess (B, L): kept as ``last_excess``."""
-        u = np.atleast_2d(np.asarray(u, dtype=float))
+        if type(u) is not np.ndarray or u.ndim != 2 or u.dtype != np.float64:
+            u = np.atleast_2d(np.asarray(u, dtype=float))
         if self.evaluations >= self.budget:
             self.stopped_by = self.stopped_by or "budget"
             raise _Stop
@@ -147,9 +102,9 @@ class Objective:
             self.stopped_by = "interrupted"
             raise KeyboardInterrupt
         take = min(u.shape[0], self.budget - self.evaluations)
-        cost = np.full(u.shape[0], np.inf)
         violation = np.zeros(u.shape[0])
         if self.constrained:
+            cost = np.full(u.shape[0], np.inf)
             violation[:] = np.inf
             out = self.fn(u[:take])
             cost[:take] = np.asarray(out[0], dtype=float)
@@ -157,13 +112,17 @@ class Objective:
             g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
             self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
             self.last_excess[:take] = g
-        else:
-            cost[:take] = np.asarray(self.fn(u[:take]), dtype=float)
-        cost = np.where(np.isfinite(cost), cost, np.inf)
+        else:  # fn's own costs where the whole batch fits (no copy)
+            cost = np.asarray(self.fn(u if take == u.shape[0] else u[:take]), dtype=float)
+            if cost.shape != violation.shape:
+                cost, cost[:take] = np.full(u.shape[0], np.inf), cost  # the rest (past the budget) inf
+        finite = np.isfinite(cost)
+        if not finite.all():
+            cost = np.where(finite, cost, np.inf)
         self.evaluations += take
         key = feasibility_key(cost, violation) if self.constrained else cost
         self.last_key = key
-        i = int(np.argmin(key))
+        i = int(key.argmin())
         if key[i] < self.best_key:
             self.best_key = float(key[i])
             self.best_cost = float(cost[i])
@@ -219,14 +178,20 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
               best: list) -> None:
     """One JADE run (current-to-pbest/1/bin with archive, vectorised over the population) until its population
     has converged or its best has stagnated; ``best`` receives [cost, point] of the run as it improves."""
-    pop = latin_hypercube(npop, n, rng)
+    # the population and the archive share one buffer (the union the second difference vector draws from is
+    # rows [0, npop + archived)), so that nothing is stacked per generation; pop and fit change in place
+    buf = np.empty((3 * npop, n))
+    pop = buf[:npop]
+    pop[:] = latin_hypercube(npop, n, rng)
     if u0 is not None:
         pop[0] = u0
     rank = EpsilonLevel(obj) if obj.constrained else None  # under limits: epsilon-level comparisons
-    fit = obj(pop) if rank is None else rank.first(pop)
+    fit = np.array(obj(pop), dtype=float) if rank is None else rank.first(pop)
     i = int(np.argmin(fit))
     best[:] = [float(fit[i]), pop[i].copy()] if rank is None else rank.best(pop)
-    archive = np.empty((0, n))
+    archived = 0
+    rows = np.arange(npop)
+    firsts = rows * n  # each row's first cell in the flattened (npop, n)
     mu_f, mu_cr, c, p_best = 0.5, 0.5, 0.1, 0.1
     top = max(2, int(round(p_best * npop)))
     trace = [best[0]]
@@ -234,36 +199,46 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         if rank is not None:
             fit = rank.population()
         f = mu_f + 0.1 * rng.standard_cauchy(npop)
-        while np.any(f <= 0):  # JADE: regenerate non-positive F
+        while f.min() <= 0:  # JADE: regenerate non-positive F
             bad = f <= 0
-            f[bad] = mu_f + 0.1 * rng.standard_cauchy(int(bad.sum()))
-        f = np.minimum(f, 1.0)
-        cr = np.clip(rng.normal(mu_cr, 0.1, npop), 0.0, 1.0)
+            f[bad] = mu_f + 0.1 * rng.standard_cauchy(np.count_nonzero(bad))
+        np.minimum(f, 1.0, out=f)
+        cr = rng.normal(mu_cr, 0.1, npop)
+        np.minimum(np.maximum(cr, 0.0, out=cr), 1.0, out=cr)
         order = np.argsort(fit, kind="stable")
-        pbest = pop[order[rng.integers(0, top, npop)]]
-        r1 = (np.arange(npop) + rng.integers(1, npop, npop)) % npop
-        union = np.vstack([pop, archive]) if archive.size else pop
-        r2 = rng.integers(0, union.shape[0], npop)
-        mutant = pop + f[:, None] * (pbest - pop) + f[:, None] * (pop[r1] - union[r2])
+        pbest = pop.take(order.take(rng.integers(0, top, npop)), axis=0)
+        r1 = (rows + rng.integers(1, npop, npop)) % npop
+        r2 = rng.integers(0, npop + archived, npop)
+        # pop + F (pbest - pop) + F (pop[r1] - union[r2]), the same operations in the same order, in place
+        fc = f[:, None]
+        mutant = (pbest - pop) * fc
+        mutant += pop
+        step = pop.take(r1, axis=0) - buf.take(r2, axis=0)
+        step *= fc
+        mutant += step
         # bounds: halfway between the parent and the violated bound (JADE)
-        mutant = np.where(mutant < 0, pop / 2, mutant)
-        mutant = np.where(mutant > 1, (pop + 1) / 2, mutant)
-        cross = rng.random((npop, n)) < cr[:, None]
-        cross[np.arange(npop), rng.integers(0, n, npop)] = True
-        trial = np.where(cross, mutant, pop)
+        np.copyto(mutant, pop * 0.5, where=mutant < 0)  # * 0.5: / 2 exactly
+        np.copyto(mutant, (pop + 1) * 0.5, where=mutant > 1)
+        keep = rng.random((npop, n)) >= cr[:, None]  # binomial crossover: the parent's coordinates kept
+        keep.ravel()[firsts + rng.integers(0, n, npop)] = False  # one coordinate of each from the mutant
+        trial = mutant
+        np.copyto(trial, pop, where=keep)
         tfit = obj(trial) if rank is None else rank.trial(trial)
         better = tfit < fit
-        if better.any():
-            archive = np.vstack([archive, pop[better]])
-            if archive.shape[0] > npop:
-                archive = archive[rng.permutation(archive.shape[0])[:npop]]
+        k = int(np.count_nonzero(better))
+        if k:
+            buf[npop + archived:npop + archived + k] = pop[better]
+            archived += k
+            if archived > npop:
+                buf[npop:2 * npop] = buf[npop:npop + archived][rng.permutation(archived)[:npop]]
+                archived = npop
             sf, scr = f[better], cr[better]
-            mu_f = (1 - c) * mu_f + c * float(np.sum(sf**2) / np.sum(sf))
-            mu_cr = (1 - c) * mu_cr + c * float(np.mean(scr))
-        pop = np.where(better[:, None], trial, pop)
-        fit = np.where(better, tfit, fit)
+            mu_f = (1 - c) * mu_f + c * float((sf * sf).sum() / sf.sum())
+            mu_cr = (1 - c) * mu_cr + c * float(scr.sum() / k)
+            np.copyto(pop, trial, where=better[:, None])
+            np.copyto(fit, tfit, where=better)
         if rank is None:
-            i = int(np.argmin(fit))
+            i = int(fit.argmin())
             if fit[i] < best[0]:
                 best[:] = [float(fit[i]), pop[i].copy()]
         else:
@@ -276,7 +251,8 @@ def _jade_run(obj: Objective, n: int, u0: np.ndarray | None, rng: np.random.Gene
         trace.append(best[0])
         if rank is not None and not rank.settled:
             continue  # epsilon still falling: the run goes on
-        if np.ptp(fit) <= CONVERGED * (abs(float(fit.min())) + CONVERGED) and np.ptp(pop, axis=0).max() < 1e-6:
+        low = fit.min()
+        if fit.max() - low <= CONVERGED * (abs(float(low)) + CONVERGED) and (pop.max(0) - pop.min(0)).max() < 1e-6:
             return
         if len(trace) > STAGNATION and trace[-1] >= trace[-1 - STAGNATION] - STAGNATION_TOL * abs(trace[-1]):
             return  # the best has improved by less than 0.1 % over the last STAGNATION generations: a basin
@@ -366,7 +342,9 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
         key = u.tobytes()
         if key not in cache:
             h = np.where(u + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
-            pts = np.vstack([u, u + np.diag(h)])
+            pts = np.empty((n + 1, n))
+            pts[0] = u
+            np.add(u, np.diag(h), out=pts[1:])
             c = obj(pts)
             grad = (c[1:] - c[0]) / h
             cache.clear()
@@ -377,17 +355,18 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
                  gtol=POLISH_GTOL)
 
 
-def search(fn: Callable, space: Space, *, optimizer: str = "auto", budget: int = 20000,
-           seed: int = 1, time_limit: float | None = None, polish: bool = True,
-           progress: Callable[[int, int, float], None] | None = None, constrained: bool = False,
-           exchange: Callable | None = None) -> SearchResult:
-    """Minimise fn over the space's unit cube within ``budget`` evaluations (see the module).
+def search(fn: Callable, space: Space, *, optimizer: str = SearchSpec.optimizer, budget: int = SearchSpec.budget,
+           seed: int = SearchSpec.seed, time_limit: float | None = SearchSpec.time_limit,
+           polish: bool = SearchSpec.polish, progress: Callable[[int, int, float], None] | None = None,
+           constrained: bool = False, exchange: Callable | None = None) -> SearchResult:
+    """Minimise fn over the space's unit cube within ``budget`` evaluations (see the module); the defaults are
+    ``[search]``'s.
 
     Parameters
     ----------
     fn, space : callable, Space
         Cube points (B, n) -> costs (B,), dimensionless (with ``constrained``: -> (costs (B,), total violations
-        (B,)[, each limit's signed excess (B, L)])); the free values (:func:`make_space`).
+        (B,)[, each limit's signed excess (B, L)])); the free values (:func:`~xo_fit.search.space.make_space`).
     optimizer, budget, seed, time_limit, polish, progress, constrained, exchange : optional
         The engine (:func:`engine`); evaluations at most, the polish included, and the seed (dimensionless); a
         wall-clock limit in s (None: none); polish or not; called after each batch as progress(evaluations,

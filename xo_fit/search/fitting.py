@@ -14,7 +14,8 @@ import numpy as np
 
 from xo_fit.model.cost import CostModel, simulation_metrics
 from xo_fit.model.fused import FusedCost
-from xo_fit.search.engines import SearchResult, Space, make_space, search
+from xo_fit.search.engines import SearchResult, search
+from xo_fit.search.space import Space, make_space
 from xo_fit.model.targets import Targets, build_targets
 
 
@@ -235,7 +236,7 @@ class FitProblem:
         Cube points (B, n) -> costs (B,), dimensionless; with [limits] (``constrained``) -> (costs (B,), total
         violations (B,), each limit's signed relative excess (B, L)); a robust fit's mean over its draws.
     space : Space
-        The job's free values as a unit cube (:class:`~xo_fit.search.engines.Space`).
+        The job's free values as a unit cube (:class:`~xo_fit.search.space.Space`).
     constrained : bool
         Whether the job has [limits] (the search is then feasibility first).
     model, cost : tuple, object

@@ -143,7 +143,7 @@ def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: in
         g = g.astype(np.float64)
         setulb(m, x, lower, upper, nbd, f, g, factr, gtol, wa, iwa, task, lsave, isave, dsave, MAXLS, ln_task)
         if task[0] == _TASK_FG:
-            if not np.array_equal(x, last_x):
+            if not (x == last_x).all():  # np.array_equal's test without its wrapper
                 last_x = x.copy()
                 f_last, g_last = fun(last_x.copy())
                 nfev += 1

@@ -27,6 +27,7 @@ import numpy as np
 
 from xo_fit.config import BEAM, CHUNK, EXHAUSTIVE, RESTARTS
 from xo_fit.errors import XoFitError
+from xo_fit.job.settings import SearchSpec
 from xo_fit.stages.choices import Choice
 
 
@@ -216,7 +217,7 @@ class SnapSearch:
     exhaustive: bool
 
 
-def search_choices(ev: ChoiceEvaluator, baseline: np.ndarray, seed: int = 1) -> SnapSearch:
+def search_choices(ev: ChoiceEvaluator, baseline: np.ndarray, seed: int = SearchSpec.seed) -> SnapSearch:
     """The best assignment of the snapped parts' choices found from ``baseline``, never worse than it.
 
     Every assignment is scored where there are at most EXHAUSTIVE; else a beam search, random restarts and

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 import pickle
 import threading
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -184,7 +184,8 @@ def refit(system, budget: int, seed: int, family: Family | None = None, removed:
         Where Ctrl-C or SIGTERM stopped the search, with the best design so far.
     """
     from xo_fit.search.fitting import score
-    from xo_fit.search.engines import make_space, search
+    from xo_fit.search.engines import search
+    from xo_fit.search.space import make_space
 
     model = model_of(system, targets)
     cm, _ = model
@@ -196,9 +197,12 @@ def refit(system, budget: int, seed: int, family: Family | None = None, removed:
     if full is not None:
         assert family is not None  # full comes from the family
         fused, limited = family.fused, family.limited
+        # the space with its columns and base in the family's designs: full(space.values(u)) in one step
+        columns = np.array([family.names.index(n) for n in system.part_names])[space.columns]
+        wide = replace(space, columns=columns, base=full(space.base[None])[0])
 
         def fn(u: np.ndarray):
-            v = full(space.values(u))
+            v = wide.values(u)
             return fused.limited(v) if limited else fused(v)
     else:
         def fn(u: np.ndarray):

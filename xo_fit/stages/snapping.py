@@ -157,7 +157,8 @@ def run_snap(system, continuous: np.ndarray, *, series_override: dict | None = N
     import time
 
     from xo_fit.search.fitting import cost_function, limited_cost_function, require_cost_model
-    from xo_fit.search.engines import Space, search
+    from xo_fit.search.engines import search
+    from xo_fit.search.space import Space
     from xo_fit.search.feasibility import feasibility_key
 
     t0 = time.monotonic()
