@@ -25,34 +25,56 @@ MAXFUN = 15000  # scipy's default evaluation limit
 _TASK_FG, _TASK_NEW_X = 3, 1  # setulb's task codes (scipy/optimize/__lbfgsb.c)
 _TASK_STOP, _STOP_MAXITER, _STOP_MAXFUN = 5, 504, 502
 
-_routine: object = None
+_routines: dict[str, object] = {}  # scipy's compiled routines by name, loaded once (False: not loadable)
 
 
-def _setulb():
-    """scipy's compiled ``setulb`` with the C interface of scipy >= 1.15, or None."""
-    global _routine
-    if _routine is None:
-        _routine = False
+def compiled_routine(module: str, attr: str, since: tuple[int, int]) -> Callable | None:
+    """scipy's compiled routine ``scipy.optimize.<module>.<attr>``, loaded without importing scipy.optimize
+    (whose import costs a command ~0.3 s), or None where scipy is older than ``since`` (its C interface then
+    differs) or the extension module cannot be found or loaded (callers then use scipy.optimize.minimize).
+
+    Parameters
+    ----------
+    module, attr : str
+        The extension module's name in scipy.optimize (``"_lbfgsb"``) and the routine's (``"setulb"``).
+    since : tuple of int
+        The first scipy (major, minor) with the routine's present interface.
+
+    Returns
+    -------
+    callable or None
+        The routine, the same object on every call.
+    """
+    key = f"{module}.{attr}"
+    if key not in _routines:
+        _routines[key] = False
         try:
             import scipy
 
             major, minor = (int(p) for p in scipy.__version__.split(".")[:2])
-            if (major, minor) < (1, 15):
+            if (major, minor) < since:
                 return None
-            mod = sys.modules.get("scipy.optimize._lbfgsb")
+            name = f"scipy.optimize.{module}"
+            mod = sys.modules.get(name)
             if mod is None:
-                name = "scipy.optimize._lbfgsb"
-                found = sorted(Path(scipy.__path__[0], "optimize").glob("_lbfgsb.*"))
+                found = sorted(Path(scipy.__path__[0], "optimize").glob(f"{module}.*"))
                 found = [p for p in found if p.suffix in (".so", ".pyd")]
                 if not found:
                     return None
                 spec = importlib.util.spec_from_file_location(name, found[0])
+                if spec is None or spec.loader is None:
+                    return None
                 mod = importlib.util.module_from_spec(spec)
                 spec.loader.exec_module(mod)
-            _routine = mod.setulb
+            _routines[key] = getattr(mod, attr)
         except Exception:  # noqa: BLE001 - any failure means: use scipy.optimize.minimize
-            _routine = False
-    return _routine or None
+            _routines[key] = False
+    return _routines[key] or None  # type: ignore[return-value]
+
+
+def _setulb():
+    """scipy's compiled ``setulb`` with the C interface of scipy >= 1.15, or None."""
+    return compiled_routine("_lbfgsb", "setulb", (1, 15))
 
 
 def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.ndarray, lower: np.ndarray,

@@ -14,45 +14,17 @@ interface) it calls ``scipy.optimize.minimize`` instead.
 
 from __future__ import annotations
 
-import importlib.util
-import sys
-from pathlib import Path
 from collections.abc import Callable, Generator
 
 import numpy as np
 
-from xo_fit.search.lbfgsb import one_blas_thread
+from xo_fit.search.lbfgsb import compiled_routine, one_blas_thread
 
 _MODE_VALUES, _MODE_GRADIENTS = 1, -1  # the routine asks for f and c, or for their gradients
 
-_routine: object = None
-
-
 def _slsqp():
     """scipy's compiled ``slsqp`` with the C interface of scipy >= 1.16, or None."""
-    global _routine
-    if _routine is None:
-        _routine = False
-        try:
-            import scipy
-
-            major, minor = (int(p) for p in scipy.__version__.split(".")[:2])
-            if (major, minor) < (1, 16):
-                return None
-            mod = sys.modules.get("scipy.optimize._slsqplib")
-            if mod is None:
-                name = "scipy.optimize._slsqplib"
-                found = sorted(Path(scipy.__path__[0], "optimize").glob("_slsqplib.*"))
-                found = [p for p in found if p.suffix in (".so", ".pyd")]
-                if not found:
-                    return None
-                spec = importlib.util.spec_from_file_location(name, found[0])
-                mod = importlib.util.module_from_spec(spec)
-                spec.loader.exec_module(mod)
-            _routine = mod.slsqp
-        except Exception:  # noqa: BLE001 - any failure means: use scipy.optimize.minimize
-            _routine = False
-    return _routine or None
+    return compiled_routine("_slsqplib", "slsqp", (1, 16))
 
 
 def minimize_slsqp(values: Callable[[np.ndarray], tuple[float, np.ndarray]],
