@@ -51,6 +51,7 @@ import numpy as np
 
 from xo_fit.constants import SPEED_OF_SOUND  # the scenario's air: the job's [acoustics] default
 from xo_fit.job.model import ThieleSmall
+from xo_fit.physics.thiele_small import small_signal_impedance
 from xo_fit.io.results import write_text
 
 #: Baffle width of the demo cabinet, m.
@@ -428,14 +429,14 @@ def write_scenario(folder: str | Path) -> Path:
         write_text(data / "polar" / f"woofer-{orbit}{a}.txt",
                    _curve_text(fw, p, "response", f"Wren woofer, {'horizontal' if orbit == 'h' else 'vertical'} {a} "
                                "deg, 2.83 V, 1 m, gated (from 300 Hz); about the driver's centre"))
-    write_text(data / "woofer-impedance.txt", _curve_text(f, WOOFER.impedance(f), "impedance",
+    write_text(data / "woofer-impedance.txt", _curve_text(f, small_signal_impedance(WOOFER, f), "impedance",
                                                            "Wren woofer, in cabinet"))
     # the tweeter's gate leaves nothing below 300 Hz: the job extends it (extend_low = "order2")
     ft = f[f >= TWEETER_GATE_HZ]
     write_text(data / "tweeter-response.txt",
                _curve_text(ft, tweeter_response(ft), "response",
                            "Wren tweeter, in cabinet, 2.83 V, 1 m, gated (from 300 Hz)"))
-    write_text(data / "tweeter-impedance.txt", _curve_text(f, TWEETER.impedance(f), "impedance",
+    write_text(data / "tweeter-impedance.txt", _curve_text(f, small_signal_impedance(TWEETER, f), "impedance",
                                                             "Wren tweeter, in cabinet"))
     for name, resp, radius, lo in (("tweeter", tweeter_response, TWEETER_RADIUS, TWEETER_GATE_HZ),):
         fd = f[f >= lo]

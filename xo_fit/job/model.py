@@ -23,7 +23,6 @@ from types import MappingProxyType
 from typing import Any
 from collections.abc import Mapping
 
-import numpy as np
 
 from xo_fit.constants import PART_UNIT, SPEED_OF_SOUND
 from xo_fit.grid import Grid
@@ -82,7 +81,8 @@ class Resistive:
 @dataclass(frozen=True)
 class ThieleSmall:
     """A driver impedance from its small-signal parameters (R. H. Small, JAES 20(5), 1972): ``re`` (ohm),
-    ``le`` (H), ``fs`` (Hz), ``qms`` and ``qes`` (dimensionless).
+    ``le`` (H), ``fs`` (Hz), ``qms`` and ``qes`` (dimensionless); its curve is
+    :func:`xo_fit.physics.thiele_small.small_signal_impedance`:
 
     Z = Re + Z_Le + Res / (1 + Qms (s/ws + ws/s)), Res = Re Qms / Qes, where the voice-coil inductance is
     Z_Le = le * (j w)^n * w_ref^(1-n) with w_ref = 2 pi 1 kHz and n = ``le_exponent`` (W. M. Leach, JAES 50(6),
@@ -99,19 +99,6 @@ class ThieleSmall:
     le_exponent: float = 1.0
     l2: float = 0.0
     r2: float = 0.0
-
-    def impedance(self, f: np.ndarray) -> np.ndarray:
-        """Complex impedance in ohm at frequencies ``f`` (Hz), shape of ``f``."""
-        w = 2 * np.pi * np.asarray(f, dtype=float)
-        s = 1j * w
-        ws = 2 * np.pi * self.fs
-        w_ref = 2 * np.pi * 1000.0
-        z_le = self.le * s**self.le_exponent * w_ref ** (1.0 - self.le_exponent)
-        res = self.re * self.qms / self.qes
-        z = self.re + z_le + res / (1 + self.qms * (s / ws + ws / s))
-        if self.l2 > 0 and self.r2 > 0:
-            z = z + s * self.l2 * self.r2 / (self.r2 + s * self.l2)
-        return z
 
 
 @dataclass(frozen=True)

@@ -25,6 +25,7 @@ from xo_fit.physics.extension import Splice, extend_curve, splice_curves
 from xo_fit.model.diffraction import Baffled, baffled, job_positions, times
 from xo_fit.physics.curves import on_grid
 from xo_fit.physics.geometry import Placement, acoustic_centres, placement_factors, placement_warnings
+from xo_fit.physics.thiele_small import small_signal_impedance
 from xo_fit.solver.netlist import check_topology
 from xo_fit.solver.network import Branch, Network, Solution, compile_network
 
@@ -320,7 +321,7 @@ def _driver_data(job: Job, spec, grid: np.ndarray, warnings: list[str], position
         impedance = np.full(grid.size, spec.impedance.resistance, dtype=complex)
         iphase = "ideal"
     elif isinstance(spec.impedance, ThieleSmall):
-        impedance = spec.impedance.impedance(grid)
+        impedance = small_signal_impedance(spec.impedance, grid)
         iphase = "ideal"
     elif isinstance(spec.impedance, ModelImpedance):  # the [driver.NAME.ts] model in its box
         from xo_fit.model.drivers import model_impedance

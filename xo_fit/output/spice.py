@@ -217,12 +217,13 @@ def _fit(kind: str, f: np.ndarray, z: np.ndarray, band: np.ndarray) -> tuple:
     fits. "vented" tries the plain coil first and the lossy one only where that misses the band by over 2 %."""
     from xo_fit.physics.box import circuit, impedance
     from xo_fit.physics.impedance_fit import fit_on_grid
+    from xo_fit.physics.thiele_small import small_signal_impedance
     from xo_fit.physics.vented_fit import fit_vented
 
     if kind == "ts-lossy":
         fit = fit_on_grid(f, z, "ts-lossy")
         return ("a lossy-coil Thiele-Small circuit", fit, _rlc(fit.params),
-                _band_error(f, z, fit.params.impedance(f), band), _describe(fit.params))
+                _band_error(f, z, small_signal_impedance(fit.params, f), band), _describe(fit.params))
     best = None
     for lossy in (False, True):
         vf = fit_vented(f, z, lossy=lossy)

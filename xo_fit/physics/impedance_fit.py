@@ -23,6 +23,7 @@ import numpy as np
 from xo_fit.errors import DataError
 from xo_fit.job.model import ThieleSmall
 from xo_fit.io.measure import Curve
+from xo_fit.physics.thiele_small import small_signal_impedance
 
 #: The models ``xo-fit driver`` fits.
 MODELS = ("ts", "ts-lossy")
@@ -185,7 +186,7 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
     hi = np.log([_BOUNDS[n][1] for n in names])
 
     def residual(x: np.ndarray) -> np.ndarray:
-        zm = _params(model, x).impedance(f)
+        zm = small_signal_impedance(_params(model, x), f)
         if phase:
             e = (zm - z) / mag
             return np.concatenate([e.real, e.imag])
@@ -212,7 +213,7 @@ def fit_impedance(curve: Curve, model: str = "ts") -> ImpedanceFit:
         raise DataError(f"the {model} fit did not converge ({why}); check that the file is an impedance in ohm "
                         "with the motional peak inside it", path=curve.path)
     params = _params(model, best.x)
-    zm = params.impedance(f)
+    zm = small_signal_impedance(params, f)
     err = np.abs(zm - z) / mag if phase else np.abs(np.abs(zm) - mag) / mag
     rms = 100.0 * float(np.sqrt(np.mean(err ** 2)))
     i = int(np.argmax(err))

@@ -22,11 +22,15 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from xo_fit.constants import SPEED_OF_SOUND
 from xo_fit.errors import XoFitError
+
+if TYPE_CHECKING:
+    from xo_fit.job.model import ThieleSmall
 
 #: Density of dry air at 20 C and 101.325 kPa, kg/m^3: the ideal-gas law rho = p / (R T) with the specific gas
 #: constant of dry air R = 287.05 J/(kg K) (the ISO 2533 standard atmosphere's value) and T = 293.15 K.
@@ -325,3 +329,34 @@ def complete(given: Mapping[str, float], *, key: str | None = None, rho: float =
                           xmax=values.get("xmax"), power=values.get("power"), l2=values.get("l2", 0.0),
                           r2=values.get("r2", 0.0), given=frozenset(values), rho=rho, c=c)
 
+
+def small_signal_impedance(ts: ThieleSmall, f: np.ndarray) -> np.ndarray:
+    """A driver's impedance from its small-signal parameters (a job's ``impedance = { re, le, fs, qms, qes }``).
+
+    Z = Re + Z_Le + Res / (1 + Qms (s/ws + ws/s)), Res = Re Qms / Qes (Small 1972), with the voice coil
+    Z_Le = le (j w)^n w_ref^(1-n), w_ref = 2 pi 1 kHz, n = ``le_exponent``, and the optional L2 || R2 in series
+    (Leach 2002; Wright 1990), as :class:`~xo_fit.job.model.ThieleSmall` describes.
+
+    Parameters
+    ----------
+    ts : ThieleSmall
+        The parameters: re (ohm), le (H), fs (Hz), qms and qes (dimensionless), le_exponent (dimensionless),
+        l2 (H) and r2 (ohm).
+    f : ndarray
+        Frequencies, in Hz, any shape.
+
+    Returns
+    -------
+    ndarray
+        The complex impedance, in ohm, shape of ``f``.
+    """
+    w = 2 * np.pi * np.asarray(f, dtype=float)
+    s = 1j * w
+    ws = 2 * np.pi * ts.fs
+    w_ref = 2 * np.pi * 1000.0
+    z_le = ts.le * s**ts.le_exponent * w_ref ** (1.0 - ts.le_exponent)
+    res = ts.re * ts.qms / ts.qes
+    z = ts.re + z_le + res / (1 + ts.qms * (s / ws + ws / s))
+    if ts.l2 > 0 and ts.r2 > 0:
+        z = z + s * ts.l2 * ts.r2 / (ts.r2 + s * ts.l2)
+    return z
