@@ -142,3 +142,18 @@ def test_imports_are_absolute():
                 for node in ast.walk(ast.parse(p.read_text(encoding="utf-8")))
                 if isinstance(node, ast.ImportFrom) and node.level]
     assert not relative, relative
+
+
+def test_no_function_is_too_long():
+    """No hand-written function over ~80 lines of code, its docstring aside (DEVELOPERS.md: split long ones
+    into named steps)."""
+    long = {}
+    for m, p in _modules().items():
+        for node in ast.walk(ast.parse(p.read_text(encoding="utf-8"))):
+            if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                first = node.body[0]
+                doc = (first.end_lineno - first.lineno + 1 if isinstance(first, ast.Expr)
+                       and isinstance(first.value, ast.Constant) and isinstance(first.value.value, str) else 0)
+                if (n := node.end_lineno - node.lineno + 1 - doc) > 85:
+                    long[f"{m}.{node.name}"] = n
+    assert not long, long
