@@ -103,6 +103,27 @@ def test_two_islands_reach_the_handbook_lr4(lr4, exchange):
     assert sum(x["evaluations"] for x in summary) <= 20000  # one budget shared
 
 
+def test_a_budget_smaller_than_the_workers_is_never_exceeded(lr4):
+    """Every island searches at least one design, so a budget of 2 over 3 workers runs 2 islands, not 3
+    evaluations (the budget is the whole fit's)."""
+    system, _ = lr4
+    out, summary = run_fit_restarts(system, 3, budget=2, seed=1)
+    assert len(summary) == 2 and sum(x["evaluations"] for x in summary) <= 2
+
+
+def test_a_robust_fit_on_islands_counts_every_islands_solves(tmp_path):
+    """result.json's robust.solves is the evaluations of every island times the draws (each evaluation solves
+    one design per draw), the same total as search.evaluations."""
+    import xo_fit
+
+    text = ladder_job("LR2", start=2.0, spread=4.0)[0].replace("[target]", "[search]\nrobust = { samples = 4 }\n[target]")
+    (tmp_path / "job.toml").write_text(text)
+    d = xo_fit.fit(xo_fit.load_job(tmp_path / "job.toml"), budget=600, seed=1, workers=2)
+    s = d.sections["search"]
+    assert s["evaluations"] == sum(w["evaluations"] for w in s["workers"]) > 0
+    assert s["robust"]["solves"] == s["evaluations"] * 4
+
+
 def test_islands_that_exchange_give_one_result_per_seed(lr4):
     """The exchange is synchronous and ordered by epoch: the same seed and worker count give the same values bit
     for bit, however the processes were scheduled; another seed gives other islands."""

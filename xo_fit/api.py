@@ -186,7 +186,8 @@ def fit(job, *, budget: int | None = None, seed: int | None = None, optimizer: s
         search["workers"] = runs
         search["evaluations"] = sum(x["evaluations"] for x in runs)
     if j.search.robust_samples:
-        search["robust"] = {"samples": j.search.robust_samples, "solves": r.evaluations * j.search.robust_samples,
+        search["robust"] = {"samples": j.search.robust_samples,
+                            "solves": search["evaluations"] * j.search.robust_samples,  # every island's
                             "note": "cost = mean over fixed tolerance draws; each evaluation solves one design "
                                     "per draw"}
     return Design(system=system, scored=outcome.scored, stage="fit", sections={"search": search},

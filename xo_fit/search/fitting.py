@@ -442,8 +442,9 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     from xo_fit.search.islands import Problem, run_islands
 
     spec = system.job.search
-    seeds = restart_seeds(spec.seed if seed is None else seed, workers)
     total = budget or spec.budget  # the processes share one budget
+    # an island searches at least one design: no more islands than the budget has evaluations
+    seeds = restart_seeds(spec.seed if seed is None else seed, max(1, min(workers, total)))
     p = fit_problem(system)  # built and loaded here once: forked islands inherit it
     start = p.warm()
     problem = Problem(search_problem, system, built=(p.fn, p.space, p.constrained))
