@@ -45,6 +45,18 @@ def test_values_by_part_name_and_errors_as_xofiterror(write_job):
         xo_fit.simulate(job, {"wL0": -1.0})
 
 
+def test_a_design_given_new_values_drops_what_it_worked_out_from_the_old(write_job):
+    """Design caches its analysis (breakdown, findings' pieces, stresses); a new ``scored`` must not keep the
+    old design's figures: LR2 at its handbook values is on target (breakdown ~0), 2x off it is not."""
+    text, truth = ladder_job("LR2")
+    job = xo_fit.load_job(write_job(text))
+    hand = xo_fit.simulate(job)
+    bumped = xo_fit.simulate(job, {"wL0": 2 * truth["wL0"]})
+    before = hand.breakdown
+    hand.scored = bumped.scored
+    assert hand.breakdown == bumped.breakdown and hand.breakdown != before
+
+
 def test_a_mapping_job_is_the_same_job_as_its_file(write_job, tmp_path):
     text, _ = ladder_job("LR2")
     path = write_job(text)

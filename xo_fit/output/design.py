@@ -77,6 +77,13 @@ class Design:
     runs: list[dict] | None = None
     before: Scored | None = None
 
+    def __setattr__(self, name: str, value) -> None:
+        """Set a field; a new ``system`` or ``scored`` drops the analysis cached from the old one."""
+        if name in ("system", "scored"):
+            for cached in [k for k, v in type(self).__dict__.items() if isinstance(v, cached_property)]:
+                self.__dict__.pop(cached, None)
+        object.__setattr__(self, name, value)
+
     # ------------------------------------------------------------------ figures
 
     @property
