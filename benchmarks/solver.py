@@ -212,7 +212,7 @@ def run(system, repeats: int, batches: tuple = (1, 16, 256, 4096), sweeps: tuple
     args.repeats = repeats
     net = system.network
     kernel = net.kernel()
-    k = net._kernel_args()
+    k = net.kernel_args()
     nf = net.frequencies.size
     d = len(net.driver_names)
     print(f"reference network: {len(net.valued)} valued parts, {d} drivers, {nf} points; "

@@ -452,8 +452,8 @@ class FusedCost:
     def kernel_args(self, values: np.ndarray) -> tuple:
         """The kernel's arguments (its parameters, in order) for designs (B, P) in SI: a fresh scratch and the
         output last, shaped as :meth:`evaluate_raw` returns it."""
-        v = np.ascontiguousarray(self.net._check_values(values), dtype=float)
-        k = self.net._kernel_args()
+        v = np.ascontiguousarray(self.net.checked_values(values), dtype=float)
+        k = self.net.kernel_args()
         return (v, k["r_coef"], k["r_exp"], k["fin"], float(self.net.source_voltage),
                 float(self.net.source_resistance), float(PIVOT_TOLERANCE**2), self.tgt, self.ang, self.angw,
                 np.empty((self.scratch_rows, self.net.frequencies.size)),

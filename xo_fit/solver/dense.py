@@ -180,7 +180,7 @@ def branch_states(net: Network, values: np.ndarray) -> tuple[np.ndarray, np.ndar
         Each branch's current, flowing a -> b through it, complex, in A, shape (N, F); both for the source
         at ``net.source_voltage``.
     """
-    v = net._check_values(values)[:1]
+    v = net.checked_values(values)[:1]
     f_index = np.arange(net.frequencies.size)
     volt, y = _dense_nodes(net, np.repeat(v, f_index.size, axis=0), f_index)
     volts = np.stack([volt(br.a) - volt(br.b) for br in net.branches])
@@ -204,7 +204,7 @@ def branch_currents(net: Network, values: np.ndarray) -> np.ndarray:
         Each branch's current a -> b for the source at ``net.source_voltage``, complex, in A, shape
         (B, N, F), N = len(net.branches).
     """
-    v = net._check_values(values)
+    v = net.checked_values(values)
     b, nf = v.shape[0], net.frequencies.size
     bi, fi = np.meshgrid(np.arange(b), np.arange(nf), indexing="ij")
     volt, y = _dense_nodes(net, v[bi.ravel()], fi.ravel())

@@ -162,7 +162,9 @@ class Network:
 
     # --- solving -----------------------------------------------------------------------------
 
-    def _check_values(self, values: np.ndarray) -> np.ndarray:
+    def checked_values(self, values: np.ndarray) -> np.ndarray:
+        """Part values as the solvers take them: (B, P) C-contiguous floats from (B, P) or (P,), SI (ohm, H, F);
+        ValueError on another shape, a non-finite value or one not above zero."""
         v = np.asarray(values, dtype=float)
         if v.ndim == 1:
             v = v[None, :]
@@ -208,9 +210,9 @@ class Network:
         Solution
             Driver voltages in V, shape (B, D, F), and input impedance in ohm, shape (B, F), complex.
         """
-        v = self._check_values(values)
+        v = self.checked_values(values)
         kernel = self.kernel()
-        k = self._kernel_args()
+        k = self.kernel_args()
         d = len(self.driver_names)
         nf = self.frequencies.size
         res = np.empty((v.shape[0], d + 1, nf), dtype=complex)
@@ -238,14 +240,16 @@ class Network:
         Solution
             Driver voltages in V, shape (B, D, F), and input impedance in ohm, shape (B, F), complex.
         """
-        v = self._check_values(values)
+        v = self.checked_values(values)
         bsz, nf = v.shape[0], self.frequencies.size
         bi, fi = np.meshgrid(np.arange(bsz), np.arange(nf), indexing="ij")
         sol = solve_dense(self, v[bi.ravel()], fi.ravel())
         return Solution(voltages=sol.voltages.reshape(bsz, nf, -1).transpose(0, 2, 1),
                         impedance=sol.impedance.reshape(bsz, nf))
 
-    def _kernel_args(self) -> dict:
+    def kernel_args(self) -> dict:
+        """The generated kernel's per-topology inputs, built once: ``r_coef`` and ``r_exp`` (P,) of each valued
+        branch's series resistance law, and ``fin``, the frequency-dependent rows (:func:`kernel_inputs`)."""
         cached = self.__dict__.get("_args")
         if cached is None:
             valued = self.valued
@@ -283,5 +287,5 @@ class Network:
         ndarray
             r in ohm, the shape of ``values``: (B, P) or (P,).
         """
-        k = self._kernel_args()
+        k = self.kernel_args()
         return k["r_coef"] * np.asarray(values, dtype=float) ** k["r_exp"]

@@ -128,7 +128,7 @@ class StandInCost(FusedCost):
         through :meth:`xo_fit.model.fused.FusedCost.kernel_args`, checked as any design is)."""
         fixed = self.__dict__.get("_fixed")
         if fixed is None:
-            k = self.net._kernel_args()
+            k = self.net.kernel_args()
             fixed = self._fixed = (len(self.net.valued), k["r_coef"], k["r_exp"], k["fin"],
                                    float(self.net.source_voltage), float(self.net.source_resistance),
                                    float(STAND_IN_PIVOT**2), self.tgt, self.ang, self.angw)
