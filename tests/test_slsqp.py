@@ -54,7 +54,7 @@ def test_same_iterates_as_scipy_minimize(k):
 
 def test_the_constrained_minimum_of_a_quadratic():
     """min (x - 2)^2 + (y - 1)^2 subject to x + y <= 2 in [0, 3]^2: the projection of (2, 1) onto the line,
-    (1.5, 0.5), value 0.5 (closed form)."""
+    (1.5, 0.5), value 0.5 (closed form [DER])."""
     x, fx = slsqp.minimize_slsqp(lambda x: (float((x[0] - 2) ** 2 + (x[1] - 1) ** 2), np.array([2 - x[0] - x[1]])),
                                  lambda x: (np.array([2 * (x[0] - 2), 2 * (x[1] - 1)]), np.array([[-1.0, -1.0]]),
                                             np.array([2 - x[0] - x[1]])),
