@@ -28,6 +28,7 @@ sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
 import xo_fit  # noqa: E402
+from xo_fit.config import REFIT_BUDGET  # noqa: E402
 from xo_fit.demo import write_scenario  # noqa: E402
 
 HARD = ROOT / "tests" / "data" / "hard-three-way.toml"
@@ -67,8 +68,8 @@ def show(r: dict, workers: int, budget: int | None) -> None:
     (fit_s, fit_c), (prune_s, prune_c) = med["fit"], med["prune"]
     evals = best.sections["search"]["evaluations"]
     print(f"{job.name}: {len(job.valued_parts)} parts; fit {fit_s:.3f} s ({evals} evaluations, cost {best.cost:.4g}); "
-          f"prune {prune_s:.3f} s ({len(pr.steps) - 1} steps, {len(pr.trials)} trial refits of {budget or 600} "
-          f"evaluations, {pr.evaluations} evaluations)")
+          f"prune {prune_s:.3f} s ({len(pr.steps) - 1} steps, {len(pr.trials)} trial refits of at most "
+          f"{budget or REFIT_BUDGET} evaluations, {pr.evaluations} evaluations)")
     print(f"  prune / fit, one process: {prune_s / fit_s:.1f} wall, {prune_c / fit_c:.1f} CPU "
           f"({prune_c:.3f} / {fit_c:.3f} CPU s) (goal <= 4)")
     if "pooled" in med:

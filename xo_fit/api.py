@@ -331,9 +331,10 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
         The starting design: a Design (or Spread) of the job, or a mapping part name -> value in ohm, H or F
         by the part's kind. Default: the job's own values.
     budget : int, optional
-        Cost evaluations for each refit (dimensionless); default ``xo_fit.config.REFIT_BUDGET``.
+        Cost evaluations for each refit at most (dimensionless); default ``xo_fit.config.REFIT_BUDGET``.
     seed : int, optional
-        The random seed of the refits (dimensionless); default the job's ``[search] seed``.
+        Recorded in the result (dimensionless; default the job's ``[search] seed``): the refits are local polishes
+        from the current values and draw no random numbers.
     max_increase : float
         The largest cost increase over step 0 (the starting design refitted) that the chosen design may have,
         as a fraction (dimensionless): 0.10 is 10 %.

@@ -74,8 +74,9 @@ SENS_STEP = 0.01
 
 # ----------------------------------------------------------------------------- prune (xo_fit.stages.pruning)
 
-#: Refit budget (cost evaluations) when none is given: a short search and polish from the current values.
-REFIT_BUDGET = 600
+#: Refit budget (cost evaluations) when none is given: the most a prune's refit (a polish from the current values)
+#: may spend; on the hard three-way 300 reached the costs a 4,000-evaluation search does (DEVELOPERS.md, Prune).
+REFIT_BUDGET = 300
 #: Default largest cost increase over step 0 for the chosen design (a fraction: 0.10 is 10 %).
 MAX_INCREASE = 0.10
 #: A removal that changes the cost by less than this share of it marks the part as negligible.

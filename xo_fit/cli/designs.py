@@ -23,7 +23,7 @@ from xo_fit.cli.console import (
     say,
     warn,
 )
-from xo_fit.config import MAX_INCREASE
+from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
 from xo_fit.errors import XoFitError
 from xo_fit.io.results import check_folder
 from xo_fit.job.model import DEFAULTS
@@ -289,10 +289,10 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
           from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
           budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
-                                               help="Cost evaluations per refit (default 600)."),
+                                               help=f"Cost evaluations per refit at most (default {REFIT_BUDGET})."),
           seed: int | None = typer.Option(None, "--seed", min=0,
-                                          help="Random seed (default: the job's \\[search] seed, "
-                                               f"else {DEFAULTS['search']['seed']})."),
+                                          help="Recorded in result.json; the refits are local polishes from the "
+                                               "current values and draw no random numbers."),
           max_increase: float = typer.Option(100 * MAX_INCREASE, "--max-increase", min=0.0,
                                              help="Largest cost increase over step 0 for the chosen design, %."),
           workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),
@@ -310,7 +310,9 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     def progress(step: int, name: str, how: str, cost: float) -> None:
         say(f"  step {step}: without {name} ({how}), cost {cost:.4g}")
 
-    say(f"prune {j.name}: {len(j.valued_parts)} parts, refits of {budget or 600} evaluations")
+    if seed is not None:
+        warn("--seed has no effect on prune: its refits are local polishes that draw no random numbers")
+    say(f"prune {j.name}: {len(j.valued_parts)} parts, refits of at most {budget or REFIT_BUDGET} evaluations")
     pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
                    max_increase=max_increase / 100, workers=workers, progress=progress)
     files = pr.save(out, plots=not no_plots)

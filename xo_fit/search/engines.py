@@ -48,7 +48,7 @@ from xo_fit.errors import XoFitError
 from xo_fit.job.settings import SearchSpec
 from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.interrupt import stop_requested
-from xo_fit.search.lbfgsb import minimize_box
+from xo_fit.search.lbfgsb import lbfgsb_steps, minimize_box
 from xo_fit.search.space import Space
 
 
@@ -92,16 +92,7 @@ class Objective:
         A constrained fn may also return each limit's signed excess (B, L): kept as ``last_excess``."""
         if type(u) is not np.ndarray or u.ndim != 2 or u.dtype != np.float64:
             u = np.atleast_2d(np.asarray(u, dtype=float))
-        if self.evaluations >= self.budget:
-            self.stopped_by = self.stopped_by or "budget"
-            raise _Stop
-        if self.deadline is not None and self.evaluations and time.monotonic() > self.deadline:
-            self.stopped_by = "time limit"
-            raise _Stop
-        if self.evaluations and stop_requested():  # a worker process asked to stop (Ctrl-C, SIGTERM, its parent)
-            self.stopped_by = "interrupted"
-            raise KeyboardInterrupt
-        take = min(u.shape[0], self.budget - self.evaluations)
+        take = self.admit(u)
         violation = np.zeros(u.shape[0])
         if self.constrained:
             cost = np.full(u.shape[0], np.inf)
@@ -114,8 +105,28 @@ class Objective:
             self.last_excess[:take] = g
         else:  # fn's own costs where the whole batch fits (no copy)
             cost = np.asarray(self.fn(u if take == u.shape[0] else u[:take]), dtype=float)
-            if cost.shape != violation.shape:
-                cost, cost[:take] = np.full(u.shape[0], np.inf), cost  # the rest (past the budget) inf
+        return self.record(u, take, cost, violation), violation
+
+    def admit(self, u: np.ndarray) -> int:
+        """How many of the points ``u`` (B, n) the budget lets in (the rest count as not evaluated); raises
+        :class:`Stop` at the budget or the deadline and KeyboardInterrupt where the process was asked to stop."""
+        if self.evaluations >= self.budget:
+            self.stopped_by = self.stopped_by or "budget"
+            raise _Stop
+        if self.deadline is not None and self.evaluations and time.monotonic() > self.deadline:
+            self.stopped_by = "time limit"
+            raise _Stop
+        if self.evaluations and stop_requested():  # a worker process asked to stop (Ctrl-C, SIGTERM, its parent)
+            self.stopped_by = "interrupted"
+            raise KeyboardInterrupt
+        return min(u.shape[0], self.budget - self.evaluations)
+
+    def record(self, u: np.ndarray, take: int, cost: np.ndarray, violation: np.ndarray) -> np.ndarray:
+        """Counts the first ``take`` (from :meth:`admit`) of the points ``u`` (B, n) evaluated to ``cost``
+        (``take``,) or (B,) and ``violation`` (B,), keeps the best, and returns the costs (B,): inf past ``take``
+        and where not finite."""
+        if cost.shape != violation.shape:
+            cost, cost[:take] = np.full(u.shape[0], np.inf), cost  # the rest (past the budget) inf
         finite = np.isfinite(cost)
         if not finite.all():
             cost = np.where(finite, cost, np.inf)
@@ -132,7 +143,7 @@ class Objective:
                             else (self.evaluations, self.best_cost))
         if self.progress is not None:
             self.progress(self.evaluations, self.budget, self.best_cost)
-        return cost, violation
+        return cost
 
 
 @dataclass(frozen=True)
@@ -341,18 +352,52 @@ def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
     def fun(u: np.ndarray):
         key = u.tobytes()
         if key not in cache:
-            h = np.where(u + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
-            pts = np.empty((n + 1, n))
-            pts[0] = u
-            np.add(u, np.diag(h), out=pts[1:])
-            c = obj(pts)
-            grad = (c[1:] - c[0]) / h
+            pts, h = stencil(u)
             cache.clear()
-            cache[key] = (float(c[0]), np.where(np.isfinite(grad), grad, 0.0))
+            cache[key] = gradient(obj(pts), h)
         return cache[key]
 
     minimize_box(fun, np.array(start, dtype=float), np.zeros(n), np.ones(n), maxiter=10_000, ftol=POLISH_FTOL,
                  gtol=POLISH_GTOL)
+
+
+def stencil(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The polish's forward-difference points around ``u`` (n,) in the unit cube: (u and u + h_i e_i, shape
+    (n + 1, n); the steps h (n,), POLISH_STEP, negative at the cube's upper edge)."""
+    n = u.size
+    h = np.where(u + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
+    pts = np.empty((n + 1, n))
+    pts[:] = u
+    pts.ravel()[n::n + 1] += h  # row i + 1: u + h_i e_i
+    return pts, h
+
+
+def gradient(c: np.ndarray, h: np.ndarray) -> tuple[float, np.ndarray]:
+    """The value and the forward-difference gradient (n,) from the costs ``c`` (n + 1,) of :func:`stencil`'s
+    points with steps ``h`` (n,) (components that are not finite: 0)."""
+    grad = (c[1:] - c[0]) / h
+    return float(c[0]), np.where(np.isfinite(grad), grad, 0.0)
+
+
+def polish_steps(n: int, start: np.ndarray):
+    """:func:`_polish` from ``start`` (n,) as a generator (L-BFGS-B driven step by step, :func:`xo_fit.search.
+    lbfgsb.lbfgsb_steps`): it yields each batch of points (n + 1, n) and is sent back their costs (n + 1,) (inf
+    for any the budget did not let in), so that several polishes can share one batch; the iterates are
+    :func:`_polish`'s bit for bit. None where scipy's routine cannot be driven."""
+    steps = lbfgsb_steps(np.array(start, dtype=float), np.zeros(n), np.ones(n), maxiter=10_000, ftol=POLISH_FTOL,
+                         gtol=POLISH_GTOL)
+    return None if steps is None else _differences(steps)
+
+
+def _differences(steps):
+    """Drives L-BFGS-B's ``steps`` with forward-difference gradients of batches yielded (see :func:`polish_steps`)."""
+    try:
+        u = next(steps)
+        while True:
+            pts, h = stencil(u)
+            u = steps.send(gradient((yield pts), h))
+    except StopIteration:
+        return
 
 
 def search(fn: Callable, space: Space, *, optimizer: str = SearchSpec.optimizer, budget: int = SearchSpec.budget,

@@ -140,8 +140,47 @@ def one_blas_thread():
         return contextlib.nullcontext()
 
 
+def lbfgsb_steps(x0: np.ndarray, lower: np.ndarray, upper: np.ndarray, *, ftol: float, gtol: float,
+                 maxiter: int):
+    """:func:`minimize_box`'s loop as a generator, for callers that evaluate many minimisations' points in one
+    batch (:mod:`xo_fit.search.polish_batch`): the same iterates and end point, bit for bit.
+
+    Parameters
+    ----------
+    x0, lower, upper : ndarray
+        The start point and the box's bounds, shape (n,) each, as :func:`minimize_box`'s.
+    ftol, gtol : float
+        The stopping tolerances, as :func:`minimize_box`'s (dimensionless in the polish).
+    maxiter : int
+        Iterations at most (dimensionless).
+
+    Returns
+    -------
+    generator or None
+        It yields each point x (n,) whose value and gradient it needs and is sent back (f, g) (a float, shape
+        (n,)); its ``StopIteration.value`` is (x, f), as :func:`minimize_box` returns. None where scipy's routine
+        cannot be loaded (then :func:`minimize_box` alone serves, through ``scipy.optimize.minimize``).
+    """
+    setulb = _setulb()
+    if setulb is None:
+        return None
+    return _steps(setulb, x0, np.asarray(lower, dtype=np.float64), np.asarray(upper, dtype=np.float64), ftol=ftol,
+                  gtol=gtol, maxiter=maxiter)
+
+
 def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: int) -> tuple[np.ndarray, float]:
-    """scipy's reverse-communication loop around ``setulb`` (see :func:`minimize_box`)."""
+    """:func:`_steps` driven by ``fun`` (see :func:`minimize_box`)."""
+    steps = _steps(setulb, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
+    try:
+        x = next(steps)
+        while True:
+            x = steps.send(fun(x))
+    except StopIteration as end:
+        return end.value
+
+
+def _steps(setulb, x0, lower, upper, *, ftol: float, gtol: float, maxiter: int):
+    """scipy's reverse-communication loop around ``setulb`` as a generator (see :func:`lbfgsb_steps`)."""
     x = np.clip(np.asarray(x0, dtype=np.float64).ravel(), lower, upper)
     n = x.size
     m = MAXCOR
@@ -156,7 +195,7 @@ def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: in
     dsave = np.zeros(29, dtype=np.float64)
     # scipy's ScalarFunction evaluates at the start and then again only at a new point; the same here
     last_x = x.copy()
-    f_last, g_last = fun(last_x.copy())
+    f_last, g_last = yield last_x.copy()
     nfev = 1
     f: float | np.ndarray = np.array(0.0, dtype=np.float64)  # a float once evaluated, as scipy does
     g = np.zeros(n, dtype=np.float64)
@@ -167,7 +206,7 @@ def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: in
         if task[0] == _TASK_FG:
             if not (x == last_x).all():  # np.array_equal's test without its wrapper
                 last_x = x.copy()
-                f_last, g_last = fun(last_x.copy())
+                f_last, g_last = yield last_x.copy()
                 nfev += 1
             f, g = float(f_last), np.atleast_1d(np.asarray(g_last, dtype=np.float64))
         elif task[0] == _TASK_NEW_X:

@@ -3,15 +3,20 @@
 From a starting design, every R, L and C without ``keep = true`` is tried
 removed, opened (deleted) and shorted (its nodes merged), skipping removals
 that are no legal netlist (:mod:`xo_fit.stages.removal`). After each trial removal the
-remaining free values are refitted from the current ones (a short search and
-polish). The refits search on the starting design's compiled cost kernel
+remaining free values are refitted from the current ones: a local polish
+(L-BFGS-B; SLSQP under ``[limits]``) of at most the refit budget, which draws no
+random numbers. The refits search on the starting design's compiled cost kernel
 (:class:`Family`: a removed part stands in as an extreme value, so no removal
-waits for a compiler) and the design found is scored on the reduced netlist
-itself, so every reported cost is exact; where stand-ins would not be faithful
-(part ratings judged, the reference cost) they search on the dense solve. The
+waits for a compiler), a step's refits side by side with their points in one
+batch of the kernel (:mod:`xo_fit.search.polish_batch`); each trial's cost is the
+kernel's (within ~1e-6 relative of the reduced netlist's) and the removal taken
+is scored on the reduced netlist itself, so every step's cost is exact. Where
+stand-ins would not be faithful (part ratings judged, the reference cost) the
+refits search on the dense solve and every trial is scored exactly. The
 cheapest removal is taken and the step repeated until nothing is left to
 remove. The chosen design is the one with the fewest parts whose cost stays
-within ``max_increase`` of step 0's (the starting design refitted).
+within ``max_increase`` of step 0's (the starting design refitted; the increase
+as a share of COST_FLOOR where step 0's cost is below it, a start on target).
 
 Under ``[limits]`` the refits are feasibility first, and a removal whose
 refitted design breaks a limit the current design meets (a larger total
@@ -30,9 +35,10 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
+from xo_fit.config import COST_FLOOR, MAX_INCREASE, REFIT_BUDGET
 from xo_fit.model.fused import FusedCost
-from xo_fit.model.limits import NAMES as LIMIT_NAMES
+from xo_fit.stages.refitting import (Interrupted, broken_limits, model_of, pooled_trials, refit, share,
+                                     step_trials)
 from xo_fit.stages.removal import HOWS, JobDocument, variant
 
 #: The columns of prune.csv, one row a step (the keys of :attr:`PruneRun.steps`' rows).
@@ -109,6 +115,16 @@ class Family:
             return out
         return full
 
+    def cube_map(self, system, space, removed: dict):
+        """A map of ``space``'s cube points (B, n) (``system``'s free values, :func:`xo_fit.search.space.
+        make_space`) straight into the family's designs (B, P), SI, the ``removed`` parts at their stand-ins;
+        None where :meth:`embed` gives none."""
+        full = self.embed(system, removed)
+        if full is None:
+            return None
+        columns = np.array([self.names.index(n) for n in system.part_names])[space.columns]
+        return replace(space, columns=columns, base=full(space.base[None])[0]).values
+
 
 #: The pivot check of the family's kernel (relative to the node's summed admittance): a shorted stand-in is
 #: ~1e8 times its neighbours by design, which the default 1e-3 would send to the dense path on every point.
@@ -148,158 +164,6 @@ class StandInCost(FusedCost):
         state = super().__getstate__()
         state.pop("_scratch", None)
         return state
-
-
-def refit(system, budget: int, seed: int, family: Family | None = None, removed: dict | None = None,
-          light: bool = False, targets=None):
-    """The system's free values refitted from its job's values (the start): a short search and polish.
-
-    With ``family`` (where :meth:`Family.embed` maps the system into it) the search runs on the family's compiled
-    kernel; else on the dense solve. Either way the design found is scored on the system's own netlist, so the
-    costs reported are exact.
-
-    Parameters
-    ----------
-    system : System
-        The (reduced) system (:class:`~xo_fit.model.system.System`); its job's values are the start.
-    budget, seed : int
-        The search's cost evaluations and random seed (dimensionless).
-    family : Family, optional
-        The prune's :class:`Family`; None: the dense solve.
-    removed : dict, optional
-        The parts ``system`` lacks against the family's: name -> "open" or "short".
-    light : bool
-        Score the design by its cost alone (a Scored without ``sim``, terms or metrics, scored in full if taken).
-    targets : Targets, optional
-        The job's targets where already built (they do not change when a part is removed).
-
-    Returns
-    -------
-    tuple
-        (:class:`~xo_fit.search.fitting.Scored`, evaluations (dimensionless)); without free parts the start's.
-
-    Raises
-    ------
-    Interrupted
-        Where Ctrl-C or SIGTERM stopped the search, with the best design so far.
-    """
-    from xo_fit.search.fitting import score
-    from xo_fit.search.engines import search
-    from xo_fit.search.space import make_space
-
-    model = model_of(system, targets)
-    cm, _ = model
-    if not system.job.free_parts:
-        return score(system, system.values(), model), 0
-    space = make_space(system.job)
-    full = family.embed(system, removed or {}) if family is not None else None
-
-    if full is not None:
-        assert family is not None  # full comes from the family
-        fused, limited = family.fused, family.limited
-        # the space with its columns and base in the family's designs: full(space.values(u)) in one step
-        columns = np.array([family.names.index(n) for n in system.part_names])[space.columns]
-        wide = replace(space, columns=columns, base=full(space.base[None])[0])
-
-        def fn(u: np.ndarray):
-            v = wide.values(u)
-            return fused.limited(v) if limited else fused(v)
-    else:
-        def fn(u: np.ndarray):
-            v = space.values(u)
-            ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)
-            if ev.violations is None:
-                return ev.cost
-            return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
-
-    r = search(fn, space, optimizer="de", budget=budget, seed=seed, polish=True, constrained=cm.limits is not None)
-    if light:
-        from xo_fit.search.fitting import Scored
-
-        v = space.values(r.u)[:1]
-        ev = cm.evaluate_simulation(system.simulate(v, dense=True), v)  # what score() computes the cost with
-        scored = Scored(values=v[0], sim=None, cost=float(ev.cost[0]), terms={}, metrics={}, targets=None,
-                        level_db=None)
-    else:
-        scored = score(system, space.values(r.u)[0], model)
-    if r.stopped_by == "interrupted":
-        raise Interrupted(scored, r.evaluations)
-    return scored, r.evaluations
-
-
-def model_of(system, targets=None):
-    """The system's cost model and targets: (CostModel, Targets), the targets built here unless given (a reduced
-    system's are its starting system's: nothing they depend on changes when a part is removed). Raises JobError
-    where the job has no way targets."""
-    from xo_fit.model.cost import CostModel
-    from xo_fit.search.fitting import require_cost_model
-
-    if targets is None:
-        return require_cost_model(system, "prune against")
-    return CostModel(system, targets), targets
-
-
-class Interrupted(KeyboardInterrupt):
-    """A refit stopped by Ctrl-C or SIGTERM: ``args`` = (its best design so far as Scored, evaluations)."""
-
-
-def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list[str]]:
-    """The total violation of the job's [limits] by design ``values`` (P,), SI (dimensionless, 0 where all are
-    met), and the names of the limits it breaks: (0, []) without limits or targets; ``targets`` as in
-    :func:`refit`."""
-    from xo_fit.search.fitting import cost_model
-
-    if not system.job.limits.active:
-        return 0.0, []
-    model = cost_model(system) if targets is None else model_of(system, targets)
-    if model is None or model[0].limits is None:
-        return 0.0, []
-    v = np.asarray(values, dtype=float)[None]
-    violations = model[0].evaluate_simulation(system.simulate(v, dense=True), v).violations
-    assert violations is not None, "a cost model with limits reports their violations"
-    return float(violations["total"][0]), [n for n in LIMIT_NAMES if violations[n][0] > 0]
-
-
-#: What every trial of a prune shares in a worker process (:func:`_share`): the starting system (its driver data,
-#: grid and off-axis data serve every reduced job), the family and the targets, handed over once per worker; and
-#: the step's system and document (``step``: derived once per step, from the first of its trials the worker runs).
-_SHARED: dict = {}
-
-
-def _share(base, family: Family | None, targets) -> None:
-    """Pool initializer: what the trials of this prune share (see :data:`_SHARED`)."""
-    _SHARED.update(base=base, family=family, targets=targets, step=None)
-
-
-def _trial(args):
-    """One trial removal in a worker process: (Scored, evaluations) of its refit, or None where the removal is no
-    legal netlist. ``args``: (the step's job pickled (once a step, not once a trial), its design {name: value},
-    name, how, budget, seed, removed); the step's system is derived from the shared starting system."""
-    from xo_fit.model.system import derive_system
-    from xo_fit.stages.removal import JobDocument
-
-    job, values, name, how, budget, seed, removed = args
-    step = _SHARED["step"]
-    if step is None or step[0] != job:
-        loaded = pickle.loads(job)
-        step = _SHARED["step"] = (job, derive_system(_SHARED["base"], loaded), JobDocument(loaded))
-    try:
-        return trial(step[1], values, name, how, budget, seed, _SHARED["family"], removed, _SHARED["targets"],
-                     step[2])
-    except Interrupted:
-        raise KeyboardInterrupt from None  # the trial is dropped: nothing heavy to send back from a worker
-
-
-def trial(system, values: dict, name: str, how: str, budget: int, seed: int, family: Family | None, removed: dict,
-          targets, source=None):
-    """One trial removal from ``system`` at design ``values`` ({name: value}, SI): (Scored, evaluations) of the
-    reduced system's refit (``light``, see :func:`refit`; ``removed``: every part it lacks against ``family``'s,
-    this one included), or None where the removal is no legal netlist (see :func:`xo_fit.stages.removal.variant`;
-    ``source``: the system's job's JobDocument). Raises :class:`Interrupted` as :func:`refit` does."""
-    s = variant(system, name, how, values, source=source)
-    if s is None:
-        return None
-    return refit(s, budget, seed, family, removed, light=True, targets=targets)
 
 
 @dataclass(eq=False)
@@ -354,9 +218,10 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     start : ndarray
         The starting design's part values, SI (ohm, H, F), shape (P,).
     budget : int, optional
-        Cost evaluations for each refit (dimensionless); default (or 0) ``xo_fit.config.REFIT_BUDGET``.
+        Cost evaluations for each refit at most (dimensionless); default (or 0) ``xo_fit.config.REFIT_BUDGET``.
     seed : int, optional
-        The refits' random seed (dimensionless); default the job's ``[search] seed``.
+        Recorded in the section (dimensionless); default the job's ``[search] seed``. The refits draw no random
+        numbers.
     max_increase : float
         The cost increase over step 0 the chosen step may have, a fraction (dimensionless; 0.1 is +10 %).
     workers : int
@@ -399,7 +264,8 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
         except KeyboardInterrupt:  # Ctrl-C or SIGTERM: the steps taken so far are kept, the step under way is not
             interrupted = True
     evaluations = spent[0]
-    limit = steps[0]["cost"] * (1 + max_increase) if steps[0]["cost"] is not None else math.inf
+    base = steps[0]["cost"]  # the increase as a share of it, or of COST_FLOOR for a start on target (as idle_parts)
+    limit = base + max_increase * max(base, COST_FLOOR) if base is not None else math.inf
     within = [i for i, r in enumerate(steps) if r["cost"] is not None and r["cost"] <= limit]
     chosen = min(within, key=lambda i: (steps[i]["parts"], steps[i]["cost"])) if within else 0
     section = {"steps": steps, "chosen_step": chosen, "max_increase": max_increase, "refit_budget": budget,
@@ -423,7 +289,7 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
     if workers > 1:
         from xo_fit.search.interrupt import stopping_pool
 
-        pool, stop = stopping_pool(workers, _share, (states[0][0], family, targets))
+        pool, stop = stopping_pool(workers, share, (states[0][0], family, targets))
     try:
         while True:
             last_system, last_scored = states[-1]
@@ -431,14 +297,13 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             source = JobDocument(last_system.job)
             gone = {r["removed"]: r["how"] for r in steps[1:]}
             options = [(p.name, how) for p in last_system.job.valued_parts if not p.keep for how in HOWS]
-            if pool:  # each worker derives the removal's system and checks it too
-                job = pickle.dumps(last_system.job)
-                args = [(job, values, name, how, budget, seed, {**gone, name: how})
-                        for name, how in options]
-                found = list(pool.map(_trial, args))
+            if pool:  # each worker derives its removals' systems and checks them too
+                job, each = pickle.dumps(last_system.job), max(1, -(-len(options) // workers))
+                chunks = [options[i:i + each] for i in range(0, len(options), each)]
+                found = [f for got in pool.map(pooled_trials, [(job, values, c, budget, seed, gone) for c in chunks])
+                         for f in got]
             else:
-                found = [trial(last_system, values, name, how, budget, seed, family, {**gone, name: how}, targets,
-                               source) for name, how in options]
+                found = step_trials(last_system, values, options, budget, seed, family, gone, targets, source)
             if not any(f is not None for f in found):
                 break
             allowed, _ = broken_limits(last_system, last_scored.values, targets)

@@ -1,0 +1,88 @@
+"""Many polishes side by side: several L-BFGS-B minimisations whose points share one batch of the cost.
+
+A prune refits a dozen or more trial removals per step, each a short polish of a few hundred evaluations in
+batches of n + 1 points (the forward-difference stencil). One call of the compiled cost per stencil pays the
+call's fixed cost (argument checks, the kernel's entry, the reductions' set-up) a dozen times over for a few
+designs each. Here every polish is a generator (:func:`xo_fit.search.engines.polish_steps`) and one round asks
+each for its next stencil, maps each into the common designs (a trial's free values written into its columns of
+the shared kernel's designs) and evaluates them all in ONE call. Each design's cost depends on that design
+alone, so every polish takes the iterates it would take on its own (:func:`xo_fit.search.engines.polish_from`),
+bit for bit (tests/test_polish_batch.py).
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable, Sequence
+
+import numpy as np
+
+from xo_fit.search.engines import Objective, SearchResult, polish_from, polish_steps
+from xo_fit.search.feasibility import Stop
+from xo_fit.search.lbfgsb import one_blas_thread
+from xo_fit.search.space import Space
+
+
+def polish_together(evaluate: Callable[[np.ndarray], np.ndarray], problems: Sequence[tuple[Space, Callable]],
+                    starts: Sequence[np.ndarray], budget: int) -> list[SearchResult | None]:
+    """Unconstrained polishes (L-BFGS-B, as :func:`~xo_fit.search.engines.polish_from`) of several problems
+    whose designs one cost function evaluates, their points evaluated in one batch per round.
+
+    Parameters
+    ----------
+    evaluate : callable
+        Designs (B, P) -> costs (B,), dimensionless; each row's cost must depend on that row alone.
+    problems : sequence of (Space, callable)
+        Each problem's free values (its unit cube, n_i dimensions) and its map of cube points (B, n_i) to
+        designs (B, P), in ``evaluate``'s units.
+    starts : sequence of ndarray
+        Each problem's start point in its cube, shape (n_i,).
+    budget : int
+        Evaluations for each problem at most (dimensionless).
+
+    Returns
+    -------
+    list of SearchResult or None
+        Each problem's polish: what ``polish_from(lambda u: evaluate(to_designs(u)), space, start,
+        budget=budget)`` returns, bit for bit (None where it would be).
+
+    Raises
+    ------
+    KeyboardInterrupt
+        Where the process was asked to stop (Ctrl-C, SIGTERM, its parent): the polishes are dropped.
+    """
+    fns = [(lambda u, to=to: evaluate(to(u))) for _, to in problems]
+    runs = [polish_steps(space.dims, np.asarray(s, dtype=float)) for (space, _), s in zip(problems, starts)]
+    if any(r is None for r in runs):  # scipy's routine cannot be driven: one after another
+        return [polish_from(fn, space, s, budget=budget) for fn, (space, _), s in zip(fns, problems, starts)]
+    t0 = time.monotonic()
+    objs = [Objective(fn=fn, budget=budget) for fn in fns]
+    asked = {i: next(r) for i, r in enumerate(runs)}
+    with one_blas_thread():
+        while asked:
+            batch, parts = [], []
+            for i, pts in list(asked.items()):
+                try:
+                    take = objs[i].admit(pts)
+                except Stop:
+                    runs[i].close()
+                    del asked[i]
+                    continue
+                batch.append(problems[i][1](pts[:take]))
+                parts.append((i, pts, take))
+            if not parts:
+                break
+            costs = np.asarray(evaluate(np.concatenate(batch) if len(batch) > 1 else batch[0]), dtype=float)
+            at = 0
+            for i, pts, take in parts:
+                got = objs[i].record(pts, take, costs[at:at + take], np.zeros(pts.shape[0]))
+                at += take
+                try:
+                    asked[i] = runs[i].send(got)
+                except StopIteration:
+                    del asked[i]
+    seconds = time.monotonic() - t0
+    return [None if o.best_u is None else
+            SearchResult(u=o.best_u, cost=o.best_cost, evaluations=o.evaluations, seconds=seconds,
+                         optimizer="polish", seed=0, complete=True, stopped_by=o.stopped_by,
+                         history=tuple(o.history), violation=o.best_violation) for o in objs]
