@@ -1,4 +1,5 @@
-"""Pruning with refits against a fit of the same job: the demo two-way (13 parts) and the 16-part hard three-way.
+"""Pruning with refits against a fit of the same job: the demo two-way (13 parts), the 16-part hard three-way and
+the limited two-way and three-way (12 and 16 parts, [limits] with rated parts judged).
 
 Goals: issue 12, the demo's whole prune in at most 60 s on one core; issue 29, every prune at most 4x a fit of the
 same job (the fit at its job's default budget), on one core and with --workers 2.
@@ -32,6 +33,7 @@ from xo_fit.config import REFIT_BUDGET  # noqa: E402
 from xo_fit.demo import write_scenario  # noqa: E402
 
 HARD = ROOT / "tests" / "data" / "hard-three-way.toml"
+LIMITED = [ROOT / "tests" / "data" / f"limited-{n}-way.toml" for n in ("two", "three")]
 
 
 def timed(fn):
@@ -99,6 +101,7 @@ def main() -> None:
         show(r, 1, 100)
         return
     jobs = [xo_fit.load_job(write_scenario(folder / "scenario")), xo_fit.load_job(HARD)]
+    jobs += [xo_fit.load_job(path) for path in LIMITED]
     print(f"one thread; medians of {args.runs} runs")
     for job in jobs:
         show(bench(job, args.runs, args.workers, None, None), args.workers, None)

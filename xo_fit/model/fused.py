@@ -27,6 +27,7 @@ from xo_fit.model.acoustics import used_positions
 from xo_fit.model.cost import BREAKUP_FLOOR_DB, NULL_DB, PHASE_DEG_PER_DB, TERMS
 from xo_fit.model.limits import NAMES
 from xo_fit.model.fused_preference import preference_lines
+from xo_fit.model.fused_rated import switches
 from xo_fit.solver.codegen import B, F, FIN, R_COEF, R_EXP, RS, TAU2, VALS, VS, solver_code
 from xo_fit.solver.ir import (DB10, Array, Const, Function, Named, Not, Return, assign, f8, i8, let, ln_floored, loop,
                               maximum, select, signed_sum, sqrt, total, update, when, wrap)
@@ -78,6 +79,8 @@ class FusedCost:
         The job's reference cost (:class:`xo_fit.model.cost.CostModel`); its system, band, targets, weights and
         limits are written into the kernel. Its band must be a contiguous range of the grid (else ValueError).
     """
+
+    stand_ins: dict | None = None  #: a prune family's values of removed parts (fused_rated.switches); None: a fit's
 
     def __init__(self, cm) -> None:
         self.cm = cm
@@ -393,6 +396,7 @@ class FusedCost:
             mq, qv = f8(f"mq{m}"), f8("qv")
             src += [let(mq, 0.0),
                     loop(F, self.lo, self.hi, [let(qv, SCRATCH[row, F]), when(qv > mq, [assign(mq, qv)])])]
+        on, n_on = switches(self.judged, self.stand_ins, src)
         src.append(let(acc_st, 0.0))
         for m, (j, _, kind, rating) in enumerate(cm.rated):
             x, mq = f8(f"x_{j}"), f8(f"mq{m}")
@@ -403,12 +407,14 @@ class FusedCost:
             else:
                 ratio = 2.0 * mq * k2 / (rating * rating)
             ex = f8(f"ex{m}")
-            src += [let(ex, DB10 * ln_floored(maximum(ratio, 1.0))), update(acc_st, ex * ex)]
+            src += [let(ex, DB10 * ln_floored(maximum(ratio, 1.0))),
+                    update(acc_st, select(on[m] > 0.5, ex * ex, 0.0) if on else ex * ex)]
         t = {n: f8(f"t_{n}") for n in ("stress", "way", "sum", "phase", "imp", "er", "sp", "pref")}
         phase_scale = 2 * math.degrees(1.0) ** 2 / PHASE_DEG_PER_DB**2 / max(len(cm.pairs), 1)
         sxx = self.sxx
         src += [
-            let(t["stress"], acc_st / float(len(cm.rated)) if cm.rated else Const(0.0)),
+            let(t["stress"], (select(n_on > 0.5, acc_st / n_on, 0.0) if on else acc_st / float(len(cm.rated)))
+                if cm.rated else Const(0.0)),
             let(t["way"], f8("acc_w") / float(nb * len(ways)) if ways else Const(0.0)),
             let(t["sum"], f8("acc_s") / nb),
             let(t["phase"], total([f8(f"acc_p{j}") / float(self.pair_counts[j]) for j in range(len(cm.pairs))])
@@ -426,7 +432,7 @@ class FusedCost:
         src.append(OUT.store((B, 0), total([wrap(c) * v for c, v in terms])))
         src += [OUT.store((B, i), v) for i, v in enumerate(cols, start=1)]
         if lim:
-            src += lim.end_lines(self.judged, cm.limits.drive_scale ** 2, self.col_limits)
+            src += lim.end_lines(self.judged, cm.limits.drive_scale ** 2, self.col_limits, on, n_on)
         src.append(when(Not(f8("acc_bad") <= 0.0), [update(i8("nbad"), 1)]))
         return src
 
@@ -479,24 +485,27 @@ class FusedCost:
         v, out = args[0], args[-1]
         nbad = self.kernel()(*args)
         if nbad:
-            redo = np.nonzero(~(out[:, FLAG] <= 0.0))[0]
-            ev = self.cm.evaluate(v[redo])
-            out[redo, 0] = ev.cost
-            for i, t in enumerate(TERMS, start=1):
-                out[redo, i] = ev.terms.get(t, 0.0)
-            out[redo, LEVEL] = ev.level_db
-            if self.plan is not None:
-                out[redo, PREFERENCE] = ev.terms["preference"]
-            if self.limit_code is not None:
-                out[redo, self.col_limits] = ev.violations["total"]
-                for i, name in enumerate(NAMES, start=1):
-                    out[redo, self.col_limits + i] = ev.violations[name]
+            self.rescore(v, np.nonzero(~(out[:, FLAG] <= 0.0))[0], out)
         bad = ~np.isfinite(out[:, 0])
         out[bad, 0] = np.inf  # as the reference: a design with a singular point is infeasible
         if self.limit_code is not None:
             c = self.col_limits
             out[bad | ~np.isfinite(out[:, c]), c] = np.inf
         return out
+
+    def rescore(self, values: np.ndarray, redo: np.ndarray, out: np.ndarray, cm=None) -> None:
+        """Rows ``redo`` of :meth:`evaluate_raw`'s ``out`` set from reference ``cm`` (default :attr:`cm`), SI values."""
+        ev = (self.cm if cm is None else cm).evaluate(values[redo])
+        out[redo, 0] = ev.cost
+        for i, t in enumerate(TERMS, start=1):
+            out[redo, i] = ev.terms.get(t, 0.0)
+        out[redo, LEVEL] = ev.level_db
+        if self.plan is not None:
+            out[redo, PREFERENCE] = ev.terms["preference"]
+        if self.limit_code is not None:
+            out[redo, self.col_limits] = ev.violations["total"]
+            for i, name in enumerate(NAMES, start=1):
+                out[redo, self.col_limits + i] = ev.violations[name]
 
     def limited(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Cost (B,), total violation of the [limits] (B,) and each limit's signed relative excess (B, 4; in the

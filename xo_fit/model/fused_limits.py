@@ -16,7 +16,7 @@ import numpy as np
 from xo_fit.constants import Z_SHORT_OHM
 from xo_fit.model.limits import LN10_20, NAMES
 from xo_fit.solver.codegen import B, F
-from xo_fit.solver.ir import Array, Declared, assign, f8, let, loop, maximum, select, sqrt, update, when
+from xo_fit.solver.ir import Array, Declared, Expr, assign, f8, let, loop, maximum, select, sqrt, update, when
 
 #: The fused kernel's arrays this code reads and writes (xo_fit.model.fused).
 TGT, SCRATCH, OUT = Array("tgt", 2), Array("scratch", 2), Array("out", 2)
@@ -127,7 +127,8 @@ class LimitCode:
         """Per candidate, before the frequency loop: the sums' starts."""
         return [let(f8(f"lim_pw{k}"), 0.0) for k, _ in self.powers]
 
-    def end_lines(self, judged: list, k2: float, out_col: int) -> list:
+    def end_lines(self, judged: list, k2: float, out_col: int, on: dict | None = None,
+                  n_on: Expr | None = None) -> list:
         """Per candidate, after the level is known and the second pass is done: the extremes, each limit's
         violation and their total.
 
@@ -142,6 +143,11 @@ class LimitCode:
         out_col : int
             The output's column of the total violation; each limit's (in the order of
             :data:`xo_fit.model.limits.NAMES`) follows, dimensionless.
+        on : dict, optional
+            A prune family's switches (:func:`xo_fit.model.fused_rated.switches`): m -> the F8 flag of whether
+            part m is judged (1.0) or removed (0.0); empty or None: every part is judged.
+        n_on : Expr, optional
+            With ``on``, the count of parts judged (the ratings limit is 0 where none is).
 
         Returns
         -------
@@ -174,7 +180,10 @@ class LimitCode:
                 lines.append(here.set(e, sqrt(2.0 * f8(f"mq{m}") * k2) / f8(f"x_{j}") / rating - 1.0))
             else:
                 lines.append(here.set(e, sqrt(2.0 * f8(f"mq{m}") * k2) / rating - 1.0))
-            lines.append(here.set(v["lim_vr"], select(e > v["lim_vr"], e, v["lim_vr"])))
+            worse = select(e > v["lim_vr"], e, v["lim_vr"])
+            lines.append(here.set(v["lim_vr"], select(on[m] > 0.5, worse, v["lim_vr"]) if on else worse))
+        if on and lim.rated and n_on is not None:
+            lines.append(here.set(v["lim_vr"], select(n_on > 0.5, v["lim_vr"], 0.0)))
         lines.append(here.set(v["lim_vp"], _LOWEST if self.excursions or self.powers else 0.0))
         for _k, _, srow in self.excursions:
             lines += [here.set(v["lim_mx"], 0.0), *extreme(SCRATCH[srow, F], v["lim_mx"], False),

@@ -10,13 +10,15 @@ random numbers. The refits search on the starting design's compiled cost kernel
 waits for a compiler), a step's refits side by side with their points in one
 batch of the kernel (:mod:`xo_fit.search.polish_batch`); each trial's cost is the
 kernel's (within ~1e-6 relative of the reduced netlist's) and the removal taken
-is scored on the reduced netlist itself, so every step's cost is exact. Where
-stand-ins would not be faithful (part ratings judged, the reference cost) the
-refits search on the dense solve and every trial is scored exactly. The
-cheapest removal is taken and the step repeated until nothing is left to
-remove. The chosen design is the one with the fewest parts whose cost stays
-within ``max_increase`` of step 0's (the starting design refitted; the increase
-as a share of COST_FLOOR where step 0's cost is below it, a start on target).
+is scored on the reduced netlist itself, so every step's cost is exact. The
+kernel judges a rated part (the stress term, the ratings limit) only where it
+is not at a stand-in value, as the reduced netlist leaves a removed one out; a
+job without a fused kernel (``[cost] protection``, the reference cost) refits on
+the dense solve, every trial scored exactly. The cheapest removal is taken and
+the step repeated until nothing is left to remove. The chosen design is the one
+with the fewest parts whose cost stays within ``max_increase`` of step 0's (the
+starting design refitted; the increase as a share of COST_FLOOR where step 0's
+cost is below it, a start on target).
 
 Under ``[limits]`` the refits are feasibility first, and a removal whose
 refitted design breaks a limit the current design meets (a larger total
@@ -37,6 +39,7 @@ import numpy as np
 
 from xo_fit.config import COST_FLOOR, MAX_INCREASE, REFIT_BUDGET
 from xo_fit.model.fused import FusedCost
+from xo_fit.model.fused_rated import judging
 from xo_fit.stages.refitting import (Interrupted, broken_limits, model_of, pooled_trials, refit, share,
                                      step_trials)
 from xo_fit.stages.removal import HOWS, JobDocument, variant
@@ -81,19 +84,26 @@ class Family:
     def of(cls, system):
         """The family of ``system`` (the starting design, its job's values), or None where there is nothing to
         search (no way targets, no free part) or the stand-ins would not be faithful: no fused kernel for the job
-        (the reference cost), or part ratings judged (a shorted coil would still carry the current its rating is
-        judged on)."""
+        (``[cost] protection``: the reference cost), a part not R, L or C, or a rated part judged (the stress
+        term, the ratings limit) whose values could be a stand-in's (the kernel takes such a value for a removal:
+        :func:`xo_fit.model.fused_rated.switches`)."""
         from xo_fit.search.fitting import cost_model
 
         model = cost_model(system)
         if model is None or not system.job.free_parts:
             return None
         cm = model[0]
-        if cm.needs_reference or cm.rated or (cm.limits is not None and cm.limits.rated):
+        if cm.needs_reference:
             return None
         kinds = tuple(system.job.part(n).type for n in system.part_names)
         if any(k not in ("R", "L", "C") for k in kinds):
             return None
+        parts = system.job.valued_parts
+        for _, col, kind, _ in cm.rated or (cm.limits.rated if cm.limits is not None else []):
+            p = parts[col]
+            lo, hi = (p.min, p.max) if p.free else (p.value, p.value)
+            if any(lo <= STAND_IN[how][kind] <= hi for how in HOWS):
+                return None
         return cls(fused=StandInCost(cm), names=tuple(system.part_names), values=np.asarray(system.values(), float),
                    kinds=kinds, limited=cm.limits is not None)
 
@@ -132,11 +142,15 @@ STAND_IN_PIVOT = 1e-11
 
 
 class StandInCost(FusedCost):
-    """The fused cost with its pivot check at STAND_IN_PIVOT (the family's kernel; same text, same build).
+    """The fused cost with its pivot check at STAND_IN_PIVOT, its rated parts judged only where not at a stand-in
+    value (:attr:`~xo_fit.model.fused.FusedCost.stand_ins`; a job without rated parts judged has the fit's kernel
+    text, the same build).
 
     Its designs are the family's own (:meth:`Family.embed`: (B, P), finite, above zero), so the arguments skip the
     network's checks and reuse the constant ones and one scratch per thread: a prune calls it thousands of times
     on a few dozen designs each, where those checks cost as much as a tenth of the kernel's own time."""
+
+    stand_ins = STAND_IN
 
     def kernel_args(self, values: np.ndarray) -> tuple:
         """The kernel's arguments for the family's designs ``values`` (B, P), SI, the pivot check at STAND_IN_PIVOT:
@@ -159,6 +173,19 @@ class StandInCost(FusedCost):
             rows = scratch[threading.get_ident()] = np.empty((self.scratch_rows, self.net.frequencies.size))
         out = np.empty((v.shape[0], self.col_limits + (5 if self.limit_code is not None else 0)))
         return (v, *fixed[1:], rows, out)
+
+    def rescore(self, values: np.ndarray, redo: np.ndarray, out: np.ndarray, cm=None) -> None:
+        """Rows ``redo`` (indices) of the kernel's output ``out`` that it flagged, from the reference cost of
+        ``values`` (B, P), SI: as the kernel, a rated part at a stand-in value is not judged (the rows grouped by
+        which are, each group scored by the cost model judging those alone)."""
+        judged = self.judged
+        if not judged:
+            return super().rescore(values, redo, out, cm)
+        off = np.stack([np.isin(values[redo, col], [STAND_IN[how][kind] for how in HOWS])
+                        for _, col, kind, _ in judged], axis=1)
+        for pattern in np.unique(off, axis=0):
+            kept = [r for r, o in zip(judged, pattern) if not o]
+            super().rescore(values, redo[np.all(off == pattern, axis=1)], out, judging(self.cm, kept))
 
     def __getstate__(self) -> dict:
         state = super().__getstate__()
