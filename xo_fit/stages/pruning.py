@@ -325,10 +325,16 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             gone = {r["removed"]: r["how"] for r in steps[1:]}
             options = [(p.name, how) for p in last_system.job.valued_parts if not p.keep for how in HOWS]
             if pool:  # each worker derives its removals' systems and checks them too
-                job, each = pickle.dumps(last_system.job), max(1, -(-len(options) // workers))
-                chunks = [options[i:i + each] for i in range(0, len(options), each)]
-                found = [f for got in pool.map(pooled_trials, [(job, values, c, budget, seed, gone) for c in chunks])
-                         for f in got]
+                job = pickle.dumps(last_system.job)
+                found: list = [None] * len(options)
+                # dealt round, a part's open and short to different workers and the opens (often illegal, no
+                # refit) spread over all: option k = (part k // 2, how k % 2) to worker (k // 2 + k % 2) % workers
+                dealt = [[k for k in range(len(options)) if (k // 2 + k % 2) % workers == i] for i in range(workers)]
+                dealt = [ks for ks in dealt if ks]
+                for ks, got in zip(dealt, pool.map(pooled_trials, [(job, values, [options[k] for k in ks], budget,
+                                                                     seed, gone) for ks in dealt])):
+                    for k, f in zip(ks, got):
+                        found[k] = f
             else:
                 found = step_trials(last_system, values, options, budget, seed, family, gone, targets, source)
             if not any(f is not None for f in found):

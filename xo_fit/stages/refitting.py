@@ -12,8 +12,14 @@ import pickle
 
 import numpy as np
 
+from xo_fit.model.cost import CostModel
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
-from xo_fit.stages.removal import variant
+from xo_fit.model.system import derive_system
+from xo_fit.search.engines import polish_from
+from xo_fit.search.fitting import Scored, cost_model, require_cost_model, score
+from xo_fit.search.polish_batch import polish_together
+from xo_fit.search.space import make_space
+from xo_fit.stages.removal import JobDocument, variant
 
 
 def refit(system, budget: int, seed: int, family=None, removed: dict | None = None,
@@ -54,9 +60,6 @@ def refit(system, budget: int, seed: int, family=None, removed: dict | None = No
     Interrupted
         Where Ctrl-C or SIGTERM stopped the search, with the best design so far.
     """
-    from xo_fit.search.fitting import score
-    from xo_fit.search.engines import polish_from
-    from xo_fit.search.space import make_space
 
     model = model_of(system, targets)
     cm, _ = model
@@ -97,7 +100,6 @@ def start_of(space) -> np.ndarray:
 def light_score(system, model, values: np.ndarray):
     """A Scored of design ``values`` (P,), SI, with its exact cost on the system's own netlist (dense solve) and
     nothing else (no ``sim``, terms or metrics): a trial's, scored in full only if taken."""
-    from xo_fit.search.fitting import Scored
 
     v = np.asarray(values, dtype=float)[None]
     ev = model[0].evaluate_simulation(system.simulate(v, dense=True), v)  # what score() computes the cost with
@@ -108,8 +110,6 @@ def model_of(system, targets=None):
     """The system's cost model and targets: (CostModel, Targets), the targets built here unless given (a reduced
     system's are its starting system's: nothing they depend on changes when a part is removed). Raises JobError
     where the job has no way targets."""
-    from xo_fit.model.cost import CostModel
-    from xo_fit.search.fitting import require_cost_model
 
     if targets is None:
         return require_cost_model(system, "prune against")
@@ -124,7 +124,6 @@ def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list
     """The total violation of the job's [limits] by design ``values`` (P,), SI (dimensionless, 0 where all are
     met), and the names of the limits it breaks: (0, []) without limits or targets; ``targets`` as in
     :func:`refit`."""
-    from xo_fit.search.fitting import cost_model
 
     if not system.job.limits.active:
         return 0.0, []
@@ -153,8 +152,6 @@ def pooled_trials(args):
     pickled (once a step, not once a trial), its design {name: value}, the removals [(name, how)], budget, seed,
     the parts removed before this step {name: how}); the step's system is derived from the shared starting
     system."""
-    from xo_fit.model.system import derive_system
-    from xo_fit.stages.removal import JobDocument
 
     job, values, options, budget, seed, gone = args
     step = _SHARED["step"]
@@ -177,9 +174,6 @@ def step_trials(system, values: dict, options: list, budget: int, seed: int, fam
     [limits] the refits run side by side, their points in one batch per round
     (:func:`xo_fit.search.polish_batch.polish_together`: each refit's result as on its own, bit for bit); else
     one after another. Raises :class:`Interrupted` or KeyboardInterrupt where Ctrl-C or SIGTERM stopped them."""
-    from xo_fit.search.fitting import Scored
-    from xo_fit.search.polish_batch import polish_together
-    from xo_fit.search.space import make_space
 
     reduced = [variant(system, name, how, values, source=source) for name, how in options]
     out: list = [None] * len(options)
