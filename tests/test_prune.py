@@ -340,6 +340,39 @@ def test_side_by_side_trials_cost_what_their_reduced_netlists_cost_and_workers_c
         assert sc.cost == pytest.approx(exact, rel=1e-4), (name, how)
         checked += 1
     assert checked >= 10
-    one = xo_fit.prune(load_job(HARD), budget=60)
-    two = xo_fit.prune(load_job(HARD), budget=60, workers=2)
+    best = xo_fit.fit(load_job(HARD), budget=4000)
+    one = xo_fit.prune(best.system, best, budget=60)
+    two = xo_fit.prune(best.system, best, budget=60, workers=2)
     assert one.steps == two.steps and one.trials == two.trials and one.evaluations == two.evaluations
+
+
+def test_without_a_design_the_prune_starts_from_a_fit_of_the_job(write_job, cli, tmp_path, monkeypatch):
+    """A prune's refits are local polishes, so its start must be a fitted design: without one (no ``--from``)
+    the job's values are fitted first with its [search], and step 0 is that fit refitted, never worse than it
+    (the polish keeps its start). The fit's figures are in the prune section; a fit stopped by Ctrl-C or
+    SIGTERM leaves step 0 alone, marked interrupted. [CP: the prune's contract, docs/outputs.md]"""
+    text, _ = ladder_job("LR4", start=1.6, spread=3.0)
+    path = write_job(text)
+    job = xo_fit.load_job(path)
+    fitted = xo_fit.fit(job)
+    pr = xo_fit.prune(job, budget=100)
+    section = pr.designs[0].sections["prune"]
+    assert section["fit"]["cost"] == fitted.cost and section["fit"]["seed"] == job.search.seed
+    assert pr.steps[0]["cost"] <= fitted.cost
+    own = xo_fit.prune(job, dict(zip(fitted.system.part_names, fitted.system.values())), budget=100)
+    assert "fit" not in own.designs[0].sections["prune"]
+    assert own.steps[0]["cost"] > 10 * max(pr.steps[0]["cost"], 1e-3)  # from the job's values a polish falls short
+    code, out, err = cli("prune", path, "--out", tmp_path / "p", "--budget", "100", "--no-plots")
+    assert code == 0 and "no --from: the job's values fitted first" in out and "warning" not in err
+
+    from xo_fit import api
+
+    real_fit = api.fit
+
+    def stopped(system, **kw):
+        d = real_fit(system, budget=200)
+        d.sections["search"]["stopped_by"] = "interrupted"
+        return d
+    monkeypatch.setattr(api, "fit", stopped)
+    cut = xo_fit.prune(job, budget=100)
+    assert cut.interrupted and len(cut.steps) == 1

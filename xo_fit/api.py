@@ -329,19 +329,21 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
         A :class:`~xo_fit.job.model.Job` (:func:`load_job`), a job file's path, or a loaded System.
     design : Design or Mapping, optional
         The starting design: a Design (or Spread) of the job, or a mapping part name -> value in ohm, H or F
-        by the part's kind. Default: the job's own values.
+        by the part's kind. Default: the job's own values, fitted first (:func:`fit` with the job's
+        ``[search]``), so that the prune starts from a fitted design; the fit's figures go into the section's
+        ``fit``.
     budget : int, optional
         Cost evaluations for each refit at most (dimensionless); default ``xo_fit.config.REFIT_BUDGET``.
     seed : int, optional
-        Recorded in the result (dimensionless; default the job's ``[search] seed``): the refits are local polishes
-        from the current values and draw no random numbers.
+        The seed of that first fit (dimensionless; default the job's ``[search] seed``), recorded; the refits
+        are local polishes from the current values and draw no random numbers.
     max_increase : float
         The largest cost increase over step 0 (the starting design refitted) that the chosen design may have,
         as a fraction (dimensionless): 0.10 is 10 %.
     workers : int
         Processes the trial removals of a step run in (dimensionless); default 1.
     progress : callable, optional
-        Called as ``progress(step, removed, how, cost)`` after each step.
+        Called as ``progress(step, removed, how, cost)`` after each step (step 0: removed and how "").
 
     Returns
     -------
@@ -353,8 +355,15 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
     from xo_fit.stages.pruning import run_prune
 
     system = _reuse(job, design)
-    return Pruning.of_run(run_prune(system, _values(system, design), budget=budget, seed=seed,
-                                    max_increase=max_increase, workers=workers, progress=progress))
+    fitted = None
+    if design is None and system.job.free_parts:  # the job's own values: a fit first, so step 0 is a fitted design
+        design = fitted = fit(system, seed=seed, workers=workers)
+    search = fitted.sections["search"] if fitted is not None else {}
+    run = run_prune(system, _values(system, design), budget=budget, seed=seed, max_increase=max_increase,
+                    workers=workers, progress=progress, interrupted=search.get("stopped_by") == "interrupted")
+    if fitted is not None:
+        run.section["fit"] = {"cost": fitted.cost, **{k: search[k] for k in ("seed", "evaluations", "complete")}}
+    return Pruning.of_run(run)
 
 
 def fit_driver(path: str | Path, model: str = "ts", volume: float | None = None):

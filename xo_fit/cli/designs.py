@@ -291,8 +291,8 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
                                                help=f"Cost evaluations per refit at most (default {REFIT_BUDGET})."),
           seed: int | None = typer.Option(None, "--seed", min=0,
-                                          help="Recorded in result.json; the refits are local polishes from the "
-                                               "current values and draw no random numbers."),
+                                          help="Seed of the fit that comes first without --from (default: the "
+                                               "job's \\[search] seed); the refits draw no random numbers."),
           max_increase: float = typer.Option(100 * MAX_INCREASE, "--max-increase", min=0.0,
                                              help="Largest cost increase over step 0 for the chosen design, %."),
           workers: int = typer.Option(1, "--workers", min=1, max=64, help="Processes for the trial removals."),
@@ -308,13 +308,17 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     j = system.job
 
     def progress(step: int, name: str, how: str, cost: float) -> None:
-        say(f"  step {step}: without {name} ({how}), cost {cost:.4g}")
+        say(f"  step {step}: without {name} ({how}), cost {cost:.4g}" if step
+            else f"  step 0: the start, cost {cost:.4g}")
 
-    if seed is not None:
-        warn("--seed has no effect on prune: its refits are local polishes that draw no random numbers")
+    if seed is not None and from_ is not None:
+        warn("--seed has no effect with --from: the refits are local polishes that draw no random numbers")
     say(f"prune {j.name}: {len(j.valued_parts)} parts, refits of at most {budget or REFIT_BUDGET} evaluations")
-    pr = api.prune(system, dict(zip(system.part_names, values)), budget=budget, seed=seed,
-                   max_increase=max_increase / 100, workers=workers, progress=progress)
+    if from_ is None and j.free_parts:
+        say(f"  no --from: the job's values fitted first ([search] budget {j.search.budget}, seed "
+            f"{j.search.seed if seed is None else seed})")
+    pr = api.prune(system, dict(zip(system.part_names, values)) if from_ is not None else None, budget=budget,
+                   seed=seed, max_increase=max_increase / 100, workers=workers, progress=progress)
     files = pr.save(out, plots=not no_plots)
     if len(pr.steps) == 1:
         say("  nothing to remove: every removal leaves no legal netlist, or every part has keep = true")

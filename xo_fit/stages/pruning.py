@@ -235,7 +235,8 @@ def _row(step: int, system, scored, removed: str, how: str) -> dict:
 
 
 def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int | None = None,
-              max_increase: float = MAX_INCREASE, workers: int = 1, progress=None) -> PruneRun:
+              max_increase: float = MAX_INCREASE, workers: int = 1, progress=None,
+              interrupted: bool = False) -> PruneRun:
     """Greedy backward elimination from one design of a system; see the module's docstring.
 
     Parameters
@@ -254,7 +255,9 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     workers : int
         Processes the trial removals run in (dimensionless); 1: in this one.
     progress : callable, optional
-        Called as ``progress(step, removed, how, cost)`` after each step.
+        Called as ``progress(step, removed, how, cost)`` after each step (step 0: removed and how "").
+    interrupted : bool
+        Ctrl-C or SIGTERM stopped what came before (the fit of the start): step 0 alone, marked interrupted.
 
     Returns
     -------
@@ -266,8 +269,9 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     JobError
         Where the job has no way targets.
     """
-    from xo_fit.stages.removal import reduced_job
     from xo_fit.model.system import derive_system
+    from xo_fit.search.fitting import score
+    from xo_fit.stages.removal import reduced_job
 
     budget = budget or REFIT_BUDGET
     seed = system.job.search.seed if seed is None else seed
@@ -275,14 +279,19 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     job = reduced_job(system.job, None, "none", values)
     assert job is not None, "with no part removed there is always a job"
     current = derive_system(system, job)
-    interrupted = False
     family = Family.of(current)
-    targets = model_of(current)[1]
-    try:
-        scored, evaluations = refit(current, budget, seed, family, {}, targets=targets)
-    except Interrupted as e:  # step 0 stopped early: its best so far is the only step
-        (scored, evaluations), interrupted = e.args, True
+    model = model_of(current)
+    targets = model[1]
+    if interrupted:  # the start's fit was stopped: the start itself is step 0
+        scored, evaluations = score(current, current.values(), model), 0
+    else:
+        try:
+            scored, evaluations = refit(current, budget, seed, family, {}, targets=targets)
+        except Interrupted as e:  # step 0 stopped early: its best so far is the only step
+            (scored, evaluations), interrupted = e.args, True
     steps, states = [_row(0, current, scored, "", "")], [(current, scored)]
+    if progress:
+        progress(0, "", "", scored.cost)
     trials: list[dict] = []
     spent = [evaluations]
     if not interrupted:
