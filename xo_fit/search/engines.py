@@ -493,16 +493,20 @@ def search(fn: Callable, space: Space, *, optimizer: str = SearchSpec.optimizer,
                         basin_violations=tuple(violations), points=tuple(b[1] for b in basins))
 
 
-def polish_from(fn: Callable, space: Space, start: np.ndarray, *, budget: int,
-                constrained: bool = False) -> SearchResult | None:
+def polish_from(fn: Callable, space: Space, start: np.ndarray, *, budget: int, constrained: bool = False,
+                margins: tuple | None = None) -> SearchResult | None:
     """The polish of :func:`search` alone (L-BFGS-B, under limits the SLSQP of
     :func:`~xo_fit.search.feasibility.polish_limited`) from ``start`` (n,) within ``budget`` evaluations: an
-    island's share of a search's polish (:mod:`xo_fit.search.islands`). The result is never worse than ``start``
-    (its first evaluation); None when stopped before it."""
+    island's share of a search's polish (:mod:`xo_fit.search.islands`), or a prune's refit. The result is never
+    worse than ``start`` (its first evaluation); None when stopped before it. ``margins``: those of the SLSQP runs
+    under limits (default ``feasibility.POLISH_MARGINS``)."""
     t0 = time.monotonic()
     obj = Objective(fn=fn, budget=budget, constrained=constrained)
     try:
-        (polish_limited if constrained else _polish)(obj, space.dims, np.asarray(start, dtype=float))
+        if constrained:
+            polish_limited(obj, space.dims, np.asarray(start, dtype=float), *([margins] if margins else []))
+        else:
+            _polish(obj, space.dims, np.asarray(start, dtype=float))
     except _Stop:
         pass
     except KeyboardInterrupt:

@@ -32,6 +32,11 @@ LIMITED_POLISH_SHARE = 0.3
 #: seeds either way), and the three share each call of the kernel (75k evaluations/s against 53k for one run
 #: at a time); POLISH_ROUNDS rounds at most.
 POLISH_MARGINS = (1e-4, 3e-4, 1e-5)
+#: A prune's refit under [limits] (a polish alone, from a design a removal has just pushed out of its limits, on a
+#: few hundred evaluations) runs one margin: the three split its budget so that most refits of the limited
+#: three-way ended short of the limits (30 of 31 trials refused at 300 evaluations; with one margin the refits
+#: reached the costs and steps that 1,500 evaluations with three reach: DEVELOPERS.md, Prune).
+REFIT_MARGINS = POLISH_MARGINS[:1]
 POLISH_ROUNDS = 3
 #: An SLSQP run's iterations at most, and its tolerance (scipy's ftol).
 SLSQP_MAXITER = 100
@@ -79,7 +84,7 @@ def feasibility_key(cost: np.ndarray, violation: np.ndarray) -> np.ndarray:
     return np.where(ok, key, np.inf)
 
 
-def polish_limited(obj, n: int, start: np.ndarray | None = None) -> None:
+def polish_limited(obj, n: int, start: np.ndarray | None = None, margins: tuple = POLISH_MARGINS) -> None:
     """The polish under hard limits: SLSQP on the cost with each limit's signed excess as a constraint.
 
     Minimises the cost subject to g_i(u) <= -margin for each limit's signed excess g_i (the objective's
@@ -107,6 +112,8 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None) -> None:
     start : ndarray or None
         The start point in the unit cube, shape (n,); None: the objective's best point (nothing to polish when
         it has none).
+    margins : tuple of float
+        The margins of the SLSQP runs of a round, side by side (dimensionless; a relative excess).
 
     Raises
     ------
@@ -123,7 +130,7 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None) -> None:
         scale = 1.0 / (1.0 + (abs(float(c0[0])) if np.isfinite(c0[0]) else 0.0))
         for _ in range(POLISH_ROUNDS):
             before = best[0]
-            together(obj, [LimitPolish(obj, n, m, scale, best) for m in POLISH_MARGINS])
+            together(obj, [LimitPolish(obj, n, m, scale, best) for m in margins])
             if not best[0] < before:
                 return
     except Stop:

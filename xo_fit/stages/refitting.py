@@ -16,6 +16,7 @@ from xo_fit.model.cost import CostModel
 from xo_fit.model.limits import NAMES as LIMIT_NAMES
 from xo_fit.model.system import derive_system
 from xo_fit.search.engines import polish_from
+from xo_fit.search.feasibility import REFIT_MARGINS
 from xo_fit.search.fitting import Scored, cost_model, require_cost_model, score
 from xo_fit.search.polish_batch import polish_together
 from xo_fit.search.space import make_space
@@ -82,7 +83,8 @@ def refit(system, budget: int, seed: int, family=None, removed: dict | None = No
                 return ev.cost
             return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
 
-    r = polish_from(fn, space, start_of(space), budget=budget, constrained=cm.limits is not None)
+    r = polish_from(fn, space, start_of(space), budget=budget, constrained=cm.limits is not None,
+                    margins=REFIT_MARGINS)
     if r is None:  # stopped before its first evaluation
         raise Interrupted(score(system, system.values(), model), 0)
     scored = light_score(system, model, space.values(r.u)[0]) if light else score(system, space.values(r.u)[0], model)
