@@ -1,0 +1,36 @@
+"""A prune's edges: a signal between the fit that comes first and step 0, and refit budgets that are no count."""
+
+from __future__ import annotations
+
+import pytest
+
+import xo_fit
+
+from conftest import ladder_job
+
+
+def _ctrl_c(*args, **kwargs):
+    raise KeyboardInterrupt
+
+
+@pytest.mark.parametrize("where", ["family", "score"])
+def test_a_signal_after_the_first_fit_keeps_the_fit_as_step_0(write_job, monkeypatch, where):
+    """Without a design the job is fitted first; Ctrl-C or SIGTERM after that fit and before step 0 is recorded
+    (the shared kernel's set-up, the scoring of step 0's refit) must keep the fitted design as step 0, marked
+    interrupted, as the steps so far are kept at every other point [CP: docs/outputs.md, the prune section's
+    ``interrupted``: "the steps taken so far are kept"]; it escaped as a bare interrupt, the fit lost."""
+    from xo_fit.stages import pruning, refitting
+
+    job = xo_fit.load_job(write_job(ladder_job("LR4", start=1.6, spread=3.0)[0]))
+    fitted = xo_fit.fit(job)  # the fit the prune runs first: the same search, seed and budget
+    if where == "family":
+        monkeypatch.setattr(pruning.Family, "of", _ctrl_c)
+    else:
+        monkeypatch.setattr(refitting, "score", _ctrl_c)
+    try:
+        pr = xo_fit.prune(job, budget=60)
+    except KeyboardInterrupt:
+        pytest.fail("the interrupt escaped the prune: the fit that came first was lost")
+    assert pr.interrupted and len(pr.steps) == 1 and pr.designs[0].sections["prune"]["interrupted"] is True
+    assert pr.steps[0]["cost"] == pytest.approx(fitted.cost, rel=1e-9)
+    assert pr.designs[0].sections["prune"]["fit"]["cost"] == fitted.cost
