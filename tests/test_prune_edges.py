@@ -5,6 +5,7 @@ from __future__ import annotations
 import pytest
 
 import xo_fit
+from xo_fit.errors import XoFitError
 
 from conftest import ladder_job
 
@@ -34,3 +35,20 @@ def test_a_signal_after_the_first_fit_keeps_the_fit_as_step_0(write_job, monkeyp
     assert pr.interrupted and len(pr.steps) == 1 and pr.designs[0].sections["prune"]["interrupted"] is True
     assert pr.steps[0]["cost"] == pytest.approx(fitted.cost, rel=1e-9)
     assert pr.designs[0].sections["prune"]["fit"]["cost"] == fitted.cost
+
+
+@pytest.mark.parametrize("budget", [-1, 2.5, True, "300"])
+def test_a_refit_budget_that_is_no_count_is_refused_before_the_fit(write_job, monkeypatch, budget):
+    """``budget`` counts cost evaluations: a negative one gave a prune that said it was interrupted (its step 0
+    "stopped before its first evaluation"), 2.5 a TypeError from the search's slicing, True a budget of 1. Each
+    is refused up front, naming the argument, before the fit that comes first runs [CP: the project's rule on bad
+    input, an XoFitError saying what was expected]. 0 or None is the default."""
+    from xo_fit import api
+
+    job = xo_fit.load_job(write_job(ladder_job("LR2", start=1.3, spread=2.0)[0]))
+    def no_fit(*args, **kwargs):
+        raise AssertionError("the fit ran before the budget was checked")
+
+    monkeypatch.setattr(api, "fit", no_fit)
+    with pytest.raises(XoFitError, match="budget"):
+        xo_fit.prune(job, budget=budget)
