@@ -287,7 +287,8 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
-          from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
+          from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from "
+                                            "(default: the job's values, fitted first)."),
           budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
                                                help=f"Cost evaluations per refit at most (default {REFIT_BUDGET})."),
           seed: int | None = typer.Option(None, "--seed", min=0,
