@@ -52,3 +52,20 @@ def test_a_refit_budget_that_is_no_count_is_refused_before_the_fit(write_job, mo
     monkeypatch.setattr(api, "fit", no_fit)
     with pytest.raises(XoFitError, match="budget"):
         xo_fit.prune(job, budget=budget)
+
+
+def test_a_job_whose_free_parts_have_only_ranges_is_pruned_from_its_fit(write_job, cli, tmp_path):
+    """Without --from the job's values are fitted first (README, docs/outputs.md), and a fit needs no start values
+    (free parts with only min and max). ``xo-fit prune`` still computed the job's own values before it, and
+    refused such a job ("give it a value to simulate") though the API pruned it [CP: the prune's contract]."""
+    import re
+
+    text, _ = ladder_job("LR4", spread=3.0)
+    text, n = re.subn(r"\nvalue = [0-9.e+-]+\n(?=min)", "\n", text)
+    assert n == 8  # every part's start value gone, its range kept
+    path = write_job(text)
+    code, out, err = cli("prune", path, "--out", tmp_path / "p", "--budget", "60", "--no-plots")
+    assert code == 0, err
+    assert "no --from: the job's values fitted first" in out
+    rows = (tmp_path / "p" / "prune.csv").read_text().splitlines()
+    assert rows[1].startswith("0,8,,,") and len(rows) > 2
