@@ -23,6 +23,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+import xo_fit
 from conftest import ladder_job
 from test_fuzz import DATA, LINES
 
@@ -192,21 +193,36 @@ def test_an_interrupted_fit_keeps_the_best_design_so_far(tmp_path, write_job, se
 
 
 @pytest.mark.parametrize("send, workers", [("sigterm", 1), ("sigterm-parent", 2)])
-def test_an_interrupted_prune_keeps_its_steps_so_far(tmp_path, write_job, send, workers):
+@pytest.mark.parametrize("start", ["fit", "from"])
+def test_an_interrupted_prune_keeps_its_steps_so_far(tmp_path, write_job, send, workers, start):
     """Ctrl-C of prune was swallowed by the refit's search (the prune went on), and SIGTERM killed it with nothing
-    written. Now the steps taken are kept: result.json, prune.csv, job.toml, one line, exit 130."""
+    written. Now the steps taken are kept: result.json, prune.csv, job.toml, one line, exit 130. [CP: README,
+    docs/outputs.md: interrupted: true, the steps taken so far kept]
+
+    Without --from the job is fitted first, and the signal comes during that fit (its best design is step 0, the
+    fit marked incomplete); with --from a fit's result it comes during the trial removals (once the fit came first,
+    the signal of the old test never reached the trials any more)."""
     text, _ = ladder_job("LR4", start=1.3, spread=3.0)
     job = write_job(text)
     out = tmp_path / "o"
-    # step 0's refit takes about 30 batches of evaluations; the signal comes during the trial removals after it
-    proc = _interrupted(tmp_path, ["prune", job, "--out", out, "--budget", "400", "--workers", workers,
-                                   "--no-plots"], send, at=60 if workers == 1 else 3)
+    args = ["prune", job, "--out", out, "--budget", "400", "--workers", workers, "--no-plots"]
+    if start == "from":
+        xo_fit.fit(xo_fit.load_job(job)).save(tmp_path / "fit", plots=False)
+        args += ["--from", tmp_path / "fit" / "result.json"]
+    # from a fit, step 0's refit takes about 20 batches of evaluations and a step's trials side by side about 40:
+    # without workers the signal comes in step 2's trials (after step 1 was taken); with workers from a worker,
+    # which runs trials alone (without --from, both come during the fit)
+    proc = _interrupted(tmp_path, args, send, at=100 if workers == 1 else 3)
     assert proc.returncode == 130, proc.stderr
     assert re.search(r"interrupted after step \d+; the best design so far is in", _one_line(proc.stderr))
     r = json.loads((out / "result.json").read_text())
     assert r["prune"]["interrupted"] is True and r["stage"] == "prune"
     rows = (out / "prune.csv").read_text().splitlines()
     assert rows[0].startswith("step,parts") and len(rows) - 1 == len(r["prune"]["steps"]) < 7
+    if start == "fit":
+        assert r["prune"]["fit"]["complete"] is False and len(r["prune"]["steps"]) == 1
+    else:
+        assert "fit" not in r["prune"] and len(r["prune"]["steps"]) >= (2 if workers == 1 else 1)
 
 
 def _disk_full(monkeypatch):

@@ -23,7 +23,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-from xo_fit.config import MAX_INCREASE
+from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
 from xo_fit.constants import PART_UNIT
 from xo_fit.output.design import Design, Spread
 from xo_fit.output.loading import load_result
@@ -333,7 +333,7 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
         ``[search]``), so that the prune starts from a fitted design; the fit's figures go into the section's
         ``fit``.
     budget : int, optional
-        Cost evaluations for each refit at most (dimensionless); default ``xo_fit.config.REFIT_BUDGET``.
+        Cost evaluations for each refit at most (dimensionless); default (or 0) ``xo_fit.config.REFIT_BUDGET``.
     seed : int, optional
         The seed of that first fit (dimensionless; default the job's ``[search] seed``), recorded; the refits
         are local polishes from the current values and draw no random numbers.
@@ -350,10 +350,19 @@ def prune(job, design: Design | Mapping[str, float] | None = None, *, budget: in
     Pruning
         A :class:`~xo_fit.output.pruned.Pruning`: ``steps`` (the prune.csv rows), ``designs`` (one per step),
         ``design`` (the chosen one: the fewest parts within ``max_increase`` of step 0's cost), ``save(folder)``.
+
+    Raises
+    ------
+    XoFitError
+        Where ``budget`` is no whole number of evaluations (checked before the fit), or the job has no way
+        targets (JobError).
     """
     from xo_fit.output.pruned import Pruning
     from xo_fit.stages.pruning import run_prune
 
+    if budget is not None and (isinstance(budget, bool) or not isinstance(budget, (int, np.integer)) or budget < 0):
+        raise XoFitError(f"budget: expected a whole number of cost evaluations per refit, at least 1 (0 or None: "
+                         f"{REFIT_BUDGET}), got {budget!r}")
     system = _reuse(job, design)
     fitted = None
     if design is None and system.job.free_parts:  # the job's own values: a fit first, so step 0 is a fitted design

@@ -287,7 +287,8 @@ def spread(job: Path = typer.Argument(..., help="The job file (TOML)."),
 @app.command()
 def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
           out: Path = typer.Option(..., "--out", "-o", help="Folder for prune.csv, job.toml, result.json and plots."),
-          from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from."),
+          from_: Path | None = typer.Option(None, "--from", help="A result.json (e.g. a fit's) to start from "
+                                            "(default: the job's values, fitted first)."),
           budget: int | None = typer.Option(None, "--budget", min=1, max=10**9,
                                                help=f"Cost evaluations per refit at most (default {REFIT_BUDGET})."),
           seed: int | None = typer.Option(None, "--seed", min=0,
@@ -304,7 +305,8 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
 
     check_folder(out, "--out")
     t0 = time.perf_counter()
-    system, values = load_design(job, from_)
+    # without --from the job's values are fitted first: a free part may have only its range
+    system, values = load_design(job, from_) if from_ is not None else (load_checked(job), None)
     j = system.job
 
     def progress(step: int, name: str, how: str, cost: float) -> None:
@@ -317,7 +319,7 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
     if from_ is None and j.free_parts:
         say(f"  no --from: the job's values fitted first ([search] budget {j.search.budget}, seed "
             f"{j.search.seed if seed is None else seed})")
-    pr = api.prune(system, dict(zip(system.part_names, values)) if from_ is not None else None, budget=budget,
+    pr = api.prune(system, dict(zip(system.part_names, values)) if values is not None else None, budget=budget,
                    seed=seed, max_increase=max_increase / 100, workers=workers, progress=progress)
     files = pr.save(out, plots=not no_plots)
     if len(pr.steps) == 1:

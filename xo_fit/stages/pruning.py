@@ -9,8 +9,10 @@ random numbers. The refits search on the starting design's compiled cost kernel
 (:class:`Family`: a removed part stands in as an extreme value, so no removal
 waits for a compiler), a step's refits side by side with their points in one
 batch of the kernel (:mod:`xo_fit.search.polish_batch`); each trial's cost is the
-kernel's (within ~1e-6 relative of the reduced netlist's) and the removal taken
-is scored on the reduced netlist itself, so every step's cost is exact. The
+kernel's (within ~1e-6 relative of the reduced netlist's; under ``[limits]`` the
+trials are refitted one by one and scored on their reduced netlists, exact) and
+the removal taken is scored on the reduced netlist itself, so every step's cost
+is exact. The
 kernel judges a rated part (the stress term, the ratings limit) only where it
 is not at a stand-in value, as the reduced netlist leaves a removed one out; a
 job without a fused kernel (``[cost] protection``, the reference cost) refits on
@@ -279,16 +281,19 @@ def run_prune(system, start: np.ndarray, *, budget: int | None = None, seed: int
     job = reduced_job(system.job, None, "none", values)
     assert job is not None, "with no part removed there is always a job"
     current = derive_system(system, job)
-    family = Family.of(current)
     model = model_of(current)
     targets = model[1]
+    family = None
     if interrupted:  # the start's fit was stopped: the start itself is step 0
         scored, evaluations = score(current, current.values(), model), 0
     else:
         try:
+            family = Family.of(current)
             scored, evaluations = refit(current, budget, seed, family, {}, targets=targets)
         except Interrupted as e:  # step 0 stopped early: its best so far is the only step
             (scored, evaluations), interrupted = e.args, True
+        except KeyboardInterrupt:  # Ctrl-C or SIGTERM outside the polish (the kernel's set-up, the scoring): the
+            scored, evaluations, interrupted = score(current, current.values(), model), 0, True  # start is step 0
     steps, states = [_row(0, current, scored, "", "")], [(current, scored)]
     if progress:
         progress(0, "", "", scored.cost)
