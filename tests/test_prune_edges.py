@@ -69,3 +69,25 @@ def test_a_job_whose_free_parts_have_only_ranges_is_pruned_from_its_fit(write_jo
     assert "no --from: the job's values fitted first" in out
     rows = (tmp_path / "p" / "prune.csv").read_text().splitlines()
     assert rows[1].startswith("0,8,,,") and len(rows) > 2
+
+
+def test_a_refit_that_sees_only_singular_designs_is_no_interruption(write_job, monkeypatch):
+    """A refit whose every design costs inf (a singular network, not reached by an ordinary netlist) keeps its
+    start and goes on; only a refit stopped before its first evaluation is an interruption (Ctrl-C, SIGTERM)."""
+    import numpy as np
+
+    import xo_fit
+    from conftest import ladder_job
+    from xo_fit.model.system import load_system
+    from xo_fit.stages import refitting
+
+    text, _ = ladder_job("LR2", start=1.2, spread=3.0)
+    system = load_system(xo_fit.load_job(write_job(text)))
+    real = refitting.polish_from
+
+    def singular(fn, space, start, **kw):
+        return real(lambda u: np.full(len(fn(u)), np.inf), space, start, **kw)
+    monkeypatch.setattr(refitting, "polish_from", singular)
+    scored, evaluations = refitting.refit(system, 40, 0)
+    assert 0 < evaluations <= 40 and np.isfinite(scored.cost)  # not Interrupted: the start kept
+    assert np.array_equal(scored.values, system.values())

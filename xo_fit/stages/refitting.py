@@ -83,10 +83,18 @@ def refit(system, budget: int, seed: int, family=None, removed: dict | None = No
                 return ev.cost
             return ev.cost, ev.violations["total"], np.stack([ev.violations[n] for n in LIMIT_NAMES], axis=-1)
 
-    r = polish_from(fn, space, start_of(space), budget=budget, constrained=cm.limits is not None,
+    seen = [0]  # designs evaluated
+
+    def counted(u: np.ndarray):
+        seen[0] += len(u)
+        return fn(u)
+    r = polish_from(counted, space, start_of(space), budget=budget, constrained=cm.limits is not None,
                     margins=REFIT_MARGINS)
-    if r is None:  # stopped before its first evaluation
-        raise Interrupted(score(system, system.values(), model), 0)
+    if r is None:  # no design kept: stopped before its first evaluation, or every design it saw singular
+        start = score(system, system.values(), model)
+        if not seen[0]:
+            raise Interrupted(start, 0)
+        return start, seen[0]
     scored = light_score(system, model, space.values(r.u)[0]) if light else score(system, space.values(r.u)[0], model)
     if r.stopped_by == "interrupted":
         raise Interrupted(scored, r.evaluations)
