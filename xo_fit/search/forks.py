@@ -112,19 +112,17 @@ def _fork(body: Callable, lo: int, hi: int, conns: list, event) -> int:
     kids: list[int] = []
     try:
         began = time.monotonic()
-        worker_init(event)
-        for i, (parent, child) in enumerate(conns):
-            parent.close()
-            if not lo <= i < hi:
-                child.close()
         forked = {}
-        while hi - lo > 1:
+        while hi - lo > 1:  # the islands below first (each closes what is not its own): they wait for nothing else
             mid = upper_half(lo, hi)
             kids.append(_fork(body, mid, hi, conns, event))
             forked[mid] = time.process_time()
-            for _, child in conns[mid:hi]:
-                child.close()
             hi = mid
+        worker_init(event)
+        for i, (parent, child) in enumerate(conns):
+            parent.close()
+            if i != lo:
+                child.close()
         body(lo, conns[lo][1], began, forked)
         code = 0
     finally:  # never back into the caller's code: this process ends here, after the islands it started
