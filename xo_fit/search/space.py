@@ -38,13 +38,24 @@ class Space:
 
     def values(self, u: np.ndarray) -> np.ndarray:
         """Part values (B, P) in SI for points u (B, n) of the cube."""
-        u = np.atleast_2d(u)
+        if type(u) is not np.ndarray or u.ndim != 2:
+            u = np.atleast_2d(u)
+        x = np.maximum(u, 0.0)
+        np.minimum(x, 1.0, out=x)  # np.clip's arithmetic without its Python wrapper
+        span = self.__dict__.get("_span")
+        if span is None:  # hi - lo, once (a search calls this every generation)
+            span = self.hi - self.lo
+            object.__setattr__(self, "_span", span)
+            object.__setattr__(self, "_every", self.columns.size == self.base.size
+                               and bool(np.array_equal(self.columns, np.arange(self.base.size))))
+        x *= span
+        x += self.lo
+        np.exp(x, out=x)
+        if self._every:  # every part free: the values are x itself
+            return x
         out = np.empty((u.shape[0], self.base.size))
         out[:] = self.base
-        x = np.minimum(np.maximum(u, 0.0), 1.0)  # np.clip's arithmetic without its Python wrapper
-        x *= self.hi - self.lo
-        x += self.lo
-        out[:, self.columns] = np.exp(x, out=x)
+        out[:, self.columns] = x
         return out
 
 
