@@ -39,6 +39,7 @@ from xo_fit.search.feasibility import LIMITED_POLISH_SHARE
 from xo_fit.search.engines import Objective, SearchResult, polish_from, population_size, search
 from xo_fit.search.feasibility import LIMIT_KEY, feasibility_key
 from xo_fit.search.interrupt import signals_set, stop_requested
+from xo_fit.search.lbfgsb import inherit_one_blas_thread, one_blas_thread_for_forks
 
 #: An epoch: this many generations of a first JADE population (population_size of the free values) between two
 #: exchanges, when islands exchange (benchmarks/workers.py): every 10 generations the demo's 2-worker fits at
@@ -221,6 +222,8 @@ def _island(problem: Problem, seeds: list[int], options: dict, keep: bool, index
     ``forked``: the CPU time in s at which it forked each island below it (kept in its clock)."""
     run = IslandRun(result=None, clock={"began": began, "forked": forked})
     searched = False
+    if options["one_blas_thread"]:
+        inherit_one_blas_thread()
     try:
         fn, space, constrained = problem.get()
         run.clock.update(ready=time.monotonic(), cpu_ready=time.process_time())
@@ -310,6 +313,7 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
         as ``cpu_start``, ``cpu_started``; ``forked``: {island: its CPU time in s from ``cpu_start`` when it had
         forked the process of that island} (:attr:`xo_fit.search.forks.Started.forked`).
     """
+    import contextlib
     import functools
     import multiprocessing
 
@@ -327,7 +331,10 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     conns = [parent for parent, _ in pipes]
     started = forks.Started()
     coordinator = Coordinator(conns, event, budget if polish else 0)
-    with signals_set(event) as signals:  # a signal now stops the islands; the parent gathers what they found
+    blas = one_blas_thread_for_forks() if ctx.get_start_method() == "fork" else contextlib.nullcontext(False)
+    # a signal now stops the islands, and the parent gathers what they found; forked islands keep one BLAS thread
+    with signals_set(event) as signals, blas as one_thread:
+        options["one_blas_thread"] = one_thread
         try:
             started = forks.start(ctx, functools.partial(_island, problem, seeds, options, keep), pipes, event)
             clock.update(started=time.monotonic(), cpu_started=time.process_time(),
