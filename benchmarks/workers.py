@@ -51,6 +51,9 @@ from xo_fit.search.islands import MIGRATION_GENERATIONS  # noqa: E402
 
 #: A cost this small is the exact design (the smoke run's LR4 ladder): success however far below it lies.
 EXACT = 1e-9
+#: Seconds of rest before each measured fit: OpenBLAS threads that the one before started (a thread count set after
+#: a fork starts them again) spin about 0.1 s, which would count in the next one's CPU (xo_fit.search.lbfgsb).
+SETTLE = 0.3
 
 
 def problems(folder: Path, smoke: bool) -> dict:
@@ -67,6 +70,7 @@ def cpu() -> float:
 
 
 def one(system, budget: int, workers: int, seed: int, exchange: bool) -> dict:
+    time.sleep(SETTLE)
     c0, own0, t0 = cpu(), time.process_time(), time.perf_counter()
     if workers == 1:
         out = run_fit(system, budget=budget, seed=seed)
