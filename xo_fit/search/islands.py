@@ -326,7 +326,7 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     global_budget = budget if not polish else max(1, int(budget * (1 - share)))
     options = {"optimizer": optimizer, "budget": max(1, global_budget // len(seeds)), "time_limit": time_limit,
                "exchange": exchange and exchanges(optimizer)}
-    clock = {"start": time.monotonic(), "cpu_start": time.process_time()}
+    clock: dict = {"start": time.monotonic(), "cpu_start": time.process_time()}
     pipes = [ctx.Pipe() for _ in seeds]
     conns = [parent for parent, _ in pipes]
     started = forks.Started()

@@ -42,16 +42,16 @@ class Space:
             u = np.atleast_2d(u)
         x = np.maximum(u, 0.0)
         np.minimum(x, 1.0, out=x)  # np.clip's arithmetic without its Python wrapper
-        span = self.__dict__.get("_span")
-        if span is None:  # hi - lo, once (a search calls this every generation)
-            span = self.hi - self.lo
-            object.__setattr__(self, "_span", span)
-            object.__setattr__(self, "_every", self.columns.size == self.base.size
-                               and bool(np.array_equal(self.columns, np.arange(self.base.size))))
+        once = self.__dict__.get("_once")
+        if once is None:  # hi - lo, and whether every part is free in order, once (a search calls this a lot)
+            once = (self.hi - self.lo, self.columns.size == self.base.size
+                    and bool(np.array_equal(self.columns, np.arange(self.base.size))))
+            object.__setattr__(self, "_once", once)
+        span, every = once
         x *= span
         x += self.lo
         np.exp(x, out=x)
-        if self._every:  # every part free: the values are x itself
+        if every:  # every part free: the values are x itself
             return x
         out = np.empty((u.shape[0], self.base.size))
         out[:] = self.base
