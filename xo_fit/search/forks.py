@@ -147,7 +147,7 @@ def _wait_below(kids: list[int], event) -> None:
                 break
             if done:
                 break
-            time.sleep(0.002)
+            time.sleep(0.0005)
 
 
 def reap(started: Started, event, failed: bool, timeout: float = 5.0) -> None:
@@ -167,7 +167,7 @@ def reap(started: Started, event, failed: bool, timeout: float = 5.0) -> None:
             p.join(timeout=1)
     deadline = time.monotonic() + timeout
     for pid in started.pids:
-        pause = 0.0002
+        pause = 0.0002  # each island has sent its run: its process ends within a few ms, so look often at first
         while True:
             try:
                 done, _ = os.waitpid(pid, os.WNOHANG)
@@ -183,4 +183,4 @@ def reap(started: Started, event, failed: bool, timeout: float = 5.0) -> None:
                 os.waitpid(pid, 0)
                 break
             time.sleep(pause)
-            pause = min(2 * pause, 0.01)
+            pause = min(1.2 * pause, 0.01)
