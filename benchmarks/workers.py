@@ -51,6 +51,9 @@ from xo_fit.search.islands import MIGRATION_GENERATIONS  # noqa: E402
 
 #: A cost this small is the exact design (the smoke run's LR4 ladder): success however far below it lies.
 EXACT = 1e-9
+#: Seconds of rest before each measured fit: OpenBLAS threads that the one before started (a thread count set after
+#: a fork starts them again) spin about 0.1 s, which would count in the next one's CPU (xo_fit.search.lbfgsb).
+SETTLE = 0.3
 
 
 def problems(folder: Path, smoke: bool) -> dict:
@@ -67,6 +70,7 @@ def cpu() -> float:
 
 
 def one(system, budget: int, workers: int, seed: int, exchange: bool) -> dict:
+    time.sleep(SETTLE)
     c0, own0, t0 = cpu(), time.process_time(), time.perf_counter()
     if workers == 1:
         out = run_fit(system, budget=budget, seed=seed)
@@ -86,11 +90,35 @@ def parts(islands: dict, own: float) -> dict:
     search = [r.clock["cpu_searched"] - r.clock["cpu_ready"] for r in runs]
     polish = [r.clock["cpu_ended"] - r.clock["cpu_searched"] for r in runs]
     fork = c["cpu_started"] - c["cpu_start"]
+    lead = leads(islands)
     return {"start": c["started"] - c["start"], "fork": fork, "first": min(r.clock["ready"] for r in runs) - c["start"],
-            "after": own - fork, "search_sum": sum(search), "search_max": max(search),
+            "after": own - fork, "lead_max": max(lead[i] for i, r in enumerate(islands["runs"]) if r.result),
+            "reach": max(lead[i] + r.clock["cpu_searched"] - r.clock["cpu_ready"]
+                         for i, r in enumerate(islands["runs"]) if r.result is not None),
+            "search_sum": sum(search), "search_max": max(search),
             "polish_max": max(polish), "epochs": max(r.clock.get("epochs", 0) for r in runs),
             "waited": statistics.median(r.clock.get("waited", 0.0) for r in runs),
             "received": sum(r.received for r in runs)}
+
+
+def leads(islands: dict) -> list[float]:
+    """Per island, the CPU seconds on its path before it could search: the forks of the processes above it up to
+    the one that forked its own (their CPU when that fork returned, from the forking processes' clocks:
+    xo_fit.search.forks) and its own CPU until ready (its start-up, the forks it made itself). Where the parent
+    started every process itself (no "forked" in its clock), every island's path is the parent's whole start."""
+    c, runs = islands["clock"], islands["runs"]
+    if "forked" not in c or not c["forked"]:
+        return [c["cpu_started"] - c["cpu_start"] + r.clock.get("cpu_ready", 0.0) for r in runs]
+    path = dict(c["forked"])  # island -> CPU on its path until its process began
+    pending = True
+    while pending:
+        pending = False
+        for i, r in enumerate(runs):
+            for j, at in r.clock.get("forked", {}).items():
+                if i in path and j not in path:
+                    path[j] = path[i] + at
+                    pending = True
+    return [path.get(i, 0.0) + r.clock.get("cpu_ready", 0.0) for i, r in enumerate(runs)]
 
 
 def round_trip(n: int = 2000) -> float:
@@ -138,16 +166,16 @@ def report(name: str, budget: int, results: dict, model: list[int], rtt: float) 
     single = med(results[(1, "-")], "cpu")  # one process: its wall on a free core
     print(f"  model (medians, ms unless marked; pipe round trip {rtt * 1e6:.0f} us; 1 worker: {single:.3f} s CPU)")
     print(f"  {'workers':>7} {'scheme':<8} {'start':>6} {'cpu':>6} {'/proc':>6} {'first':>6} {'after':>6} "
-          f"{'search sum s':>12} {'x 1-worker':>10} {'largest s':>9} {'polish':>6} {'epochs':>6} {'waited':>6} "
-          f"{'migrants':>8} {'predicted s':>11} {'speed-up':>8}")
+          f"{'lead':>6} {'search sum s':>12} {'x 1-worker':>10} {'largest s':>9} {'polish':>6} {'epochs':>6} "
+          f"{'waited':>6} {'migrants':>8} {'predicted s':>11} {'speed-up':>8}")
     for (w, scheme), rows in results.items():
         if w == 1:
             continue
-        serial = med(rows, "fork") + med(rows, "after")
-        predicted = serial + med(rows, "search_max") + med(rows, "polish_max") + med(rows, "epochs") * rtt
+        predicted = med(rows, "after") + med(rows, "reach") + med(rows, "polish_max") + med(rows, "epochs") * rtt
         print(f"  {w:>7} {scheme:<8} {1e3 * med(rows, 'start'):>6.1f} {1e3 * med(rows, 'fork'):>6.1f} "
               f"{1e3 * med(rows, 'fork') / w:>6.2f} "
-              f"{1e3 * med(rows, 'first'):>6.1f} {1e3 * med(rows, 'after'):>6.1f} {med(rows, 'search_sum'):>12.3f} "
+              f"{1e3 * med(rows, 'first'):>6.1f} {1e3 * med(rows, 'after'):>6.1f} {1e3 * med(rows, 'lead_max'):>6.1f} "
+              f"{med(rows, 'search_sum'):>12.3f} "
               f"{med(rows, 'search_sum') / single:>9.2f}x {med(rows, 'search_max'):>9.3f} "
               f"{1e3 * med(rows, 'polish_max'):>6.1f} {med(rows, 'epochs'):>6.0f} {1e3 * med(rows, 'waited'):>6.1f} "
               f"{med(rows, 'received'):>8.0f} {predicted:>11.3f} {single / predicted:>7.2f}x")
@@ -186,12 +214,14 @@ def main() -> None:
             report(name, budget, results, model, rtt)
     print("\n(wall and cpu: medians over seeds; cpu counts this process and its children; speed-up: the 1-worker "
           "wall over this one's; model: start = the parent starting every process (wall), cpu = its CPU for it, "
-          "/proc = that per process, first = until the first island could search (wall), after = the rest of the "
-          "parent's CPU (the cost built, the winner and the start scored, the gathering); search sum = the "
+          "/proc = that per island (in a fork tree the parent forks log2 N + 1 times), "
+          "first = until the first island could search (wall), after = the rest of the "
+          "parent's CPU (the cost built, the winner and the start scored, the gathering); lead = the largest CPU "
+          "on an island's path before it searches (the forks above it, its start-up); search sum = the "
           "islands' global search CPU together, x 1-worker against the 1-worker fit's CPU; largest = the largest "
-          "island's; polish = the largest island's polish CPU; predicted = cpu + after + largest + polish + "
-          "epochs x round trip, on N free cores; its speed-up against the 1-worker fit's CPU, which is its wall "
-          "on a free core)")
+          "island's; polish = the largest island's polish CPU; predicted = after + the largest lead + search of "
+          "an island + polish + epochs x round trip, on N free cores; its speed-up against the 1-worker fit's "
+          "CPU, which is its wall on a free core)")
 
 
 if __name__ == "__main__":

@@ -171,10 +171,21 @@ def _running(pid: int) -> bool:
         return False
 
 
+def _descendants(pid: int) -> list[int]:
+    """Every process below ``pid`` (its children, theirs, ...), from /proc."""
+    try:
+        children = [int(x) for x in Path(f"/proc/{pid}/task/{pid}/children").read_text().split()]
+    except (FileNotFoundError, ProcessLookupError):
+        return []
+    return children + [d for c in children for d in _descendants(c)]
+
+
 @pytest.mark.skipif(not Path("/proc/self/task").exists(), reason="reads /proc")
-def test_no_island_outlives_a_killed_parent(tmp_path):
-    """[CP] kill -9 of `xo-fit fit --workers 2` must not leave islands running (they used to block forever on a
-    pipe their own fork held open): each notices that its parent is gone at its next batch and ends."""
+@pytest.mark.parametrize("workers", [2, 5])
+def test_no_island_outlives_a_killed_parent(tmp_path, workers):
+    """[CP] kill -9 of `xo-fit fit --workers N` must not leave islands running (they used to block forever on a
+    pipe their own fork held open): each notices that its parent is gone at its next batch and ends; with 5, the
+    islands forked by other islands (a fork tree, xo_fit.search.forks) too, once the island above them ends."""
     import os
     import signal
     import subprocess
@@ -185,17 +196,14 @@ def test_no_island_outlives_a_killed_parent(tmp_path):
     job.write_text(ladder_job("LR4", start=2.0, spread=4.0)[0])
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
     proc = subprocess.Popen([sys.executable, "-m", "xo_fit", "fit", str(job), "--out", str(tmp_path / "o"),
-                             "--budget", "100000000", "--workers", "2", "--no-plots"], env=env,
+                             "--budget", "100000000", "--workers", str(workers), "--no-plots"], env=env,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     children: list[int] = []
     deadline = time.monotonic() + 60
-    while len(children) < 2 and time.monotonic() < deadline:
+    while len(children) < workers and time.monotonic() < deadline:
         time.sleep(0.2)
-        try:
-            children = [int(x) for x in Path(f"/proc/{proc.pid}/task/{proc.pid}/children").read_text().split()]
-        except FileNotFoundError:
-            children = []
-    if len(children) < 2:
+        children = _descendants(proc.pid)
+    if len(children) < workers:
         proc.kill()
         pytest.fail("the islands did not start")
     time.sleep(0.5)  # searching

@@ -69,3 +69,51 @@ def test_the_fit_path_does_not_import_scipy_optimize():
             "print(int('scipy.optimize' in sys.modules), float(abs(x).max()))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.split()
     assert out[0] == "0" and float(out[1]) < 1e-6
+
+
+def _threads_after_polish(inherit: bool) -> tuple[int, int]:
+    """(threads, BLAS threads reported) in a process forked inside one_blas_thread_for_forks, after a polish there
+    (with ``inherit``: as an island of fit --workers does)."""
+    import os
+
+    with lbfgsb.one_blas_thread_for_forks() as one:
+        assert one
+        read, write = os.pipe()
+        pid = os.fork()
+        if pid == 0:  # the child: report and end, whatever happens
+            try:
+                if inherit:
+                    lbfgsb.inherit_one_blas_thread()
+                fun, x0, lo, hi = PROBLEMS[2]
+                lbfgsb.minimize_box(fun, x0, lo, hi, ftol=1e-10, gtol=1e-8, maxiter=10_000)
+                blas = [lib["num_threads"] for lib in lbfgsb._controller[0].info() if lib["user_api"] == "blas"]
+                os.write(write, f"{len(os.listdir('/proc/self/task'))} {max(blas)}".encode())
+            finally:
+                os._exit(0)
+        os.close(write)
+        out = os.read(read, 100).split()
+        os.waitpid(pid, 0)
+        os.close(read)
+    return int(out[0]), int(out[1])
+
+
+def test_a_process_forked_with_one_blas_thread_starts_none():
+    """[CP] A fork stops OpenBLAS's threads, and setting their number in the child starts them again, each spinning
+    ~0.1 s of CPU (an island's polish 26 against 8 ms). An island forked inside one_blas_thread_for_forks keeps
+    one BLAS thread without setting it: after its polish it is still one thread, and BLAS reports one."""
+    import os
+    from pathlib import Path
+
+    pytest.importorskip("threadpoolctl")
+    if not Path("/proc/self/task").exists() or not hasattr(os, "fork"):
+        pytest.skip("forks and reads /proc")
+    with lbfgsb.one_blas_thread():
+        pass
+    libs = [lib for lib in lbfgsb._controller[0].info() if lib["user_api"] == "blas"]
+    if not libs or max(lib["num_threads"] for lib in libs) < 2:
+        pytest.skip("no BLAS with threads here")
+    # the cause, where this BLAS shows it: without, the child's polish sets the number and threads start
+    threads, _ = _threads_after_polish(inherit=False)
+    if threads == 1:
+        pytest.skip("this BLAS starts no threads when their number is set after a fork")
+    assert _threads_after_polish(inherit=True) == (1, 1)

@@ -126,10 +126,10 @@ import os, signal, sys
 import xo_fit.model.fused as fused
 calls = {{}}  # by process: a forked worker counts its own calls
 original = fused.FusedCost.__call__
+MAIN = os.getpid()  # the command's process (a worker is forked or spawned from it, or from another worker)
 
 def count():
-    import multiprocessing
-    if {worker_only} and multiprocessing.parent_process() is None:
+    if {worker_only} and os.getpid() == MAIN:
         return  # the signal comes from a worker process
     calls[os.getpid()] = calls.get(os.getpid(), 0) + 1
     if calls[os.getpid()] == {at}:
@@ -161,7 +161,7 @@ _SENDS = {
     "sigterm": "os.kill(os.getpid(), signal.SIGTERM)",
     "ctrl-c": "os.kill(os.getpid(), signal.SIGINT)",
     # in a worker: the parent alone is told to stop (kill -TERM PID), or the whole process group gets Ctrl-C
-    "sigterm-parent": "os.kill(os.getppid(), signal.SIGTERM)",
+    "sigterm-parent": "os.kill(MAIN, signal.SIGTERM)",
     "ctrl-c-group": "os.killpg(os.getpgid(0), signal.SIGINT)",
 }
 

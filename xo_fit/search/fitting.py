@@ -437,9 +437,8 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
         As :func:`run_fit`, or whatever error stopped an island's search (raised again here unless interrupted);
         KeyboardInterrupt where every island stopped before its first evaluation.
     """
-    import dataclasses
-
     from xo_fit.search.islands import Problem, run_islands
+    from xo_fit.search.lbfgsb import one_blas_thread_for_forks
 
     spec = system.job.search
     total = budget or spec.budget  # the processes share one budget
@@ -448,9 +447,18 @@ def run_fit_restarts(system, workers: int, *, optimizer: str | None = None, budg
     p = fit_problem(system)  # built and loaded here once: forked islands inherit it
     start = p.warm()
     problem = Problem(search_problem, system, built=(p.fn, p.space, p.constrained))
-    runs, interrupted, clock = run_islands(problem, seeds, optimizer=optimizer or spec.optimizer, budget=total,
-                                           time_limit=time_limit if time_limit is not None else spec.time_limit,
-                                           polish=spec.polish, exchange=exchange)
+    with one_blas_thread_for_forks():  # the forked islands keep one BLAS thread; this process's comes back at the end
+        return _gathered(system, p, start, seeds, *run_islands(
+            problem, seeds, optimizer=optimizer or spec.optimizer, budget=total,
+            time_limit=time_limit if time_limit is not None else spec.time_limit, polish=spec.polish,
+            exchange=exchange))
+
+
+def _gathered(system, p: FitProblem, start: float | None, seeds: list[int], runs: list, interrupted: bool,
+              clock: dict) -> tuple[FitOutcome, list[dict]]:
+    """:func:`run_fit_restarts`'s outcome from the islands' runs: the winner scored, the summary."""
+    import dataclasses
+
     errors = [run.error for run in runs if run.error is not None]
     if errors and not interrupted:
         raise errors[0]

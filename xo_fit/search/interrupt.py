@@ -45,6 +45,19 @@ def stop_requested() -> bool:
                 or (parent is not None and os.getppid() != parent))
 
 
+def parent_gone() -> bool:
+    """Whether this worker process's parent has died (it then belongs to another process); always False in a
+    process that :func:`worker_init` has not set up.
+
+    Returns
+    -------
+    bool
+        True once the parent that started this worker is gone.
+    """
+    parent = _STOP["parent"]
+    return parent is not None and os.getppid() != parent
+
+
 def _note(signum, frame) -> None:
     _STOP["flag"] = True
 

@@ -16,15 +16,17 @@ done), so a seed and a worker count give the same result bit for bit however the
 off by default: on the demo and the three-ways it found no better designs than independent islands (every 10
 generations, worse ones: benchmarks/workers.py and DEVELOPERS.md), and the ring runs at its slowest island's pace.
 
-Start-up: the parent builds the cost (the compiled kernel loaded) before it starts the processes; where
-processes are forked (Linux) each inherits it and starts in about 2 ms of the parent's time; elsewhere each
-rebuilds it (the kernel comes from the on-disk cache). Ctrl-C or SIGTERM, in the parent or the islands, stops
-every island at its next batch (no polish then); each returns its best so far.
+Start-up: the parent builds the cost (the compiled kernel loaded) before it starts the processes
+(:mod:`xo_fit.search.forks`); where processes are forked (Linux) each inherits it, forked as a tree (no island
+waits more than ceil(log2 N) + 1 forks of 1-3 ms); elsewhere each rebuilds it (the kernel comes from the on-disk
+cache). Ctrl-C or SIGTERM, in the parent or the islands, stops every island at its next batch (no polish then);
+each returns its best so far.
 """
 
 from __future__ import annotations
 
 import dataclasses
+import math
 import pickle
 import time
 from collections.abc import Callable
@@ -35,8 +37,9 @@ import numpy as np
 from xo_fit.config import MAX_POPULATION, POLISH_BASINS, POLISH_SHARE
 from xo_fit.search.feasibility import LIMITED_POLISH_SHARE
 from xo_fit.search.engines import Objective, SearchResult, polish_from, population_size, search
-from xo_fit.search.feasibility import feasibility_key
-from xo_fit.search.interrupt import signals_set, stop_requested, worker_init
+from xo_fit.search.feasibility import LIMIT_KEY, feasibility_key
+from xo_fit.search.interrupt import signals_set, stop_requested
+from xo_fit.search.lbfgsb import inherit_one_blas_thread, one_blas_thread_for_forks
 
 #: An epoch: this many generations of a first JADE population (population_size of the free values) between two
 #: exchanges, when islands exchange (benchmarks/workers.py): every 10 generations the demo's 2-worker fits at
@@ -62,7 +65,9 @@ class IslandRun:
         time.monotonic (in s, shared by the processes of one machine) when its process ``began``, its search was
         ``ready`` to begin (the cost built or inherited), had ``searched`` and the island ``ended`` (after its
         polish); its CPU time in s (time.process_time) at the last three as ``cpu_ready``, ``cpu_searched``,
-        ``cpu_ended``; with migration, the seconds it ``waited`` for migrants and its ``epochs``.
+        ``cpu_ended`` (counted from its process's start, its forks included); ``forked``: {island: its CPU time
+        in s when it forked the process of that island} (:mod:`xo_fit.search.forks`); with migration, the
+        seconds it ``waited`` for migrants and its ``epochs``.
     migrants, posted : list
         Kept when asked (``keep``): (epoch, u (n,)) of each migrant that entered; (epoch, its evaluations then)
         of each of its posts.
@@ -87,7 +92,11 @@ class IslandRun:
 
 
 def _key(cost: float, violation: float) -> float:
-    return float(feasibility_key(np.array([cost]), np.array([violation]))[0])
+    """:func:`feasibility_key` of one design, in plain floats (the same IEEE arithmetic, without numpy's
+    per-call cost: :func:`chain` keys every entry of a polish's history)."""
+    if not (math.isfinite(cost) and math.isfinite(violation)):
+        return math.inf
+    return LIMIT_KEY * (1.0 + violation) if violation > 0 else min(cost, LIMIT_KEY / 2)
 
 
 def chain(first: SearchResult, then: SearchResult) -> SearchResult:
@@ -205,16 +214,16 @@ class Migration:
         return True
 
 
-def _island(index: int, conn, problem: Problem, seed: int, options: dict, event, keep: bool,
-            inherited: list) -> None:
-    """One island's process: its global search from ``seed``, ("searched", IslandRun) to the parent; then the
-    polish the parent asks for, if any, and ("done", IslandRun). ``inherited``: the parent's ends of the pipes
-    (its own and the islands' before it) that a fork copied, closed at once, so that a pipe ends with the parent."""
-    began = time.monotonic()
-    worker_init(event)
-    for c in inherited:
-        c.close()
-    run = IslandRun(result=None, clock={"began": began})
+def _island(problem: Problem, seeds: list[int], options: dict, keep: bool, index: int, conn, began: float,
+            forked: dict) -> None:
+    """Island ``index``'s work in its process (:func:`xo_fit.search.forks.start`): its global search from
+    ``seeds[index]``, ("searched", IslandRun) to the parent; then the polish the parent asks for, if any, and
+    ("done", what changed since: its polish, error and clock). ``began``: time.monotonic when its process began;
+    ``forked``: the CPU time in s at which it forked each island below it (kept in its clock)."""
+    run = IslandRun(result=None, clock={"began": began, "forked": forked})
+    searched = False
+    if options["one_blas_thread"]:
+        inherit_one_blas_thread()
     try:
         fn, space, constrained = problem.get()
         run.clock.update(ready=time.monotonic(), cpu_ready=time.process_time())
@@ -222,14 +231,15 @@ def _island(index: int, conn, problem: Problem, seed: int, options: dict, event,
         if options["exchange"]:
             every, last = epochs(options["budget"], space.dims)
             migration = Migration(conn, every, last, keep) if last > 0 else None
-        run.result = search(fn, space, optimizer=options["optimizer"], budget=options["budget"], seed=seed,
-                            time_limit=options["time_limit"], polish=False, constrained=constrained,
-                            exchange=migration)
+        run.result = search(fn, space, optimizer=options["optimizer"], budget=options["budget"],
+                            seed=seeds[index], time_limit=options["time_limit"], polish=False,
+                            constrained=constrained, exchange=migration)
         if migration is not None:
             run.received, run.migrants, run.posted = migration.received, migration.migrants, migration.posted
             run.clock.update(waited=migration.waited, epochs=migration.epoch)
         run.clock.update(searched=time.monotonic(), cpu_searched=time.process_time())
         conn.send(("searched", run))
+        searched = True
         for u, budget in _wait(conn) or ():
             p = polish_from(fn, space, u, budget=budget, constrained=constrained)
             if p is not None:
@@ -244,8 +254,9 @@ def _island(index: int, conn, problem: Problem, seed: int, options: dict, event,
             run.error = RuntimeError(f"{type(e).__name__}: {e}")
     finally:
         run.clock.update(ended=time.monotonic(), cpu_ended=time.process_time())
-        try:
-            conn.send(("done", run))
+        try:  # the parent has the search: only what changed travels again
+            conn.send(("done", {"polish": run.polish, "error": run.error, "clock": run.clock} if searched
+                       else run))
             conn.close()
         except OSError:  # the parent is gone
             pass
@@ -299,9 +310,14 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     clock : dict
         The parent's time.monotonic in s: ``start`` before the first process started, ``started`` after the
         last, ``searched`` every global search done, ``gathered`` every island done; its CPU time at the first two
-        as ``cpu_start``, ``cpu_started``.
+        as ``cpu_start``, ``cpu_started``; ``forked``: {island: its CPU time in s from ``cpu_start`` when it had
+        forked the process of that island} (:attr:`xo_fit.search.forks.Started.forked`).
     """
+    import contextlib
+    import functools
     import multiprocessing
+
+    from xo_fit.search import forks
 
     constrained = problem.get()[2]  # built here once: forked islands inherit it
     ctx = multiprocessing.get_context()
@@ -310,48 +326,26 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     global_budget = budget if not polish else max(1, int(budget * (1 - share)))
     options = {"optimizer": optimizer, "budget": max(1, global_budget // len(seeds)), "time_limit": time_limit,
                "exchange": exchange and exchanges(optimizer)}
-    clock = {"start": time.monotonic(), "cpu_start": time.process_time()}
-    conns: list = []
-    procs: list = []
+    clock: dict = {"start": time.monotonic(), "cpu_start": time.process_time()}
+    pipes = [ctx.Pipe() for _ in seeds]
+    conns = [parent for parent, _ in pipes]
+    started = forks.Started()
     coordinator = Coordinator(conns, event, budget if polish else 0)
-    with signals_set(event) as signals:  # a signal now stops the islands; the parent gathers what they found
+    blas = one_blas_thread_for_forks() if ctx.get_start_method() == "fork" else contextlib.nullcontext(False)
+    # a signal now stops the islands, and the parent gathers what they found; forked islands keep one BLAS thread
+    with signals_set(event) as signals, blas as one_thread:
+        options["one_blas_thread"] = one_thread
         try:
-            try:
-                forked = ctx.get_start_method() == "fork"
-                for i, seed in enumerate(seeds):
-                    parent, child = ctx.Pipe()
-                    inherited = [*conns, parent] if forked else []
-                    p = ctx.Process(target=_island, args=(i, child, problem, seed, options, event, keep, inherited),
-                                    daemon=True)
-                    p.start()
-                    child.close()
-                    conns.append(parent)
-                    procs.append(p)
-            except KeyboardInterrupt:  # (outside the main thread) the islands started so far stop
-                event.set()
-            clock.update(started=time.monotonic(), cpu_started=time.process_time())
+            started = forks.start(ctx, functools.partial(_island, problem, seeds, options, keep), pipes, event)
+            clock.update(started=time.monotonic(), cpu_started=time.process_time(),
+                         forked={i: t - clock["cpu_start"] for i, t in started.forked.items()})
             coordinator.run(clock)
         finally:
             clock["gathered"] = time.monotonic()
-            _reap(procs, event, len(coordinator.done) < len(procs))
+            forks.reap(started, event, len(coordinator.done) < len(conns))
     runs = [coordinator.done.get(i) or coordinator.searched.get(i) or IslandRun(result=None)
             for i in range(len(seeds))]  # an island that never started: no result
     return runs, coordinator.stopping or bool(signals), clock
-
-
-def _reap(procs: list, event, failed: bool) -> None:
-    """Wait for the islands' processes to end (each has sent its run); where the parent failed, stop them first.
-    None outlives the call, also when a signal comes meanwhile."""
-    if failed:
-        event.set()
-    for p in procs:
-        try:
-            p.join(timeout=5)
-        except KeyboardInterrupt:
-            event.set()
-        if p.is_alive():
-            p.kill()
-            p.join(timeout=1)
 
 
 class Coordinator:
@@ -374,21 +368,26 @@ class Coordinator:
     def run(self, clock: dict) -> None:
         """Serve the islands until each is done; once the event is set (Ctrl-C or SIGTERM: every island stops at
         its next batch and skips the polish) answer at once and go on gathering."""
-        from multiprocessing.connection import wait
+        import selectors
 
-        while len(self.done) < len(self.conns):
-            try:
-                self.stopping = self.stopping or self.event.is_set()
-                for conn in wait([c for i, c in enumerate(self.conns) if i not in self.done]):
-                    self.receive(self.conns.index(conn))
-                self.stopping = self.stopping or self.event.is_set()
-                self.answer()
-                if not self.ordered and len(self.searched) == len(self.conns):
-                    clock["searched"] = time.monotonic()
-                    self.order()
-            except KeyboardInterrupt:
-                self.stopping = True
-                self.event.set()
+        with selectors.DefaultSelector() as ready:  # one, registered once: a wait per message costs no set-up
+            for i, conn in enumerate(self.conns):
+                ready.register(conn.fileno(), selectors.EVENT_READ, i)
+            while len(self.done) < len(self.conns):
+                try:
+                    self.stopping = self.stopping or self.event.is_set()
+                    for key, _ in ready.select():
+                        self.receive(key.data)
+                        if key.data in self.done:
+                            ready.unregister(key.fd)
+                    self.stopping = self.stopping or self.event.is_set()
+                    self.answer()
+                    if not self.ordered and len(self.searched) == len(self.conns):
+                        clock["searched"] = time.monotonic()
+                        self.order()
+                except KeyboardInterrupt:
+                    self.stopping = True
+                    self.event.set()
 
     def receive(self, i: int) -> None:
         """Take island i's next message: a post, its searched run, or its final run (None where it died)."""
@@ -403,9 +402,13 @@ class Coordinator:
             self.waiting[i] = message[1]
         elif message[0] == "searched":
             self.searched[i] = message[1]
-        else:
-            self.searched.setdefault(i, message[1])
-            self.done[i] = message[1]
+        else:  # after its search only what changed: its polish, error and clock
+            run = message[1]
+            if isinstance(run, dict):
+                before = self.searched.get(i)
+                run = dataclasses.replace(before, **run) if before is not None else IslandRun(result=None, **run)
+            self.searched.setdefault(i, run)
+            self.done[i] = run
 
     def migrant(self, i: int, epoch: int) -> tuple[bool, tuple | None]:
         """(ready, migrant) for island i waiting at ``epoch``: its predecessor's post at that epoch or later, else

@@ -11,10 +11,11 @@ is one small compiled module (``scipy/optimize/_lbfgsb``, C since scipy 1.15, re
 
 from __future__ import annotations
 
+import contextlib
 import importlib.util
 import sys
 from pathlib import Path
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 
 import numpy as np
 
@@ -115,19 +116,24 @@ def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
 
 
 _controller: list = []  # threadpoolctl's view of the loaded libraries, found once (a search of the process's maps)
+_inherited: list = []  # [True] in a process forked with one BLAS thread (inherit_one_blas_thread)
+_forking: list = []  # inside one_blas_thread_for_forks: [whether BLAS runs on one thread]
 
 
 def one_blas_thread():
     """A context with one BLAS thread: the routine's products are of size n x MAXCOR, and waking OpenBLAS's
     threads for each of them cost a whole fit of the hard three-way 40 % of its time on two cores (0.19 s against
-    0.11 s, measured); a no-op without threadpoolctl. The libraries are looked up once per process (about 1 ms
-    each time, which a prune's hundreds of short polishes would pay again and again).
+    0.11 s, measured); a no-op without threadpoolctl, and in a process that inherited one thread
+    (:func:`inherit_one_blas_thread`). The libraries are looked up once per process (about 1 ms each time, which
+    a prune's hundreds of short polishes would pay again and again).
 
     Returns
     -------
     contextlib.AbstractContextManager
         threadpoolctl's limit (``with one_blas_thread(): ...``), or a null context.
     """
+    if _inherited:
+        return contextlib.nullcontext()
     try:
         if not _controller:
             from threadpoolctl import ThreadpoolController
@@ -135,8 +141,6 @@ def one_blas_thread():
             _controller.append(ThreadpoolController())
         return _controller[0].limit(limits=1, user_api="blas")
     except Exception:  # noqa: BLE001 - threadpoolctl missing or failing: run as it is
-        import contextlib
-
         return contextlib.nullcontext()
 
 
@@ -166,6 +170,42 @@ def lbfgsb_steps(x0: np.ndarray, lower: np.ndarray, upper: np.ndarray, *, ftol: 
         return None
     return _steps(setulb, x0, np.asarray(lower, dtype=np.float64), np.asarray(upper, dtype=np.float64), ftol=ftol,
                   gtol=gtol, maxiter=maxiter)
+
+
+@contextlib.contextmanager
+def one_blas_thread_for_forks() -> Iterator[bool]:
+    """:func:`one_blas_thread` around processes forked inside (the islands of ``fit --workers``), which keep it
+    (:func:`inherit_one_blas_thread`).
+
+    A fork stops OpenBLAS's threads (in the parent as in the child), and setting their number afterwards, to 1 as
+    well, starts them again, each spinning about 0.1 s of CPU beside the work: an island whose polish entered and
+    left :func:`one_blas_thread` spent 26 ms of CPU on it against 8 without (the hard three-way,
+    benchmarks/workers.py). Forked inside this context, a process has one BLAS thread without setting it. The
+    parent's number comes back on leaving (its threads then start again, after the work).
+
+    Inside another (its caller's, which then restores later: after the work that follows the forks), a no-op.
+
+    Yields
+    ------
+    bool
+        Whether BLAS runs on one thread inside (threadpoolctl found the libraries).
+    """
+    if _forking:
+        yield _forking[-1]
+        return
+    limit = one_blas_thread()
+    _forking.append(not isinstance(limit, contextlib.nullcontext) or bool(_inherited))
+    try:
+        with limit:
+            yield _forking[-1]
+    finally:
+        _forking.pop()
+
+
+def inherit_one_blas_thread() -> None:
+    """Note that this process was forked inside :func:`one_blas_thread_for_forks`: its BLAS keeps one thread, and
+    :func:`one_blas_thread` leaves it alone here."""
+    _inherited[:] = [True]
 
 
 def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: int) -> tuple[np.ndarray, float]:

@@ -38,13 +38,24 @@ class Space:
 
     def values(self, u: np.ndarray) -> np.ndarray:
         """Part values (B, P) in SI for points u (B, n) of the cube."""
-        u = np.atleast_2d(u)
+        if type(u) is not np.ndarray or u.ndim != 2:
+            u = np.atleast_2d(u)
+        x = np.maximum(u, 0.0)
+        np.minimum(x, 1.0, out=x)  # np.clip's arithmetic without its Python wrapper
+        once = self.__dict__.get("_once")
+        if once is None:  # hi - lo, and whether every part is free in order, once (a search calls this a lot)
+            once = (self.hi - self.lo, self.columns.size == self.base.size
+                    and bool(np.array_equal(self.columns, np.arange(self.base.size))))
+            object.__setattr__(self, "_once", once)
+        span, every = once
+        x *= span
+        x += self.lo
+        np.exp(x, out=x)
+        if every:  # every part free: the values are x itself
+            return x
         out = np.empty((u.shape[0], self.base.size))
         out[:] = self.base
-        x = np.minimum(np.maximum(u, 0.0), 1.0)  # np.clip's arithmetic without its Python wrapper
-        x *= self.hi - self.lo
-        x += self.lo
-        out[:, self.columns] = np.exp(x, out=x)
+        out[:, self.columns] = x
         return out
 
 
