@@ -375,6 +375,8 @@ def stencil(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 def gradient(c: np.ndarray, h: np.ndarray) -> tuple[float, np.ndarray]:
     """The value and the forward-difference gradient (n,) from the costs ``c`` (n + 1,) of :func:`stencil`'s
     points with steps ``h`` (n,) (components that are not finite: 0)."""
+    if not np.isfinite(c[0]):  # a singular design has no slope (every component would be non-finite: 0)
+        return float(c[0]), np.zeros(h.size)
     grad = (c[1:] - c[0]) / h
     return float(c[0]), np.where(np.isfinite(grad), grad, 0.0)
 
