@@ -32,6 +32,7 @@ Trial removals are independent: with ``workers`` > 1 they run in processes.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import pickle
 import threading
@@ -327,10 +328,17 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
     from xo_fit.search.fitting import score
 
     pool = stop = None
+    held = contextlib.ExitStack()
     if workers > 1:
-        from xo_fit.search.interrupt import stopping_pool
+        import multiprocessing
 
-        pool, stop = stopping_pool(workers, share, (states[0][0], family, targets))
+        from xo_fit.search.interrupt import stopping_pool
+        from xo_fit.search.lbfgsb import one_blas_thread_for_forks
+
+        # forked workers keep one BLAS thread without setting it (setting it after a fork wakes spinning threads)
+        forked = multiprocessing.get_context().get_start_method() == "fork"
+        one = held.enter_context(one_blas_thread_for_forks()) if forked else False
+        pool, stop = stopping_pool(workers, share, (states[0][0], family, targets, one))
     try:
         while True:
             last_system, last_scored = states[-1]
@@ -389,3 +397,4 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
     finally:
         if pool:
             pool.shutdown(wait=True, cancel_futures=True)
+        held.close()

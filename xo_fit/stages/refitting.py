@@ -18,6 +18,7 @@ from xo_fit.model.system import derive_system
 from xo_fit.search.engines import polish_from
 from xo_fit.search.feasibility import REFIT_MARGINS
 from xo_fit.search.fitting import Scored, cost_model, require_cost_model, score
+from xo_fit.search.lbfgsb import inherit_one_blas_thread
 from xo_fit.search.polish_batch import polish_together
 from xo_fit.search.space import make_space
 from xo_fit.stages.removal import JobDocument, variant
@@ -152,8 +153,11 @@ def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list
 _SHARED: dict = {}
 
 
-def share(base, family, targets) -> None:
-    """Pool initializer: what the trials of this prune share (see :data:`_SHARED`)."""
+def share(base, family, targets, one_blas_thread: bool = False) -> None:
+    """Pool initializer: what the trials of this prune share (see :data:`_SHARED`); ``one_blas_thread``: the
+    worker was forked with one BLAS thread and keeps it (:func:`xo_fit.search.lbfgsb.inherit_one_blas_thread`)."""
+    if one_blas_thread:
+        inherit_one_blas_thread()
     _SHARED.update(base=base, family=family, targets=targets, step=None)
 
 
