@@ -86,7 +86,7 @@ def _threads_after_polish(inherit: bool) -> tuple[int, int]:
                     lbfgsb.inherit_one_blas_thread()
                 fun, x0, lo, hi = PROBLEMS[2]
                 lbfgsb.minimize_box(fun, x0, lo, hi, ftol=1e-10, gtol=1e-8, maxiter=10_000)
-                blas = [lib["num_threads"] for lib in lbfgsb._controller[0].info() if lib["user_api"] == "blas"]
+                blas = [lib["num_threads"] for lib in lbfgsb._controller[0][1].info() if lib["user_api"] == "blas"]
                 os.write(write, f"{len(os.listdir('/proc/self/task'))} {max(blas)}".encode())
             finally:
                 os._exit(0)
@@ -109,7 +109,7 @@ def test_a_process_forked_with_one_blas_thread_starts_none():
         pytest.skip("forks and reads /proc")
     with lbfgsb.one_blas_thread():
         pass
-    libs = [lib for lib in lbfgsb._controller[0].info() if lib["user_api"] == "blas"]
+    libs = [lib for lib in lbfgsb._controller[0][1].info() if lib["user_api"] == "blas"]
     if not libs or max(lib["num_threads"] for lib in libs) < 2:
         pytest.skip("no BLAS with threads here")
     # the cause, where this BLAS shows it: without, the child's polish sets the number and threads start
@@ -117,3 +117,23 @@ def test_a_process_forked_with_one_blas_thread_starts_none():
     if threads == 1:
         pytest.skip("this BLAS starts no threads when their number is set after a fork")
     assert _threads_after_polish(inherit=True) == (1, 1)
+
+
+def test_one_blas_thread_covers_a_blas_loaded_after_the_first_limit():
+    """[CP] The BLAS limit looks the libraries up once; a compiled routine loaded later brings its own BLAS, which
+    a stale look-up left on several threads (scipy's SLSQP then ran its linear algebra on two threads and a fit
+    under limits ended elsewhere). The look-up is renewed once something was loaded since."""
+    pytest.importorskip("threadpoolctl")
+    with lbfgsb.one_blas_thread():
+        pass
+    before = lbfgsb._controller[0]
+    lbfgsb._routines["test.loaded"] = False  # as a routine loaded since
+    try:
+        with lbfgsb.one_blas_thread():
+            pass
+        assert lbfgsb._controller[0] is not before
+        with lbfgsb.one_blas_thread():
+            pass
+        assert lbfgsb._controller[0][0] == (len(__import__("sys").modules), len(lbfgsb._routines))
+    finally:
+        del lbfgsb._routines["test.loaded"]

@@ -42,13 +42,13 @@ from collections.abc import Callable
 
 import numpy as np
 
-from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_FTOL, POLISH_GTOL, POLISH_SHARE,
-                           POLISH_STEP, RESTART_GROWTH, STAGNATION, STAGNATION_TOL)
+from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_SHARE, RESTART_GROWTH, STAGNATION,
+                           STAGNATION_TOL)
 from xo_fit.errors import XoFitError
 from xo_fit.job.settings import SearchSpec
 from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
 from xo_fit.search.interrupt import stop_requested
-from xo_fit.search.lbfgsb import lbfgsb_steps, minimize_box
+from xo_fit.search.polish import polish_box
 from xo_fit.search.space import Space
 
 
@@ -93,18 +93,22 @@ class Objective:
         if type(u) is not np.ndarray or u.ndim != 2 or u.dtype != np.float64:
             u = np.atleast_2d(np.asarray(u, dtype=float))
         take = self.admit(u)
+        return self.absorb(u, take, self.fn(u if take == u.shape[0] else u[:take]))
+
+    def absorb(self, u: np.ndarray, take: int, out) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`evaluate`'s result from ``fn``'s output ``out`` for the first ``take`` (from :meth:`admit`) of
+        the points ``u`` (B, n): costs (B,) and total violations (B,), counted (:meth:`record`)."""
         violation = np.zeros(u.shape[0])
         if self.constrained:
             cost = np.full(u.shape[0], np.inf)
             violation[:] = np.inf
-            out = self.fn(u[:take])
             cost[:take] = np.asarray(out[0], dtype=float)
             violation[:take] = np.asarray(out[1], dtype=float)
             g = np.asarray(out[2], dtype=float) if len(out) > 2 else violation[:take, None]
             self.last_excess = np.full((u.shape[0], g.shape[1]), np.inf)
             self.last_excess[:take] = g
         else:  # fn's own costs where the whole batch fits (no copy)
-            cost = np.asarray(self.fn(u if take == u.shape[0] else u[:take]), dtype=float)
+            cost = np.asarray(out, dtype=float)
         return self.record(u, take, cost, violation), violation
 
     def admit(self, u: np.ndarray) -> int:
@@ -342,66 +346,6 @@ def engine(name: str) -> Callable:
     raise XoFitError(f"unknown optimizer {name!r}", key="--optimizer")
 
 
-def _polish(obj: Objective, n: int, start: np.ndarray | None = None) -> None:
-    """L-BFGS-B from ``start`` (default: the best point), forward-difference gradients as one batch per step."""
-    start = obj.best_u if start is None else start
-    if start is None:
-        return
-    cache: dict[bytes, tuple[float, np.ndarray]] = {}
-
-    def fun(u: np.ndarray):
-        key = u.tobytes()
-        if key not in cache:
-            pts, h = stencil(u)
-            cache.clear()
-            cache[key] = gradient(obj(pts), h)
-        return cache[key]
-
-    minimize_box(fun, np.array(start, dtype=float), np.zeros(n), np.ones(n), maxiter=10_000, ftol=POLISH_FTOL,
-                 gtol=POLISH_GTOL)
-
-
-def stencil(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The polish's forward-difference points around ``u`` (n,) in the unit cube: (u and u + h_i e_i, shape
-    (n + 1, n); the steps h (n,), POLISH_STEP, negative at the cube's upper edge)."""
-    n = u.size
-    h = np.where(u + POLISH_STEP <= 1.0, POLISH_STEP, -POLISH_STEP)
-    pts = np.empty((n + 1, n))
-    pts[:] = u
-    pts.ravel()[n::n + 1] += h  # row i + 1: u + h_i e_i
-    return pts, h
-
-
-def gradient(c: np.ndarray, h: np.ndarray) -> tuple[float, np.ndarray]:
-    """The value and the forward-difference gradient (n,) from the costs ``c`` (n + 1,) of :func:`stencil`'s
-    points with steps ``h`` (n,) (components that are not finite: 0)."""
-    if not np.isfinite(c[0]):  # a singular design has no slope (every component would be non-finite: 0)
-        return float(c[0]), np.zeros(h.size)
-    grad = (c[1:] - c[0]) / h
-    return float(c[0]), np.where(np.isfinite(grad), grad, 0.0)
-
-
-def polish_steps(n: int, start: np.ndarray):
-    """:func:`_polish` from ``start`` (n,) as a generator (L-BFGS-B driven step by step, :func:`xo_fit.search.
-    lbfgsb.lbfgsb_steps`): it yields each batch of points (n + 1, n) and is sent back their costs (n + 1,) (inf
-    for any the budget did not let in), so that several polishes can share one batch; the iterates are
-    :func:`_polish`'s bit for bit. None where scipy's routine cannot be driven."""
-    steps = lbfgsb_steps(np.array(start, dtype=float), np.zeros(n), np.ones(n), maxiter=10_000, ftol=POLISH_FTOL,
-                         gtol=POLISH_GTOL)
-    return None if steps is None else _differences(steps)
-
-
-def _differences(steps):
-    """Drives L-BFGS-B's ``steps`` with forward-difference gradients of batches yielded (see :func:`polish_steps`)."""
-    try:
-        u = next(steps)
-        while True:
-            pts, h = stencil(u)
-            u = steps.send(gradient((yield pts), h))
-    except StopIteration:
-        return
-
-
 def search(fn: Callable, space: Space, *, optimizer: str = SearchSpec.optimizer, budget: int = SearchSpec.budget,
            seed: int = SearchSpec.seed, time_limit: float | None = SearchSpec.time_limit,
            polish: bool = SearchSpec.polish, progress: Callable[[int, int, float], None] | None = None,
@@ -469,7 +413,7 @@ def search(fn: Callable, space: Space, *, optimizer: str = SearchSpec.optimizer,
             obj.stopped_by = None
             before = obj.best_key
             try:
-                (polish_limited if constrained else _polish)(obj, space.dims, basins[i][1])
+                (polish_limited if constrained else polish_box)(obj, space.dims, basins[i][1])
             except _Stop:
                 pass
             except KeyboardInterrupt:
@@ -508,7 +452,7 @@ def polish_from(fn: Callable, space: Space, start: np.ndarray, *, budget: int, c
         if constrained:
             polish_limited(obj, space.dims, np.asarray(start, dtype=float), *([margins] if margins else []))
         else:
-            _polish(obj, space.dims, np.asarray(start, dtype=float))
+            polish_box(obj, space.dims, np.asarray(start, dtype=float))
     except _Stop:
         pass
     except KeyboardInterrupt:

@@ -16,7 +16,7 @@ import numpy as np
 
 from xo_fit.config import POLISH_STEP
 from xo_fit.search.lbfgsb import one_blas_thread
-from xo_fit.search.slsqp import minimize_slsqp, slsqp_steps
+from xo_fit.search.slsqp import load_routine, minimize_slsqp, slsqp_steps
 
 #: An infeasible design's key is LIMIT_KEY (1 + violation): above every feasible cost (the cost terms are squared
 #: dB with weights up to 1e6; a feasible cost above LIMIT_KEY / 2 is held there), so that one number per design
@@ -98,7 +98,7 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None, margins: tuple 
     as in the bundle methods of K. C. Kiwiel 1985), and where a step breaks a limit it also tries a Newton
     step back onto it. The objective keeps the best point by the feasibility-first order throughout, so the
     polish returns the best feasible design any step reached, never a worse one. Each round runs one SLSQP per
-    margin of POLISH_MARGINS side by side from the best point so far (:func:`together`); rounds follow until
+    margin of POLISH_MARGINS side by side from the best point so far (:func:`together_steps`); rounds follow until
     one gains nothing, POLISH_ROUNDS have run, or the budget ends.
 
     Parameters
@@ -124,24 +124,42 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None, margins: tuple 
     u = obj.best_u if start is None else np.asarray(start, dtype=float)
     if u is None:
         return
-    best: list = [np.inf, np.array(u, dtype=float)]  # the best [key, point] of this polish, feasibility first
-    try:
-        c0, _ = obj.evaluate(best[1][None])
-        scale = 1.0 / (1.0 + (abs(float(c0[0])) if np.isfinite(c0[0]) else 0.0))
-        for _ in range(POLISH_ROUNDS):
-            before = best[0]
-            together(obj, [LimitPolish(obj, n, m, scale, best) for m in margins])
-            if not best[0] < before:
-                return
-    except Stop:
-        pass
+    steps = polish_limited_steps(obj, n, u, margins)
+    load_routine()  # before the limit, which covers the BLAS libraries loaded when it is set up
+    with one_blas_thread():
+        try:
+            pts = next(steps)
+            while True:
+                pts = steps.send(obj.evaluate(pts))
+        except (Stop, StopIteration):
+            steps.close()
 
 
-def together(obj, runs: list) -> None:
+def polish_limited_steps(obj, n: int, start: np.ndarray, margins: tuple = POLISH_MARGINS):
+    """:func:`polish_limited` from ``start`` (n,) as a generator, for callers that evaluate several polishes'
+    points in one batch (:mod:`xo_fit.search.polish_batch`): it yields each batch of cube points (B, n) that
+    ``obj`` must evaluate and is sent back ``obj.evaluate``'s (costs, violations), ``obj``'s ``last_excess`` and
+    ``last_key`` set as that leaves them (:meth:`~xo_fit.search.engines.Objective.absorb`). The same points and
+    the same end as :func:`polish_limited`, bit for bit; the caller stops it at the budget (:class:`Stop`)."""
+    best: list = [np.inf, np.array(start, dtype=float)]  # the best [key, point] of this polish, feasibility first
+    c0, _ = yield best[1][None]
+    scale = 1.0 / (1.0 + (abs(float(c0[0])) if np.isfinite(c0[0]) else 0.0))
+    for _ in range(POLISH_ROUNDS):
+        before = best[0]
+        yield from together_steps(obj, [LimitPolish(obj, n, m, scale, best) for m in margins])
+        if not best[0] < before:
+            return
+
+
+def together_steps(obj, runs: list):
     """Run SLSQP runs side by side: each step, every run's request (one design, or n for a gradient, and the
     restoration's few) goes into ONE batch of the objective, so that the kernel's cost per call is shared (a
     single design costs several times its share of a batch). Where scipy's compiled routine cannot be driven
     (:func:`~xo_fit.search.slsqp.slsqp_steps` gives None) they run one after another instead.
+
+    A generator: it yields each batch of cube points and is sent back ``obj.evaluate``'s (costs, violations)
+    (see :func:`polish_limited_steps`). The caller holds one BLAS thread around it (a generator's context would
+    be left out of order among several run side by side).
 
     Parameters
     ----------
@@ -157,21 +175,20 @@ def together(obj, runs: list) -> None:
         for r in runs:
             r.run()
         return
-    with one_blas_thread():
-        asks = {i: next(s) for i, s in enumerate(steps)}
-        while asks:
-            blocks = [(i, kind, runs[i].points(kind, x)) for i, (kind, x) in asks.items()]
-            cost, _ = obj.evaluate(np.vstack([b[2] for b in blocks]))
-            excess, key = obj.last_excess, obj.last_key
-            at = 0
-            for i, kind, points in blocks:
-                k = points.shape[0]
-                answer = runs[i].digest(kind, points, cost[at:at + k], excess[at:at + k], key[at:at + k])
-                at += k
-                try:
-                    asks[i] = steps[i].send(answer)
-                except StopIteration:
-                    del asks[i]
+    asks = {i: next(s) for i, s in enumerate(steps)}
+    while asks:
+        blocks = [(i, kind, runs[i].points(kind, x)) for i, (kind, x) in asks.items()]
+        cost, _ = yield np.vstack([b[2] for b in blocks])
+        excess, key = obj.last_excess, obj.last_key
+        at = 0
+        for i, kind, points in blocks:
+            k = points.shape[0]
+            answer = runs[i].digest(kind, points, cost[at:at + k], excess[at:at + k], key[at:at + k])
+            at += k
+            try:
+                asks[i] = steps[i].send(answer)
+            except StopIteration:
+                del asks[i]
 
 
 class LimitPolish:

@@ -115,7 +115,7 @@ def minimize_box(fun: Callable[[np.ndarray], tuple[float, np.ndarray]], x0: np.n
         return _run(setulb, fun, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
 
 
-_controller: list = []  # threadpoolctl's view of the loaded libraries, found once (a search of the process's maps)
+_controller: list = []  # [(what was loaded, threadpoolctl's view of the loaded libraries)] (a search of the maps)
 _inherited: list = []  # [True] in a process forked with one BLAS thread (inherit_one_blas_thread)
 _forking: list = []  # inside one_blas_thread_for_forks: [whether BLAS runs on one thread]
 
@@ -135,11 +135,14 @@ def one_blas_thread():
     if _inherited:
         return contextlib.nullcontext()
     try:
-        if not _controller:
+        # looked up again where a module or a compiled routine was loaded since (its BLAS would be missed: scipy's
+        # SLSQP loaded after the look-up ran on two threads, and its results changed with them)
+        loaded = (len(sys.modules), len(_routines))
+        if not _controller or _controller[0][0] != loaded:
             from threadpoolctl import ThreadpoolController
 
-            _controller.append(ThreadpoolController())
-        return _controller[0].limit(limits=1, user_api="blas")
+            _controller[:] = [(loaded, ThreadpoolController())]
+        return _controller[0][1].limit(limits=1, user_api="blas")
     except Exception:  # noqa: BLE001 - threadpoolctl missing or failing: run as it is
         return contextlib.nullcontext()
 

@@ -3,7 +3,7 @@
 A prune refits a dozen or more trial removals per step, each a short polish of a few hundred evaluations in
 batches of n + 1 points (the forward-difference stencil). One call of the compiled cost per stencil pays the
 call's fixed cost (argument checks, the kernel's entry, the reductions' set-up) a dozen times over for a few
-designs each. Here every polish is a generator (:func:`xo_fit.search.engines.polish_steps`) and one round asks
+designs each. Here every polish is a generator (:func:`xo_fit.search.polish.polish_steps`) and one round asks
 each for its next stencil, maps each into the common designs (a trial's free values written into its columns of
 the shared kernel's designs) and evaluates them all in ONE call. Each design's cost depends on that design
 alone, so every polish takes the iterates it would take on its own (:func:`xo_fit.search.engines.polish_from`),
@@ -17,7 +17,8 @@ from collections.abc import Callable, Sequence
 
 import numpy as np
 
-from xo_fit.search.engines import Objective, SearchResult, polish_from, polish_steps
+from xo_fit.search.engines import Objective, SearchResult, polish_from
+from xo_fit.search.polish import polish_steps
 from xo_fit.search.feasibility import Stop
 from xo_fit.search.lbfgsb import one_blas_thread
 from xo_fit.search.space import Space

@@ -27,6 +27,18 @@ def _slsqp():
     return compiled_routine("_slsqplib", "slsqp", (1, 16))
 
 
+def load_routine() -> bool:
+    """Load scipy's compiled SLSQP now, before a caller limits BLAS to one thread
+    (:func:`xo_fit.search.lbfgsb.one_blas_thread`), so that the limit covers the library the routine brings.
+
+    Returns
+    -------
+    bool
+        Whether the routine can be driven (:func:`slsqp_steps` gives a generator).
+    """
+    return _slsqp() is not None
+
+
 def minimize_slsqp(values: Callable[[np.ndarray], tuple[float, np.ndarray]],
                    gradients: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray, np.ndarray]], x0: np.ndarray,
                    lower: np.ndarray, upper: np.ndarray, *, ftol: float, maxiter: int) -> tuple[np.ndarray, float]:
