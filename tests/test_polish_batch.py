@@ -101,3 +101,28 @@ def test_without_scipys_routine_they_run_one_after_another(monkeypatch):
     got = polish_together(cost, [(s, s.values) for s in spaces], starts, budget=500)
     for space, start, r in zip(spaces, starts, got):
         assert r is not None and r.evaluations <= 500 and r.cost <= cost(space.values(start[None]))[0]
+
+
+def limited(designs: np.ndarray):
+    """The cost above under one limit: the sum of the logarithms at most 0.5 (its signed relative excess), as
+    the objective takes a constrained cost: (costs, total violations, each limit's excess)."""
+    x = np.log10(designs)
+    excess = (np.sum(x, axis=1) - 0.5)[:, None]
+    return cost(designs), np.maximum(excess[:, 0], 0.0), excess
+
+
+@pytest.mark.parametrize("budget", [5, 60, 400])
+@pytest.mark.parametrize("margins", [None, (1e-4,)])
+def test_limited_polishes_side_by_side_end_where_each_ends_alone(budget, margins):
+    """Under limits each polish is the SLSQP of polish_limited (held to scipy's SLSQP in tests/test_slsqp.py);
+    run side by side it must evaluate the same points and end where it ends alone, at any budget."""
+    spaces = [space_of(cols, base) for cols, base, _ in PROBLEMS]
+    starts = [np.array(s) for _, _, s in PROBLEMS]
+    got = polish_together(limited, [(s, s.values) for s in spaces], starts, budget=budget, constrained=True,
+                          margins=margins)
+    for space, start, r in zip(spaces, starts, got):
+        alone = polish_from(lambda u, sp=space: limited(sp.values(u)), space, start, budget=budget,
+                            constrained=True, margins=margins)
+        assert r is not None and alone is not None
+        assert np.array_equal(r.u, alone.u) and r.cost == alone.cost and r.violation == alone.violation
+        assert r.evaluations == alone.evaluations <= budget and r.history == alone.history

@@ -19,20 +19,23 @@ import numpy as np
 
 from xo_fit.search.engines import Objective, SearchResult, polish_from
 from xo_fit.search.polish import polish_steps
-from xo_fit.search.feasibility import Stop
+from xo_fit.search.feasibility import Stop, polish_limited_steps
 from xo_fit.search.lbfgsb import one_blas_thread
+from xo_fit.search.slsqp import load_routine
 from xo_fit.search.space import Space
 
 
-def polish_together(evaluate: Callable[[np.ndarray], np.ndarray], problems: Sequence[tuple[Space, Callable]],
-                    starts: Sequence[np.ndarray], budget: int) -> list[SearchResult | None]:
-    """Unconstrained polishes (L-BFGS-B, as :func:`~xo_fit.search.engines.polish_from`) of several problems
+def polish_together(evaluate: Callable, problems: Sequence[tuple[Space, Callable]], starts: Sequence[np.ndarray],
+                    budget: int, constrained: bool = False, margins: tuple | None = None) -> list[SearchResult | None]:
+    """Polishes (L-BFGS-B; under limits SLSQP, as :func:`~xo_fit.search.engines.polish_from`) of several problems
     whose designs one cost function evaluates, their points evaluated in one batch per round.
 
     Parameters
     ----------
     evaluate : callable
-        Designs (B, P) -> costs (B,), dimensionless; each row's cost must depend on that row alone.
+        Designs (B, P) -> costs (B,), dimensionless; with ``constrained`` -> (costs (B,), total violations (B,),
+        each limit's signed excess (B, L)) (:class:`~xo_fit.search.engines.Objective`'s ``fn``). Each row's
+        figures must depend on that row alone.
     problems : sequence of (Space, callable)
         Each problem's free values (its unit cube, n_i dimensions) and its map of cube points (B, n_i) to
         designs (B, P), in ``evaluate``'s units.
@@ -40,12 +43,16 @@ def polish_together(evaluate: Callable[[np.ndarray], np.ndarray], problems: Sequ
         Each problem's start point in its cube, shape (n_i,).
     budget : int
         Evaluations for each problem at most (dimensionless).
+    constrained : bool
+        Feasibility first under [limits]: the SLSQP polish (:func:`~xo_fit.search.feasibility.polish_limited`).
+    margins : tuple of float, optional
+        Its runs' margins (dimensionless); default the fit's.
 
     Returns
     -------
     list of SearchResult or None
         Each problem's polish: what ``polish_from(lambda u: evaluate(to_designs(u)), space, start,
-        budget=budget)`` returns, bit for bit (None where it would be).
+        budget=budget, constrained=constrained, margins=margins)`` returns, bit for bit (None where it would be).
 
     Raises
     ------
@@ -53,13 +60,20 @@ def polish_together(evaluate: Callable[[np.ndarray], np.ndarray], problems: Sequ
         Where the process was asked to stop (Ctrl-C, SIGTERM, its parent): the polishes are dropped.
     """
     fns = [(lambda u, to=to: evaluate(to(u))) for _, to in problems]
-    runs = [polish_steps(space.dims, np.asarray(s, dtype=float)) for (space, _), s in zip(problems, starts)]
+    objs = [Objective(fn=fn, budget=budget, constrained=constrained) for fn in fns]
+    starts = [np.asarray(s, dtype=float) for s in starts]
+    runs: list  # each problem's generator (None: the routine cannot be driven)
+    if constrained:
+        runs = ([polish_limited_steps(o, space.dims, s, *([margins] if margins else []))
+                 for o, (space, _), s in zip(objs, problems, starts)] if load_routine() else [None])
+    else:
+        runs = [polish_steps(space.dims, s) for (space, _), s in zip(problems, starts)]
     if any(r is None for r in runs):  # scipy's routine cannot be driven: one after another
-        return [polish_from(fn, space, s, budget=budget) for fn, (space, _), s in zip(fns, problems, starts)]
+        return [polish_from(fn, space, s, budget=budget, constrained=constrained, margins=margins)
+                for fn, (space, _), s in zip(fns, problems, starts)]
     t0 = time.monotonic()
-    objs = [Objective(fn=fn, budget=budget) for fn in fns]
-    asked = {i: next(r) for i, r in enumerate(runs)}
     with one_blas_thread():
+        asked = {i: next(r) for i, r in enumerate(runs)}
         while asked:
             batch, parts = [], []
             for i, pts in list(asked.items()):
@@ -73,13 +87,15 @@ def polish_together(evaluate: Callable[[np.ndarray], np.ndarray], problems: Sequ
                 parts.append((i, pts, take))
             if not parts:
                 break
-            costs = np.asarray(evaluate(np.concatenate(batch) if len(batch) > 1 else batch[0]), dtype=float)
+            out = evaluate(np.concatenate(batch) if len(batch) > 1 else batch[0])
             at = 0
             for i, pts, take in parts:
-                got = objs[i].record(pts, take, costs[at:at + take], np.zeros(pts.shape[0]))
+                mine = (tuple(np.asarray(x)[at:at + take] for x in out) if constrained
+                        else np.asarray(out, dtype=float)[at:at + take])
+                got = objs[i].absorb(pts, take, mine)
                 at += take
                 try:
-                    asked[i] = runs[i].send(got)
+                    asked[i] = runs[i].send(got if constrained else got[0])
                 except StopIteration:
                     del asked[i]
     seconds = time.monotonic() - t0

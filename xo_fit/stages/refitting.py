@@ -184,10 +184,10 @@ def step_trials(system, values: dict, options: list, budget: int, seed: int, fam
     """The trial removals ``options`` [(name, how)] from ``system`` at design ``values`` ({name: value}, SI): for
     each, (Scored, evaluations) of the reduced system's refit (``light``, see :func:`refit`), or None where the
     removal is no legal netlist (:func:`xo_fit.stages.removal.variant`; ``source``: the system's job's
-    JobDocument). ``gone``: the parts removed before this step ({name: how}). On ``family``'s kernel without
-    [limits] the refits run side by side, their points in one batch per round
-    (:func:`xo_fit.search.polish_batch.polish_together`: each refit's result as on its own, bit for bit); else
-    one after another. Raises :class:`Interrupted` or KeyboardInterrupt where Ctrl-C or SIGTERM stopped them."""
+    JobDocument). ``gone``: the parts removed before this step ({name: how}). On ``family``'s kernel the refits
+    run side by side, their points in one batch per round (:func:`xo_fit.search.polish_batch.polish_together`:
+    each refit's result as on its own, bit for bit); on the dense solve one after another. Raises
+    :class:`Interrupted` or KeyboardInterrupt where Ctrl-C or SIGTERM stopped them."""
 
     reduced = [variant(system, name, how, values, source=source) for name, how in options]
     out: list = [None] * len(options)
@@ -196,7 +196,7 @@ def step_trials(system, values: dict, options: list, budget: int, seed: int, fam
         if s is None:
             continue
         removed = {**gone, name: how}
-        space = make_space(s.job) if family is not None and not family.limited and s.job.free_parts else None
+        space = make_space(s.job) if family is not None and s.job.free_parts else None
         to = family.cube_map(s, space, removed) if space is not None and family is not None else None
         if to is None:
             out[k] = refit(s, budget, seed, family, removed, light=True, targets=targets)
@@ -204,13 +204,14 @@ def step_trials(system, values: dict, options: list, budget: int, seed: int, fam
             together.append((k, space, to))
     if together:
         assert family is not None  # only the family's refits go side by side
-        got = polish_together(family.fused, [(space, to) for _, space, to in together],
-                              [start_of(space) for _, space, _ in together], budget)
+        got = polish_together(family.fused.limited if family.limited else family.fused,
+                              [(space, to) for _, space, to in together], [start_of(space) for _, space, _ in together],
+                              budget, constrained=family.limited, margins=REFIT_MARGINS)
         for (k, space, _), r in zip(together, got):
-            if r is None:  # stopped before its first evaluation: the start, scored exactly
-                s = reduced[k]
-                out[k] = (light_score(s, model_of(s, targets), space.values(start_of(space))[0]), 0)
+            u, s = start_of(space) if r is None else r.u, reduced[k]
+            if r is None or family.limited:  # scored exactly: under [limits] every trial (its limits judged so)
+                out[k] = (light_score(s, model_of(s, targets), space.values(u)[0]), 0 if r is None else r.evaluations)
             else:  # the family kernel's cost (see the module): the step taken is scored exactly
-                out[k] = (Scored(values=space.values(r.u)[0], sim=None, cost=r.cost, terms={}, metrics={},
+                out[k] = (Scored(values=space.values(u)[0], sim=None, cost=r.cost, terms={}, metrics={},
                                  targets=None, level_db=None), r.evaluations)
     return out
