@@ -9,11 +9,10 @@ random numbers. The refits search on the starting design's compiled cost kernel
 (:class:`Family`: a removed part stands in as an extreme value, so no removal
 waits for a compiler), a step's refits side by side with their points in one
 batch of the kernel (:mod:`xo_fit.search.polish_batch`); each trial's cost is the
-kernel's (within ~1e-6 relative of the reduced netlist's; under ``[limits]`` the
-trials are refitted one by one and scored on their reduced netlists, exact) and
-the removal taken is scored on the reduced netlist itself, so every step's cost
-is exact. The
-kernel judges a rated part (the stress term, the ratings limit) only where it
+kernel's (within ~1e-6 relative of the reduced netlist's; under ``[limits]``
+each trial is scored on its reduced netlist, exact) and the removal taken is
+scored on the reduced netlist itself, so every step's cost is exact. The kernel
+judges a rated part (the stress term, the ratings limit) only where it
 is not at a stand-in value, as the reduced netlist leaves a removed one out; a
 job without a fused kernel (``[cost] protection``, the reference cost) refits on
 the dense solve, every trial scored exactly. The cheapest removal is taken and
