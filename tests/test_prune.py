@@ -334,7 +334,8 @@ def test_side_by_side_trials_cost_what_their_reduced_netlists_cost_and_workers_c
     for (name, how), got in zip(options, found):
         if got is None:
             continue
-        sc, evaluations = got
+        sc, evaluations, judged = got
+        assert judged is None  # no limits
         assert 0 < evaluations <= 120
         exact = score(variant(system, name, how, values), sc.values).cost
         assert sc.cost == pytest.approx(exact, rel=1e-4), (name, how)

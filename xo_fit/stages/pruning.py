@@ -365,16 +365,18 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
             for (name, how), got in zip(options, found):
                 if got is None:
                     continue
-                sc, n = got
+                sc, n, judged = got
                 spent[0] += n
                 trials.append({"step": len(steps), "removed": name, "how": how, "cost": sc.cost})
                 if sc.cost is None or not math.isfinite(sc.cost):
                     continue
                 s = None
                 if last_system.job.limits.active:
-                    s = variant(last_system, name, how, values, check_dead=False, source=source)
-                    assert s is not None, "a removal refitted is a legal one"
-                    violation, broken = broken_limits(s, sc.values, targets)
+                    if judged is None:  # not judged with its score: on its reduced netlist here
+                        s = variant(last_system, name, how, values, check_dead=False, source=source)
+                        assert s is not None, "a removal refitted is a legal one"
+                        judged = broken_limits(s, sc.values, targets)
+                    violation, broken = judged
                     if violation > allowed + 1e-12:  # it breaks a limit the current design meets: refused
                         trials[-1]["refused"] = broken
                         continue

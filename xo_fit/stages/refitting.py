@@ -111,10 +111,18 @@ def start_of(space) -> np.ndarray:
 def light_score(system, model, values: np.ndarray):
     """A Scored of design ``values`` (P,), SI, with its exact cost on the system's own netlist (dense solve) and
     nothing else (no ``sim``, terms or metrics): a trial's, scored in full only if taken."""
+    return light_judged(system, model, values)[0]
 
+
+def light_judged(system, model, values: np.ndarray) -> tuple:
+    """:func:`light_score` and, from the same dense solve, what :func:`broken_limits` says of the design: (Scored,
+    (total violation, names of the limits broken)), the second None where the cost model has no limits."""
     v = np.asarray(values, dtype=float)[None]
     ev = model[0].evaluate_simulation(system.simulate(v, dense=True), v)  # what score() computes the cost with
-    return Scored(values=v[0], sim=None, cost=float(ev.cost[0]), terms={}, metrics={}, targets=None, level_db=None)
+    scored = Scored(values=v[0], sim=None, cost=float(ev.cost[0]), terms={}, metrics={}, targets=None, level_db=None)
+    if ev.violations is None:
+        return scored, None
+    return scored, (float(ev.violations["total"][0]), [n for n in LIMIT_NAMES if ev.violations[n][0] > 0])
 
 
 def model_of(system, targets=None):
@@ -182,7 +190,8 @@ def pooled_trials(args):
 def step_trials(system, values: dict, options: list, budget: int, seed: int, family, gone: dict,
                 targets, source=None) -> list:
     """The trial removals ``options`` [(name, how)] from ``system`` at design ``values`` ({name: value}, SI): for
-    each, (Scored, evaluations) of the reduced system's refit (``light``, see :func:`refit`), or None where the
+    each, (Scored, evaluations, limits) of the reduced system's refit (``light``, see :func:`refit`; ``limits``:
+    what :func:`broken_limits` says of it where already judged, else None), or None where the
     removal is no legal netlist (:func:`xo_fit.stages.removal.variant`; ``source``: the system's job's
     JobDocument). ``gone``: the parts removed before this step ({name: how}). On ``family``'s kernel the refits
     run side by side, their points in one batch per round (:func:`xo_fit.search.polish_batch.polish_together`:
@@ -199,7 +208,7 @@ def step_trials(system, values: dict, options: list, budget: int, seed: int, fam
         space = make_space(s.job) if family is not None and s.job.free_parts else None
         to = family.cube_map(s, space, removed) if space is not None and family is not None else None
         if to is None:
-            out[k] = refit(s, budget, seed, family, removed, light=True, targets=targets)
+            out[k] = (*refit(s, budget, seed, family, removed, light=True, targets=targets), None)
         else:
             together.append((k, space, to))
     if together:
@@ -209,9 +218,10 @@ def step_trials(system, values: dict, options: list, budget: int, seed: int, fam
                               budget, constrained=family.limited, margins=REFIT_MARGINS)
         for (k, space, _), r in zip(together, got):
             u, s = start_of(space) if r is None else r.u, reduced[k]
-            if r is None or family.limited:  # scored exactly: under [limits] every trial (its limits judged so)
-                out[k] = (light_score(s, model_of(s, targets), space.values(u)[0]), 0 if r is None else r.evaluations)
+            if r is None or family.limited:  # scored exactly: under [limits] every trial, its limits judged too
+                scored, judged = light_judged(s, model_of(s, targets), space.values(u)[0])
+                out[k] = (scored, 0 if r is None else r.evaluations, judged)
             else:  # the family kernel's cost (see the module): the step taken is scored exactly
                 out[k] = (Scored(values=space.values(u)[0], sim=None, cost=r.cost, terms={}, metrics={},
-                                 targets=None, level_db=None), r.evaluations)
+                                 targets=None, level_db=None), r.evaluations, None)
     return out
