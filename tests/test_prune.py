@@ -80,8 +80,9 @@ def test_prune_removes_the_idle_part_first_and_writes_its_job(write_job, tmp_pat
     doc = json.loads((tmp_path / "p" / "result.json").read_text())
     assert doc["stage"] == "prune" and "CX" not in doc["parts"]
     chosen = doc["prune"]["chosen_step"]
-    # within 10 % of step 0's cost, or of COST_FLOOR (1e-3) for a start on target, as the docs say
+    # within 10 % of step 0's cost, or of COST_FLOOR (1e-3) for a start on target, as the docs and the console say
     assert float(rows[chosen]["cost"]) <= float(rows[0]["cost"]) + 0.10 * max(float(rows[0]["cost"]), 1e-3)
+    assert "within 10 % of 0.001, step 0 being on target" in out
     assert all(float(r["cost"]) > float(rows[0]["cost"]) * 1.10 for r in rows if int(r["parts"]) < int(rows[chosen]["parts"]))
     # the pruned job runs as it is, and gives the chosen design's cost
     code, out, err = cli("simulate", tmp_path / "p" / "job.toml", "--out", tmp_path / "s", "--no-plots")

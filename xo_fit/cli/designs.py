@@ -23,7 +23,7 @@ from xo_fit.cli.console import (
     say,
     warn,
 )
-from xo_fit.config import MAX_INCREASE, REFIT_BUDGET
+from xo_fit.config import COST_FLOOR, MAX_INCREASE, REFIT_BUDGET
 from xo_fit.errors import XoFitError
 from xo_fit.io.results import check_folder
 from xo_fit.job.model import DEFAULTS
@@ -329,7 +329,9 @@ def prune(job: Path = typer.Argument(..., help="The job file (TOML)."),
         mark = "  <- chosen" if r["step"] == pr.chosen else ""
         say(f"  {r['step']:>4} {r['parts']:>5} {r['removed']:<10} {r['how']:<6} {r['cost']:>10.4g} "
             f"{r['rms_error_db']:>7.2f} {r['max_error_db']:>8.2f}{mark}")
-    say(f"  chosen: {pr.steps[pr.chosen]['parts']} parts, within {max_increase:g} % of step 0's cost; "
+    base = pr.steps[0]["cost"]
+    of = f"of {COST_FLOOR:g}, step 0 being on target" if base is not None and base < COST_FLOOR else "of step 0's cost"
+    say(f"  chosen: {pr.steps[pr.chosen]['parts']} parts, within {max_increase:g} % {of}; "
         f"{pr.evaluations} evaluations in {time.perf_counter() - t0:.1f} s")
     for t in pr.trials:
         if t.get("refused"):
