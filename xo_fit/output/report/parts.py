@@ -8,6 +8,7 @@ none, the last result, whose values the page then says are continuous. Each sect
 
 from __future__ import annotations
 
+from xo_fit.config import COST_FLOOR
 from xo_fit.output.report.markup import Markup, bullets, code, image, join, num, para, section, table, tag
 
 #: The "What to buy" table's columns: (head, bom.csv column).
@@ -132,9 +133,13 @@ def prune_section(rep) -> Markup:
             for r in sec.get("steps") or [] if isinstance(r, dict)]
     share = sec.get("max_increase")
     share = num(share * 100 if isinstance(share, (int, float)) else share, "g")
+    steps = [r for r in sec.get("steps") or [] if isinstance(r, dict)]
+    base = steps[0].get("cost") if steps else None
+    of = (f"of {COST_FLOOR:g} (step 0 on target)" if isinstance(base, (int, float)) and base < COST_FLOOR
+          else "of step 0's cost")
     return section("Pruning", para(
         "Each step removes the part whose removal costs least (the rest refitted); the chosen design has the fewest "
-        f"parts within {share} % of step 0's cost."),
+        f"parts within {share} % {of}."),
         table(["step", "parts", "removed", "how", "cost", "rms error (dB)", "worst error (dB)", ""], rows))
 
 
