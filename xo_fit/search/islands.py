@@ -313,7 +313,6 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
         as ``cpu_start``, ``cpu_started``; ``forked``: {island: its CPU time in s from ``cpu_start`` when it had
         forked the process of that island} (:attr:`xo_fit.search.forks.Started.forked`).
     """
-    import contextlib
     import functools
     import multiprocessing
 
@@ -331,7 +330,7 @@ def run_islands(problem: Problem, seeds: list[int], *, optimizer: str, budget: i
     conns = [parent for parent, _ in pipes]
     started = forks.Started()
     coordinator = Coordinator(conns, event, budget if polish else 0)
-    blas = one_blas_thread_for_forks() if ctx.get_start_method() == "fork" else contextlib.nullcontext(False)
+    blas = one_blas_thread_for_forks(ctx)
     # a signal now stops the islands, and the parent gathers what they found; forked islands keep one BLAS thread
     with signals_set(event) as signals, blas as one_thread:
         options["one_blas_thread"] = one_thread

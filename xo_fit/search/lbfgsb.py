@@ -176,7 +176,7 @@ def lbfgsb_steps(x0: np.ndarray, lower: np.ndarray, upper: np.ndarray, *, ftol: 
 
 
 @contextlib.contextmanager
-def one_blas_thread_for_forks() -> Iterator[bool]:
+def one_blas_thread_for_forks(ctx=None) -> Iterator[bool]:
     """:func:`one_blas_thread` around processes forked inside (the islands of ``fit --workers``), which keep it
     (:func:`inherit_one_blas_thread`).
 
@@ -188,11 +188,20 @@ def one_blas_thread_for_forks() -> Iterator[bool]:
 
     Inside another (its caller's, which then restores later: after the work that follows the forks), a no-op.
 
+    Parameters
+    ----------
+    ctx : multiprocessing context, optional
+        The context the processes start in: where it does not fork, nothing is limited (a spawned process
+        starts its own BLAS) and the context yields False.
+
     Yields
     ------
     bool
         Whether BLAS runs on one thread inside (threadpoolctl found the libraries).
     """
+    if ctx is not None and ctx.get_start_method() != "fork":
+        yield False
+        return
     if _forking:
         yield _forking[-1]
         return

@@ -335,8 +335,7 @@ def _eliminate(steps: list, states: list, trials: list, spent: list, budget: int
         from xo_fit.search.lbfgsb import one_blas_thread_for_forks
 
         # forked workers keep one BLAS thread without setting it (setting it after a fork wakes spinning threads)
-        forked = multiprocessing.get_context().get_start_method() == "fork"
-        one = held.enter_context(one_blas_thread_for_forks()) if forked else False
+        one = held.enter_context(one_blas_thread_for_forks(multiprocessing.get_context()))
         pool, stop = stopping_pool(workers, share, (states[0][0], family, targets, one))
     try:
         while True:

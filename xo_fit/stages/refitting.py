@@ -149,10 +149,9 @@ def broken_limits(system, values: np.ndarray, targets=None) -> tuple[float, list
     model = cost_model(system) if targets is None else model_of(system, targets)
     if model is None or model[0].limits is None:
         return 0.0, []
-    v = np.asarray(values, dtype=float)[None]
-    violations = model[0].evaluate_simulation(system.simulate(v, dense=True), v).violations
-    assert violations is not None, "a cost model with limits reports their violations"
-    return float(violations["total"][0]), [n for n in LIMIT_NAMES if violations[n][0] > 0]
+    judged = light_judged(system, model, values)[1]
+    assert judged is not None, "a cost model with limits reports their violations"
+    return judged
 
 
 #: What every trial of a prune shares in a worker process (:func:`share`): the starting system (its driver data,
