@@ -46,7 +46,8 @@ from xo_fit.config import (CONVERGED, MAX_POPULATION, POLISH_BASINS, POLISH_SHAR
                            STAGNATION_TOL)
 from xo_fit.errors import XoFitError
 from xo_fit.job.settings import SearchSpec
-from xo_fit.search.feasibility import LIMITED_POLISH_SHARE, EpsilonLevel, Stop, feasibility_key, polish_limited
+from xo_fit.search.feasibility import (LIMITED_POLISH_SHARE, POLISH_MARGINS, EpsilonLevel, Stop, feasibility_key,
+                                      polish_limited)
 from xo_fit.search.interrupt import stop_requested
 from xo_fit.search.polish import polish_box
 from xo_fit.search.space import Space
@@ -450,7 +451,7 @@ def polish_from(fn: Callable, space: Space, start: np.ndarray, *, budget: int, c
     obj = Objective(fn=fn, budget=budget, constrained=constrained)
     try:
         if constrained:
-            polish_limited(obj, space.dims, np.asarray(start, dtype=float), *([margins] if margins else []))
+            polish_limited(obj, space.dims, np.asarray(start, dtype=float), margins or POLISH_MARGINS)
         else:
             polish_box(obj, space.dims, np.asarray(start, dtype=float))
     except _Stop:

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 
 from xo_fit.config import POLISH_STEP
-from xo_fit.search.lbfgsb import one_blas_thread
+from xo_fit.search.lbfgsb import drive, one_blas_thread
 from xo_fit.search.slsqp import load_routine, minimize_slsqp, slsqp_steps
 
 #: An infeasible design's key is LIMIT_KEY (1 + violation): above every feasible cost (the cost terms are squared
@@ -128,10 +128,8 @@ def polish_limited(obj, n: int, start: np.ndarray | None = None, margins: tuple 
     load_routine()  # before the limit, which covers the BLAS libraries loaded when it is set up
     with one_blas_thread():
         try:
-            pts = next(steps)
-            while True:
-                pts = steps.send(obj.evaluate(pts))
-        except (Stop, StopIteration):
+            drive(steps, obj.evaluate)
+        except Stop:  # the budget or the time is used up
             steps.close()
 
 

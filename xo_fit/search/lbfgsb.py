@@ -220,15 +220,33 @@ def inherit_one_blas_thread() -> None:
     _inherited[:] = [True]
 
 
-def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: int) -> tuple[np.ndarray, float]:
-    """:func:`_steps` driven by ``fun`` (see :func:`minimize_box`)."""
-    steps = _steps(setulb, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter)
+def drive(steps, answer: Callable):
+    """Run a reverse-communication generator to its end: each request it yields is sent back ``answer(request)``.
+
+    Parameters
+    ----------
+    steps : generator
+        The minimisation as a generator (:func:`lbfgsb_steps`, :func:`xo_fit.search.slsqp.slsqp_steps`,
+        :func:`xo_fit.search.feasibility.polish_limited_steps`).
+    answer : callable
+        Its requests' answers (what it expects sent back); whatever it raises stops the run.
+
+    Returns
+    -------
+    object
+        What the generator returns (its ``StopIteration.value``).
+    """
     try:
-        x = next(steps)
+        request = next(steps)
         while True:
-            x = steps.send(fun(x))
+            request = steps.send(answer(request))
     except StopIteration as end:
         return end.value
+
+
+def _run(setulb, fun, x0, lower, upper, *, ftol: float, gtol: float, maxiter: int) -> tuple[np.ndarray, float]:
+    """:func:`_steps` driven by ``fun`` (see :func:`minimize_box`)."""
+    return drive(_steps(setulb, x0, lower, upper, ftol=ftol, gtol=gtol, maxiter=maxiter), fun)
 
 
 def _steps(setulb, x0, lower, upper, *, ftol: float, gtol: float, maxiter: int):

@@ -19,7 +19,7 @@ import numpy as np
 
 from xo_fit.search.engines import Objective, SearchResult, polish_from
 from xo_fit.search.polish import polish_steps
-from xo_fit.search.feasibility import Stop, polish_limited_steps
+from xo_fit.search.feasibility import POLISH_MARGINS, Stop, polish_limited_steps
 from xo_fit.search.lbfgsb import one_blas_thread
 from xo_fit.search.slsqp import load_routine
 from xo_fit.search.space import Space
@@ -64,7 +64,7 @@ def polish_together(evaluate: Callable, problems: Sequence[tuple[Space, Callable
     starts = [np.asarray(s, dtype=float) for s in starts]
     runs: list  # each problem's generator (None: the routine cannot be driven)
     if constrained:
-        runs = ([polish_limited_steps(o, space.dims, s, *([margins] if margins else []))
+        runs = ([polish_limited_steps(o, space.dims, s, margins or POLISH_MARGINS)
                  for o, (space, _), s in zip(objs, problems, starts)] if load_routine() else [None])
     else:
         runs = [polish_steps(space.dims, s) for (space, _), s in zip(problems, starts)]

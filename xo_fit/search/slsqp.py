@@ -18,7 +18,7 @@ from collections.abc import Callable, Generator
 
 import numpy as np
 
-from xo_fit.search.lbfgsb import compiled_routine, one_blas_thread
+from xo_fit.search.lbfgsb import compiled_routine, drive, one_blas_thread
 
 _MODE_VALUES, _MODE_GRADIENTS = 1, -1  # the routine asks for f and c, or for their gradients
 
@@ -75,13 +75,7 @@ def minimize_slsqp(values: Callable[[np.ndarray], tuple[float, np.ndarray]],
         return _through_scipy(values, gradients, x, np.asarray(lower, dtype=np.float64),
                               np.asarray(upper, dtype=np.float64), ftol=ftol, maxiter=maxiter)
     with one_blas_thread():
-        request = next(steps)
-        while True:
-            kind, x = request
-            try:
-                request = steps.send(values(x) if kind == "values" else gradients(x))
-            except StopIteration as end:
-                return end.value
+        return drive(steps, lambda request: values(request[1]) if request[0] == "values" else gradients(request[1]))
 
 
 def slsqp_steps(x0: np.ndarray, lower: np.ndarray, upper: np.ndarray, *, ftol: float,
